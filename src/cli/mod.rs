@@ -1,0 +1,68 @@
+//! The command line: clap types, one file per subcommand. The only module that knows clap and the
+//! only one that reads the wall clock. It turns flags and the config file into values, calls the
+//! layers below, and prints.
+
+use std::io::Write;
+use std::process::ExitCode;
+
+use clap::{Parser, Subcommand};
+
+use crate::Error;
+
+/// Exit code: finished, nothing flagged.
+pub const EXIT_OK: u8 = 0;
+/// Exit code: an error stopped the command.
+pub const EXIT_ERROR: u8 = 1;
+/// Exit code: finished, and at least one test was flagged.
+pub const EXIT_FLAGGED: u8 = 3;
+
+/// samewise: do your machines, lines, shifts and suppliers still produce the same result?
+#[derive(Debug, Parser)]
+#[command(name = "samewise", version, about, long_about = None)]
+pub struct Args {
+    /// What to do.
+    #[command(subcommand)]
+    pub command: Command,
+}
+
+/// The subcommands.
+#[derive(Debug, Subcommand)]
+pub enum Command {
+    /// Print a shell completion script (bash, zsh or fish) to stdout.
+    Completions {
+        /// The shell.
+        shell: clap_complete::Shell,
+    },
+}
+
+impl Args {
+    /// Parses the process arguments (exits with clap's message on a usage error).
+    pub fn parse_from_env() -> Self {
+        Args::parse()
+    }
+}
+
+/// Runs one command and returns the process exit code.
+pub fn run(args: Args) -> crate::Result<ExitCode> {
+    match args.command {
+        Command::Completions { shell } => {
+            let mut cmd = <Args as clap::CommandFactory>::command();
+            let mut out = std::io::stdout().lock();
+            clap_complete::generate(shell, &mut cmd, "samewise", &mut out);
+            let _ = out.flush();
+            Ok(ExitCode::from(EXIT_OK))
+        }
+    }
+}
+
+/// Prints `error: ` and the message with each cause on its own line to stderr; returns exit code 1.
+pub fn report_error(err: &Error) -> ExitCode {
+    let mut stderr = std::io::stderr().lock();
+    let _ = writeln!(stderr, "error: {err}");
+    let mut source = std::error::Error::source(err);
+    while let Some(cause) = source {
+        let _ = writeln!(stderr, "  caused by: {cause}");
+        source = cause.source();
+    }
+    ExitCode::from(EXIT_ERROR)
+}

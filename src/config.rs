@@ -1,0 +1,1 @@
+//! The plant configuration file (TOML), validated once into a [`Config`].

@@ -1,0 +1,36 @@
+//! samewise: checks whether the groups of a plant (machines, lines, cavities, shifts, suppliers)
+//! still produce the same result for every critical characteristic, keeps the history of every
+//! check, and draws the charts and the monthly review report.
+//!
+//! Modules in reading order, following the one-way flow of data
+//! (`ingest -> storage -> analysis -> stats`, results `-> report`; `cli` and `schedule` decide when):
+//!
+//! - [`stats`]: pure statistics (no I/O, no clock, no SQL). Start at `stats::oneway`.
+//! - [`model`]: plain domain types shared by every layer.
+//! - [`config`]: the plant configuration file, validated once into a `Config`.
+//! - [`ingest`]: CSV exports to measurements, with row-level rejections.
+//! - [`storage`]: all SQLite code (migrations, typed queries).
+//! - [`analysis`]: loads a period, calls `stats`, returns an analysis run.
+//! - [`schedule`]: which periods are due at a given `now`; runs the engine for each.
+//! - [`report`]: charts (plotters) and the self-contained HTML review report.
+//! - [`cli`]: clap types and one file per subcommand; the only module that reads the wall clock.
+#![warn(missing_docs)]
+
+pub mod analysis;
+pub mod cli;
+pub mod config;
+pub mod error;
+pub mod ingest;
+pub mod model;
+pub mod report;
+pub mod schedule;
+pub mod stats;
+pub mod storage;
+
+pub use error::{Error, Result};
+
+/// The caution printed with every report and summary.
+pub const CAUTION: &str =
+    "Caution: a statistical flag is decision support, not a verdict. Release, \
+containment and safety decisions follow the site's own quality procedures, the applicable \
+standards and qualified people.";

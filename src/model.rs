@@ -1,0 +1,1 @@
+//! Plain domain types shared by every layer: characteristics, factors, periods, measurements.

@@ -1,0 +1,2 @@
+//! All SQLite code: opening, migrations, typed queries and the mapping between rows and `model`
+//! types. No other module contains SQL.
