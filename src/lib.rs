@@ -23,6 +23,7 @@ pub mod error;
 pub mod ingest;
 pub mod model;
 pub mod report;
+pub mod sample;
 pub mod schedule;
 pub mod stats;
 pub mod storage;
