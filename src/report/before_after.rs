@@ -13,7 +13,14 @@ use super::{BeforeAfterInput, Layout, Panel, Size};
 
 pub(super) struct BeforeAfter<'a>(pub &'a BeforeAfterInput);
 
-const BEFORE_DASH: super::draw::Dash = Some((8, 5));
+/// `v` with a sign and one decimal more than `reference` shows with 5 significant digits.
+fn signed_like(v: f64, reference: f64) -> String {
+    let shown = format_sig(reference, 5);
+    let decimals = shown.split('.').nth(1).map_or(0, str::len) + 1;
+    format!("{:+.*}", decimals, v)
+}
+
+const BEFORE_DASH: super::draw::Dash = Some((6, 4));
 
 /// Time ticks at round hours or days covering `[lo, hi]` (days since the epoch), about
 /// `target` of them. Returns the ticks and the step in days.
@@ -82,17 +89,17 @@ impl Drawable for BeforeAfter<'_> {
         let mut legend = vec![
             (
                 Swatch::Line {
-                    color: INK,
+                    color: Palette::BLACK,
                     dash: BEFORE_DASH,
-                    width: 3,
+                    width: 4,
                 },
                 "mean before".to_string(),
             ),
             (
                 Swatch::Line {
-                    color: INK,
+                    color: Palette::BLACK,
                     dash: None,
-                    width: 3,
+                    width: 4,
                 },
                 "mean after".to_string(),
             ),
@@ -101,7 +108,7 @@ impl Drawable for BeforeAfter<'_> {
         legend.push((
             Swatch::Line {
                 color: Palette::BLACK,
-                dash: Some((10, 4)),
+                dash: super::draw::EVENT_DASH,
                 width: 2,
             },
             "process change".to_string(),
@@ -110,11 +117,23 @@ impl Drawable for BeforeAfter<'_> {
             "{} by {}: before and after {}",
             b.characteristic, b.factor, b.event.label
         );
+        let limit_text: Vec<String> = [
+            b.limits.lsl.map(|v| format!("LSL {}", format_sig(v, 5))),
+            b.limits
+                .target
+                .map(|v| format!("target {}", format_sig(v, 5))),
+            b.limits.usl.map(|v| format!("USL {}", format_sig(v, 5))),
+        ]
+        .into_iter()
+        .flatten()
+        .collect();
         let subtitle = format!(
-            "Each {} per group, {} .. {}",
+            "Each {} per group, {} .. {}{}{}",
             b.point_kind,
             b.window_start.format("%Y-%m-%d %H:%M"),
-            b.window_end.format("%Y-%m-%d %H:%M")
+            b.window_end.format("%Y-%m-%d %H:%M"),
+            if limit_text.is_empty() { "" } else { "; " },
+            limit_text.join(", ")
         );
         let y = header(c, w, &title, &subtitle, &legend)?;
         let strip_top = y;
@@ -174,7 +193,8 @@ impl Drawable for BeforeAfter<'_> {
                 let x = p.x_px(*t);
                 c.line((x, p.top), (x, p.bottom), GRID, 1, None)?;
             }
-            draw_ref_lines(c, &p, &limit_lines(&b.limits, 5), gi == 0)?;
+            // Limits are named in the subtitle; labels at the right would collide with the group notes.
+            draw_ref_lines(c, &p, &limit_lines(&b.limits, 5), false)?;
             draw_events(c, &p, std::slice::from_ref(&b.event), strip_top, gi == 0)?;
             for pnt in &g.points {
                 let x = time_to_x(pnt.at);
@@ -193,7 +213,7 @@ impl Drawable for BeforeAfter<'_> {
                     (p.x_px(x_min), p.y_px(m)),
                     (p.x_px(x_event), p.y_px(m)),
                     Palette::BLACK,
-                    3,
+                    4,
                     BEFORE_DASH,
                 )?;
             }
@@ -202,7 +222,7 @@ impl Drawable for BeforeAfter<'_> {
                     (p.x_px(x_event), p.y_px(m)),
                     (p.x_px(x_max), p.y_px(m)),
                     Palette::BLACK,
-                    3,
+                    4,
                     None,
                 )?;
             }
@@ -225,7 +245,7 @@ impl Drawable for BeforeAfter<'_> {
             if let (Some(a), Some(bm)) = (g.mean_before, g.mean_after) {
                 if p.bottom - p.top > 90.0 {
                     c.text(
-                        &format!("shift {:+} {}", format_sig(bm - a, 3), b.unit),
+                        &format!("shift {} {}", signed_like(bm - a, a), b.unit),
                         (p.right + 14.0, p.top + 82.0),
                         TextOpts::new(sizes::NOTE).bold(),
                     )?;

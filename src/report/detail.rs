@@ -110,6 +110,14 @@ impl Drawable for Detail<'_> {
             ),
         ];
         legend.extend(limit_legend(&d.limits));
+        legend.push((
+            Swatch::Line {
+                color: Palette::VERMILLION,
+                dash: Some((12, 6)),
+                width: 2,
+            },
+            "Q-Q line through the quartiles".to_string(),
+        ));
         let title = format!("{} by {}, {}", d.characteristic, d.factor, d.period_label);
         let n_values: usize = d.groups.iter().map(|g| g.values.len()).sum();
         let subtitle = format!(
@@ -117,7 +125,7 @@ impl Drawable for Detail<'_> {
             d.groups.len()
         );
         let y = header(c, w, &title, &subtitle, &legend)?;
-        let top = y + 10.0;
+        let top = y + 34.0;
         let bottom = h - 92.0;
         if bottom - top < 80.0 {
             return Err(format!(
@@ -300,7 +308,7 @@ impl Drawable for Detail<'_> {
             frame(c, &qq)?;
             c.text(
                 "Normal Q-Q of residuals",
-                (qq.left, top - 2.0),
+                (qq.left, top - 28.0),
                 TextOpts::new(sizes::NOTE).bold(),
             )?;
             c.text(

@@ -797,10 +797,10 @@ impl TimeAxis {
             }
             if i % every == 0 {
                 c.line((x, p.bottom), (x, p.bottom + 5.0), INK, 2, None)?;
-                c.text(label, (x, p.bottom + 26.0), opts)?;
+                c.text(label, (x, p.bottom + 30.0), opts)?;
             }
         }
-        Ok(p.bottom + 26.0 + sizes::TICK)
+        Ok(p.bottom + 30.0 + sizes::TICK)
     }
 }
 
@@ -822,7 +822,7 @@ pub fn draw_events<DB: DrawingBackend>(
         if x < p.left - 0.5 || x > p.right + 0.5 {
             continue;
         }
-        c.line((x, p.top), (x, p.bottom), Palette::BLACK, 2, Some((10, 4)))?;
+        c.line((x, p.top), (x, p.bottom), Palette::BLACK, 2, EVENT_DASH)?;
         if with_labels {
             let label = c.fit_text(&e.label, opts, 260.0)?;
             let w = c.text_width(&label, opts)?;
@@ -841,7 +841,7 @@ pub fn draw_events<DB: DrawingBackend>(
             } else {
                 (x - 10.0, Align::Right)
             };
-            c.line((x, y), (x, p.top), Palette::BLACK, 2, Some((10, 4)))?;
+            c.line((x, y), (x, p.top), Palette::BLACK, 2, EVENT_DASH)?;
             c.polygon(
                 &[(x - 6.0, y - 7.0), (x + 6.0, y - 7.0), (x, y + 3.0)],
                 Palette::BLACK,
@@ -896,6 +896,8 @@ pub fn draw_ref_lines<DB: DrawingBackend>(
     Ok(())
 }
 
+/// Event lines are solid (spec limits are dashed, the target dotted).
+pub const EVENT_DASH: Dash = None;
 /// Standard line colour and dash of the spec limits.
 pub const LIMIT_DASH: Dash = Some((12, 6));
 /// Dash of the target line.
@@ -975,7 +977,7 @@ pub fn flag_event_legend(
         out.push((
             Swatch::Line {
                 color: Palette::BLACK,
-                dash: Some((10, 4)),
+                dash: EVENT_DASH,
                 width: 2,
             },
             "process change".to_string(),

@@ -14,7 +14,7 @@ use super::{FlagState, GridInput, Layout, Panel, Size};
 pub(super) struct Grid<'a>(pub &'a GridInput);
 
 const CELL: f64 = 26.0;
-const HEADER: f64 = 170.0;
+const HEADER: f64 = 200.0;
 
 /// A size at which every cell of `input` is about 26 x 26 pixels and every row label fits.
 pub fn natural_size(input: &GridInput) -> Size {
@@ -149,7 +149,7 @@ impl Drawable for Grid<'_> {
             label_w = label_w.max(c.text_width(l, label_opts)?.min(max_label));
         }
         let left = 24.0 + label_w + 12.0;
-        let top = y + 34.0;
+        let top = y + 62.0;
         let cell_w = ((w - left - 24.0) / g.days.len() as f64).min(40.0);
         let cell_h = ((h - top - 20.0) / g.rows.len() as f64).min(40.0);
         if cell_w < 4.0 || cell_h < 4.0 {
