@@ -17,12 +17,14 @@
 #![warn(missing_docs)]
 
 pub mod analysis;
+pub mod calendar;
 pub mod cli;
 pub mod config;
 pub mod error;
 pub mod ingest;
 pub mod model;
 pub mod report;
+pub mod sample;
 pub mod schedule;
 pub mod stats;
 pub mod storage;
