@@ -581,11 +581,11 @@ pub fn two_way(cells: &[Vec<Summary>], alpha: f64) -> Stat<TwoWay> {
 
 /// Two-way ANOVA from raw values grouped by cell: `cells[i][j]` holds the values of A level i
 /// and B level j. See [`two_way`].
+///
+/// The values are first centred on one of them (a pivot; the subtraction is exact for values of
+/// similar size), so data with a large offset and a small spread keep their digits in the cell
+/// means; the reported cell summaries are shifted back.
 pub fn two_way_values(cells: &[Vec<&[f64]>], alpha: f64) -> Stat<TwoWay> {
-    let summaries: Vec<Vec<Summary>> = cells
-        .iter()
-        .map(|row| row.iter().map(|v| Summary::from_slice(v)).collect())
-        .collect();
     if cells
         .iter()
         .flatten()
@@ -594,7 +594,57 @@ pub fn two_way_values(cells: &[Vec<&[f64]>], alpha: f64) -> Stat<TwoWay> {
     {
         return Err(Unavailable::new("a value is not finite"));
     }
-    two_way(&summaries, alpha)
+    let pivot = cells
+        .iter()
+        .flatten()
+        .flat_map(|v| v.iter())
+        .copied()
+        .next()
+        .unwrap_or(0.0);
+    let summaries: Vec<Vec<Summary>> = cells
+        .iter()
+        .map(|row| {
+            row.iter()
+                .map(|values| {
+                    let mut s = Summary::new();
+                    for &v in values.iter() {
+                        s.push(v - pivot);
+                    }
+                    s
+                })
+                .collect()
+        })
+        .collect();
+    unpivot(two_way(&summaries, alpha), pivot)
+}
+
+/// Two-way ANOVA from rows: A level `a[r]`, B level `b[r]` (0-based, below `n_a` and `n_b`) and
+/// value `y[r]`. Centres on a pivot like [`two_way_values`]. See [`two_way`].
+pub fn two_way_rows(
+    a: &[usize],
+    b: &[usize],
+    y: &[f64],
+    n_a: usize,
+    n_b: usize,
+    alpha: f64,
+) -> Stat<TwoWay> {
+    let pivot = y.first().copied().filter(|v| v.is_finite()).unwrap_or(0.0);
+    let centred: Vec<f64> = y.iter().map(|v| v - pivot).collect();
+    let cells = cells_from_rows(a, b, &centred, n_a, n_b)?;
+    unpivot(two_way(&cells, alpha), pivot)
+}
+
+fn unpivot(result: Stat<TwoWay>, pivot: f64) -> Stat<TwoWay> {
+    result.map(|mut t| {
+        for cell in t.cells.iter_mut().flatten() {
+            if cell.n > 0 {
+                cell.mean += pivot;
+                cell.min += pivot;
+                cell.max += pivot;
+            }
+        }
+        t
+    })
 }
 
 #[cfg(test)]
@@ -815,18 +865,21 @@ mod tests {
 
     #[test]
     fn large_offset_keeps_digits() {
-        // Adding 1e6 to every battery value changes no sum of squares (shift invariance);
-        // the cell-mean centring keeps about 10 digits or more.
+        // Adding 1e6 + 1/8 to every battery value changes no sum of squares (shift invariance);
+        // centring on a pivot value keeps every digit here (the shifted values are exact in binary).
         let shifted: Vec<Vec<Vec<f64>>> = battery()
             .iter()
             .map(|r| {
                 r.iter()
-                    .map(|c| c.iter().map(|v| v + 1e6).collect())
+                    .map(|c| c.iter().map(|v| v + 1e6 + 0.125).collect())
                     .collect()
             })
             .collect();
         let t = run(&shifted);
-        assert!(lre(row(&t.type2.interaction).ss, 346096.0 / 36.0) > 9.0);
-        assert!(lre(row(&t.type2.a).ss, 384614.0 / 36.0) > 9.0);
+        assert!(lre(row(&t.type2.interaction).ss, 346096.0 / 36.0) > 13.0);
+        assert!(lre(row(&t.type2.a).ss, 384614.0 / 36.0) > 13.0);
+        assert!(lre(t.residual.ss, 18230.75) > 13.0);
+        // The reported cell means are shifted back: cell (0, 0) mean 134.75 + 1e6 + 0.125.
+        assert_eq!(t.cells[0][0].mean, 1e6 + 134.875);
     }
 }
