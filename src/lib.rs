@@ -17,6 +17,7 @@
 #![warn(missing_docs)]
 
 pub mod analysis;
+pub mod calendar;
 pub mod cli;
 pub mod config;
 pub mod error;
