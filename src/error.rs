@@ -48,6 +48,13 @@ pub enum Error {
     },
     /// A command-line argument or combination is wrong.
     Usage(String),
+    /// A chart could not be drawn (bad input to the chart or a drawing failure).
+    Chart {
+        /// Which chart (for example "trend bore diameter by machine").
+        chart: String,
+        /// What went wrong.
+        reason: String,
+    },
 }
 
 impl fmt::Display for Error {
@@ -77,6 +84,7 @@ impl fmt::Display for Error {
                 reason,
             } => write!(f, "not enough data for {characteristic}: {reason}"),
             Error::Usage(msg) => f.write_str(msg),
+            Error::Chart { chart, reason } => write!(f, "chart {chart}: {reason}"),
         }
     }
 }

@@ -9,6 +9,8 @@ use clap::{Parser, Subcommand};
 
 use crate::Error;
 
+pub mod compare;
+
 /// Exit code: finished, nothing flagged.
 pub const EXIT_OK: u8 = 0;
 /// Exit code: an error stopped the command.
@@ -28,6 +30,8 @@ pub struct Args {
 /// The subcommands.
 #[derive(Debug, Subcommand)]
 pub enum Command {
+    /// Compare the groups of one CSV file: one-way ANOVA, checks, Welch, Kruskal-Wallis and more.
+    Compare(compare::CompareArgs),
     /// Print a shell completion script (bash, zsh or fish) to stdout.
     Completions {
         /// The shell.
@@ -45,6 +49,7 @@ impl Args {
 /// Runs one command and returns the process exit code.
 pub fn run(args: Args) -> crate::Result<ExitCode> {
     match args.command {
+        Command::Compare(compare_args) => compare::run(&compare_args),
         Command::Completions { shell } => {
             let mut cmd = <Args as clap::CommandFactory>::command();
             let mut out = std::io::stdout().lock();

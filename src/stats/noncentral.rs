@@ -1,1 +1,146 @@
-//! (module being written)
+//! The noncentral F distribution, used for the power of the one-way F test ([`super::power`]).
+//!
+//! `F' = (X1 / df1) / (X2 / df2)` with `X1` noncentral chi-square (`df1`, noncentrality `nc`) and
+//! `X2` central chi-square (`df2`). Its distribution function is the Poisson mixture of central
+//! (incomplete beta) terms
+//!
+//! ```text
+//! P(F' <= x) = sum_j exp(-nc/2) (nc/2)^j / j! * I_y(df1/2 + j, df2/2),   y = df1 x / (df1 x + df2)
+//! ```
+//!
+//! (Johnson, Kotz and Balakrishnan 1995, Continuous Univariate Distributions vol. 2, ch. 30;
+//! the noncentral beta series of Lenth 1987, "Algorithm AS 226: Computing noncentral beta
+//! probabilities", Applied Statistics 36, 241-244, with the start at the Poisson mode recommended by
+//! Frick 1990, "Algorithm AS R84", Applied Statistics 39, 311-312). Unlike AS 226, which sums
+//! upward from j = 0 and so underflows for large `nc`, the sum here starts at the largest Poisson
+//! weight and runs outward in both directions until the terms are negligible; each incomplete beta
+//! is evaluated directly (statrs `beta_reg`), and the upper tail ([`ncf_sf`]) sums the
+//! complementary terms `I_(1-y)(df2/2, df1/2 + j)` so that it keeps relative accuracy when small.
+//!
+//! Start reading at [`ncf_cdf`].
+
+use super::{Stat, Unavailable};
+use statrs::function::beta::beta_reg;
+use statrs::function::gamma::ln_gamma;
+
+/// Lower tail `P(F' <= x)` of the noncentral F distribution.
+///
+/// `df1 > 0`, `df2 > 0` (fractional allowed), `nc >= 0` (0 gives the central F). `x <= 0` gives 0,
+/// `x = +inf` gives 1. Unavailable for NaN or out-of-range parameters. Reference: the Poisson
+/// mixture series (Lenth 1987, AS 226; Frick 1990, AS R84), summed outward from the Poisson mode.
+pub fn ncf_cdf(x: f64, df1: f64, df2: f64, nc: f64) -> Stat<f64> {
+    check(x, df1, df2, nc)?;
+    if x <= 0.0 {
+        return Ok(0.0);
+    }
+    if x == f64::INFINITY {
+        return Ok(1.0);
+    }
+    Ok(series(x, df1, df2, nc, false))
+}
+
+/// Upper tail `P(F' > x)` of the noncentral F distribution (the power of an F test whose critical
+/// value is `x`), summed directly so that small tails keep their relative accuracy.
+///
+/// Same arguments and degenerate cases as [`ncf_cdf`].
+pub fn ncf_sf(x: f64, df1: f64, df2: f64, nc: f64) -> Stat<f64> {
+    check(x, df1, df2, nc)?;
+    if x <= 0.0 {
+        return Ok(1.0);
+    }
+    if x == f64::INFINITY {
+        return Ok(0.0);
+    }
+    Ok(series(x, df1, df2, nc, true))
+}
+
+fn check(x: f64, df1: f64, df2: f64, nc: f64) -> Stat<()> {
+    if x.is_nan() {
+        return Err(Unavailable::new("noncentral F argument is NaN"));
+    }
+    if !(df1 > 0.0 && df1.is_finite() && df2 > 0.0 && df2.is_finite()) {
+        return Err(Unavailable::new(format!(
+            "noncentral F needs positive finite degrees of freedom (got df1 = {df1}, df2 = {df2})"
+        )));
+    }
+    if !(nc >= 0.0 && nc.is_finite()) {
+        return Err(Unavailable::new(format!(
+            "noncentral F needs a finite noncentrality >= 0 (got {nc})"
+        )));
+    }
+    if nc > 1.0e8 {
+        return Err(Unavailable::new(format!(
+            "noncentral F supports noncentrality up to 1e8 (got {nc})"
+        )));
+    }
+    Ok(())
+}
+
+/// Sums the Poisson mixture from its mode outward. `upper` selects the upper-tail terms.
+fn series(x: f64, df1: f64, df2: f64, nc: f64, upper: bool) -> f64 {
+    let a0 = 0.5 * df1;
+    let b = 0.5 * df2;
+    // y and 1 - y without cancellation.
+    let y = df1 * x / (df1 * x + df2);
+    let one_minus_y = df2 / (df1 * x + df2);
+    let term_beta = |j: f64| -> f64 {
+        if upper {
+            beta_reg(b, a0 + j, one_minus_y)
+        } else {
+            beta_reg(a0 + j, b, y)
+        }
+    };
+    let half = 0.5 * nc;
+    if half == 0.0 {
+        return term_beta(0.0);
+    }
+    let log_weight = |j: f64| -> f64 { -half + j * half.ln() - ln_gamma(j + 1.0) };
+    let mode = half.floor();
+    let mut total = 0.0;
+    let mut weight_total = 0.0;
+    let limit = 40.0 * half.sqrt() + 200.0;
+    // Upward from the mode (including it).
+    let mut j = mode;
+    loop {
+        let w = log_weight(j).exp();
+        let t = w * term_beta(j);
+        total += t;
+        weight_total += w;
+        // The remaining Poisson mass beyond j (weights decrease geometrically there) bounds the rest.
+        let remaining = w * half / (j + 1.0 - half).max(1.0);
+        if j > mode && (remaining <= 1e-17 * total || remaining <= 1e-300) || j - mode > limit {
+            break;
+        }
+        j += 1.0;
+    }
+    // Downward from the mode.
+    let mut j = mode - 1.0;
+    while j >= 0.0 {
+        let w = log_weight(j).exp();
+        let t = w * term_beta(j);
+        total += t;
+        weight_total += w;
+        // Below the mode the weights shrink at least geometrically by j / half.
+        let remaining = w * j / (half - j).max(1.0);
+        if remaining <= 1e-17 * total || remaining <= 1e-300 || mode - j > limit {
+            break;
+        }
+        j -= 1.0;
+    }
+    let _ = weight_total;
+    total.clamp(0.0, 1.0)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::stats::lre;
+
+    // Central case: nc = 0 is the central F; F(1, 1) at x = 1 has cdf exactly 1/2 (the ratio of two
+    // independent chi-square(1) variables is symmetric about 1 on the log scale; common textbook fact).
+    #[test]
+    fn central_case_is_f() {
+        let c = ncf_cdf(1.0, 1.0, 1.0, 0.0).unwrap();
+        assert!(lre(c, 0.5) > 13.0, "{c}");
+    }
+}

@@ -1,1 +1,245 @@
-//! (module being written)
+//! Variance components of the one-way random-effects model `y_ij = mu + a_i + e_ij`
+//! (`a_i ~ N(0, between)`, `e_ij ~ N(0, within)`), estimated by the ANOVA (method-of-moments)
+//! estimator, valid for unbalanced groups.
+//!
+//! With `k` groups, `N` values, `MS_between`, `MS_within` of the one-way ANOVA and
+//! `n0 = (N - sum n_i^2 / N) / (k - 1)` (Searle, Casella and McCulloch 1992, Variance Components,
+//! section 3.6; `n0 = n` for balanced data):
+//!
+//! - `between_raw = (MS_between - MS_within) / n0` (may be negative), `between = max(0, raw)`;
+//! - `within = MS_within`; `share_between = icc = between / (between + within)`.
+//!
+//! Intervals at level `confidence` (two-sided, equal tails):
+//! - within: `SS_within / chi2_(1 - a/2; N - k) .. SS_within / chi2_(a/2; N - k)` (exact);
+//! - ICC: the F-based interval of Searle (1971, Linear Models, section 9.7):
+//!   `(F/F_U - 1) / (F/F_U - 1 + n0) .. (F/F_L - 1) / (F/F_L - 1 + n0)`, `F = MS_between / MS_within`,
+//!   `F_U, F_L` the upper and lower `a/2` points of F(k - 1, N - k); exact for balanced data, an
+//!   approximation (with n0) for unbalanced data;
+//! - between: the modified large-sample (MLS) method of Graybill and Wang (1980, "Confidence
+//!   intervals on nonnegative linear combinations of variances", JASA 75, 869-873) in the form
+//!   given by Burdick and Graybill (1992, Confidence Intervals on Variance Components, section
+//!   3.3 and 5.2 for unbalanced data with n0), approximate.
+//! Lower ends below zero are truncated at zero, with a note.
+
+use super::describe::Summary;
+use super::{Stat, Unavailable};
+use statrs::distribution::{ChiSquared, ContinuousCDF, FisherSnedecor};
+
+/// A two-sided interval.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Interval {
+    /// Lower end.
+    pub low: f64,
+    /// Upper end.
+    pub high: f64,
+}
+
+/// One-way random-effects variance components (ANOVA estimator) with intervals.
+#[derive(Debug, Clone, PartialEq)]
+pub struct VarianceComponents {
+    /// Between-group variance, truncated at zero.
+    pub between: f64,
+    /// Between-group variance before truncation (negative when MS_between < MS_within).
+    pub between_raw: f64,
+    /// Whether `between` was truncated at zero.
+    pub is_truncated: bool,
+    /// Within-group variance (MS_within).
+    pub within: f64,
+    /// `between / (between + within)`.
+    pub share_between: f64,
+    /// Intraclass correlation; with the ANOVA estimator it equals `share_between`.
+    pub icc: f64,
+    /// Effective group size `(N - sum n_i^2 / N) / (k - 1)`.
+    pub n0: f64,
+    /// Whether all groups have the same size.
+    pub is_balanced: bool,
+    /// Interval for `within` (chi-square, exact).
+    pub within_ci: Interval,
+    /// Interval for the ICC (Searle 1971, F-based).
+    pub icc_ci: Stat<Interval>,
+    /// Interval for `between` (modified large-sample method, Graybill and Wang 1980).
+    pub between_ci: Stat<Interval>,
+    /// Names of the methods used.
+    pub method: &'static str,
+    /// Notes: truncation, approximations.
+    pub notes: Vec<String>,
+}
+
+/// Method names reported in [`VarianceComponents::method`].
+pub const METHOD: &str = "ANOVA (method-of-moments) estimator; within interval: chi-square; \
+ICC interval: F-based (Searle 1971); between interval: modified large-sample (Graybill and Wang 1980)";
+
+/// One-way random-effects variance components from group summaries (see the module docs for the
+/// formulas). Needs at least two non-empty groups, `N - k >= 1` and a positive within-group
+/// variance; `confidence` in (0, 1). Otherwise Unavailable with the reason.
+pub fn one_way_random(groups: &[Summary], confidence: f64) -> Stat<VarianceComponents> {
+    if !(confidence > 0.0 && confidence < 1.0) {
+        return Err(Unavailable::new(format!(
+            "confidence must lie strictly between 0 and 1 (got {confidence})"
+        )));
+    }
+    let groups: Vec<&Summary> = groups.iter().filter(|g| g.n > 0).collect();
+    let k = groups.len();
+    if k < 2 {
+        return Err(Unavailable::new(format!(
+            "variance components need at least 2 groups with values (got {k})"
+        )));
+    }
+    let n_total: f64 = groups.iter().map(|g| g.n as f64).sum();
+    let df_between = (k - 1) as f64;
+    let df_within = n_total - k as f64;
+    if df_within < 1.0 {
+        return Err(Unavailable::new(
+            "variance components need at least one group with 2 or more values (N - k = 0)",
+        ));
+    }
+    let grand = groups.iter().fold(Summary::new(), |acc, g| {
+        acc.merge(&Summary {
+            n: g.n,
+            mean: g.mean,
+            m2: 0.0,
+            min: g.mean,
+            max: g.mean,
+        })
+    });
+    let ss_between = grand.m2;
+    let ss_within: f64 = groups.iter().map(|g| g.m2).sum();
+    let ms_between = ss_between / df_between;
+    let ms_within = ss_within / df_within;
+    if !(ms_within.is_finite() && ms_within > 0.0) {
+        return Err(Unavailable::new(
+            "within-group variance is zero: variance components are undefined",
+        ));
+    }
+    let sum_sq: f64 = groups.iter().map(|g| (g.n as f64).powi(2)).sum();
+    let n0 = (n_total - sum_sq / n_total) / df_between;
+    let is_balanced = groups.iter().all(|g| g.n == groups[0].n);
+    let between_raw = (ms_between - ms_within) / n0;
+    let is_truncated = between_raw < 0.0;
+    let between = between_raw.max(0.0);
+    let within = ms_within;
+    let share_between = between / (between + within);
+    let mut notes = Vec::new();
+    if is_truncated {
+        notes.push(format!(
+            "between-group estimate {between_raw} is negative (MS_between < MS_within) and was truncated at 0"
+        ));
+    }
+    if !is_balanced {
+        notes.push(format!(
+            "unbalanced groups: effective group size n0 = {n0}; the ICC and between-group intervals are approximations"
+        ));
+    }
+    let alpha = 1.0 - confidence;
+    let tail_lo = 0.5 * alpha;
+    let tail_hi = 1.0 - 0.5 * alpha;
+
+    let chi_within = ChiSquared::new(df_within)
+        .map_err(|e| Unavailable::new(format!("chi-square for the within interval: {e}")))?;
+    let within_ci = Interval {
+        low: ss_within / chi_within.inverse_cdf(tail_hi),
+        high: ss_within / chi_within.inverse_cdf(tail_lo),
+    };
+
+    let icc_ci = icc_interval(
+        ms_between / ms_within,
+        df_between,
+        df_within,
+        n0,
+        tail_lo,
+        tail_hi,
+        &mut notes,
+    );
+    let between_ci = between_interval(
+        ms_between, ms_within, df_between, df_within, n0, tail_lo, tail_hi, &mut notes,
+    );
+    Ok(VarianceComponents {
+        between,
+        between_raw,
+        is_truncated,
+        within,
+        share_between,
+        icc: share_between,
+        n0,
+        is_balanced,
+        within_ci,
+        icc_ci,
+        between_ci,
+        method: METHOD,
+        notes,
+    })
+}
+
+/// Searle (1971) F-based interval for the ICC.
+fn icc_interval(
+    f: f64,
+    df1: f64,
+    df2: f64,
+    n0: f64,
+    tail_lo: f64,
+    tail_hi: f64,
+    notes: &mut Vec<String>,
+) -> Stat<Interval> {
+    let fdist = FisherSnedecor::new(df1, df2)
+        .map_err(|e| Unavailable::new(format!("F distribution for the ICC interval: {e}")))?;
+    let f_upper = fdist.inverse_cdf(tail_hi);
+    let f_lower = fdist.inverse_cdf(tail_lo);
+    let end = |ratio: f64| (ratio - 1.0) / (ratio - 1.0 + n0);
+    let mut low = end(f / f_upper);
+    let high = end(f / f_lower).max(0.0);
+    if low < 0.0 {
+        notes.push(format!("ICC interval lower end {low} truncated at 0"));
+        low = 0.0;
+    }
+    Ok(Interval { low, high })
+}
+
+/// Modified large-sample interval for `(MS_between - MS_within) / n0` (Graybill and Wang 1980;
+/// Burdick and Graybill 1992).
+#[allow(clippy::too_many_arguments)]
+fn between_interval(
+    s1: f64,
+    s2: f64,
+    n1: f64,
+    n2: f64,
+    n0: f64,
+    tail_lo: f64,
+    tail_hi: f64,
+    notes: &mut Vec<String>,
+) -> Stat<Interval> {
+    let err = |e: statrs::distribution::FisherSnedecorError| {
+        Unavailable::new(format!("F distribution for the between interval: {e}"))
+    };
+    let chi = |df: f64, p: f64| -> Stat<f64> {
+        ChiSquared::new(df)
+            .map(|c| c.inverse_cdf(p) / df)
+            .map_err(|e| Unavailable::new(format!("chi-square for the between interval: {e}")))
+    };
+    // F_(p; n, inf) = chi2_(p; n) / n.
+    let g1 = 1.0 - 1.0 / chi(n1, tail_hi)?;
+    let h1 = 1.0 / chi(n1, tail_lo)? - 1.0;
+    let g2 = 1.0 - 1.0 / chi(n2, tail_hi)?;
+    let h2 = 1.0 / chi(n2, tail_lo)? - 1.0;
+    let f12 = FisherSnedecor::new(n1, n2).map_err(err)?;
+    let f_hi = f12.inverse_cdf(tail_hi);
+    let f_lo = f12.inverse_cdf(tail_lo);
+    let g12 = ((f_hi - 1.0).powi(2) - g1 * g1 * f_hi * f_hi - h2 * h2) / f_hi;
+    let h12 = ((1.0 - f_lo).powi(2) - h1 * h1 * f_lo * f_lo - g2 * g2) / f_lo;
+    let diff = s1 - s2;
+    let v_low = g1 * g1 * s1 * s1 + h2 * h2 * s2 * s2 + g12 * s1 * s2;
+    let v_high = h1 * h1 * s1 * s1 + g2 * g2 * s2 * s2 + h12 * s1 * s2;
+    if !(v_low >= 0.0 && v_high >= 0.0) {
+        return Err(Unavailable::new(
+            "between-group interval: the large-sample variance term is negative",
+        ));
+    }
+    let mut low = (diff - v_low.sqrt()) / n0;
+    let high = ((diff + v_high.sqrt()) / n0).max(0.0);
+    if low < 0.0 {
+        notes.push(format!(
+            "between-group interval lower end {low} truncated at 0"
+        ));
+        low = 0.0;
+    }
+    Ok(Interval { low, high })
+}

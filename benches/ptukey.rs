@@ -1,0 +1,35 @@
+//! Speed of the studentized range quantile (issue 3: under 50 microseconds for k <= 50) and of the
+//! upper tail used for adjusted p-values.
+
+use criterion::{black_box, criterion_group, criterion_main, Criterion};
+use samewise::stats::ptukey::{ptukey_sf, qtukey};
+
+fn quantile(c: &mut Criterion) {
+    for &(k, df) in &[
+        (3.0, 12.0),
+        (5.0, 45.0),
+        (10.0, 100.0),
+        (20.0, 2.5),
+        (50.0, 1000.0),
+        (50.0, f64::INFINITY),
+    ] {
+        c.bench_function(&format!("qtukey p=0.95 k={k} df={df}"), |b| {
+            b.iter(|| qtukey(black_box(0.95), black_box(k), black_box(df)).unwrap())
+        });
+    }
+    c.bench_function("qtukey p=0.99 k=50 df=1e6", |b| {
+        b.iter(|| qtukey(black_box(0.99), black_box(50.0), black_box(1e6)).unwrap())
+    });
+}
+
+fn upper_tail(c: &mut Criterion) {
+    c.bench_function("ptukey_sf q=4 k=5 df=45", |b| {
+        b.iter(|| ptukey_sf(black_box(4.0), black_box(5.0), black_box(45.0)).unwrap())
+    });
+    c.bench_function("ptukey_sf q=12 k=10 df=1e6 (tail 1e-12)", |b| {
+        b.iter(|| ptukey_sf(black_box(12.0), black_box(10.0), black_box(1e6)).unwrap())
+    });
+}
+
+criterion_group!(benches, quantile, upper_tail);
+criterion_main!(benches);

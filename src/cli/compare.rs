@@ -1,0 +1,718 @@
+//! `samewise compare FILE.csv --by COLUMN --measure COLUMN`: the one-way analysis of one CSV file,
+//! without a database.
+//!
+//! Reads any CSV with a header row (quoted fields, commas and non-ASCII text in labels, UTF-8 with
+//! or without a byte-order mark, CRLF or LF line ends). Measure cells are parsed as exact decimals
+//! and centred on one exact origin (the first value) before any arithmetic, so gauge readings such
+//! as `1000000000000.4` keep their digits. Rows are grouped by the label column in first-seen
+//! order and handed to [`crate::stats::oneway::analyze`].
+//!
+//! Bad input stops the command with an error naming the file, line and column: a missing column, a
+//! ragged row, a file that is not UTF-8, an empty label, or a measure cell that is empty or not a
+//! number (no row is silently dropped). The JSON field names are documented in docs/json.md.
+
+use std::collections::HashMap;
+use std::io::Write;
+use std::path::{Path, PathBuf};
+
+use serde_json::{json, Map, Value};
+
+use crate::stats::decimal::Decimal;
+use crate::stats::oneway::{analyze, LeadingMethod, OneWay, OneWayOptions, Tolerance};
+use crate::stats::{Stat, TestResult};
+use crate::{Error, Result};
+
+/// Flags of `samewise compare`.
+#[derive(Debug, clap::Args)]
+pub struct CompareArgs {
+    /// CSV file with a header row.
+    pub file: PathBuf,
+    /// Column whose values name the groups (machine, line, supplier, ...).
+    #[arg(long, value_name = "COLUMN")]
+    pub by: String,
+    /// Column holding the measured values.
+    #[arg(long, value_name = "COLUMN")]
+    pub measure: String,
+    /// Lower specification limit, in measurement units.
+    #[arg(long, value_name = "X", allow_hyphen_values = true)]
+    pub lsl: Option<String>,
+    /// Upper specification limit, in measurement units.
+    #[arg(long, value_name = "Y", allow_hyphen_values = true)]
+    pub usl: Option<String>,
+    /// Target (nominal) value, in measurement units.
+    #[arg(long, value_name = "T", allow_hyphen_values = true)]
+    pub target: Option<String>,
+    /// A difference between two group means that matters, for the sensitivity analysis.
+    #[arg(long, value_name = "D")]
+    pub detect: Option<f64>,
+    /// Print one JSON object instead of the readable report.
+    #[arg(long)]
+    pub json: bool,
+}
+
+/// Measurements of one CSV file, grouped, as offsets from one exact origin.
+#[derive(Debug, Clone)]
+pub struct GroupedData {
+    /// Group labels in first-seen order.
+    pub names: Vec<String>,
+    /// Offsets `value - origin` per group.
+    pub values: Vec<Vec<f64>>,
+    /// The exact origin (the first measured value).
+    pub origin: Decimal,
+    /// Largest number of decimal places seen in the measure column (for display).
+    pub max_places: i32,
+    /// Number of data rows read.
+    pub n_rows: u64,
+}
+
+fn ingest_error(path: &Path, line: Option<u64>, column: Option<&str>, reason: String) -> Error {
+    Error::Ingest {
+        path: path.to_path_buf(),
+        line,
+        column: column.map(str::to_string),
+        reason,
+    }
+}
+
+/// Reads and groups a CSV file (see the module docs for what is accepted and rejected).
+pub fn read_grouped(path: &Path, by: &str, measure: &str) -> Result<GroupedData> {
+    let bytes = std::fs::read(path).map_err(|e| Error::io(path, e))?;
+    parse_grouped(path, &bytes, by, measure)
+}
+
+/// Groups CSV bytes; `path` only names the input in errors.
+pub fn parse_grouped(path: &Path, bytes: &[u8], by: &str, measure: &str) -> Result<GroupedData> {
+    let body = bytes.strip_prefix(b"\xEF\xBB\xBF").unwrap_or(bytes);
+    if body.iter().all(|b| b.is_ascii_whitespace()) {
+        return Err(ingest_error(
+            path,
+            None,
+            None,
+            "the file is empty (a header row naming the columns is required)".into(),
+        ));
+    }
+    let mut reader = csv::ReaderBuilder::new()
+        .has_headers(false)
+        .flexible(true)
+        .from_reader(body);
+    let mut record = csv::ByteRecord::new();
+    let read = |reader: &mut csv::Reader<&[u8]>, record: &mut csv::ByteRecord| {
+        reader.read_byte_record(record).map_err(|e| {
+            let line = e.position().map(|p| p.line());
+            ingest_error(path, line, None, format!("cannot read CSV: {e}"))
+        })
+    };
+    if !read(&mut reader, &mut record)? {
+        return Err(ingest_error(
+            path,
+            None,
+            None,
+            "the file has no header row".into(),
+        ));
+    }
+    let header_line = record.position().map_or(1, |p| p.line());
+    let header: Vec<String> = record
+        .iter()
+        .enumerate()
+        .map(|(i, f)| {
+            std::str::from_utf8(f)
+                .map(|s| s.trim().to_string())
+                .map_err(|_| {
+                    ingest_error(
+                        path,
+                        Some(header_line),
+                        None,
+                        format!(
+                            "header field {} is not valid UTF-8 (save the file as UTF-8)",
+                            i + 1
+                        ),
+                    )
+                })
+        })
+        .collect::<Result<_>>()?;
+    let find = |name: &str| -> Result<usize> {
+        let hits: Vec<usize> = header
+            .iter()
+            .enumerate()
+            .filter(|(_, h)| h.as_str() == name.trim())
+            .map(|(i, _)| i)
+            .collect();
+        match hits.as_slice() {
+            [one] => Ok(*one),
+            [] => Err(ingest_error(
+                path,
+                Some(header_line),
+                None,
+                format!(
+                    "column \"{name}\" not found; the header has: {}",
+                    header
+                        .iter()
+                        .map(|h| format!("\"{h}\""))
+                        .collect::<Vec<_>>()
+                        .join(", ")
+                ),
+            )),
+            _ => Err(ingest_error(
+                path,
+                Some(header_line),
+                None,
+                format!("column \"{name}\" appears more than once in the header"),
+            )),
+        }
+    };
+    let by_idx = find(by)?;
+    let measure_idx = find(measure)?;
+    if by_idx == measure_idx {
+        return Err(Error::Usage(
+            "--by and --measure name the same column".to_string(),
+        ));
+    }
+    let width = header.len();
+    let mut index: HashMap<String, usize> = HashMap::new();
+    let mut names: Vec<String> = Vec::new();
+    let mut values: Vec<Vec<f64>> = Vec::new();
+    let mut origin: Option<Decimal> = None;
+    let mut max_places = 0i32;
+    let mut n_rows = 0u64;
+    while read(&mut reader, &mut record)? {
+        let line = record.position().map_or(0, |p| p.line());
+        if record.len() == 1 && record.get(0).is_some_and(|f| f.is_empty()) {
+            // A blank line (the csv reader skips truly empty lines; this is one holding only
+            // whitespace-free emptiness such as a lone CR).
+            continue;
+        }
+        n_rows += 1;
+        if record.len() != width {
+            return Err(ingest_error(
+                path,
+                Some(line),
+                None,
+                format!(
+                    "row has {} fields but the header has {width} (ragged row)",
+                    record.len()
+                ),
+            ));
+        }
+        let label_bytes = record.get(by_idx).unwrap_or_default();
+        let cell_bytes = record.get(measure_idx).unwrap_or_default();
+        let label = std::str::from_utf8(label_bytes).map_err(|_| {
+            ingest_error(
+                path,
+                Some(line),
+                Some(by),
+                "text is not valid UTF-8 (save the file as UTF-8)".into(),
+            )
+        })?;
+        let cell = std::str::from_utf8(cell_bytes).map_err(|_| {
+            ingest_error(
+                path,
+                Some(line),
+                Some(measure),
+                "text is not valid UTF-8 (save the file as UTF-8)".into(),
+            )
+        })?;
+        let label = label.trim();
+        if label.is_empty() {
+            return Err(ingest_error(
+                path,
+                Some(line),
+                Some(by),
+                "group label is empty".into(),
+            ));
+        }
+        if cell.trim().is_empty() {
+            return Err(ingest_error(
+                path,
+                Some(line),
+                Some(measure),
+                "measure cell is empty (every row needs a value; remove the row or fill it in)"
+                    .into(),
+            ));
+        }
+        let value = Decimal::parse(cell)
+            .map_err(|e| ingest_error(path, Some(line), Some(measure), e.to_string()))?;
+        max_places = max_places.max(value.normalized().scale());
+        let origin = *origin.get_or_insert(value);
+        let offset = value.offset_from(&origin);
+        let group = match index.get(label) {
+            Some(&g) => g,
+            None => {
+                index.insert(label.to_string(), names.len());
+                names.push(label.to_string());
+                values.push(Vec::new());
+                names.len() - 1
+            }
+        };
+        values[group].push(offset);
+    }
+    if n_rows == 0 {
+        return Err(ingest_error(
+            path,
+            None,
+            None,
+            "the file has a header but no data rows".into(),
+        ));
+    }
+    Ok(GroupedData {
+        names,
+        values,
+        origin: origin.unwrap_or(Decimal::ZERO),
+        max_places,
+        n_rows,
+    })
+}
+
+fn parse_limit(flag: &str, text: &Option<String>, origin: &Decimal) -> Result<Option<f64>> {
+    match text {
+        None => Ok(None),
+        Some(t) => {
+            let d = Decimal::parse(t).map_err(|e| Error::Usage(format!("--{flag}: {e}")))?;
+            Ok(Some(d.offset_from(origin)))
+        }
+    }
+}
+
+/// Runs `samewise compare`.
+pub fn run(args: &CompareArgs) -> Result<std::process::ExitCode> {
+    let data = read_grouped(&args.file, &args.by, &args.measure)?;
+    if data.names.len() < 2 {
+        return Err(Error::NotEnoughData {
+            characteristic: args.measure.clone(),
+            reason: format!(
+                "column \"{}\" has {} distinct value(s) in {}; comparing needs at least two groups",
+                args.by,
+                data.names.len(),
+                args.file.display()
+            ),
+        });
+    }
+    let lsl = parse_limit("lsl", &args.lsl, &data.origin)?;
+    let usl = parse_limit("usl", &args.usl, &data.origin)?;
+    let target = parse_limit("target", &args.target, &data.origin)?;
+    if let (Some(l), Some(u)) = (lsl, usl) {
+        if l >= u {
+            return Err(Error::Usage("--lsl must be smaller than --usl".to_string()));
+        }
+    }
+    if let Some(d) = args.detect {
+        if !(d.is_finite() && d > 0.0) {
+            return Err(Error::Usage(
+                "--detect must be a positive number".to_string(),
+            ));
+        }
+    }
+    let tolerance = (lsl.is_some() || usl.is_some() || target.is_some()).then_some(Tolerance {
+        lsl,
+        usl,
+        target,
+    });
+    let options = OneWayOptions {
+        detect: args.detect,
+        tolerance,
+        ..OneWayOptions::default()
+    };
+    let refs: Vec<&[f64]> = data.values.iter().map(Vec::as_slice).collect();
+    let result = analyze(&refs, &options).map_err(|e| Error::NotEnoughData {
+        characteristic: args.measure.clone(),
+        reason: e.reason,
+    })?;
+    let mut out = std::io::stdout().lock();
+    let written = if args.json {
+        let value = to_json(args, &data, &result, &options);
+        writeln!(
+            out,
+            "{}",
+            serde_json::to_string_pretty(&value).unwrap_or_default()
+        )
+    } else {
+        out.write_all(render_text(args, &data, &result, &options).as_bytes())
+    };
+    match written.and_then(|_| out.flush()) {
+        Ok(()) => Ok(std::process::ExitCode::from(super::EXIT_OK)),
+        // A closed stdout pipe counts as success.
+        Err(e) if e.kind() == std::io::ErrorKind::BrokenPipe => {
+            Ok(std::process::ExitCode::from(super::EXIT_OK))
+        }
+        Err(e) => Err(Error::io("<stdout>", e)),
+    }
+}
+
+// ---------------------------------------------------------------------------------------------
+// JSON
+
+/// A finite number, or null (callers pair a null with a reason).
+fn num(x: f64) -> Value {
+    serde_json::Number::from_f64(x).map_or(Value::Null, Value::Number)
+}
+
+/// Inserts `key: value` or `key: null, key_reason: reason`.
+fn put<T>(map: &mut Map<String, Value>, key: &str, stat: &Stat<T>, f: impl Fn(&T) -> Value) {
+    match stat {
+        Ok(v) => {
+            map.insert(key.to_string(), f(v));
+        }
+        Err(e) => {
+            map.insert(key.to_string(), Value::Null);
+            map.insert(format!("{key}_reason"), Value::String(e.reason.clone()));
+        }
+    }
+}
+
+fn test_json(r: &TestResult, statistic_name: &str) -> Value {
+    let mut m = Map::new();
+    m.insert(statistic_name.to_string(), num(r.statistic));
+    if let Some(d) = r.df1 {
+        m.insert(
+            if r.df2.is_some() { "df1" } else { "df" }.to_string(),
+            num(d),
+        );
+    }
+    if let Some(d) = r.df2 {
+        m.insert("df2".to_string(), num(d));
+    }
+    m.insert("p".to_string(), num(r.p));
+    Value::Object(m)
+}
+
+/// The JSON object of `compare --json` (field reference: docs/json.md).
+pub fn to_json(
+    args: &CompareArgs,
+    data: &GroupedData,
+    r: &OneWay,
+    options: &OneWayOptions,
+) -> Value {
+    let origin = data.origin.to_f64();
+    let abs = |offset: f64| num(origin + offset);
+    let groups: Vec<Value> = data
+        .names
+        .iter()
+        .zip(&r.summaries)
+        .map(|(name, s)| {
+            let mut m = Map::new();
+            m.insert("name".into(), Value::String(name.clone()));
+            m.insert("n".into(), json!(s.n));
+            m.insert("mean".into(), abs(s.mean));
+            m.insert("mean_offset".into(), num(s.mean));
+            let sd: Stat<f64> = s
+                .sd()
+                .ok_or_else(|| crate::stats::Unavailable::new("a group of one value has no SD"));
+            put(&mut m, "sd", &sd, |v| num(*v));
+            m.insert("min".into(), abs(s.min));
+            m.insert("max".into(), abs(s.max));
+            Value::Object(m)
+        })
+        .collect();
+    let mut root = Map::new();
+    root.insert(
+        "file".into(),
+        Value::String(args.file.display().to_string()),
+    );
+    root.insert("by".into(), Value::String(args.by.clone()));
+    root.insert("measure".into(), Value::String(args.measure.clone()));
+    root.insert("origin".into(), Value::String(data.origin.to_string()));
+    root.insert("n_obs".into(), json!(data.n_rows));
+    root.insert("n_groups".into(), json!(data.names.len()));
+    let limits = options.tolerance.unwrap_or_default();
+    let lim = |x: Option<f64>| x.map_or(Value::Null, &abs);
+    root.insert(
+        "limits".into(),
+        json!({"lsl": lim(limits.lsl), "usl": lim(limits.usl), "target": lim(limits.target)}),
+    );
+    root.insert("groups".into(), Value::Array(groups));
+    put(&mut root, "anova", &r.anova, |t| {
+        json!({
+            "ss_between": num(t.ss_between), "ss_within": num(t.ss_within), "ss_total": num(t.ss_total),
+            "df_between": num(t.df_between), "df_within": num(t.df_within), "df_total": num(t.df_total),
+            "ms_between": num(t.ms_between), "ms_within": num(t.ms_within),
+            "f": num(t.f), "p": num(t.p), "r_squared": num(t.r_squared), "resid_sd": num(t.resid_sd),
+            "grand_mean": abs(t.grand_mean),
+        })
+    });
+    put(&mut root, "welch", &r.welch, |t| test_json(t, "f"));
+    put(&mut root, "kruskal_wallis", &r.kruskal_wallis, |t| {
+        test_json(t, "h")
+    });
+    put(&mut root, "levene", &r.levene, |t| {
+        test_json(t, "statistic")
+    });
+    put(&mut root, "brown_forsythe", &r.brown_forsythe, |t| {
+        test_json(t, "statistic")
+    });
+    put(&mut root, "bartlett", &r.bartlett, |t| {
+        test_json(t, "statistic")
+    });
+    put(&mut root, "sd_ratio", &r.sd_ratio, |v| num(*v));
+    put(&mut root, "n_beyond_3sd", &r.n_beyond_3sd, |v| json!(v));
+    put(&mut root, "effect", &r.effect, |e| {
+        json!({
+            "eta_squared": num(e.eta_squared),
+            "omega_squared": num(e.omega_squared),
+            "mean_spread": num(e.mean_spread),
+            "mean_spread_pct_tolerance": e.mean_spread_pct_tolerance.map_or(Value::Null, num),
+        })
+    });
+    let l = &r.leading;
+    root.insert(
+        "leading".into(),
+        json!({
+            "method": match l.method { LeadingMethod::ClassicF => "classic_f", LeadingMethod::Welch => "welch" },
+            "reason": l.reason,
+            "recommend_kruskal_wallis": l.recommend_kruskal_wallis,
+            "statistic": l.statistic.map_or(Value::Null, num),
+            "p": l.p.map_or(Value::Null, num),
+        }),
+    );
+    root.insert("caution".into(), Value::String(crate::CAUTION.to_string()));
+    Value::Object(root)
+}
+
+// ---------------------------------------------------------------------------------------------
+// Text report
+
+/// `x` with `sig` significant digits, in plain or exponent notation as fits.
+fn sig(x: f64, sig: usize) -> String {
+    if !x.is_finite() {
+        return "-".into();
+    }
+    if x == 0.0 {
+        return "0".into();
+    }
+    let mag = x.abs().log10().floor() as i32;
+    if !(-4..=9).contains(&mag) {
+        return format!("{:.*e}", sig.saturating_sub(1), x);
+    }
+    let decimals = (sig as i32 - 1 - mag).max(0) as usize;
+    format!("{x:.decimals$}")
+}
+
+/// A p-value for reading: 4 significant digits, exponent form below 1e-4.
+fn pval(p: f64) -> String {
+    if p < 1e-4 {
+        format!("{p:.2e}")
+    } else {
+        format!("{p:.4}")
+    }
+}
+
+/// Degrees of freedom: whole numbers as such, fractional ones (Welch) to 4 significant digits.
+fn dfmt(df: f64) -> String {
+    if df.fract() == 0.0 && df.abs() < 1e15 {
+        format!("{df:.0}")
+    } else {
+        sig(df, 4)
+    }
+}
+
+fn verdict(p: f64) -> &'static str {
+    if p < 0.05 {
+        "attention"
+    } else {
+        "pass"
+    }
+}
+
+fn test_line(out: &mut String, name: &str, stat_name: &str, r: &Stat<TestResult>, judge: bool) {
+    match r {
+        Ok(t) => {
+            let df = match (t.df1, t.df2) {
+                (Some(a), Some(b)) => format!(" (df {}, {})", dfmt(a), dfmt(b)),
+                (Some(a), None) => format!(" (df {})", dfmt(a)),
+                _ => String::new(),
+            };
+            let mark = if judge {
+                format!("  {}", verdict(t.p))
+            } else {
+                String::new()
+            };
+            out.push_str(&format!(
+                "  {name:<32} {stat_name} = {}{df}, p = {}{mark}\n",
+                sig(t.statistic, 6),
+                pval(t.p)
+            ));
+        }
+        Err(e) => out.push_str(&format!("  {name:<32} not available: {}\n", e.reason)),
+    }
+}
+
+/// The readable report of `samewise compare`.
+pub fn render_text(
+    args: &CompareArgs,
+    data: &GroupedData,
+    r: &OneWay,
+    options: &OneWayOptions,
+) -> String {
+    let origin = data.origin.to_f64();
+    let places = (data.max_places + 2).clamp(0, 12) as usize;
+    let val = |offset: f64| format!("{:.places$}", origin + offset);
+    let mut o = String::new();
+    o.push_str(&format!(
+        "Comparing \"{}\" across \"{}\" in {}: {} measurements in {} groups\n\n",
+        args.measure,
+        args.by,
+        args.file.display(),
+        data.n_rows,
+        data.names.len()
+    ));
+    let name_w = data
+        .names
+        .iter()
+        .map(|n| n.chars().count())
+        .max()
+        .unwrap_or(5)
+        .clamp(5, 30);
+    o.push_str(&format!(
+        "{:<name_w$}  {:>8}  {:>16}  {:>12}  {:>16}  {:>16}\n",
+        "group", "n", "mean", "sd", "min", "max"
+    ));
+    for (name, s) in data.names.iter().zip(&r.summaries) {
+        let shown: String = name.chars().take(30).collect();
+        let pad = name_w.saturating_sub(shown.chars().count());
+        o.push_str(&format!(
+            "{shown}{:pad$}  {:>8}  {:>16}  {:>12}  {:>16}  {:>16}\n",
+            "",
+            s.n,
+            val(s.mean),
+            s.sd().map_or("-".into(), |v| sig(v, 4)),
+            val(s.min),
+            val(s.max)
+        ));
+    }
+    o.push('\n');
+    o.push_str("One-way ANOVA\n");
+    match &r.anova {
+        Ok(t) => {
+            o.push_str(&format!(
+                "  {:<9} {:>16} {:>8} {:>16} {:>12} {:>10}\n",
+                "source", "SS", "df", "MS", "F", "p"
+            ));
+            o.push_str(&format!(
+                "  {:<9} {:>16} {:>8} {:>16} {:>12} {:>10}\n",
+                "between",
+                sig(t.ss_between, 8),
+                t.df_between,
+                sig(t.ms_between, 8),
+                sig(t.f, 6),
+                pval(t.p)
+            ));
+            o.push_str(&format!(
+                "  {:<9} {:>16} {:>8} {:>16}\n",
+                "within",
+                sig(t.ss_within, 8),
+                t.df_within,
+                sig(t.ms_within, 8)
+            ));
+            o.push_str(&format!(
+                "  {:<9} {:>16} {:>8}\n",
+                "total",
+                sig(t.ss_total, 8),
+                t.df_total
+            ));
+            o.push_str(&format!(
+                "  R-squared {}, residual SD {}\n",
+                sig(t.r_squared, 4),
+                sig(t.resid_sd, 4)
+            ));
+        }
+        Err(e) => o.push_str(&format!("  not available: {}\n", e.reason)),
+    }
+    o.push('\n');
+    o.push_str("Requirement checks (pass = no sign of a problem at the 5% level)\n");
+    test_line(
+        &mut o,
+        "equal variances, Brown-Forsythe",
+        "W",
+        &r.brown_forsythe,
+        true,
+    );
+    test_line(
+        &mut o,
+        "equal variances, Levene (mean)",
+        "W",
+        &r.levene,
+        true,
+    );
+    test_line(&mut o, "equal variances, Bartlett", "T", &r.bartlett, true);
+    match &r.sd_ratio {
+        Ok(v) => o.push_str(&format!(
+            "  {:<32} {}  {}\n",
+            "largest/smallest group SD",
+            sig(*v, 4),
+            if *v <= crate::stats::oneway::SD_RATIO_LIMIT {
+                "pass (rule of thumb <= 2)"
+            } else {
+                "attention (rule of thumb <= 2)"
+            }
+        )),
+        Err(e) => o.push_str(&format!(
+            "  {:<32} not available: {}\n",
+            "largest/smallest group SD", e.reason
+        )),
+    }
+    match &r.n_beyond_3sd {
+        Ok(n) => o.push_str(&format!(
+            "  {:<32} {n}  {}\n",
+            "residuals beyond 3 SD",
+            if *n == 0 { "pass" } else { "attention" }
+        )),
+        Err(e) => o.push_str(&format!(
+            "  {:<32} not available: {}\n",
+            "residuals beyond 3 SD", e.reason
+        )),
+    }
+    o.push('\n');
+    let l = &r.leading;
+    o.push_str(&format!("Leading result: {}\n", l.method.name()));
+    match (l.statistic, l.p) {
+        (Some(f), Some(p)) => o.push_str(&format!(
+            "  F = {}, p = {}: {}\n",
+            sig(f, 6),
+            pval(p),
+            if p < options.alpha {
+                "the group means differ"
+            } else {
+                "no difference between the group means shown"
+            }
+        )),
+        _ => o.push_str("  not available (see above)\n"),
+    }
+    o.push_str(&format!("  why: {}\n", l.reason));
+    if l.recommend_kruskal_wallis {
+        o.push_str(
+            "  note: residuals look clearly non-normal and the groups are small; read Kruskal-Wallis too\n",
+        );
+    }
+    o.push('\n');
+    o.push_str("Robust alternatives\n");
+    test_line(&mut o, "Welch ANOVA", "F", &r.welch, false);
+    test_line(
+        &mut o,
+        "Kruskal-Wallis (ties corrected)",
+        "H",
+        &r.kruskal_wallis,
+        false,
+    );
+    o.push('\n');
+    o.push_str("Effect sizes\n");
+    match &r.effect {
+        Ok(e) => {
+            o.push_str(&format!(
+                "  eta-squared {}, omega-squared {}\n",
+                sig(e.eta_squared, 4),
+                sig(e.omega_squared, 4)
+            ));
+            o.push_str(&format!(
+                "  spread of group means (max - min) {}",
+                sig(e.mean_spread, 4)
+            ));
+            if let Some(pct) = e.mean_spread_pct_tolerance {
+                o.push_str(&format!(" = {}% of the tolerance", sig(pct, 3)));
+            }
+            o.push('\n');
+        }
+        Err(e) => o.push_str(&format!("  not available: {}\n", e.reason)),
+    }
+    o.push('\n');
+    o.push_str(crate::CAUTION);
+    o.push('\n');
+    o
+}
