@@ -649,8 +649,7 @@ impl<R: Read> ImportStream<R> {
             &buf[start..ends[i]]
         };
         let text = |i: usize| -> std::result::Result<&str, String> {
-            std::str::from_utf8(cell(i))
-                .map(|s| s.trim_matches(|c| c == ' ' || c == '\t'))
+            std::str::from_utf8(trim_bytes(cell(i)))
                 .map_err(|_| "cell is not UTF-8 text (save the file as UTF-8)".to_string())
         };
         // Timestamp.
@@ -697,13 +696,21 @@ impl<R: Read> ImportStream<R> {
                             shorten(name)
                         ),
                     )),
-                    Ok(name) => match check_name(name) {
-                        Err(r) => Err((characteristic, format!("characteristic name: {r}"))),
-                        Ok(name) => match text(value).and_then(parse_value) {
-                            Ok(v) => Ok((name, v)),
-                            Err(r) => Err((value, r)),
-                        },
-                    },
+                    Ok(name) => {
+                        // Configured names were checked with the configuration; new ones here.
+                        let checked = if self.known.contains(name) {
+                            Ok(name.to_string())
+                        } else {
+                            check_name(name)
+                        };
+                        match checked {
+                            Err(r) => Err((characteristic, format!("characteristic name: {r}"))),
+                            Ok(name) => match text(value).and_then(parse_value) {
+                                Ok(v) => Ok((name, v)),
+                                Err(r) => Err((value, r)),
+                            },
+                        }
+                    }
                 };
                 match outcome {
                     Ok((name, value)) => {
@@ -730,10 +737,12 @@ impl<R: Read> ImportStream<R> {
                             "unknown characteristic \"{}\" (add it to the configuration or import with --add-new)",
                             shorten(name)
                         ))
-                    } else {
+                    } else if !known {
                         check_name(name)
                             .map_err(|r| format!("characteristic name: {r}"))
                             .and_then(|_| text(*i).and_then(parse_value))
+                    } else {
+                        text(*i).and_then(parse_value)
                     };
                     self.pending.push_back(match outcome {
                         Ok(value) => RowOutcome::Accepted(Measurement {
@@ -937,6 +946,19 @@ fn field_slices<'a>(buf: &'a [u8], ends: &'a [usize]) -> impl Iterator<Item = &'
         let start = if i == 0 { 0 } else { ends[i - 1] };
         &buf[start..end]
     })
+}
+
+/// `bytes` without leading and trailing spaces and tabs.
+fn trim_bytes(bytes: &[u8]) -> &[u8] {
+    let start = bytes
+        .iter()
+        .position(|b| !matches!(b, b' ' | b'\t'))
+        .unwrap_or(bytes.len());
+    let end = bytes
+        .iter()
+        .rposition(|b| !matches!(b, b' ' | b'\t'))
+        .map_or(start, |i| i + 1);
+    &bytes[start..end]
 }
 
 fn raw_text(bytes: &[u8]) -> String {
