@@ -653,7 +653,10 @@ impl<R: Read> ImportStream<R> {
                 .map_err(|_| "cell is not UTF-8 text (save the file as UTF-8)".to_string())
         };
         // Timestamp.
-        let ts = match text(self.plan.timestamp).and_then(|t| self.ts_parser.parse(t)) {
+        let ts = match text(self.plan.timestamp)
+            .and_then(|t| self.ts_parser.parse(t))
+            .and_then(check_year)
+        {
             Ok(ts) => ts,
             Err(reason) => {
                 let col = self.plan.timestamp;
@@ -785,6 +788,20 @@ impl<R: Read> Iterator for ImportStream<R> {
                 self.is_done = true;
             }
         }
+    }
+}
+
+/// Timestamps outside the years 1900 to 2200 are taken for typing or clock errors (and keep
+/// the calendar arithmetic far from the ends of the representable range).
+fn check_year(ts: DateTime<Utc>) -> std::result::Result<DateTime<Utc>, String> {
+    use chrono::Datelike;
+    if (1900..=2200).contains(&ts.year()) {
+        Ok(ts)
+    } else {
+        Err(format!(
+            "timestamp year {} is outside 1900 to 2200 (check the gauge clock or the timestamp_format)",
+            ts.year()
+        ))
     }
 }
 
