@@ -34,8 +34,11 @@
 //! - in a wide file each row holds one measurement per characteristic column and yields exactly
 //!   that many outcomes. A problem with one cell rejects that cell only; a problem with the whole
 //!   row (blank line, wrong number of fields, bad timestamp or factor cell, an over-long line)
-//!   rejects every measurement of the row, one [`Rejection`] per characteristic column, all
-//!   with the same line and reason.
+//!   rejects every measurement of the row: one [`Rejection`] per characteristic column, all
+//!   with the same line, reason and raw line; its `column` is the column at fault (the
+//!   timestamp or factor column) when there is one, otherwise the characteristic's column.
+//!
+//! Timestamps outside the years 1900 to 2200 are rejected as clock or format errors.
 //!
 //! Hence always `accepted + rejected == measurements_read == rows_read x cells_per_row`
 //! ([`Counts`]), where `cells_per_row` is 1 for long files.
