@@ -559,6 +559,49 @@ fn reference_fixtures_oneway() {
                 8.0,
             );
         }
+        // Shapiro-Wilk on the residuals: scipy.stats.shapiro, >= 6 digits (issue 2).
+        if !e["shapiro_wilk"].is_null() {
+            for field in ["w", "p"] {
+                check_close(
+                    &mut failures,
+                    format!("{name} shapiro_wilk.{field}"),
+                    &json["shapiro_wilk"][field],
+                    &e["shapiro_wilk"][field],
+                    6.0,
+                );
+            }
+        }
+        // Pairs: the JSON carries every pair (a < b) with the method that matches the leading
+        // result; differences against scipy tukey_hsd (>= 8 digits, issue 3; compared absolutely
+        // when the reference difference is 0).
+        let pairs = json["pairs"].as_array().unwrap();
+        let k = ds["groups"].as_array().unwrap().len();
+        assert_eq!(pairs.len(), k * (k - 1) / 2, "{name}");
+        let method = if json["leading"]["method"] == "welch" {
+            "games_howell"
+        } else {
+            "tukey_kramer"
+        };
+        for (ours, theirs) in pairs.iter().zip(e["tukey"].as_array().unwrap()) {
+            assert_eq!(ours["method"], method, "{name}");
+            assert_eq!(
+                (&ours["a"], &ours["b"]),
+                (&theirs["a"], &theirs["b"]),
+                "{name}"
+            );
+            let (g, w) = (f(ours, &["diff"]), f(theirs, &["diff"]));
+            if w == 0.0 {
+                assert!(g.abs() < 1e-12, "{name} diff {g}");
+            } else {
+                check_close(
+                    &mut failures,
+                    format!("{name} pair diff"),
+                    &ours["diff"],
+                    &theirs["diff"],
+                    8.0,
+                );
+            }
+        }
         check_close(
             &mut failures,
             format!("{name} eta_squared"),
