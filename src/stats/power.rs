@@ -78,9 +78,9 @@ fn lambda_for_power(df1: f64, df2: f64, alpha: f64, target: f64) -> Stat<f64> {
 
 /// Sensitivity of the one-way F test for these groups (see the module docs for the configuration).
 ///
-/// `within_sd > 0`, `0 < alpha < 1`, `alpha < power_target < 1`; `detect` (a difference in units,
-/// > 0) adds the power at the observed sizes and the balanced group size needed; `tolerance`
-/// (USL - LSL, > 0) adds percentages. Unavailable for fewer than two non-empty groups, `N - k < 1`,
+/// `within_sd > 0`, `0 < alpha < 1`, `alpha < power_target < 1`; `detect` (a positive difference
+/// in units) adds the power at the observed sizes and the balanced group size needed; `tolerance`
+/// (USL - LSL, positive) adds percentages. Unavailable for fewer than two non-empty groups, `N - k < 1`,
 /// or parameters out of range.
 pub fn sensitivity(
     groups: &[Summary],
