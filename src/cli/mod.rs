@@ -10,6 +10,7 @@ use clap::{Parser, Subcommand};
 use crate::Error;
 
 pub mod compare;
+pub mod investigate;
 
 /// Exit code: finished, nothing flagged.
 pub const EXIT_OK: u8 = 0;
