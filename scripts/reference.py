@@ -548,6 +548,141 @@ def build_fdr():
 
 
 # --------------------------------------------------------------------------------------------
+# noncentral F
+# --------------------------------------------------------------------------------------------
+
+
+def sig(x: float, digits: int = 6) -> float:
+    """x rounded to a few significant digits (grid points are short decimals)."""
+    return float(f"{x:.{digits - 1}e}")
+
+
+NCF_CHECK = {}
+
+
+def build_ncf():
+    """scipy.stats.ncf.cdf(x, df1, df2, nc) at x = a few quantiles of that distribution (rounded to
+    6 significant digits) and at the central F critical values f.ppf(0.95) and f.ppf(0.99), the
+    points a power calculation uses. nc = 0 uses scipy.stats.f.cdf (scipy's ncf needs nc > 0)."""
+    grid = []
+    for df1 in (1, 2, 4, 9, 39):
+        for df2 in (3, 10, 30, 100, 1000, 10000):
+            for nc in (0, 0.5, 2, 10, 50, 200):
+                dist = stats.f(df1, df2) if nc == 0 else stats.ncf(df1, df2, nc)
+                xs = {sig(float(dist.ppf(p))) for p in (0.001, 0.05, 0.5, 0.95, 0.999)}
+                xs |= {sig(float(stats.f.ppf(a, df1, df2))) for a in (0.95, 0.99)}
+                for x in sorted(xs):
+                    cdf = float(dist.cdf(x))
+                    row = dict(x=x, df1=float(df1), df2=float(df2), nc=float(nc), cdf=cdf)
+                    if nc == 0:
+                        # scipy's ncf at nc = 0 must equal the central F
+                        row_nc = float(stats.ncf.cdf(x, df1, df2, 0.0))
+                        assert lre(row_nc, cdf) > 10 or abs(row_nc - cdf) < 1e-14, (x, df1, df2, row_nc, cdf)
+                    grid.append(row)
+    # spot check every 7th point against the Poisson mixture of regularized incomplete beta
+    # functions in mpmath (50 digits): cdf = sum_j e^(-nc/2) (nc/2)^j / j! I_y(df1/2 + j, df2/2)
+    worst = 99.0
+    with mpmath.workdps(50):
+        for row in grid[::7]:
+            x, d1, d2, lam = (mpmath.mpf(row[key]) for key in ("x", "df1", "df2", "nc"))
+            y = d1 * x / (d1 * x + d2)
+            total, j = mpmath.mpf(0), 0
+            while True:
+                term = mpmath.exp(-lam / 2 + j * mpmath.log(lam / 2) - mpmath.loggamma(j + 1)) if lam > 0 else mpmath.mpf(j == 0)
+                total += term * mpmath.betainc(d1 / 2 + j, d2 / 2, 0, y, regularized=True)
+                j += 1
+                if j > lam / 2 + 10 and term < mpmath.mpf(10) ** -40 or (lam == 0 and j > 0):
+                    break
+            worst = min(worst, lre(row["cdf"], float(total)))
+    log(f"  ncf: scipy vs mpmath series on {len(grid[::7])} points: >= {worst:.1f} digits")
+    NCF_CHECK["digits"] = worst
+    NCF_CHECK["points"] = len(grid[::7])
+    write_json("ncf.json", {"generator": GENERATOR, "function": "scipy.stats.ncf.cdf (nc = 0: scipy.stats.f.cdf)", "grid": grid})
+
+
+# --------------------------------------------------------------------------------------------
+# two-way
+# --------------------------------------------------------------------------------------------
+
+
+def twoway_table(table, names):
+    rows = []
+    for term, r in table.iterrows():
+        rows.append(
+            dict(
+                term=names.get(term, term),
+                term_statsmodels=term,
+                sum_sq=float(r["sum_sq"]),
+                df=float(r["df"]),
+                F=fnum(r["F"]),
+                p=fnum(r["PR(>F)"]),
+            )
+        )
+    return {"rows": rows}
+
+
+def build_twoway():
+    r = np.random.default_rng(RNG_STATE + 200)
+    datasets = []
+
+    def add(name, description, a_levels, cells, effect):
+        rows = []
+        for i, a in enumerate(a_levels):
+            for j, b in enumerate(("before", "after")):
+                n = cells[i][j]
+                mean = 50.0 + effect(i, j)
+                for v in gauge(r.normal(mean, 0.02, n), "0.001"):
+                    rows.append(dict(a=a, b=b, y=v))
+        df = pd.DataFrame(rows)
+        # statsmodels is given y - 50 (exact decimal difference, rounded once): the term sums of
+        # squares are invariant to the shift and keep more digits; only the typ 3 Intercept row
+        # depends on the origin, so that row comes from the fit on y itself.
+        dc = df.assign(y=[float(Fraction(Decimal(repr(v))) - 50) for v in df["y"]])
+        t2 = anova_lm(ols("y ~ C(a)*C(b)", data=dc).fit(), typ=2)
+        t3 = anova_lm(ols("y ~ C(a, Sum)*C(b, Sum)", data=dc).fit(), typ=3)
+        t3_raw = anova_lm(ols("y ~ C(a, Sum)*C(b, Sum)", data=df).fit(), typ=3)
+        t3.loc["Intercept"] = t3_raw.loc["Intercept"]
+        t2_raw = anova_lm(ols("y ~ C(a)*C(b)", data=df).fit(), typ=2)
+        for term in t2.index:
+            log(f"    typ 2 {term}: sum_sq on y vs on y - 50 agree to {lre(t2_raw.loc[term, 'sum_sq'], t2.loc[term, 'sum_sq']):.1f} digits")
+        names2 = {"C(a)": "a", "C(b)": "b", "C(a):C(b)": "a:b", "Residual": "Residual"}
+        names3 = {"Intercept": "Intercept", "C(a, Sum)": "a", "C(b, Sum)": "b", "C(a, Sum):C(b, Sum)": "a:b", "Residual": "Residual"}
+        datasets.append(
+            dict(
+                name=name,
+                description=description,
+                rows=rows,
+                typ2=twoway_table(t2, names2),
+                typ3=twoway_table(t3, names3),
+            )
+        )
+        log(f"  {name}: N={len(rows)}")
+
+    add(
+        "balanced_a4_b2",
+        "factor a = machine M1..M4, b = before/after a change, 5 per cell, sd 0.02, after shifts M3 by 0.03",
+        ["M1", "M2", "M3", "M4"],
+        [[5, 5]] * 4,
+        lambda i, j: 0.01 * i + (0.03 if (i == 2 and j == 1) else 0.0),
+    )
+    add(
+        "unbalanced_a3_b2",
+        "factor a = line L1..L3, b = before/after, unequal cells 4/9, 7/3, 12/6 (typ 2 and typ 3 differ), sd 0.02",
+        ["L1", "L2", "L3"],
+        [[4, 9], [7, 3], [12, 6]],
+        lambda i, j: 0.015 * i + 0.01 * j + (0.02 if (i == 1 and j == 1) else 0.0),
+    )
+    add(
+        "unbalanced_a5_b2",
+        "factor a = cavity C1..C5, b = before/after, cells from 2 to 11, no interaction, sd 0.02",
+        ["C1", "C2", "C3", "C4", "C5"],
+        [[2, 5], [6, 3], [11, 4], [3, 3], [7, 9]],
+        lambda i, j: 0.008 * i - 0.012 * j,
+    )
+    write_json("twoway.json", {"generator": GENERATOR, "rng_state": RNG_STATE + 200, "datasets": datasets})
+
+
+# --------------------------------------------------------------------------------------------
 
 
 def main():
@@ -555,7 +690,7 @@ def main():
     ap.add_argument("--only", default="oneway,fdr,ptukey,ncf,twoway")
     args = ap.parse_args()
     todo = args.only.split(",")
-    builders = {"oneway": build_oneway, "fdr": build_fdr}
+    builders = {"oneway": build_oneway, "fdr": build_fdr, "ncf": build_ncf, "twoway": build_twoway}
     for name in todo:
         if name not in builders:
             log(f"no builder for {name} yet")
