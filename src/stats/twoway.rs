@@ -900,7 +900,7 @@ mod reference {
     pub(super) fn check_document(text: &str, min_lre: f64) -> usize {
         let doc: Value = serde_json::from_str(text).expect("valid JSON");
         let exact_y = y_tokens(text);
-        let origin = exact_y[0].clone();
+        let origin = exact_y[0];
         let mut next_y = 0;
         let mut compared = 0;
         for dataset in doc["datasets"].as_array().expect("datasets") {
