@@ -533,7 +533,7 @@ fn validate(raw: RawConfig, path: &Path) -> Result<Config> {
     };
 
     // [plant]
-    let plant_name = check_name(&raw.plant.name).map_err(|r| fail(format!("plant.name: {r}")))?;
+    let plant_name = check_label(&raw.plant.name).map_err(|r| fail(format!("plant.name: {r}")))?;
     let time_zone: chrono_tz::Tz = raw.plant.time_zone.parse().map_err(|_| {
         fail(format!(
             "plant.time_zone: \"{}\" is not an IANA time zone name (e.g. \"Europe/Berlin\", \"America/Chicago\")",
@@ -712,7 +712,7 @@ fn validate(raw: RawConfig, path: &Path) -> Result<Config> {
                 )))
             }
             (Some(col), None) => FactorSource::Column(
-                check_name(col).map_err(|r| fail(format!("factor \"{name}\": column: {r}")))?,
+                check_label(col).map_err(|r| fail(format!("factor \"{name}\": column: {r}")))?,
             ),
             (None, None) => FactorSource::Column(name.clone()),
             (None, Some(d)) if d == "shift" => {
@@ -837,7 +837,7 @@ fn validate_layout(
         |key: &str, value: &Option<String>, default: &str| -> std::result::Result<String, String> {
             match value {
                 None => Ok(default.to_string()),
-                Some(v) => check_name(v).map_err(|r| format!("{key}: {r}")),
+                Some(v) => check_label(v).map_err(|r| format!("{key}: {r}")),
             }
         };
     let timestamp_column = column("timestamp", &l.timestamp, "timestamp")?;
@@ -860,7 +860,7 @@ fn validate_layout(
         factor_columns.push(match &f.source {
             FactorSource::DerivedShift => None,
             FactorSource::Column(default) => Some(match l.factors.get(&f.name) {
-                Some(col) => check_name(col).map_err(|r| format!("factors.{}: {r}", f.name))?,
+                Some(col) => check_label(col).map_err(|r| format!("factors.{}: {r}", f.name))?,
                 None => default.clone(),
             }),
         });
@@ -903,7 +903,7 @@ fn validate_layout(
             for c in characteristics {
                 if let Some(col) = l.characteristics.get(&c.name) {
                     let col =
-                        check_name(col).map_err(|r| format!("characteristics.{}: {r}", c.name))?;
+                        check_label(col).map_err(|r| format!("characteristics.{}: {r}", c.name))?;
                     pairs.push((c.name.clone(), col));
                 }
             }
@@ -927,7 +927,7 @@ fn validate_layout(
     };
     let mut ignore = Vec::new();
     for col in &l.ignore {
-        ignore.push(check_name(col).map_err(|r| format!("ignore: {r}"))?);
+        ignore.push(check_label(col).map_err(|r| format!("ignore: {r}"))?);
     }
     let layout = Layout {
         name: name.to_string(),
@@ -1015,8 +1015,27 @@ pub(crate) fn offset_in_day(t: NaiveTime, day_start: NaiveTime) -> i64 {
     (t - day_start).num_seconds().rem_euclid(86_400)
 }
 
-/// A name or column: trimmed, non-empty, no control characters, no `=` or `,` (they separate
-/// `--where machine=M4,M5`), at most 200 characters.
+/// A plant name or a column name: trimmed, non-empty, no control characters, at most 200
+/// characters.
+pub(crate) fn check_label(text: &str) -> std::result::Result<String, String> {
+    let name = text.trim();
+    if name.is_empty() {
+        return Err("empty name".to_string());
+    }
+    if name.chars().count() > 200 {
+        return Err(format!("\"{name}\" is longer than 200 characters"));
+    }
+    if name.chars().any(|c| c.is_control()) {
+        return Err(format!(
+            "\"{}\" contains a control character",
+            name.escape_default()
+        ));
+    }
+    Ok(name.to_string())
+}
+
+/// The name of a characteristic, factor, shift, layout or schedule: as [`check_label`], and no
+/// `=` or `,` (they separate `--where machine=M4,M5`).
 pub(crate) fn check_name(text: &str) -> std::result::Result<String, String> {
     let name = text.trim();
     if name.is_empty() {
