@@ -575,3 +575,4 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
         confidence: options.confidence,
     }
 }
+pub mod investigate;

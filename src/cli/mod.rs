@@ -15,6 +15,7 @@ pub mod db;
 pub mod event;
 pub mod import;
 pub mod init;
+pub mod investigate;
 pub mod status;
 
 /// Exit code: finished, nothing flagged.
