@@ -12,6 +12,7 @@ use crate::Error;
 pub mod common;
 pub mod compare;
 pub mod db;
+pub mod demo;
 pub mod event;
 pub mod import;
 pub mod init;
@@ -37,6 +38,8 @@ pub struct Args {
 /// The subcommands.
 #[derive(Debug, Subcommand)]
 pub enum Command {
+    /// Run the invented sample plant end to end: import, catch-up of every check, report.
+    Demo(demo::DemoArgs),
     /// Compare the groups of one CSV file: one-way ANOVA, checks, Welch, Kruskal-Wallis and more.
     Compare(compare::CompareArgs),
     /// Create the plant database from the configuration, or bring it up to date.
@@ -69,6 +72,7 @@ impl Args {
 /// Runs one command and returns the process exit code.
 pub fn run(args: Args) -> crate::Result<ExitCode> {
     match args.command {
+        Command::Demo(a) => demo::run(&a),
         Command::Compare(compare_args) => compare::run(&compare_args),
         Command::Init(a) => init::run(&a),
         Command::Import(a) => import::run(&a),
