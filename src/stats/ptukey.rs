@@ -748,7 +748,7 @@ mod fixture_tests {
 
     // Reference: scipy.stats.studentized_range.cdf over k in {2, 3, 4, 5, 8, 10, 20, 50, 100},
     // df in {1, 2, 2.5, 3, 5, 7.3, 10, 20, 60, 120, 1000}, q in {0.5, 1, 2, 3, 4, 5, 6, 8, 10}
-    // (the 677 points with cdf >= 1e-3; tests/data/README.md): >= 8 significant digits.
+    // (784 points: those with cdf >= 1e-3; tests/data/README.md): >= 8 significant digits.
     #[test]
     fn cdf_matches_scipy_grid() {
         let doc = fixture();
@@ -762,6 +762,10 @@ mod fixture_tests {
             worst = worst.min(digits);
             assert!(digits >= 8.0, "q {q} k {k} df {df}: {ours} vs {expected}");
         }
+        eprintln!(
+            "ptukey cdf grid: {} points, worst {worst:.2} digits",
+            grid.len()
+        );
         assert!(grid.len() > 600 && worst >= 8.0);
     }
 
@@ -772,6 +776,7 @@ mod fixture_tests {
         let doc = fixture();
         let tail = doc["tail"].as_array().unwrap();
         let mut deepest: f64 = 1.0;
+        let mut worst = f64::INFINITY;
         for c in tail {
             let g = |key: &str| c[key].as_f64().unwrap();
             let (q, k, df, expected) = (g("q"), g("k"), g("df"), g("sf"));
@@ -781,7 +786,12 @@ mod fixture_tests {
                 "q {q} k {k} df {df}: {ours:e} vs {expected:e}"
             );
             deepest = deepest.min(expected);
+            worst = worst.min(lre(ours, expected));
         }
+        eprintln!(
+            "ptukey tail: {} points down to {deepest:e}, worst {worst:.2} digits",
+            tail.len()
+        );
         assert!(deepest < 1e-12);
     }
 
@@ -790,6 +800,7 @@ mod fixture_tests {
     #[test]
     fn quantiles_match_scipy() {
         let doc = fixture();
+        let mut worst = f64::INFINITY;
         for c in doc["quantiles"].as_array().unwrap() {
             let g = |key: &str| c[key].as_f64().unwrap();
             let (p, k, df, expected) = (g("p"), g("k"), g("df"), g("q"));
@@ -798,6 +809,8 @@ mod fixture_tests {
                 lre(ours, expected) >= 8.0,
                 "p {p} k {k} df {df}: {ours} vs {expected}"
             );
+            worst = worst.min(lre(ours, expected));
         }
+        eprintln!("qtukey: worst {worst:.2} digits");
     }
 }
