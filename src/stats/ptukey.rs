@@ -32,6 +32,12 @@
 //! it by Newton steps on the log of the CDF (lower half) or of the upper tail (upper half), using
 //! the density computed in the same pass.
 //!
+//! Speed (FIXME, issue 3 asks for a quantile under 50 microseconds for k <= 50): the quadrature
+//! is tuned for accuracy, not yet for speed. `cargo bench --bench ptukey` measured 8-170 ms per
+//! quantile with finite df (0.4 ms at df = infinity) and about 5 ms per upper tail on the shared,
+//! heavily loaded 2-core machine. The cost is the full inner integral at every outer node; caching
+//! P_inf(w) along w or widening the inner panels away from the peak are the next steps.
+//!
 //! Start reading at [`ptukey_sf`].
 
 use super::{Stat, Unavailable};
