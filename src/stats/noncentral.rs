@@ -183,3 +183,36 @@ mod fixture_tests {
         assert_eq!(grid.len(), 500);
     }
 }
+
+#[cfg(test)]
+mod shared_fixture_tests {
+    use super::*;
+    use crate::stats::lre;
+    use serde_json::Value;
+
+    // Reference: scipy.stats.ncf.cdf (tests/data/reference/ncf.json, the shared fixture; spot-checked
+    // there with an mpmath series): >= 8 significant digits where the cdf is above 1e-12.
+    #[test]
+    fn ncf_matches_shared_fixture() {
+        let path = concat!(env!("CARGO_MANIFEST_DIR"), "/tests/data/reference/ncf.json");
+        let doc: Value = serde_json::from_str(&std::fs::read_to_string(path).unwrap()).unwrap();
+        let grid = doc["grid"].as_array().unwrap();
+        for c in grid {
+            let g = |key: &str| c[key].as_f64().unwrap();
+            let (x, df1, df2, nc, expected) = (g("x"), g("df1"), g("df2"), g("nc"), g("cdf"));
+            let ours = ncf_cdf(x, df1, df2, nc).unwrap();
+            if expected > 1e-12 {
+                assert!(
+                    lre(ours, expected) >= 8.0,
+                    "x {x} df1 {df1} df2 {df2} nc {nc}: {ours:e} vs {expected:e}"
+                );
+            } else {
+                assert!(
+                    (ours - expected).abs() < 1e-20,
+                    "x {x} df1 {df1} df2 {df2} nc {nc}: {ours:e} vs {expected:e}"
+                );
+            }
+        }
+        assert!(grid.len() > 1000);
+    }
+}
