@@ -175,7 +175,7 @@ impl Drawable for Detail<'_> {
             dash: GRAND_DASH,
         });
         draw_ref_lines(c, &left_panel, &refs, true)?;
-        let mut jitter = Jitter(0x5eed_0f_c4a2);
+        let mut jitter = Jitter(0x00c4_a2f1_0b37);
         let slot = (left_panel.x_px(1.0) - left_panel.x_px(0.0)).abs();
         let dot_r = if n_values > 600 { 3.0 } else { 4.5 };
         for (gi, g) in d.groups.iter().enumerate() {

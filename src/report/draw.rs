@@ -275,7 +275,7 @@ impl<'a, DB: DrawingBackend> Canvas<'a, DB> {
             None => self.area.draw(&PathElement::new(pts, style)).map_err(de),
             Some((d, g)) => self
                 .area
-                .draw(&DashedPathElement::new(pts.into_iter(), d, g, style))
+                .draw(&DashedPathElement::new(pts, d, g, style))
                 .map_err(de),
         }
     }

@@ -140,7 +140,7 @@ pub fn share(characteristic: &str, factor: &str, days: u32) -> ShareInput {
 
 /// Invented period detail: 4 groups of 12 values, group "M4" shifted.
 pub fn detail(levels: &[&str]) -> DetailInput {
-    let mut rng = Rng(0x0ddb_a11);
+    let mut rng = Rng(0x00dd_ba11);
     let mut groups = Vec::new();
     let mut residuals = Vec::new();
     let mut all = Vec::new();
