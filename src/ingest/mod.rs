@@ -1,2 +1,1076 @@
 //! Reading CSV exports (long and wide layouts) into measurements, with every rejected row kept
-//! together with its file, line, column and reason.
+//! together with its line, column and reason.
+//!
+//! Start reading at [`read_file`]. It opens the file, reads the header line, picks the layout
+//! (by name, or the one configured layout whose columns the header matches best), and returns an
+//! [`ImportStream`]: an iterator of [`RowOutcome`]s that reads the file line by line in constant
+//! memory (at most one line of [`MAX_LINE_BYTES`] is held), hashing the bytes with SHA-256 as
+//! they pass so that [`ImportStream::file_sha256`] is known at the end without a second read
+//! ([`file_sha256`] computes it up front when a caller needs it before importing).
+//!
+//! This module does no SQL and keeps nothing: storage decides what to do with the outcomes.
+//!
+//! # The file format
+//! - UTF-8, with or without a byte-order mark; a UTF-16 file is refused as a whole. Bytes that
+//!   are not UTF-8 (a Latin-1 export, say) reject the cell they are in.
+//! - Lines end in `\n` or `\r\n`. One physical line is one row: a quoted field may contain the
+//!   delimiter and doubled quotes (`"a ""b"", c"`), but not a line break (a quote still open at
+//!   the end of the line rejects that line with "quoted field is not closed"). This keeps every
+//!   line number exact and the memory bounded even when a quote is never closed.
+//! - The first line is the header. Column names are matched after trimming spaces, ignoring
+//!   ASCII case. The delimiter is the layout's (`,` by default).
+//! - Cells are trimmed of surrounding spaces. Values go through
+//!   [`crate::stats::decimal::Decimal::parse`], which keeps every digit; `1,5`, `1e400`, `NaN`,
+//!   `-` and `12.5 mm` are rejected with a reason.
+//! - Timestamps: see [`timestamp`]. Local times that do not exist or occur twice at a DST change
+//!   are rejected, never guessed.
+//! - A derived `shift` factor is computed from the timestamp with the plant calendar.
+//!
+//! # Counting: what "rows read" means
+//! Every physical line after the header is a *row read*, blank lines included: a blank line (empty
+//! or only spaces and tabs) is a rejected row with the reason "blank line", so nothing is skipped
+//! silently. The unit of the outcomes is the *measurement*:
+//! - in a long file each row holds one measurement and yields exactly one outcome;
+//! - in a wide file each row holds one measurement per characteristic column and yields exactly
+//!   that many outcomes. A problem with one cell rejects that cell only; a problem with the whole
+//!   row (blank line, wrong number of fields, bad timestamp or factor cell, an over-long line)
+//!   rejects every measurement of the row: one [`Rejection`] per characteristic column, all
+//!   with the same line, reason and raw line; its `column` is the column at fault (the
+//!   timestamp or factor column) when there is one, otherwise the characteristic's column.
+//!
+//! Timestamps outside the years 1900 to 2200 are rejected as clock or format errors.
+//!
+//! Hence always `accepted + rejected == measurements_read == rows_read x cells_per_row`
+//! ([`Counts`]), where `cells_per_row` is 1 for long files.
+
+pub mod timestamp;
+
+use std::collections::{HashSet, VecDeque};
+use std::fs::File;
+use std::io::{BufRead, BufReader, Read};
+use std::path::{Path, PathBuf};
+
+use chrono::{DateTime, Utc};
+use sha2::{Digest, Sha256};
+
+use crate::calendar::{PlantCalendar, ShiftTable};
+use crate::config::{check_name, Config, Layout, LayoutKind};
+use crate::stats::decimal::Decimal;
+use crate::{Error, Result};
+
+use timestamp::{shorten, TimestampParser};
+
+/// Longest line read; a longer line is rejected (its bytes are still hashed) and reading
+/// continues with the next line.
+pub const MAX_LINE_BYTES: usize = 1 << 20;
+
+/// Longest `Rejection::raw` kept, in characters (the rest is cut and marked).
+pub const MAX_RAW_CHARS: usize = 1000;
+
+/// One accepted measurement.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Measurement {
+    /// 1-based line of the file (the header is line 1).
+    pub line: u64,
+    /// Characteristic name (a configured one, or a new one when `add_new` is set).
+    pub characteristic: String,
+    /// Instant of the measurement.
+    pub ts: DateTime<Utc>,
+    /// The value, exactly as written.
+    pub value: Decimal,
+    /// One level per `Config::factors`, in order.
+    pub levels: Vec<String>,
+}
+
+/// One rejected measurement (or a whole rejected row of a long file).
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Rejection {
+    /// 1-based line of the file.
+    pub line: u64,
+    /// The column (as named in the header) the problem is in, when it is in one.
+    pub column: Option<String>,
+    /// What is wrong and, when one exists, the fix.
+    pub reason: String,
+    /// The offending text: the whole line (long files and row-level problems) or the cell (a
+    /// wide file's cell), lossily decoded, at most [`MAX_RAW_CHARS`] characters.
+    pub raw: String,
+}
+
+/// What became of one measurement of the file.
+#[derive(Debug, Clone, PartialEq)]
+pub enum RowOutcome {
+    /// Read and valid.
+    Accepted(Measurement),
+    /// Not usable, with the reason.
+    Rejected(Rejection),
+}
+
+/// Options of [`read_file_with`].
+#[derive(Debug, Clone, Default)]
+pub struct ReadOptions {
+    /// Layout name; `None` detects it from the header.
+    pub layout: Option<String>,
+    /// Accept characteristic names not in the configuration (they become new characteristics).
+    pub add_new: bool,
+}
+
+/// Running counts of a stream (see the module docs for the units).
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
+pub struct Counts {
+    /// Lines after the header, blank lines included.
+    pub rows_read: u64,
+    /// Of those, blank lines (each also counted in `rejected`, once per cell of the row).
+    pub blank_rows: u64,
+    /// Measurements per row: 1 for long files, the number of characteristic columns for wide.
+    pub cells_per_row: u64,
+    /// Outcomes produced so far (`accepted + rejected`).
+    pub measurements_read: u64,
+    /// Accepted measurements.
+    pub accepted: u64,
+    /// Rejected measurements.
+    pub rejected: u64,
+}
+
+/// The SHA-256 of a file's bytes, as 64 lowercase hex digits (a separate read of the file).
+pub fn file_sha256(path: impl AsRef<Path>) -> Result<String> {
+    let path = path.as_ref();
+    let mut file = File::open(path).map_err(|e| Error::io(path, e))?;
+    let mut hasher = Sha256::new();
+    let mut buf = vec![0u8; 1 << 16];
+    loop {
+        let n = file.read(&mut buf).map_err(|e| Error::io(path, e))?;
+        if n == 0 {
+            break;
+        }
+        hasher.update(&buf[..n]);
+    }
+    Ok(hex(&hasher.finalize()))
+}
+
+/// Opens `path` and reads it with `layout` (a name) or the layout detected from the header.
+/// Unknown characteristics are rejected (see [`read_file_with`] for `add_new`).
+pub fn read_file(
+    path: impl AsRef<Path>,
+    config: &Config,
+    layout: Option<&str>,
+) -> Result<ImportStream<File>> {
+    read_file_with(
+        path,
+        config,
+        &ReadOptions {
+            layout: layout.map(str::to_string),
+            add_new: false,
+        },
+    )
+}
+
+/// [`read_file`] with all options.
+pub fn read_file_with(
+    path: impl AsRef<Path>,
+    config: &Config,
+    options: &ReadOptions,
+) -> Result<ImportStream<File>> {
+    let path = path.as_ref();
+    let file = File::open(path).map_err(|e| Error::io(path, e))?;
+    read_from(file, path, config, options)
+}
+
+/// Reads CSV from any reader; `path` names it in messages. Fails as a whole only when the header
+/// cannot be used (no header, not UTF-8, UTF-16, no layout fits, an I/O error).
+pub fn read_from<R: Read>(
+    reader: R,
+    path: impl AsRef<Path>,
+    config: &Config,
+    options: &ReadOptions,
+) -> Result<ImportStream<R>> {
+    let path = path.as_ref().to_path_buf();
+    let mut lines = LineReader::new(reader);
+    let file_error = |line: Option<u64>, reason: String| Error::Ingest {
+        path: path.clone(),
+        line,
+        column: None,
+        reason,
+    };
+    let header = match lines.next_line().map_err(|e| Error::io(&path, e))? {
+        None => {
+            return Err(file_error(
+                None,
+                "the file is empty (no header line)".to_string(),
+            ))
+        }
+        Some(LineRead::TooLong { .. }) => {
+            return Err(file_error(
+                Some(1),
+                format!("the header line is longer than {MAX_LINE_BYTES} bytes"),
+            ))
+        }
+        Some(LineRead::Line) => lines.line.clone(),
+    };
+    let mut header_bytes: &[u8] = &header;
+    if header_bytes.starts_with(&[0xEF, 0xBB, 0xBF]) {
+        header_bytes = &header_bytes[3..];
+    }
+    if header_bytes.starts_with(&[0xFF, 0xFE]) || header_bytes.starts_with(&[0xFE, 0xFF]) {
+        return Err(file_error(
+            Some(1),
+            "the file is UTF-16; save it as UTF-8 (with or without BOM)".to_string(),
+        ));
+    }
+    let header_text = std::str::from_utf8(header_bytes).map_err(|_| {
+        file_error(
+            Some(1),
+            "the header line is not UTF-8; save the file as UTF-8".to_string(),
+        )
+    })?;
+    if header_text.trim().is_empty() {
+        return Err(file_error(
+            Some(1),
+            "line 1 is blank; the first line must be the header".to_string(),
+        ));
+    }
+
+    let candidates: Vec<&Layout> = match &options.layout {
+        Some(name) => vec![config.layout(name).ok_or_else(|| {
+            let names: Vec<&str> = config.layouts.iter().map(|l| l.name.as_str()).collect();
+            Error::Usage(format!(
+                "layout \"{name}\" is not configured (layouts: {})",
+                names.join(", ")
+            ))
+        })?],
+        None => config.layouts.iter().collect(),
+    };
+    let mut plans = Vec::new();
+    let mut misfits = Vec::new();
+    for layout in &candidates {
+        let mut fields = Vec::new();
+        let mut buf = Vec::new();
+        let columns: Vec<String> = match split_fields(
+            header_text.as_bytes(),
+            layout.delimiter,
+            &mut buf,
+            &mut fields,
+        ) {
+            Ok(()) => field_slices(&buf, &fields)
+                .map(|f| String::from_utf8_lossy(f).trim().to_string())
+                .collect(),
+            Err(reason) => {
+                misfits.push(format!("{}: header: {reason}", layout.name));
+                continue;
+            }
+        };
+        match Plan::new(layout, &columns, config, options.add_new) {
+            Ok(plan) => plans.push(plan),
+            Err(reason) => misfits.push(format!("layout \"{}\": {reason}", layout.name)),
+        }
+    }
+    let plan = match plans.len() {
+        0 => {
+            let hint = if !header_text.contains(',') && header_text.contains(';') {
+                " (the header is separated by ';': set delimiter = \";\" in the layout)"
+            } else {
+                ""
+            };
+            return Err(file_error(
+                Some(1),
+                format!("the header fits no layout{hint}: {}", misfits.join("; ")),
+            ));
+        }
+        1 => plans.pop().expect("one plan"),
+        _ => {
+            plans.sort_by_key(|p| std::cmp::Reverse(p.score));
+            if plans[0].score == plans[1].score {
+                let names: Vec<&str> = plans
+                    .iter()
+                    .filter(|p| p.score == plans[0].score)
+                    .map(|p| p.layout.name.as_str())
+                    .collect();
+                return Err(file_error(
+                    Some(1),
+                    format!(
+                        "the header fits several layouts equally well ({}); choose one with --layout",
+                        names.join(", ")
+                    ),
+                ));
+            }
+            plans.swap_remove(0)
+        }
+    };
+    let ts_parser = TimestampParser::new(
+        plan.layout.timestamp_format.as_deref(),
+        config.plant.time_zone,
+    )
+    .map_err(|r| file_error(None, r))?;
+    let counts = Counts {
+        cells_per_row: plan.cells_per_row() as u64,
+        ..Counts::default()
+    };
+    Ok(ImportStream {
+        path,
+        lines,
+        plan,
+        calendar: PlantCalendar::new(config),
+        ts_parser,
+        known: config
+            .characteristics
+            .iter()
+            .map(|c| c.name.clone())
+            .collect(),
+        add_new: options.add_new,
+        pending: VecDeque::new(),
+        counts,
+        sha256: None,
+        error: None,
+        is_done: false,
+        shift_cache: None,
+        fields: Vec::new(),
+        field_buf: Vec::new(),
+    })
+}
+
+/// Where each factor's level comes from in one file.
+#[derive(Debug, Clone)]
+enum FactorCell {
+    Column(usize),
+    Shift,
+}
+
+#[derive(Debug, Clone)]
+enum PlanKind {
+    Long {
+        characteristic: usize,
+        value: usize,
+    },
+    /// `(column index, characteristic name, is known)`.
+    Wide {
+        cells: Vec<(usize, String, bool)>,
+    },
+}
+
+/// A layout applied to one header.
+#[derive(Debug, Clone)]
+struct Plan {
+    layout: Layout,
+    columns: Vec<String>,
+    timestamp: usize,
+    factors: Vec<FactorCell>,
+    kind: PlanKind,
+    ignored: Vec<String>,
+    /// How much of the header the layout explains (for detection).
+    score: usize,
+}
+
+impl Plan {
+    fn new(
+        layout: &Layout,
+        columns: &[String],
+        config: &Config,
+        add_new: bool,
+    ) -> std::result::Result<Plan, String> {
+        let find = |name: &str| columns.iter().position(|c| c.eq_ignore_ascii_case(name));
+        let mut missing = Vec::new();
+        let mut used: HashSet<usize> = HashSet::new();
+        let mut need = |name: &str, missing: &mut Vec<String>| -> usize {
+            match find(name) {
+                Some(i) => {
+                    used.insert(i);
+                    i
+                }
+                None => {
+                    missing.push(format!("\"{name}\""));
+                    usize::MAX
+                }
+            }
+        };
+        let timestamp = need(&layout.timestamp_column, &mut missing);
+        let mut factors = Vec::new();
+        for column in &layout.factor_columns {
+            factors.push(match column {
+                Some(c) => FactorCell::Column(need(c, &mut missing)),
+                None => FactorCell::Shift,
+            });
+        }
+        let kind = match &layout.kind {
+            LayoutKind::Long {
+                characteristic_column,
+                value_column,
+            } => PlanKind::Long {
+                characteristic: need(characteristic_column, &mut missing),
+                value: need(value_column, &mut missing),
+            },
+            LayoutKind::Wide {
+                characteristic_columns,
+            } => {
+                let mut cells = Vec::new();
+                if characteristic_columns.is_empty() {
+                    for (i, col) in columns.iter().enumerate() {
+                        let is_other = used.contains(&i)
+                            || layout.ignore.iter().any(|c| c.eq_ignore_ascii_case(col));
+                        if is_other {
+                            continue;
+                        }
+                        let known = config.characteristic(col).is_some();
+                        cells.push((i, col.clone(), known));
+                    }
+                } else {
+                    for (name, col) in characteristic_columns {
+                        if let Some(i) = find(col) {
+                            cells.push((i, name.clone(), true));
+                        }
+                    }
+                }
+                let has_usable = cells.iter().any(|c| c.2) || (add_new && !cells.is_empty());
+                if !has_usable {
+                    missing.push("a column of a configured characteristic".to_string());
+                }
+                PlanKind::Wide { cells }
+            }
+        };
+        if !missing.is_empty() {
+            return Err(format!("missing column {}", missing.join(", ")));
+        }
+        // Duplicate names in the header make a used column ambiguous.
+        for (i, c) in columns.iter().enumerate() {
+            if columns[..i].iter().any(|o| o.eq_ignore_ascii_case(c)) {
+                let is_used = match &kind {
+                    PlanKind::Long { .. } => {
+                        used.contains(&i) || find(c).is_some_and(|j| used.contains(&j))
+                    }
+                    PlanKind::Wide { cells } => {
+                        used.contains(&i)
+                            || cells.iter().any(|x| columns[x.0].eq_ignore_ascii_case(c))
+                    }
+                };
+                if is_used {
+                    return Err(format!("column \"{c}\" appears twice in the header"));
+                }
+            }
+            if c.is_empty() && used.contains(&i) {
+                return Err("a used column has an empty name".to_string());
+            }
+        }
+        let mut score = used.len();
+        if let PlanKind::Wide { cells } = &kind {
+            for (i, _, known) in cells {
+                if *known {
+                    used.insert(*i);
+                }
+            }
+            score = used.len();
+        }
+        let wide_cols: HashSet<usize> = match &kind {
+            PlanKind::Wide { cells } => cells.iter().map(|c| c.0).collect(),
+            PlanKind::Long { .. } => HashSet::new(),
+        };
+        let ignored = columns
+            .iter()
+            .enumerate()
+            .filter(|(i, _)| !used.contains(i) && !wide_cols.contains(i))
+            .map(|(_, c)| c.clone())
+            .collect();
+        Ok(Plan {
+            layout: layout.clone(),
+            columns: columns.to_vec(),
+            timestamp,
+            factors,
+            kind,
+            ignored,
+            score,
+        })
+    }
+
+    fn cells_per_row(&self) -> usize {
+        match &self.kind {
+            PlanKind::Long { .. } => 1,
+            PlanKind::Wide { cells } => cells.len(),
+        }
+    }
+}
+
+/// The streaming reader returned by [`read_file`]: an iterator of [`RowOutcome`]s.
+///
+/// After the iterator has returned `None`, [`ImportStream::file_sha256`] is the hash of every
+/// byte of the file, unless an I/O error ended the stream early: then
+/// [`ImportStream::take_error`] returns it and the hash stays `None` (the caller must not
+/// commit a partial file).
+pub struct ImportStream<R: Read = File> {
+    path: PathBuf,
+    lines: LineReader<R>,
+    plan: Plan,
+    calendar: PlantCalendar,
+    ts_parser: TimestampParser,
+    known: HashSet<String>,
+    add_new: bool,
+    pending: VecDeque<RowOutcome>,
+    counts: Counts,
+    sha256: Option<String>,
+    error: Option<Error>,
+    is_done: bool,
+    shift_cache: Option<ShiftTable>,
+    fields: Vec<usize>,
+    field_buf: Vec<u8>,
+}
+
+impl<R: Read> ImportStream<R> {
+    /// The file being read.
+    pub fn path(&self) -> &Path {
+        &self.path
+    }
+
+    /// The layout in use (named or detected).
+    pub fn layout(&self) -> &Layout {
+        &self.plan.layout
+    }
+
+    /// The header's column names, trimmed.
+    pub fn columns(&self) -> &[String] {
+        &self.plan.columns
+    }
+
+    /// Header columns that are not read (neither timestamp, factor nor characteristic).
+    pub fn ignored_columns(&self) -> &[String] {
+        &self.plan.ignored
+    }
+
+    /// Counts so far (final once the iterator has ended).
+    pub fn counts(&self) -> Counts {
+        self.counts
+    }
+
+    /// The SHA-256 of the file's bytes (64 lowercase hex digits), once the whole file was read.
+    pub fn file_sha256(&self) -> Option<&str> {
+        self.sha256.as_deref()
+    }
+
+    /// The I/O error that ended the stream early, if any.
+    pub fn take_error(&mut self) -> Option<Error> {
+        self.error.take()
+    }
+
+    fn reject_row(&mut self, line: u64, column: Option<usize>, reason: String, raw: &[u8]) {
+        let raw = raw_text(raw);
+        match &self.plan.kind {
+            PlanKind::Long { .. } => self.pending.push_back(RowOutcome::Rejected(Rejection {
+                line,
+                column: column.map(|c| self.plan.columns[c].clone()),
+                reason,
+                raw,
+            })),
+            PlanKind::Wide { cells } => {
+                // One rejection per measurement of the row; the column is where the problem is
+                // when it is in one, otherwise the characteristic's column.
+                for (i, _, _) in cells {
+                    let col = column.unwrap_or(*i);
+                    self.pending.push_back(RowOutcome::Rejected(Rejection {
+                        line,
+                        column: Some(self.plan.columns[col].clone()),
+                        reason: reason.clone(),
+                        raw: raw.clone(),
+                    }));
+                }
+            }
+        }
+    }
+
+    fn shift_level(&mut self, ts: DateTime<Utc>) -> String {
+        if let Some(table) = &self.shift_cache {
+            if let Some(idx) = table.find(ts) {
+                return self.calendar.shifts()[idx].name.clone();
+            }
+        }
+        let day = self.calendar.production_day(ts);
+        let table = self.calendar.shift_table(day);
+        let idx = table.find(ts).unwrap_or(0);
+        self.shift_cache = Some(table);
+        self.calendar.shifts()[idx].name.clone()
+    }
+
+    /// Reads one line and queues its outcomes. `false` at the end of the file.
+    fn read_row(&mut self) -> bool {
+        let read = match self.lines.next_line() {
+            Ok(Some(r)) => r,
+            Ok(None) => {
+                self.sha256 = Some(hex(&self.lines.hasher.clone().finalize()));
+                return false;
+            }
+            Err(e) => {
+                self.error = Some(Error::Ingest {
+                    path: self.path.clone(),
+                    line: Some(self.lines.line_no + 1),
+                    column: None,
+                    reason: format!("read error, the file was not read to the end: {e}"),
+                });
+                return false;
+            }
+        };
+        self.counts.rows_read += 1;
+        let line_no = self.lines.line_no;
+        let line = std::mem::take(&mut self.lines.line);
+        self.process_line(line_no, &read, &line);
+        self.lines.line = line;
+        true
+    }
+
+    fn process_line(&mut self, line_no: u64, read: &LineRead, line: &[u8]) {
+        if let LineRead::TooLong { len } = read {
+            self.reject_row(
+                line_no,
+                None,
+                format!("line is {len} bytes long, more than the {MAX_LINE_BYTES} read"),
+                line,
+            );
+            return;
+        }
+        if line.iter().all(|b| matches!(b, b' ' | b'\t')) {
+            self.counts.blank_rows += 1;
+            self.reject_row(line_no, None, "blank line".to_string(), line);
+            return;
+        }
+        let mut fields = std::mem::take(&mut self.fields);
+        let mut buf = std::mem::take(&mut self.field_buf);
+        let result = split_fields(line, self.plan.layout.delimiter, &mut buf, &mut fields);
+        match result {
+            Err(reason) => self.reject_row(line_no, None, reason, line),
+            Ok(()) if fields.len() != self.plan.columns.len() => self.reject_row(
+                line_no,
+                None,
+                format!(
+                    "row has {} fields, the header has {}",
+                    fields.len(),
+                    self.plan.columns.len()
+                ),
+                line,
+            ),
+            Ok(()) => self.process_fields(line_no, line, &buf, &fields),
+        }
+        self.fields = fields;
+        self.field_buf = buf;
+    }
+
+    fn process_fields(&mut self, line_no: u64, line: &[u8], buf: &[u8], ends: &[usize]) {
+        let cell = |i: usize| -> &[u8] {
+            let start = if i == 0 { 0 } else { ends[i - 1] };
+            &buf[start..ends[i]]
+        };
+        let text = |i: usize| -> std::result::Result<&str, String> {
+            std::str::from_utf8(trim_bytes(cell(i)))
+                .map_err(|_| "cell is not UTF-8 text (save the file as UTF-8)".to_string())
+        };
+        // Timestamp.
+        let ts = match text(self.plan.timestamp)
+            .and_then(|t| self.ts_parser.parse(t))
+            .and_then(check_year)
+        {
+            Ok(ts) => ts,
+            Err(reason) => {
+                let col = self.plan.timestamp;
+                self.reject_row(line_no, Some(col), reason, line);
+                return;
+            }
+        };
+        // Factor levels.
+        let mut levels = Vec::with_capacity(self.plan.factors.len());
+        for f in 0..self.plan.factors.len() {
+            let level = match self.plan.factors[f] {
+                FactorCell::Shift => Ok(self.shift_level(ts)),
+                FactorCell::Column(i) => match text(i) {
+                    Ok("") => Err((i, "empty cell (every factor needs a level)".to_string())),
+                    Ok(t) => Ok(t.to_string()),
+                    Err(r) => Err((i, r)),
+                },
+            };
+            match level {
+                Ok(l) => levels.push(l),
+                Err((col, reason)) => {
+                    self.reject_row(line_no, Some(col), reason, line);
+                    return;
+                }
+            }
+        }
+        match &self.plan.kind {
+            PlanKind::Long {
+                characteristic,
+                value,
+            } => {
+                let (characteristic, value) = (*characteristic, *value);
+                let outcome = match text(characteristic) {
+                    Err(r) => Err((characteristic, r)),
+                    Ok("") => Err((characteristic, "empty cell (no characteristic name)".to_string())),
+                    Ok(name) if !self.known.contains(name) && !self.add_new => Err((
+                        characteristic,
+                        format!(
+                            "unknown characteristic \"{}\" (add it to the configuration or import with --add-new)",
+                            shorten(name)
+                        ),
+                    )),
+                    Ok(name) => {
+                        // Configured names were checked with the configuration; new ones here.
+                        let checked = if self.known.contains(name) {
+                            Ok(name.to_string())
+                        } else {
+                            check_name(name)
+                        };
+                        match checked {
+                            Err(r) => Err((characteristic, format!("characteristic name: {r}"))),
+                            Ok(name) => match text(value).and_then(parse_value) {
+                                Ok(v) => Ok((name, v)),
+                                Err(r) => Err((value, r)),
+                            },
+                        }
+                    }
+                };
+                match outcome {
+                    Ok((name, value)) => {
+                        self.pending.push_back(RowOutcome::Accepted(Measurement {
+                            line: line_no,
+                            characteristic: name,
+                            ts,
+                            value,
+                            levels,
+                        }))
+                    }
+                    Err((col, reason)) => self.pending.push_back(RowOutcome::Rejected(Rejection {
+                        line: line_no,
+                        column: Some(self.plan.columns[col].clone()),
+                        reason,
+                        raw: raw_text(line),
+                    })),
+                }
+            }
+            PlanKind::Wide { cells } => {
+                for (i, name, known) in cells {
+                    let outcome = if !known && !self.add_new {
+                        Err(format!(
+                            "unknown characteristic \"{}\" (add it to the configuration or import with --add-new)",
+                            shorten(name)
+                        ))
+                    } else if !known {
+                        check_name(name)
+                            .map_err(|r| format!("characteristic name: {r}"))
+                            .and_then(|_| text(*i).and_then(parse_value))
+                    } else {
+                        text(*i).and_then(parse_value)
+                    };
+                    self.pending.push_back(match outcome {
+                        Ok(value) => RowOutcome::Accepted(Measurement {
+                            line: line_no,
+                            characteristic: name.clone(),
+                            ts,
+                            value,
+                            levels: levels.clone(),
+                        }),
+                        Err(reason) => RowOutcome::Rejected(Rejection {
+                            line: line_no,
+                            column: Some(self.plan.columns[*i].clone()),
+                            reason,
+                            raw: raw_text(cell(*i)),
+                        }),
+                    });
+                }
+            }
+        }
+    }
+}
+
+impl<R: Read> Iterator for ImportStream<R> {
+    type Item = RowOutcome;
+
+    fn next(&mut self) -> Option<RowOutcome> {
+        loop {
+            if let Some(outcome) = self.pending.pop_front() {
+                self.counts.measurements_read += 1;
+                match &outcome {
+                    RowOutcome::Accepted(_) => self.counts.accepted += 1,
+                    RowOutcome::Rejected(_) => self.counts.rejected += 1,
+                }
+                return Some(outcome);
+            }
+            if self.is_done {
+                return None;
+            }
+            if !self.read_row() {
+                self.is_done = true;
+            }
+        }
+    }
+}
+
+/// Timestamps outside the years 1900 to 2200 are taken for typing or clock errors (and keep
+/// the calendar arithmetic far from the ends of the representable range).
+fn check_year(ts: DateTime<Utc>) -> std::result::Result<DateTime<Utc>, String> {
+    use chrono::Datelike;
+    if (1900..=2200).contains(&ts.year()) {
+        Ok(ts)
+    } else {
+        Err(format!(
+            "timestamp year {} is outside 1900 to 2200 (check the gauge clock or the timestamp_format)",
+            ts.year()
+        ))
+    }
+}
+
+/// A cell's text to an exact decimal, or the reason it is not a value.
+pub fn parse_value(text: &str) -> std::result::Result<Decimal, String> {
+    let t = text.trim();
+    if t.is_empty() {
+        return Err("empty cell (no value)".to_string());
+    }
+    if t.bytes()
+        .all(|b| matches!(b, b'-' | b'+' | b'.' | b'/' | b'?' | b'*'))
+    {
+        return Err(format!(
+            "\"{}\" is a placeholder, not a value (leave missing measurements out of the export)",
+            shorten(t)
+        ));
+    }
+    Decimal::parse(t).map_err(|e| {
+        let mut message = e.to_string();
+        if message.chars().count() > 200 {
+            message = format!("value \"{}\" {}", shorten(t), e.reason);
+        }
+        message
+    })
+}
+
+/// What [`LineReader::next_line`] found.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum LineRead {
+    /// A whole line is in `LineReader::line` (without its line end).
+    Line,
+    /// The line was longer than [`MAX_LINE_BYTES`]; `line` holds its first bytes.
+    TooLong { len: usize },
+}
+
+/// Physical lines of a byte stream, hashing every byte it consumes.
+struct LineReader<R: Read> {
+    inner: BufReader<R>,
+    hasher: Sha256,
+    line: Vec<u8>,
+    line_no: u64,
+}
+
+impl<R: Read> LineReader<R> {
+    fn new(reader: R) -> Self {
+        LineReader {
+            inner: BufReader::with_capacity(1 << 16, reader),
+            hasher: Sha256::new(),
+            line: Vec::new(),
+            line_no: 0,
+        }
+    }
+
+    fn next_line(&mut self) -> std::io::Result<Option<LineRead>> {
+        self.line.clear();
+        let mut len = 0usize;
+        let mut saw_any = false;
+        loop {
+            let chunk = match self.inner.fill_buf() {
+                Ok(c) => c,
+                Err(e) if e.kind() == std::io::ErrorKind::Interrupted => continue,
+                Err(e) => return Err(e),
+            };
+            if chunk.is_empty() {
+                if !saw_any {
+                    return Ok(None);
+                }
+                break;
+            }
+            saw_any = true;
+            let (take, consumed, is_end) = match chunk.iter().position(|&b| b == b'\n') {
+                Some(i) => (i, i + 1, true),
+                None => (chunk.len(), chunk.len(), false),
+            };
+            len += take;
+            let room = MAX_LINE_BYTES.saturating_sub(self.line.len());
+            self.line.extend_from_slice(&chunk[..take.min(room)]);
+            self.hasher.update(&chunk[..consumed]);
+            self.inner.consume(consumed);
+            if is_end {
+                break;
+            }
+        }
+        self.line_no += 1;
+        if len > MAX_LINE_BYTES {
+            return Ok(Some(LineRead::TooLong { len }));
+        }
+        if self.line.last() == Some(&b'\r') {
+            self.line.pop();
+        }
+        Ok(Some(LineRead::Line))
+    }
+}
+
+/// Splits one line into fields (RFC 4180 quoting within the line). The unquoted contents go to
+/// `buf`, and `ends[i]` is where field `i` ends in `buf`.
+fn split_fields(
+    line: &[u8],
+    delimiter: u8,
+    buf: &mut Vec<u8>,
+    ends: &mut Vec<usize>,
+) -> std::result::Result<(), String> {
+    buf.clear();
+    ends.clear();
+    let mut i = 0;
+    loop {
+        // Spaces before an opening quote are allowed.
+        let mut j = i;
+        while j < line.len() && line[j] == b' ' {
+            j += 1;
+        }
+        if j < line.len() && line[j] == b'"' {
+            i = j + 1;
+            loop {
+                if i >= line.len() {
+                    return Err(format!(
+                        "quoted field {} is not closed on this line",
+                        ends.len() + 1
+                    ));
+                }
+                if line[i] == b'"' {
+                    if line.get(i + 1) == Some(&b'"') {
+                        buf.push(b'"');
+                        i += 2;
+                    } else {
+                        i += 1;
+                        break;
+                    }
+                } else {
+                    buf.push(line[i]);
+                    i += 1;
+                }
+            }
+            while i < line.len() && line[i] == b' ' {
+                i += 1;
+            }
+            if i < line.len() && line[i] != delimiter {
+                return Err(format!(
+                    "text after the closing quote of field {}",
+                    ends.len() + 1
+                ));
+            }
+        } else {
+            while i < line.len() && line[i] != delimiter {
+                buf.push(line[i]);
+                i += 1;
+            }
+        }
+        ends.push(buf.len());
+        if i >= line.len() {
+            return Ok(());
+        }
+        i += 1; // the delimiter
+    }
+}
+
+fn field_slices<'a>(buf: &'a [u8], ends: &'a [usize]) -> impl Iterator<Item = &'a [u8]> + 'a {
+    ends.iter().enumerate().map(move |(i, &end)| {
+        let start = if i == 0 { 0 } else { ends[i - 1] };
+        &buf[start..end]
+    })
+}
+
+/// `bytes` without leading and trailing spaces and tabs.
+fn trim_bytes(bytes: &[u8]) -> &[u8] {
+    let start = bytes
+        .iter()
+        .position(|b| !matches!(b, b' ' | b'\t'))
+        .unwrap_or(bytes.len());
+    let end = bytes
+        .iter()
+        .rposition(|b| !matches!(b, b' ' | b'\t'))
+        .map_or(start, |i| i + 1);
+    &bytes[start..end]
+}
+
+fn raw_text(bytes: &[u8]) -> String {
+    let text = String::from_utf8_lossy(bytes);
+    if text.chars().count() <= MAX_RAW_CHARS {
+        text.into_owned()
+    } else {
+        let head: String = text.chars().take(MAX_RAW_CHARS).collect();
+        format!("{head}... (cut, {} bytes in all)", bytes.len())
+    }
+}
+
+fn hex(bytes: &[u8]) -> String {
+    use std::fmt::Write as _;
+    let mut s = String::with_capacity(bytes.len() * 2);
+    for b in bytes {
+        let _ = write!(s, "{b:02x}");
+    }
+    s
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn split_fields_quoting() {
+        let mut buf = Vec::new();
+        let mut ends = Vec::new();
+        let fields = |line: &str,
+                      buf: &mut Vec<u8>,
+                      ends: &mut Vec<usize>|
+         -> std::result::Result<Vec<String>, String> {
+            split_fields(line.as_bytes(), b',', buf, ends)?;
+            Ok(field_slices(buf, ends)
+                .map(|f| String::from_utf8(f.to_vec()).unwrap())
+                .collect())
+        };
+        assert_eq!(
+            fields("a,b,,c", &mut buf, &mut ends).unwrap(),
+            ["a", "b", "", "c"]
+        );
+        assert_eq!(
+            fields("\"a,b\",\"say \"\"hi\"\"\",x", &mut buf, &mut ends).unwrap(),
+            ["a,b", "say \"hi\"", "x"]
+        );
+        assert_eq!(fields("a,", &mut buf, &mut ends).unwrap(), ["a", ""]);
+        assert_eq!(fields("", &mut buf, &mut ends).unwrap(), [""]);
+        assert!(fields("\"open,b", &mut buf, &mut ends)
+            .unwrap_err()
+            .contains("not closed"));
+        assert!(fields("\"a\"b,c", &mut buf, &mut ends)
+            .unwrap_err()
+            .contains("after the closing quote"));
+    }
+
+    #[test]
+    fn value_reasons() {
+        assert_eq!(parse_value("-12.5").unwrap().to_string(), "-12.5");
+        assert_eq!(
+            parse_value("1000000000000.4").unwrap().to_string(),
+            "1000000000000.4"
+        );
+        assert!(parse_value("1,5")
+            .unwrap_err()
+            .contains("use '.' as the decimal separator"));
+        assert!(parse_value("-").unwrap_err().contains("placeholder"));
+        assert!(parse_value("NaN").unwrap_err().contains("NaN"));
+        assert!(parse_value("1e400").unwrap_err().contains("out of range"));
+        assert!(parse_value("12.5 mm").unwrap_err().contains("no units"));
+        assert!(parse_value("").unwrap_err().contains("empty"));
+    }
+
+    #[test]
+    fn line_reader_counts_lines_and_hashes_everything() {
+        let data = b"h\r\n\r\nx\n\ny";
+        let mut r = LineReader::new(&data[..]);
+        let mut lines = Vec::new();
+        while let Some(LineRead::Line) = r.next_line().unwrap() {
+            lines.push(String::from_utf8(r.line.clone()).unwrap());
+        }
+        assert_eq!(lines, ["h", "", "x", "", "y"]);
+        // SHA-256 of the same bytes computed directly (sha2 crate, FIPS 180-4).
+        assert_eq!(hex(&r.hasher.finalize()), hex(&Sha256::digest(data)));
+    }
+
+    #[test]
+    fn sha256_of_abc() {
+        // FIPS 180-2, appendix B.1: SHA-256("abc").
+        assert_eq!(
+            hex(&Sha256::digest(b"abc")),
+            "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad"
+        );
+    }
+}

@@ -22,6 +22,7 @@ pub mod oneway;
 pub mod posthoc;
 pub mod power;
 pub mod ptukey;
+pub mod shift;
 pub mod spread;
 pub mod twoway;
 pub mod variance_components;

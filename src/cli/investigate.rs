@@ -1,0 +1,612 @@
+//! `samewise investigate CHARACTERISTIC --by FACTOR (--event ID | --at TIME) [--before 14d]
+//! [--after 14d] [--json]`: before vs after a process change, per group and pooled, with the
+//! two-way ANOVA group x before/after; without `--event`/`--at`, a change-point scan per group
+//! over the window `[--to - --before, --to)` (default: the last 28 days) and the nearest logged
+//! events.
+//!
+//! The statistics come from [`crate::analysis::investigate`]; this file turns flags into a
+//! request, and prints the terminal view or one JSON object.
+
+use serde_json::{json, Map, Value};
+
+use crate::analysis::investigate::{format_ms, Comparison, GroupChange, GroupScan};
+use crate::stats::twoway::{Table, TermRow, TwoWay};
+use crate::stats::variance_components::VarianceComponents;
+use crate::stats::{Stat, TestResult};
+
+/// What the report is about (names, units, the change and the window).
+#[derive(Debug, Clone, PartialEq)]
+pub struct Context {
+    /// Characteristic name.
+    pub characteristic: String,
+    /// Its unit ("" when none).
+    pub unit: String,
+    /// Grouping factor.
+    pub factor: String,
+    /// The value the stored offsets are measured from (added back for displayed means).
+    pub origin: f64,
+    /// The logged event, when one was named: (id, note).
+    pub event: Option<(i64, String)>,
+    /// Window start (ms since the epoch, UTC), inclusive.
+    pub window_start_ms: i64,
+    /// Window end, exclusive.
+    pub window_end_ms: i64,
+}
+
+/// A logged event near a detected change point.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct NearEvent {
+    /// Event id.
+    pub id: i64,
+    /// When it happened, ms since the epoch.
+    pub at_ms: i64,
+    /// What changed.
+    pub note: String,
+}
+
+// ---------------------------------------------------------------------------------------------
+// Number formatting
+
+/// `x` with `digits` significant digits, plain or exponent notation as fits.
+fn sig(x: f64, digits: usize) -> String {
+    if !x.is_finite() {
+        return "-".into();
+    }
+    if x == 0.0 {
+        return "0".into();
+    }
+    let mag = x.abs().log10().floor() as i32;
+    if !(-4..=9).contains(&mag) {
+        return format!("{:.*e}", digits.saturating_sub(1), x);
+    }
+    let decimals = (digits as i32 - 1 - mag).max(0) as usize;
+    format!("{x:.decimals$}")
+}
+
+fn pval(p: f64) -> String {
+    if p < 1e-4 {
+        format!("{p:.2e}")
+    } else {
+        format!("{p:.4}")
+    }
+}
+
+fn num(x: f64) -> Value {
+    serde_json::Number::from_f64(x).map_or(Value::Null, Value::Number)
+}
+
+fn put<T>(map: &mut Map<String, Value>, key: &str, stat: &Stat<T>, f: impl Fn(&T) -> Value) {
+    match stat {
+        Ok(v) => {
+            map.insert(key.to_string(), f(v));
+        }
+        Err(e) => {
+            map.insert(key.to_string(), Value::Null);
+            map.insert(format!("{key}_reason"), Value::String(e.reason.clone()));
+        }
+    }
+}
+
+// ---------------------------------------------------------------------------------------------
+// Before/after: JSON
+
+fn group_json(g: &GroupChange, origin: f64) -> Value {
+    let mut m = Map::new();
+    m.insert("group".into(), json!(g.group));
+    m.insert("n_before".into(), json!(g.before.n));
+    m.insert("n_after".into(), json!(g.after.n));
+    m.insert("mean_before".into(), num(origin + g.before.mean));
+    m.insert("mean_after".into(), num(origin + g.after.mean));
+    m.insert("sd_before".into(), g.before.sd().map_or(Value::Null, num));
+    m.insert("sd_after".into(), g.after.sd().map_or(Value::Null, num));
+    put(&mut m, "mean_shift", &g.mean_shift, |s| {
+        json!({"shift": num(s.shift), "se": num(s.se), "df": num(s.df), "t": num(s.t), "p": num(s.p),
+               "ci_low": num(s.ci_low), "ci_high": num(s.ci_high), "confidence": num(s.confidence),
+               "method": "Welch two-sample t"})
+    });
+    put(&mut m, "sd_ratio", &g.sd_ratio, |r| {
+        json!({"ratio": num(r.ratio), "ci_low": num(r.ci_low), "ci_high": num(r.ci_high), "f": num(r.f),
+               "df1": num(r.df1), "df2": num(r.df2), "p": num(r.p), "confidence": num(r.confidence),
+               "method": "F interval for the variance ratio (after / before)"})
+    });
+    put(&mut m, "brown_forsythe", &g.brown_forsythe, |t| {
+        json!({"statistic": num(t.statistic), "df1": t.df1.map_or(Value::Null, num),
+               "df2": t.df2.map_or(Value::Null, num), "p": num(t.p)})
+    });
+    Value::Object(m)
+}
+
+fn share_json(v: &VarianceComponents) -> Value {
+    json!({"share_between": num(v.share_between), "between": num(v.between), "within": num(v.within),
+           "is_truncated": v.is_truncated, "icc_ci": v.icc_ci.as_ref().ok().map(|i| json!([num(i.low), num(i.high)])),
+           "method": v.method})
+}
+
+fn term_json(row: &Stat<TermRow>) -> Value {
+    let mut m = Map::new();
+    match row {
+        Ok(r) => {
+            m.insert("ss".into(), num(r.ss));
+            m.insert("df".into(), json!(r.df));
+            m.insert("ms".into(), num(r.ms));
+            put(&mut m, "test", &r.test, |t: &TestResult| {
+                json!({"f": num(t.statistic), "p": num(t.p), "df1": t.df1.map_or(Value::Null, num),
+                       "df2": t.df2.map_or(Value::Null, num)})
+            });
+        }
+        Err(e) => {
+            m.insert("ss".into(), Value::Null);
+            m.insert("reason".into(), json!(e.reason));
+        }
+    }
+    Value::Object(m)
+}
+
+fn table_json(t: &Table) -> Value {
+    json!({"ss_type": t.ss_type.label(), "group": term_json(&t.a), "before_after": term_json(&t.b),
+           "interaction": term_json(&t.interaction)})
+}
+
+fn two_way_json(t: &TwoWay) -> Value {
+    let mut m = Map::new();
+    m.insert("leading".into(), json!(t.leading.label()));
+    m.insert("leading_reason".into(), json!(t.leading_reason));
+    m.insert("is_balanced".into(), json!(t.is_balanced));
+    m.insert("n_obs".into(), json!(t.n_obs));
+    m.insert("type2".into(), table_json(&t.type2));
+    put(&mut m, "type3", &t.type3, table_json);
+    m.insert(
+        "residual".into(),
+        json!({"ss": num(t.residual.ss), "df": t.residual.df, "ms": t.residual.ms.map_or(Value::Null, num)}),
+    );
+    m.insert("notes".into(), json!(t.notes));
+    Value::Object(m)
+}
+
+fn context_json(ctx: &Context, root: &mut Map<String, Value>) {
+    root.insert("characteristic".into(), json!(ctx.characteristic));
+    root.insert("unit".into(), json!(ctx.unit));
+    root.insert("factor".into(), json!(ctx.factor));
+    root.insert(
+        "window".into(),
+        json!({"start": format_ms(ctx.window_start_ms), "end": format_ms(ctx.window_end_ms),
+               "start_ms": ctx.window_start_ms, "end_ms": ctx.window_end_ms}),
+    );
+    root.insert(
+        "event".into(),
+        ctx.event
+            .as_ref()
+            .map_or(Value::Null, |(id, note)| json!({"id": id, "note": note})),
+    );
+}
+
+/// The JSON object of `investigate --json` with a change time.
+pub fn compare_json(ctx: &Context, c: &Comparison) -> Value {
+    let mut root = Map::new();
+    root.insert("mode".into(), json!("before_after"));
+    context_json(ctx, &mut root);
+    root.insert(
+        "change".into(),
+        json!({"at": format_ms(c.change_ms), "at_ms": c.change_ms}),
+    );
+    root.insert(
+        "groups".into(),
+        Value::Array(c.groups.iter().map(|g| group_json(g, ctx.origin)).collect()),
+    );
+    root.insert("pooled".into(), group_json(&c.pooled, ctx.origin));
+    root.insert(
+        "left_out".into(),
+        Value::Array(
+            c.left_out
+                .iter()
+                .map(|l| json!({"group": l.group, "n_before": l.n_before, "n_after": l.n_after}))
+                .collect(),
+        ),
+    );
+    put(&mut root, "share_before", &c.share_before, share_json);
+    put(&mut root, "share_after", &c.share_after, share_json);
+    put(&mut root, "two_way", &c.two_way, two_way_json);
+    root.insert("notes".into(), json!(c.notes));
+    root.insert("caution".into(), json!(crate::CAUTION));
+    Value::Object(root)
+}
+
+// ---------------------------------------------------------------------------------------------
+// Before/after: text
+
+fn header(ctx: &Context, o: &mut String) {
+    let unit = if ctx.unit.is_empty() {
+        String::new()
+    } else {
+        format!(" ({})", ctx.unit)
+    };
+    o.push_str(&format!("{}{unit} by {}\n", ctx.characteristic, ctx.factor));
+    o.push_str(&format!(
+        "window: {} to {}\n",
+        format_ms(ctx.window_start_ms),
+        format_ms(ctx.window_end_ms)
+    ));
+    if let Some((id, note)) = &ctx.event {
+        o.push_str(&format!("event {id}: {note}\n"));
+    }
+}
+
+fn term_line(o: &mut String, name: &str, row: &Stat<TermRow>) {
+    match row {
+        Ok(r) => {
+            let (f, p) = match &r.test {
+                Ok(t) => (sig(t.statistic, 5), pval(t.p)),
+                Err(_) => ("-".into(), "-".into()),
+            };
+            o.push_str(&format!(
+                "  {name:<28} {:>12} {:>5} {:>12} {:>10} {:>10}\n",
+                sig(r.ss, 6),
+                r.df,
+                sig(r.ms, 6),
+                f,
+                p
+            ));
+            if let Err(e) = &r.test {
+                o.push_str(&format!("    (no F test: {})\n", e.reason));
+            }
+        }
+        Err(e) => o.push_str(&format!("  {name:<28} not testable: {}\n", e.reason)),
+    }
+}
+
+/// The terminal view of a before/after comparison.
+pub fn render_compare(ctx: &Context, c: &Comparison) -> String {
+    let mut o = String::new();
+    header(ctx, &mut o);
+    o.push_str(&format!(
+        "change at {}: values before it count as before, values at or after it as after\n\n",
+        format_ms(c.change_ms)
+    ));
+    let mut lines: Vec<&GroupChange> = c.groups.iter().collect();
+    lines.push(&c.pooled);
+    o.push_str("Mean shift (after - before), 95% Welch interval\n");
+    o.push_str(&format!(
+        "  {:<14} {:>8} {:>8} {:>12} {:>12} {:>11} {:>25} {:>10}\n",
+        "group", "n before", "n after", "mean before", "mean after", "shift", "interval", "p"
+    ));
+    for g in &lines {
+        let (shift, interval, p) = match &g.mean_shift {
+            Ok(s) => (
+                sig(s.shift, 4),
+                format!("[{}, {}]", sig(s.ci_low, 4), sig(s.ci_high, 4)),
+                pval(s.p),
+            ),
+            Err(e) => ("-".into(), e.reason.clone(), "-".into()),
+        };
+        o.push_str(&format!(
+            "  {:<14} {:>8} {:>8} {:>12} {:>12} {:>11} {:>25} {:>10}\n",
+            g.group,
+            g.before.n,
+            g.after.n,
+            sig(ctx.origin + g.before.mean, 7),
+            sig(ctx.origin + g.after.mean, 7),
+            shift,
+            interval,
+            p
+        ));
+    }
+    o.push_str(
+        "\nWithin-group spread: SD after / SD before (95% F interval), Brown-Forsythe test\n",
+    );
+    o.push_str(&format!(
+        "  {:<14} {:>10} {:>10} {:>8} {:>22} {:>14}\n",
+        "group", "SD before", "SD after", "ratio", "interval", "B-F p"
+    ));
+    for g in &lines {
+        let (ratio, interval) = match &g.sd_ratio {
+            Ok(r) => (
+                sig(r.ratio, 3),
+                format!("[{}, {}]", sig(r.ci_low, 3), sig(r.ci_high, 3)),
+            ),
+            Err(e) => ("-".into(), e.reason.clone()),
+        };
+        let bf = match &g.brown_forsythe {
+            Ok(t) => pval(t.p),
+            Err(_) => "-".into(),
+        };
+        o.push_str(&format!(
+            "  {:<14} {:>10} {:>10} {:>8} {:>22} {:>14}\n",
+            g.group,
+            g.before.sd().map_or("-".into(), |s| sig(s, 4)),
+            g.after.sd().map_or("-".into(), |s| sig(s, 4)),
+            ratio,
+            interval,
+            bf
+        ));
+    }
+    o.push_str("\nBetween-group share of variance\n");
+    let share = |s: &Stat<VarianceComponents>| match s {
+        Ok(v) => format!("{:.1}%", 100.0 * v.share_between),
+        Err(e) => format!("not available ({})", e.reason),
+    };
+    o.push_str(&format!(
+        "  before {}  ->  after {}\n",
+        share(&c.share_before),
+        share(&c.share_after)
+    ));
+    o.push_str(&format!(
+        "\nTwo-way ANOVA: {} x before/after (did the change affect the groups differently?)\n",
+        ctx.factor
+    ));
+    match &c.two_way {
+        Ok(t) => {
+            let table = t.leading_table();
+            o.push_str(&format!(
+                "  {} sums of squares: {}\n",
+                table.ss_type.label(),
+                t.leading_reason
+            ));
+            o.push_str(&format!(
+                "  {:<28} {:>12} {:>5} {:>12} {:>10} {:>10}\n",
+                "source", "SS", "df", "MS", "F", "p"
+            ));
+            term_line(&mut o, &ctx.factor, &table.a);
+            term_line(&mut o, "before/after", &table.b);
+            term_line(
+                &mut o,
+                &format!("{} x before/after", ctx.factor),
+                &table.interaction,
+            );
+            o.push_str(&format!(
+                "  {:<28} {:>12} {:>5} {:>12}\n",
+                "residual",
+                sig(t.residual.ss, 6),
+                t.residual.df,
+                t.residual.ms.map_or("-".into(), |m| sig(m, 6))
+            ));
+            for note in &t.notes {
+                o.push_str(&format!("  note: {note}\n"));
+            }
+        }
+        Err(e) => o.push_str(&format!("  not available: {}\n", e.reason)),
+    }
+    if !c.notes.is_empty() {
+        o.push('\n');
+        for note in &c.notes {
+            o.push_str(&format!("note: {note}\n"));
+        }
+    }
+    o.push('\n');
+    o.push_str(crate::CAUTION);
+    o.push('\n');
+    o
+}
+
+// ---------------------------------------------------------------------------------------------
+// Scan
+
+/// The JSON object of `investigate --json` without a change time (the scan).
+pub fn scan_json(ctx: &Context, scans: &[GroupScan], nearest: &[Vec<Vec<NearEvent>>]) -> Value {
+    let mut root = Map::new();
+    root.insert("mode".into(), json!("scan"));
+    context_json(ctx, &mut root);
+    root.insert("method".into(), json!(crate::stats::changepoint::METHOD));
+    let groups: Vec<Value> = scans
+        .iter()
+        .enumerate()
+        .map(|(gi, g)| {
+            let mut m = Map::new();
+            m.insert("group".into(), json!(g.group));
+            m.insert("n".into(), json!(g.n));
+            put(&mut m, "change_points", &g.scan, |s| {
+                Value::Array(
+                    s.change_points
+                        .iter()
+                        .enumerate()
+                        .map(|(ci, c)| {
+                            let near = nearest
+                                .get(gi)
+                                .and_then(|v| v.get(ci))
+                                .map(|v| {
+                                    v.iter()
+                                        .map(|e| json!({"id": e.id, "at": format_ms(e.at_ms), "note": e.note}))
+                                        .collect::<Vec<_>>()
+                                })
+                                .unwrap_or_default();
+                            json!({
+                                "at": format_ms(g.change_ms[ci]), "at_ms": g.change_ms[ci],
+                                "at_range": [format_ms(g.change_range_ms[ci].0), format_ms(g.change_range_ms[ci].1)],
+                                "index": c.index, "shift": num(c.shift), "se": num(c.se),
+                                "shift_ci": [num(c.shift_low), num(c.shift_high)],
+                                "mean_before": num(ctx.origin + c.before.mean), "mean_after": num(ctx.origin + c.after.mean),
+                                "n_before": c.before.n, "n_after": c.after.n,
+                                "p": num(c.p), "share_explained": num(c.share_explained),
+                                "nearest_events": near,
+                            })
+                        })
+                        .collect(),
+                )
+            });
+            if let Ok(s) = &g.scan {
+                m.insert("notes".into(), json!(s.notes));
+            }
+            Value::Object(m)
+        })
+        .collect();
+    root.insert("groups".into(), Value::Array(groups));
+    root.insert("caution".into(), json!(crate::CAUTION));
+    Value::Object(root)
+}
+
+/// The terminal view of the change-point scan.
+pub fn render_scan(ctx: &Context, scans: &[GroupScan], nearest: &[Vec<Vec<NearEvent>>]) -> String {
+    let mut o = String::new();
+    header(ctx, &mut o);
+    o.push_str(&format!(
+        "change-point scan: {}\n\n",
+        crate::stats::changepoint::METHOD
+    ));
+    for (gi, g) in scans.iter().enumerate() {
+        match &g.scan {
+            Err(e) => o.push_str(&format!(
+                "{} ({} values): not scanned: {}\n",
+                g.group, g.n, e.reason
+            )),
+            Ok(s) if s.change_points.is_empty() => {
+                let p = s.tests.first().map_or("-".into(), |t| pval(t.p));
+                o.push_str(&format!(
+                    "{} ({} values): no change point (first test p = {p})\n",
+                    g.group, g.n
+                ));
+            }
+            Ok(s) => {
+                o.push_str(&format!(
+                    "{} ({} values): {} change point(s)\n",
+                    g.group,
+                    g.n,
+                    s.change_points.len()
+                ));
+                for (ci, c) in s.change_points.iter().enumerate() {
+                    o.push_str(&format!(
+                        "  from {} (between {} and {}): shift {} (se {}, 95% bootstrap [{}, {}]), \
+                         mean {} -> {}, p = {}\n",
+                        format_ms(g.change_ms[ci]),
+                        format_ms(g.change_range_ms[ci].0),
+                        format_ms(g.change_range_ms[ci].1),
+                        sig(c.shift, 4),
+                        sig(c.se, 3),
+                        sig(c.shift_low, 4),
+                        sig(c.shift_high, 4),
+                        sig(ctx.origin + c.before.mean, 7),
+                        sig(ctx.origin + c.after.mean, 7),
+                        pval(c.p)
+                    ));
+                    let near = nearest.get(gi).and_then(|v| v.get(ci));
+                    match near {
+                        Some(events) if !events.is_empty() => {
+                            for e in events {
+                                o.push_str(&format!(
+                                    "    nearest event {}: {} at {}\n",
+                                    e.id,
+                                    e.note,
+                                    format_ms(e.at_ms)
+                                ));
+                            }
+                        }
+                        _ => o.push_str("    no logged event in the window\n"),
+                    }
+                }
+            }
+        }
+    }
+    o.push('\n');
+    o.push_str(crate::CAUTION);
+    o.push('\n');
+    o
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::analysis::investigate::{compare, scan_groups, CompareOptions, GroupedSeries};
+    use crate::stats::changepoint::ScanOptions;
+
+    fn data() -> (Vec<f64>, Vec<i64>, Vec<u32>, Vec<String>) {
+        // Invented: two lines, 12 values each side; L2 moves up by 1 at t = 12.
+        let mut v = Vec::new();
+        let mut t = Vec::new();
+        let mut g = Vec::new();
+        for i in 0..24i64 {
+            for line in 0..2u32 {
+                let wobble = [0.1, -0.2, 0.15, -0.05][(i as usize + line as usize) % 4];
+                let shift = if line == 1 && i >= 12 { 1.0 } else { 0.0 };
+                v.push(wobble + shift);
+                t.push(i * 1000 + line as i64);
+                g.push(line);
+            }
+        }
+        (v, t, g, vec!["L1".into(), "L2".into()])
+    }
+
+    fn ctx() -> Context {
+        Context {
+            characteristic: "bore_d".into(),
+            unit: "mm".into(),
+            factor: "line".into(),
+            origin: 10.0,
+            event: Some((3, "new insert holder".into())),
+            window_start_ms: 0,
+            window_end_ms: 24_000,
+        }
+    }
+
+    #[test]
+    fn compare_views_carry_every_part_and_the_caution() {
+        let (v, t, g, names) = data();
+        let s = GroupedSeries {
+            characteristic: "bore_d",
+            factor: "line",
+            values: &v,
+            ts_ms: &t,
+            group_idx: &g,
+            groups: &names,
+        };
+        let c = compare(&s, 12_000, &CompareOptions::default()).unwrap();
+        let text = render_compare(&ctx(), &c);
+        for part in [
+            "Mean shift",
+            "Within-group spread",
+            "Between-group share",
+            "Two-way ANOVA",
+            "line x before/after",
+            "all groups",
+            crate::CAUTION,
+        ] {
+            assert!(text.contains(part), "missing {part}:\n{text}");
+        }
+        let j = compare_json(&ctx(), &c);
+        assert_eq!(j["groups"].as_array().unwrap().len(), 2);
+        assert_eq!(j["event"]["id"], 3);
+        let shift = j["groups"][1]["mean_shift"]["shift"].as_f64().unwrap();
+        assert!((shift - 1.0).abs() < 1e-12);
+        // Displayed means carry the origin back.
+        assert!(j["groups"][0]["mean_before"].as_f64().unwrap() > 9.0);
+        assert!(
+            j["two_way"]["type2"]["interaction"]["test"]["p"]
+                .as_f64()
+                .unwrap()
+                < 1e-6
+        );
+        assert_eq!(j["caution"], crate::CAUTION);
+    }
+
+    #[test]
+    fn scan_views_list_change_points_and_events() {
+        let (v, t, g, names) = data();
+        let s = GroupedSeries {
+            characteristic: "bore_d",
+            factor: "line",
+            values: &v,
+            ts_ms: &t,
+            group_idx: &g,
+            groups: &names,
+        };
+        let scans = scan_groups(&s, &ScanOptions::default()).unwrap();
+        let near = vec![
+            vec![],
+            vec![vec![NearEvent {
+                id: 3,
+                at_ms: 11_500,
+                note: "new insert holder".into(),
+            }]],
+        ];
+        let text = render_scan(&ctx(), &scans, &near);
+        assert!(text.contains("L1 (24 values): no change point"), "{text}");
+        assert!(text.contains("L2 (24 values): 1 change point(s)"), "{text}");
+        assert!(
+            text.contains("nearest event 3: new insert holder"),
+            "{text}"
+        );
+        let j = scan_json(&ctx(), &scans, &near);
+        assert_eq!(j["groups"][1]["change_points"][0]["index"], 12);
+        assert_eq!(
+            j["groups"][1]["change_points"][0]["nearest_events"][0]["id"],
+            3
+        );
+    }
+}

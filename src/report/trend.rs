@@ -1,0 +1,230 @@
+//! The group trend chart: one characteristic, one factor, group means per period with their 95%
+//! intervals, spec limits and target, process-change events, flagged periods.
+
+use plotters::prelude::DrawingBackend;
+
+use super::draw::{
+    check_finite, draw_events, draw_ref_lines, flag_event_legend, format_number, frame, group_dash,
+    header, limit_legend, limit_lines, padded_range, sizes, time_to_x, y_axis, Align, Canvas,
+    DrawResult, Drawable, Marker, Palette, Swatch, TextOpts, TimeAxis,
+};
+use super::{Layout, Panel, Size, TrendInput};
+
+pub(super) struct Trend<'a>(pub &'a TrendInput);
+
+/// Levels in order of first appearance.
+pub(super) fn levels_in_order<'a>(names: impl IntoIterator<Item = &'a str>) -> Vec<String> {
+    let mut out: Vec<String> = Vec::new();
+    for n in names {
+        if !out.iter().any(|o| o == n) {
+            out.push(n.to_string());
+        }
+    }
+    out
+}
+
+/// x range of a run of periods plus events.
+pub(super) fn time_range(
+    periods: impl IntoIterator<Item = (chrono::DateTime<chrono::Utc>, chrono::DateTime<chrono::Utc>)>,
+    events: &[super::EventMarker],
+) -> (f64, f64) {
+    let mut lo = f64::INFINITY;
+    let mut hi = f64::NEG_INFINITY;
+    for (s, e) in periods {
+        lo = lo.min(time_to_x(s));
+        hi = hi.max(time_to_x(e));
+    }
+    for e in events {
+        lo = lo.min(time_to_x(e.at));
+        hi = hi.max(time_to_x(e.at));
+    }
+    if hi <= lo {
+        hi = lo + 1.0;
+    }
+    let pad = (hi - lo) * 0.01;
+    (lo - pad, hi + pad)
+}
+
+impl Drawable for Trend<'_> {
+    fn name(&self) -> String {
+        format!("trend of {} by {}", self.0.characteristic, self.0.factor)
+    }
+
+    fn validate(&self) -> Result<(), String> {
+        let t = self.0;
+        if t.periods.is_empty() {
+            return Err("no periods to draw".into());
+        }
+        for p in &t.periods {
+            if p.end <= p.start {
+                return Err(format!("period {} ends before it starts", p.label));
+            }
+            for g in &p.groups {
+                check_finite(
+                    [("mean", g.mean)]
+                        .into_iter()
+                        .chain(g.ci_low.map(|v| ("interval low", v)))
+                        .chain(g.ci_high.map(|v| ("interval high", v))),
+                )
+                .map_err(|e| format!("period {}, group {}: {e}", p.label, g.level))?;
+            }
+        }
+        if !t.periods.iter().any(|p| !p.groups.is_empty()) {
+            return Err("no group has a value in any period".into());
+        }
+        Ok(())
+    }
+
+    fn draw<DB: DrawingBackend>(&self, c: &Canvas<DB>, size: Size) -> DrawResult<Layout> {
+        let t = self.0;
+        let (w, h) = (size.width as f64, size.height as f64);
+        let levels = levels_in_order(
+            t.periods
+                .iter()
+                .flat_map(|p| p.groups.iter().map(|g| g.level.as_str())),
+        );
+
+        let mut legend: Vec<(Swatch, String)> = levels
+            .iter()
+            .enumerate()
+            .map(|(i, l)| {
+                (
+                    Swatch::Series {
+                        color: Palette::group(i),
+                        marker: Marker::group(i),
+                        dash: group_dash(i),
+                        line: true,
+                    },
+                    l.clone(),
+                )
+            })
+            .collect();
+        legend.extend(limit_legend(&t.limits));
+        legend.extend(flag_event_legend(
+            t.periods.iter().map(|p| p.state),
+            !t.events.is_empty(),
+        ));
+        let first = &t.periods[0].label;
+        let last = &t.periods[t.periods.len() - 1].label;
+        let title = format!("{} by {}", t.characteristic, t.factor);
+        let subtitle = format!(
+            "Group mean per period with 95% interval, {} .. {}",
+            first, last
+        );
+        let mut y = header(c, w, &title, &subtitle, &legend)?;
+        let strip_top = y;
+        if !t.events.is_empty() {
+            y += 52.0;
+        }
+
+        let (x_min, x_max) = time_range(t.periods.iter().map(|p| (p.start, p.end)), &t.events);
+        let values = t
+            .periods
+            .iter()
+            .flat_map(|p| p.groups.iter())
+            .flat_map(|g| [Some(g.mean), g.ci_low, g.ci_high])
+            .flatten()
+            .chain(
+                [t.limits.lsl, t.limits.usl, t.limits.target]
+                    .into_iter()
+                    .flatten(),
+            );
+        let (y_min, y_max) = padded_range(values).ok_or("no finite value to draw")?;
+        let panel = Panel {
+            name: "trend",
+            left: 120.0,
+            top: y + 6.0,
+            right: w - 140.0,
+            bottom: h - 92.0,
+            x_min,
+            x_max,
+            y_min,
+            y_max,
+        };
+        if panel.bottom - panel.top < 80.0 {
+            return Err(format!(
+                "{}x{} pixels leave no room for the plot; make the chart taller",
+                size.width, size.height
+            ));
+        }
+
+        let axis = TimeAxis {
+            periods: t
+                .periods
+                .iter()
+                .map(|p| {
+                    let (s, e) = (time_to_x(p.start), time_to_x(p.end));
+                    (s, e, (s + e) / 2.0, p.label.clone(), p.state)
+                })
+                .collect(),
+        };
+        axis.draw_background(c, &panel)?;
+        y_axis(c, &panel, &format_number, true)?;
+        draw_ref_lines(c, &panel, &limit_lines(&t.limits, 5), true)?;
+        draw_events(c, &panel, &t.events, strip_top, true)?;
+
+        // Series: dodge the groups sideways within each period so the intervals stay apart.
+        let n_levels = levels.len() as f64;
+        for (gi, level) in levels.iter().enumerate() {
+            let color = Palette::group(gi);
+            let mut line: Vec<(f64, f64)> = Vec::new();
+            let mut points = Vec::new();
+            for p in &t.periods {
+                let Some(g) = p.groups.iter().find(|g| &g.level == level) else {
+                    // A gap in the data breaks the connecting line.
+                    c.polyline(&line, color, 2, group_dash(gi))?;
+                    line.clear();
+                    continue;
+                };
+                let (s, e) = (time_to_x(p.start), time_to_x(p.end));
+                let slot = (e - s) * 0.6 / n_levels;
+                let x = (s + e) / 2.0 + (gi as f64 - (n_levels - 1.0) / 2.0) * slot;
+                let px = panel.x_px(x);
+                line.push((px, panel.y_px(g.mean)));
+                points.push((px, g));
+            }
+            c.polyline(&line, color, 2, group_dash(gi))?;
+            for (px, g) in points {
+                if let (Some(lo), Some(hi)) = (g.ci_low, g.ci_high) {
+                    let (ylo, yhi) = (panel.y_px(lo), panel.y_px(hi));
+                    c.line((px, ylo), (px, yhi), color, 2, None)?;
+                    c.line((px - 5.0, ylo), (px + 5.0, ylo), color, 2, None)?;
+                    c.line((px - 5.0, yhi), (px + 5.0, yhi), color, 2, None)?;
+                }
+                c.marker(Marker::group(gi), (px, panel.y_px(g.mean)), 6.0, color)?;
+            }
+        }
+        frame(c, &panel)?;
+        let below = axis.draw_labels(c, &panel)?;
+
+        // Axis titles.
+        let unit = if t.unit.is_empty() {
+            String::new()
+        } else {
+            format!(" ({})", t.unit)
+        };
+        let y_title = c.fit_text(
+            &format!("{}{}", t.characteristic, unit),
+            TextOpts::new(sizes::AXIS),
+            panel.bottom - panel.top,
+        )?;
+        c.text(
+            &y_title,
+            (22.0, (panel.top + panel.bottom) / 2.0),
+            TextOpts::new(sizes::AXIS)
+                .vertical()
+                .align(Align::Center)
+                .middle(),
+        )?;
+        c.text(
+            "period (plant calendar)",
+            ((panel.left + panel.right) / 2.0, below + 8.0),
+            TextOpts::new(sizes::AXIS).align(Align::Center),
+        )?;
+        Ok(Layout {
+            width: size.width,
+            height: size.height,
+            panels: vec![panel],
+        })
+    }
+}
