@@ -19,7 +19,7 @@ use indicatif::{ProgressBar, ProgressStyle};
 use crate::config::Config;
 use crate::ingest;
 use crate::sample;
-use crate::storage::import::ImportOptions;
+use crate::storage::ImportOptions;
 use crate::storage::{NewEvent, Store};
 use crate::{Error, Result};
 

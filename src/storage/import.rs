@@ -124,6 +124,11 @@ pub(crate) fn reason_kind(reason: &str) -> String {
     if in_quote {
         out.push('"');
     }
+    // A worked example that repeats the value ("; give the offset, e.g. ...") is not part of the
+    // kind either.
+    if let Some(at) = out.find(", e.g. ") {
+        out.truncate(at);
+    }
     out
 }
 
@@ -415,5 +420,12 @@ mod tests {
             "value \"…\" is not a number"
         );
         assert_eq!(reason_kind("blank line"), "blank line");
+        assert_eq!(
+            reason_kind(
+                "local time \"25.10.2026 02:46:49\" occurs twice in Europe/Berlin (clocks go back); \
+                 give the offset, e.g. 2026-10-25T02:46:49+02:00 or 2026-10-25T02:46:49+01:00"
+            ),
+            "local time \"…\" occurs twice in Europe/Berlin (clocks go back); give the offset"
+        );
     }
 }
