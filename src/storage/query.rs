@@ -5,6 +5,7 @@
 //! Level sets are immutable once written, so the level indices of each level set are cached in the
 //! `Store` (`LevelCache`) and looked up once per level set, not per row.
 
+use std::collections::hash_map::Entry;
 use std::collections::HashMap;
 
 use chrono::{DateTime, Utc};
@@ -205,22 +206,24 @@ impl Store {
                 ts_ms.push(row.get::<_, i64>(0)?);
                 values.push(row.get::<_, f64>(1)?);
                 let set: i64 = row.get(2)?;
-                if !set_index.contains_key(&set) {
-                    let members = cached_members(&self.conn, &mut cache, set)?;
-                    let idx: Vec<u32> = members
-                        .iter()
-                        .enumerate()
-                        .map(|(f, level)| {
-                            let next = level_index[f].len() as u32;
-                            *level_index[f].entry(*level).or_insert_with(|| {
-                                level_order[f].push(*level);
-                                next
+                let idx = match set_index.entry(set) {
+                    Entry::Occupied(e) => e.into_mut(),
+                    Entry::Vacant(e) => {
+                        let members = cached_members(&self.conn, &mut cache, set)?;
+                        let idx: Vec<u32> = members
+                            .iter()
+                            .enumerate()
+                            .map(|(f, level)| {
+                                let next = level_index[f].len() as u32;
+                                *level_index[f].entry(*level).or_insert_with(|| {
+                                    level_order[f].push(*level);
+                                    next
+                                })
                             })
-                        })
-                        .collect();
-                    set_index.insert(set, idx);
-                }
-                let idx = &set_index[&set];
+                            .collect();
+                        e.insert(idx)
+                    }
+                };
                 for (f, column) in level_idx.iter_mut().enumerate() {
                     column.push(idx[f]);
                 }
