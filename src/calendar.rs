@@ -212,16 +212,15 @@ impl PlantCalendar {
         (day, self.shifts[idx].name.clone())
     }
 
-    /// The bounds `[start, end)` of `period`, recomputed from its kind and label.
-    pub fn period_bounds(&self, period: &Period) -> Result<(DateTime<Utc>, DateTime<Utc>)> {
-        let parsed = self.parse_period(&period.label)?;
-        if parsed.kind != period.kind {
-            return Err(Error::Usage(format!(
-                "period \"{}\" is a {}, not a {}",
-                period.label, parsed.kind, period.kind
-            )));
+    /// The bounds `[start, end)` of `period` in this calendar, recomputed from its label (so a
+    /// period read back from storage gets this configuration's bounds). A label this calendar
+    /// cannot read (a shift that is no longer configured, a hand-made label) or of another kind
+    /// keeps the period's own `start` and `end`.
+    pub fn period_bounds(&self, period: &Period) -> (DateTime<Utc>, DateTime<Utc>) {
+        match self.parse_period(&period.label) {
+            Ok(parsed) if parsed.kind == period.kind => (parsed.start, parsed.end),
+            _ => (period.start, period.end),
         }
-        Ok((parsed.start, parsed.end))
     }
 
     /// Production day `day`.
@@ -618,7 +617,17 @@ mod tests {
         assert_eq!(range.end, utc("2026-11-16T05:00:00Z"));
         assert_eq!(range.next(&cal).label, "2026-11-16..2026-11-30");
         assert_eq!(range.previous(&cal).label, "2026-10-17..2026-10-31");
-        assert_eq!(cal.period_bounds(&range).unwrap(), (range.start, range.end));
+        assert_eq!(cal.period_bounds(&range), (range.start, range.end));
+        // The same label in a calendar with another day start gets that calendar's bounds.
+        let at_seven = PlantCalendar::from_parts(
+            Europe::Berlin,
+            NaiveTime::from_hms_opt(7, 0, 0).unwrap(),
+            &[],
+        );
+        assert_eq!(
+            at_seven.period_bounds(&range).0,
+            utc("2026-11-01T06:00:00Z")
+        );
 
         for bad in [
             "2026-13",

@@ -7,7 +7,7 @@
 //!
 //! Start reading at [`Config::from_toml_str`]: the file is first deserialised into private `Raw*`
 //! structs that mirror the TOML (unknown keys are refused, so a typo such as `uls = 10.2` is an
-//! error rather than a silently missing limit), then [`validate`] turns them into the public typed
+//! error rather than a silently missing limit), then `validate` turns them into the public typed
 //! structs. Every error names the configuration file and the key, for example
 //! `plant.toml: characteristic "bore": lsl 10.2 is not below usl 10.1`.
 //!

@@ -8,6 +8,7 @@
 //! - [`stats`]: pure statistics (no I/O, no clock, no SQL). Start at `stats::oneway`.
 //! - [`model`]: plain domain types shared by every layer.
 //! - [`config`]: the plant configuration file, validated once into a `Config`.
+//! - [`calendar`]: production days, shifts, ISO weeks and months of the plant zone as UTC intervals.
 //! - [`ingest`]: CSV exports to measurements, with row-level rejections.
 //! - [`storage`]: all SQLite code (migrations, typed queries).
 //! - [`analysis`]: loads a period, calls `stats`, returns an analysis run.

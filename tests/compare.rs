@@ -199,6 +199,39 @@ fn nist_strd_shifted_to_1e12() {
                 p.join(".")
             );
         }
+        // The parts from the rest of the core: the same at LRE >= 9, or unavailable in both
+        // (Shapiro-Wilk is defined for at most 5000 values).
+        let more: [&[&str]; 8] = [
+            &["shapiro_wilk", "w"],
+            &["shapiro_wilk", "p"],
+            &["variance_components", "between"],
+            &["variance_components", "within"],
+            &["variance_components", "icc"],
+            &["sensitivity", "min_detectable_diff"],
+            &["pairs", "0", "diff"],
+            &["pairs", "0", "p_adj"],
+        ];
+        for p in more {
+            let get = |v: &Value| {
+                let mut cur = v;
+                for key in p {
+                    cur = match key.parse::<usize>() {
+                        Ok(i) => &cur[i],
+                        Err(_) => &cur[*key],
+                    };
+                }
+                cur.as_f64()
+            };
+            match (get(&json), get(&reference)) {
+                (Some(got), Some(want)) => assert!(
+                    lre(got, want) >= 9.0,
+                    "{source} shifted {}: {got:e} vs {want:e}",
+                    p.join(".")
+                ),
+                (None, None) => assert_eq!(p[0], "shapiro_wilk", "{source}"),
+                other => panic!("{source} {}: {other:?}", p.join(".")),
+            }
+        }
         for (g_big, g_small) in json["groups"]
             .as_array()
             .unwrap()
@@ -558,6 +591,49 @@ fn reference_fixtures_oneway() {
                 &e[theirs]["p"],
                 8.0,
             );
+        }
+        // Shapiro-Wilk on the residuals: scipy.stats.shapiro, >= 6 digits (issue 2).
+        if !e["shapiro_wilk"].is_null() {
+            for field in ["w", "p"] {
+                check_close(
+                    &mut failures,
+                    format!("{name} shapiro_wilk.{field}"),
+                    &json["shapiro_wilk"][field],
+                    &e["shapiro_wilk"][field],
+                    6.0,
+                );
+            }
+        }
+        // Pairs: the JSON carries every pair (a < b) with the method that matches the leading
+        // result; differences against scipy tukey_hsd (>= 8 digits, issue 3; compared absolutely
+        // when the reference difference is 0).
+        let pairs = json["pairs"].as_array().unwrap();
+        let k = ds["groups"].as_array().unwrap().len();
+        assert_eq!(pairs.len(), k * (k - 1) / 2, "{name}");
+        let method = if json["leading"]["method"] == "welch" {
+            "games_howell"
+        } else {
+            "tukey_kramer"
+        };
+        for (ours, theirs) in pairs.iter().zip(e["tukey"].as_array().unwrap()) {
+            assert_eq!(ours["method"], method, "{name}");
+            assert_eq!(
+                (&ours["a"], &ours["b"]),
+                (&theirs["a"], &theirs["b"]),
+                "{name}"
+            );
+            let (g, w) = (f(ours, &["diff"]), f(theirs, &["diff"]));
+            if w == 0.0 {
+                assert!(g.abs() < 1e-12, "{name} diff {g}");
+            } else {
+                check_close(
+                    &mut failures,
+                    format!("{name} pair diff"),
+                    &ours["diff"],
+                    &theirs["diff"],
+                    8.0,
+                );
+            }
         }
         check_close(
             &mut failures,

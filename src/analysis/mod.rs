@@ -1,4 +1,578 @@
 //! The analysis engine: loads one period's values from `storage`, runs the `stats` core for every
 //! characteristic x factor, applies false-discovery control across the run and returns the run.
 //! It is the only module that calls both `storage` and `stats`.
+//!
+//! Start reading at [`check_frame`] (the whole check on one period's columnar values) and
+//! [`CheckOptions`].
+//!
+//! Flag states (our own names), decided per test after the FDR adjustment over the run:
+//! - `differs_material` ("differs and material"): `q <= level` and the spread of the group means
+//!   (largest minus smallest) is at least `material_share` of the tolerance (USL - LSL);
+//! - `differs`: `q <= level`, and the spread is smaller than that share or no tolerance is set
+//!   (then materiality cannot be judged; the notes say so);
+//! - `no_evidence`: `q > level`;
+//! - `too_little_data`: fewer than two groups with at least `max(min_per_group, 2)` values.
+//!   Groups below that size are left out of the test (and named in the notes); when fewer than
+//!   two remain, the test is kept in the results with this state and *no* p-value.
+//!
+//! The FDR family is every test of the run that has a p-value (the leading method's p). Tests in
+//! `too_little_data`, and tests whose leading statistic is unavailable (zero within-group
+//! variance, say), have no p and are not part of the family: they could never be rejected, and
+//! counting them would only dilute `m`. Their state is `too_little_data` or `no_evidence` with the
+//! reason in the notes.
+//!
+//! "New" marks a flag that the latest complete run of the previous period of the same kind did
+//! not have (when no previous run exists, every flag is new).
+
+use std::collections::HashSet;
+use std::sync::atomic::{AtomicUsize, Ordering};
+
+use crate::config::CharacteristicConfig;
+use crate::stats::decimal::Decimal;
+use crate::stats::describe::Summary;
+use crate::stats::fdr::{self, FdrMethod};
+use crate::stats::normality::shapiro_wilk;
+use crate::stats::oneway::{self, LeadingMethod, OneWayOptions, Tolerance};
+use crate::stats::posthoc::{self, Pair};
+use crate::stats::power::sensitivity;
+use crate::stats::variance_components::one_way_random;
+use crate::stats::Stat;
+use crate::storage::runs::{GroupRow, PairRow, RunContent, TestRow};
+
+/// State names as stored and printed in JSON.
+pub mod state {
+    /// q <= level and the spread of group means >= the material share of the tolerance.
+    pub const DIFFERS_MATERIAL: &str = "differs_material";
+    /// q <= level.
+    pub const DIFFERS: &str = "differs";
+    /// q > level (or no p-value although the groups were large enough).
+    pub const NO_EVIDENCE: &str = "no_evidence";
+    /// Fewer than two groups with enough values.
+    pub const TOO_LITTLE_DATA: &str = "too_little_data";
+
+    /// Human wording for terminal output.
+    pub fn label(state: &str) -> &'static str {
+        match state {
+            DIFFERS_MATERIAL => "differs and material",
+            DIFFERS => "differs",
+            NO_EVIDENCE => "no evidence",
+            _ => "too little data",
+        }
+    }
+
+    /// Sort rank: differs and material first.
+    pub fn rank(state: &str) -> u8 {
+        match state {
+            DIFFERS_MATERIAL => 0,
+            DIFFERS => 1,
+            NO_EVIDENCE => 2,
+            _ => 3,
+        }
+    }
+}
+
+/// One grouping factor of a frame: its name and level names (indexed by `level_idx`).
+#[derive(Debug, Clone)]
+pub struct FrameFactor {
+    /// Factor name.
+    pub name: String,
+    /// Level names.
+    pub levels: Vec<String>,
+}
+
+/// One characteristic's values in a period, columnar.
+#[derive(Debug, Clone)]
+pub struct FrameCharacteristic {
+    /// Its configuration (limits, activity).
+    pub characteristic: CharacteristicConfig,
+    /// Exact origin the values are offsets from.
+    pub origin: Decimal,
+    /// Offsets from `origin`.
+    pub values: Vec<f64>,
+    /// `[factor][row]` index into `FrameFactor::levels`.
+    pub level_idx: Vec<Vec<u32>>,
+}
+
+/// One period's values, read once (the shape of `storage`'s period frame).
+#[derive(Debug, Clone, Default)]
+pub struct Frame {
+    /// Factors in configuration order.
+    pub factors: Vec<FrameFactor>,
+    /// Characteristics with their values.
+    pub characteristics: Vec<FrameCharacteristic>,
+}
+
+/// Settings of one check.
+#[derive(Debug, Clone)]
+pub struct CheckOptions {
+    /// FDR procedure across the run.
+    pub fdr_method: FdrMethod,
+    /// FDR level q.
+    pub fdr_level: f64,
+    /// Share of the tolerance the spread of group means must reach to be material (0.10).
+    pub material_share: f64,
+    /// Smallest group that takes part in a test (at least 2 is always required).
+    pub min_per_group: u64,
+    /// Significance level of the requirement checks and the sensitivity analysis.
+    pub alpha: f64,
+    /// Power target of the sensitivity analysis.
+    pub power_target: f64,
+    /// Confidence level of intervals.
+    pub confidence: f64,
+    /// Characteristics to check (`None`: all active).
+    pub characteristics: Option<Vec<String>>,
+    /// Factors to check (`None`: all).
+    pub factors: Option<Vec<String>>,
+    /// Worker threads (0: as many as the machine has cores).
+    pub threads: usize,
+}
+
+impl CheckOptions {
+    /// Options from the `[check]` settings of a configuration.
+    pub fn from_config(config: &crate::config::Config) -> Self {
+        let c = &config.check;
+        CheckOptions {
+            fdr_method: match c.fdr_method {
+                crate::config::FdrChoice::Bh => FdrMethod::BenjaminiHochberg,
+                crate::config::FdrChoice::By => FdrMethod::BenjaminiYekutieli,
+            },
+            fdr_level: c.fdr_level,
+            material_share: c.material_share,
+            min_per_group: c.min_per_group,
+            alpha: c.alpha,
+            power_target: c.power_target,
+            confidence: 0.95,
+            characteristics: None,
+            factors: None,
+            threads: 0,
+        }
+    }
+}
+
+/// Short stable name of an FDR method (`bh`, `by`).
+pub fn fdr_name(method: FdrMethod) -> &'static str {
+    match method {
+        FdrMethod::BenjaminiHochberg => "bh",
+        FdrMethod::BenjaminiYekutieli => "by",
+    }
+}
+
+/// q-values for a run: tests with `None` (no p-value) are outside the family and get `None`.
+pub fn run_q_values(p: &[Option<f64>], method: FdrMethod) -> crate::Result<Vec<Option<f64>>> {
+    let family: Vec<f64> = p.iter().flatten().copied().collect();
+    let q = fdr::adjust(&family, method)
+        .map_err(|e| crate::Error::Database(format!("false-discovery adjustment: {e}")))?;
+    let mut it = q.into_iter();
+    Ok(p.iter()
+        .map(|x| x.map(|_| it.next().expect("same length")))
+        .collect())
+}
+
+struct Task<'a> {
+    test_idx: usize,
+    characteristic: &'a FrameCharacteristic,
+    factor_idx: usize,
+}
+
+/// Per-test work before the run-level FDR: everything but q, state, is_new and pairs.
+struct Partial {
+    row: TestRow,
+    groups: Vec<GroupRow>,
+    summaries: Vec<Summary>,
+    levels: Vec<String>,
+    leading: Option<LeadingMethod>,
+    confidence: f64,
+}
+
+/// Runs the whole check on one period's frame: every selected active characteristic x every
+/// selected factor, FDR across the run, states, standing-out groups, pairs of flagged tests and
+/// the "new" mark against `previous_flags` (the flagged (characteristic, factor) pairs of the
+/// previous period's latest complete run, `None` when there is none).
+pub fn check_frame(
+    frame: &Frame,
+    options: &CheckOptions,
+    previous_flags: Option<&HashSet<(String, String)>>,
+) -> crate::Result<RunContent> {
+    let mut tasks = Vec::new();
+    let factor_ids: Vec<usize> = (0..frame.factors.len())
+        .filter(|&f| {
+            options
+                .factors
+                .as_ref()
+                .map_or(true, |sel| sel.contains(&frame.factors[f].name))
+        })
+        .collect();
+    for c in &frame.characteristics {
+        let selected = match &options.characteristics {
+            Some(sel) => sel.contains(&c.characteristic.name),
+            None => c.characteristic.is_active,
+        };
+        if !selected {
+            continue;
+        }
+        for &f in &factor_ids {
+            tasks.push(Task {
+                test_idx: tasks.len(),
+                characteristic: c,
+                factor_idx: f,
+            });
+        }
+    }
+    let threads = if options.threads == 0 {
+        std::thread::available_parallelism().map_or(1, |n| n.get())
+    } else {
+        options.threads
+    }
+    .min(tasks.len().max(1));
+    let next = AtomicUsize::new(0);
+    let mut partials: Vec<Option<Partial>> = (0..tasks.len()).map(|_| None).collect();
+    std::thread::scope(|scope| {
+        let handles: Vec<_> = (0..threads)
+            .map(|_| {
+                scope.spawn(|| {
+                    let mut done = Vec::new();
+                    loop {
+                        let i = next.fetch_add(1, Ordering::Relaxed);
+                        let Some(task) = tasks.get(i) else { break };
+                        done.push((i, one_test(frame, task, options)));
+                    }
+                    done
+                })
+            })
+            .collect();
+        for h in handles {
+            for (i, p) in h.join().expect("analysis worker panicked") {
+                partials[i] = Some(p);
+            }
+        }
+    });
+    let mut partials: Vec<Partial> = partials
+        .into_iter()
+        .map(|p| p.expect("every task ran"))
+        .collect();
+    let p: Vec<Option<f64>> = partials.iter().map(|t| t.row.leading_p).collect();
+    let q = run_q_values(&p, options.fdr_method)?;
+    let mut content = RunContent::default();
+    for (partial, q) in partials.iter_mut().zip(q) {
+        let row = &mut partial.row;
+        row.q_value = q;
+        row.state = match q {
+            Some(q) if q <= options.fdr_level => match (row.spread_of_means, row.tolerance) {
+                (Some(spread), Some(tol)) if spread >= options.material_share * tol => {
+                    state::DIFFERS_MATERIAL
+                }
+                (_, None) => {
+                    push_note(
+                        &mut row.notes,
+                        "no tolerance (LSL and USL) configured: materiality not judged",
+                    );
+                    state::DIFFERS
+                }
+                _ => state::DIFFERS,
+            },
+            Some(_) => state::NO_EVIDENCE,
+            None if row.n_groups_used < 2 => state::TOO_LITTLE_DATA,
+            None => state::NO_EVIDENCE,
+        }
+        .to_string();
+        let flagged = crate::storage::runs::is_flag_state(&row.state);
+        row.is_new = flagged
+            && previous_flags.map_or(true, |prev| {
+                !prev.contains(&(row.characteristic.clone(), row.factor.clone()))
+            });
+        if flagged {
+            let pairs = match partial.leading {
+                Some(LeadingMethod::Welch) => {
+                    posthoc::games_howell(&partial.summaries, partial.confidence)
+                }
+                _ => posthoc::tukey_kramer(&partial.summaries, partial.confidence),
+            };
+            for pair in pairs.into_iter().flatten() {
+                content
+                    .pairs
+                    .push(pair_row(row.test_idx, &partial.levels, &pair));
+            }
+        }
+    }
+    for partial in partials {
+        content.groups.extend(partial.groups);
+        content.tests.push(partial.row);
+    }
+    Ok(content)
+}
+
+fn pair_row(test_idx: i64, levels: &[String], pair: &Pair) -> PairRow {
+    PairRow {
+        test_idx,
+        level_a: levels[pair.a].clone(),
+        level_b: levels[pair.b].clone(),
+        method: pair.method.name().to_string(),
+        diff: pair.diff,
+        se: pair.se,
+        statistic: pair.statistic,
+        df: pair.df,
+        p_adj: pair.p_adj,
+        ci_low: pair.ci_low,
+        ci_high: pair.ci_high,
+    }
+}
+
+fn push_note(notes: &mut String, note: &str) {
+    if !notes.is_empty() {
+        notes.push_str("; ");
+    }
+    notes.push_str(note);
+}
+
+fn ok<T: Copy>(s: &Stat<T>) -> Option<T> {
+    s.as_ref().ok().copied()
+}
+
+fn note_unavailable<T>(notes: &mut String, what: &str, s: &Stat<T>) {
+    if let Err(e) = s {
+        push_note(notes, &format!("{what}: {}", e.reason));
+    }
+}
+
+/// Tolerance as offsets from the characteristic's origin (exact decimal subtraction).
+fn tolerance_of(c: &FrameCharacteristic) -> Option<Tolerance> {
+    let off = |x: Option<f64>| {
+        x.and_then(|v| Decimal::parse(&format!("{v}")).ok())
+            .map(|d| d.offset_from(&c.origin))
+    };
+    let cfg = &c.characteristic;
+    if cfg.lsl.is_none() && cfg.usl.is_none() && cfg.target.is_none() {
+        return None;
+    }
+    Some(Tolerance {
+        lsl: off(cfg.lsl),
+        usl: off(cfg.usl),
+        target: off(cfg.target),
+    })
+}
+
+fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
+    let c = task.characteristic;
+    let factor = &frame.factors[task.factor_idx];
+    let idx = &c.level_idx[task.factor_idx];
+    let n_levels = factor.levels.len();
+    // Counting sort of the values by level: one pass to count, one to place.
+    let mut counts = vec![0usize; n_levels];
+    for &l in idx {
+        counts[l as usize] += 1;
+    }
+    let min_n = options.min_per_group.max(2) as usize;
+    let mut notes = String::new();
+    let mut small = Vec::new();
+    let used: Vec<usize> = (0..n_levels)
+        .filter(|&l| {
+            if counts[l] == 0 {
+                return false;
+            }
+            if counts[l] < min_n {
+                small.push(format!("{} (n = {})", factor.levels[l], counts[l]));
+                return false;
+            }
+            true
+        })
+        .collect();
+    if !small.is_empty() {
+        push_note(
+            &mut notes,
+            &format!("left out, fewer than {min_n} values: {}", small.join(", ")),
+        );
+    }
+    let mut slot = vec![usize::MAX; n_levels];
+    let mut offsets = Vec::with_capacity(used.len() + 1);
+    let mut total = 0usize;
+    for (k, &l) in used.iter().enumerate() {
+        slot[l] = k;
+        offsets.push(total);
+        total += counts[l];
+    }
+    offsets.push(total);
+    let mut fill = offsets.clone();
+    let mut grouped = vec![0.0f64; total];
+    for (row, &l) in idx.iter().enumerate() {
+        let k = slot[l as usize];
+        if k != usize::MAX {
+            grouped[fill[k]] = c.values[row];
+            fill[k] += 1;
+        }
+    }
+    let groups: Vec<&[f64]> = (0..used.len())
+        .map(|k| &grouped[offsets[k]..offsets[k + 1]])
+        .collect();
+    let levels: Vec<String> = used.iter().map(|&l| factor.levels[l].clone()).collect();
+    let tolerance = tolerance_of(c);
+    let tol_width = tolerance.and_then(|t| t.width());
+    let mut row = TestRow {
+        test_idx: task.test_idx as i64,
+        characteristic: c.characteristic.name.clone(),
+        factor: factor.name.clone(),
+        n_obs: c.values.len() as i64,
+        n_groups: counts.iter().filter(|&&n| n > 0).count() as i64,
+        n_groups_used: used.len() as i64,
+        tolerance: tol_width,
+        ..TestRow::default()
+    };
+    let origin = c.origin.to_string();
+    let mut summaries: Vec<Summary> = groups.iter().map(|g| Summary::from_slice(g)).collect();
+    let mut leading = None;
+    if used.len() < 2 {
+        push_note(
+            &mut notes,
+            &format!("fewer than two groups with at least {min_n} values"),
+        );
+    } else {
+        let oneway_options = OneWayOptions {
+            alpha: options.alpha,
+            confidence: options.confidence,
+            power_target: options.power_target,
+            detect: None,
+            tolerance,
+        };
+        match oneway::analyze(&groups, &oneway_options) {
+            Err(e) => push_note(&mut notes, &format!("one-way analysis: {}", e.reason)),
+            Ok(ow) => {
+                summaries = ow.summaries.clone();
+                leading = Some(ow.leading.method);
+                row.leading_method = Some(
+                    match ow.leading.method {
+                        LeadingMethod::ClassicF => "classic_f",
+                        LeadingMethod::Welch => "welch",
+                    }
+                    .into(),
+                );
+                row.leading_reason = Some(ow.leading.reason.clone());
+                row.recommend_kruskal = Some(ow.leading.recommend_kruskal_wallis);
+                row.leading_statistic = ow.leading.statistic;
+                row.leading_p = ow.leading.p;
+                if ow.leading.p.is_none() {
+                    push_note(&mut notes, "the leading test has no p-value");
+                }
+                note_unavailable(&mut notes, "ANOVA", &ow.anova);
+                if let Ok(t) = &ow.anova {
+                    row.anova_f = Some(t.f);
+                    row.anova_df1 = Some(t.df_between);
+                    row.anova_df2 = Some(t.df_within);
+                    row.anova_p = Some(t.p);
+                    row.ss_between = Some(t.ss_between);
+                    row.ss_within = Some(t.ss_within);
+                    row.ms_within = Some(t.ms_within);
+                    row.r_squared = Some(t.r_squared);
+                    row.resid_sd = Some(t.resid_sd);
+                }
+                note_unavailable(&mut notes, "Welch", &ow.welch);
+                if let Ok(w) = &ow.welch {
+                    row.welch_f = Some(w.statistic);
+                    row.welch_df1 = w.df1;
+                    row.welch_df2 = w.df2;
+                    row.welch_p = Some(w.p);
+                }
+                let pick = |t: &Stat<crate::stats::TestResult>| {
+                    t.as_ref().ok().map(|t| (t.statistic, t.p))
+                };
+                note_unavailable(&mut notes, "Kruskal-Wallis", &ow.kruskal_wallis);
+                (row.kruskal_h, row.kruskal_p) = pick(&ow.kruskal_wallis).unzip();
+                note_unavailable(&mut notes, "Levene", &ow.levene);
+                (row.levene_stat, row.levene_p) = pick(&ow.levene).unzip();
+                note_unavailable(&mut notes, "Brown-Forsythe", &ow.brown_forsythe);
+                (row.brown_forsythe_stat, row.brown_forsythe_p) = pick(&ow.brown_forsythe).unzip();
+                note_unavailable(&mut notes, "Bartlett", &ow.bartlett);
+                (row.bartlett_stat, row.bartlett_p) = pick(&ow.bartlett).unzip();
+                row.sd_ratio = ok(&ow.sd_ratio);
+                row.n_beyond_3sd = ok(&ow.n_beyond_3sd).map(|n| n as i64);
+                if let Ok(e) = &ow.effect {
+                    row.eta_squared = Some(e.eta_squared);
+                    row.omega_squared = Some(e.omega_squared);
+                }
+                // Shapiro-Wilk on the residuals (value - group mean).
+                let residuals: Vec<f64> = groups
+                    .iter()
+                    .zip(&summaries)
+                    .flat_map(|(g, s)| g.iter().map(move |v| v - s.mean))
+                    .collect();
+                let sw = shapiro_wilk(&residuals);
+                note_unavailable(&mut notes, "Shapiro-Wilk", &sw);
+                if let Ok(sw) = sw {
+                    row.shapiro_w = Some(sw.w);
+                    row.shapiro_p = Some(sw.p);
+                }
+            }
+        }
+        let vc = one_way_random(&summaries, options.confidence);
+        note_unavailable(&mut notes, "variance components", &vc);
+        if let Ok(vc) = &vc {
+            row.var_between = Some(vc.between);
+            row.var_within = Some(vc.within);
+            row.share_between = Some(vc.share_between);
+            row.icc = Some(vc.icc);
+            if let Ok(ci) = &vc.icc_ci {
+                row.icc_low = Some(ci.low);
+                row.icc_high = Some(ci.high);
+            }
+        }
+        if let Some(sd) = row.resid_sd.filter(|s| *s > 0.0) {
+            let sens = sensitivity(
+                &summaries,
+                sd,
+                options.alpha,
+                options.power_target,
+                None,
+                tol_width,
+            );
+            note_unavailable(&mut notes, "sensitivity", &sens);
+            if let Ok(s) = sens {
+                row.min_detectable_diff = ok(&s.min_detectable_diff);
+                row.min_detectable_pct_tolerance = s.min_detectable_pct_tolerance;
+            }
+        }
+    }
+    // Group table, spread of means and the group that stands out.
+    let effects = posthoc::group_effects(&summaries, row.resid_sd, tol_width);
+    let mut group_rows = Vec::with_capacity(summaries.len());
+    for (k, s) in summaries.iter().enumerate() {
+        let effect = effects.iter().find(|e| e.group_idx == k);
+        group_rows.push(GroupRow {
+            test_idx: row.test_idx,
+            group_idx: k as i64,
+            level: levels[k].clone(),
+            n: s.n as i64,
+            mean: s.mean,
+            sd: s.sd(),
+            min: s.min,
+            max: s.max,
+            origin: origin.clone(),
+            diff_from_grand: effect.map(|e| e.diff_from_grand),
+        });
+    }
+    if summaries.len() >= 2 {
+        let (lo, hi) = summaries
+            .iter()
+            .fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), s| {
+                (lo.min(s.mean), hi.max(s.mean))
+            });
+        row.spread_of_means = Some(hi - lo);
+        row.spread_pct_tolerance = tol_width.map(|t| 100.0 * (hi - lo) / t);
+        if let Some(e) = effects
+            .iter()
+            .max_by(|a, b| a.diff_from_grand.abs().total_cmp(&b.diff_from_grand.abs()))
+        {
+            row.standout_level = Some(levels[e.group_idx].clone());
+            row.standout_diff = Some(e.diff_from_grand);
+            row.standout_sd_units = ok(&e.diff_sd_units);
+            row.standout_pct_tolerance = e.diff_pct_tolerance;
+        }
+    }
+    row.notes = notes;
+    Partial {
+        row,
+        groups: group_rows,
+        summaries,
+        levels,
+        leading,
+        confidence: options.confidence,
+    }
+}
 pub mod investigate;

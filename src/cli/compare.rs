@@ -176,11 +176,6 @@ pub fn parse_grouped(path: &Path, bytes: &[u8], by: &str, measure: &str) -> Resu
     let mut n_rows = 0u64;
     while read(&mut reader, &mut record)? {
         let line = record.position().map_or(0, |p| p.line());
-        if record.len() == 1 && record.get(0).is_some_and(|f| f.is_empty()) {
-            // A blank line (the csv reader skips truly empty lines; this is one holding only
-            // whitespace-free emptiness such as a lone CR).
-            continue;
-        }
         n_rows += 1;
         if record.len() != width {
             return Err(ingest_error(
@@ -443,6 +438,12 @@ pub fn to_json(
     });
     put(&mut root, "sd_ratio", &r.sd_ratio, |v| num(*v));
     put(&mut root, "n_beyond_3sd", &r.n_beyond_3sd, |v| json!(v));
+    put(
+        &mut root,
+        "shapiro_wilk",
+        &r.shapiro_wilk,
+        |t| json!({"w": num(t.w), "p": num(t.p), "n": t.n}),
+    );
     put(&mut root, "effect", &r.effect, |e| {
         json!({
             "eta_squared": num(e.eta_squared),
@@ -450,6 +451,90 @@ pub fn to_json(
             "mean_spread": num(e.mean_spread),
             "mean_spread_pct_tolerance": e.mean_spread_pct_tolerance.map_or(Value::Null, num),
         })
+    });
+    put(
+        &mut root,
+        "variance_components",
+        &r.variance_components,
+        |v| {
+            let interval = |i: &crate::stats::variance_components::Interval| json!({"low": num(i.low), "high": num(i.high)});
+            let mut m = Map::new();
+            m.insert("between".into(), num(v.between));
+            m.insert("between_raw".into(), num(v.between_raw));
+            m.insert("is_truncated".into(), json!(v.is_truncated));
+            m.insert("within".into(), num(v.within));
+            m.insert("share_between".into(), num(v.share_between));
+            m.insert("icc".into(), num(v.icc));
+            m.insert("n0".into(), num(v.n0));
+            m.insert("is_balanced".into(), json!(v.is_balanced));
+            m.insert("within_ci".into(), interval(&v.within_ci));
+            put(&mut m, "icc_ci", &v.icc_ci, interval);
+            put(&mut m, "between_ci", &v.between_ci, interval);
+            m.insert("confidence".into(), num(options.confidence));
+            m.insert("method".into(), Value::String(v.method.to_string()));
+            m.insert("notes".into(), json!(v.notes));
+            Value::Object(m)
+        },
+    );
+    let pairs: Vec<Value> = r
+        .pairs
+        .iter()
+        .map(|p| match p {
+            Ok(p) => json!({
+                "a": p.a, "b": p.b,
+                "a_name": data.names[p.a], "b_name": data.names[p.b],
+                "diff": num(p.diff), "se": num(p.se), "statistic": num(p.statistic),
+                "df": num(p.df), "p_adj": num(p.p_adj),
+                "ci_low": num(p.ci_low), "ci_high": num(p.ci_high),
+                "method": p.method.name(),
+            }),
+            Err(e) => json!({"pair": Value::Null, "pair_reason": e.reason}),
+        })
+        .collect();
+    root.insert("pairs".into(), Value::Array(pairs));
+    let effects: Vec<Value> = r
+        .group_effects
+        .iter()
+        .map(|g| {
+            let mut m = Map::new();
+            m.insert(
+                "name".into(),
+                Value::String(data.names[g.group_idx].clone()),
+            );
+            m.insert("group_idx".into(), json!(g.group_idx));
+            m.insert("diff_from_grand".into(), num(g.diff_from_grand));
+            put(&mut m, "diff_sd_units", &g.diff_sd_units, |v| num(*v));
+            m.insert(
+                "diff_pct_tolerance".into(),
+                g.diff_pct_tolerance.map_or(Value::Null, num),
+            );
+            Value::Object(m)
+        })
+        .collect();
+    root.insert("group_effects".into(), Value::Array(effects));
+    put(&mut root, "sensitivity", &r.sensitivity, |s| {
+        let mut m = Map::new();
+        m.insert("alpha".into(), num(s.alpha));
+        m.insert("power_target".into(), num(s.power_target));
+        put(&mut m, "min_detectable_diff", &s.min_detectable_diff, |v| {
+            num(*v)
+        });
+        m.insert(
+            "min_detectable_pct_tolerance".into(),
+            s.min_detectable_pct_tolerance.map_or(Value::Null, num),
+        );
+        m.insert("detect".into(), s.detect.map_or(Value::Null, num));
+        m.insert(
+            "power_at_detect".into(),
+            s.power_at_detect.map_or(Value::Null, num),
+        );
+        match &s.n_needed {
+            None => {
+                m.insert("n_needed".into(), Value::Null);
+            }
+            Some(n) => put(&mut m, "n_needed", n, |v| json!(v)),
+        }
+        Value::Object(m)
     });
     let l = &r.leading;
     root.insert(
@@ -648,6 +733,23 @@ pub fn render_text(
             "largest/smallest group SD", e.reason
         )),
     }
+    match &r.shapiro_wilk {
+        Ok(t) => o.push_str(&format!(
+            "  {:<32} W = {}, p = {}  {}\n",
+            "normal residuals, Shapiro-Wilk",
+            sig(t.w, 6),
+            pval(t.p),
+            if t.p < crate::stats::oneway::NORMALITY_ALPHA {
+                "attention"
+            } else {
+                "pass"
+            }
+        )),
+        Err(e) => o.push_str(&format!(
+            "  {:<32} not available: {}\n",
+            "normal residuals, Shapiro-Wilk", e.reason
+        )),
+    }
     match &r.n_beyond_3sd {
         Ok(n) => o.push_str(&format!(
             "  {:<32} {n}  {}\n",
@@ -712,7 +814,155 @@ pub fn render_text(
         Err(e) => o.push_str(&format!("  not available: {}\n", e.reason)),
     }
     o.push('\n');
+    render_components(&mut o, r);
+    render_pairs(&mut o, data, r, options);
+    render_effects(&mut o, data, r);
+    render_sensitivity(&mut o, r);
     o.push_str(crate::CAUTION);
     o.push('\n');
     o
+}
+
+fn render_components(o: &mut String, r: &OneWay) {
+    o.push_str("Variance components (random-effects one-way model)\n");
+    match &r.variance_components {
+        Ok(v) => {
+            let ci = |c: &Stat<crate::stats::variance_components::Interval>| match c {
+                Ok(i) => format!("[{}, {}]", sig(i.low, 4), sig(i.high, 4)),
+                Err(e) => format!("not available: {}", e.reason),
+            };
+            o.push_str(&format!(
+                "  between-group variance {} (SD {}), 95% interval {}\n",
+                sig(v.between, 4),
+                sig(v.between.sqrt(), 4),
+                ci(&v.between_ci)
+            ));
+            o.push_str(&format!(
+                "  within-group variance  {} (SD {}), 95% interval [{}, {}]\n",
+                sig(v.within, 4),
+                sig(v.within.sqrt(), 4),
+                sig(v.within_ci.low, 4),
+                sig(v.within_ci.high, 4)
+            ));
+            o.push_str(&format!(
+                "  between-group share {}%, ICC {}, 95% interval {}\n",
+                sig(100.0 * v.share_between, 3),
+                sig(v.icc, 3),
+                ci(&v.icc_ci)
+            ));
+            o.push_str(&format!("  methods: {}\n", v.method));
+            for note in &v.notes {
+                o.push_str(&format!("  note: {note}\n"));
+            }
+        }
+        Err(e) => o.push_str(&format!("  not available: {}\n", e.reason)),
+    }
+    o.push('\n');
+}
+
+fn render_pairs(o: &mut String, data: &GroupedData, r: &OneWay, options: &OneWayOptions) {
+    let significant = r.leading.p.is_some_and(|p| p < options.alpha);
+    if !significant {
+        o.push_str("Pairs: not listed, the leading result shows no difference (all pairs are in --json)\n\n");
+        return;
+    }
+    let method = match r.leading.method {
+        LeadingMethod::Welch => "Games-Howell",
+        LeadingMethod::ClassicF => "Tukey-Kramer",
+    };
+    o.push_str(&format!(
+        "Pairs ({method}, 95% simultaneous intervals; * = interval excludes zero), largest difference first\n"
+    ));
+    let mut ok: Vec<&crate::stats::posthoc::Pair> =
+        r.pairs.iter().filter_map(|p| p.as_ref().ok()).collect();
+    ok.sort_by(|x, y| y.diff.abs().total_cmp(&x.diff.abs()));
+    for p in ok {
+        let excludes_zero = p.ci_low > 0.0 || p.ci_high < 0.0;
+        o.push_str(&format!(
+            "  {} {} - {}: {} [{}, {}], p = {}\n",
+            if excludes_zero { "*" } else { " " },
+            data.names[p.a],
+            data.names[p.b],
+            sig(p.diff, 4),
+            sig(p.ci_low, 4),
+            sig(p.ci_high, 4),
+            pval(p.p_adj)
+        ));
+    }
+    for e in r.pairs.iter().filter_map(|p| p.as_ref().err()) {
+        o.push_str(&format!("    (a pair is not available: {})\n", e.reason));
+    }
+    o.push('\n');
+}
+
+fn render_effects(o: &mut String, data: &GroupedData, r: &OneWay) {
+    if r.group_effects.is_empty() {
+        return;
+    }
+    o.push_str("Each group against the grand mean\n");
+    for g in &r.group_effects {
+        let mut line = format!(
+            "  {}: {}{}",
+            data.names[g.group_idx],
+            if g.diff_from_grand >= 0.0 { "+" } else { "" },
+            sig(g.diff_from_grand, 4)
+        );
+        if let Ok(sd) = g.diff_sd_units {
+            line.push_str(&format!(" ({} within-group SD", sig(sd, 3)));
+            if let Some(pct) = g.diff_pct_tolerance {
+                line.push_str(&format!(", {}% of the tolerance", sig(pct, 3)));
+            }
+            line.push(')');
+        } else if let Some(pct) = g.diff_pct_tolerance {
+            line.push_str(&format!(" ({}% of the tolerance)", sig(pct, 3)));
+        }
+        o.push_str(&line);
+        o.push('\n');
+    }
+    o.push('\n');
+}
+
+fn render_sensitivity(o: &mut String, r: &OneWay) {
+    o.push_str("Sensitivity of the F test\n");
+    match &r.sensitivity {
+        Ok(s) => {
+            match &s.min_detectable_diff {
+                Ok(d) => {
+                    o.push_str(&format!(
+                        "  smallest difference between two group means detected with {}% power at alpha {}: {}",
+                        sig(100.0 * s.power_target, 3),
+                        s.alpha,
+                        sig(*d, 4)
+                    ));
+                    if let Some(pct) = s.min_detectable_pct_tolerance {
+                        o.push_str(&format!(" ({}% of the tolerance)", sig(pct, 3)));
+                    }
+                    o.push('\n');
+                }
+                Err(e) => o.push_str(&format!(
+                    "  minimum detectable difference not available: {}\n",
+                    e.reason
+                )),
+            }
+            if let (Some(d), Some(p)) = (s.detect, s.power_at_detect) {
+                o.push_str(&format!(
+                    "  power to detect a difference of {} with these group sizes: {}%\n",
+                    sig(d, 4),
+                    sig(100.0 * p, 3)
+                ));
+            }
+            match &s.n_needed {
+                Some(Ok(n)) => o.push_str(&format!(
+                    "  measurements per group needed for that difference: {n}\n"
+                )),
+                Some(Err(e)) => o.push_str(&format!(
+                    "  measurements per group needed: not available: {}\n",
+                    e.reason
+                )),
+                None => {}
+            }
+        }
+        Err(e) => o.push_str(&format!("  not available: {}\n", e.reason)),
+    }
+    o.push('\n');
 }

@@ -34,8 +34,11 @@
 //! - in a wide file each row holds one measurement per characteristic column and yields exactly
 //!   that many outcomes. A problem with one cell rejects that cell only; a problem with the whole
 //!   row (blank line, wrong number of fields, bad timestamp or factor cell, an over-long line)
-//!   rejects every measurement of the row, one [`Rejection`] per characteristic column, all
-//!   with the same line and reason.
+//!   rejects every measurement of the row: one [`Rejection`] per characteristic column, all
+//!   with the same line, reason and raw line; its `column` is the column at fault (the
+//!   timestamp or factor column) when there is one, otherwise the characteristic's column.
+//!
+//! Timestamps outside the years 1900 to 2200 are rejected as clock or format errors.
 //!
 //! Hence always `accepted + rejected == measurements_read == rows_read x cells_per_row`
 //! ([`Counts`]), where `cells_per_row` is 1 for long files.
@@ -649,12 +652,14 @@ impl<R: Read> ImportStream<R> {
             &buf[start..ends[i]]
         };
         let text = |i: usize| -> std::result::Result<&str, String> {
-            std::str::from_utf8(cell(i))
-                .map(|s| s.trim_matches(|c| c == ' ' || c == '\t'))
+            std::str::from_utf8(trim_bytes(cell(i)))
                 .map_err(|_| "cell is not UTF-8 text (save the file as UTF-8)".to_string())
         };
         // Timestamp.
-        let ts = match text(self.plan.timestamp).and_then(|t| self.ts_parser.parse(t)) {
+        let ts = match text(self.plan.timestamp)
+            .and_then(|t| self.ts_parser.parse(t))
+            .and_then(check_year)
+        {
             Ok(ts) => ts,
             Err(reason) => {
                 let col = self.plan.timestamp;
@@ -697,13 +702,21 @@ impl<R: Read> ImportStream<R> {
                             shorten(name)
                         ),
                     )),
-                    Ok(name) => match check_name(name) {
-                        Err(r) => Err((characteristic, format!("characteristic name: {r}"))),
-                        Ok(name) => match text(value).and_then(parse_value) {
-                            Ok(v) => Ok((name, v)),
-                            Err(r) => Err((value, r)),
-                        },
-                    },
+                    Ok(name) => {
+                        // Configured names were checked with the configuration; new ones here.
+                        let checked = if self.known.contains(name) {
+                            Ok(name.to_string())
+                        } else {
+                            check_name(name)
+                        };
+                        match checked {
+                            Err(r) => Err((characteristic, format!("characteristic name: {r}"))),
+                            Ok(name) => match text(value).and_then(parse_value) {
+                                Ok(v) => Ok((name, v)),
+                                Err(r) => Err((value, r)),
+                            },
+                        }
+                    }
                 };
                 match outcome {
                     Ok((name, value)) => {
@@ -730,10 +743,12 @@ impl<R: Read> ImportStream<R> {
                             "unknown characteristic \"{}\" (add it to the configuration or import with --add-new)",
                             shorten(name)
                         ))
-                    } else {
+                    } else if !known {
                         check_name(name)
                             .map_err(|r| format!("characteristic name: {r}"))
                             .and_then(|_| text(*i).and_then(parse_value))
+                    } else {
+                        text(*i).and_then(parse_value)
                     };
                     self.pending.push_back(match outcome {
                         Ok(value) => RowOutcome::Accepted(Measurement {
@@ -776,6 +791,20 @@ impl<R: Read> Iterator for ImportStream<R> {
                 self.is_done = true;
             }
         }
+    }
+}
+
+/// Timestamps outside the years 1900 to 2200 are taken for typing or clock errors (and keep
+/// the calendar arithmetic far from the ends of the representable range).
+fn check_year(ts: DateTime<Utc>) -> std::result::Result<DateTime<Utc>, String> {
+    use chrono::Datelike;
+    if (1900..=2200).contains(&ts.year()) {
+        Ok(ts)
+    } else {
+        Err(format!(
+            "timestamp year {} is outside 1900 to 2200 (check the gauge clock or the timestamp_format)",
+            ts.year()
+        ))
     }
 }
 
@@ -937,6 +966,19 @@ fn field_slices<'a>(buf: &'a [u8], ends: &'a [usize]) -> impl Iterator<Item = &'
         let start = if i == 0 { 0 } else { ends[i - 1] };
         &buf[start..end]
     })
+}
+
+/// `bytes` without leading and trailing spaces and tabs.
+fn trim_bytes(bytes: &[u8]) -> &[u8] {
+    let start = bytes
+        .iter()
+        .position(|b| !matches!(b, b' ' | b'\t'))
+        .unwrap_or(bytes.len());
+    let end = bytes
+        .iter()
+        .rposition(|b| !matches!(b, b' ' | b'\t'))
+        .map_or(start, |i| i + 1);
+    &bytes[start..end]
 }
 
 fn raw_text(bytes: &[u8]) -> String {

@@ -104,7 +104,7 @@ h3 { font-size: 20px; margin: 26px 0 8px; }
 h4 { font-size: 17px; margin: 18px 0 6px; }
 .meta { color: var(--muted); margin: 0 0 12px; }
 .caution { border: 2px solid #D55E00; background: #fff4ec; padding: 10px 14px; font-weight: bold; }
-nav ol { columns: 2; margin: 8px 0; }
+nav ol { margin: 8px 0; }
 table { border-collapse: collapse; margin: 8px 0 14px; font-size: 15px; }
 th, td { border: 1px solid var(--line); padding: 4px 8px; text-align: left; vertical-align: top; }
 th { background: #eef3f8; }

@@ -1,6 +1,377 @@
-//! The scheduler: which periods are due at a given `now` (time is always an argument), catch-up of
-//! missed periods in order, and leases so that no period runs twice at once.
+//! The scheduler: which periods are due at a given `now` (time is always an argument, through a
+//! [`Clock`]), catch-up of missed periods in order, and leases so that no period runs twice at
+//! once.
+//!
+//! Rules:
+//! - A schedule's periods start with the period containing the first measurement (or a start
+//!   given by the caller) and count up to the last period whose `end + delay <= now`.
+//! - A period is *due* when the schedule has no complete run of it. Due periods of all schedules
+//!   run in order of `end + delay` (then schedule order), so a catch-up after downtime replays
+//!   the missed periods oldest first.
+//! - Before running a period the scheduler takes its lease (`storage::runs::take_lease`, one
+//!   atomic statement). A period whose lease is held by someone else is skipped for this pass.
+//!   With the lease held it recovers abandoned runs, re-checks that the period is still due
+//!   (another scheduler may have just finished it) and runs it.
+//! - A run is written in one transaction at its end (see `storage::runs`); a failure is stored
+//!   with its error and the period stays due, so the next pass retries it.
+//! - A stop request (SIGINT/SIGTERM in `cli`) is honoured between periods: the current run is
+//!   finished and written, nothing is left half written.
+//!
+//! Start reading at [`run_pass`].
 
 pub mod clock;
 
+use std::sync::atomic::{AtomicBool, Ordering};
+
+use chrono::{DateTime, Duration, Utc};
+use rusqlite::Connection;
+
 pub use clock::{Clock, SimulatedClock};
+
+use crate::calendar::PlantCalendar;
+use crate::config::{Config, ScheduleConfig};
+use crate::model::{Period, PeriodKind};
+use crate::storage::runs::{self, LeaseKey, RunContent, RunHeader};
+use crate::{Error, Result};
+
+/// How long a lease lives without a heartbeat (the scheduler renews it before and after the
+/// computation of a run; a run of the largest period takes seconds).
+pub const DEFAULT_LEASE_TTL: Duration = Duration::minutes(10);
+
+/// After a failed run, `schedule run` wakes up again after this long to retry.
+pub const RETRY_AFTER: Duration = Duration::minutes(15);
+
+/// What a scheduler needs to run one period: the engine, or a stand-in in tests.
+pub trait PeriodRunner {
+    /// The first measurement's instant (where a schedule's periods start), `None` if no data.
+    fn first_measurement(&mut self, conn: &Connection) -> Result<Option<DateTime<Utc>>>;
+    /// The run row to write for `period` under `schedule`.
+    fn header(&self, schedule: &ScheduleConfig, period: &Period) -> RunHeader;
+    /// Computes the run's content (nothing is written by the runner).
+    fn compute(
+        &mut self,
+        conn: &Connection,
+        schedule: &ScheduleConfig,
+        period: &Period,
+    ) -> Result<RunContent>;
+}
+
+/// Settings of a scheduler process.
+#[derive(Debug, Clone)]
+pub struct SchedulerOptions {
+    /// Identifies this process in leases (`host:pid:random`).
+    pub holder: String,
+    /// Lease lifetime without a heartbeat.
+    pub lease_ttl: Duration,
+    /// Count periods from here instead of from the first measurement.
+    pub start: Option<DateTime<Utc>>,
+    /// Test hook: wait this long after a run row is written and before computing (used to kill
+    /// a scheduler mid-run in tests).
+    pub pause_after_begin: Option<std::time::Duration>,
+}
+
+impl SchedulerOptions {
+    /// Options with the default lease lifetime.
+    pub fn new(holder: impl Into<String>) -> Self {
+        SchedulerOptions {
+            holder: holder.into(),
+            lease_ttl: DEFAULT_LEASE_TTL,
+            start: None,
+            pause_after_begin: None,
+        }
+    }
+}
+
+/// The periods of `kind` from the one containing `first` up to the last whose
+/// `end + delay <= now`, in order.
+pub fn periods_until(
+    calendar: &PlantCalendar,
+    kind: PeriodKind,
+    delay: Duration,
+    first: DateTime<Utc>,
+    now: DateTime<Utc>,
+) -> Result<Vec<Period>> {
+    if kind == PeriodKind::Range {
+        return Err(Error::Usage(
+            "a schedule cannot use period \"range\" (use shift, day, week or month)".into(),
+        ));
+    }
+    let mut out = Vec::new();
+    let mut p = calendar.period_containing(kind, first)?;
+    while p.end + delay <= now {
+        let next = p.next(calendar);
+        out.push(p);
+        p = next;
+    }
+    Ok(out)
+}
+
+/// The first instant after `now` at which a period of `kind` becomes due (`end + delay`).
+pub fn next_due_time(
+    calendar: &PlantCalendar,
+    kind: PeriodKind,
+    delay: Duration,
+    first: DateTime<Utc>,
+    now: DateTime<Utc>,
+) -> Result<DateTime<Utc>> {
+    let start = if first > now { first } else { now - delay };
+    let mut p = calendar.period_containing(kind, start)?;
+    while p.end + delay <= now {
+        p = p.next(calendar);
+    }
+    Ok(p.end + delay)
+}
+
+/// One schedule's due periods at `now` (ended + delay, without a complete run of the schedule).
+pub fn due_periods(
+    conn: &Connection,
+    calendar: &PlantCalendar,
+    schedule: &ScheduleConfig,
+    first: DateTime<Utc>,
+    now: DateTime<Utc>,
+) -> Result<Vec<Period>> {
+    let done = runs::completed_labels(conn, Some(&schedule.name), schedule.period.as_str())?;
+    let done: std::collections::HashSet<String> = done.into_iter().collect();
+    Ok(
+        periods_until(calendar, schedule.period, schedule.delay, first, now)?
+            .into_iter()
+            .filter(|p| !done.contains(&p.label))
+            .collect(),
+    )
+}
+
+/// What happened to one (schedule, period) in a pass.
+#[derive(Debug, Clone, PartialEq)]
+pub enum PeriodOutcome {
+    /// Run and stored as complete (run id).
+    Completed(i64),
+    /// Run and failed; the error is stored with the run (run id, error).
+    Failed(i64, String),
+    /// Another scheduler holds the lease.
+    Leased,
+    /// Finished by someone else between listing and taking the lease.
+    AlreadyDone,
+}
+
+/// One line of a pass: which schedule, which period, what happened.
+#[derive(Debug, Clone, PartialEq)]
+pub struct PassEntry {
+    /// Schedule name.
+    pub schedule: String,
+    /// Period label.
+    pub period: String,
+    /// Outcome.
+    pub outcome: PeriodOutcome,
+}
+
+/// Runs every due period of every schedule once, oldest first; returns what it did.
+///
+/// Stops early (after finishing the current period) when `stop` becomes true.
+pub fn run_pass(
+    conn: &mut Connection,
+    config: &Config,
+    clock: &dyn Clock,
+    runner: &mut dyn PeriodRunner,
+    options: &SchedulerOptions,
+    stop: &AtomicBool,
+    log: &mut dyn FnMut(&str),
+) -> Result<Vec<PassEntry>> {
+    let calendar = PlantCalendar::new(config);
+    let now = clock.now();
+    let Some(first) = options.start.or(runner.first_measurement(conn)?) else {
+        log("no measurements yet: nothing is due");
+        return Ok(Vec::new());
+    };
+    let mut due: Vec<(DateTime<Utc>, usize, Period)> = Vec::new();
+    for (idx, schedule) in config.schedules.iter().enumerate() {
+        for p in due_periods(conn, &calendar, schedule, first, now)? {
+            due.push((p.end + schedule.delay, idx, p));
+        }
+    }
+    due.sort_by_key(|d| (d.0, d.1));
+    let mut entries = Vec::new();
+    for (_, idx, period) in due {
+        if stop.load(Ordering::SeqCst) {
+            log("stop requested: leaving the remaining periods for the next pass");
+            break;
+        }
+        let schedule = &config.schedules[idx];
+        let outcome = run_one(conn, clock, runner, options, schedule, &period, log)?;
+        entries.push(PassEntry {
+            schedule: schedule.name.clone(),
+            period: period.label.clone(),
+            outcome,
+        });
+    }
+    Ok(entries)
+}
+
+fn ms(t: DateTime<Utc>) -> i64 {
+    t.timestamp_millis()
+}
+
+fn run_one(
+    conn: &mut Connection,
+    clock: &dyn Clock,
+    runner: &mut dyn PeriodRunner,
+    options: &SchedulerOptions,
+    schedule: &ScheduleConfig,
+    period: &Period,
+    log: &mut dyn FnMut(&str),
+) -> Result<PeriodOutcome> {
+    let key = LeaseKey {
+        schedule: schedule.name.clone(),
+        period_kind: period.kind.as_str().to_string(),
+        period_label: period.label.clone(),
+    };
+    let ttl = options.lease_ttl.num_milliseconds();
+    if !runs::take_lease(conn, &key, &options.holder, ms(clock.now()), ttl)? {
+        log(&format!(
+            "{} {}: another scheduler holds the lease, skipped",
+            schedule.name, period.label
+        ));
+        return Ok(PeriodOutcome::Leased);
+    }
+    let recovered = runs::recover_abandoned(conn, ms(clock.now()))?;
+    if recovered > 0 {
+        log(&format!(
+            "marked {recovered} abandoned run(s) as failed (their process stopped mid-run)"
+        ));
+    }
+    let done = runs::completed_labels(conn, Some(&schedule.name), period.kind.as_str())?;
+    if done.contains(&period.label) {
+        runs::release_lease(conn, &key, &options.holder)?;
+        return Ok(PeriodOutcome::AlreadyDone);
+    }
+    let header = runner.header(schedule, period);
+    let run = runs::begin_run(conn, &header, ms(clock.now()))?;
+    log(&format!(
+        "{} {}: run {} (version {}) started",
+        schedule.name, period.label, run.run_id, run.version
+    ));
+    if let Some(pause) = options.pause_after_begin {
+        std::thread::sleep(pause);
+    }
+    let computed = runner.compute(conn, schedule, period);
+    let still_ours = runs::heartbeat(conn, &key, &options.holder, ms(clock.now()), ttl)?;
+    let outcome = match computed {
+        Ok(_) if !still_ours => {
+            let error = "the lease expired during the run; another scheduler may redo it";
+            runs::fail_run(conn, run.run_id, ms(clock.now()), error)?;
+            PeriodOutcome::Failed(run.run_id, error.to_string())
+        }
+        Ok(content) => match runs::complete_run(conn, run.run_id, ms(clock.now()), &content) {
+            Ok(()) => {
+                let flagged = content
+                    .tests
+                    .iter()
+                    .filter(|t| runs::is_flag_state(&t.state))
+                    .count();
+                log(&format!(
+                    "{} {}: run {} complete, {} tests, {} flagged",
+                    schedule.name,
+                    period.label,
+                    run.run_id,
+                    content.tests.len(),
+                    flagged
+                ));
+                PeriodOutcome::Completed(run.run_id)
+            }
+            Err(e) => {
+                let error = e.to_string();
+                runs::fail_run(conn, run.run_id, ms(clock.now()), &error)?;
+                PeriodOutcome::Failed(run.run_id, error)
+            }
+        },
+        Err(e) => {
+            let error = e.to_string();
+            runs::fail_run(conn, run.run_id, ms(clock.now()), &error)?;
+            log(&format!(
+                "{} {}: run {} failed: {error} (retried on the next pass)",
+                schedule.name, period.label, run.run_id
+            ));
+            PeriodOutcome::Failed(run.run_id, error)
+        }
+    };
+    runs::release_lease(conn, &key, &options.holder)?;
+    Ok(outcome)
+}
+
+/// The instant the scheduler should wake up next: the earliest next due time over all
+/// schedules, or sooner when a run failed (to retry it).
+pub fn next_wake(
+    conn: &mut Connection,
+    config: &Config,
+    now: DateTime<Utc>,
+    runner: &mut dyn PeriodRunner,
+    options: &SchedulerOptions,
+    had_failure: bool,
+) -> Result<Option<DateTime<Utc>>> {
+    let calendar = PlantCalendar::new(config);
+    let first = match options.start.or(runner.first_measurement(conn)?) {
+        Some(first) => first,
+        // No data yet: look again in a while.
+        None => return Ok(Some(now + RETRY_AFTER)),
+    };
+    let mut next: Option<DateTime<Utc>> = None;
+    for s in &config.schedules {
+        let t = next_due_time(&calendar, s.period, s.delay, first, now)?;
+        next = Some(next.map_or(t, |n| n.min(t)));
+    }
+    if had_failure {
+        let retry = now + RETRY_AFTER;
+        next = Some(next.map_or(retry, |n| n.min(retry)));
+    }
+    Ok(next)
+}
+
+/// Stays in the foreground: runs a pass, sleeps until the next due time, repeats, until `stop`
+/// is set or the clock reaches `until` (simulations). Returns every pass entry.
+#[allow(clippy::too_many_arguments)]
+pub fn run_forever(
+    conn: &mut Connection,
+    config: &Config,
+    clock: &dyn Clock,
+    runner: &mut dyn PeriodRunner,
+    options: &SchedulerOptions,
+    stop: &AtomicBool,
+    until: Option<DateTime<Utc>>,
+    log: &mut dyn FnMut(&str),
+) -> Result<Vec<PassEntry>> {
+    if config.schedules.is_empty() {
+        return Err(Error::Config {
+            path: config.path.clone(),
+            reason: "no [[schedule]] is configured: nothing to run".into(),
+        });
+    }
+    let mut all = Vec::new();
+    loop {
+        if stop.load(Ordering::SeqCst) || until.is_some_and(|u| clock.now() >= u) {
+            break;
+        }
+        let entries = run_pass(conn, config, clock, runner, options, stop, log)?;
+        let had_failure = entries
+            .iter()
+            .any(|e| matches!(e.outcome, PeriodOutcome::Failed(..) | PeriodOutcome::Leased));
+        all.extend(entries);
+        if stop.load(Ordering::SeqCst) {
+            break;
+        }
+        let now = clock.now();
+        let Some(mut wake) = next_wake(conn, config, now, runner, options, had_failure)? else {
+            break;
+        };
+        if let Some(u) = until {
+            if wake > u {
+                clock.sleep_until(u);
+                break;
+            }
+        }
+        if wake <= now {
+            wake = now + Duration::seconds(1);
+        }
+        log(&format!("sleeping until {}", wake.to_rfc3339()));
+        clock.sleep_until(wake);
+    }
+    Ok(all)
+}

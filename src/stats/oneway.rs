@@ -20,7 +20,11 @@ use super::anova::{one_way, AnovaTable};
 use super::describe::Summary;
 use super::effect::{effect_sizes, Effect};
 use super::kruskal::kruskal_wallis;
+use super::normality::{shapiro_wilk, ShapiroWilk};
+use super::posthoc::{games_howell, group_effects, tukey_kramer, GroupEffect, Pair};
+use super::power::{sensitivity, Sensitivity};
 use super::spread::{bartlett, brown_forsythe, count_beyond, levene_mean, sd_ratio};
+use super::variance_components::{one_way_random, VarianceComponents};
 use super::welch::welch;
 use super::{Stat, TestResult, Unavailable};
 
@@ -138,10 +142,20 @@ pub struct OneWay {
     pub sd_ratio: Stat<f64>,
     /// Number of residuals beyond [`OUTLIER_SD`] residual SDs.
     pub n_beyond_3sd: Stat<usize>,
+    /// Shapiro-Wilk on the residuals (value minus its group mean, in group order).
+    pub shapiro_wilk: Stat<ShapiroWilk>,
     /// Effect sizes.
     pub effect: Stat<Effect>,
+    /// Variance components of the random-effects one-way model.
+    pub variance_components: Stat<VarianceComponents>,
     /// The leading result.
     pub leading: Leading,
+    /// All pairs (a < b): Games-Howell when Welch leads, Tukey-Kramer otherwise.
+    pub pairs: Vec<Stat<Pair>>,
+    /// Each group's mean against the grand mean.
+    pub group_effects: Vec<GroupEffect>,
+    /// Sensitivity of the F test actually run (power, minimum detectable difference).
+    pub sensitivity: Stat<Sensitivity>,
 }
 
 fn check_input(groups: &[&[f64]]) -> Stat<()> {
@@ -270,7 +284,44 @@ pub fn analyze(groups: &[&[f64]], options: &OneWayOptions) -> Stat<OneWay> {
         .as_ref()
         .map(|t| effect_sizes(t, &summaries, tolerance))
         .map_err(Clone::clone);
-    let leading = choose_leading(&anova, &welch_result, &bf, &ratio);
+    let residuals: Vec<f64> = groups
+        .iter()
+        .zip(&summaries)
+        .flat_map(|(g, s)| g.iter().map(move |v| v - s.mean))
+        .collect();
+    let sw = shapiro_wilk(&residuals);
+    let mut leading = choose_leading(&anova, &welch_result, &bf, &ratio);
+    let smallest = summaries.iter().map(|s| s.n).min().unwrap_or(0);
+    if let Ok(test) = &sw {
+        if test.p < NORMALITY_ALPHA && smallest < SMALL_GROUP_N {
+            leading.recommend_kruskal_wallis = true;
+            leading.reason.push_str(&format!(
+                "; the residuals look clearly non-normal (Shapiro-Wilk p = {} < {NORMALITY_ALPHA}) and the smallest group has {smallest} values (< {SMALL_GROUP_N}), so read Kruskal-Wallis too",
+                short(test.p)
+            ));
+        }
+    }
+    let variance_components = one_way_random(&summaries, options.confidence);
+    let pairs = match leading.method {
+        LeadingMethod::Welch => games_howell(&summaries, options.confidence),
+        LeadingMethod::ClassicF => tukey_kramer(&summaries, options.confidence),
+    };
+    let within_sd = anova.as_ref().ok().map(|t| t.resid_sd);
+    let effects = group_effects(&summaries, within_sd, tolerance);
+    let sens = match &anova {
+        Ok(t) => sensitivity(
+            &summaries,
+            t.resid_sd,
+            options.alpha,
+            options.power_target,
+            options.detect,
+            tolerance,
+        ),
+        Err(e) => Err(Unavailable::new(format!(
+            "needs the within-group SD, which is unavailable ({})",
+            e.reason
+        ))),
+    };
     Ok(OneWay {
         summaries,
         anova,
@@ -281,8 +332,13 @@ pub fn analyze(groups: &[&[f64]], options: &OneWayOptions) -> Stat<OneWay> {
         bartlett: bart,
         sd_ratio: ratio,
         n_beyond_3sd: n_beyond,
+        shapiro_wilk: sw,
         effect,
+        variance_components,
         leading,
+        pairs,
+        group_effects: effects,
+        sensitivity: sens,
     })
 }
 
@@ -325,6 +381,43 @@ mod tests {
         assert!(r.welch.is_err());
         assert!(r.effect.is_err());
         assert!(r.leading.p.is_none());
+    }
+
+    // Clearly non-normal residuals (one far value per group) in groups of 10 (< 15): the report
+    // recommends Kruskal-Wallis and says why; with 20 values per group it does not.
+    #[test]
+    fn kruskal_wallis_recommended_for_small_skewed_groups() {
+        let skewed = |n: usize, shift: f64| -> Vec<f64> {
+            let mut v: Vec<f64> = (0..n).map(|i| shift + (i % 3) as f64 * 0.1).collect();
+            v[0] = shift + 25.0;
+            v
+        };
+        let (a, b) = (skewed(10, 0.0), skewed(10, 0.5));
+        let r = analyze(&[&a, &b], &OneWayOptions::default()).unwrap();
+        assert!(r.shapiro_wilk.as_ref().unwrap().p < NORMALITY_ALPHA);
+        assert!(r.leading.recommend_kruskal_wallis);
+        assert!(
+            r.leading.reason.contains("Kruskal-Wallis"),
+            "{}",
+            r.leading.reason
+        );
+        let (a, b) = (skewed(20, 0.0), skewed(20, 0.5));
+        let r = analyze(&[&a, &b], &OneWayOptions::default()).unwrap();
+        assert!(!r.leading.recommend_kruskal_wallis);
+    }
+
+    // Games-Howell pairs when Welch leads, Tukey-Kramer otherwise.
+    #[test]
+    fn pair_method_follows_leading() {
+        use crate::stats::posthoc::PairMethod;
+        let a = [1.0, 1.1, 0.9, 1.05, 0.95];
+        let b = [2.0, 5.0, -1.0, 3.0, 1.0];
+        let r = analyze(&[&a, &b], &OneWayOptions::default()).unwrap();
+        assert_eq!(r.pairs.len(), 1);
+        assert_eq!(r.pairs[0].as_ref().unwrap().method, PairMethod::GamesHowell);
+        let c = [1.2, 1.0, 0.8, 1.1, 0.9];
+        let r = analyze(&[&a, &c], &OneWayOptions::default()).unwrap();
+        assert_eq!(r.pairs[0].as_ref().unwrap().method, PairMethod::TukeyKramer);
     }
 
     #[test]

@@ -77,6 +77,7 @@ fn check_confidence(confidence: f64) -> Stat<()> {
 }
 
 /// Fills in p and interval for one pair from its difference, standard error and df.
+#[allow(clippy::too_many_arguments)]
 fn finish(
     a: usize,
     b: usize,
@@ -287,4 +288,213 @@ pub fn group_effects(
             }
         })
         .collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::stats::lre;
+    use serde_json::Value;
+
+    fn oneway_fixture() -> Value {
+        let path = concat!(
+            env!("CARGO_MANIFEST_DIR"),
+            "/tests/data/reference/oneway.json"
+        );
+        serde_json::from_str(&std::fs::read_to_string(path).expect("read oneway.json"))
+            .expect("parse oneway.json")
+    }
+
+    fn summaries(dataset: &Value) -> Vec<Summary> {
+        // `large_offset` (origin 1000000, values on a 0.0001 gauge, tests/data/README.md): the
+        // libraries were given the exact offsets; rebuild them from the double values.
+        let origin: Option<f64> = dataset["origin"].as_str().and_then(|o| o.parse().ok());
+        let offset = |x: f64| match origin {
+            Some(o) => ((x - o) * 1e4).round() / 1e4,
+            None => x,
+        };
+        dataset["groups"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|g| {
+                let v: Vec<f64> = g["values"]
+                    .as_array()
+                    .unwrap()
+                    .iter()
+                    .map(|x| offset(x.as_f64().unwrap()))
+                    .collect();
+                Summary::from_slice(&v)
+            })
+            .collect()
+    }
+
+    /// p-values: >= 6 significant digits; below 1e-7 the reference (scipy's studentized range,
+    /// integrated to about 1e-11 absolute) cannot give 6 digits, so there the check is absolute.
+    fn check_p(ours: f64, reference: &Value, what: &str) {
+        let Some(reference) = reference.as_f64() else {
+            return;
+        };
+        if reference > 1e-7 {
+            assert!(lre(ours, reference) >= 6.0, "{what}: {ours} vs {reference}");
+        } else {
+            assert!(
+                (ours - reference).abs() < 1e-10,
+                "{what}: {ours} vs {reference}"
+            );
+        }
+    }
+
+    /// Differences and interval ends: >= 8 significant digits, or agreement within 1e-8 of the
+    /// interval half-width when the value itself is near 0 (a relative measure is then meaningless).
+    fn check_value(ours: f64, reference: &Value, scale: f64, what: &str) {
+        let Some(reference) = reference.as_f64() else {
+            return; // null in the fixture: the reference could not give it
+        };
+        let ok = lre(ours, reference) >= 8.0 || (ours - reference).abs() <= 1e-8 * scale;
+        assert!(ok, "{what}: {ours} vs {reference}");
+    }
+
+    // Reference: scipy.stats.tukey_hsd (cross-checked by statsmodels pairwise_tukeyhsd) on the 18
+    // datasets of tests/data/reference/oneway.json (scripts/reference.py).
+    #[test]
+    fn tukey_kramer_matches_scipy() {
+        let fixture = oneway_fixture();
+        let mut checked = 0;
+        for dataset in fixture["datasets"].as_array().unwrap() {
+            let name = dataset["name"].as_str().unwrap();
+            let Some(expected) = dataset["expected"]["tukey"].as_array() else {
+                continue;
+            };
+            // The two 40-group datasets (780 pairs each) are left to the slower integration run.
+            if dataset["groups"].as_array().unwrap().len() > 8 {
+                continue;
+            }
+            let pairs = tukey_kramer(&summaries(dataset), 0.95);
+            for e in expected {
+                let (a, b) = (
+                    e["a"].as_u64().unwrap() as usize,
+                    e["b"].as_u64().unwrap() as usize,
+                );
+                let pair = pairs
+                    .iter()
+                    .flatten()
+                    .find(|p| p.a == a && p.b == b)
+                    .unwrap_or_else(|| panic!("{name}: pair {a},{b} missing"));
+                let half = 0.5 * (pair.ci_high - pair.ci_low);
+                let what = format!("{name} ({a},{b})");
+                check_value(pair.diff, &e["diff"], half, &what);
+                check_value(pair.ci_low, &e["ci_low"], half, &what);
+                check_value(pair.ci_high, &e["ci_high"], half, &what);
+                check_p(pair.p_adj, &e["p_adj"], &what);
+                checked += 1;
+            }
+        }
+        assert!(checked > 60, "only {checked} pairs checked");
+    }
+
+    // Reference: pingouin pairwise_gameshowell on the datasets of oneway.json.
+    #[test]
+    fn games_howell_matches_pingouin() {
+        let fixture = oneway_fixture();
+        let mut checked = 0;
+        for dataset in fixture["datasets"].as_array().unwrap() {
+            let name = dataset["name"].as_str().unwrap();
+            let Some(expected) = dataset["expected"]["games_howell"].as_array() else {
+                continue;
+            };
+            if dataset["groups"].as_array().unwrap().len() > 8 {
+                continue;
+            }
+            let pairs = games_howell(&summaries(dataset), 0.95);
+            for e in expected {
+                let (a, b) = (
+                    e["a"].as_u64().unwrap() as usize,
+                    e["b"].as_u64().unwrap() as usize,
+                );
+                let what = format!("{name} ({a},{b})");
+                let Some(pair) = pairs.iter().flatten().find(|p| p.a == a && p.b == b) else {
+                    panic!("{what}: pair missing")
+                };
+                let half = 0.5 * (pair.ci_high - pair.ci_low);
+                check_value(pair.diff, &e["diff"], half, &what);
+                check_value(pair.se, &e["se"], half, &what);
+                check_value(pair.statistic, &e["t"], 1.0, &what);
+                check_value(pair.df, &e["df"], 1.0, &what);
+                check_value(pair.ci_low, &e["ci_low"], half, &what);
+                check_value(pair.ci_high, &e["ci_high"], half, &what);
+                check_p(pair.p_adj, &e["p_adj"], &what);
+                checked += 1;
+            }
+        }
+        assert!(checked > 60, "only {checked} pairs checked");
+    }
+
+    // k = 2: Tukey-Kramer is the pooled two-sample t-test. Hand check: groups [1,2,3] and
+    // [4,5,6]: diff = -3, pooled variance 1, se = sqrt(2/3), t = -3.674234614174767 on 4 df;
+    // two-sided t p = 0.021311641128756 (Student t distribution, statrs, an independent code path).
+    #[test]
+    fn two_groups_equal_the_t_test() {
+        use statrs::distribution::{ContinuousCDF, StudentsT};
+        let groups = [
+            Summary::from_slice(&[1.0, 2.0, 3.0]),
+            Summary::from_slice(&[4.0, 5.0, 6.0]),
+        ];
+        let pair = tukey_kramer(&groups, 0.95).remove(0).unwrap();
+        let t = StudentsT::new(0.0, 1.0, 4.0).unwrap();
+        let p_t = 2.0 * t.cdf(-3.674234614174767);
+        assert!(lre(pair.statistic, -3.674234614174767) > 13.0);
+        assert!(lre(pair.p_adj, p_t) > 10.0, "{} vs {p_t}", pair.p_adj);
+        // The interval is the t interval: diff +- t_(0.975; 4) se.
+        let half = t.inverse_cdf(0.975) * (2.0f64 / 3.0).sqrt();
+        assert!(
+            lre(pair.ci_high, -3.0 + half) > 9.0,
+            "{} vs {}",
+            pair.ci_high,
+            -3.0 + half
+        );
+    }
+
+    #[test]
+    fn singleton_group_and_zero_variance_are_unavailable() {
+        let groups = [
+            Summary::from_slice(&[1.0]),
+            Summary::from_slice(&[4.0, 5.0, 6.0]),
+            Summary::from_slice(&[2.0, 3.0]),
+        ];
+        let gh = games_howell(&groups, 0.95);
+        assert!(gh[0].as_ref().unwrap_err().reason.contains("group 0"));
+        assert!(gh[1].is_err());
+        assert!(gh[2].is_ok());
+        // Tukey-Kramer accepts the singleton (it adds no within-group df).
+        assert!(tukey_kramer(&groups, 0.95).iter().all(|p| p.is_ok()));
+        let flat = [
+            Summary::from_slice(&[2.0, 2.0]),
+            Summary::from_slice(&[3.0, 3.0]),
+        ];
+        assert!(tukey_kramer(&flat, 0.95)[0]
+            .as_ref()
+            .unwrap_err()
+            .reason
+            .contains("zero"));
+        assert!(games_howell(&flat, 0.95)[0].is_err());
+        assert!(tukey_kramer(&flat[..1], 0.95).is_empty());
+    }
+
+    // Hand check: groups of sizes 1 and 3 with means 0 and 4: grand mean 3, effects -3 and +1;
+    // within SD 2 gives -1.5 and 0.5 SD units; tolerance 10 gives -30 % and 10 %.
+    #[test]
+    fn group_effects_hand_check() {
+        let groups = [
+            Summary::from_slice(&[0.0]),
+            Summary::from_slice(&[3.0, 4.0, 5.0]),
+        ];
+        let effects = group_effects(&groups, Some(2.0), Some(10.0));
+        assert!(lre(effects[0].diff_from_grand, -3.0) > 14.0);
+        assert!(lre(effects[1].diff_from_grand, 1.0) > 14.0);
+        assert!(lre(*effects[0].diff_sd_units.as_ref().unwrap(), -1.5) > 14.0);
+        assert!(lre(effects[1].diff_pct_tolerance.unwrap(), 10.0) > 14.0);
+        let none = group_effects(&groups, None, Some(-1.0));
+        assert!(none[0].diff_sd_units.is_err() && none[0].diff_pct_tolerance.is_none());
+    }
 }

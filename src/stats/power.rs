@@ -78,9 +78,9 @@ fn lambda_for_power(df1: f64, df2: f64, alpha: f64, target: f64) -> Stat<f64> {
 
 /// Sensitivity of the one-way F test for these groups (see the module docs for the configuration).
 ///
-/// `within_sd > 0`, `0 < alpha < 1`, `alpha < power_target < 1`; `detect` (a difference in units,
-/// > 0) adds the power at the observed sizes and the balanced group size needed; `tolerance`
-/// (USL - LSL, > 0) adds percentages. Unavailable for fewer than two non-empty groups, `N - k < 1`,
+/// `within_sd > 0`, `0 < alpha < 1`, `alpha < power_target < 1`; `detect` (a positive difference
+/// in units) adds the power at the observed sizes and the balanced group size needed; `tolerance`
+/// (USL - LSL, positive) adds percentages. Unavailable for fewer than two non-empty groups, `N - k < 1`,
 /// or parameters out of range.
 pub fn sensitivity(
     groups: &[Summary],
@@ -191,4 +191,92 @@ fn n_needed_balanced(k: usize, effect: f64, alpha: f64, target: f64) -> Stat<u64
         }
     }
     Ok(high)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::stats::lre;
+    use serde_json::Value;
+
+    fn fixture() -> Value {
+        let path = concat!(
+            env!("CARGO_MANIFEST_DIR"),
+            "/tests/data/reference/power.json"
+        );
+        serde_json::from_str(&std::fs::read_to_string(path).unwrap()).unwrap()
+    }
+
+    // Reference: statsmodels FTestAnovaPower.power (scripts/power_reference.py), balanced groups,
+    // two means `effect` SDs apart, the others at their mean (Cohen's f^2 = effect^2 / (2k)).
+    #[test]
+    fn balanced_power_matches_statsmodels() {
+        let doc = fixture();
+        let cases = doc["balanced_power"].as_array().unwrap();
+        for c in cases {
+            let k = c["k"].as_u64().unwrap() as usize;
+            let n = c["n"].as_u64().unwrap();
+            let effect = c["effect"].as_f64().unwrap();
+            let alpha = c["alpha"].as_f64().unwrap();
+            let expected = c["power"].as_f64().unwrap();
+            let ours = balanced_power(k, n, effect, alpha).unwrap();
+            assert!(
+                lre(ours, expected) >= 8.0,
+                "k {k} n {n} effect {effect} alpha {alpha}: {ours} vs {expected}"
+            );
+        }
+        assert_eq!(cases.len(), 200);
+    }
+
+    // Reference: the smallest balanced n per group with power >= 0.8 by statsmodels
+    // FTestAnovaPower (scripts/power_reference.py). Also Cohen (1988), Statistical Power Analysis,
+    // Table 2.4.1: 64 per group for a two-sample difference of 0.5 SD at alpha 0.05 (from memory).
+    #[test]
+    fn n_needed_matches_statsmodels() {
+        let doc = fixture();
+        for c in doc["n_needed"].as_array().unwrap() {
+            let k = c["k"].as_u64().unwrap() as usize;
+            let effect = c["effect"].as_f64().unwrap();
+            let expected = c["n_per_group"].as_u64().unwrap();
+            let groups: Vec<Summary> = (0..k)
+                .map(|i| Summary::from_slice(&[i as f64, i as f64 + 1.0, i as f64 + 2.0]))
+                .collect();
+            let s = sensitivity(&groups, 1.0, 0.05, 0.8, Some(effect), None).unwrap();
+            let n = s.n_needed.unwrap().unwrap();
+            assert_eq!(n, expected, "k {k} effect {effect}");
+        }
+        assert_eq!(n_needed_balanced(2, 0.5, 0.05, 0.8).unwrap(), 64);
+    }
+
+    // The minimum detectable difference has power exactly 0.8 in the least favourable
+    // configuration, and for balanced data it is the difference statsmodels needs for 0.8.
+    #[test]
+    fn minimum_detectable_difference_has_target_power() {
+        let groups: Vec<Summary> = [5usize, 8, 12, 20]
+            .iter()
+            .map(|&n| Summary::from_slice(&(0..n).map(|i| i as f64).collect::<Vec<_>>()))
+            .collect();
+        let s = sensitivity(&groups, 2.0, 0.05, 0.8, Some(1.0), Some(10.0)).unwrap();
+        let d = *s.min_detectable_diff.as_ref().unwrap();
+        // Two smallest groups (5 and 8): lambda = d^2 / sigma^2 * 5 * 8 / 13.
+        let lambda = d * d / 4.0 * (40.0 / 13.0);
+        let power = f_test_power(lambda, 3.0, 41.0, 0.05).unwrap();
+        assert!(lre(power, 0.8) >= 9.0, "{power}");
+        assert!(lre(s.min_detectable_pct_tolerance.unwrap(), 10.0 * d) >= 12.0);
+        assert!(s.power_at_detect.unwrap() < 0.8);
+    }
+
+    #[test]
+    fn bad_input_is_unavailable() {
+        let groups = [
+            Summary::from_slice(&[1.0, 2.0]),
+            Summary::from_slice(&[2.0, 4.0]),
+        ];
+        assert!(sensitivity(&groups, 0.0, 0.05, 0.8, None, None).is_err());
+        assert!(sensitivity(&groups, 1.0, 0.05, 0.01, None, None).is_err());
+        assert!(sensitivity(&groups, 1.0, 0.05, 0.8, Some(-1.0), None).is_err());
+        assert!(sensitivity(&groups[..1], 1.0, 0.05, 0.8, None, None).is_err());
+        let singles = [Summary::from_slice(&[1.0]), Summary::from_slice(&[2.0])];
+        assert!(sensitivity(&singles, 1.0, 0.05, 0.8, None, None).is_err());
+    }
 }

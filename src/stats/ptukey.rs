@@ -130,7 +130,8 @@ pub fn qtukey(p: f64, k: f64, df: f64) -> Stat<f64> {
     let target = if use_upper { (1.0 - p).ln() } else { p.ln() };
     let mut q = initial_quantile(p, k, df).max(1e-8);
     let mut prec = &FAST;
-    for _ in 0..60 {
+    let mut previous_q: Option<f64> = None;
+    for _ in 0..80 {
         let (tail, density) = evaluate(q, k, df, use_upper, prec);
         let slope = if use_upper {
             -density / tail
@@ -139,7 +140,16 @@ pub fn qtukey(p: f64, k: f64, df: f64) -> Stat<f64> {
         };
         let value = tail.ln();
         let error = value - target;
-        if !error.is_finite() || !slope.is_finite() || slope == 0.0 {
+        let is_bad = !error.is_finite() || !slope.is_finite() || slope == 0.0;
+        if is_bad {
+            // Overshot into underflow: back off halfway towards the last good iterate.
+            if let Some(last) = previous_q {
+                q = 0.5 * (q + last);
+                continue;
+            }
+        }
+        previous_q = Some(q);
+        if is_bad {
             return Err(Unavailable::new(format!(
                 "studentized range quantile did not converge (p = {p}, k = {k}, df = {df})"
             )));
@@ -154,10 +164,10 @@ pub fn qtukey(p: f64, k: f64, df: f64) -> Stat<f64> {
         // 1e-13. The FAST quadrature carries the iterate that far; one more step with the
         // ACCURATE one removes its error.
         if step.abs() <= 1e-7 * q || error.abs() <= 1e-15 {
-            if std::ptr::eq(prec, &ACCURATE) {
+            if std::ptr::eq(prec, &ACCURATE_WITH_DENSITY) {
                 return Ok(q);
             }
-            prec = &ACCURATE;
+            prec = &ACCURATE_WITH_DENSITY;
         }
     }
     Err(Unavailable::new(format!(
@@ -173,6 +183,7 @@ fn initial_quantile(p: f64, k: f64, df: f64) -> f64 {
     const C2: f64 = 0.2368;
     const C3: f64 = 1.214;
     const C4: f64 = 1.208;
+    #[allow(clippy::approx_constant)] // AS 190.2's published constant, not sqrt(2)
     const C5: f64 = 1.4142;
     let pp = if p > 0.5 { p } else { 1.0 - p };
     let ps = 0.5 - 0.5 * pp;
@@ -187,7 +198,18 @@ fn initial_quantile(p: f64, k: f64, df: f64) -> f64 {
         q += -C3 / df + C4 * t / df;
     }
     let start = t * (q * (k - 1.0).ln() + C5);
-    if p > 0.5 {
+    if p > 0.5 && (p > 0.99 || start <= 0.0) {
+        // Beyond the range of AS 190.2: the Bonferroni bound P(Q > q) <= C(k, 2) P(|T| > q / sqrt 2).
+        let tail = (1.0 - p) / (k * (k - 1.0));
+        let upper_t = if df.is_finite() {
+            statrs::distribution::StudentsT::new(0.0, 1.0, df)
+                .map(|t| -statrs::distribution::ContinuousCDF::inverse_cdf(&t, tail))
+                .unwrap_or(yi)
+        } else {
+            std::f64::consts::SQRT_2 * statrs::function::erf::erfc_inv(2.0 * tail)
+        };
+        std::f64::consts::SQRT_2 * upper_t
+    } else if p > 0.5 {
         start
     } else {
         // Lower quantiles: shrink towards 0 by the ratio of the two tails' normal quantiles.
@@ -200,12 +222,20 @@ fn initial_quantile(p: f64, k: f64, df: f64) -> f64 {
 struct Precision {
     negligible: f64,
     width_factor: f64,
+    with_density: bool,
 }
 
 /// Full accuracy, for probabilities reported to the user.
 const ACCURATE: Precision = Precision {
     negligible: NEGLIGIBLE,
     width_factor: 1.0,
+    with_density: false,
+};
+
+/// [`ACCURATE`] with the density (for the last Newton step of the quantile).
+const ACCURATE_WITH_DENSITY: Precision = Precision {
+    with_density: true,
+    ..ACCURATE
 };
 
 /// About 1e-11 relative, for the Newton steps of the quantile (checked against [`ACCURATE`] in the
@@ -213,6 +243,7 @@ const ACCURATE: Precision = Precision {
 const FAST: Precision = Precision {
     negligible: 1e-13,
     width_factor: 2.0,
+    with_density: true,
 };
 
 /// Width of the inner panels: the integrands narrow like `1 / sqrt(k)` (the `k - 1`-th power of a
@@ -233,9 +264,6 @@ fn evaluate(q: f64, k: f64, df: f64, upper: bool, prec: &Precision) -> (f64, f64
     let nu = df;
     let log_norm = 0.5 * (nu / PI).ln() - stirling_remainder(0.5 * nu);
     let log_density = |u: f64| log_norm + nu * (u - 0.5 * (2.0 * u).exp_m1());
-    // Panel width: the log-density's SD, or the relative spread of the range of k normals (which
-    // sharpens P_inf(q e^u) as k grows), whichever is smaller.
-    let sigma = (0.5 / nu).sqrt().min(0.75).min(0.6 / (1.0 + k.ln())) * prec.width_factor;
     let gl = legendre();
     // Peak of the upper-tail integrand, from the Gaussian-tail approximation of sf_inf; the lower
     // one starts at the mode of the log-density (u = 0).
@@ -244,11 +272,19 @@ fn evaluate(q: f64, k: f64, df: f64, upper: bool, prec: &Precision) -> (f64, f64
     } else {
         0.0
     };
+    // Local SD of the log-integrand: the log-density has curvature 2 nu e^(2u); the upper tail
+    // ln sf_inf(q e^u) ~ -(q e^u)^2 / 4 adds q^2 e^(2u). The range of k normals sharpens
+    // P_inf(q e^u) as k grows: at most tau.
+    let tau = 0.6 / (1.0 + k.ln());
+    let local_width = |u: f64| -> f64 {
+        let curvature = (2.0 * nu + if upper { q * q } else { 0.0 }) * (2.0 * u).exp();
+        2.0 * prec.width_factor * tau.min(curvature.sqrt().recip()).min(0.75)
+    };
     let mut total = 0.0;
     let mut total_density = 0.0;
     for direction in [1.0f64, -1.0] {
         let mut edge = start;
-        let mut width = 2.0 * sigma;
+        let mut width = local_width(start);
         let mut previous = f64::INFINITY;
         for panel in 0..400 {
             let (a, b) = if direction > 0.0 {
@@ -278,15 +314,12 @@ fn evaluate(q: f64, k: f64, df: f64, upper: bool, prec: &Precision) -> (f64, f64
             edge = if direction > 0.0 { b } else { a };
             let is_small =
                 sum <= prec.negligible * total && sum_density <= prec.negligible * total_density;
-            if panel >= 1 && (is_small || total == 0.0 && panel > 60) {
+            if panel >= 1 && (is_small && sum <= previous || total == 0.0 && panel > 60) {
                 break;
             }
-            // The left tail of the log-density decays only exponentially: once past the peak,
-            // widen the panels there. The right tail decays double-exponentially: keep the width.
-            if direction < 0.0 && panel >= 1 && sum < previous {
-                width *= 1.5;
-            }
             previous = sum;
+            // Follow the local scale, growing by at most a factor 2 per panel.
+            width = (2.0 * width).min(local_width(edge));
             if direction > 0.0 && edge > 30.0
                 || direction < 0.0 && edge < -745.0 / nu.min(1.0) - 40.0
             {
@@ -355,6 +388,7 @@ struct ZNode {
 ///
 /// statrs' `erfc` carries relative errors near 1e-10 in places (at 1.5 it is off by 4e-11), too
 /// much for tail probabilities, hence this one. Returns 0 beyond about 26.6 (underflow).
+#[allow(clippy::excessive_precision)] // Cody's published coefficients, kept as printed
 pub fn erfc(x: f64) -> f64 {
     const A: [f64; 5] = [
         3.16112374387056560e00,
@@ -533,12 +567,13 @@ fn range_inf(w: f64, k: f64, upper: bool, prec: &Precision) -> (f64, f64) {
         let (mut sum, mut dens) = (0.0, 0.0);
         for node in &grid[p * NODES..(p + 1) * NODES] {
             let zw = node.z - w;
-            let cdf_zw = norm_cdf(zw);
-            // R = Phi(z) - Phi(z - w), from whichever tails avoid cancellation.
-            let r = if zw > 0.0 {
-                norm_cdf(-zw) - node.upper
+            // R = Phi(z) - Phi(z - w), from whichever tails avoid cancellation (one erfc).
+            let (cdf_zw, r) = if zw > 0.0 {
+                let upper_zw = norm_cdf(-zw);
+                (1.0 - upper_zw, upper_zw - node.upper)
             } else {
-                node.cdf - cdf_zw
+                let cdf_zw = norm_cdf(zw);
+                (cdf_zw, node.cdf - cdf_zw)
             };
             if r <= 0.0 {
                 // R underflows (w tiny): only the upper tail gets a contribution.
@@ -556,8 +591,10 @@ fn range_inf(w: f64, k: f64, upper: bool, prec: &Precision) -> (f64, f64) {
             } else {
                 sum += node.weight_phi * r_pow;
             }
-            let phi_zw = (-0.5 * zw * zw).exp() * FRAC_1_SQRT_2PI;
-            dens += node.weight_phi * (r_pow / r) * phi_zw;
+            if prec.with_density {
+                let phi_zw = (-0.5 * zw * zw).exp() * FRAC_1_SQRT_2PI;
+                dens += node.weight_phi * (r_pow / r) * phi_zw;
+            }
         }
         (sum, dens)
     };
@@ -570,7 +607,9 @@ fn range_inf(w: f64, k: f64, upper: bool, prec: &Precision) -> (f64, f64) {
             total_density += dens;
             let is_small =
                 part <= prec.negligible * total && dens <= prec.negligible * total_density;
-            if total > 0.0 && is_small {
+            // Marching from the peak: a total still zero 4 units away means the tail underflows.
+            let is_far = (p - peak as isize).unsigned_abs() as f64 * z_panel > 4.0;
+            if total > 0.0 && is_small || total == 0.0 && is_far {
                 break;
             }
             p += step;
@@ -580,21 +619,115 @@ fn range_inf(w: f64, k: f64, upper: bool, prec: &Precision) -> (f64, f64) {
 }
 
 #[cfg(test)]
+#[allow(clippy::excessive_precision)] // reference values kept as printed by their source
 mod tests {
     use super::*;
     use crate::stats::lre;
 
+    // Published table: Harter (1960), "Tables of range and studentized range", Annals of
+    // Mathematical Statistics 31, 1122-1147, upper 5 % points q(0.95; k, df), printed to 3 decimals.
+    // Values from memory of that table; each agrees with scipy.stats.studentized_range.ppf to the
+    // printed 3 decimals.
     #[test]
-    fn smoke() {
+    fn harter_table_upper_5_percent_points() {
+        let table = [
+            (2.0, f64::INFINITY, 2.772),
+            (2.0, 5.0, 3.635),
+            (3.0, 10.0, 3.877),
+            (4.0, 12.0, 4.199),
+            (5.0, 30.0, 4.102),
+            (10.0, 20.0, 5.008),
+        ];
+        for (k, df, printed) in table {
+            let q = qtukey(0.95, k, df).unwrap();
+            assert!(
+                (q - printed).abs() <= 0.0005,
+                "k {k} df {df}: {q} vs {printed}"
+            );
+        }
+    }
+
+    // Exact: for k = 2 and df = infinity, Q = |Z1 - Z2|, so P(Q > q) = erfc(q / 2). Reference values
+    // of erfc: Abramowitz and Stegun (1964) 7.1 / mpmath at 30 digits: erfc(1.5) = 0.033894853524689273,
+    // erfc(5) = 1.5374597944280348502e-12, erfc(10) = 2.0884875837625447570e-45,
+    // erfc(20) = 5.3958656116079009289e-176.
+    #[test]
+    fn k2_infinite_df_tail_is_erfc() {
+        for (q, expected) in [
+            (3.0, 0.033894853524689273),
+            (10.0, 1.5374597944280348502e-12),
+            (20.0, 2.0884875837625447570e-45),
+            (40.0, 5.3958656116079009289e-176),
+        ] {
+            let sf = ptukey_sf(q, 2.0, f64::INFINITY).unwrap();
+            assert!(lre(sf, expected) >= 12.0, "q {q}: {sf:e} vs {expected:e}");
+        }
+    }
+
+    // k = 2, finite df: Q = sqrt(2) |T| with T Student t on df, so P(Q > q) = 2 P(T > q / sqrt 2)
+    // (independent code path: statrs Student t, a regularized incomplete beta).
+    #[test]
+    fn k2_is_the_t_distribution() {
+        use statrs::distribution::{ContinuousCDF, StudentsT};
+        for (q, df) in [(1.0, 3.0), (4.0, 7.5), (3.0, 120.0), (6.0, 1.0)] {
+            let t = StudentsT::new(0.0, 1.0, df).unwrap();
+            let expected = 2.0 * t.cdf(-q / std::f64::consts::SQRT_2);
+            let sf = ptukey_sf(q, 2.0, df).unwrap();
+            assert!(
+                lre(sf, expected) >= 9.0,
+                "q {q} df {df}: {sf:e} vs {expected:e}"
+            );
+        }
+    }
+
+    // Range of 100 normals at df = infinity, against mpmath quadrature at 25 digits
+    // (k * integral phi(z) [Phi(z) - Phi(z - w)]^99 dz; computed while writing this module).
+    #[test]
+    fn range_of_100_normals_matches_mpmath() {
+        for (w, lower) in [
+            (3.0, 3.3598216007126273e-6),
+            (4.0, 0.029994312777845004),
+            (6.0, 0.93748344453850096),
+        ] {
+            let cdf = ptukey_cdf(w, 100.0, f64::INFINITY).unwrap();
+            assert!(lre(cdf, lower) >= 11.0, "w {w}: {cdf:e} vs {lower:e}");
+        }
+        let sf = ptukey_sf(10.0, 100.0, f64::INFINITY).unwrap();
+        assert!(lre(sf, 7.5876256015377009e-9) >= 11.0, "{sf:e}");
+    }
+
+    #[test]
+    fn cdf_and_sf_add_to_one_and_quantile_inverts() {
         for (q, k, df) in [
             (3.5, 3.0, 10.0),
-            (3.0, 2.0, f64::INFINITY),
             (5.0, 10.0, 20.0),
+            (2.0, 100.0, 1.5),
+            (4.0, 50.0, 1e6),
         ] {
             let c = ptukey_cdf(q, k, df).unwrap();
             let s = ptukey_sf(q, k, df).unwrap();
-            println!("q {q} k {k} df {df}: cdf {c:.17e} sf {s:.17e}");
+            // Measured: within 1e-12 (both tails integrated separately); 8 digits are required.
+            assert!((c + s - 1.0).abs() < 5e-12, "{q} {k} {df}: {c} + {s}");
         }
-        let _ = lre(1.0, 1.0);
+        for (p, k, df) in [(0.95, 3.0, 10.0), (0.05, 4.0, 12.0), (0.99, 50.0, 5.0)] {
+            let q = qtukey(p, k, df).unwrap();
+            let back = ptukey_cdf(q, k, df).unwrap();
+            assert!(lre(back, p) >= 11.0, "{p} {k} {df}: {back}");
+        }
+        // Far upper quantile: P(Q > q) = 1e-12.
+        let q = qtukey(1.0 - 1e-12, 5.0, 30.0).unwrap();
+        let tail = ptukey_sf(q, 5.0, 30.0).unwrap();
+        assert!(lre(tail, 1e-12) >= 3.0, "{tail:e}");
+    }
+
+    #[test]
+    fn bad_arguments_are_unavailable() {
+        assert!(ptukey_sf(3.0, 1.0, 10.0).is_err());
+        assert!(ptukey_sf(3.0, 3.0, 0.0).is_err());
+        assert!(ptukey_sf(3.0, 3.0, f64::NAN).is_err());
+        assert!(ptukey_sf(f64::NAN, 3.0, 10.0).is_err());
+        assert!(qtukey(1.5, 3.0, 10.0).is_err());
+        assert_eq!(ptukey_sf(0.0, 3.0, 10.0).unwrap(), 1.0);
+        assert_eq!(qtukey(1.0, 3.0, 10.0).unwrap(), f64::INFINITY);
     }
 }

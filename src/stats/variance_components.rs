@@ -19,6 +19,7 @@
 //!   intervals on nonnegative linear combinations of variances", JASA 75, 869-873) in the form
 //!   given by Burdick and Graybill (1992, Confidence Intervals on Variance Components, section
 //!   3.3 and 5.2 for unbalanced data with n0), approximate.
+//!
 //! Lower ends below zero are truncated at zero, with a note.
 
 use super::describe::Summary;
@@ -242,4 +243,141 @@ fn between_interval(
         low = 0.0;
     }
     Ok(Interval { low, high })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::stats::lre;
+
+    fn load(name: &str) -> Vec<Summary> {
+        let path = format!(
+            "{}/tests/data/variance_components/{name}",
+            env!("CARGO_MANIFEST_DIR")
+        );
+        let text = std::fs::read_to_string(&path).expect("read data");
+        let mut groups: Vec<(String, Vec<f64>)> = Vec::new();
+        for line in text.lines().skip(1).filter(|l| !l.trim().is_empty()) {
+            let (g, v) = line.split_once(',').expect("two columns");
+            let v: f64 = v.trim().parse().expect("number");
+            match groups.iter_mut().find(|(name, _)| name == g) {
+                Some((_, values)) => values.push(v),
+                None => groups.push((g.to_string(), vec![v])),
+            }
+        }
+        groups.iter().map(|(_, v)| Summary::from_slice(v)).collect()
+    }
+
+    // Davies and Goldsmith (1972) section 6.4, dyestuff: MSB 11271.5, MSW 2451.25, between 1764.05
+    // (tests/data/variance_components/README.md).
+    #[test]
+    fn dyestuff_published_components() {
+        let vc = one_way_random(&load("dyestuff.csv"), 0.95).unwrap();
+        assert!(lre(vc.within, 2451.25) >= 12.0, "{}", vc.within);
+        assert!(lre(vc.between, 1764.05) >= 12.0, "{}", vc.between);
+        assert!(lre(vc.between * vc.n0 + vc.within, 11271.5) >= 12.0);
+        assert!(vc.is_balanced && !vc.is_truncated && vc.n0 == 5.0);
+        assert!(lre(vc.icc, 1764.05 / (1764.05 + 2451.25)) >= 12.0);
+        assert_eq!(vc.icc, vc.share_between);
+    }
+
+    // The intervals against the textbook formulas evaluated separately here, with the quantiles
+    // taken from statrs directly (within: chi-square; ICC: Searle 1971; between: Burdick and
+    // Graybill 1992, MLS). No published interval for these data was found to compare with.
+    #[test]
+    fn dyestuff_intervals_follow_the_formulas() {
+        let vc = one_way_random(&load("dyestuff.csv"), 0.95).unwrap();
+        let (msb, msw, n1, n2, n0) = (11271.5, 2451.25, 5.0, 24.0, 5.0);
+        let chi24 = ChiSquared::new(n2).unwrap();
+        assert!(lre(vc.within_ci.low, msw * n2 / chi24.inverse_cdf(0.975)) >= 10.0);
+        assert!(lre(vc.within_ci.high, msw * n2 / chi24.inverse_cdf(0.025)) >= 10.0);
+        let f = FisherSnedecor::new(n1, n2).unwrap();
+        let ratio = msb / msw;
+        let lo = ratio / f.inverse_cdf(0.975);
+        let hi = ratio / f.inverse_cdf(0.025);
+        let icc = vc.icc_ci.as_ref().unwrap();
+        assert!(lre(icc.low, ((lo - 1.0) / (lo - 1.0 + n0)).max(0.0)) >= 10.0 || icc.low == 0.0);
+        assert!(lre(icc.high, (hi - 1.0) / (hi - 1.0 + n0)) >= 10.0);
+        // MLS, written out term by term.
+        let chi5 = ChiSquared::new(n1).unwrap();
+        let g1 = 1.0 - n1 / chi5.inverse_cdf(0.975);
+        let h1 = n1 / chi5.inverse_cdf(0.025) - 1.0;
+        let g2 = 1.0 - n2 / chi24.inverse_cdf(0.975);
+        let h2 = n2 / chi24.inverse_cdf(0.025) - 1.0;
+        let (fu, fl) = (f.inverse_cdf(0.975), f.inverse_cdf(0.025));
+        let g12 = ((fu - 1.0).powi(2) - g1 * g1 * fu * fu - h2 * h2) / fu;
+        let h12 = ((1.0 - fl).powi(2) - h1 * h1 * fl * fl - g2 * g2) / fl;
+        let low =
+            (msb - msw - (g1 * g1 * msb * msb + h2 * h2 * msw * msw + g12 * msb * msw).sqrt()) / n0;
+        let high =
+            (msb - msw + (h1 * h1 * msb * msb + g2 * g2 * msw * msw + h12 * msb * msw).sqrt()) / n0;
+        let between = vc.between_ci.as_ref().unwrap();
+        assert!(
+            lre(between.high, high) >= 10.0,
+            "{} vs {high}",
+            between.high
+        );
+        if low > 0.0 {
+            assert!(lre(between.low, low) >= 10.0);
+        } else {
+            assert_eq!(between.low, 0.0);
+        }
+        assert!(between.low <= vc.between && vc.between <= between.high);
+    }
+
+    // Box and Tiao (1973) section 5.1.2, dyestuff2: negative ANOVA estimate -1.3219 (printed to 4
+    // decimals), truncated at 0 with a note.
+    #[test]
+    fn dyestuff2_negative_estimate_is_truncated() {
+        let vc = one_way_random(&load("dyestuff2.csv"), 0.95).unwrap();
+        assert!(
+            (vc.between_raw - -1.3219).abs() < 5e-5,
+            "{}",
+            vc.between_raw
+        );
+        assert!(vc.is_truncated && vc.between == 0.0 && vc.icc == 0.0);
+        assert!(vc.notes.iter().any(|n| n.contains("truncated")));
+    }
+
+    // Pinheiro and Bates (2000) ch. 1, rails: rail variance 615.31111, residual 16.16667 (printed).
+    #[test]
+    fn rail_published_components() {
+        let vc = one_way_random(&load("rail.csv"), 0.95).unwrap();
+        assert!((vc.between - 615.31111).abs() < 1e-5, "{}", vc.between);
+        assert!((vc.within - 16.16667).abs() < 1e-5, "{}", vc.within);
+    }
+
+    // Hand check, unbalanced: sizes 2, 3, 5 (N = 10): n0 = (10 - 38/10) / 2 = 3.1.
+    #[test]
+    fn unbalanced_n0_and_note() {
+        let groups = [
+            Summary::from_slice(&[1.0, 2.0]),
+            Summary::from_slice(&[2.0, 4.0, 6.0]),
+            Summary::from_slice(&[5.0, 6.0, 7.0, 8.0, 9.0]),
+        ];
+        let vc = one_way_random(&groups, 0.95).unwrap();
+        assert!(lre(vc.n0, 3.1) >= 14.0);
+        assert!(!vc.is_balanced && vc.notes.iter().any(|n| n.contains("approximation")));
+    }
+
+    #[test]
+    fn degenerate_input_is_unavailable() {
+        let one = [Summary::from_slice(&[1.0, 2.0])];
+        assert!(one_way_random(&one, 0.95).is_err());
+        let flat = [
+            Summary::from_slice(&[1.0, 1.0]),
+            Summary::from_slice(&[2.0, 2.0]),
+        ];
+        assert!(one_way_random(&flat, 0.95)
+            .unwrap_err()
+            .reason
+            .contains("zero"));
+        let singles = [Summary::from_slice(&[1.0]), Summary::from_slice(&[2.0])];
+        assert!(one_way_random(&singles, 0.95).is_err());
+        let ok = [
+            Summary::from_slice(&[1.0, 2.0]),
+            Summary::from_slice(&[2.0, 4.0]),
+        ];
+        assert!(one_way_random(&ok, 1.5).is_err());
+    }
 }
