@@ -22,6 +22,7 @@ use crate::stats::spread::brown_forsythe;
 use crate::stats::twoway::{two_way_values, TwoWay};
 use crate::stats::variance_components::{one_way_random, VarianceComponents};
 use crate::stats::{Stat, TestResult, Unavailable};
+use crate::storage::{Event, Store};
 use crate::{Error, Result};
 
 /// One characteristic's values in a window: time order is not required.
@@ -250,6 +251,13 @@ pub fn compare(
             options.confidence,
         ));
     }
+    if kept.is_empty() {
+        return Err(not_enough(format!(
+            "too little data on one side: no {} level has at least {min} values on each side of \
+             the change at {when} (widen --before/--after)",
+            series.factor
+        )));
+    }
     let pooled = group_change(
         "all groups".to_string(),
         &all_before,
@@ -355,6 +363,207 @@ pub fn scan_groups(series: &GroupedSeries, options: &ScanOptions) -> Result<Vec<
 /// Converts ms since the epoch to a UTC instant (None when out of range).
 pub fn instant(ms: i64) -> Option<DateTime<Utc>> {
     Utc.timestamp_millis_opt(ms).single()
+}
+
+// ---------------------------------------------------------------------------------------------
+// Store-facing entry point
+
+/// What to compare against.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Target {
+    /// A logged event, by id: its time is the change.
+    Event(i64),
+    /// A change time given directly.
+    At(DateTime<Utc>),
+    /// No change time: scan `[start, end)` for change points.
+    Scan {
+        /// Window start.
+        start: DateTime<Utc>,
+        /// Window end (exclusive).
+        end: DateTime<Utc>,
+    },
+}
+
+/// One investigation request.
+#[derive(Debug, Clone)]
+pub struct Request {
+    /// Characteristic name.
+    pub characteristic: String,
+    /// Grouping factor name.
+    pub factor: String,
+    /// The change (or the scan window).
+    pub target: Target,
+    /// Window before the change.
+    pub before: chrono::Duration,
+    /// Window after the change.
+    pub after: chrono::Duration,
+    /// Before/after settings.
+    pub compare: CompareOptions,
+    /// Scan settings.
+    pub scan: ScanOptions,
+}
+
+/// What was found.
+#[derive(Debug, Clone)]
+pub enum Outcome {
+    /// Before/after comparison at a change time.
+    BeforeAfter(Box<Comparison>),
+    /// Change-point scan per group, with the logged events nearest each change point
+    /// (`nearest[group][change point]`, closest first, at most 3).
+    Scan {
+        /// Per-group scans.
+        scans: Vec<GroupScan>,
+        /// Nearest events.
+        nearest: Vec<Vec<Vec<Event>>>,
+    },
+}
+
+/// The result of [`investigate`].
+#[derive(Debug, Clone)]
+pub struct Investigation {
+    /// The characteristic as stored (name, unit, limits).
+    pub characteristic: crate::config::CharacteristicConfig,
+    /// The exact origin of the offsets.
+    pub origin: crate::stats::decimal::Decimal,
+    /// Grouping factor.
+    pub factor: String,
+    /// Window start.
+    pub start: DateTime<Utc>,
+    /// Window end (exclusive).
+    pub end: DateTime<Utc>,
+    /// The event named, if any.
+    pub event: Option<Event>,
+    /// The results.
+    pub outcome: Outcome,
+}
+
+/// Whether an event concerns a group: no characteristic or this one, and no scope on the factor
+/// or this level.
+fn concerns(event: &Event, characteristic: &str, factor: &str, level: &str) -> bool {
+    let characteristic_ok = event
+        .characteristic
+        .as_deref()
+        .map_or(true, |c| c == characteristic);
+    let on_factor: Vec<&(String, String)> =
+        event.scope.iter().filter(|(f, _)| f == factor).collect();
+    characteristic_ok && (on_factor.is_empty() || on_factor.iter().any(|(_, l)| l == level))
+}
+
+/// Loads the window from the store and runs the comparison or the scan.
+///
+/// Errors: unknown characteristic or factor (with the known names), unknown event id, an empty
+/// window, and every case [`compare`] rejects (the change outside the data, too little data on one
+/// side).
+pub fn investigate(store: &Store, request: &Request) -> Result<Investigation> {
+    let (event, start, end, change) = match &request.target {
+        Target::Event(id) => {
+            let events = store.events(None, None)?;
+            let event = events.into_iter().find(|e| e.id == *id).ok_or_else(|| {
+                Error::Usage(format!(
+                    "no logged event has id {id} (see `samewise event list`)"
+                ))
+            })?;
+            let at = event.at;
+            (
+                Some(event),
+                at - request.before,
+                at + request.after,
+                Some(at),
+            )
+        }
+        Target::At(at) => (None, *at - request.before, *at + request.after, Some(*at)),
+        Target::Scan { start, end } => (None, *start, *end, None),
+    };
+    if start >= end {
+        return Err(Error::Usage(format!(
+            "the window {} to {} is empty",
+            format_ms(start.timestamp_millis()),
+            format_ms(end.timestamp_millis())
+        )));
+    }
+    let frame = store.load_period(
+        start,
+        end,
+        Some(std::slice::from_ref(&request.characteristic)),
+    )?;
+    let f = frame
+        .factors
+        .iter()
+        .position(|f| f.name == request.factor)
+        .ok_or_else(|| {
+            let known: Vec<&str> = frame.factors.iter().map(|f| f.name.as_str()).collect();
+            Error::Usage(format!(
+                "unknown factor \"{}\" (configured: {})",
+                request.factor,
+                known.join(", ")
+            ))
+        })?;
+    let cf = frame.characteristics.into_iter().next().ok_or_else(|| {
+        Error::Usage(format!(
+            "unknown characteristic \"{}\"",
+            request.characteristic
+        ))
+    })?;
+    let levels = &frame.factors[f].levels;
+    let series = GroupedSeries {
+        characteristic: &request.characteristic,
+        factor: &request.factor,
+        values: &cf.values,
+        ts_ms: &cf.ts_ms,
+        group_idx: &cf.level_idx[f],
+        groups: levels,
+    };
+    if cf.values.is_empty() {
+        return Err(Error::NotEnoughData {
+            characteristic: request.characteristic.clone(),
+            reason: format!(
+                "no values between {} and {}",
+                format_ms(start.timestamp_millis()),
+                format_ms(end.timestamp_millis())
+            ),
+        });
+    }
+    let outcome = match change {
+        Some(at) => Outcome::BeforeAfter(Box::new(compare(
+            &series,
+            at.timestamp_millis(),
+            &request.compare,
+        )?)),
+        None => {
+            let scans = scan_groups(&series, &request.scan)?;
+            let events = store.events(Some(start), Some(end))?;
+            let nearest = scans
+                .iter()
+                .map(|g| {
+                    g.change_ms
+                        .iter()
+                        .map(|&ms| {
+                            let mut near: Vec<Event> = events
+                                .iter()
+                                .filter(|e| {
+                                    concerns(e, &request.characteristic, &request.factor, &g.group)
+                                })
+                                .cloned()
+                                .collect();
+                            near.sort_by_key(|e| (e.at.timestamp_millis() - ms).abs());
+                            near.truncate(3);
+                            near
+                        })
+                        .collect()
+                })
+                .collect();
+            Outcome::Scan { scans, nearest }
+        }
+    };
+    Ok(Investigation {
+        characteristic: cf.characteristic,
+        origin: cf.origin,
+        factor: request.factor.clone(),
+        start,
+        end,
+        event,
+        outcome,
+    })
 }
 
 #[cfg(test)]

@@ -7,12 +7,161 @@
 //! The statistics come from [`crate::analysis::investigate`]; this file turns flags into a
 //! request, and prints the terminal view or one JSON object.
 
+use std::io::Write;
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+use chrono::{DateTime, Utc};
 use serde_json::{json, Map, Value};
 
-use crate::analysis::investigate::{format_ms, Comparison, GroupChange, GroupScan};
+use crate::analysis::investigate::{
+    format_ms, investigate, CompareOptions, Comparison, GroupChange, GroupScan, Outcome, Request,
+    Target,
+};
+use crate::config::parse_duration;
+use crate::ingest::timestamp::TimestampParser;
+use crate::stats::changepoint::ScanOptions;
+use crate::{Error, Result};
+
+use super::common::{load_config, open_store};
 use crate::stats::twoway::{Table, TermRow, TwoWay};
 use crate::stats::variance_components::VarianceComponents;
 use crate::stats::{Stat, TestResult};
+
+/// Flags of `samewise investigate`.
+#[derive(Debug, clap::Args)]
+pub struct InvestigateArgs {
+    /// The characteristic to investigate.
+    pub characteristic: String,
+    /// The grouping factor (machine, line, supplier, ...).
+    #[arg(long, value_name = "FACTOR")]
+    pub by: String,
+    /// A logged event (see `samewise event list`): its time is the change.
+    #[arg(long, value_name = "ID", conflicts_with = "at")]
+    pub event: Option<i64>,
+    /// The change time: ISO 8601, with a zone or in the plant's zone ("2026-11-30 14:05").
+    #[arg(long, value_name = "TIME")]
+    pub at: Option<String>,
+    /// Window before the change (with no change: the scan window's length back from --to).
+    #[arg(long, value_name = "DURATION", default_value = "14d")]
+    pub before: String,
+    /// Window after the change.
+    #[arg(long, value_name = "DURATION", default_value = "14d")]
+    pub after: String,
+    /// Scan mode only: end of the scan window (default: now).
+    #[arg(long, value_name = "TIME", conflicts_with_all = ["event", "at"])]
+    pub to: Option<String>,
+    /// The plant configuration (default: $SAMEWISE_CONFIG, then ./plant.toml).
+    #[arg(long, value_name = "FILE")]
+    pub config: Option<PathBuf>,
+    /// Print one JSON object instead of the readable report.
+    #[arg(long)]
+    pub json: bool,
+}
+
+fn duration_flag(flag: &str, text: &str) -> Result<chrono::Duration> {
+    let d = parse_duration(text).map_err(|r| Error::Usage(format!("{flag} {text}: {r}")))?;
+    if d <= chrono::Duration::zero() {
+        return Err(Error::Usage(format!(
+            "{flag} {text}: the window must be longer than zero"
+        )));
+    }
+    Ok(d)
+}
+
+/// Runs `samewise investigate`; `now` is the wall clock (scan window end by default).
+pub fn run(args: &InvestigateArgs, now: DateTime<Utc>) -> Result<ExitCode> {
+    let config = load_config(args.config.as_deref())?;
+    let store = open_store(&config)?;
+    let parser = TimestampParser::new(None, config.plant.time_zone).map_err(Error::Usage)?;
+    let before = duration_flag("--before", &args.before)?;
+    let after = duration_flag("--after", &args.after)?;
+    let target = match (&args.event, &args.at) {
+        (Some(id), _) => Target::Event(*id),
+        (None, Some(at)) => Target::At(
+            parser
+                .parse(at)
+                .map_err(|r| Error::Usage(format!("--at {at}: {r}")))?,
+        ),
+        (None, None) => {
+            let end = match &args.to {
+                Some(to) => parser
+                    .parse(to)
+                    .map_err(|r| Error::Usage(format!("--to {to}: {r}")))?,
+                None => now,
+            };
+            Target::Scan {
+                start: end - before,
+                end,
+            }
+        }
+    };
+    let request = Request {
+        characteristic: args.characteristic.clone(),
+        factor: args.by.clone(),
+        target,
+        before,
+        after,
+        compare: CompareOptions {
+            alpha: config.check.alpha,
+            ..CompareOptions::default()
+        },
+        scan: ScanOptions {
+            alpha: config.check.alpha,
+            ..ScanOptions::default()
+        },
+    };
+    let found = investigate(&store, &request)?;
+    let ctx = Context {
+        characteristic: found.characteristic.name.clone(),
+        unit: found.characteristic.unit.clone(),
+        factor: found.factor.clone(),
+        origin: found.origin.to_f64(),
+        event: found.event.as_ref().map(|e| (e.id, e.note.clone())),
+        window_start_ms: found.start.timestamp_millis(),
+        window_end_ms: found.end.timestamp_millis(),
+    };
+    let text = match &found.outcome {
+        Outcome::BeforeAfter(c) => {
+            if args.json {
+                serde_json::to_string_pretty(&compare_json(&ctx, c)).unwrap_or_default()
+            } else {
+                render_compare(&ctx, c)
+            }
+        }
+        Outcome::Scan { scans, nearest } => {
+            let near: Vec<Vec<Vec<NearEvent>>> = nearest
+                .iter()
+                .map(|g| {
+                    g.iter()
+                        .map(|cp| {
+                            cp.iter()
+                                .map(|e| NearEvent {
+                                    id: e.id,
+                                    at_ms: e.at.timestamp_millis(),
+                                    note: e.note.clone(),
+                                })
+                                .collect()
+                        })
+                        .collect()
+                })
+                .collect();
+            if args.json {
+                serde_json::to_string_pretty(&scan_json(&ctx, scans, &near)).unwrap_or_default()
+            } else {
+                render_scan(&ctx, scans, &near)
+            }
+        }
+    };
+    let mut out = std::io::stdout().lock();
+    match writeln!(out, "{}", text.trim_end()) {
+        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => Err(Error::Io {
+            path: PathBuf::from("<stdout>"),
+            source: e,
+        }),
+        _ => Ok(ExitCode::from(super::EXIT_OK)),
+    }
+}
 
 /// What the report is about (names, units, the change and the window).
 #[derive(Debug, Clone, PartialEq)]

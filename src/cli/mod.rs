@@ -52,6 +52,8 @@ pub enum Command {
     Event(event::EventArgs),
     /// Check or back up the database.
     Db(db::DbArgs),
+    /// Before vs after a process change per group (two-way ANOVA), or a change-point scan.
+    Investigate(investigate::InvestigateArgs),
     /// Write the deterministic benchmark plant (CSV + configuration).
     #[command(hide = true)]
     GenerateBenchData(import::GenerateArgs),
@@ -79,6 +81,7 @@ pub fn run(args: Args) -> crate::Result<ExitCode> {
         Command::Status(a) => status::run(&a),
         Command::Event(a) => event::run(&a),
         Command::Db(a) => db::run(&a),
+        Command::Investigate(a) => investigate::run(&a, chrono::Utc::now()),
         Command::GenerateBenchData(a) => import::generate(&a),
         Command::Completions { shell } => {
             let mut cmd = <Args as clap::CommandFactory>::command();

@@ -389,6 +389,15 @@ fn term_row(ss: f64, df: usize, residual: &Residual, name: &str) -> Stat<TermRow
     })
 }
 
+/// A p-value for a sentence: 3 significant digits, exponent form below 0.001.
+fn p_text(p: f64) -> String {
+    if p < 1e-3 {
+        format!("{p:.2e}")
+    } else {
+        format!("{p:.3}")
+    }
+}
+
 /// Two-way ANOVA with interaction from cell summaries `cells[i][j]` (A level i, B level j).
 ///
 /// `alpha` is the level at which the interaction counts as present when choosing the leading type
@@ -531,16 +540,18 @@ pub fn two_way(cells: &[Vec<Summary>], alpha: f64) -> Stat<TwoWay> {
             Some(p) if p < alpha => (
                 SsType::TypeIII,
                 format!(
-                    "unbalanced data with an interaction (p = {p:.3} < {alpha}): type III tests equal \
+                    "unbalanced data with an interaction (p = {} < {alpha}): type III tests equal \
                      unweighted marginal means; read the main effects as averages and look at the \
-                     per-group shifts"
+                     per-group shifts",
+                    p_text(p)
                 ),
             ),
             Some(p) => (
                 SsType::TypeII,
                 format!(
-                    "unbalanced data, interaction not significant (p = {p:.3} >= {alpha}): type II tests \
-                     each main effect adjusted for the other and has more power than type III"
+                    "unbalanced data, interaction not significant (p = {} >= {alpha}): type II tests \
+                     each main effect adjusted for the other and has more power than type III",
+                    p_text(p)
                 ),
             ),
             None => (
