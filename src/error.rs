@@ -48,6 +48,13 @@ pub enum Error {
     },
     /// A command-line argument or combination is wrong.
     Usage(String),
+    /// The same file content was imported before (refused unless `--force`).
+    AlreadyImported {
+        /// The file being imported.
+        path: PathBuf,
+        /// The earlier import, described.
+        earlier: String,
+    },
     /// A chart could not be drawn (bad input to the chart or a drawing failure).
     Chart {
         /// Which chart (for example "trend bore diameter by machine").
@@ -84,6 +91,12 @@ impl fmt::Display for Error {
                 reason,
             } => write!(f, "not enough data for {characteristic}: {reason}"),
             Error::Usage(msg) => f.write_str(msg),
+            Error::AlreadyImported { path, earlier } => write!(
+                f,
+                "{}: the same content was already imported as {earlier}; nothing was imported \
+                 (use --force to import it again)",
+                path.display()
+            ),
             Error::Chart { chart, reason } => write!(f, "chart {chart}: {reason}"),
         }
     }

@@ -9,7 +9,13 @@ use clap::{Parser, Subcommand};
 
 use crate::Error;
 
+pub mod common;
 pub mod compare;
+pub mod db;
+pub mod event;
+pub mod import;
+pub mod init;
+pub mod status;
 
 /// Exit code: finished, nothing flagged.
 pub const EXIT_OK: u8 = 0;
@@ -32,6 +38,19 @@ pub struct Args {
 pub enum Command {
     /// Compare the groups of one CSV file: one-way ANOVA, checks, Welch, Kruskal-Wallis and more.
     Compare(compare::CompareArgs),
+    /// Create the plant database from the configuration, or bring it up to date.
+    Init(init::InitArgs),
+    /// Import CSV exports; each file goes in completely or not at all.
+    Import(import::ImportArgs),
+    /// Show what the database holds.
+    Status(status::StatusArgs),
+    /// Record and list process-change events.
+    Event(event::EventArgs),
+    /// Check or back up the database.
+    Db(db::DbArgs),
+    /// Write the deterministic benchmark plant (CSV + configuration).
+    #[command(hide = true)]
+    GenerateBenchData(import::GenerateArgs),
     /// Print a shell completion script (bash, zsh or fish) to stdout.
     Completions {
         /// The shell.
@@ -50,6 +69,12 @@ impl Args {
 pub fn run(args: Args) -> crate::Result<ExitCode> {
     match args.command {
         Command::Compare(compare_args) => compare::run(&compare_args),
+        Command::Init(a) => init::run(&a),
+        Command::Import(a) => import::run(&a),
+        Command::Status(a) => status::run(&a),
+        Command::Event(a) => event::run(&a),
+        Command::Db(a) => db::run(&a),
+        Command::GenerateBenchData(a) => import::generate(&a),
         Command::Completions { shell } => {
             let mut cmd = <Args as clap::CommandFactory>::command();
             let mut out = std::io::stdout().lock();

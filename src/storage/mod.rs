@@ -1,4 +1,157 @@
 //! All SQLite code: opening, migrations, typed queries and the mapping between rows and `model`
-//! types. No other module contains SQL.
+//! types. No other module contains SQL, so a server database can later stand behind the same
+//! [`Store`] interface.
+//!
+//! Start at [`Store`]. Its parts:
+//! - [`migrate`]: the numbered files of `migrations/`, embedded and applied in order;
+//! - `master`: characteristics, factors, levels and level sets, kept in step with the plant
+//!   configuration by [`Store::sync_config`];
+//! - `import`: [`Store::import`], one transaction per file, every row stored or rejected;
+//! - `query`: [`Store::load_period`], the analysis read path, columnar and in one pass;
+//! - `events`: process changes ([`Store::add_event`], [`Store::events`]);
+//! - `maintenance`: status, integrity check and online backup.
+//!
+//! Values are stored as `f64` offsets from an exact decimal origin per characteristic (the first
+//! value ever stored for it, the same centring as `stats::decimal::centre`), so data such as
+//! 1000000000000.4 and 1000000000000.3 keep every digit; see `migrations/0001_initial.sql`.
 
+mod events;
+mod import;
+mod maintenance;
+mod master;
+pub mod migrate;
+mod query;
 pub mod runs;
+
+pub use events::{Event, NewEvent};
+pub use import::{ImportOptions, ImportReport, PriorImport};
+pub use maintenance::{CharacteristicStatus, IntegrityReport, Status};
+pub use master::{StoredCharacteristic, StoredFactor, SyncReport};
+pub use query::{exact_value, CharacteristicFrame, FactorLevels, PeriodFrame};
+
+use std::path::{Path, PathBuf};
+use std::time::Duration;
+
+use rusqlite::{Connection, OpenFlags};
+
+use crate::{Error, Result};
+
+/// How long a connection waits for another process's lock before giving up.
+pub const BUSY_TIMEOUT: Duration = Duration::from_secs(60);
+
+/// Page cache per connection, in KiB (SQLite's negative `cache_size`).
+const CACHE_KIB: i64 = 64 * 1024;
+
+/// The plant database.
+///
+/// One `Store` is one SQLite connection. Several processes may use the same database file at the
+/// same time: WAL mode lets readers proceed while an import writes, and a busy timeout makes a
+/// second writer wait rather than fail.
+pub struct Store {
+    pub(crate) conn: Connection,
+    path: Option<PathBuf>,
+    /// Level set id -> level index per configured factor, filled lazily by `load_period`.
+    pub(crate) level_cache: std::cell::RefCell<query::LevelCache>,
+}
+
+impl std::fmt::Debug for Store {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("Store").field("path", &self.path).finish()
+    }
+}
+
+impl Store {
+    /// Opens an existing database and applies pending migrations.
+    ///
+    /// A missing file is an error that suggests `samewise init` (which calls [`Store::create`]);
+    /// a database written by a newer samewise is refused without being changed.
+    pub fn open(path: impl AsRef<Path>) -> Result<Store> {
+        let path = path.as_ref();
+        if !path.exists() {
+            return Err(Error::Database(format!(
+                "no database at {}: run `samewise init` to create it from the plant configuration",
+                path.display()
+            )));
+        }
+        let flags = OpenFlags::SQLITE_OPEN_READ_WRITE
+            | OpenFlags::SQLITE_OPEN_URI
+            | OpenFlags::SQLITE_OPEN_NO_MUTEX;
+        let conn = Connection::open_with_flags(path, flags)?;
+        Store::from_connection(conn, Some(path.to_path_buf()))
+    }
+
+    /// Opens the database at `path`, creating the file if it does not exist, and applies pending
+    /// migrations. `samewise init` uses this, then [`Store::sync_config`].
+    pub fn open_or_create(path: impl AsRef<Path>) -> Result<Store> {
+        let path = path.as_ref();
+        if let Some(parent) = path.parent() {
+            if !parent.as_os_str().is_empty() && !parent.exists() {
+                std::fs::create_dir_all(parent).map_err(|e| Error::io(parent, e))?;
+            }
+        }
+        let conn = Connection::open(path)?;
+        Store::from_connection(conn, Some(path.to_path_buf()))
+    }
+
+    /// A fresh database in memory with every migration applied (for tests and dry runs).
+    pub fn open_in_memory() -> Result<Store> {
+        Store::from_connection(Connection::open_in_memory()?, None)
+    }
+
+    fn from_connection(mut conn: Connection, path: Option<PathBuf>) -> Result<Store> {
+        let what = match &path {
+            Some(p) => format!("database {}", p.display()),
+            None => "in-memory database".to_string(),
+        };
+        configure(&conn, path.is_some()).map_err(|e| match e {
+            rusqlite::Error::SqliteFailure(code, _)
+                if code.code == rusqlite::ErrorCode::NotADatabase =>
+            {
+                Error::Database(format!("{what} is not a samewise database (not SQLite)"))
+            }
+            other => Error::Storage(other),
+        })?;
+        migrate::migrate(&mut conn, &what)?;
+        Ok(Store {
+            conn,
+            path,
+            level_cache: Default::default(),
+        })
+    }
+
+    /// The database file, or `None` in memory.
+    pub fn path(&self) -> Option<&Path> {
+        self.path.as_deref()
+    }
+
+    /// The schema version of the database (`PRAGMA user_version`).
+    pub fn schema_version(&self) -> Result<u32> {
+        migrate::schema_version(&self.conn)
+    }
+}
+
+/// Per-connection settings, set every time a connection opens (never inside a migration).
+fn configure(conn: &Connection, is_file: bool) -> rusqlite::Result<()> {
+    conn.busy_timeout(BUSY_TIMEOUT)?;
+    if is_file {
+        // journal_mode answers with the mode in force; WAL persists in the file once set.
+        let mode: String = conn.query_row("PRAGMA journal_mode = WAL", [], |row| row.get(0))?;
+        if !mode.eq_ignore_ascii_case("wal") {
+            return Err(rusqlite::Error::SqliteFailure(
+                rusqlite::ffi::Error::new(rusqlite::ffi::SQLITE_CANTOPEN),
+                Some(format!(
+                    "could not switch the database to WAL mode (got {mode})"
+                )),
+            ));
+        }
+        // Under WAL, NORMAL is durable against application crashes and keeps every commit
+        // atomic; a power cut can lose at most the last commits, never corrupt the file.
+        conn.pragma_update(None, "synchronous", "NORMAL")?;
+        // A large import leaves a large WAL; truncate it back after checkpoints.
+        conn.pragma_update(None, "journal_size_limit", 64 * 1024 * 1024)?;
+    }
+    conn.pragma_update(None, "foreign_keys", "ON")?;
+    conn.pragma_update(None, "cache_size", -CACHE_KIB)?;
+    conn.pragma_update(None, "temp_store", "MEMORY")?;
+    Ok(())
+}

@@ -1,0 +1,50 @@
+//! Helpers shared by the subcommands (owned by the store engineer): finding the plant
+//! configuration and opening its database.
+//!
+//! The configuration is found, in order, from `--config FILE`, the `SAMEWISE_CONFIG` environment
+//! variable, or `plant.toml` in the current directory.
+
+use std::path::{Path, PathBuf};
+
+use crate::config::Config;
+use crate::storage::Store;
+use crate::{Error, Result};
+
+/// The environment variable naming the configuration file.
+pub const CONFIG_ENV: &str = "SAMEWISE_CONFIG";
+
+/// Where the configuration file is: `--config`, then `$SAMEWISE_CONFIG`, then `./plant.toml`.
+pub fn config_path(flag: Option<&Path>) -> Result<PathBuf> {
+    if let Some(path) = flag {
+        return Ok(path.to_path_buf());
+    }
+    if let Some(path) = std::env::var_os(CONFIG_ENV).filter(|v| !v.is_empty()) {
+        return Ok(PathBuf::from(path));
+    }
+    let default = PathBuf::from("plant.toml");
+    if default.exists() {
+        return Ok(default);
+    }
+    Err(Error::Usage(format!(
+        "no plant configuration: pass --config FILE, set {CONFIG_ENV}, or put plant.toml in the \
+         current directory (sample-plant/plant.toml is an example)"
+    )))
+}
+
+/// Finds and loads the configuration (see [`config_path`]).
+pub fn load_config(flag: Option<&Path>) -> Result<Config> {
+    let path = config_path(flag)?;
+    if !path.exists() {
+        return Err(Error::Usage(format!(
+            "the plant configuration {} does not exist",
+            path.display()
+        )));
+    }
+    Config::load(&path)
+}
+
+/// Opens the configuration's existing database (an error suggesting `samewise init` if there is
+/// none yet).
+pub fn open_store(config: &Config) -> Result<Store> {
+    Store::open(&config.plant.database)
+}

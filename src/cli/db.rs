@@ -1,0 +1,73 @@
+//! `samewise db check` (integrity check, counts, orphan rows) and `samewise db backup PATH`
+//! (SQLite online backup, safe while other processes use the database).
+
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+use clap::{Args, Subcommand};
+
+use crate::Result;
+
+use super::common::{load_config, open_store};
+
+/// Arguments of `samewise db`.
+#[derive(Debug, Args)]
+pub struct DbArgs {
+    /// The plant configuration (default: $SAMEWISE_CONFIG, then ./plant.toml).
+    #[arg(long, value_name = "FILE", global = true)]
+    pub config: Option<PathBuf>,
+    /// What to do.
+    #[command(subcommand)]
+    pub action: DbAction,
+}
+
+/// `samewise db` actions.
+#[derive(Debug, Subcommand)]
+pub enum DbAction {
+    /// Check the database: SQLite integrity, foreign keys, import counts; print row counts.
+    Check,
+    /// Copy the database to PATH with SQLite's online backup (safe while it is in use).
+    Backup {
+        /// The new file.
+        path: PathBuf,
+    },
+}
+
+/// Runs `samewise db`.
+pub fn run(args: &DbArgs) -> Result<ExitCode> {
+    let config = load_config(args.config.as_deref())?;
+    let store = open_store(&config)?;
+    match &args.action {
+        DbAction::Check => {
+            let report = store.integrity_check()?;
+            for (table, n) in &report.counts {
+                println!("{table}: {n}");
+            }
+            println!("integrity: {}", report.integrity.join("; "));
+            for v in &report.foreign_keys {
+                println!("orphan row: {v}");
+            }
+            for p in &report.problems {
+                println!("problem: {p}");
+            }
+            if report.is_ok() {
+                println!("database is sound");
+                Ok(ExitCode::from(super::EXIT_OK))
+            } else {
+                Err(crate::Error::Database(format!(
+                    "{} failed the check (see above)",
+                    config.plant.database.display()
+                )))
+            }
+        }
+        DbAction::Backup { path } => {
+            store.backup(path)?;
+            println!(
+                "backed up {} to {}",
+                config.plant.database.display(),
+                path.display()
+            );
+            Ok(ExitCode::from(super::EXIT_OK))
+        }
+    }
+}

@@ -1,0 +1,285 @@
+//! `samewise import FILE... [--layout NAME] [--force] [--add-new] [--rejects FILE.csv]`, and the
+//! hidden `samewise generate-bench-data` that writes the deterministic benchmark plant.
+//!
+//! Each file is one transaction: it goes in completely or not at all. The summary gives rows
+//! read, accepted, rejected, the first rejections and the counts by reason; `--rejects` writes
+//! every rejection of the run to a CSV file.
+
+use std::io::{BufWriter, Write};
+use std::path::{Path, PathBuf};
+use std::process::ExitCode;
+
+use clap::Args;
+
+use crate::ingest::{self, ReadOptions};
+use crate::storage::{ImportOptions, Store};
+use crate::{Error, Result};
+
+use super::common::load_config;
+
+/// Arguments of `samewise import`.
+#[derive(Debug, Args)]
+pub struct ImportArgs {
+    /// CSV files to import (each one is one transaction).
+    #[arg(required = true, value_name = "FILE")]
+    pub files: Vec<PathBuf>,
+    /// The plant configuration (default: $SAMEWISE_CONFIG, then ./plant.toml).
+    #[arg(long, value_name = "FILE")]
+    pub config: Option<PathBuf>,
+    /// Layout name from the configuration (default: detected from the header).
+    #[arg(long, value_name = "NAME")]
+    pub layout: Option<String>,
+    /// Import a file even if the same content was imported before.
+    #[arg(long)]
+    pub force: bool,
+    /// Accept characteristics that are not in the configuration (they are added).
+    #[arg(long)]
+    pub add_new: bool,
+    /// Write every rejected row to this CSV file (file, line, column, reason, raw).
+    #[arg(long, value_name = "FILE.csv")]
+    pub rejects: Option<PathBuf>,
+}
+
+fn csv_field(text: &str) -> String {
+    if text.contains([',', '"', '\n', '\r']) {
+        format!("\"{}\"", text.replace('"', "\"\""))
+    } else {
+        text.to_string()
+    }
+}
+
+/// Runs `samewise import`.
+pub fn run(args: &ImportArgs) -> Result<ExitCode> {
+    let config = load_config(args.config.as_deref())?;
+    let mut store = super::common::open_store(&config)?;
+    // The configuration is the truth for characteristics and factors: bring the database in step.
+    store.sync_config(&config)?;
+    let mut rejects = match &args.rejects {
+        Some(path) => {
+            let file = std::fs::File::create(path).map_err(|e| Error::io(path, e))?;
+            let mut w = BufWriter::new(file);
+            writeln!(w, "file,line,column,reason,raw").map_err(|e| Error::io(path, e))?;
+            Some((path.clone(), w))
+        }
+        None => None,
+    };
+    let mut failures = 0;
+    for file in &args.files {
+        match import_one(&mut store, &config, args, file, rejects.as_mut()) {
+            Ok(()) => {}
+            Err(e) => {
+                failures += 1;
+                super::report_error(&e);
+            }
+        }
+    }
+    if let Some((path, mut w)) = rejects {
+        w.flush().map_err(|e| Error::io(&path, e))?;
+        println!("rejected rows written to {}", path.display());
+    }
+    if failures > 0 {
+        return Err(Error::Usage(format!(
+            "{failures} of {} files were not imported (see above)",
+            args.files.len()
+        )));
+    }
+    Ok(ExitCode::from(super::EXIT_OK))
+}
+
+fn import_one(
+    store: &mut Store,
+    config: &crate::config::Config,
+    args: &ImportArgs,
+    file: &Path,
+    rejects: Option<&mut (PathBuf, BufWriter<std::fs::File>)>,
+) -> Result<()> {
+    // Refuse a duplicate before reading the whole file (the import checks again at its end).
+    if !args.force {
+        let sha256 = ingest::file_sha256(file)?;
+        if let Some(prior) = store.find_import_by_sha256(&sha256)? {
+            return Err(Error::AlreadyImported {
+                path: file.to_path_buf(),
+                earlier: prior.to_string(),
+            });
+        }
+    }
+    let stream = ingest::read_file_with(
+        file,
+        config,
+        &ReadOptions {
+            layout: args.layout.clone(),
+            add_new: args.add_new,
+        },
+    )?;
+    let report = store.import(
+        stream,
+        &ImportOptions {
+            force: args.force,
+            started_at: chrono::Utc::now(),
+        },
+    )?;
+    println!(
+        "{}: import #{} (layout {}): {} rows read, {} measurements: {} accepted, {} rejected ({:.1} s)",
+        file.display(),
+        report.import_id,
+        report.layout,
+        report.rows_read,
+        report.measurements_read,
+        report.accepted,
+        report.rejected,
+        report.elapsed.as_secs_f64()
+    );
+    if let Some(prior) = &report.forced_over {
+        println!("  imported again with --force; the same content is also {prior}");
+    }
+    if !report.new_characteristics.is_empty() {
+        println!(
+            "  new characteristics: {}",
+            report.new_characteristics.join(", ")
+        );
+    }
+    if report.rejected > 0 {
+        println!("  first rejections:");
+        for r in &report.first_rejections {
+            let column = r
+                .column
+                .as_deref()
+                .map(|c| format!(" column \"{c}\""))
+                .unwrap_or_default();
+            println!("    line {}{column}: {}", r.line, r.reason);
+        }
+        println!("  rejections by reason:");
+        for (reason, n) in &report.reasons {
+            println!("    {n:>8}  {reason}");
+        }
+    }
+    if let Some((path, w)) = rejects {
+        let rows = store.rejected_rows(report.import_id)?;
+        let name = file.display().to_string();
+        for r in rows {
+            writeln!(
+                w,
+                "{},{},{},{},{}",
+                csv_field(&name),
+                r.line,
+                csv_field(r.column.as_deref().unwrap_or("")),
+                csv_field(&r.reason),
+                csv_field(&r.raw)
+            )
+            .map_err(|e| Error::io(path.as_path(), e))?;
+        }
+    }
+    Ok(())
+}
+
+/// Arguments of the hidden `samewise generate-bench-data`.
+#[derive(Debug, Args)]
+pub struct GenerateArgs {
+    /// Data rows (one measurement each).
+    #[arg(long, default_value_t = 10_000_000)]
+    pub rows: u64,
+    /// Characteristics (taken in turn).
+    #[arg(long, default_value_t = 50)]
+    pub characteristics: u32,
+    /// Grouping factors (columns machine, line, supplier, operator, lot, factor6, ...).
+    #[arg(long, default_value_t = 5)]
+    pub factors: u32,
+    /// Days the rows are spread over, starting 2026-11-02 06:00 UTC.
+    #[arg(long, default_value_t = 30)]
+    pub days: u32,
+    /// The CSV file to write; a matching `<FILE>.plant.toml` is written beside it.
+    #[arg(long)]
+    pub out: PathBuf,
+}
+
+/// Writes the deterministic benchmark plant: a long-format CSV and its configuration.
+///
+/// Fixed random state (a 64-bit LCG, Knuth's MMIX constants, state 0x5A3E_2026): the same
+/// arguments give the same bytes. Values are 3-decimal readings around `10 + characteristic`;
+/// levels are drawn uniformly per row.
+pub fn generate(args: &GenerateArgs) -> Result<ExitCode> {
+    const FACTOR_NAMES: [(&str, &str, u32); 5] = [
+        ("machine", "M", 8),
+        ("line", "L", 4),
+        ("supplier", "S", 5),
+        ("operator", "OP", 12),
+        ("lot", "LOT", 40),
+    ];
+    let factor = |i: u32| -> (String, String, u32) {
+        match FACTOR_NAMES.get(i as usize) {
+            Some((n, p, k)) => (n.to_string(), p.to_string(), *k),
+            None => (format!("factor{}", i + 1), format!("F{}_", i + 1), 6),
+        }
+    };
+    let out = &args.out;
+    let file = std::fs::File::create(out).map_err(|e| Error::io(out, e))?;
+    let mut w = BufWriter::with_capacity(1 << 20, file);
+    let io = |e| Error::io(out, e);
+    write!(w, "timestamp,characteristic,value").map_err(io)?;
+    for f in 0..args.factors {
+        write!(w, ",{}", factor(f).0).map_err(io)?;
+    }
+    writeln!(w).map_err(io)?;
+    let start_ms: i64 = 1_793_599_200_000; // 2026-11-02T06:00:00Z
+    let span_ms = args.days.max(1) as i64 * 86_400_000;
+    let mut state: u64 = 0x5A3E_2026;
+    let mut next = || {
+        state = state
+            .wrapping_mul(6_364_136_223_846_793_005)
+            .wrapping_add(1_442_695_040_888_963_407);
+        state >> 16
+    };
+    for row in 0..args.rows {
+        let ts = start_ms + (row as i128 * span_ms as i128 / args.rows.max(1) as i128) as i64;
+        let t = chrono::DateTime::from_timestamp_millis(ts).unwrap_or_default();
+        let c = (row % args.characteristics.max(1) as u64) as u32;
+        let noise = (next() % 2001) as i64 - 1000; // -1.000 ..= 1.000
+        let milli = (10 + c as i64) * 1000 + noise / 10;
+        write!(
+            w,
+            "{},char{:02},{}.{:03}",
+            t.format("%Y-%m-%dT%H:%M:%S%.3fZ"),
+            c + 1,
+            milli / 1000,
+            milli % 1000
+        )
+        .map_err(io)?;
+        for f in 0..args.factors {
+            let (_, prefix, k) = factor(f);
+            write!(w, ",{prefix}{}", next() % k as u64 + 1).map_err(io)?;
+        }
+        writeln!(w).map_err(io)?;
+    }
+    w.flush().map_err(io)?;
+    let config_path = PathBuf::from(format!("{}.plant.toml", out.display()));
+    let db_name = format!(
+        "{}.db",
+        out.file_name()
+            .map(|n| n.to_string_lossy().into_owned())
+            .unwrap_or_default()
+    );
+    let mut toml = format!(
+        "# Benchmark plant written by `samewise generate-bench-data` (invented data).\n\
+         [plant]\nname = \"Benchmark plant\"\ntime_zone = \"Europe/Berlin\"\n\
+         production_day_start = \"06:00\"\ndatabase = \"{db_name}\"\n\n"
+    );
+    for c in 0..args.characteristics {
+        toml.push_str(&format!(
+            "[[characteristic]]\nname = \"char{:02}\"\nunit = \"mm\"\nlsl = {}\nusl = {}\n\n",
+            c + 1,
+            9 + c,
+            11 + c
+        ));
+    }
+    for f in 0..args.factors {
+        toml.push_str(&format!("[[factor]]\nname = \"{}\"\n\n", factor(f).0));
+    }
+    std::fs::write(&config_path, toml).map_err(|e| Error::io(&config_path, e))?;
+    println!(
+        "wrote {} ({} rows) and {}",
+        out.display(),
+        args.rows,
+        config_path.display()
+    );
+    Ok(ExitCode::from(super::EXIT_OK))
+}

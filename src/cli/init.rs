@@ -1,0 +1,64 @@
+//! `samewise init`: create the plant database from the configuration, or bring an existing one
+//! up to date (new migrations; new and changed characteristics and factors). Measurements are
+//! never touched.
+
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+use clap::Args;
+
+use crate::storage::{migrate, Store};
+use crate::Result;
+
+use super::common::load_config;
+
+/// Arguments of `samewise init`.
+#[derive(Debug, Args)]
+pub struct InitArgs {
+    /// The plant configuration (default: $SAMEWISE_CONFIG, then ./plant.toml).
+    #[arg(long, value_name = "FILE")]
+    pub config: Option<PathBuf>,
+}
+
+/// Runs `samewise init`.
+pub fn run(args: &InitArgs) -> Result<ExitCode> {
+    let config = load_config(args.config.as_deref())?;
+    let db = &config.plant.database;
+    let existed = db.exists();
+    let before = if existed {
+        Some(Store::open(db)?.schema_version()?)
+    } else {
+        None
+    };
+    let mut store = Store::open_or_create(db)?;
+    let report = store.sync_config(&config)?;
+    let version = store.schema_version()?;
+    match before {
+        None => println!("created {} (schema version {version})", db.display()),
+        Some(v) if v < migrate::latest_version() => {
+            println!("updated {}: schema version {v} -> {version}", db.display())
+        }
+        Some(_) => println!("{} is at schema version {version}", db.display()),
+    }
+    let list = |label: &str, names: &[String]| {
+        if !names.is_empty() {
+            println!("{label} ({}): {}", names.len(), names.join(", "));
+        }
+    };
+    list("characteristics added", &report.characteristics_added);
+    list("characteristics updated", &report.characteristics_updated);
+    list(
+        "characteristics kept but not in the configuration",
+        &report.characteristics_not_configured,
+    );
+    list("factors added", &report.factors_added);
+    list("factors updated", &report.factors_updated);
+    list(
+        "factors kept but not in the configuration",
+        &report.factors_not_configured,
+    );
+    if existed && report.is_unchanged() {
+        println!("characteristics and factors already match the configuration");
+    }
+    Ok(ExitCode::from(super::EXIT_OK))
+}

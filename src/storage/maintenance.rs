@@ -1,0 +1,229 @@
+//! Status, integrity check and online backup of the plant database.
+
+use std::path::Path;
+use std::time::Duration;
+
+use chrono::{DateTime, TimeZone, Utc};
+use rusqlite::backup::Backup;
+use rusqlite::Connection;
+
+use crate::{Error, Result};
+
+use super::import::PriorImport;
+use super::Store;
+
+/// Stored rows of one characteristic.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct CharacteristicStatus {
+    /// Name.
+    pub name: String,
+    /// Measurements stored.
+    pub n_obs: u64,
+    /// First and last measurement instant.
+    pub first: Option<DateTime<Utc>>,
+    /// Last measurement instant.
+    pub last: Option<DateTime<Utc>>,
+    /// Whether the configuration lists it.
+    pub is_configured: bool,
+    /// Whether periodic checks include it.
+    pub is_active: bool,
+}
+
+/// What `samewise status` shows.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Status {
+    /// `PRAGMA user_version`.
+    pub schema_version: u32,
+    /// Per characteristic.
+    pub characteristics: Vec<CharacteristicStatus>,
+    /// Imports recorded.
+    pub n_imports: u64,
+    /// The latest import.
+    pub last_import: Option<PriorImport>,
+    /// Rejected rows stored, over all imports.
+    pub n_rejected: u64,
+    /// Events recorded.
+    pub n_events: u64,
+}
+
+/// What `samewise db check` found.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct IntegrityReport {
+    /// `PRAGMA integrity_check` messages (`["ok"]` when sound).
+    pub integrity: Vec<String>,
+    /// `PRAGMA foreign_key_check` violations, as `table rowid -> parent`.
+    pub foreign_keys: Vec<String>,
+    /// Other consistency problems: imports whose counts disagree with the stored rows, level
+    /// sets without members.
+    pub problems: Vec<String>,
+    /// Row counts per table.
+    pub counts: Vec<(String, u64)>,
+}
+
+impl IntegrityReport {
+    /// Whether nothing is wrong.
+    pub fn is_ok(&self) -> bool {
+        self.integrity == ["ok"] && self.foreign_keys.is_empty() && self.problems.is_empty()
+    }
+}
+
+fn from_ms(ms: i64) -> DateTime<Utc> {
+    Utc.timestamp_millis_opt(ms).single().unwrap_or_default()
+}
+
+fn count(conn: &Connection, sql: &str) -> Result<u64> {
+    Ok(conn.query_row(sql, [], |r| r.get::<_, i64>(0))? as u64)
+}
+
+impl Store {
+    /// Row counts per characteristic, date range, last import, rejected rows, schema version.
+    pub fn status(&self) -> Result<Status> {
+        let mut stmt = self.conn.prepare(
+            "SELECT c.name, c.is_configured, c.is_active, \
+               (SELECT count(*) FROM measurements m WHERE m.characteristic_id = c.id), \
+               (SELECT min(ts_ms) FROM measurements m WHERE m.characteristic_id = c.id), \
+               (SELECT max(ts_ms) FROM measurements m WHERE m.characteristic_id = c.id) \
+             FROM characteristics c ORDER BY c.id",
+        )?;
+        let characteristics = stmt
+            .query_map([], |r| {
+                Ok(CharacteristicStatus {
+                    name: r.get(0)?,
+                    is_configured: r.get(1)?,
+                    is_active: r.get(2)?,
+                    n_obs: r.get::<_, i64>(3)? as u64,
+                    first: r.get::<_, Option<i64>>(4)?.map(from_ms),
+                    last: r.get::<_, Option<i64>>(5)?.map(from_ms),
+                })
+            })?
+            .collect::<rusqlite::Result<_>>()?;
+        let last_import = self
+            .conn
+            .query_row(
+                "SELECT id, file_name, started_ms, accepted FROM imports ORDER BY id DESC LIMIT 1",
+                [],
+                |r| {
+                    Ok(PriorImport {
+                        id: r.get(0)?,
+                        file_name: r.get(1)?,
+                        started_at: from_ms(r.get(2)?),
+                        accepted: r.get::<_, i64>(3)? as u64,
+                    })
+                },
+            )
+            .ok();
+        Ok(Status {
+            schema_version: self.schema_version()?,
+            characteristics,
+            n_imports: count(&self.conn, "SELECT count(*) FROM imports")?,
+            last_import,
+            n_rejected: count(&self.conn, "SELECT count(*) FROM rejected_rows")?,
+            n_events: count(&self.conn, "SELECT count(*) FROM events")?,
+        })
+    }
+
+    /// SQLite's integrity check, the foreign-key check, and samewise's own consistency checks.
+    pub fn integrity_check(&self) -> Result<IntegrityReport> {
+        let integrity: Vec<String> = self
+            .conn
+            .prepare("PRAGMA integrity_check")?
+            .query_map([], |r| r.get(0))?
+            .collect::<rusqlite::Result<_>>()?;
+        let foreign_keys: Vec<String> = self
+            .conn
+            .prepare("PRAGMA foreign_key_check")?
+            .query_map([], |r| {
+                Ok(format!(
+                    "{} row {} -> {}",
+                    r.get::<_, String>(0)?,
+                    r.get::<_, Option<i64>>(1)?
+                        .map_or("?".to_string(), |v| v.to_string()),
+                    r.get::<_, String>(2)?
+                ))
+            })?
+            .collect::<rusqlite::Result<_>>()?;
+        let mut problems = Vec::new();
+        let mut stmt = self.conn.prepare(
+            "SELECT i.id, i.file_name, i.accepted, i.rejected, \
+               (SELECT count(*) FROM measurements m WHERE m.import_id = i.id), \
+               (SELECT count(*) FROM rejected_rows r WHERE r.import_id = i.id) \
+             FROM imports i ORDER BY i.id",
+        )?;
+        let rows = stmt.query_map([], |r| {
+            Ok((
+                r.get::<_, i64>(0)?,
+                r.get::<_, String>(1)?,
+                r.get::<_, i64>(2)?,
+                r.get::<_, i64>(3)?,
+                r.get::<_, i64>(4)?,
+                r.get::<_, i64>(5)?,
+            ))
+        })?;
+        for row in rows {
+            let (id, file, accepted, rejected, stored, stored_rejected) = row?;
+            if accepted != stored || rejected != stored_rejected {
+                problems.push(format!(
+                    "import #{id} ({file}) recorded {accepted} accepted and {rejected} rejected, \
+                     but {stored} measurements and {stored_rejected} rejected rows are stored"
+                ));
+            }
+        }
+        let empty_sets = count(
+            &self.conn,
+            "SELECT count(*) FROM level_sets s WHERE (SELECT count(*) FROM factors) > 0 \
+             AND NOT EXISTS (SELECT 1 FROM level_set_members m WHERE m.level_set_id = s.id)",
+        )?;
+        if empty_sets > 0 {
+            problems.push(format!("{empty_sets} level sets have no members"));
+        }
+        let mut counts = Vec::new();
+        for table in [
+            "characteristics",
+            "factors",
+            "levels",
+            "level_sets",
+            "imports",
+            "measurements",
+            "rejected_rows",
+            "events",
+        ] {
+            counts.push((
+                table.to_string(),
+                count(&self.conn, &format!("SELECT count(*) FROM {table}"))?,
+            ));
+        }
+        Ok(IntegrityReport {
+            integrity,
+            foreign_keys,
+            problems,
+            counts,
+        })
+    }
+
+    /// Copies the database to `dest` with SQLite's online backup API: safe while other
+    /// processes read and write; the copy is one consistent snapshot. `dest` must not exist.
+    pub fn backup(&self, dest: impl AsRef<Path>) -> Result<()> {
+        let dest = dest.as_ref();
+        if dest.exists() {
+            return Err(Error::Usage(format!(
+                "{} already exists; choose a new file for the backup",
+                dest.display()
+            )));
+        }
+        let mut target = Connection::open(dest)?;
+        {
+            let backup = Backup::new(&self.conn, &mut target)?;
+            // Copy in steps so writers are not blocked for the whole copy; a write by another
+            // connection restarts the copy, which the loop runs to completion.
+            backup.run_to_completion(1024, Duration::from_millis(5), None)?;
+        }
+        let check: String = target.query_row("PRAGMA integrity_check", [], |r| r.get(0))?;
+        if check != "ok" {
+            return Err(Error::Database(format!(
+                "the backup {} failed its integrity check: {check}",
+                dest.display()
+            )));
+        }
+        Ok(())
+    }
+}

@@ -1,0 +1,94 @@
+//! Schema migrations: the numbered SQL files of `migrations/`, embedded in the binary.
+//!
+//! [`MIGRATIONS`] lists them in order. Opening a database applies the pending ones (those past
+//! `PRAGMA user_version`) in one transaction and sets `user_version` to the number applied in
+//! total, so a database is always at a whole schema version. A database whose `user_version` is
+//! larger than this build knows was written by a newer samewise and is refused untouched.
+//!
+//! Adding a migration: create `migrations/NNNN_short_description.sql` with the next number and
+//! append it to [`MIGRATIONS`]. A migration that has shipped is never edited or deleted.
+
+use rusqlite::{Connection, TransactionBehavior};
+
+use crate::{Error, Result};
+
+/// One embedded migration: its file name and its SQL.
+#[derive(Debug, Clone, Copy)]
+pub struct Migration {
+    /// The file name in `migrations/`, e.g. `0001_initial.sql`.
+    pub name: &'static str,
+    /// The SQL text.
+    pub sql: &'static str,
+}
+
+/// Every migration, in the order it is applied. Entry `i` brings the schema to version `i + 1`.
+pub const MIGRATIONS: &[Migration] = &[
+    Migration {
+        name: "0001_initial.sql",
+        sql: include_str!("../../migrations/0001_initial.sql"),
+    },
+    Migration {
+        name: "0002_runs.sql",
+        sql: include_str!("../../migrations/0002_runs.sql"),
+    },
+];
+
+/// The schema version this build writes (the number of migrations).
+pub fn latest_version() -> u32 {
+    MIGRATIONS.len() as u32
+}
+
+/// Reads `PRAGMA user_version`.
+pub fn schema_version(conn: &Connection) -> Result<u32> {
+    let version: i64 = conn.query_row("PRAGMA user_version", [], |row| row.get(0))?;
+    Ok(version.max(0) as u32)
+}
+
+/// Applies every pending migration in one transaction; returns how many were applied.
+///
+/// `what` names the database in messages (its path, or "in-memory database").
+pub fn migrate(conn: &mut Connection, what: &str) -> Result<usize> {
+    refuse_newer(schema_version(conn)?, what)?;
+    if schema_version(conn)? == latest_version() {
+        return Ok(0);
+    }
+    // IMMEDIATE takes the write lock first, so two processes opening a fresh database at the same
+    // time do not both apply migration 1: the second one waits, then sees the new version.
+    let tx = conn.transaction_with_behavior(TransactionBehavior::Immediate)?;
+    let current = schema_version(&tx)?;
+    refuse_newer(current, what)?;
+    let pending = &MIGRATIONS[current as usize..];
+    for migration in pending {
+        tx.execute_batch(migration.sql).map_err(|e| {
+            Error::Database(format!("{what}: migration {} failed: {e}", migration.name))
+        })?;
+    }
+    tx.pragma_update(None, "user_version", latest_version())?;
+    tx.commit()?;
+    Ok(pending.len())
+}
+
+fn refuse_newer(version: u32, what: &str) -> Result<()> {
+    if version > latest_version() {
+        return Err(Error::Database(format!(
+            "{what} has schema version {version}, but this samewise knows only up to version {}: \
+             it was written by a newer samewise; use that version (this one changes nothing)",
+            latest_version()
+        )));
+    }
+    Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn migration_names_are_numbered_in_order() {
+        for (i, migration) in MIGRATIONS.iter().enumerate() {
+            let number: usize = migration.name[..4].parse().expect("four-digit prefix");
+            assert_eq!(number, i + 1, "{} is out of order", migration.name);
+            assert!(migration.name.ends_with(".sql"));
+        }
+    }
+}

@@ -1,0 +1,328 @@
+//! The analysis read path: [`Store::load_period`] returns a [`PeriodFrame`], the measurements of a
+//! time window column by column (offsets, instants, and for every factor the level index of each
+//! row), read in one pass over the (characteristic, time) primary key.
+//!
+//! Level sets are immutable once written, so the level indices of each level set are cached in the
+//! `Store` (`LevelCache`) and looked up once per level set, not per row.
+
+use std::collections::HashMap;
+
+use chrono::{DateTime, Utc};
+
+use crate::config::CharacteristicConfig;
+use crate::stats::decimal::Decimal;
+use crate::{Error, Result};
+
+use super::master::{load_characteristics, load_factors, StoredCharacteristic};
+use super::Store;
+
+/// The level shown for a factor a measurement has no level of (it was imported before the factor
+/// was added to the configuration).
+pub const NO_LEVEL: &str = "(none)";
+
+/// One factor's levels in a [`PeriodFrame`], sorted by name (digit runs compared as numbers, so
+/// `M2` comes before `M10`).
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct FactorLevels {
+    /// Factor name.
+    pub name: String,
+    /// The levels that occur in the frame.
+    pub levels: Vec<String>,
+}
+
+/// The measurements of one characteristic in a period, columnar, in time order.
+#[derive(Debug, Clone, PartialEq)]
+pub struct CharacteristicFrame {
+    /// Name, unit, limits and flags as stored.
+    pub characteristic: CharacteristicConfig,
+    /// The exact origin of `values` (zero when the characteristic has no values yet).
+    pub origin: Decimal,
+    /// Offsets from `origin`, one per measurement.
+    pub values: Vec<f64>,
+    /// Measurement instants, ms since the epoch (UTC).
+    pub ts_ms: Vec<i64>,
+    /// `level_idx[f][row]`: index into `PeriodFrame::factors[f].levels`.
+    pub level_idx: Vec<Vec<u32>>,
+}
+
+/// The measurements of a period: the configured factors with their levels, and one frame per
+/// characteristic asked for.
+#[derive(Debug, Clone, PartialEq)]
+pub struct PeriodFrame {
+    /// Configured factors, in configuration order.
+    pub factors: Vec<FactorLevels>,
+    /// One frame per characteristic, in the order asked for (all: the order they were added).
+    pub characteristics: Vec<CharacteristicFrame>,
+}
+
+/// Level set id -> level id per configured factor (`None`: no level), plus level names.
+#[derive(Debug, Default)]
+pub(crate) struct LevelCache {
+    factor_ids: Vec<i64>,
+    sets: HashMap<i64, Vec<Option<i64>>>,
+    level_names: HashMap<i64, String>,
+}
+
+impl LevelCache {
+    pub(crate) fn clear(&mut self) {
+        *self = LevelCache::default();
+    }
+}
+
+/// The exact value `origin + offset` for a characteristic whose values have at most `decimals`
+/// decimal places (as stored in `characteristics.decimals`): the offset is rounded to that many
+/// places, which recovers the digits of the input text exactly while the offset has fewer than
+/// about 15 significant digits.
+pub fn exact_value(origin: &Decimal, offset: f64, decimals: u32) -> Decimal {
+    let scaled = (offset * 10f64.powi(decimals as i32)).round();
+    let step = Decimal::from_parts(scaled as i128, decimals as i32);
+    origin.checked_add(&step).unwrap_or(*origin)
+}
+
+/// Compares names with digit runs as numbers: `M2 < M10`.
+pub(crate) fn natural_cmp(a: &str, b: &str) -> std::cmp::Ordering {
+    let (mut x, mut y) = (a.as_bytes(), b.as_bytes());
+    loop {
+        match (x.first(), y.first()) {
+            (None, None) => return a.cmp(b),
+            (None, _) => return std::cmp::Ordering::Less,
+            (_, None) => return std::cmp::Ordering::Greater,
+            (Some(p), Some(q)) if p.is_ascii_digit() && q.is_ascii_digit() => {
+                let nx = x.iter().take_while(|c| c.is_ascii_digit()).count();
+                let ny = y.iter().take_while(|c| c.is_ascii_digit()).count();
+                let (dx, dy) = (&x[..nx], &y[..ny]);
+                let tx = dx.iter().skip_while(|c| **c == b'0').count();
+                let ty = dy.iter().skip_while(|c| **c == b'0').count();
+                let order = tx.cmp(&ty).then_with(|| dx[nx - tx..].cmp(&dy[ny - ty..]));
+                if order != std::cmp::Ordering::Equal {
+                    return order;
+                }
+                x = &x[nx..];
+                y = &y[ny..];
+            }
+            (Some(p), Some(q)) => {
+                if p != q {
+                    return p.cmp(q);
+                }
+                x = &x[1..];
+                y = &y[1..];
+            }
+        }
+    }
+}
+
+/// The closest name by edit distance, for "did you mean" hints.
+pub(crate) fn closest<'a>(
+    name: &str,
+    candidates: impl Iterator<Item = &'a str>,
+) -> Option<&'a str> {
+    fn distance(a: &str, b: &str) -> usize {
+        let b: Vec<char> = b.chars().collect();
+        let mut prev: Vec<usize> = (0..=b.len()).collect();
+        for (i, ca) in a.chars().enumerate() {
+            let mut cur = vec![i + 1];
+            for (j, cb) in b.iter().enumerate() {
+                let cost = usize::from(!ca.eq_ignore_ascii_case(cb));
+                cur.push((prev[j] + cost).min(prev[j + 1] + 1).min(cur[j] + 1));
+            }
+            prev = cur;
+        }
+        prev[b.len()]
+    }
+    candidates
+        .map(|c| (distance(name, c), c))
+        .filter(|(d, c)| *d <= (c.chars().count() / 2).max(2))
+        .min_by_key(|(d, _)| *d)
+        .map(|(_, c)| c)
+}
+
+/// An "unknown characteristic" error with the closest known name.
+pub(crate) fn unknown_characteristic(name: &str, known: &[StoredCharacteristic]) -> Error {
+    let hint = match closest(name, known.iter().map(|c| c.config.name.as_str())) {
+        Some(c) => format!(" (did you mean \"{c}\"?)"),
+        None => String::new(),
+    };
+    Error::Usage(format!("unknown characteristic \"{name}\"{hint}"))
+}
+
+impl Store {
+    /// The measurements with `start <= ts < end` of the characteristics named (all when `None`),
+    /// columnar and in time order, read in one pass per characteristic.
+    ///
+    /// An unknown name is an error that suggests the closest known one. A characteristic without
+    /// measurements in the period gives an empty frame.
+    pub fn load_period(
+        &self,
+        start: DateTime<Utc>,
+        end: DateTime<Utc>,
+        characteristics: Option<&[String]>,
+    ) -> Result<PeriodFrame> {
+        let stored = load_characteristics(&self.conn)?;
+        let chosen: Vec<&StoredCharacteristic> = match characteristics {
+            None => stored.iter().collect(),
+            Some(names) => names
+                .iter()
+                .map(|n| {
+                    stored
+                        .iter()
+                        .find(|c| &c.config.name == n)
+                        .ok_or_else(|| unknown_characteristic(n, &stored))
+                })
+                .collect::<Result<_>>()?,
+        };
+        let factors: Vec<_> = load_factors(&self.conn)?
+            .into_iter()
+            .filter(|f| f.is_configured)
+            .collect();
+        let mut cache = self.level_cache.borrow_mut();
+        let factor_ids: Vec<i64> = factors.iter().map(|f| f.id).collect();
+        if cache.factor_ids != factor_ids {
+            cache.clear();
+            cache.factor_ids = factor_ids;
+        }
+        let n_factors = factors.len();
+        // Per factor: level id -> index in the frame's level list (assigned in first-seen order,
+        // re-sorted by name at the end).
+        let mut level_index: Vec<HashMap<Option<i64>, u32>> = vec![HashMap::new(); n_factors];
+        let mut level_order: Vec<Vec<Option<i64>>> = vec![Vec::new(); n_factors];
+        let mut set_index: HashMap<i64, Vec<u32>> = HashMap::new();
+
+        let mut rows_stmt = self.conn.prepare_cached(
+            "SELECT ts_ms, value, level_set_id FROM measurements \
+             WHERE characteristic_id = ?1 AND ts_ms >= ?2 AND ts_ms < ?3",
+        )?;
+        let mut frames = Vec::with_capacity(chosen.len());
+        for c in chosen {
+            let mut ts_ms = Vec::new();
+            let mut values = Vec::new();
+            let mut level_idx: Vec<Vec<u32>> = vec![Vec::new(); n_factors];
+            let mut rows = rows_stmt.query(rusqlite::params![
+                c.id,
+                start.timestamp_millis(),
+                end.timestamp_millis()
+            ])?;
+            while let Some(row) = rows.next()? {
+                ts_ms.push(row.get::<_, i64>(0)?);
+                values.push(row.get::<_, f64>(1)?);
+                let set: i64 = row.get(2)?;
+                if !set_index.contains_key(&set) {
+                    let members = cached_members(&self.conn, &mut cache, set)?;
+                    let idx: Vec<u32> = members
+                        .iter()
+                        .enumerate()
+                        .map(|(f, level)| {
+                            let next = level_index[f].len() as u32;
+                            *level_index[f].entry(*level).or_insert_with(|| {
+                                level_order[f].push(*level);
+                                next
+                            })
+                        })
+                        .collect();
+                    set_index.insert(set, idx);
+                }
+                let idx = &set_index[&set];
+                for (f, column) in level_idx.iter_mut().enumerate() {
+                    column.push(idx[f]);
+                }
+            }
+            frames.push(CharacteristicFrame {
+                characteristic: c.config.clone(),
+                origin: c.origin.unwrap_or(Decimal::ZERO),
+                values,
+                ts_ms,
+                level_idx,
+            });
+        }
+        // Sort each factor's levels by name and renumber.
+        let mut factor_levels = Vec::with_capacity(n_factors);
+        for (f, factor) in factors.iter().enumerate() {
+            let names: Vec<String> = level_order[f]
+                .iter()
+                .map(|l| match l {
+                    Some(id) => cache.level_names[id].clone(),
+                    None => NO_LEVEL.to_string(),
+                })
+                .collect();
+            let mut order: Vec<usize> = (0..names.len()).collect();
+            order.sort_by(|&a, &b| natural_cmp(&names[a], &names[b]));
+            let mut renumber = vec![0u32; names.len()];
+            for (new, &old) in order.iter().enumerate() {
+                renumber[old] = new as u32;
+            }
+            for frame in &mut frames {
+                for i in frame.level_idx[f].iter_mut() {
+                    *i = renumber[*i as usize];
+                }
+            }
+            factor_levels.push(FactorLevels {
+                name: factor.name.clone(),
+                levels: order.iter().map(|&i| names[i].clone()).collect(),
+            });
+        }
+        Ok(PeriodFrame {
+            factors: factor_levels,
+            characteristics: frames,
+        })
+    }
+}
+
+fn cached_members(
+    conn: &rusqlite::Connection,
+    cache: &mut LevelCache,
+    set: i64,
+) -> Result<Vec<Option<i64>>> {
+    if let Some(m) = cache.sets.get(&set) {
+        return Ok(m.clone());
+    }
+    let mut stmt = conn.prepare_cached(
+        "SELECT m.factor_id, m.level_id, l.name FROM level_set_members m \
+         JOIN levels l ON l.id = m.level_id WHERE m.level_set_id = ?1",
+    )?;
+    let mut members = vec![None; cache.factor_ids.len()];
+    let rows = stmt.query_map([set], |r| {
+        Ok((
+            r.get::<_, i64>(0)?,
+            r.get::<_, i64>(1)?,
+            r.get::<_, String>(2)?,
+        ))
+    })?;
+    for row in rows {
+        let (factor_id, level_id, name) = row?;
+        if let Some(f) = cache.factor_ids.iter().position(|&id| id == factor_id) {
+            members[f] = Some(level_id);
+            cache.level_names.insert(level_id, name);
+        }
+    }
+    cache.sets.insert(set, members.clone());
+    Ok(members)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn natural_order_compares_numbers() {
+        let mut names = vec!["M10", "M2", "M1", "A"];
+        names.sort_by(|a, b| natural_cmp(a, b));
+        assert_eq!(names, ["A", "M1", "M2", "M10"]);
+    }
+
+    #[test]
+    fn closest_name_is_suggested() {
+        let names = ["bore_diameter", "flatness", "length"];
+        assert_eq!(
+            closest("bore_diamter", names.iter().copied()),
+            Some("bore_diameter")
+        );
+        assert_eq!(closest("zzzzzzzzzz", names.iter().copied()), None);
+    }
+
+    #[test]
+    fn exact_value_recovers_the_digits() {
+        let origin = Decimal::parse("1000000000000.4").unwrap();
+        let v = Decimal::parse("1000000000000.3").unwrap();
+        let back = exact_value(&origin, v.offset_from(&origin), 1);
+        assert_eq!(back.to_string(), "1000000000000.3");
+    }
+}

@@ -1,0 +1,369 @@
+//! `samewise init / import / status / event / db` driven as a binary, each test in its own
+//! temporary directory. Data are invented; DST dates are those of the IANA tz database for
+//! Europe/Berlin (2026-03-29 02:00 -> 03:00, 2026-10-25 03:00 -> 02:00).
+
+use std::path::{Path, PathBuf};
+use std::process::{Command, Output};
+
+use samewise::config::Config;
+use samewise::storage::Store;
+
+fn bin() -> &'static str {
+    env!("CARGO_BIN_EXE_samewise")
+}
+
+fn temp_dir(name: &str) -> PathBuf {
+    let dir = std::env::temp_dir().join(format!("samewise-import-{name}-{}", std::process::id()));
+    let _ = std::fs::remove_dir_all(&dir);
+    std::fs::create_dir_all(&dir).unwrap();
+    dir
+}
+
+const CONFIG: &str = r#"
+[plant]
+name = "Invented test plant"
+time_zone = "Europe/Berlin"
+production_day_start = "06:00"
+database = "plant.db"
+
+[[characteristic]]
+name = "bore_diameter"
+unit = "mm"
+lsl = 41.98
+usl = 42.02
+
+[[characteristic]]
+name = "flatness"
+unit = "mm"
+
+[[factor]]
+name = "machine"
+"#;
+
+fn run(dir: &Path, args: &[&str]) -> Output {
+    Command::new(bin())
+        .args(args)
+        .current_dir(dir)
+        .env_remove("SAMEWISE_CONFIG")
+        .output()
+        .unwrap()
+}
+
+fn text(o: &Output) -> String {
+    format!(
+        "{}{}",
+        String::from_utf8_lossy(&o.stdout),
+        String::from_utf8_lossy(&o.stderr)
+    )
+}
+
+fn setup(name: &str) -> PathBuf {
+    let dir = temp_dir(name);
+    std::fs::write(dir.join("plant.toml"), CONFIG).unwrap();
+    let o = run(&dir, &["init"]);
+    assert!(o.status.success(), "{}", text(&o));
+    dir
+}
+
+fn store(dir: &Path) -> Store {
+    Store::open(dir.join("plant.db")).unwrap()
+}
+
+fn n_measurements(dir: &Path) -> u64 {
+    let status = store(dir).status().unwrap();
+    status.characteristics.iter().map(|c| c.n_obs).sum()
+}
+
+const MIXED: &str = "timestamp,characteristic,value,machine
+2026-11-30T07:00:00Z,bore_diameter,42.001,M1
+2026-11-30T07:01:00Z,bore_diameter,1,5,M1
+2026-11-30T07:02:00Z,bore_diameter,NaN,M2
+
+2026-11-30T07:03:00Z,unknown_thing,1.0,M2
+2026-11-30T07:04:00Z,flatness,0.012,M2
+2026-11-30T07:05:00Z,flatness,1e400,M2
+2026-11-30T07:06:00Z,flatness,12.5 mm,M1
+";
+
+#[test]
+fn counts_add_up_and_rejects_are_written() {
+    let dir = setup("counts");
+    std::fs::write(dir.join("a.csv"), MIXED).unwrap();
+    let o = run(&dir, &["import", "a.csv", "--rejects", "rej.csv"]);
+    assert!(o.status.success(), "{}", text(&o));
+    let out = text(&o);
+    assert!(out.contains("8 rows read"), "{out}");
+    assert!(out.contains("2 accepted, 6 rejected"), "{out}");
+    let rejects = std::fs::read_to_string(dir.join("rej.csv")).unwrap();
+    // header + 6 rejections
+    assert_eq!(rejects.lines().count(), 7, "{rejects}");
+    assert!(rejects.contains("blank line"), "{rejects}");
+    assert!(rejects.contains("unknown characteristic"), "{rejects}");
+    let s = store(&dir);
+    assert_eq!(n_measurements(&dir), 2);
+    assert_eq!(s.status().unwrap().n_rejected, 6);
+    assert!(s.integrity_check().unwrap().is_ok());
+}
+
+#[test]
+fn unknown_characteristic_is_added_with_add_new() {
+    let dir = setup("addnew");
+    std::fs::write(dir.join("a.csv"), MIXED).unwrap();
+    let o = run(&dir, &["import", "a.csv", "--add-new"]);
+    assert!(o.status.success(), "{}", text(&o));
+    assert!(
+        text(&o).contains("new characteristics: unknown_thing"),
+        "{}",
+        text(&o)
+    );
+    assert_eq!(n_measurements(&dir), 3);
+}
+
+#[test]
+fn duplicate_content_is_refused_unless_forced() {
+    let dir = setup("dup");
+    std::fs::write(dir.join("a.csv"), MIXED).unwrap();
+    std::fs::copy(dir.join("a.csv"), dir.join("b.csv")).unwrap();
+    assert!(run(&dir, &["import", "a.csv"]).status.success());
+    let o = run(&dir, &["import", "b.csv"]);
+    assert!(!o.status.success());
+    let out = text(&o);
+    assert!(
+        out.contains("already imported as import #1 (a.csv"),
+        "{out}"
+    );
+    assert_eq!(n_measurements(&dir), 2);
+    let o = run(&dir, &["import", "b.csv", "--force"]);
+    assert!(o.status.success(), "{}", text(&o));
+    assert_eq!(n_measurements(&dir), 4);
+}
+
+#[test]
+fn status_event_check_and_backup() {
+    let dir = setup("status");
+    std::fs::write(dir.join("a.csv"), MIXED).unwrap();
+    assert!(run(&dir, &["import", "a.csv"]).status.success());
+    let o = run(&dir, &["status"]);
+    let out = text(&o);
+    assert!(o.status.success(), "{out}");
+    assert!(out.contains("schema version"), "{out}");
+    assert!(out.contains("rejected rows: 6"), "{out}");
+    let o = run(
+        &dir,
+        &[
+            "event",
+            "add",
+            "--at",
+            "2026-11-30 08:15",
+            "--note",
+            "new boring bar",
+            "--characteristic",
+            "bore_diameter",
+            "--where",
+            "machine=M4",
+        ],
+    );
+    assert!(o.status.success(), "{}", text(&o));
+    let o = run(
+        &dir,
+        &[
+            "event",
+            "add",
+            "--at",
+            "2026-11-30 08:15",
+            "--note",
+            "x",
+            "--characteristic",
+            "bore_diamter",
+        ],
+    );
+    assert!(!o.status.success());
+    assert!(
+        text(&o).contains("did you mean \"bore_diameter\""),
+        "{}",
+        text(&o)
+    );
+    let o = run(&dir, &["event", "list"]);
+    let out = text(&o);
+    assert!(
+        out.contains(
+            "2026-11-30 08:15:00 CET  new boring bar  [characteristic=bore_diameter, machine=M4]"
+        ),
+        "{out}"
+    );
+    let o = run(&dir, &["db", "check"]);
+    assert!(o.status.success(), "{}", text(&o));
+    assert!(text(&o).contains("database is sound"));
+    let o = run(&dir, &["db", "backup", "copy.db"]);
+    assert!(o.status.success(), "{}", text(&o));
+    let copy = Store::open(dir.join("copy.db")).unwrap();
+    assert_eq!(
+        copy.status().unwrap().characteristics,
+        store(&dir).status().unwrap().characteristics
+    );
+}
+
+#[test]
+fn no_database_and_no_config_are_explained() {
+    let dir = temp_dir("nodb");
+    let o = run(&dir, &["status"]);
+    assert!(text(&o).contains("no plant configuration"), "{}", text(&o));
+    std::fs::write(dir.join("plant.toml"), CONFIG).unwrap();
+    let o = run(&dir, &["status"]);
+    assert!(!o.status.success());
+    assert!(text(&o).contains("samewise init"), "{}", text(&o));
+}
+
+/// Europe/Berlin 2026: 02:30 on 2026-03-29 does not exist, 02:30 on 2026-10-25 occurs twice
+/// (IANA tz database). Both are rejected with a reason; zoned times at the change are stored.
+#[test]
+fn dst_edge_cases_end_to_end() {
+    let dir = setup("dst");
+    let csv = "timestamp,characteristic,value,machine
+2026-03-29 01:59:00,bore_diameter,42.000,M1
+2026-03-29 02:30:00,bore_diameter,42.001,M1
+2026-03-29 03:00:00,bore_diameter,42.002,M1
+2026-10-25 02:30:00,bore_diameter,42.003,M1
+2026-10-25 02:30:00+01:00,bore_diameter,42.004,M1
+2026-10-25 02:30:00+02:00,bore_diameter,42.005,M1
+";
+    std::fs::write(dir.join("dst.csv"), csv).unwrap();
+    let o = run(&dir, &["import", "dst.csv"]);
+    let out = text(&o);
+    assert!(o.status.success(), "{out}");
+    assert!(out.contains("4 accepted, 2 rejected"), "{out}");
+    let frame = store(&dir)
+        .load_period(
+            chrono::DateTime::from_timestamp(0, 0).unwrap(),
+            chrono::DateTime::from_timestamp(4_000_000_000, 0).unwrap(),
+            Some(&["bore_diameter".to_string()]),
+        )
+        .unwrap();
+    // 01:59 CET = 00:59Z; 03:00 CEST = 01:00Z: one minute apart in UTC.
+    let ts = &frame.characteristics[0].ts_ms;
+    assert_eq!(ts[1] - ts[0], 60_000);
+    // 02:30+02:00 (00:30Z) comes one hour before 02:30+01:00 (01:30Z).
+    assert_eq!(ts[3] - ts[2], 3_600_000);
+}
+
+fn big_csv(dir: &Path, rows: u64) -> PathBuf {
+    let o = run(
+        dir,
+        &[
+            "generate-bench-data",
+            "--rows",
+            &rows.to_string(),
+            "--characteristics",
+            "10",
+            "--factors",
+            "3",
+            "--days",
+            "2",
+            "--out",
+            "big.csv",
+        ],
+    );
+    assert!(o.status.success(), "{}", text(&o));
+    dir.join("big.csv")
+}
+
+/// A child importing a large file is killed with SIGKILL mid-import: the database holds none of
+/// its rows, passes the integrity check, and the same file then imports completely.
+#[test]
+fn killed_import_leaves_nothing_and_the_file_imports_again() {
+    let dir = temp_dir("crash");
+    let csv = big_csv(&dir, 600_000);
+    let config = format!("{}.plant.toml", csv.display());
+    let o = run(&dir, &["init", "--config", &config]);
+    assert!(o.status.success(), "{}", text(&o));
+    let cfg = Config::load(&config).unwrap();
+    let db = cfg.plant.database.clone();
+    let mut child = Command::new(bin())
+        .args(["import", "--config", &config, "big.csv"])
+        .current_dir(&dir)
+        .spawn()
+        .unwrap();
+    // Wait until the import is writing (the WAL grows), then kill it.
+    let wal = PathBuf::from(format!("{}-wal", db.display()));
+    let deadline = std::time::Instant::now() + std::time::Duration::from_secs(120);
+    loop {
+        let size = std::fs::metadata(&wal).map(|m| m.len()).unwrap_or(0);
+        if size > 2_000_000 || std::time::Instant::now() > deadline {
+            break;
+        }
+        if child.try_wait().unwrap().is_some() {
+            panic!("the import finished before it could be killed; use a larger file");
+        }
+        std::thread::sleep(std::time::Duration::from_millis(20));
+    }
+    child.kill().unwrap(); // SIGKILL on Unix
+    let status = child.wait().unwrap();
+    assert!(!status.success());
+    let s = Store::open(&db).unwrap();
+    assert_eq!(s.status().unwrap().n_imports, 0);
+    let total: u64 = s
+        .status()
+        .unwrap()
+        .characteristics
+        .iter()
+        .map(|c| c.n_obs)
+        .sum();
+    assert_eq!(total, 0);
+    assert!(s.integrity_check().unwrap().is_ok());
+    drop(s);
+    let o = run(&dir, &["import", "--config", &config, "big.csv"]);
+    assert!(o.status.success(), "{}", text(&o));
+    let s = Store::open(&db).unwrap();
+    let total: u64 = s
+        .status()
+        .unwrap()
+        .characteristics
+        .iter()
+        .map(|c| c.n_obs)
+        .sum();
+    assert_eq!(total, 600_000);
+    assert!(s.integrity_check().unwrap().is_ok());
+}
+
+/// An import and a reader (the analysis query) at the same time both succeed.
+#[test]
+fn import_and_reader_run_together() {
+    let dir = temp_dir("concurrent");
+    let csv = big_csv(&dir, 300_000);
+    let config = format!("{}.plant.toml", csv.display());
+    assert!(run(&dir, &["init", "--config", &config]).status.success());
+    let cfg = Config::load(&config).unwrap();
+    let mut child = Command::new(bin())
+        .args(["import", "--config", &config, "big.csv"])
+        .current_dir(&dir)
+        .stdout(std::process::Stdio::piped())
+        .stderr(std::process::Stdio::piped())
+        .spawn()
+        .unwrap();
+    let reader = Store::open(&cfg.plant.database).unwrap();
+    let mut reads = 0;
+    while child.try_wait().unwrap().is_none() {
+        let frame = reader
+            .load_period(
+                chrono::DateTime::from_timestamp(0, 0).unwrap(),
+                chrono::DateTime::from_timestamp(4_000_000_000, 0).unwrap(),
+                Some(&["char01".to_string()]),
+            )
+            .unwrap();
+        // Before the commit the reader sees nothing of the file, after it everything.
+        let n = frame.characteristics[0].values.len();
+        assert!(n == 0 || n == 30_000, "{n}");
+        reads += 1;
+    }
+    let o = child.wait_with_output().unwrap();
+    assert!(o.status.success(), "{}", text(&o));
+    assert!(reads > 0);
+    let frame = reader
+        .load_period(
+            chrono::DateTime::from_timestamp(0, 0).unwrap(),
+            chrono::DateTime::from_timestamp(4_000_000_000, 0).unwrap(),
+            Some(&["char01".to_string()]),
+        )
+        .unwrap();
+    assert_eq!(frame.characteristics[0].values.len(), 30_000);
+}

@@ -1,0 +1,202 @@
+//! Store tests on in-memory and temporary databases: migrations from empty, the schema version,
+//! refusal of a newer database, exact round trip of values with a large offset, and
+//! `sync_config` idempotence.
+
+use std::path::PathBuf;
+
+use samewise::config::Config;
+use samewise::ingest;
+use samewise::stats::decimal::Decimal;
+use samewise::storage::{exact_value, migrate, ImportOptions, Store};
+
+fn temp_dir(name: &str) -> PathBuf {
+    let dir = std::env::temp_dir().join(format!("samewise-store-{name}-{}", std::process::id()));
+    let _ = std::fs::remove_dir_all(&dir);
+    std::fs::create_dir_all(&dir).unwrap();
+    dir
+}
+
+const CONFIG: &str = r#"
+[plant]
+name = "Invented test plant"
+time_zone = "Europe/Berlin"
+production_day_start = "06:00"
+database = "plant.db"
+
+[[characteristic]]
+name = "length"
+unit = "mm"
+lsl = 999999999999.0
+usl = 1000000000001.0
+
+[[characteristic]]
+name = "bore"
+unit = "mm"
+
+[[factor]]
+name = "machine"
+"#;
+
+fn config(dir: &std::path::Path, text: &str) -> Config {
+    let path = dir.join("plant.toml");
+    std::fs::write(&path, text).unwrap();
+    Config::load(&path).unwrap()
+}
+
+fn started() -> chrono::DateTime<chrono::Utc> {
+    chrono::DateTime::from_timestamp(1_800_000_000, 0).unwrap()
+}
+
+#[test]
+fn migrations_apply_from_empty_and_version_counts_the_files() {
+    let store = Store::open_in_memory().unwrap();
+    let files = std::fs::read_dir(concat!(env!("CARGO_MANIFEST_DIR"), "/migrations"))
+        .unwrap()
+        .filter(|e| {
+            e.as_ref()
+                .unwrap()
+                .file_name()
+                .to_string_lossy()
+                .ends_with(".sql")
+        })
+        .count();
+    assert_eq!(store.schema_version().unwrap() as usize, files);
+    assert_eq!(migrate::latest_version() as usize, files);
+    assert_eq!(migrate::MIGRATIONS.len(), files);
+}
+
+#[test]
+fn reopening_applies_nothing_twice() {
+    let dir = temp_dir("reopen");
+    let cfg = config(&dir, CONFIG);
+    drop(Store::create(&cfg.plant.database, &cfg).unwrap());
+    let store = Store::open(&cfg.plant.database).unwrap();
+    assert_eq!(store.schema_version().unwrap(), migrate::latest_version());
+}
+
+#[test]
+fn a_newer_database_is_refused_untouched() {
+    let dir = temp_dir("newer");
+    let db = dir.join("plant.db");
+    drop(Store::open_or_create(&db).unwrap());
+    let newer = migrate::latest_version() + 1;
+    {
+        let conn = rusqlite::Connection::open(&db).unwrap();
+        conn.pragma_update(None, "user_version", newer).unwrap();
+    }
+    let err = Store::open(&db).unwrap_err().to_string();
+    assert!(err.contains("newer samewise"), "{err}");
+    let conn = rusqlite::Connection::open(&db).unwrap();
+    let v: u32 = conn
+        .query_row("PRAGMA user_version", [], |r| r.get(0))
+        .unwrap();
+    assert_eq!(v, newer);
+}
+
+#[test]
+fn a_missing_database_suggests_init() {
+    let dir = temp_dir("missing");
+    let err = Store::open(dir.join("nothing.db")).unwrap_err().to_string();
+    assert!(err.contains("samewise init"), "{err}");
+}
+
+#[test]
+fn sync_config_is_idempotent_and_keeps_measurements() {
+    let dir = temp_dir("sync");
+    let cfg = config(&dir, CONFIG);
+    let mut store = Store::create(&cfg.plant.database, &cfg).unwrap();
+    let second = store.sync_config(&cfg).unwrap();
+    assert!(second.is_unchanged(), "{second:?}");
+    let csv = dir.join("a.csv");
+    std::fs::write(
+        &csv,
+        "timestamp,characteristic,value,machine\n2026-11-30T07:00:00Z,bore,42.001,M1\n",
+    )
+    .unwrap();
+    let stream = ingest::read_file(&csv, &cfg, None).unwrap();
+    store
+        .import(
+            stream,
+            &ImportOptions {
+                force: false,
+                started_at: started(),
+            },
+        )
+        .unwrap();
+    // A changed limit updates the characteristic; the measurement stays.
+    let changed = config(
+        &dir,
+        &CONFIG.replace(
+            "name = \"bore\"\nunit = \"mm\"",
+            "name = \"bore\"\nunit = \"mm\"\nlsl = 41.9",
+        ),
+    );
+    let report = store.sync_config(&changed).unwrap();
+    assert_eq!(report.characteristics_updated, ["bore"]);
+    let status = store.status().unwrap();
+    let bore = status
+        .characteristics
+        .iter()
+        .find(|c| c.name == "bore")
+        .unwrap();
+    assert_eq!(bore.n_obs, 1);
+    assert!(store.sync_config(&changed).unwrap().is_unchanged());
+}
+
+/// Values with a huge offset and a tiny spread: stored as offsets from an exact origin they keep
+/// every digit, and statistics from stored values equal those from the CSV text. The check values
+/// are exact decimal arithmetic on the literals below (hand check): mean of 1000000000000.3,
+/// 1000000000000.4, 1000000000000.5 is 1000000000000.4; sample variance 0.01.
+#[test]
+fn large_offset_values_round_trip_exactly() {
+    let dir = temp_dir("offset");
+    let cfg = config(&dir, CONFIG);
+    let mut store = Store::create(&cfg.plant.database, &cfg).unwrap();
+    let texts = ["1000000000000.4", "1000000000000.3", "1000000000000.5"];
+    let mut csv = String::from("timestamp,characteristic,value,machine\n");
+    for (i, t) in texts.iter().enumerate() {
+        csv.push_str(&format!("2026-11-30T07:00:0{i}Z,length,{t},M1\n"));
+    }
+    let path = dir.join("big.csv");
+    std::fs::write(&path, csv).unwrap();
+    let stream = ingest::read_file(&path, &cfg, None).unwrap();
+    store
+        .import(
+            stream,
+            &ImportOptions {
+                force: false,
+                started_at: started(),
+            },
+        )
+        .unwrap();
+    let frame = store
+        .load_period(
+            chrono::DateTime::from_timestamp(0, 0).unwrap(),
+            chrono::DateTime::from_timestamp(4_000_000_000, 0).unwrap(),
+            Some(&["length".to_string()]),
+        )
+        .unwrap();
+    let c = &frame.characteristics[0];
+    assert_eq!(c.values.len(), 3);
+    let stored = store
+        .characteristics()
+        .unwrap()
+        .into_iter()
+        .find(|c| c.config.name == "length")
+        .unwrap();
+    let back: Vec<String> = c
+        .values
+        .iter()
+        .map(|&v| exact_value(&c.origin, v, stored.decimals).to_string())
+        .collect();
+    assert_eq!(back, texts);
+    // Statistics from the stored offsets equal those from the CSV text centred the same way.
+    let parsed: Vec<Decimal> = texts.iter().map(|t| Decimal::parse(t).unwrap()).collect();
+    let (origin, offsets) = samewise::stats::decimal::centre(&parsed);
+    assert_eq!(origin, c.origin);
+    assert_eq!(offsets, c.values);
+    let summary = samewise::stats::describe::Summary::from_slice(&c.values);
+    let mean = origin.plus_offset(summary.mean);
+    assert_eq!(mean, 1000000000000.4);
+    assert!((summary.variance().unwrap() - 0.01).abs() < 1e-15);
+}
