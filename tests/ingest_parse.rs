@@ -290,6 +290,16 @@ fn bad_values_are_rejected_with_reasons() {
             "timestamp",
             "not ISO 8601",
         ),
+        (
+            "0001-01-01 00:00:00Z,M1,S1,bore,10",
+            "timestamp",
+            "outside 1900 to 2200",
+        ),
+        (
+            "9999-12-31T23:59:59-23:59,M1,S1,bore,10",
+            "timestamp",
+            "outside 1900 to 2200",
+        ),
     ];
     for (row, column, reason) in cases {
         let r = reject_one(row);

@@ -34,8 +34,11 @@
 //! - in a wide file each row holds one measurement per characteristic column and yields exactly
 //!   that many outcomes. A problem with one cell rejects that cell only; a problem with the whole
 //!   row (blank line, wrong number of fields, bad timestamp or factor cell, an over-long line)
-//!   rejects every measurement of the row, one [`Rejection`] per characteristic column, all
-//!   with the same line and reason.
+//!   rejects every measurement of the row: one [`Rejection`] per characteristic column, all
+//!   with the same line, reason and raw line; its `column` is the column at fault (the
+//!   timestamp or factor column) when there is one, otherwise the characteristic's column.
+//!
+//! Timestamps outside the years 1900 to 2200 are rejected as clock or format errors.
 //!
 //! Hence always `accepted + rejected == measurements_read == rows_read x cells_per_row`
 //! ([`Counts`]), where `cells_per_row` is 1 for long files.
@@ -653,7 +656,10 @@ impl<R: Read> ImportStream<R> {
                 .map_err(|_| "cell is not UTF-8 text (save the file as UTF-8)".to_string())
         };
         // Timestamp.
-        let ts = match text(self.plan.timestamp).and_then(|t| self.ts_parser.parse(t)) {
+        let ts = match text(self.plan.timestamp)
+            .and_then(|t| self.ts_parser.parse(t))
+            .and_then(check_year)
+        {
             Ok(ts) => ts,
             Err(reason) => {
                 let col = self.plan.timestamp;
@@ -785,6 +791,20 @@ impl<R: Read> Iterator for ImportStream<R> {
                 self.is_done = true;
             }
         }
+    }
+}
+
+/// Timestamps outside the years 1900 to 2200 are taken for typing or clock errors (and keep
+/// the calendar arithmetic far from the ends of the representable range).
+fn check_year(ts: DateTime<Utc>) -> std::result::Result<DateTime<Utc>, String> {
+    use chrono::Datelike;
+    if (1900..=2200).contains(&ts.year()) {
+        Ok(ts)
+    } else {
+        Err(format!(
+            "timestamp year {} is outside 1900 to 2200 (check the gauge clock or the timestamp_format)",
+            ts.year()
+        ))
     }
 }
 

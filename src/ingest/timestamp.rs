@@ -13,7 +13,7 @@
 //! shift comparisons this tool exists for.
 
 use chrono::offset::LocalResult;
-use chrono::{DateTime, FixedOffset, NaiveDate, NaiveDateTime, NaiveTime, TimeZone, Utc};
+use chrono::{DateTime, Datelike, FixedOffset, NaiveDate, NaiveDateTime, NaiveTime, TimeZone, Utc};
 use chrono_tz::Tz;
 
 use crate::config::check_timestamp_format;
@@ -72,6 +72,14 @@ impl TimestampParser {
     }
 
     fn local_to_utc(&self, naive: NaiveDateTime, text: &str) -> Result<DateTime<Utc>, String> {
+        // Far from the ends of chrono's range, where zone arithmetic could overflow.
+        if !(1800..=2400).contains(&naive.year()) {
+            return Err(format!(
+                "timestamp \"{}\": year {} is outside 1900 to 2200",
+                shorten(text),
+                naive.year()
+            ));
+        }
         match self.time_zone.from_local_datetime(&naive) {
             LocalResult::Single(t) => Ok(t.with_timezone(&Utc)),
             LocalResult::Ambiguous(a, b) => Err(format!(
@@ -91,6 +99,13 @@ impl TimestampParser {
 }
 
 fn offset_to_utc(naive: NaiveDateTime, offset_s: i32, text: &str) -> Result<DateTime<Utc>, String> {
+    if !(1800..=2400).contains(&naive.year()) {
+        return Err(format!(
+            "timestamp \"{}\": year {} is outside 1900 to 2200",
+            shorten(text),
+            naive.year()
+        ));
+    }
     let offset = FixedOffset::east_opt(offset_s)
         .ok_or_else(|| format!("timestamp \"{}\": UTC offset out of range", shorten(text)))?;
     match offset.from_local_datetime(&naive) {
@@ -287,5 +302,15 @@ mod tests {
             utc("2026-11-30T06:15:00Z")
         );
         assert!(TimestampParser::new(Some("%Q"), Europe::Berlin).is_err());
+        // Extreme years are refused before any zone arithmetic.
+        let p = TimestampParser::new(Some("%Y-%m-%d %H:%M"), Europe::Berlin).unwrap();
+        assert!(p
+            .parse("+262000-01-01 00:00")
+            .unwrap_err()
+            .contains("outside"));
+        assert!(p
+            .parse("-262000-01-01 00:00")
+            .unwrap_err()
+            .contains("outside"));
     }
 }
