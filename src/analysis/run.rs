@@ -121,7 +121,37 @@ pub fn check_and_record(
     now: &dyn Fn() -> DateTime<Utc>,
 ) -> Result<(StoredRun, RunContent)> {
     let head = header(config, period, None, options);
-    let run = runs::begin_run(&mut store.conn, &head, now().timestamp_millis())?;
+    // A run by hand holds the lease of schedule "" for its period, so a scheduler's recovery
+    // never mistakes it for an abandoned run, and two checks of one period never overlap.
+    let key = runs::LeaseKey {
+        schedule: String::new(),
+        period_kind: head.period_kind.clone(),
+        period_label: head.period_label.clone(),
+    };
+    let holder = format!("check:{}:{}", std::process::id(), now().timestamp_millis());
+    let ttl = crate::schedule::DEFAULT_LEASE_TTL.num_milliseconds();
+    if !runs::take_lease(&store.conn, &key, &holder, now().timestamp_millis(), ttl)? {
+        return Err(crate::Error::Usage(format!(
+            "another check of {} is running (its lease expires within {} minutes)",
+            period.label,
+            crate::schedule::DEFAULT_LEASE_TTL.num_minutes()
+        )));
+    }
+    runs::abandon_running(&store.conn, &key, now().timestamp_millis())?;
+    let result = check_holding_lease(store, config, period, options, now, &head);
+    runs::release_lease(&store.conn, &key, &holder)?;
+    result
+}
+
+fn check_holding_lease(
+    store: &mut Store,
+    config: &Config,
+    period: &Period,
+    options: &CheckOptions,
+    now: &dyn Fn() -> DateTime<Utc>,
+    head: &RunHeader,
+) -> Result<(StoredRun, RunContent)> {
+    let run = runs::begin_run(&mut store.conn, head, now().timestamp_millis())?;
     match run_check(store, config, period, options) {
         Ok(content) => {
             if let Err(e) = runs::complete_run(
