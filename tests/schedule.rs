@@ -11,12 +11,12 @@ use std::sync::atomic::AtomicBool;
 use std::sync::{Arc, Mutex};
 
 use chrono::{DateTime, Duration, NaiveDate, TimeZone, Utc};
-use rusqlite::Connection;
 
 use samewise::config::{Config, ScheduleConfig};
 use samewise::model::Period;
 use samewise::schedule::{self, Clock, PeriodOutcome, PeriodRunner, SchedulerOptions};
 use samewise::storage::runs::{self, RunContent, RunHeader, TestRow};
+use samewise::storage::Store;
 
 const CONFIG: &str = r#"
 [plant]
@@ -66,26 +66,13 @@ fn temp_db(name: &str) -> std::path::PathBuf {
     dir.join("plant.db")
 }
 
-fn open(path: &std::path::Path) -> Connection {
-    let conn = Connection::open(path).unwrap();
-    conn.busy_timeout(std::time::Duration::from_secs(30))
-        .unwrap();
-    let _: String = conn
-        .query_row("PRAGMA journal_mode = WAL", [], |r| r.get(0))
-        .unwrap();
-    // Only the run-history schema is needed here (the stand-in runner reads no measurements).
-    let has_runs: bool = conn
-        .query_row(
-            "SELECT COUNT(*) > 0 FROM sqlite_master WHERE name = 'run'",
-            [],
-            |r| r.get(0),
-        )
-        .unwrap();
-    if !has_runs {
-        conn.execute_batch(include_str!("../migrations/0002_runs.sql"))
-            .unwrap();
-    }
-    conn
+fn open(path: &std::path::Path) -> Store {
+    Store::open_or_create(path).unwrap()
+}
+
+fn count_leases(store: &Store) -> usize {
+    // Leases are released after each run; a leftover lease would block the period until expiry.
+    runs::lease_count(store.connection()).unwrap()
 }
 
 /// A stand-in for the engine: records what it was asked to run, can fail chosen periods once,
@@ -98,7 +85,7 @@ struct Recorder {
 }
 
 impl PeriodRunner for Recorder {
-    fn first_measurement(&mut self, _conn: &Connection) -> samewise::Result<Option<DateTime<Utc>>> {
+    fn first_measurement(&mut self, _store: &Store) -> samewise::Result<Option<DateTime<Utc>>> {
         Ok(Some(self.first))
     }
     fn header(&self, schedule: &ScheduleConfig, period: &Period) -> RunHeader {
@@ -116,7 +103,7 @@ impl PeriodRunner for Recorder {
     }
     fn compute(
         &mut self,
-        _conn: &Connection,
+        _store: &Store,
         schedule: &ScheduleConfig,
         period: &Period,
     ) -> samewise::Result<RunContent> {
@@ -202,7 +189,7 @@ fn three_weeks_with_outage_every_period_once_in_order_across_dst() {
         .collect();
     assert_eq!(failed.len(), 1);
     assert_eq!(failed[0].period, "2026-10-20");
-    let all = runs::all_runs(&conn).unwrap();
+    let all = runs::all_runs(conn.connection()).unwrap();
     let f = all.iter().find(|r| r.status == "failed").unwrap();
     assert_eq!(f.header.period_label, "2026-10-20");
     assert_eq!(f.error.as_deref(), Some("injected failure for 2026-10-20"));
@@ -225,7 +212,7 @@ fn three_weeks_with_outage_every_period_once_in_order_across_dst() {
         .unwrap(),
     );
 
-    let all = runs::all_runs(&conn).unwrap();
+    let all = runs::all_runs(conn.connection()).unwrap();
     let complete: Vec<_> = all.iter().filter(|r| r.status == "complete").collect();
     // Daily: production days 2026-10-12 .. 2026-11-01 (day 11-01 ends 11-02 06:00, due 08:00).
     let daily: Vec<String> = complete
@@ -287,10 +274,7 @@ fn three_weeks_with_outage_every_period_once_in_order_across_dst() {
         assert_eq!(n, expect, "{s} {p} computed {n} times");
     }
     // No lease is left behind.
-    let leases: i64 = conn
-        .query_row("SELECT COUNT(*) FROM run_lease", [], |r| r.get(0))
-        .unwrap();
-    assert_eq!(leases, 0);
+    assert_eq!(count_leases(&conn), 0);
 }
 
 #[test]
@@ -324,7 +308,7 @@ fn shift_schedule_across_dst_spring_forward() {
         &mut |_: &str| {},
     )
     .unwrap();
-    let all = runs::all_runs(&conn).unwrap();
+    let all = runs::all_runs(conn.connection()).unwrap();
     let labels: Vec<_> = all.iter().map(|r| r.header.period_label.as_str()).collect();
     assert_eq!(
         labels,
@@ -383,7 +367,7 @@ fn two_schedulers_at_once_run_each_period_once() {
         .collect();
     let results: Vec<_> = handles.into_iter().map(|h| h.join().unwrap()).collect();
     let conn = open(&path);
-    let all = runs::all_runs(&conn).unwrap();
+    let all = runs::all_runs(conn.connection()).unwrap();
     // 14 days (11-02 .. 11-15) and 2 weeks (W45, W46): each run exactly once, by one of the two.
     assert_eq!(all.len(), 16, "{all:#?}");
     assert!(all.iter().all(|r| r.status == "complete" && r.version == 1));
@@ -435,4 +419,78 @@ fn nothing_is_due_before_end_plus_delay() {
     )
     .unwrap();
     assert_eq!(next, berlin(2026, 12, 2, 8));
+}
+
+mod common;
+
+/// A scheduler process killed (SIGKILL) in the middle of a run leaves no result rows, only the
+/// run row in state `running`; the next start marks it abandoned (failed, error kept) and redoes
+/// the period.
+#[test]
+fn killed_scheduler_leaves_no_partial_run_and_next_start_redoes_it() {
+    let dir = common::temp_dir("killed-scheduler");
+    common::invented_plant(&dir, 2);
+    let db = dir.join("plant.db");
+    // Days 11-28 and 11-29 are due at 2026-11-30T12:00Z (ends 06:00 + 2 h delay).
+    let mut child = std::process::Command::new(env!("CARGO_BIN_EXE_samewise"))
+        .current_dir(&dir)
+        .args(["schedule", "due", "--now", "2026-11-30T12:00:00Z"])
+        .env("SAMEWISE_PAUSE_AFTER_BEGIN_MS", "60000")
+        .stderr(std::process::Stdio::null())
+        .spawn()
+        .unwrap();
+    let started = std::time::Instant::now();
+    loop {
+        let store = Store::open(&db).unwrap();
+        let all = runs::all_runs(store.connection()).unwrap();
+        if all.iter().any(|r| r.status == "running") {
+            break;
+        }
+        assert!(started.elapsed().as_secs() < 60, "no run started");
+        std::thread::sleep(std::time::Duration::from_millis(50));
+    }
+    child.kill().unwrap(); // SIGKILL
+    child.wait().unwrap();
+    let store = Store::open(&db).unwrap();
+    let all = runs::all_runs(store.connection()).unwrap();
+    assert_eq!(all.len(), 1);
+    assert_eq!(all[0].status, "running");
+    assert!(runs::run_content(store.connection(), all[0].run_id)
+        .unwrap()
+        .tests
+        .is_empty());
+    drop(store);
+    let out = common::samewise(&dir, &["schedule", "due", "--now", "2026-11-30T12:00:00Z"]);
+    assert_eq!(
+        out.status.code(),
+        Some(0),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let store = Store::open(&db).unwrap();
+    let all = runs::all_runs(store.connection()).unwrap();
+    let killed = &all[0];
+    assert_eq!(killed.status, "failed");
+    assert!(killed.error.as_deref().unwrap().starts_with("abandoned"));
+    let complete: Vec<_> = all.iter().filter(|r| r.status == "complete").collect();
+    let labels: Vec<_> = complete
+        .iter()
+        .map(|r| r.header.period_label.as_str())
+        .collect();
+    assert_eq!(labels, ["2026-11-28", "2026-11-29"]);
+    assert_eq!(complete[0].version, 2);
+    for r in complete {
+        assert_eq!(
+            runs::run_content(store.connection(), r.run_id)
+                .unwrap()
+                .tests
+                .len(),
+            4
+        );
+    }
+    // Nothing due any more: a third start runs nothing.
+    let out = common::samewise(&dir, &["schedule", "due", "--now", "2026-11-30T12:00:00Z"]);
+    assert_eq!(out.status.code(), Some(0));
+    let store = Store::open(&db).unwrap();
+    assert_eq!(runs::all_runs(store.connection()).unwrap().len(), 3);
 }

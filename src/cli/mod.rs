@@ -9,14 +9,17 @@ use clap::{Parser, Subcommand};
 
 use crate::Error;
 
+pub mod check;
 pub mod common;
 pub mod compare;
 pub mod db;
 pub mod demo;
 pub mod event;
+pub mod history;
 pub mod import;
 pub mod init;
 pub mod investigate;
+pub mod schedule;
 pub mod status;
 
 /// Exit code: finished, nothing flagged.
@@ -57,6 +60,12 @@ pub enum Command {
     /// Write the deterministic benchmark plant (CSV + configuration).
     #[command(hide = true)]
     GenerateBenchData(import::GenerateArgs),
+    /// Check one period: every characteristic x factor, false-discovery control, stored as a run.
+    Check(check::CheckArgs),
+    /// The trend of one comparison (characteristic by factor) over the stored runs.
+    History(history::HistoryArgs),
+    /// Run the configured schedules: `due` once (for cron), `run` in the foreground.
+    Schedule(schedule::ScheduleArgs),
     /// Print a shell completion script (bash, zsh or fish) to stdout.
     Completions {
         /// The shell.
@@ -83,6 +92,9 @@ pub fn run(args: Args) -> crate::Result<ExitCode> {
         Command::Db(a) => db::run(&a),
         Command::Investigate(a) => investigate::run(&a, chrono::Utc::now()),
         Command::GenerateBenchData(a) => import::generate(&a),
+        Command::Check(a) => check::run(&a),
+        Command::History(a) => history::run(&a),
+        Command::Schedule(a) => schedule::run(&a),
         Command::Completions { shell } => {
             let mut cmd = <Args as clap::CommandFactory>::command();
             let mut out = std::io::stdout().lock();

@@ -24,7 +24,6 @@ pub mod clock;
 use std::sync::atomic::{AtomicBool, Ordering};
 
 use chrono::{DateTime, Duration, Utc};
-use rusqlite::Connection;
 
 pub use clock::{Clock, SimulatedClock};
 
@@ -32,6 +31,7 @@ use crate::calendar::PlantCalendar;
 use crate::config::{Config, ScheduleConfig};
 use crate::model::{Period, PeriodKind};
 use crate::storage::runs::{self, LeaseKey, RunContent, RunHeader};
+use crate::storage::Store;
 use crate::{Error, Result};
 
 /// How long a lease lives without a heartbeat (the scheduler renews it before and after the
@@ -44,13 +44,13 @@ pub const RETRY_AFTER: Duration = Duration::minutes(15);
 /// What a scheduler needs to run one period: the engine, or a stand-in in tests.
 pub trait PeriodRunner {
     /// The first measurement's instant (where a schedule's periods start), `None` if no data.
-    fn first_measurement(&mut self, conn: &Connection) -> Result<Option<DateTime<Utc>>>;
+    fn first_measurement(&mut self, store: &Store) -> Result<Option<DateTime<Utc>>>;
     /// The run row to write for `period` under `schedule`.
     fn header(&self, schedule: &ScheduleConfig, period: &Period) -> RunHeader;
     /// Computes the run's content (nothing is written by the runner).
     fn compute(
         &mut self,
-        conn: &Connection,
+        store: &Store,
         schedule: &ScheduleConfig,
         period: &Period,
     ) -> Result<RunContent>;
@@ -124,13 +124,13 @@ pub fn next_due_time(
 
 /// One schedule's due periods at `now` (ended + delay, without a complete run of the schedule).
 pub fn due_periods(
-    conn: &Connection,
+    store: &Store,
     calendar: &PlantCalendar,
     schedule: &ScheduleConfig,
     first: DateTime<Utc>,
     now: DateTime<Utc>,
 ) -> Result<Vec<Period>> {
-    let done = runs::completed_labels(conn, Some(&schedule.name), schedule.period.as_str())?;
+    let done = runs::completed_labels(&store.conn, Some(&schedule.name), schedule.period.as_str())?;
     let done: std::collections::HashSet<String> = done.into_iter().collect();
     Ok(
         periods_until(calendar, schedule.period, schedule.delay, first, now)?
@@ -168,7 +168,7 @@ pub struct PassEntry {
 ///
 /// Stops early (after finishing the current period) when `stop` becomes true.
 pub fn run_pass(
-    conn: &mut Connection,
+    store: &mut Store,
     config: &Config,
     clock: &dyn Clock,
     runner: &mut dyn PeriodRunner,
@@ -178,13 +178,13 @@ pub fn run_pass(
 ) -> Result<Vec<PassEntry>> {
     let calendar = PlantCalendar::new(config);
     let now = clock.now();
-    let Some(first) = options.start.or(runner.first_measurement(conn)?) else {
+    let Some(first) = options.start.or(runner.first_measurement(store)?) else {
         log("no measurements yet: nothing is due");
         return Ok(Vec::new());
     };
     let mut due: Vec<(DateTime<Utc>, usize, Period)> = Vec::new();
     for (idx, schedule) in config.schedules.iter().enumerate() {
-        for p in due_periods(conn, &calendar, schedule, first, now)? {
+        for p in due_periods(store, &calendar, schedule, first, now)? {
             due.push((p.end + schedule.delay, idx, p));
         }
     }
@@ -196,7 +196,7 @@ pub fn run_pass(
             break;
         }
         let schedule = &config.schedules[idx];
-        let outcome = run_one(conn, clock, runner, options, schedule, &period, log)?;
+        let outcome = run_one(store, clock, runner, options, schedule, &period, log)?;
         entries.push(PassEntry {
             schedule: schedule.name.clone(),
             period: period.label.clone(),
@@ -211,7 +211,7 @@ fn ms(t: DateTime<Utc>) -> i64 {
 }
 
 fn run_one(
-    conn: &mut Connection,
+    store: &mut Store,
     clock: &dyn Clock,
     runner: &mut dyn PeriodRunner,
     options: &SchedulerOptions,
@@ -225,26 +225,49 @@ fn run_one(
         period_label: period.label.clone(),
     };
     let ttl = options.lease_ttl.num_milliseconds();
-    if !runs::take_lease(conn, &key, &options.holder, ms(clock.now()), ttl)? {
+    let mut taken = runs::take_lease(&store.conn, &key, &options.holder, ms(clock.now()), ttl)?;
+    if !taken {
+        // A holder on this host whose process is gone cannot finish: take its lease over.
+        if let Some(old) = runs::lease_holder(&store.conn, &key)? {
+            if holder_is_dead_local(&old, &options.holder) {
+                taken = runs::take_over_lease(
+                    &store.conn,
+                    &key,
+                    &old,
+                    &options.holder,
+                    ms(clock.now()),
+                    ttl,
+                )?;
+                if taken {
+                    log(&format!(
+                        "{} {}: took over the lease of {old} (its process is gone)",
+                        schedule.name, period.label
+                    ));
+                }
+            }
+        }
+    }
+    if !taken {
         log(&format!(
             "{} {}: another scheduler holds the lease, skipped",
             schedule.name, period.label
         ));
         return Ok(PeriodOutcome::Leased);
     }
-    let recovered = runs::recover_abandoned(conn, ms(clock.now()))?;
+    let recovered = runs::recover_abandoned(&store.conn, ms(clock.now()))?
+        + runs::abandon_running(&store.conn, &key, ms(clock.now()))?;
     if recovered > 0 {
         log(&format!(
             "marked {recovered} abandoned run(s) as failed (their process stopped mid-run)"
         ));
     }
-    let done = runs::completed_labels(conn, Some(&schedule.name), period.kind.as_str())?;
+    let done = runs::completed_labels(&store.conn, Some(&schedule.name), period.kind.as_str())?;
     if done.contains(&period.label) {
-        runs::release_lease(conn, &key, &options.holder)?;
+        runs::release_lease(&store.conn, &key, &options.holder)?;
         return Ok(PeriodOutcome::AlreadyDone);
     }
     let header = runner.header(schedule, period);
-    let run = runs::begin_run(conn, &header, ms(clock.now()))?;
+    let run = runs::begin_run(&mut store.conn, &header, ms(clock.now()))?;
     log(&format!(
         "{} {}: run {} (version {}) started",
         schedule.name, period.label, run.run_id, run.version
@@ -252,40 +275,42 @@ fn run_one(
     if let Some(pause) = options.pause_after_begin {
         std::thread::sleep(pause);
     }
-    let computed = runner.compute(conn, schedule, period);
-    let still_ours = runs::heartbeat(conn, &key, &options.holder, ms(clock.now()), ttl)?;
+    let computed = runner.compute(store, schedule, period);
+    let still_ours = runs::heartbeat(&store.conn, &key, &options.holder, ms(clock.now()), ttl)?;
     let outcome = match computed {
         Ok(_) if !still_ours => {
             let error = "the lease expired during the run; another scheduler may redo it";
-            runs::fail_run(conn, run.run_id, ms(clock.now()), error)?;
+            runs::fail_run(&store.conn, run.run_id, ms(clock.now()), error)?;
             PeriodOutcome::Failed(run.run_id, error.to_string())
         }
-        Ok(content) => match runs::complete_run(conn, run.run_id, ms(clock.now()), &content) {
-            Ok(()) => {
-                let flagged = content
-                    .tests
-                    .iter()
-                    .filter(|t| runs::is_flag_state(&t.state))
-                    .count();
-                log(&format!(
-                    "{} {}: run {} complete, {} tests, {} flagged",
-                    schedule.name,
-                    period.label,
-                    run.run_id,
-                    content.tests.len(),
-                    flagged
-                ));
-                PeriodOutcome::Completed(run.run_id)
+        Ok(content) => {
+            match runs::complete_run(&mut store.conn, run.run_id, ms(clock.now()), &content) {
+                Ok(()) => {
+                    let flagged = content
+                        .tests
+                        .iter()
+                        .filter(|t| runs::is_flag_state(&t.state))
+                        .count();
+                    log(&format!(
+                        "{} {}: run {} complete, {} tests, {} flagged",
+                        schedule.name,
+                        period.label,
+                        run.run_id,
+                        content.tests.len(),
+                        flagged
+                    ));
+                    PeriodOutcome::Completed(run.run_id)
+                }
+                Err(e) => {
+                    let error = e.to_string();
+                    runs::fail_run(&store.conn, run.run_id, ms(clock.now()), &error)?;
+                    PeriodOutcome::Failed(run.run_id, error)
+                }
             }
-            Err(e) => {
-                let error = e.to_string();
-                runs::fail_run(conn, run.run_id, ms(clock.now()), &error)?;
-                PeriodOutcome::Failed(run.run_id, error)
-            }
-        },
+        }
         Err(e) => {
             let error = e.to_string();
-            runs::fail_run(conn, run.run_id, ms(clock.now()), &error)?;
+            runs::fail_run(&store.conn, run.run_id, ms(clock.now()), &error)?;
             log(&format!(
                 "{} {}: run {} failed: {error} (retried on the next pass)",
                 schedule.name, period.label, run.run_id
@@ -293,14 +318,33 @@ fn run_one(
             PeriodOutcome::Failed(run.run_id, error)
         }
     };
-    runs::release_lease(conn, &key, &options.holder)?;
+    runs::release_lease(&store.conn, &key, &options.holder)?;
     Ok(outcome)
+}
+
+/// Whether lease holder `old` (`host:pid:...`) ran on the same host as `me` and its process no
+/// longer exists (Linux: no `/proc/PID`). Any doubt counts as alive (the lease then expires).
+pub fn holder_is_dead_local(old: &str, me: &str) -> bool {
+    let mut o = old.split(':');
+    let mut m = me.split(':');
+    let (Some(old_host), Some(old_pid), Some(my_host)) = (o.next(), o.next(), m.next()) else {
+        return false;
+    };
+    if old_host != my_host || !std::path::Path::new("/proc/self").exists() {
+        return false;
+    }
+    match old_pid.parse::<u32>() {
+        Ok(pid) => {
+            pid != std::process::id() && !std::path::Path::new(&format!("/proc/{pid}")).exists()
+        }
+        Err(_) => false,
+    }
 }
 
 /// The instant the scheduler should wake up next: the earliest next due time over all
 /// schedules, or sooner when a run failed (to retry it).
 pub fn next_wake(
-    conn: &mut Connection,
+    store: &mut Store,
     config: &Config,
     now: DateTime<Utc>,
     runner: &mut dyn PeriodRunner,
@@ -308,7 +352,7 @@ pub fn next_wake(
     had_failure: bool,
 ) -> Result<Option<DateTime<Utc>>> {
     let calendar = PlantCalendar::new(config);
-    let first = match options.start.or(runner.first_measurement(conn)?) {
+    let first = match options.start.or(runner.first_measurement(store)?) {
         Some(first) => first,
         // No data yet: look again in a while.
         None => return Ok(Some(now + RETRY_AFTER)),
@@ -329,7 +373,7 @@ pub fn next_wake(
 /// is set or the clock reaches `until` (simulations). Returns every pass entry.
 #[allow(clippy::too_many_arguments)]
 pub fn run_forever(
-    conn: &mut Connection,
+    store: &mut Store,
     config: &Config,
     clock: &dyn Clock,
     runner: &mut dyn PeriodRunner,
@@ -349,7 +393,7 @@ pub fn run_forever(
         if stop.load(Ordering::SeqCst) || until.is_some_and(|u| clock.now() >= u) {
             break;
         }
-        let entries = run_pass(conn, config, clock, runner, options, stop, log)?;
+        let entries = run_pass(store, config, clock, runner, options, stop, log)?;
         let had_failure = entries
             .iter()
             .any(|e| matches!(e.outcome, PeriodOutcome::Failed(..) | PeriodOutcome::Leased));
@@ -358,7 +402,7 @@ pub fn run_forever(
             break;
         }
         let now = clock.now();
-        let Some(mut wake) = next_wake(conn, config, now, runner, options, had_failure)? else {
+        let Some(mut wake) = next_wake(store, config, now, runner, options, had_failure)? else {
             break;
         };
         if let Some(u) = until {

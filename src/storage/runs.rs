@@ -399,6 +399,19 @@ pub fn recover_abandoned(conn: &Connection, now_ms: i64) -> Result<usize> {
     Ok(n)
 }
 
+/// Marks as failed ("abandoned") the `running` runs of one schedule and period. Called by the
+/// holder of that period's lease: while it holds the lease, no other process can be running it.
+pub fn abandon_running(conn: &Connection, key: &LeaseKey, now_ms: i64) -> Result<usize> {
+    let n = conn.execute(
+        "UPDATE run SET status = 'failed', finished_ms = ?4,
+            error = 'abandoned: the process stopped before the run was written; no results were kept'
+         WHERE status = 'running' AND COALESCE(schedule, '') = ?1 AND period_kind = ?2
+           AND period_label = ?3",
+        params![key.schedule, key.period_kind, key.period_label, now_ms],
+    )?;
+    Ok(n)
+}
+
 const RUN_COLUMNS: &str = "run_id, version, period_kind, period_label, period_start_ms, \
     period_end_ms, schedule, config_hash, tool_version, fdr_method, fdr_level, started_ms, \
     finished_ms, status, error, n_tests, n_flagged";
@@ -678,6 +691,17 @@ pub fn flagged_tests(
     Ok(Some(rows))
 }
 
+/// The earliest measurement instant in the store (ms since the epoch), `None` when empty.
+pub fn first_measurement_ms(conn: &Connection) -> Result<Option<i64>> {
+    Ok(conn.query_row("SELECT MIN(ts_ms) FROM measurements", [], |r| r.get(0))?)
+}
+
+/// Number of lease rows (taken and not released).
+pub fn lease_count(conn: &Connection) -> Result<usize> {
+    let n: i64 = conn.query_row("SELECT COUNT(*) FROM run_lease", [], |r| r.get(0))?;
+    Ok(n as usize)
+}
+
 /// Identifies one lease: schedule (`""` for a run by hand) and period.
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub struct LeaseKey {
@@ -740,6 +764,43 @@ pub fn heartbeat(
     Ok(changed == 1)
 }
 
+/// The current holder of a lease, if any.
+pub fn lease_holder(conn: &Connection, key: &LeaseKey) -> Result<Option<String>> {
+    Ok(conn
+        .query_row(
+            "SELECT holder FROM run_lease WHERE schedule = ?1 AND period_kind = ?2
+             AND period_label = ?3",
+            params![key.schedule, key.period_kind, key.period_label],
+            |r| r.get(0),
+        )
+        .optional()?)
+}
+
+/// Takes a lease over from `old` (known to be dead); atomic: fails if someone else got it first.
+pub fn take_over_lease(
+    conn: &Connection,
+    key: &LeaseKey,
+    old: &str,
+    holder: &str,
+    now_ms: i64,
+    ttl_ms: i64,
+) -> Result<bool> {
+    let changed = conn.execute(
+        "UPDATE run_lease SET holder = ?5, taken_ms = ?6, heartbeat_ms = ?6, expires_ms = ?7
+         WHERE schedule = ?1 AND period_kind = ?2 AND period_label = ?3 AND holder = ?4",
+        params![
+            key.schedule,
+            key.period_kind,
+            key.period_label,
+            old,
+            holder,
+            now_ms,
+            now_ms + ttl_ms
+        ],
+    )?;
+    Ok(changed == 1)
+}
+
 /// Gives the lease up (only when `holder` holds it).
 pub fn release_lease(conn: &Connection, key: &LeaseKey, holder: &str) -> Result<()> {
     conn.execute(
@@ -748,6 +809,13 @@ pub fn release_lease(conn: &Connection, key: &LeaseKey, holder: &str) -> Result<
         params![key.schedule, key.period_kind, key.period_label, holder],
     )?;
     Ok(())
+}
+
+impl crate::storage::Store {
+    /// The connection, for the run-history functions of this module.
+    pub fn connection(&self) -> &Connection {
+        &self.conn
+    }
 }
 
 #[cfg(test)]

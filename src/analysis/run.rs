@@ -1,0 +1,238 @@
+//! Running a check against the store: load the period once, analyse it ([`super::check_frame`]),
+//! and record it as a run (one transaction at the end, see `storage::runs`). Also the
+//! [`EngineRunner`] through which the scheduler runs periods.
+
+use std::collections::HashSet;
+
+use chrono::{DateTime, Utc};
+use sha2::{Digest, Sha256};
+
+use super::{check_frame, fdr_name, CheckOptions, Frame, FrameCharacteristic, FrameFactor};
+use crate::calendar::PlantCalendar;
+use crate::config::{Config, ScheduleConfig};
+use crate::model::{Period, PeriodKind};
+use crate::schedule::PeriodRunner;
+use crate::storage::runs::{self, RunContent, RunHeader, StoredRun};
+use crate::storage::PeriodFrame;
+use crate::storage::Store;
+use crate::Result;
+
+/// A frame from the store's period frame (moves the columns, no copy).
+pub fn frame_from(pf: PeriodFrame) -> Frame {
+    Frame {
+        factors: pf
+            .factors
+            .into_iter()
+            .map(|f| FrameFactor {
+                name: f.name,
+                levels: f.levels,
+            })
+            .collect(),
+        characteristics: pf
+            .characteristics
+            .into_iter()
+            .map(|c| FrameCharacteristic {
+                characteristic: c.characteristic,
+                origin: c.origin,
+                values: c.values,
+                level_idx: c.level_idx,
+            })
+            .collect(),
+    }
+}
+
+/// Hash of the configuration that produced a run: SHA-256 of the configuration file's bytes
+/// (or of its parsed form when the file cannot be read), first 16 hex digits.
+pub fn config_hash(config: &Config) -> String {
+    let mut h = Sha256::new();
+    match std::fs::read(&config.path) {
+        Ok(bytes) => h.update(&bytes),
+        Err(_) => h.update(format!("{config:?}").as_bytes()),
+    }
+    h.finalize()
+        .iter()
+        .take(8)
+        .map(|b| format!("{b:02x}"))
+        .collect()
+}
+
+/// Flagged (characteristic, factor) pairs of the latest complete run of the period before
+/// `period` (`None` when it has no complete run). Ranges have no previous period of the same kind.
+pub fn previous_flags(
+    store: &Store,
+    calendar: &PlantCalendar,
+    period: &Period,
+) -> Result<Option<HashSet<(String, String)>>> {
+    if period.kind == PeriodKind::Range {
+        return Ok(None);
+    }
+    let prev = period.previous(calendar);
+    Ok(
+        runs::flagged_tests(&store.conn, prev.kind.as_str(), &prev.label)?
+            .map(|v| v.into_iter().collect()),
+    )
+}
+
+/// Runs the check of one period (nothing is written).
+pub fn run_check(
+    store: &Store,
+    config: &Config,
+    period: &Period,
+    options: &CheckOptions,
+) -> Result<RunContent> {
+    let calendar = PlantCalendar::new(config);
+    let frame = frame_from(store.load_period(
+        period.start,
+        period.end,
+        options.characteristics.as_deref(),
+    )?);
+    let prev = previous_flags(store, &calendar, period)?;
+    check_frame(&frame, options, prev.as_ref())
+}
+
+/// The run row for a period.
+pub fn header(
+    config: &Config,
+    period: &Period,
+    schedule: Option<&str>,
+    options: &CheckOptions,
+) -> RunHeader {
+    RunHeader {
+        period_kind: period.kind.as_str().to_string(),
+        period_label: period.label.clone(),
+        period_start_ms: period.start.timestamp_millis(),
+        period_end_ms: period.end.timestamp_millis(),
+        schedule: schedule.map(str::to_string),
+        config_hash: config_hash(config),
+        tool_version: env!("CARGO_PKG_VERSION").to_string(),
+        fdr_method: fdr_name(options.fdr_method).to_string(),
+        fdr_level: options.fdr_level,
+    }
+}
+
+/// Runs and records a check by hand (`samewise check`): a `running` row, the analysis, then all
+/// results in one transaction; on failure the run is marked failed with the error, and the error
+/// is returned. `now` gives the start and end instants.
+pub fn check_and_record(
+    store: &mut Store,
+    config: &Config,
+    period: &Period,
+    options: &CheckOptions,
+    now: &dyn Fn() -> DateTime<Utc>,
+) -> Result<(StoredRun, RunContent)> {
+    let head = header(config, period, None, options);
+    // A run by hand holds the lease of schedule "" for its period, so a scheduler's recovery
+    // never mistakes it for an abandoned run, and two checks of one period never overlap.
+    let key = runs::LeaseKey {
+        schedule: String::new(),
+        period_kind: head.period_kind.clone(),
+        period_label: head.period_label.clone(),
+    };
+    let holder = format!("check:{}:{}", std::process::id(), now().timestamp_millis());
+    let ttl = crate::schedule::DEFAULT_LEASE_TTL.num_milliseconds();
+    if !runs::take_lease(&store.conn, &key, &holder, now().timestamp_millis(), ttl)? {
+        return Err(crate::Error::Usage(format!(
+            "another check of {} is running (its lease expires within {} minutes)",
+            period.label,
+            crate::schedule::DEFAULT_LEASE_TTL.num_minutes()
+        )));
+    }
+    runs::abandon_running(&store.conn, &key, now().timestamp_millis())?;
+    let result = check_holding_lease(store, config, period, options, now, &head);
+    runs::release_lease(&store.conn, &key, &holder)?;
+    result
+}
+
+fn check_holding_lease(
+    store: &mut Store,
+    config: &Config,
+    period: &Period,
+    options: &CheckOptions,
+    now: &dyn Fn() -> DateTime<Utc>,
+    head: &RunHeader,
+) -> Result<(StoredRun, RunContent)> {
+    let run = runs::begin_run(&mut store.conn, head, now().timestamp_millis())?;
+    match run_check(store, config, period, options) {
+        Ok(content) => {
+            if let Err(e) = runs::complete_run(
+                &mut store.conn,
+                run.run_id,
+                now().timestamp_millis(),
+                &content,
+            ) {
+                runs::fail_run(
+                    &store.conn,
+                    run.run_id,
+                    now().timestamp_millis(),
+                    &e.to_string(),
+                )?;
+                return Err(e);
+            }
+            let stored =
+                runs::latest_complete_run(&store.conn, &head.period_kind, &head.period_label)?
+                    .unwrap_or(run);
+            Ok((stored, content))
+        }
+        Err(e) => {
+            runs::fail_run(
+                &store.conn,
+                run.run_id,
+                now().timestamp_millis(),
+                &e.to_string(),
+            )?;
+            Err(e)
+        }
+    }
+}
+
+/// The engine as the scheduler's [`PeriodRunner`]: per schedule, its characteristics, factors and
+/// FDR level over the configuration's `[check]` settings.
+pub struct EngineRunner<'a> {
+    config: &'a Config,
+}
+
+impl<'a> EngineRunner<'a> {
+    /// A runner for `config`.
+    pub fn new(config: &'a Config) -> Self {
+        EngineRunner { config }
+    }
+
+    /// The check options of a schedule.
+    pub fn options_for(&self, schedule: &ScheduleConfig) -> CheckOptions {
+        let mut o = CheckOptions::from_config(self.config);
+        if let Some(level) = schedule.fdr_level {
+            o.fdr_level = level;
+        }
+        if !schedule.characteristics.is_empty() {
+            o.characteristics = Some(schedule.characteristics.clone());
+        }
+        if !schedule.factors.is_empty() {
+            o.factors = Some(schedule.factors.clone());
+        }
+        o
+    }
+}
+
+impl PeriodRunner for EngineRunner<'_> {
+    fn first_measurement(&mut self, store: &Store) -> Result<Option<DateTime<Utc>>> {
+        Ok(runs::first_measurement_ms(&store.conn)?.and_then(DateTime::from_timestamp_millis))
+    }
+
+    fn header(&self, schedule: &ScheduleConfig, period: &Period) -> RunHeader {
+        header(
+            self.config,
+            period,
+            Some(&schedule.name),
+            &self.options_for(schedule),
+        )
+    }
+
+    fn compute(
+        &mut self,
+        store: &Store,
+        schedule: &ScheduleConfig,
+        period: &Period,
+    ) -> Result<RunContent> {
+        run_check(store, self.config, period, &self.options_for(schedule))
+    }
+}

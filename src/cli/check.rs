@@ -1,0 +1,387 @@
+//! `samewise check`: one period, every active characteristic x every factor, FDR across the run,
+//! stored as a new run version; terminal summary, `--json`, `--csv FILE`.
+//!
+//! Exit status: 0 nothing flagged, 3 at least one flag, 1 error (see `cli::EXIT_*`).
+
+use std::io::Write;
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+use chrono::{NaiveDate, Utc};
+use clap::Args;
+
+use crate::analysis::run::check_and_record;
+use crate::analysis::{state, CheckOptions};
+use crate::calendar::PlantCalendar;
+use crate::config::Config;
+use crate::model::Period;
+use crate::stats::fdr::FdrMethod;
+use crate::storage::runs::{is_flag_state, RunContent, StoredRun, TestRow};
+use crate::{Error, Result};
+
+/// Flags of `samewise check`.
+#[derive(Debug, Args)]
+pub struct CheckArgs {
+    /// Plant configuration (default: $SAMEWISE_CONFIG, then ./plant.toml).
+    #[arg(long)]
+    pub config: Option<PathBuf>,
+    /// A production day, e.g. 2026-11-30.
+    #[arg(long, group = "period")]
+    pub day: Option<String>,
+    /// A shift, e.g. 2026-11-30/night.
+    #[arg(long, group = "period")]
+    pub shift: Option<String>,
+    /// An ISO week of production days, e.g. 2026-W48.
+    #[arg(long, group = "period")]
+    pub week: Option<String>,
+    /// A month of production days, e.g. 2026-11.
+    #[arg(long, group = "period")]
+    pub month: Option<String>,
+    /// First production day of a range (with --to).
+    #[arg(long, group = "period", requires = "to")]
+    pub from: Option<String>,
+    /// Last production day of a range (included).
+    #[arg(long, requires = "from")]
+    pub to: Option<String>,
+    /// Print one JSON object instead of the summary.
+    #[arg(long)]
+    pub json: bool,
+    /// Also write every test as a CSV row to FILE.
+    #[arg(long, value_name = "FILE")]
+    pub csv: Option<PathBuf>,
+    /// False-discovery procedure: bh (Benjamini-Hochberg) or by (Benjamini-Yekutieli).
+    #[arg(long, value_parser = ["bh", "by"])]
+    pub fdr: Option<String>,
+    /// False-discovery level q (default from the configuration, 0.05).
+    #[arg(long)]
+    pub level: Option<f64>,
+}
+
+/// The period named by the flags.
+pub fn period_from_flags(args: &CheckArgs, calendar: &PlantCalendar) -> Result<Period> {
+    let label = if let Some(d) = &args.day {
+        NaiveDate::parse_from_str(d, "%Y-%m-%d")
+            .map_err(|_| Error::Usage(format!("--day {d}: not a date (write 2026-11-30)")))?;
+        d.clone()
+    } else if let Some(s) = args
+        .shift
+        .as_ref()
+        .or(args.week.as_ref())
+        .or(args.month.as_ref())
+    {
+        s.clone()
+    } else if let (Some(a), Some(b)) = (&args.from, &args.to) {
+        format!("{a}..{b}")
+    } else {
+        return Err(Error::Usage(
+            "say which period: --day D, --shift D/NAME, --week 2026-W48, --month 2026-11 or --from A --to B".into(),
+        ));
+    };
+    Period::parse_label(&label, calendar)
+}
+
+/// Runs `samewise check`.
+pub fn run(args: &CheckArgs) -> Result<ExitCode> {
+    let config = super::common::load_config(args.config.as_deref())?;
+    let calendar = PlantCalendar::new(&config);
+    let period = period_from_flags(args, &calendar)?;
+    let mut options = CheckOptions::from_config(&config);
+    if let Some(f) = &args.fdr {
+        options.fdr_method = if f == "by" {
+            FdrMethod::BenjaminiYekutieli
+        } else {
+            FdrMethod::BenjaminiHochberg
+        };
+    }
+    if let Some(level) = args.level {
+        if !(level > 0.0 && level < 1.0) {
+            return Err(Error::Usage(format!(
+                "--level {level}: the false-discovery level must lie between 0 and 1"
+            )));
+        }
+        options.fdr_level = level;
+    }
+    let mut store = super::common::open_store(&config)?;
+    let (run, content) = check_and_record(&mut store, &config, &period, &options, &Utc::now)?;
+    if let Some(path) = &args.csv {
+        write_csv(path, &content)?;
+    }
+    let mut out = std::io::stdout().lock();
+    let written = if args.json {
+        print_json(&mut out, &config, &period, &run, &content)
+    } else {
+        print_summary(&mut out, &period, &run, &content)
+    };
+    // A closed stdout pipe counts as success.
+    if let Err(e) = written {
+        if e.kind() != std::io::ErrorKind::BrokenPipe {
+            return Err(Error::io("<stdout>", e));
+        }
+    }
+    let flagged = content.tests.iter().any(|t| is_flag_state(&t.state));
+    Ok(ExitCode::from(if flagged {
+        super::EXIT_FLAGGED
+    } else {
+        super::EXIT_OK
+    }))
+}
+
+/// A number in 4 significant digits, or "-" when absent.
+pub fn num(x: Option<f64>) -> String {
+    match x {
+        None => "-".into(),
+        Some(0.0) => "0".into(),
+        Some(v) if v.abs() < 1e-3 || v.abs() >= 1e5 => format!("{v:.2e}"),
+        Some(v) => {
+            let digits = (3 - v.abs().log10().floor() as i32).clamp(0, 6) as usize;
+            format!("{v:.digits$}")
+        }
+    }
+}
+
+/// The standing-out group in words: `M2 +0.0113 (1.1 SD, 5.6% tol)`.
+pub fn standout(t: &TestRow) -> String {
+    let Some(level) = &t.standout_level else {
+        return "-".into();
+    };
+    let mut s = format!(
+        "{level} {}{}",
+        if t.standout_diff.unwrap_or(0.0) >= 0.0 {
+            "+"
+        } else {
+            ""
+        },
+        num(t.standout_diff)
+    );
+    if let Some(sd) = t.standout_sd_units {
+        s.push_str(&format!(" ({:+.2} SD", sd));
+        if let Some(pct) = t.standout_pct_tolerance {
+            s.push_str(&format!(", {pct:+.1}% tol"));
+        }
+        s.push(')');
+    }
+    s
+}
+
+fn sorted(content: &RunContent) -> Vec<&TestRow> {
+    let mut tests: Vec<&TestRow> = content.tests.iter().collect();
+    tests.sort_by(|a, b| {
+        (state::rank(&a.state), a.q_value.unwrap_or(2.0), a.test_idx)
+            .partial_cmp(&(state::rank(&b.state), b.q_value.unwrap_or(2.0), b.test_idx))
+            .unwrap_or(std::cmp::Ordering::Equal)
+    });
+    tests
+}
+
+fn print_summary(
+    out: &mut impl Write,
+    period: &Period,
+    run: &StoredRun,
+    content: &RunContent,
+) -> std::io::Result<()> {
+    let n_flag = content
+        .tests
+        .iter()
+        .filter(|t| is_flag_state(&t.state))
+        .count();
+    writeln!(
+        out,
+        "check {} ({}), run {} version {}: {} tests, {} flagged at {} q <= {}",
+        period.label,
+        period.kind,
+        run.run_id,
+        run.version,
+        content.tests.len(),
+        n_flag,
+        run.header.fdr_method.to_uppercase(),
+        run.header.fdr_level
+    )?;
+    writeln!(
+        out,
+        "{:<22} {:<20} {:<14} {:<10} {:<9} {:>9} {:>9} {:>7}  {:<34} new",
+        "state", "characteristic", "factor", "leading", "F", "p", "q", "between", "stands out"
+    )?;
+    for t in sorted(content) {
+        writeln!(
+            out,
+            "{:<22} {:<20} {:<14} {:<10} {:<9} {:>9} {:>9} {:>7}  {:<34} {}",
+            state::label(&t.state),
+            t.characteristic,
+            t.factor,
+            match t.leading_method.as_deref() {
+                Some("welch") => "Welch F",
+                Some(_) => "F",
+                None => "-",
+            },
+            num(t.leading_statistic),
+            num(t.leading_p),
+            num(t.q_value),
+            t.share_between
+                .map_or("-".to_string(), |s| format!("{:.1}%", 100.0 * s)),
+            standout(t),
+            if t.is_new { "new" } else { "" }
+        )?;
+    }
+    writeln!(out)?;
+    writeln!(out, "{}", crate::CAUTION)
+}
+
+fn json_num(x: Option<f64>) -> serde_json::Value {
+    x.filter(|v| v.is_finite())
+        .map_or(serde_json::Value::Null, serde_json::Value::from)
+}
+
+/// One test as a JSON object (field names as the stored columns).
+pub fn test_json(t: &TestRow) -> serde_json::Value {
+    serde_json::json!({
+        "characteristic": t.characteristic, "factor": t.factor, "state": t.state, "is_new": t.is_new,
+        "n_obs": t.n_obs, "n_groups": t.n_groups, "n_groups_used": t.n_groups_used,
+        "leading": {"method": t.leading_method, "reason": t.leading_reason,
+                    "statistic": json_num(t.leading_statistic), "p": json_num(t.leading_p),
+                    "recommend_kruskal_wallis": t.recommend_kruskal},
+        "q_value": json_num(t.q_value),
+        "anova": {"f": json_num(t.anova_f), "df_between": json_num(t.anova_df1), "df_within": json_num(t.anova_df2),
+                  "p": json_num(t.anova_p), "ss_between": json_num(t.ss_between), "ss_within": json_num(t.ss_within),
+                  "ms_within": json_num(t.ms_within), "r_squared": json_num(t.r_squared), "resid_sd": json_num(t.resid_sd)},
+        "welch": {"f": json_num(t.welch_f), "df1": json_num(t.welch_df1), "df2": json_num(t.welch_df2), "p": json_num(t.welch_p)},
+        "kruskal_wallis": {"h": json_num(t.kruskal_h), "p": json_num(t.kruskal_p)},
+        "levene": {"statistic": json_num(t.levene_stat), "p": json_num(t.levene_p)},
+        "brown_forsythe": {"statistic": json_num(t.brown_forsythe_stat), "p": json_num(t.brown_forsythe_p)},
+        "bartlett": {"statistic": json_num(t.bartlett_stat), "p": json_num(t.bartlett_p)},
+        "shapiro_wilk": {"w": json_num(t.shapiro_w), "p": json_num(t.shapiro_p)},
+        "sd_ratio": json_num(t.sd_ratio), "n_beyond_3sd": t.n_beyond_3sd,
+        "effect": {"eta_squared": json_num(t.eta_squared), "omega_squared": json_num(t.omega_squared)},
+        "variance_components": {"between": json_num(t.var_between), "within": json_num(t.var_within),
+                                "share_between": json_num(t.share_between), "icc": json_num(t.icc),
+                                "icc_ci": [json_num(t.icc_low), json_num(t.icc_high)]},
+        "tolerance": json_num(t.tolerance), "spread_of_means": json_num(t.spread_of_means),
+        "spread_pct_tolerance": json_num(t.spread_pct_tolerance),
+        "stands_out": {"level": t.standout_level, "diff": json_num(t.standout_diff),
+                       "sd_units": json_num(t.standout_sd_units), "pct_tolerance": json_num(t.standout_pct_tolerance)},
+        "sensitivity": {"min_detectable_diff": json_num(t.min_detectable_diff),
+                        "min_detectable_pct_tolerance": json_num(t.min_detectable_pct_tolerance)},
+        "notes": t.notes,
+    })
+}
+
+fn print_json(
+    out: &mut impl Write,
+    config: &Config,
+    period: &Period,
+    run: &StoredRun,
+    content: &RunContent,
+) -> std::io::Result<()> {
+    let tests: Vec<serde_json::Value> = sorted(content)
+        .into_iter()
+        .map(|t| {
+            let mut v = test_json(t);
+            let groups: Vec<serde_json::Value> = content
+                .groups
+                .iter()
+                .filter(|g| g.test_idx == t.test_idx)
+                .map(|g| serde_json::json!({"level": g.level, "n": g.n, "mean_offset": g.mean,
+                    "sd": json_num(g.sd), "min_offset": g.min, "max_offset": g.max, "origin": g.origin,
+                    "diff_from_grand": json_num(g.diff_from_grand)}))
+                .collect();
+            let pairs: Vec<serde_json::Value> = content
+                .pairs
+                .iter()
+                .filter(|p| p.test_idx == t.test_idx)
+                .map(|p| serde_json::json!({"a": p.level_a, "b": p.level_b, "method": p.method,
+                    "diff": p.diff, "se": p.se, "statistic": p.statistic, "df": p.df,
+                    "p_adj": p.p_adj, "ci_low": p.ci_low, "ci_high": p.ci_high}))
+                .collect();
+            v["groups"] = groups.into();
+            v["pairs"] = pairs.into();
+            v
+        })
+        .collect();
+    let doc = serde_json::json!({
+        "plant": config.plant.name,
+        "period": {"kind": period.kind.as_str(), "label": period.label,
+                   "start": period.start.to_rfc3339(), "end": period.end.to_rfc3339()},
+        "run": {"run_id": run.run_id, "version": run.version, "config_hash": run.header.config_hash,
+                "tool_version": run.header.tool_version, "fdr_method": run.header.fdr_method,
+                "fdr_level": run.header.fdr_level},
+        "n_tests": content.tests.len(),
+        "n_flagged": content.tests.iter().filter(|t| is_flag_state(&t.state)).count(),
+        "tests": tests,
+        "caution": crate::CAUTION,
+    });
+    serde_json::to_writer_pretty(&mut *out, &doc)?;
+    writeln!(out)
+}
+
+fn write_csv(path: &std::path::Path, content: &RunContent) -> Result<()> {
+    let mut w = csv::Writer::from_path(path).map_err(|e| Error::Io {
+        path: path.to_path_buf(),
+        source: std::io::Error::other(e),
+    })?;
+    let header = [
+        "characteristic",
+        "factor",
+        "state",
+        "is_new",
+        "n_obs",
+        "n_groups_used",
+        "leading_method",
+        "leading_statistic",
+        "leading_p",
+        "q_value",
+        "anova_f",
+        "anova_p",
+        "welch_f",
+        "welch_p",
+        "kruskal_h",
+        "kruskal_p",
+        "brown_forsythe_p",
+        "shapiro_p",
+        "share_between",
+        "spread_of_means",
+        "spread_pct_tolerance",
+        "standout_level",
+        "standout_diff",
+        "standout_sd_units",
+        "standout_pct_tolerance",
+        "notes",
+    ];
+    let io = |e: csv::Error| Error::Io {
+        path: path.to_path_buf(),
+        source: std::io::Error::other(e),
+    };
+    w.write_record(header).map_err(io)?;
+    let f = |x: Option<f64>| x.map_or(String::new(), |v| format!("{v:?}"));
+    for t in sorted(content) {
+        w.write_record([
+            t.characteristic.clone(),
+            t.factor.clone(),
+            t.state.clone(),
+            t.is_new.to_string(),
+            t.n_obs.to_string(),
+            t.n_groups_used.to_string(),
+            t.leading_method.clone().unwrap_or_default(),
+            f(t.leading_statistic),
+            f(t.leading_p),
+            f(t.q_value),
+            f(t.anova_f),
+            f(t.anova_p),
+            f(t.welch_f),
+            f(t.welch_p),
+            f(t.kruskal_h),
+            f(t.kruskal_p),
+            f(t.brown_forsythe_p),
+            f(t.shapiro_p),
+            f(t.share_between),
+            f(t.spread_of_means),
+            f(t.spread_pct_tolerance),
+            t.standout_level.clone().unwrap_or_default(),
+            f(t.standout_diff),
+            f(t.standout_sd_units),
+            f(t.standout_pct_tolerance),
+            t.notes.clone(),
+        ])
+        .map_err(io)?;
+    }
+    w.flush().map_err(|e| Error::io(path, e))?;
+    Ok(())
+}
