@@ -33,7 +33,6 @@ use crate::config::CharacteristicConfig;
 use crate::stats::decimal::Decimal;
 use crate::stats::describe::Summary;
 use crate::stats::fdr::{self, FdrMethod};
-use crate::stats::normality::shapiro_wilk;
 use crate::stats::oneway::{self, LeadingMethod, OneWayOptions, Tolerance};
 use crate::stats::posthoc::{self, Pair};
 use crate::stats::power::sensitivity;
@@ -421,6 +420,8 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
     let origin = c.origin.to_string();
     let mut summaries: Vec<Summary> = groups.iter().map(|g| Summary::from_slice(g)).collect();
     let mut leading = None;
+    let mut bundle_vc = None;
+    let mut bundle_sensitivity = None;
     if used.len() < 2 {
         push_note(
             &mut notes,
@@ -433,6 +434,8 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
             power_target: options.power_target,
             detect: None,
             tolerance,
+            // Pairs are computed below, only for the tests flagged after the FDR adjustment.
+            with_pairs: false,
         };
         match oneway::analyze(&groups, &oneway_options) {
             Err(e) => push_note(&mut notes, &format!("one-way analysis: {}", e.reason)),
@@ -489,21 +492,17 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
                     row.eta_squared = Some(e.eta_squared);
                     row.omega_squared = Some(e.omega_squared);
                 }
-                // Shapiro-Wilk on the residuals (value - group mean).
-                let residuals: Vec<f64> = groups
-                    .iter()
-                    .zip(&summaries)
-                    .flat_map(|(g, s)| g.iter().map(move |v| v - s.mean))
-                    .collect();
-                let sw = shapiro_wilk(&residuals);
-                note_unavailable(&mut notes, "Shapiro-Wilk", &sw);
-                if let Ok(sw) = sw {
+                // Shapiro-Wilk on the residuals (value - group mean), as the bundle computed it.
+                note_unavailable(&mut notes, "Shapiro-Wilk", &ow.shapiro_wilk);
+                if let Ok(sw) = &ow.shapiro_wilk {
                     row.shapiro_w = Some(sw.w);
                     row.shapiro_p = Some(sw.p);
                 }
+                bundle_vc = Some(ow.variance_components);
+                bundle_sensitivity = Some(ow.sensitivity);
             }
         }
-        let vc = one_way_random(&summaries, options.confidence);
+        let vc = bundle_vc.unwrap_or_else(|| one_way_random(&summaries, options.confidence));
         note_unavailable(&mut notes, "variance components", &vc);
         if let Ok(vc) = &vc {
             row.var_between = Some(vc.between);
@@ -516,14 +515,16 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
             }
         }
         if let Some(sd) = row.resid_sd.filter(|s| *s > 0.0) {
-            let sens = sensitivity(
-                &summaries,
-                sd,
-                options.alpha,
-                options.power_target,
-                None,
-                tol_width,
-            );
+            let sens = bundle_sensitivity.unwrap_or_else(|| {
+                sensitivity(
+                    &summaries,
+                    sd,
+                    options.alpha,
+                    options.power_target,
+                    None,
+                    tol_width,
+                )
+            });
             note_unavailable(&mut notes, "sensitivity", &sens);
             if let Ok(s) = sens {
                 row.min_detectable_diff = ok(&s.min_detectable_diff);

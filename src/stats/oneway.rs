@@ -73,6 +73,9 @@ pub struct OneWayOptions {
     pub detect: Option<f64>,
     /// Specification limits, when known.
     pub tolerance: Option<Tolerance>,
+    /// Compute the all-pairs comparisons (`OneWay::pairs`). A periodic check turns this off and
+    /// computes pairs only for the tests it flags after the false-discovery adjustment.
+    pub with_pairs: bool,
 }
 
 impl Default for OneWayOptions {
@@ -83,6 +86,7 @@ impl Default for OneWayOptions {
             power_target: 0.8,
             detect: None,
             tolerance: None,
+            with_pairs: true,
         }
     }
 }
@@ -150,7 +154,8 @@ pub struct OneWay {
     pub variance_components: Stat<VarianceComponents>,
     /// The leading result.
     pub leading: Leading,
-    /// All pairs (a < b): Games-Howell when Welch leads, Tukey-Kramer otherwise.
+    /// All pairs (a < b): Games-Howell when Welch leads, Tukey-Kramer otherwise (empty when
+    /// `OneWayOptions::with_pairs` is off).
     pub pairs: Vec<Stat<Pair>>,
     /// Each group's mean against the grand mean.
     pub group_effects: Vec<GroupEffect>,
@@ -303,6 +308,7 @@ pub fn analyze(groups: &[&[f64]], options: &OneWayOptions) -> Stat<OneWay> {
     }
     let variance_components = one_way_random(&summaries, options.confidence);
     let pairs = match leading.method {
+        _ if !options.with_pairs => Vec::new(),
         LeadingMethod::Welch => games_howell(&summaries, options.confidence),
         LeadingMethod::ClassicF => tukey_kramer(&summaries, options.confidence),
     };
