@@ -110,7 +110,7 @@ pub fn run(args: &CheckArgs) -> Result<ExitCode> {
     let written = if args.json {
         print_json(&mut out, &config, &period, &run, &content)
     } else {
-        print_summary(&mut out, &period, &run, &content)
+        print_summary(&mut out, &period, &run, &content, None)
     };
     // A closed stdout pipe counts as success.
     if let Err(e) = written {
@@ -173,11 +173,14 @@ fn sorted(content: &RunContent) -> Vec<&TestRow> {
     tests
 }
 
-fn print_summary(
+/// Prints the terminal summary of a run, flagged tests first. `max_unflagged` limits the lines
+/// of tests without a flag (the rest are counted in one line); `None` prints them all.
+pub fn print_summary(
     out: &mut impl Write,
     period: &Period,
     run: &StoredRun,
     content: &RunContent,
+    max_unflagged: Option<usize>,
 ) -> std::io::Result<()> {
     let n_flag = content
         .tests
@@ -201,7 +204,14 @@ fn print_summary(
         "{:<22} {:<20} {:<14} {:<10} {:<9} {:>9} {:>9} {:>7}  {:<34} new",
         "state", "characteristic", "factor", "leading", "F", "p", "q", "between", "stands out"
     )?;
+    let mut unflagged = 0usize;
     for t in sorted(content) {
+        if !is_flag_state(&t.state) {
+            unflagged += 1;
+            if max_unflagged.is_some_and(|m| unflagged > m) {
+                continue;
+            }
+        }
         writeln!(
             out,
             "{:<22} {:<20} {:<14} {:<10} {:<9} {:>9} {:>9} {:>7}  {:<34} {}",
@@ -220,6 +230,13 @@ fn print_summary(
                 .map_or("-".to_string(), |s| format!("{:.1}%", 100.0 * s)),
             standout(t),
             if t.is_new { "new" } else { "" }
+        )?;
+    }
+    if let Some(m) = max_unflagged.filter(|m| unflagged > *m) {
+        writeln!(
+            out,
+            "... and {} more tests without a flag (samewise check lists them all)",
+            unflagged - m
         )?;
     }
     writeln!(out)?;

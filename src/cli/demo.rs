@@ -10,15 +10,22 @@ use std::collections::BTreeMap;
 use std::fs;
 use std::path::{Path, PathBuf};
 use std::process::ExitCode;
+use std::sync::atomic::AtomicBool;
 use std::time::Instant;
 
 use chrono::{NaiveDateTime, TimeZone, Utc};
 use clap::Args;
 use indicatif::{ProgressBar, ProgressStyle};
 
+use crate::analysis::run::EngineRunner;
+use crate::calendar::PlantCalendar;
+use crate::cli::check as check_cli;
+use crate::cli::schedule as schedule_cli;
 use crate::config::Config;
 use crate::ingest;
 use crate::sample;
+use crate::schedule::{self, PeriodOutcome, SchedulerOptions, SimulatedClock};
+use crate::storage::runs;
 use crate::storage::ImportOptions;
 use crate::storage::{NewEvent, Store};
 use crate::{Error, Result};
@@ -114,7 +121,9 @@ pub fn prepare(dir: &Path, quiet: bool) -> Result<(Config, Store, Vec<PathBuf>, 
             .time_zone
             .from_local_datetime(&local)
             .single()
-            .ok_or_else(|| Error::Usage(format!("sample event time {} is ambiguous", event.at_local)))?
+            .ok_or_else(|| {
+                Error::Usage(format!("sample event time {} is ambiguous", event.at_local))
+            })?
             .with_timezone(&Utc);
         let scope = event
             .where_level
@@ -134,6 +143,109 @@ pub fn prepare(dir: &Path, quiet: bool) -> Result<(Config, Store, Vec<PathBuf>, 
     Ok((config, store, exports, totals))
 }
 
+/// The instant the demo's catch-up runs at: noon UTC after the last production day, when every
+/// daily, weekly and monthly period of the sample plant is due.
+pub fn demo_now() -> chrono::DateTime<Utc> {
+    Utc.with_ymd_and_hms(2026, 11, 30, 12, 0, 0)
+        .single()
+        .expect("valid instant")
+}
+
+/// Runs the scheduler's catch-up over every due period; returns (completed, failed).
+pub fn catch_up(store: &mut Store, config: &Config, quiet: bool) -> Result<(usize, usize)> {
+    let clock = SimulatedClock::new(demo_now());
+    let mut runner = EngineRunner::new(config);
+    let options = SchedulerOptions::new(schedule_cli::holder_name());
+    let stop = AtomicBool::new(false);
+    let pb = if quiet {
+        ProgressBar::hidden()
+    } else {
+        let pb = ProgressBar::new_spinner();
+        pb.set_style(
+            ProgressStyle::with_template("  {spinner} {msg} ({elapsed})")
+                .unwrap_or_else(|_| ProgressStyle::default_spinner()),
+        );
+        pb
+    };
+    let mut done = 0usize;
+    let mut log = |line: &str| {
+        if line.contains(" complete") {
+            done += 1;
+            pb.set_message(format!("catch-up: {done} periods checked, last {line}"));
+            pb.tick();
+        }
+    };
+    let entries = schedule::run_pass(
+        store,
+        config,
+        &clock,
+        &mut runner,
+        &options,
+        &stop,
+        &mut log,
+    )?;
+    pb.finish_and_clear();
+    let completed = entries
+        .iter()
+        .filter(|e| matches!(e.outcome, PeriodOutcome::Completed(_)))
+        .count();
+    let failed = entries
+        .iter()
+        .filter(|e| matches!(e.outcome, PeriodOutcome::Failed(..)))
+        .count();
+    Ok((completed, failed))
+}
+
+/// One finding of the demo's story, computed from the stored daily runs.
+#[derive(Debug, Clone)]
+pub struct Finding {
+    /// Characteristic.
+    pub characteristic: String,
+    /// Factor.
+    pub factor: String,
+    /// Daily runs looked at.
+    pub days: usize,
+    /// Days flagged (differs or differs and material).
+    pub days_flagged: usize,
+    /// The level that stood out most often on flagged days, with its count.
+    pub top_level: Option<(String, usize)>,
+    /// First flagged production day.
+    pub first_flagged: Option<String>,
+    /// Days with Brown-Forsythe p < 0.05 (a difference in spread).
+    pub days_spread_differs: usize,
+}
+
+/// Summarises the daily history of one characteristic x factor.
+pub fn finding(store: &Store, characteristic: &str, factor: &str) -> Result<Finding> {
+    let points = runs::history(store.connection(), characteristic, factor, "day", 10_000)?;
+    let mut levels: BTreeMap<String, usize> = BTreeMap::new();
+    let mut f = Finding {
+        characteristic: characteristic.into(),
+        factor: factor.into(),
+        days: points.len(),
+        days_flagged: 0,
+        top_level: None,
+        first_flagged: None,
+        days_spread_differs: 0,
+    };
+    for p in &points {
+        if p.test.brown_forsythe_p.is_some_and(|p| p < 0.05) {
+            f.days_spread_differs += 1;
+        }
+        if runs::is_flag_state(&p.test.state) {
+            f.days_flagged += 1;
+            if f.first_flagged.is_none() {
+                f.first_flagged = Some(p.run.header.period_label.clone());
+            }
+            if let Some(level) = &p.test.standout_level {
+                *levels.entry(level.clone()).or_default() += 1;
+            }
+        }
+    }
+    f.top_level = levels.into_iter().max_by_key(|(_, n)| *n);
+    Ok(f)
+}
+
 /// Runs `samewise demo`.
 pub fn run(args: &DemoArgs) -> Result<ExitCode> {
     let started = Instant::now();
@@ -142,7 +254,7 @@ pub fn run(args: &DemoArgs) -> Result<ExitCode> {
          suppliers, 90 days) in {}",
         args.dir.display()
     );
-    let (config, _store, exports, totals) = prepare(&args.dir, args.quiet)?;
+    let (config, mut store, exports, totals) = prepare(&args.dir, args.quiet)?;
     println!(
         "\n1. Imported {} exports: {} measurements read, {} stored, {} rejected (accepted + rejected = read)",
         totals.files, totals.measurements_read, totals.accepted, totals.rejected
@@ -159,6 +271,108 @@ pub fn run(args: &DemoArgs) -> Result<ExitCode> {
             .map(|p| p.display().to_string())
             .unwrap_or_default()
     );
+
+    println!(
+        "\n2. Recorded {} process-change events (samewise event list).",
+        sample::events().len()
+    );
+
+    let (completed, failed) = catch_up(&mut store, &config, args.quiet)?;
+    println!(
+        "\n3. Scheduler catch-up at {}: {completed} periods checked ({} schedules: {}), {failed} failed.",
+        demo_now().format("%Y-%m-%d %H:%M UTC"),
+        config.schedules.len(),
+        config
+            .schedules
+            .iter()
+            .map(|s| s.name.as_str())
+            .collect::<Vec<_>>()
+            .join(", ")
+    );
+
+    let calendar = PlantCalendar::new(&config);
+    let last_day = sample::first_day() + chrono::Duration::days(sample::N_DAYS - 1);
+    let period = calendar.day(last_day);
+    if let Some(run) = runs::latest_complete_run(store.connection(), "day", &period.label)? {
+        let content = runs::run_content(store.connection(), run.run_id)?;
+        println!("\n4. The latest daily check ({}):\n", period.label);
+        let mut out = std::io::stdout().lock();
+        check_cli::print_summary(&mut out, &period, &run, &content, Some(5))
+            .map_err(|e| Error::io("<stdout>", e))?;
+    }
+
+    println!("\n5. What the 90 days show (the sample plant's injected effects are listed in sample-plant/README.md):");
+    let mass = finding(&store, "housing_mass", "supplier")?;
+    println!(
+        "   - housing_mass by supplier: flagged on {} of {} days; {} stands out most often ({} days).",
+        mass.days_flagged,
+        mass.days,
+        mass.top_level.as_ref().map_or("no supplier", |l| l.0.as_str()),
+        mass.top_level.as_ref().map_or(0, |l| l.1)
+    );
+    let bore = finding(&store, "bore_diameter", "machine")?;
+    let change = sample::tooling_change_day().format("%Y-%m-%d").to_string();
+    let points = runs::history(
+        store.connection(),
+        "bore_diameter",
+        "machine",
+        "day",
+        10_000,
+    )?;
+    let before = points
+        .iter()
+        .filter(|p| p.run.header.period_label < change && runs::is_flag_state(&p.test.state))
+        .count();
+    let first_after = points.iter().find(|p| {
+        p.run.header.period_label >= change
+            && runs::is_flag_state(&p.test.state)
+            && p.test.standout_level.as_deref() == Some("M4")
+    });
+    println!(
+        "   - bore_diameter by machine: flagged on {} of {} days ({} before the tooling change of {change}); \
+         M4 first stands out on {} and on {} days in all.",
+        bore.days_flagged,
+        bore.days,
+        before,
+        first_after.map_or("no day", |p| p.run.header.period_label.as_str()),
+        bore.top_level
+            .as_ref()
+            .filter(|l| l.0 == "M4")
+            .map_or(0, |l| l.1)
+    );
+    let wall = finding(&store, "wall_thickness", "shift")?;
+    println!(
+        "   - wall_thickness by shift: the spread differs (Brown-Forsythe p < 0.05) on {} of {} days; \
+         the means differ on {} (a spread difference, not an offset: see the group SDs with samewise check).",
+        wall.days_spread_differs, wall.days, wall.days_flagged
+    );
+    let injected = [
+        ("housing_mass", "supplier"),
+        ("bore_diameter", "machine"),
+        ("bore_diameter", "operator"),
+        ("wall_thickness", "shift"),
+    ];
+    let (mut null_tests, mut null_flags) = (0usize, 0usize);
+    for c in &config.characteristics {
+        for f in &config.factors {
+            if injected.contains(&(c.name.as_str(), f.name.as_str())) {
+                continue;
+            }
+            let n = finding(&store, &c.name, &f.name)?;
+            null_tests += n.days;
+            null_flags += n.days_flagged;
+        }
+    }
+    println!(
+        "   - every other characteristic x factor: {null_flags} flags in {null_tests} daily tests \
+         ({:.2}%); bore_diameter by operator follows M4, because each operator looks after two machines.",
+        if null_tests > 0 {
+            100.0 * null_flags as f64 / null_tests as f64
+        } else {
+            0.0
+        }
+    );
+
     println!(
         "\nDone in {:.1} s.\n\n{}",
         started.elapsed().as_secs_f64(),
