@@ -1,0 +1,100 @@
+//! End to end: `samewise demo` on the invented sample plant finds the injected effects
+//! (sample-plant/README.md: heavier castings from Castalloy, M4's bore drift after the tooling
+//! change of 2026-10-19, more wall-thickness spread on the night shift) and mostly nothing else.
+
+use std::path::PathBuf;
+use std::process::Command;
+
+fn temp_dir(name: &str) -> PathBuf {
+    let dir = std::env::temp_dir().join(format!("samewise-test-{name}-{}", std::process::id()));
+    let _ = std::fs::remove_dir_all(&dir);
+    std::fs::create_dir_all(&dir).unwrap();
+    dir
+}
+
+/// The first number after `key` in `line`.
+fn number_after(line: &str, key: &str) -> f64 {
+    let rest = &line[line
+        .find(key)
+        .unwrap_or_else(|| panic!("{key:?} in {line:?}"))
+        + key.len()..];
+    let text: String = rest
+        .trim_start()
+        .chars()
+        .take_while(|c| c.is_ascii_digit() || *c == '.')
+        .collect();
+    text.parse()
+        .unwrap_or_else(|_| panic!("number after {key:?} in {line:?}"))
+}
+
+fn story_line<'a>(stdout: &'a str, start: &str) -> &'a str {
+    stdout
+        .lines()
+        .find(|l| l.trim_start().starts_with(start))
+        .unwrap_or_else(|| panic!("no line starting {start:?} in:\n{stdout}"))
+}
+
+#[test]
+fn demo_finds_the_injected_effects() {
+    let dir = temp_dir("demo");
+    let out = Command::new(env!("CARGO_BIN_EXE_samewise"))
+        .args(["demo", "--quiet", "--dir"])
+        .arg(&dir)
+        .output()
+        .unwrap();
+    let stdout = String::from_utf8_lossy(&out.stdout);
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert!(out.status.success(), "demo failed:\n{stdout}\n{stderr}");
+
+    // Import: every measurement stored or rejected, and the planted bad rows were rejected.
+    let import = story_line(&stdout, "1. Imported 6 exports");
+    let read = number_after(import, "exports:");
+    let stored = number_after(import, "read,");
+    let rejected = number_after(import, "stored,");
+    assert_eq!(stored + rejected, read, "{import}");
+    assert!(rejected >= 10.0 && rejected < 100.0, "{import}");
+
+    // Catch-up ran every schedule without a failure.
+    let catch_up = story_line(&stdout, "3. Scheduler catch-up");
+    assert!(catch_up.contains(", 0 failed"), "{catch_up}");
+    assert!(
+        number_after(catch_up, "UTC:") >= 90.0 + 13.0 + 3.0,
+        "{catch_up}"
+    );
+
+    // Heavier castings from Castalloy: flagged on (nearly) every day, Castalloy standing out.
+    let mass = story_line(&stdout, "- housing_mass by supplier");
+    assert!(number_after(mass, "flagged on") >= 80.0, "{mass}");
+    assert!(mass.contains("Castalloy stands out"), "{mass}");
+
+    // M4's bore drifts after the tooling change: flagged after, with M4 standing out, and not
+    // (or hardly) before.
+    let bore = story_line(&stdout, "- bore_diameter by machine");
+    let before = number_after(bore, "days (");
+    assert!(before <= 3.0, "{bore}");
+    let first = bore
+        .split("M4 first stands out on ")
+        .nth(1)
+        .unwrap_or_else(|| panic!("{bore}"));
+    assert!(
+        first[..10] >= *"2026-10-19" && first[..10] <= *"2026-11-15",
+        "{bore}"
+    );
+    assert!(number_after(bore, "and on") >= 10.0, "{bore}");
+
+    // Night-shift spread: a variance difference, seen by Brown-Forsythe on most days.
+    let wall = story_line(&stdout, "- wall_thickness by shift");
+    assert!(number_after(wall, "on") >= 60.0, "{wall}");
+
+    // Everything else: false flags stay rare (BH at q = 0.05 over 40 tests a day).
+    let null = story_line(&stdout, "- every other characteristic");
+    let flags = number_after(null, "factor:");
+    let tests = number_after(null, "flags in");
+    assert!(tests >= 3000.0, "{null}");
+    assert!(flags / tests < 0.02, "{null}");
+
+    // The latest daily summary and the caution are printed.
+    assert!(stdout.contains("check 2026-11-29 (day)"));
+    assert!(stdout.contains("decision support"));
+    let _ = std::fs::remove_dir_all(&dir);
+}
