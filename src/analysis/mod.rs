@@ -24,6 +24,7 @@
 //! "New" marks a flag that the latest complete run of the previous period of the same kind did
 //! not have (when no previous run exists, every flag is new).
 
+pub mod report;
 pub mod run;
 
 use std::collections::HashSet;

@@ -9,6 +9,7 @@ use clap::{Parser, Subcommand};
 
 use crate::Error;
 
+pub mod chart;
 pub mod check;
 pub mod common;
 pub mod compare;
@@ -19,6 +20,7 @@ pub mod history;
 pub mod import;
 pub mod init;
 pub mod investigate;
+pub mod report;
 pub mod schedule;
 pub mod status;
 
@@ -66,6 +68,10 @@ pub enum Command {
     History(history::HistoryArgs),
     /// Run the configured schedules: `due` once (for cron), `run` in the foreground.
     Schedule(schedule::ScheduleArgs),
+    /// Write the monthly review report (one self-contained HTML file) from the stored runs.
+    Report(report::ReportArgs),
+    /// Draw one chart (trend, share, detail, grid, before-after) as SVG or PNG.
+    Chart(chart::ChartArgs),
     /// Print a shell completion script (bash, zsh or fish) to stdout.
     Completions {
         /// The shell.
@@ -95,6 +101,8 @@ pub fn run(args: Args) -> crate::Result<ExitCode> {
         Command::Check(a) => check::run(&a),
         Command::History(a) => history::run(&a),
         Command::Schedule(a) => schedule::run(&a),
+        Command::Report(a) => report::run(&a, chrono::Utc::now()),
+        Command::Chart(a) => chart::run(&a),
         Command::Completions { shell } => {
             let mut cmd = <Args as clap::CommandFactory>::command();
             let mut out = std::io::stdout().lock();

@@ -27,6 +27,7 @@ pub use events::{Event, NewEvent};
 pub use import::{ImportOptions, ImportReport, PriorImport};
 pub use maintenance::{CharacteristicStatus, IntegrityReport, Status};
 pub use master::{StoredCharacteristic, StoredFactor, SyncReport};
+pub(crate) use query::closest;
 pub use query::{exact_value, CharacteristicFrame, FactorLevels, PeriodFrame};
 
 use std::path::{Path, PathBuf};

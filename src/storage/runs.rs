@@ -672,6 +672,32 @@ pub fn history(
     Ok(points)
 }
 
+/// The latest complete run of every `period_kind` period whose start lies in
+/// `[start_ms, end_ms)`, in time order (the month report and the chart command read these).
+pub fn latest_complete_runs_between(
+    conn: &Connection,
+    period_kind: &str,
+    start_ms: i64,
+    end_ms: i64,
+) -> Result<Vec<StoredRun>> {
+    let run_cols: String = RUN_COLUMNS
+        .split(',')
+        .map(|c| format!("r.{}", c.trim()))
+        .collect::<Vec<_>>()
+        .join(", ");
+    let sql = format!(
+        "SELECT {run_cols} FROM run r
+         WHERE r.period_kind = ?1 AND r.status = 'complete'
+           AND r.period_start_ms >= ?2 AND r.period_start_ms < ?3
+           AND r.version = (SELECT MAX(version) FROM run r2 WHERE r2.period_kind = r.period_kind
+                            AND r2.period_label = r.period_label AND r2.status = 'complete')
+         ORDER BY r.period_start_ms, r.period_label"
+    );
+    let mut st = conn.prepare(&sql)?;
+    let rows = st.query_map(params![period_kind, start_ms, end_ms], run_from_row)?;
+    Ok(rows.collect::<rusqlite::Result<_>>()?)
+}
+
 /// Flagged (characteristic, factor) pairs of the latest complete run of a period.
 pub fn flagged_tests(
     conn: &Connection,

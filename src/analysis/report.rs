@@ -1,0 +1,975 @@
+//! Builds the report layer's plain inputs (src/report/input.rs) from the stored run history and
+//! the store: trend, share, month grid, period detail, before/after an event, and the whole
+//! monthly review report.
+//!
+//! Reads only: every figure drawn comes from the latest complete run of its period (the run
+//! history is the record of what was checked) or, for the value-level charts (detail,
+//! before/after), from the stored measurements. Nothing here recomputes a check. Stored means are
+//! offsets from the characteristic's exact origin; they are shifted back to the characteristic's
+//! own unit here, so the charts show 12.031 mm, not 0.031.
+//!
+//! Start reading at [`month_report`]. Time is an argument; nothing here reads the clock.
+
+use std::collections::{BTreeMap, BTreeSet, HashMap};
+use std::path::{Path, PathBuf};
+
+use chrono::{DateTime, Duration, NaiveDate, Utc};
+use statrs::distribution::{ContinuousCDF, StudentsT};
+
+use crate::analysis::state;
+use crate::calendar::PlantCalendar;
+use crate::config::{CharacteristicConfig, Config};
+use crate::model::{Period, PeriodKind};
+use crate::report::{
+    self, BeforeAfterGroup, BeforeAfterInput, CharacteristicSection, Coverage, DetailGroup,
+    DetailInput, EventMarker, FactorCharts, FlagState, FlaggedItem, Format, GridInput, GridRow,
+    GroupPoint, Limits, MonthReport, RequirementNote, ShareInput, SharePeriod, Size, StateCounts,
+    TimedValue, TrendInput, TrendPeriod,
+};
+use crate::stats::decimal::Decimal;
+use crate::storage::runs::{self, RunContent, StoredRun, TestRow};
+use crate::storage::Store;
+use crate::{Error, Result};
+
+/// Confidence of the intervals of group means drawn in the charts.
+pub const CONFIDENCE: f64 = 0.95;
+
+/// One stored run with its content.
+#[derive(Debug, Clone)]
+pub struct LoadedRun {
+    /// The run.
+    pub run: StoredRun,
+    /// Its tests, groups and pairs.
+    pub content: RunContent,
+}
+
+impl LoadedRun {
+    fn test(&self, characteristic: &str, factor: &str) -> Option<&TestRow> {
+        self.content
+            .tests
+            .iter()
+            .find(|t| t.characteristic == characteristic && t.factor == factor)
+    }
+
+    fn start(&self) -> DateTime<Utc> {
+        ms(self.run.header.period_start_ms)
+    }
+
+    fn end(&self) -> DateTime<Utc> {
+        ms(self.run.header.period_end_ms)
+    }
+}
+
+fn ms(v: i64) -> DateTime<Utc> {
+    DateTime::<Utc>::from_timestamp_millis(v).unwrap_or_default()
+}
+
+/// The latest complete run (with content) of every `kind` period starting in `[from, to)`.
+pub fn load_runs(
+    store: &Store,
+    kind: PeriodKind,
+    from: DateTime<Utc>,
+    to: DateTime<Utc>,
+) -> Result<Vec<LoadedRun>> {
+    let conn = store.connection();
+    runs::latest_complete_runs_between(
+        conn,
+        kind.as_str(),
+        from.timestamp_millis(),
+        to.timestamp_millis(),
+    )?
+    .into_iter()
+    .map(|run| {
+        let content = runs::run_content(conn, run.run_id)?;
+        Ok(LoadedRun { run, content })
+    })
+    .collect()
+}
+
+/// The stored state name as the report's [`FlagState`].
+pub fn flag_state(stored: &str) -> FlagState {
+    match stored {
+        state::DIFFERS_MATERIAL => FlagState::DiffersMaterial,
+        state::DIFFERS => FlagState::Differs,
+        state::NO_EVIDENCE => FlagState::NoEvidence,
+        _ => FlagState::TooLittleData,
+    }
+}
+
+/// The configured characteristic, or a usage error that suggests the closest configured name.
+pub fn find_characteristic<'a>(config: &'a Config, name: &str) -> Result<&'a CharacteristicConfig> {
+    config.characteristic(name).ok_or_else(|| {
+        let hint =
+            crate::storage::closest(name, config.characteristics.iter().map(|c| c.name.as_str()))
+                .map_or(String::new(), |c| format!(" (did you mean \"{c}\"?)"));
+        Error::Usage(format!(
+            "unknown characteristic \"{name}\" in {}{hint}",
+            config.path.display()
+        ))
+    })
+}
+
+/// The configured factor's index, or a usage error that suggests the closest configured name.
+pub fn find_factor(config: &Config, name: &str) -> Result<usize> {
+    config.factor_index(name).ok_or_else(|| {
+        let hint = crate::storage::closest(name, config.factors.iter().map(|f| f.name.as_str()))
+            .map_or(String::new(), |c| format!(" (did you mean \"{c}\"?)"));
+        Error::Usage(format!(
+            "unknown factor \"{name}\" in {}{hint}",
+            config.path.display()
+        ))
+    })
+}
+
+fn limits(c: &CharacteristicConfig) -> Limits {
+    Limits {
+        lsl: c.lsl,
+        usl: c.usl,
+        target: c.target,
+    }
+}
+
+/// Half-width factor of the two-sided interval of a mean: t(1 - (1 - confidence)/2, n - 1).
+fn t_factor(n: u64) -> Option<f64> {
+    if n < 2 {
+        return None;
+    }
+    let t = StudentsT::new(0.0, 1.0, (n - 1) as f64).ok()?;
+    Some(t.inverse_cdf(1.0 - (1.0 - CONFIDENCE) / 2.0))
+}
+
+/// Mean and its interval, from the values' count, mean and standard deviation.
+fn interval(n: u64, mean: f64, sd: Option<f64>) -> (Option<f64>, Option<f64>) {
+    match (t_factor(n), sd) {
+        (Some(t), Some(sd)) if sd.is_finite() => {
+            let h = t * sd / (n as f64).sqrt();
+            (Some(mean - h), Some(mean + h))
+        }
+        _ => (None, None),
+    }
+}
+
+fn origin_value(text: &str) -> f64 {
+    Decimal::parse(text).map_or(0.0, |d| d.to_f64())
+}
+
+fn group_points(content: &RunContent, test_idx: i64) -> Vec<GroupPoint> {
+    content
+        .groups
+        .iter()
+        .filter(|g| g.test_idx == test_idx)
+        .map(|g| {
+            let mean = origin_value(&g.origin) + g.mean;
+            let (ci_low, ci_high) = interval(g.n as u64, mean, g.sd);
+            GroupPoint {
+                level: g.level.clone(),
+                n: g.n as u64,
+                mean,
+                ci_low,
+                ci_high,
+            }
+        })
+        .collect()
+}
+
+/// Events in `[from, to)` that concern `characteristic` (or no characteristic in particular).
+pub fn event_markers(
+    store: &Store,
+    characteristic: Option<&str>,
+    from: DateTime<Utc>,
+    to: DateTime<Utc>,
+) -> Result<Vec<EventMarker>> {
+    Ok(store
+        .events(Some(from), Some(to))?
+        .into_iter()
+        .filter(|e| match (characteristic, &e.characteristic) {
+            (Some(c), Some(ec)) => c == ec,
+            _ => true,
+        })
+        .map(|e| EventMarker {
+            at: e.at,
+            label: format!("#{} {}", e.id, e.note),
+        })
+        .collect())
+}
+
+fn trend_from_runs(
+    c: &CharacteristicConfig,
+    factor: &str,
+    loaded: &[LoadedRun],
+    events: Vec<EventMarker>,
+) -> TrendInput {
+    let periods = loaded
+        .iter()
+        .map(|r| {
+            let test = r.test(&c.name, factor);
+            TrendPeriod {
+                label: r.run.header.period_label.clone(),
+                start: r.start(),
+                end: r.end(),
+                state: test.map_or(FlagState::NotRun, |t| flag_state(&t.state)),
+                groups: test.map_or(Vec::new(), |t| group_points(&r.content, t.test_idx)),
+            }
+        })
+        .collect();
+    TrendInput {
+        characteristic: c.name.clone(),
+        unit: c.unit.clone(),
+        factor: factor.to_string(),
+        limits: limits(c),
+        periods,
+        events,
+    }
+}
+
+fn share_from_runs(
+    c: &CharacteristicConfig,
+    factor: &str,
+    loaded: &[LoadedRun],
+    events: Vec<EventMarker>,
+) -> ShareInput {
+    let periods = loaded
+        .iter()
+        .map(|r| {
+            let test = r.test(&c.name, factor);
+            SharePeriod {
+                label: r.run.header.period_label.clone(),
+                start: r.start(),
+                end: r.end(),
+                state: test.map_or(FlagState::NotRun, |t| flag_state(&t.state)),
+                share: test.and_then(|t| t.share_between),
+                // The stored interval is that of the ICC, which in the one-way random model is
+                // the between-group share of the total variance.
+                ci_low: test.and_then(|t| t.icc_low).map(|v| v.clamp(0.0, 1.0)),
+                ci_high: test.and_then(|t| t.icc_high).map(|v| v.clamp(0.0, 1.0)),
+            }
+        })
+        .collect();
+    ShareInput {
+        characteristic: c.name.clone(),
+        factor: factor.to_string(),
+        // The plant's material share is a share of the tolerance (spread of group means), not a
+        // share of variance, so it is not drawn on this axis.
+        material_share: None,
+        confidence: CONFIDENCE,
+        periods,
+        events,
+    }
+}
+
+/// The group trend of `characteristic` by `factor` over the `kind` periods starting in
+/// `[from, to)`, from the latest complete run of each, with the events of that range.
+pub fn trend_input(
+    store: &Store,
+    config: &Config,
+    characteristic: &str,
+    factor: &str,
+    kind: PeriodKind,
+    from: DateTime<Utc>,
+    to: DateTime<Utc>,
+) -> Result<TrendInput> {
+    let c = find_characteristic(config, characteristic)?;
+    find_factor(config, factor)?;
+    let loaded = load_runs(store, kind, from, to)?;
+    let events = event_markers(store, Some(characteristic), from, to)?;
+    Ok(trend_from_runs(c, factor, &loaded, events))
+}
+
+/// The between-group share of `characteristic` by `factor` over the `kind` periods starting in
+/// `[from, to)`.
+pub fn share_input(
+    store: &Store,
+    config: &Config,
+    characteristic: &str,
+    factor: &str,
+    kind: PeriodKind,
+    from: DateTime<Utc>,
+    to: DateTime<Utc>,
+) -> Result<ShareInput> {
+    let c = find_characteristic(config, characteristic)?;
+    find_factor(config, factor)?;
+    let loaded = load_runs(store, kind, from, to)?;
+    let events = event_markers(store, Some(characteristic), from, to)?;
+    Ok(share_from_runs(c, factor, &loaded, events))
+}
+
+/// The production days whose start lies in the period.
+pub fn days_of(calendar: &PlantCalendar, period: &Period) -> Vec<NaiveDate> {
+    let mut day = calendar.production_day(period.start);
+    let mut days = Vec::new();
+    while calendar.day_start_utc(day) < period.end {
+        if calendar.day_start_utc(day) >= period.start {
+            days.push(day);
+        }
+        match day.succ_opt() {
+            Some(d) => day = d,
+            None => break,
+        }
+    }
+    days
+}
+
+fn grid_from_runs(
+    config: &Config,
+    month: &Period,
+    days: &[NaiveDate],
+    loaded: &[LoadedRun],
+) -> GridInput {
+    let by_label: HashMap<&str, &LoadedRun> = loaded
+        .iter()
+        .map(|r| (r.run.header.period_label.as_str(), r))
+        .collect();
+    let labels: Vec<String> = days
+        .iter()
+        .map(|d| d.format("%Y-%m-%d").to_string())
+        .collect();
+    let mut rows = Vec::new();
+    for c in config.characteristics.iter().filter(|c| c.is_active) {
+        for f in &config.factors {
+            let cells = labels
+                .iter()
+                .map(|l| {
+                    by_label
+                        .get(l.as_str())
+                        .and_then(|r| r.test(&c.name, &f.name))
+                        .map_or(FlagState::NotRun, |t| flag_state(&t.state))
+                })
+                .collect();
+            rows.push(GridRow {
+                characteristic: c.name.clone(),
+                factor: f.name.clone(),
+                cells,
+            });
+        }
+    }
+    GridInput {
+        title: format!("{} daily checks", month.label),
+        days: days.to_vec(),
+        rows,
+    }
+}
+
+/// The month grid: one row per active characteristic x factor, one column per production day of
+/// the month, each cell the state of the latest complete daily run ("not run" where none).
+pub fn grid_input(store: &Store, config: &Config, month: &Period) -> Result<GridInput> {
+    let calendar = PlantCalendar::new(config);
+    let days = days_of(&calendar, month);
+    let loaded = load_runs(store, PeriodKind::Day, month.start, month.end)?;
+    Ok(grid_from_runs(config, month, &days, &loaded))
+}
+
+/// Values of one characteristic in `[start, end)` split by the levels of one factor:
+/// `(level, Vec<(ts_ms, value in the unit)>)`, levels in the store's order.
+type LevelValues = Vec<(String, Vec<(i64, f64)>)>;
+
+fn values_by_level(
+    store: &Store,
+    characteristic: &str,
+    factor: &str,
+    start: DateTime<Utc>,
+    end: DateTime<Utc>,
+) -> Result<LevelValues> {
+    let frame = store.load_period(start, end, Some(&[characteristic.to_string()]))?;
+    let Some(f_idx) = frame.factors.iter().position(|f| f.name == factor) else {
+        return Err(Error::Usage(format!(
+            "factor \"{factor}\" is not in the database (run `samewise init` after changing the configuration)"
+        )));
+    };
+    let levels = &frame.factors[f_idx].levels;
+    let mut out: LevelValues = levels.iter().map(|l| (l.clone(), Vec::new())).collect();
+    if let Some(c) = frame.characteristics.first() {
+        let origin = c.origin.to_f64();
+        for (row, &v) in c.values.iter().enumerate() {
+            let level = c.level_idx[f_idx][row] as usize;
+            if let Some(slot) = out.get_mut(level) {
+                slot.1.push((c.ts_ms[row], origin + v));
+            }
+        }
+    }
+    out.retain(|(_, v)| !v.is_empty());
+    Ok(out)
+}
+
+fn mean_sd(values: &[f64]) -> (f64, Option<f64>) {
+    let s = crate::stats::describe::Summary::from_slice(values);
+    (s.mean, s.sd())
+}
+
+/// The period detail of `characteristic` by `factor`: every value of the period per group with
+/// the group mean and its 95% interval, the grand mean, and the residuals (value minus group mean).
+pub fn detail_input(
+    store: &Store,
+    config: &Config,
+    characteristic: &str,
+    factor: &str,
+    period: &Period,
+) -> Result<DetailInput> {
+    let c = find_characteristic(config, characteristic)?;
+    find_factor(config, factor)?;
+    let by_level = values_by_level(store, characteristic, factor, period.start, period.end)?;
+    if by_level.is_empty() {
+        return Err(Error::Usage(format!(
+            "no values of \"{characteristic}\" in {}",
+            period.label
+        )));
+    }
+    let mut all = Vec::new();
+    let mut residuals = Vec::new();
+    let groups = by_level
+        .into_iter()
+        .map(|(level, tv)| {
+            let values: Vec<f64> = tv.into_iter().map(|(_, v)| v).collect();
+            let (mean, sd) = mean_sd(&values);
+            let (ci_low, ci_high) = interval(values.len() as u64, mean, sd);
+            all.extend_from_slice(&values);
+            residuals.extend(values.iter().map(|v| v - mean));
+            DetailGroup {
+                level,
+                values,
+                mean,
+                ci_low,
+                ci_high,
+            }
+        })
+        .collect();
+    Ok(DetailInput {
+        characteristic: c.name.clone(),
+        unit: c.unit.clone(),
+        factor: factor.to_string(),
+        period_label: period.label.clone(),
+        limits: limits(c),
+        grand_mean: mean_sd(&all).0,
+        groups,
+        residuals,
+    })
+}
+
+/// Above this many values in a group the before/after chart shows production-day means.
+const MAX_POINTS_PER_GROUP: usize = 400;
+
+/// Values of `characteristic` by `factor` in `[at - window, at + window)` around event
+/// `event_id`, per group, with the group's mean before and after the event. Groups with many
+/// values are shown as production-day means (the means before/after are always of the values).
+pub fn before_after_input(
+    store: &Store,
+    config: &Config,
+    characteristic: &str,
+    factor: &str,
+    event_id: i64,
+    window: Duration,
+) -> Result<BeforeAfterInput> {
+    let c = find_characteristic(config, characteristic)?;
+    find_factor(config, factor)?;
+    let events = store.events(None, None)?;
+    let Some(event) = events.iter().find(|e| e.id == event_id) else {
+        let known: Vec<String> = events.iter().map(|e| e.id.to_string()).collect();
+        return Err(Error::Usage(format!(
+            "no event #{event_id} (known: {}; list them with `samewise event list`)",
+            if known.is_empty() {
+                "none".to_string()
+            } else {
+                known.join(", ")
+            }
+        )));
+    };
+    let start = event.at - window;
+    let end = event.at + window;
+    let by_level = values_by_level(store, characteristic, factor, start, end)?;
+    let calendar = PlantCalendar::new(config);
+    let at_ms = event.at.timestamp_millis();
+    let is_aggregated = by_level.iter().any(|(_, v)| v.len() > MAX_POINTS_PER_GROUP);
+    let groups = by_level
+        .into_iter()
+        .map(|(level, tv)| {
+            let before: Vec<f64> = tv.iter().filter(|p| p.0 < at_ms).map(|p| p.1).collect();
+            let after: Vec<f64> = tv.iter().filter(|p| p.0 >= at_ms).map(|p| p.1).collect();
+            let points = if is_aggregated {
+                day_means(&calendar, &tv, at_ms)
+            } else {
+                tv.iter()
+                    .map(|&(t, value)| TimedValue { at: ms(t), value })
+                    .collect()
+            };
+            BeforeAfterGroup {
+                level,
+                points,
+                mean_before: (!before.is_empty()).then(|| mean_sd(&before).0),
+                mean_after: (!after.is_empty()).then(|| mean_sd(&after).0),
+            }
+        })
+        .collect();
+    Ok(BeforeAfterInput {
+        characteristic: c.name.clone(),
+        unit: c.unit.clone(),
+        factor: factor.to_string(),
+        point_kind: if is_aggregated {
+            "production-day mean".to_string()
+        } else {
+            "value".to_string()
+        },
+        window_start: start,
+        window_end: end,
+        event: EventMarker {
+            at: event.at,
+            label: format!("#{} {}", event.id, event.note),
+        },
+        limits: limits(c),
+        groups,
+    })
+}
+
+/// Means per production day, the day containing the event split at the event so no mean mixes
+/// before and after; each point sits at the middle of its values' time span.
+fn day_means(calendar: &PlantCalendar, tv: &[(i64, f64)], at_ms: i64) -> Vec<TimedValue> {
+    let mut buckets: BTreeMap<(NaiveDate, bool), (f64, u64, i64, i64)> = BTreeMap::new();
+    for &(t, v) in tv {
+        let key = (calendar.production_day(ms(t)), t >= at_ms);
+        let e = buckets.entry(key).or_insert((0.0, 0, i64::MAX, i64::MIN));
+        e.0 += v;
+        e.1 += 1;
+        e.2 = e.2.min(t);
+        e.3 = e.3.max(t);
+    }
+    buckets
+        .values()
+        .map(|&(sum, n, lo, hi)| TimedValue {
+            at: ms(lo + (hi - lo) / 2),
+            value: sum / n as f64,
+        })
+        .collect()
+}
+
+fn leading_name(t: &TestRow) -> String {
+    match t.leading_method.as_deref() {
+        Some("welch") => "Welch".to_string(),
+        Some(_) => "classic F".to_string(),
+        None => "none".to_string(),
+    }
+}
+
+fn flagged_item(c: &CharacteristicConfig, r: &LoadedRun, t: &TestRow) -> FlaggedItem {
+    FlaggedItem {
+        characteristic: t.characteristic.clone(),
+        factor: t.factor.clone(),
+        unit: c.unit.clone(),
+        period_label: r.run.header.period_label.clone(),
+        state: flag_state(&t.state),
+        test: leading_name(t),
+        p_value: t.leading_p.unwrap_or(f64::NAN),
+        q_value: t.q_value.unwrap_or(f64::NAN),
+        share_between: t.share_between,
+        standing_out: t.standout_level.clone().unwrap_or_else(|| "-".to_string()),
+        diff_units: t.standout_diff.unwrap_or(f64::NAN),
+        diff_pct_tolerance: t.standout_pct_tolerance,
+        pairs: r
+            .content
+            .pairs
+            .iter()
+            .filter(|p| p.test_idx == t.test_idx)
+            .map(|p| report::PairRow {
+                a: p.level_a.clone(),
+                b: p.level_b.clone(),
+                diff: p.diff,
+                ci_low: p.ci_low,
+                ci_high: p.ci_high,
+                p_adj: p.p_adj,
+                method: match p.method.as_str() {
+                    "games_howell" => "Games-Howell".to_string(),
+                    "tukey_kramer" => "Tukey-Kramer".to_string(),
+                    other => other.to_string(),
+                },
+            })
+            .collect(),
+    }
+}
+
+/// Flagged (characteristic, factor) pairs of some runs, with the number of flagged periods.
+fn flag_counts(loaded: &[LoadedRun]) -> BTreeMap<(String, String), usize> {
+    let mut out = BTreeMap::new();
+    for r in loaded {
+        for t in r
+            .content
+            .tests
+            .iter()
+            .filter(|t| runs::is_flag_state(&t.state))
+        {
+            *out.entry((t.characteristic.clone(), t.factor.clone()))
+                .or_insert(0) += 1;
+        }
+    }
+    out
+}
+
+/// How far before/after an event the report's before/after charts reach.
+pub const EVENT_WINDOW_DAYS: i64 = 7;
+
+/// Everything the monthly review report needs, for the month `month` (a month period of the
+/// plant calendar). The checks counted are the month's daily runs (latest complete version of
+/// each day); `generated` is the text shown as the report's date (the caller reads the clock).
+pub fn month_report(
+    store: &Store,
+    config: &Config,
+    month: &Period,
+    generated: &str,
+) -> Result<MonthReport> {
+    let calendar = PlantCalendar::new(config);
+    let days = days_of(&calendar, month);
+    let loaded = load_runs(store, PeriodKind::Day, month.start, month.end)?;
+    let grid = grid_from_runs(config, month, &days, &loaded);
+
+    // Counts over the grid: one check per cell.
+    let mut counts = StateCounts::default();
+    for row in &grid.rows {
+        for &cell in &row.cells {
+            counts.add(cell);
+        }
+    }
+
+    // What is new compared with the previous month.
+    let previous = calendar.previous_period(month);
+    let previous_runs = load_runs(store, PeriodKind::Day, previous.start, previous.end)?;
+    let now_flags = flag_counts(&loaded);
+    let before_flags = flag_counts(&previous_runs);
+    let mut new_this_month = Vec::new();
+    if loaded.is_empty() {
+        new_this_month.push(format!(
+            "No complete daily run is stored for {}: run `samewise schedule due` or `samewise check --day DAY` first.",
+            month.label
+        ));
+    }
+    for ((c, f), n) in &now_flags {
+        if !before_flags.contains_key(&(c.clone(), f.clone())) {
+            let since = if previous_runs.is_empty() {
+                format!("no daily run is stored for {}", previous.label)
+            } else {
+                format!("not flagged in {}", previous.label)
+            };
+            new_this_month.push(format!("{c} by {f}: flagged on {n} day(s); {since}."));
+        }
+    }
+    for ((c, f), n) in &before_flags {
+        if !now_flags.contains_key(&(c.clone(), f.clone())) && !loaded.is_empty() {
+            new_this_month.push(format!(
+                "{c} by {f}: no longer flagged (flagged on {n} day(s) in {}).",
+                previous.label
+            ));
+        }
+    }
+    let n_new_flags: usize = loaded
+        .iter()
+        .flat_map(|r| r.content.tests.iter())
+        .filter(|t| t.is_new && runs::is_flag_state(&t.state))
+        .count();
+    if n_new_flags > 0 {
+        new_this_month.push(format!(
+            "{n_new_flags} flag(s) were new against the previous period of the same comparison."
+        ));
+    }
+
+    // Flagged items and requirement notes.
+    let mut flagged = Vec::new();
+    let mut requirement_notes = Vec::new();
+    for r in &loaded {
+        for t in r
+            .content
+            .tests
+            .iter()
+            .filter(|t| runs::is_flag_state(&t.state))
+        {
+            let Some(c) = config.characteristic(&t.characteristic) else {
+                continue;
+            };
+            flagged.push(flagged_item(c, r, t));
+            for note in requirement_texts(t) {
+                requirement_notes.push(RequirementNote {
+                    characteristic: t.characteristic.clone(),
+                    factor: t.factor.clone(),
+                    period_label: r.run.header.period_label.clone(),
+                    note,
+                });
+            }
+        }
+    }
+
+    // Per characteristic: the factors flagged in the month, or the first factor.
+    let mut characteristics = Vec::new();
+    for c in config.characteristics.iter().filter(|c| c.is_active) {
+        let events = event_markers(store, Some(&c.name), month.start, month.end)?;
+        let mut factors: Vec<&str> = config
+            .factors
+            .iter()
+            .map(|f| f.name.as_str())
+            .filter(|f| now_flags.contains_key(&(c.name.clone(), f.to_string())))
+            .collect();
+        if factors.is_empty() {
+            if let Some(f) = config.factors.first() {
+                factors.push(&f.name);
+            }
+        }
+        characteristics.push(CharacteristicSection {
+            characteristic: c.name.clone(),
+            unit: c.unit.clone(),
+            limits: limits(c),
+            factors: factors
+                .into_iter()
+                .map(|f| FactorCharts {
+                    trend: trend_from_runs(c, f, &loaded, events.clone()),
+                    share: share_from_runs(c, f, &loaded, events.clone()),
+                })
+                .collect(),
+        });
+    }
+
+    // Investigations: each event of the month that names a characteristic, by the factor its
+    // scope names (else the first factor).
+    let mut investigations = Vec::new();
+    for e in store.events(Some(month.start), Some(month.end))? {
+        let Some(ch) = e.characteristic.as_deref() else {
+            continue;
+        };
+        if config.characteristic(ch).is_none() {
+            continue;
+        }
+        let factor = e
+            .scope
+            .first()
+            .map(|(f, _)| f.clone())
+            .or_else(|| config.factors.first().map(|f| f.name.clone()));
+        let Some(factor) = factor else { continue };
+        if config.factor_index(&factor).is_none() {
+            continue;
+        }
+        let input = before_after_input(
+            store,
+            config,
+            ch,
+            &factor,
+            e.id,
+            Duration::days(EVENT_WINDOW_DAYS),
+        )?;
+        if !input.groups.is_empty() {
+            investigations.push(input);
+        }
+    }
+
+    Ok(MonthReport {
+        plant: config.plant.name.clone(),
+        month: month.label.clone(),
+        generated: generated.to_string(),
+        counts,
+        new_this_month,
+        flagged,
+        grid: Some(grid),
+        characteristics,
+        investigations,
+        requirement_notes,
+        coverage: coverage(store, &calendar, month, &days)?,
+        methods: report::standard_methods(),
+    })
+}
+
+/// Requirement-check notes of one test: the engine's notes plus what the stored checks say.
+fn requirement_texts(t: &TestRow) -> Vec<String> {
+    let mut out = Vec::new();
+    if let Some(reason) = &t.leading_reason {
+        if t.leading_method.as_deref() == Some("welch") {
+            out.push(format!("Welch used: {reason}"));
+        }
+    }
+    if t.recommend_kruskal == Some(true) {
+        out.push(format!(
+            "residuals far from normal (Shapiro-Wilk p = {}): read the Kruskal-Wallis result (p = {}) beside it",
+            fmt(t.shapiro_p),
+            fmt(t.kruskal_p)
+        ));
+    }
+    if let Some(n) = t.n_beyond_3sd.filter(|&n| n > 0) {
+        out.push(format!("{n} value(s) beyond 3 SD of their group mean"));
+    }
+    if !t.notes.is_empty() {
+        out.push(t.notes.clone());
+    }
+    out
+}
+
+fn fmt(v: Option<f64>) -> String {
+    v.map_or("n/a".to_string(), |v| format!("{v:.3}"))
+}
+
+fn coverage(
+    store: &Store,
+    calendar: &PlantCalendar,
+    month: &Period,
+    days: &[NaiveDate],
+) -> Result<Coverage> {
+    let frame = store.load_period(month.start, month.end, None)?;
+    let mut with_data = BTreeSet::new();
+    let mut rows_by_characteristic = Vec::new();
+    let mut rows_stored = 0u64;
+    for c in &frame.characteristics {
+        rows_stored += c.values.len() as u64;
+        rows_by_characteristic.push((c.characteristic.name.clone(), c.values.len() as u64));
+        for &t in &c.ts_ms {
+            with_data.insert(calendar.production_day(ms(t)));
+        }
+    }
+    Ok(Coverage {
+        rows_stored,
+        // Rejected rows carry no trusted timestamp, so this is every import's count.
+        rows_rejected: store.status()?.n_rejected,
+        days_without_data: days
+            .iter()
+            .filter(|d| !with_data.contains(d))
+            .copied()
+            .collect(),
+        rows_by_characteristic,
+    })
+}
+
+/// Builds the month report and writes it as one self-contained HTML file.
+pub fn write_month_report(
+    store: &Store,
+    config: &Config,
+    month: &Period,
+    generated: &str,
+    out_path: &Path,
+) -> Result<MonthReport> {
+    let r = month_report(store, config, month, generated)?;
+    let html = report::render_month_report(&r);
+    std::fs::write(out_path, html).map_err(|e| Error::io(out_path, e))?;
+    Ok(r)
+}
+
+/// The demo's charts (PNG and SVG of each) in `dir` for the sample plant: the trend of
+/// `bore_diameter` by machine over the whole stored history with its events, the share over the
+/// same range, the grid of `month`, the detail of `housing_mass` by supplier on the month's
+/// first flagged day of it (else the month's first day with data), and bore_diameter by machine
+/// around the first event naming it. A chart whose data is missing is skipped and named in the
+/// second list.
+pub fn write_demo_charts(
+    store: &Store,
+    config: &Config,
+    month: &Period,
+    dir: &Path,
+) -> Result<(Vec<PathBuf>, Vec<String>)> {
+    let mut sink = Sink {
+        dir,
+        written: Vec::new(),
+        skipped: Vec::new(),
+    };
+    let all_from = DateTime::<Utc>::from_timestamp_millis(i64::MIN / 4).unwrap_or_default();
+    let all_to = month.end;
+    let size = Size::DEFAULT;
+    match trend_input(
+        store,
+        config,
+        "bore_diameter",
+        "machine",
+        PeriodKind::Day,
+        all_from,
+        all_to,
+    ) {
+        Ok(t) => sink.save(
+            "trend_bore_diameter_by_machine",
+            report::render_trend(&t, Format::Svg, size),
+            report::render_trend(&t, Format::Png, size),
+        )?,
+        Err(e) => sink.skipped.push(format!("trend: {e}")),
+    }
+    match share_input(
+        store,
+        config,
+        "bore_diameter",
+        "machine",
+        PeriodKind::Day,
+        all_from,
+        all_to,
+    ) {
+        Ok(s) => sink.save(
+            "share_bore_diameter_by_machine",
+            report::render_share(&s, Format::Svg, size),
+            report::render_share(&s, Format::Png, size),
+        )?,
+        Err(e) => sink.skipped.push(format!("share: {e}")),
+    }
+    let grid = grid_input(store, config, month)?;
+    let gsize = report::grid_natural_size(&grid);
+    sink.save(
+        &format!("grid_{}", month.label),
+        report::render_grid(&grid, Format::Svg, gsize),
+        report::render_grid(&grid, Format::Png, gsize),
+    )?;
+    let calendar = PlantCalendar::new(config);
+    let loaded = load_runs(store, PeriodKind::Day, month.start, month.end)?;
+    let flagged_day = loaded
+        .iter()
+        .find(|r| {
+            r.test("housing_mass", "supplier")
+                .is_some_and(|t| runs::is_flag_state(&t.state))
+        })
+        .or_else(|| loaded.first())
+        .map(|r| r.run.header.period_label.clone());
+    match flagged_day {
+        Some(label) => {
+            let period = calendar.parse_period(&label)?;
+            match detail_input(store, config, "housing_mass", "supplier", &period) {
+                Ok(d) => sink.save(
+                    &format!("detail_housing_mass_by_supplier_{label}"),
+                    report::render_detail(&d, Format::Svg, size),
+                    report::render_detail(&d, Format::Png, size),
+                )?,
+                Err(e) => sink.skipped.push(format!("detail: {e}")),
+            }
+        }
+        None => sink
+            .skipped
+            .push(format!("detail: no daily run in {}", month.label)),
+    }
+    let event = store
+        .events(None, None)?
+        .into_iter()
+        .find(|e| e.characteristic.as_deref() == Some("bore_diameter"));
+    match event {
+        Some(e) => match before_after_input(
+            store,
+            config,
+            "bore_diameter",
+            "machine",
+            e.id,
+            Duration::days(EVENT_WINDOW_DAYS),
+        ) {
+            Ok(b) => sink.save(
+                &format!("before_after_bore_diameter_event_{}", e.id),
+                report::render_before_after(&b, Format::Svg, size),
+                report::render_before_after(&b, Format::Png, size),
+            )?,
+            Err(e) => sink.skipped.push(format!("before/after: {e}")),
+        },
+        None => sink
+            .skipped
+            .push("before/after: no event names bore_diameter".to_string()),
+    }
+    Ok((sink.written, sink.skipped))
+}
+
+struct Sink<'a> {
+    dir: &'a Path,
+    written: Vec<PathBuf>,
+    skipped: Vec<String>,
+}
+
+impl Sink<'_> {
+    fn save(&mut self, name: &str, svg: Result<Vec<u8>>, png: Result<Vec<u8>>) -> Result<()> {
+        match (svg, png) {
+            (Ok(svg), Ok(png)) => {
+                for (ext, bytes) in [("svg", svg), ("png", png)] {
+                    let path = self.dir.join(format!("{name}.{ext}"));
+                    report::write_chart(&path, &bytes)?;
+                    self.written.push(path);
+                }
+            }
+            (Err(e), _) | (_, Err(e)) => self.skipped.push(format!("{name}: {e}")),
+        }
+        Ok(())
+    }
+}
