@@ -17,6 +17,7 @@ use chrono::{NaiveDateTime, TimeZone, Utc};
 use clap::Args;
 use indicatif::{ProgressBar, ProgressStyle};
 
+use crate::analysis::report as report_analysis;
 use crate::analysis::run::EngineRunner;
 use crate::calendar::PlantCalendar;
 use crate::cli::check as check_cli;
@@ -371,6 +372,32 @@ pub fn run(args: &DemoArgs) -> Result<ExitCode> {
         } else {
             0.0
         }
+    );
+
+    // 6. The monthly review report and charts of the last full month.
+    let month = calendar.month(2026, 11)?;
+    let report_path = args.dir.join(format!("review-{}.html", month.label));
+    let generated = format!("samewise {} demo", env!("CARGO_PKG_VERSION"));
+    report_analysis::write_month_report(&store, &config, &month, &generated, &report_path)?;
+    let charts_dir = args.dir.join("charts");
+    fs::create_dir_all(&charts_dir).map_err(|e| Error::io(&charts_dir, e))?;
+    let (charts, skipped) =
+        report_analysis::write_demo_charts(&store, &config, &month, &charts_dir)?;
+    println!(
+        "\n6. The monthly review report: {}\n   charts ({}): {}",
+        report_path.display(),
+        charts.len(),
+        charts_dir.display()
+    );
+    for s in &skipped {
+        println!("   chart not drawn: {s}");
+    }
+    println!(
+        "\nTry next (in {}):\n  samewise check --day 2026-11-29 --config plant.toml\n  \
+         samewise history bore_diameter --by machine --last 30 --config plant.toml\n  \
+         samewise investigate bore_diameter --by machine --event 3 --config plant.toml\n  \
+         samewise report --month 2026-11 --out review.html --config plant.toml",
+        args.dir.display()
     );
 
     println!(
