@@ -93,6 +93,41 @@ fn demo_finds_the_injected_effects() {
     assert!(tests >= 3000.0, "{null}");
     assert!(flags / tests < 0.02, "{null}");
 
+    // The monthly review report exists and holds the expected sections (issue 6).
+    let report = std::fs::read_to_string(dir.join("review-2026-11.html")).unwrap();
+    for section in [
+        "Summary of the month",
+        "Month overview",
+        "Flagged checks",
+        "Characteristics",
+        "Process changes investigated",
+        "Requirement checks",
+        "Data coverage",
+        "Methods",
+    ] {
+        assert!(
+            report.contains(&format!("<h2>{section}</h2>")),
+            "report section {section:?}"
+        );
+    }
+    assert!(
+        report.contains("Castalloy"),
+        "the heavier supplier is named"
+    );
+    assert!(
+        report.contains("decision support"),
+        "the caution is in the report"
+    );
+    assert!(report.matches("<svg").count() >= 5, "charts are inline SVG");
+    // Nothing is fetched: the only URL is the SVG namespace name, which is never loaded.
+    let urls = report.replace("http://www.w3.org/2000/svg", "");
+    assert!(
+        !urls.contains("http://") && !urls.contains("https://"),
+        "nothing fetched"
+    );
+    let charts: Vec<_> = std::fs::read_dir(dir.join("charts")).unwrap().collect();
+    assert!(charts.len() >= 8, "PNG and SVG charts written");
+
     // The latest daily summary and the caution are printed.
     assert!(stdout.contains("check 2026-11-29 (day)"));
     assert!(stdout.contains("decision support"));
