@@ -114,7 +114,9 @@ pub fn prepare(dir: &Path, quiet: bool) -> Result<(Config, Store, Vec<PathBuf>, 
             .time_zone
             .from_local_datetime(&local)
             .single()
-            .ok_or_else(|| Error::Usage(format!("sample event time {} is ambiguous", event.at_local)))?
+            .ok_or_else(|| {
+                Error::Usage(format!("sample event time {} is ambiguous", event.at_local))
+            })?
             .with_timezone(&Utc);
         let scope = event
             .where_level
