@@ -205,8 +205,13 @@ struct Interner {
     by_name: FxMap<String, u32>,
     /// Per factor: level name -> level index.
     levels: Vec<FxMap<String, u32>>,
+    /// Level indices of a combination packed into one word (when they fit) -> combination
+    /// index; `level_sets` holds the combinations that do not fit.
+    packed_sets: FxMap<u64, u32>,
     /// Level indices of a combination -> combination index.
     level_sets: FxMap<Box<[u32]>, u32>,
+    /// Combinations numbered so far.
+    n_sets: u32,
     scratch: Vec<u32>,
 }
 
@@ -221,7 +226,9 @@ impl Interner {
             characteristics,
             by_name,
             levels: Vec::new(),
+            packed_sets: FxMap::default(),
             level_sets: FxMap::default(),
+            n_sets: 0,
             scratch: Vec::new(),
         }
     }
@@ -282,14 +289,36 @@ impl Interner {
             };
             self.scratch.push(id);
         }
-        let level_set = match self.level_sets.get(self.scratch.as_slice()) {
-            Some(&i) => i,
-            None => {
-                let i = self.level_sets.len() as u32;
-                self.level_sets
-                    .insert(self.scratch.clone().into_boxed_slice(), i);
-                batch.new_level_sets.push(m.levels);
-                i
+        // Pack the level indices into 64 bits when each fits its share of them (one key per
+        // combination, either packed or not, so the two maps never hold the same combination).
+        let bits = 64 / self.scratch.len().max(1) as u32;
+        let fits = bits >= 32 || self.scratch.iter().all(|&id| id >> bits == 0);
+        let level_set = if fits {
+            let key = self
+                .scratch
+                .iter()
+                .fold(0u64, |k, &id| k.checked_shl(bits).unwrap_or(0) | id as u64);
+            match self.packed_sets.get(&key) {
+                Some(&i) => i,
+                None => {
+                    let i = self.n_sets;
+                    self.n_sets += 1;
+                    self.packed_sets.insert(key, i);
+                    batch.new_level_sets.push(m.levels);
+                    i
+                }
+            }
+        } else {
+            match self.level_sets.get(self.scratch.as_slice()) {
+                Some(&i) => i,
+                None => {
+                    let i = self.n_sets;
+                    self.n_sets += 1;
+                    self.level_sets
+                        .insert(self.scratch.clone().into_boxed_slice(), i);
+                    batch.new_level_sets.push(m.levels);
+                    i
+                }
             }
         };
         batch.rows.push(Row {
