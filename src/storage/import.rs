@@ -8,6 +8,7 @@
 //! before the commit; a duplicate is refused (rolled back) unless `force` is set.
 
 use std::collections::HashMap;
+use std::hash::{BuildHasherDefault, Hasher};
 use std::io::Read;
 use std::path::PathBuf;
 use std::sync::mpsc;
@@ -104,6 +105,232 @@ struct CharacteristicState {
     is_changed: bool,
 }
 
+/// One accepted measurement on its way to the writer. `characteristic` and `level_set` are the
+/// reading thread's indices until the writer replaces them with database ids.
+#[derive(Debug, Clone, Copy)]
+struct Row {
+    characteristic: i64,
+    ts_ms: i64,
+    line: i64,
+    value: f64,
+    level_set: i64,
+}
+
+/// What the reading thread hands to the writer: rows and rejections in file order, plus the
+/// characteristic names and level combinations first seen in this batch (numbered on from the
+/// previous batches').
+#[derive(Debug, Default)]
+struct Batch {
+    new_characteristics: Vec<String>,
+    new_level_sets: Vec<Vec<String>>,
+    rows: Vec<Row>,
+    rejections: Vec<Rejection>,
+}
+
+impl Batch {
+    fn len(&self) -> usize {
+        self.rows.len() + self.rejections.len()
+    }
+
+    fn is_empty(&self) -> bool {
+        self.len() == 0
+    }
+}
+
+/// A small multiplicative hasher (the one rustc uses) for the short names and id lists interned
+/// per row; SipHash's resistance to chosen keys is not needed for a plant's own level names and
+/// costs several times as much.
+#[derive(Debug, Default, Clone, Copy)]
+struct FxHasher {
+    hash: u64,
+}
+
+const FX_K: u64 = 0x517c_c1b7_2722_0a95;
+
+impl FxHasher {
+    #[inline]
+    fn add(&mut self, word: u64) {
+        self.hash = (self.hash.rotate_left(5) ^ word).wrapping_mul(FX_K);
+    }
+}
+
+impl Hasher for FxHasher {
+    #[inline]
+    fn write(&mut self, bytes: &[u8]) {
+        let mut chunks = bytes.chunks_exact(8);
+        for chunk in &mut chunks {
+            self.add(u64::from_le_bytes(chunk.try_into().expect("8 bytes")));
+        }
+        let rest = chunks.remainder();
+        if !rest.is_empty() {
+            let mut word = [0u8; 8];
+            word[..rest.len()].copy_from_slice(rest);
+            self.add(u64::from_le_bytes(word));
+        }
+    }
+
+    #[inline]
+    fn write_u8(&mut self, i: u8) {
+        self.add(i as u64);
+    }
+
+    #[inline]
+    fn write_u32(&mut self, i: u32) {
+        self.add(i as u64);
+    }
+
+    #[inline]
+    fn write_u64(&mut self, i: u64) {
+        self.add(i);
+    }
+
+    #[inline]
+    fn write_usize(&mut self, i: usize) {
+        self.add(i as u64);
+    }
+
+    fn finish(&self) -> u64 {
+        self.hash
+    }
+}
+
+type FxMap<K, V> = HashMap<K, V, BuildHasherDefault<FxHasher>>;
+
+/// The reading thread's side of an import: turns each outcome into a compact [`Row`] (names
+/// interned to indices, value to its offset from the characteristic's origin) so the writer does
+/// nothing per row but bind and step, and the strings are freed by the thread that made them.
+struct Interner {
+    /// Per characteristic index (database order, then new ones): origin and decimals so far.
+    characteristics: Vec<CharacteristicState>,
+    by_name: FxMap<String, u32>,
+    /// Per factor: level name -> level index.
+    levels: Vec<FxMap<String, u32>>,
+    /// Level indices of a combination packed into one word (when they fit) -> combination
+    /// index; `level_sets` holds the combinations that do not fit.
+    packed_sets: FxMap<u64, u32>,
+    /// Level indices of a combination -> combination index.
+    level_sets: FxMap<Box<[u32]>, u32>,
+    /// Combinations numbered so far.
+    n_sets: u32,
+    scratch: Vec<u32>,
+}
+
+impl Interner {
+    fn new(characteristics: Vec<CharacteristicState>) -> Interner {
+        let by_name = characteristics
+            .iter()
+            .enumerate()
+            .map(|(i, c)| (c.name.clone(), i as u32))
+            .collect();
+        Interner {
+            characteristics,
+            by_name,
+            levels: Vec::new(),
+            packed_sets: FxMap::default(),
+            level_sets: FxMap::default(),
+            n_sets: 0,
+            scratch: Vec::new(),
+        }
+    }
+
+    fn push(&mut self, outcome: RowOutcome, batch: &mut Batch) {
+        let m = match outcome {
+            RowOutcome::Accepted(m) => m,
+            RowOutcome::Rejected(r) => {
+                batch.rejections.push(r);
+                return;
+            }
+        };
+        let idx = match self.by_name.get(m.characteristic.as_str()) {
+            Some(&i) => i as usize,
+            None => {
+                let i = self.characteristics.len();
+                self.characteristics.push(CharacteristicState {
+                    id: 0,
+                    name: m.characteristic.clone(),
+                    origin: None,
+                    decimals: 0,
+                    is_changed: true,
+                });
+                self.by_name.insert(m.characteristic.clone(), i as u32);
+                batch.new_characteristics.push(m.characteristic);
+                i
+            }
+        };
+        let state = &mut self.characteristics[idx];
+        let origin = match state.origin {
+            Some(o) => o,
+            None => {
+                state.origin = Some(m.value);
+                state.is_changed = true;
+                m.value
+            }
+        };
+        let decimals = m.value.scale().max(0) as u32;
+        if decimals > state.decimals {
+            state.decimals = decimals;
+            state.is_changed = true;
+        }
+        let value = m.value.offset_from(&origin);
+
+        if self.levels.len() < m.levels.len() {
+            self.levels.resize_with(m.levels.len(), FxMap::default);
+        }
+        self.scratch.clear();
+        for (f, name) in m.levels.iter().enumerate() {
+            let map = &mut self.levels[f];
+            let id = match map.get(name.as_str()) {
+                Some(&id) => id,
+                None => {
+                    let id = map.len() as u32;
+                    map.insert(name.clone(), id);
+                    id
+                }
+            };
+            self.scratch.push(id);
+        }
+        // Pack the level indices into 64 bits when each fits its share of them (one key per
+        // combination, either packed or not, so the two maps never hold the same combination).
+        let bits = 64 / self.scratch.len().max(1) as u32;
+        let fits = bits >= 32 || self.scratch.iter().all(|&id| id >> bits == 0);
+        let level_set = if fits {
+            let key = self
+                .scratch
+                .iter()
+                .fold(0u64, |k, &id| k.checked_shl(bits).unwrap_or(0) | id as u64);
+            match self.packed_sets.get(&key) {
+                Some(&i) => i,
+                None => {
+                    let i = self.n_sets;
+                    self.n_sets += 1;
+                    self.packed_sets.insert(key, i);
+                    batch.new_level_sets.push(m.levels);
+                    i
+                }
+            }
+        } else {
+            match self.level_sets.get(self.scratch.as_slice()) {
+                Some(&i) => i,
+                None => {
+                    let i = self.n_sets;
+                    self.n_sets += 1;
+                    self.level_sets
+                        .insert(self.scratch.clone().into_boxed_slice(), i);
+                    batch.new_level_sets.push(m.levels);
+                    i
+                }
+            }
+        };
+        batch.rows.push(Row {
+            characteristic: idx as i64,
+            ts_ms: ms(m.ts),
+            line: m.line as i64,
+            value,
+            level_set: level_set as i64,
+        });
+    }
+}
+
 /// Folds the values quoted in a reason (`value "1,5" is ...` -> `value "…" is ...`) so that
 /// rejections count by kind.
 pub(crate) fn reason_kind(reason: &str) -> String {
@@ -182,7 +409,26 @@ impl Store {
     /// Imports one file in one transaction: every measurement of the stream is stored or its
     /// rejection recorded (file line, column, reason, raw text). On any error, or a duplicate
     /// without `force`, nothing is written.
+    ///
+    /// Foreign-key enforcement is switched off for the import's transaction (and back on after
+    /// it, whatever the outcome): every id the import writes is one it has just read or created
+    /// in the same transaction, and the three parent look-ups per measurement would otherwise be
+    /// a third of the writer's work. `samewise db check` still verifies them.
     pub fn import<R: Read + Send>(
+        &mut self,
+        stream: ImportStream<R>,
+        options: &ImportOptions,
+    ) -> Result<ImportReport> {
+        self.conn.pragma_update(None, "foreign_keys", "OFF")?;
+        let result = self.import_in_transaction(stream, options);
+        // Outside any transaction again (committed or rolled back), so the pragma takes effect.
+        let restored = self.conn.pragma_update(None, "foreign_keys", "ON");
+        let report = result?;
+        restored?;
+        Ok(report)
+    }
+
+    fn import_in_transaction<R: Read + Send>(
         &mut self,
         stream: ImportStream<R>,
         options: &ImportOptions,
@@ -210,7 +456,7 @@ impl Store {
         )?;
         let import_id = tx.last_insert_rowid();
 
-        let mut characteristics: Vec<CharacteristicState> = load_characteristics(&tx)?
+        let characteristics: Vec<CharacteristicState> = load_characteristics(&tx)?
             .into_iter()
             .map(|c| CharacteristicState {
                 id: c.id,
@@ -220,37 +466,37 @@ impl Store {
                 is_changed: false,
             })
             .collect();
-        let mut by_name: HashMap<String, usize> = characteristics
-            .iter()
-            .enumerate()
-            .map(|(i, c)| (c.name.clone(), i))
-            .collect();
         let mut level_sets = LevelSetWriter::load(&tx)?;
+        // Database id per characteristic index and level set id per combination index, in the
+        // order the reading thread numbered them.
+        let mut characteristic_ids: Vec<i64> = characteristics.iter().map(|c| c.id).collect();
+        let mut level_set_ids: Vec<i64> = Vec::new();
         let mut new_characteristics = Vec::new();
         let mut accepted = 0u64;
         let mut rejected = 0u64;
         let mut reasons: HashMap<String, u64> = HashMap::new();
         let mut first_rejections = Vec::new();
 
-        let (sender, receiver) = mpsc::sync_channel::<Vec<RowOutcome>>(IN_FLIGHT);
-        let (stream, write_result) = std::thread::scope(|scope| {
+        let (sender, receiver) = mpsc::sync_channel::<Batch>(IN_FLIGHT);
+        let (reader_result, write_result) = std::thread::scope(|scope| {
             let reader = scope.spawn(move || {
+                let mut interner = Interner::new(characteristics);
                 let mut stream = stream;
-                let mut batch = Vec::with_capacity(BATCH);
+                let mut batch = Batch::default();
                 for outcome in stream.by_ref() {
-                    batch.push(outcome);
+                    interner.push(outcome, &mut batch);
                     if batch.len() == BATCH {
-                        let full = std::mem::replace(&mut batch, Vec::with_capacity(BATCH));
+                        let full = std::mem::take(&mut batch);
                         if sender.send(full).is_err() {
                             // The writer stopped on an error; stop reading.
-                            return stream;
+                            return (stream, interner.characteristics);
                         }
                     }
                 }
                 if !batch.is_empty() {
                     let _ = sender.send(batch);
                 }
-                stream
+                (stream, interner.characteristics)
             });
             let write_result = (|| -> Result<()> {
                 let mut insert_measurement = tx.prepare_cached(
@@ -260,72 +506,49 @@ impl Store {
                 let mut insert_rejection = tx.prepare_cached(
                     "INSERT INTO rejected_rows (import_id, line, column_name, reason, raw) VALUES (?1, ?2, ?3, ?4, ?5)",
                 )?;
-                for batch in receiver.iter() {
-                    for outcome in batch {
-                        match outcome {
-                            RowOutcome::Accepted(m) => {
-                                let idx = match by_name.get(m.characteristic.as_str()) {
-                                    Some(&i) => i,
-                                    None => {
-                                        tx.execute(
-                                            "INSERT INTO characteristics (name, is_configured) VALUES (?1, 0)",
-                                            [&m.characteristic],
-                                        )?;
-                                        characteristics.push(CharacteristicState {
-                                            id: tx.last_insert_rowid(),
-                                            name: m.characteristic.clone(),
-                                            origin: None,
-                                            decimals: 0,
-                                            is_changed: true,
-                                        });
-                                        new_characteristics.push(m.characteristic.clone());
-                                        by_name.insert(
-                                            m.characteristic.clone(),
-                                            characteristics.len() - 1,
-                                        );
-                                        characteristics.len() - 1
-                                    }
-                                };
-                                let state = &mut characteristics[idx];
-                                let origin = match state.origin {
-                                    Some(o) => o,
-                                    None => {
-                                        state.origin = Some(m.value);
-                                        state.is_changed = true;
-                                        m.value
-                                    }
-                                };
-                                let decimals = m.value.scale().max(0) as u32;
-                                if decimals > state.decimals {
-                                    state.decimals = decimals;
-                                    state.is_changed = true;
-                                }
-                                let value = m.value.offset_from(&origin);
-                                let level_set_id = level_sets.id_for(&tx, &m.levels)?;
-                                insert_measurement.execute(params![
-                                    state.id,
-                                    ms(m.ts),
-                                    import_id,
-                                    m.line as i64,
-                                    value,
-                                    level_set_id
-                                ])?;
-                                accepted += 1;
-                            }
-                            RowOutcome::Rejected(r) => {
-                                insert_rejection.execute(params![
-                                    import_id,
-                                    r.line as i64,
-                                    r.column,
-                                    r.reason,
-                                    r.raw
-                                ])?;
-                                *reasons.entry(reason_kind(&r.reason)).or_insert(0) += 1;
-                                rejected += 1;
-                                if first_rejections.len() < FIRST_REJECTIONS {
-                                    first_rejections.push(r);
-                                }
-                            }
+                for mut batch in receiver.iter() {
+                    for name in batch.new_characteristics.drain(..) {
+                        tx.execute(
+                            "INSERT INTO characteristics (name, is_configured) VALUES (?1, 0)",
+                            [&name],
+                        )?;
+                        characteristic_ids.push(tx.last_insert_rowid());
+                        new_characteristics.push(name);
+                    }
+                    for names in &batch.new_level_sets {
+                        level_set_ids.push(level_sets.id_for(&tx, names)?);
+                    }
+                    for row in &mut batch.rows {
+                        row.characteristic = characteristic_ids[row.characteristic as usize];
+                        row.level_set = level_set_ids[row.level_set as usize];
+                    }
+                    // Key order within the batch: each characteristic's rows go in as one run,
+                    // so the B-tree pages they touch stay hot.
+                    batch
+                        .rows
+                        .sort_unstable_by_key(|r| (r.characteristic, r.ts_ms, r.line));
+                    insert_measurement.raw_bind_parameter(3, import_id)?;
+                    for row in &batch.rows {
+                        insert_measurement.raw_bind_parameter(1, row.characteristic)?;
+                        insert_measurement.raw_bind_parameter(2, row.ts_ms)?;
+                        insert_measurement.raw_bind_parameter(4, row.line)?;
+                        insert_measurement.raw_bind_parameter(5, row.value)?;
+                        insert_measurement.raw_bind_parameter(6, row.level_set)?;
+                        insert_measurement.raw_execute()?;
+                    }
+                    accepted += batch.rows.len() as u64;
+                    for r in batch.rejections {
+                        insert_rejection.execute(params![
+                            import_id,
+                            r.line as i64,
+                            r.column,
+                            r.reason,
+                            r.raw
+                        ])?;
+                        *reasons.entry(reason_kind(&r.reason)).or_insert(0) += 1;
+                        rejected += 1;
+                        if first_rejections.len() < FIRST_REJECTIONS {
+                            first_rejections.push(r);
                         }
                     }
                 }
@@ -333,9 +556,10 @@ impl Store {
             })();
             // Dropping the receiver unblocks a reader still sending after a write error.
             drop(receiver);
-            let stream = reader.join().expect("the import reading thread panicked");
-            (stream, write_result)
+            let reader_result = reader.join().expect("the import reading thread panicked");
+            (reader_result, write_result)
         });
+        let (stream, characteristics) = reader_result;
         let mut stream = stream;
         write_result?;
         if let Some(error) = stream.take_error() {
@@ -368,10 +592,18 @@ impl Store {
                 });
             }
         }
-        for c in characteristics.iter().filter(|c| c.is_changed) {
+        for (i, c) in characteristics
+            .iter()
+            .enumerate()
+            .filter(|(_, c)| c.is_changed)
+        {
             tx.execute(
                 "UPDATE characteristics SET origin = ?2, decimals = ?3 WHERE id = ?1",
-                params![c.id, c.origin.map(|o| o.to_string()), c.decimals],
+                params![
+                    characteristic_ids[i],
+                    c.origin.map(|o| o.to_string()),
+                    c.decimals
+                ],
             )?;
         }
         let elapsed = clock.elapsed();

@@ -295,10 +295,13 @@ pub(crate) struct LevelSetWriter {
     factor_ids: Vec<i64>,
     /// Per configured factor: level name -> level id.
     levels: Vec<HashMap<String, i64>>,
-    /// Level names in configuration order -> level set id.
-    by_names: HashMap<Vec<String>, i64>,
     /// Level sets created by this import.
     pub(crate) created: u64,
+    /// Whether `level_sets` held any row when loaded: when it did not, every combination not in
+    /// `by_names` is new, and the look-up by key can be skipped.
+    had_sets: bool,
+    /// Levels created since loading: a combination containing one cannot exist yet either.
+    new_levels: std::collections::HashSet<i64>,
 }
 
 impl LevelSetWriter {
@@ -318,21 +321,20 @@ impl LevelSetWriter {
         Ok(LevelSetWriter {
             factor_ids: factors.iter().map(|f| f.id).collect(),
             levels,
-            by_names: HashMap::new(),
             created: 0,
+            had_sets: conn
+                .query_row("SELECT EXISTS (SELECT 1 FROM level_sets)", [], |r| r.get(0))?,
+            new_levels: Default::default(),
         })
     }
 
-    /// The level set id of a row's levels (in configuration order), creating it if new.
-    #[inline]
+    /// The level set id of a combination of levels (in configuration order), creating it if new.
+    /// The caller asks once per distinct combination (the import interns them), so nothing is
+    /// cached here: a second call with the same names in one import could create it twice.
     pub(crate) fn id_for(&mut self, conn: &Connection, names: &[String]) -> Result<i64> {
-        if let Some(&id) = self.by_names.get(names) {
-            return Ok(id);
-        }
         self.resolve(conn, names)
     }
 
-    #[cold]
     fn resolve(&mut self, conn: &Connection, names: &[String]) -> Result<i64> {
         if names.len() != self.factor_ids.len() {
             return Err(Error::Database(format!(
@@ -351,6 +353,7 @@ impl LevelSetWriter {
                         .execute(params![self.factor_ids[f], name])?;
                     let id = conn.last_insert_rowid();
                     self.levels[f].insert(name.clone(), id);
+                    self.new_levels.insert(id);
                     id
                 }
             };
@@ -358,10 +361,14 @@ impl LevelSetWriter {
         }
         members.sort_unstable();
         let key = level_set_key(&members);
-        let existing: Option<i64> = conn
-            .prepare_cached("SELECT id FROM level_sets WHERE key = ?1")?
-            .query_row([&key], |r| r.get(0))
-            .optional()?;
+        let may_exist = self.had_sets && !members.iter().any(|(_, l)| self.new_levels.contains(l));
+        let existing: Option<i64> = if may_exist {
+            conn.prepare_cached("SELECT id FROM level_sets WHERE key = ?1")?
+                .query_row([&key], |r| r.get(0))
+                .optional()?
+        } else {
+            None
+        };
         let id = match existing {
             Some(id) => id,
             None => {
@@ -371,14 +378,16 @@ impl LevelSetWriter {
                 let mut insert = conn.prepare_cached(
                     "INSERT INTO level_set_members (level_set_id, factor_id, level_id) VALUES (?1, ?2, ?3)",
                 )?;
+                insert.raw_bind_parameter(1, id)?;
                 for (factor_id, level_id) in &members {
-                    insert.execute(params![id, factor_id, level_id])?;
+                    insert.raw_bind_parameter(2, factor_id)?;
+                    insert.raw_bind_parameter(3, level_id)?;
+                    insert.raw_execute()?;
                 }
                 self.created += 1;
                 id
             }
         };
-        self.by_names.insert(names.to_vec(), id);
         Ok(id)
     }
 }
