@@ -940,8 +940,8 @@ pub fn write_demo_charts(
         ) {
             Ok(b) => sink.save(
                 &format!("before_after_bore_diameter_event_{}", e.id),
-                report::render_before_after(&b, Format::Svg, size),
-                report::render_before_after(&b, Format::Png, size),
+                report::render_before_after(&b, Format::Svg, report::before_after_natural_size(&b)),
+                report::render_before_after(&b, Format::Png, report::before_after_natural_size(&b)),
             )?,
             Err(e) => sink.skipped.push(format!("before/after: {e}")),
         },

@@ -194,6 +194,10 @@ pub fn render(args: &ChartArgs, config: &Config, store: &crate::storage::Store) 
                     args.window_days
                 )));
             }
+            let size = match args.height {
+                Some(_) => size,
+                None => crate::report::before_after_natural_size(&input),
+            };
             crate::report::render_before_after(&input, format, size)
         }
     }

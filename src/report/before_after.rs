@@ -293,3 +293,12 @@ impl Drawable for BeforeAfter<'_> {
         })
     }
 }
+
+/// A size that gives every group's panel room (about 120 pixels each) at the default width.
+pub fn before_after_natural_size(input: &BeforeAfterInput) -> Size {
+    let k = input.groups.len().max(1) as u32;
+    Size {
+        width: Size::DEFAULT.width,
+        height: Size::DEFAULT.height.max(340 + 120 * k),
+    }
+}
