@@ -1,0 +1,402 @@
+//! `samewise report` and `samewise chart` on a small invented plant built in the test
+//! (tests/common: 3 machines x 2 suppliers, bore on M2 0.03 mm high from 2026-11-30, 15% of the
+//! 0.2 mm tolerance): the HTML has its sections and the flagged item with its standing-out group,
+//! the SVGs parse with the expected number of points and cells, the PNG is written.
+//!
+//! All data here are invented (generated with a fixed RNG state); no plant data. The expected
+//! counts follow from the invented plant's construction (common practice: a chart shows one
+//! marker per group per checked period, one cell per characteristic x factor x day).
+
+#![allow(dead_code)]
+
+mod common;
+
+use std::path::Path;
+
+use samewise::analysis::report;
+use samewise::model::PeriodKind;
+use samewise::report::{draw_trend, Format, Panel, Size};
+
+#[derive(Debug, Clone)]
+struct Shape {
+    tag: String,
+    fill: String,
+    stroke: String,
+    opacity: f64,
+    /// Points (polyline, polygon), centre (circle) or corners (rect).
+    points: Vec<(f64, f64)>,
+}
+
+#[derive(Debug, Clone)]
+struct Label {
+    text: String,
+    x: f64,
+    y: f64,
+    anchor: String,
+}
+
+struct Svg {
+    shapes: Vec<Shape>,
+    texts: Vec<Label>,
+    width: f64,
+    height: f64,
+}
+
+fn num(node: roxmltree::Node, name: &str) -> f64 {
+    node.attribute(name)
+        .unwrap_or_else(|| panic!("{} lacks {name}", node.tag_name().name()))
+        .parse()
+        .unwrap()
+}
+
+fn parse_svg(bytes: &[u8]) -> Svg {
+    let text = std::str::from_utf8(bytes).expect("SVG is UTF-8");
+    let doc = roxmltree::Document::parse(text).expect("SVG parses as XML");
+    let root = doc.root_element();
+    assert_eq!(root.tag_name().name(), "svg");
+    let mut shapes = Vec::new();
+    let mut texts = Vec::new();
+    for n in root.descendants().filter(|n| n.is_element()) {
+        let tag = n.tag_name().name().to_string();
+        let attr = |a: &str| n.attribute(a).unwrap_or("none").to_string();
+        let opacity = n.attribute("opacity").map_or(1.0, |o| o.parse().unwrap());
+        let points = |s: &str| -> Vec<(f64, f64)> {
+            s.split_whitespace()
+                .map(|p| {
+                    let (x, y) = p.split_once(',').unwrap();
+                    (x.parse().unwrap(), y.parse().unwrap())
+                })
+                .collect()
+        };
+        match tag.as_str() {
+            "circle" => shapes.push(Shape {
+                points: vec![(num(n, "cx"), num(n, "cy"))],
+                fill: attr("fill"),
+                stroke: attr("stroke"),
+                opacity,
+                tag,
+            }),
+            "rect" => {
+                let (x, y) = (num(n, "x"), num(n, "y"));
+                shapes.push(Shape {
+                    points: vec![(x, y), (x + num(n, "width"), y + num(n, "height"))],
+                    fill: attr("fill"),
+                    stroke: attr("stroke"),
+                    opacity,
+                    tag,
+                })
+            }
+            "polygon" | "polyline" => shapes.push(Shape {
+                points: points(n.attribute("points").unwrap()),
+                fill: attr("fill"),
+                stroke: attr("stroke"),
+                opacity,
+                tag,
+            }),
+            "text" => texts.push(Label {
+                text: n.text().unwrap_or("").trim().to_string(),
+                x: num(n, "x"),
+                y: num(n, "y"),
+                anchor: attr("text-anchor"),
+            }),
+            "svg" => {}
+            other => panic!("unexpected SVG element {other}"),
+        }
+    }
+    Svg {
+        shapes,
+        texts,
+        width: num(root, "width"),
+        height: num(root, "height"),
+    }
+}
+
+impl Svg {
+    fn text(&self, s: &str) -> Vec<&Label> {
+        self.texts.iter().filter(|t| t.text == s).collect()
+    }
+    fn has_text(&self, s: &str) -> bool {
+        !self.text(s).is_empty()
+    }
+    fn inside<'a>(&'a self, p: &'a Panel) -> impl Iterator<Item = &'a Shape> + 'a {
+        self.shapes.iter().filter(move |s| {
+            let (x, y) = centre(s);
+            x >= p.left - 1.0 && x <= p.right + 1.0 && y >= p.top - 1.0 && y <= p.bottom + 1.0
+        })
+    }
+}
+
+fn centre(s: &Shape) -> (f64, f64) {
+    let n = s.points.len() as f64;
+    let (sx, sy) = s
+        .points
+        .iter()
+        .fold((0.0, 0.0), |(a, b), (x, y)| (a + x, b + y));
+    (sx / n, sy / n)
+}
+
+const BLUE: &str = "#0072B2";
+const VERMILLION: &str = "#D55E00";
+const BLUISH_GREEN: &str = "#009E73";
+
+/// The invented plant with three checked days (2026-11-28, -29, -30) out of five imported.
+fn checked_plant(name: &str) -> std::path::PathBuf {
+    let dir = common::temp_dir(name);
+    common::invented_plant(&dir, 5);
+    for day in ["2026-11-28", "2026-11-29", "2026-11-30"] {
+        let out = common::samewise(&dir, &["check", "--day", day]);
+        assert!(
+            out.status.code() == Some(0) || out.status.code() == Some(3),
+            "{}",
+            String::from_utf8_lossy(&out.stderr)
+        );
+    }
+    dir
+}
+
+fn ok(dir: &Path, args: &[&str]) -> String {
+    let out = common::samewise(dir, args);
+    assert_eq!(
+        out.status.code(),
+        Some(0),
+        "{args:?}: {}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    String::from_utf8(out.stdout).unwrap()
+}
+
+#[test]
+fn month_report_has_every_section_and_the_flagged_machine() {
+    let dir = checked_plant("report-month");
+    let stdout = ok(
+        &dir,
+        &["report", "--month", "2026-11", "--out", "review.html"],
+    );
+    assert!(stdout.contains("wrote review.html"), "{stdout}");
+    let html = std::fs::read_to_string(dir.join("review.html")).unwrap();
+    for id in [
+        "summary",
+        "overview",
+        "flagged",
+        "characteristics",
+        "requirements",
+        "coverage",
+        "methods",
+    ] {
+        assert!(
+            html.contains(&format!("id=\"{id}\"")),
+            "section {id} missing"
+        );
+    }
+    assert!(html.contains(samewise::CAUTION) || html.contains("decision support"));
+    // The flagged item: bore by machine on 2026-11-30, M2 standing out.
+    let config = samewise::config::Config::load(dir.join("plant.toml")).unwrap();
+    let store = samewise::storage::Store::open(&config.plant.database).unwrap();
+    let calendar = samewise::calendar::PlantCalendar::new(&config);
+    let month = calendar.parse_period("2026-11").unwrap();
+    let r = report::month_report(&store, &config, &month, "test").unwrap();
+    let item = r
+        .flagged
+        .iter()
+        .find(|f| f.characteristic == "bore" && f.factor == "machine")
+        .expect("bore by machine flagged");
+    assert_eq!(item.period_label, "2026-11-30");
+    assert_eq!(item.standing_out, "M2");
+    // M2 is +0.03 against a grand mean that includes M2 (about a third of the rows), so the
+    // standing-out distance is near +0.02 mm, i.e. near 10% of the 0.2 mm tolerance.
+    assert!(item.diff_units > 0.01 && item.diff_units < 0.03, "{item:?}");
+    let pct = item.diff_pct_tolerance.unwrap();
+    assert!((pct - 100.0 * item.diff_units / 0.2).abs() < 1e-9);
+    assert!(!item.pairs.is_empty());
+    assert!(html.contains("M2"));
+    // Counts: 30 days x 2 characteristics x 2 factors = 120 cells; 3 days checked = 12 tests.
+    assert_eq!(r.counts.tests_run(), 12);
+    assert_eq!(r.counts.not_run, 108);
+    // Coverage: data on 28, 29 and 30 November only (the rest is in December).
+    assert_eq!(r.coverage.days_without_data.len(), 27);
+    assert_eq!(r.coverage.rows_stored, 3 * 240 * 2);
+    // Per characteristic: bore shows the flagged factor (machine); width its first factor.
+    let bore = r
+        .characteristics
+        .iter()
+        .find(|c| c.characteristic == "bore")
+        .unwrap();
+    assert!(bore.factors.iter().any(|f| f.trend.factor == "machine"));
+    assert_eq!(bore.factors[0].trend.periods.len(), 3);
+}
+
+#[test]
+fn trend_svg_has_one_point_per_group_per_checked_day() {
+    let dir = checked_plant("report-trend");
+    ok(
+        &dir,
+        &[
+            "chart",
+            "trend",
+            "--characteristic",
+            "bore",
+            "--by",
+            "machine",
+            "--month",
+            "2026-11",
+            "--out",
+            "trend.svg",
+        ],
+    );
+    let bytes = std::fs::read(dir.join("trend.svg")).unwrap();
+    let svg = parse_svg(&bytes);
+    // The same input through the library gives the layout (and the same bytes).
+    let config = samewise::config::Config::load(dir.join("plant.toml")).unwrap();
+    let store = samewise::storage::Store::open(&config.plant.database).unwrap();
+    let calendar = samewise::calendar::PlantCalendar::new(&config);
+    let month = calendar.parse_period("2026-11").unwrap();
+    let input = report::trend_input(
+        &store,
+        &config,
+        "bore",
+        "machine",
+        PeriodKind::Day,
+        month.start,
+        month.end,
+    )
+    .unwrap();
+    let chart = draw_trend(&input, Format::Svg, Size::DEFAULT).unwrap();
+    assert_eq!(chart.bytes, bytes);
+    let p = &chart.layout.panels[0];
+    let circles = svg
+        .inside(p)
+        .filter(|s| s.tag == "circle" && s.fill == BLUE)
+        .count();
+    let squares = svg
+        .inside(p)
+        .filter(|s| s.tag == "rect" && s.fill == VERMILLION && s.opacity == 1.0)
+        .count();
+    let triangles = svg
+        .inside(p)
+        .filter(|s| s.tag == "polygon" && s.fill == BLUISH_GREEN && s.points.len() == 3)
+        .count();
+    assert_eq!([circles, squares, triangles], [3, 3, 3]);
+    // Means come back in the unit (origin added): bore is near 10 mm, M2 higher on the 30th.
+    let last = &input.periods[2];
+    let m2 = last.groups.iter().find(|g| g.level == "M2").unwrap();
+    let m1 = last.groups.iter().find(|g| g.level == "M1").unwrap();
+    assert!((m1.mean - 10.0).abs() < 0.005, "{m1:?}");
+    assert!((m2.mean - m1.mean - 0.03).abs() < 0.005, "{m2:?}");
+    assert!(m2.ci_low.unwrap() < m2.mean && m2.ci_high.unwrap() > m2.mean);
+}
+
+#[test]
+fn grid_svg_has_a_cell_per_row_and_day_and_png_is_written() {
+    let dir = checked_plant("report-grid");
+    ok(
+        &dir,
+        &["chart", "grid", "--month", "2026-11", "--out", "grid.svg"],
+    );
+    let svg = parse_svg(&std::fs::read(dir.join("grid.svg")).unwrap());
+    // Row labels: 2 characteristics x 2 factors; 30 day columns.
+    let config = samewise::config::Config::load(dir.join("plant.toml")).unwrap();
+    let store = samewise::storage::Store::open(&config.plant.database).unwrap();
+    let calendar = samewise::calendar::PlantCalendar::new(&config);
+    let month = calendar.parse_period("2026-11").unwrap();
+    let grid = report::grid_input(&store, &config, &month).unwrap();
+    assert_eq!(grid.rows.len(), 4);
+    assert_eq!(grid.days.len(), 30);
+    assert!(grid.rows.iter().all(|r| r.cells.len() == 30));
+    let bore_machine = grid
+        .rows
+        .iter()
+        .find(|r| r.characteristic == "bore" && r.factor == "machine")
+        .unwrap();
+    assert!(bore_machine.cells[29].is_flag());
+    assert_eq!(bore_machine.cells[0], samewise::report::FlagState::NotRun);
+    assert!(svg.width > 0.0 && !svg.shapes.is_empty());
+
+    ok(
+        &dir,
+        &["chart", "grid", "--month", "2026-11", "--out", "grid.png"],
+    );
+    let png = std::fs::read(dir.join("grid.png")).unwrap();
+    assert_eq!(&png[..8], b"\x89PNG\r\n\x1a\n");
+
+    ok(
+        &dir,
+        &[
+            "chart",
+            "detail",
+            "--characteristic",
+            "bore",
+            "--by",
+            "machine",
+            "--day",
+            "2026-11-30",
+            "--out",
+            "detail.png",
+        ],
+    );
+    assert_eq!(
+        &std::fs::read(dir.join("detail.png")).unwrap()[..4],
+        b"\x89PNG"
+    );
+    ok(
+        &dir,
+        &[
+            "chart",
+            "share",
+            "--characteristic",
+            "bore",
+            "--by",
+            "machine",
+            "--from",
+            "2026-11-28",
+            "--to",
+            "2026-11-30",
+            "--out",
+            "share.svg",
+        ],
+    );
+    parse_svg(&std::fs::read(dir.join("share.svg")).unwrap());
+}
+
+#[test]
+fn chart_errors_name_the_fix() {
+    let dir = checked_plant("report-errors");
+    let out = common::samewise(
+        &dir,
+        &[
+            "chart",
+            "trend",
+            "--characteristic",
+            "bor",
+            "--by",
+            "machine",
+            "--month",
+            "2026-11",
+            "--out",
+            "t.svg",
+        ],
+    );
+    assert_eq!(out.status.code(), Some(1));
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(err.contains("did you mean \"bore\""), "{err}");
+    let out = common::samewise(
+        &dir,
+        &["chart", "grid", "--month", "2026-11", "--out", "g.jpg"],
+    );
+    assert!(String::from_utf8_lossy(&out.stderr).contains(".svg or .png"));
+    let out = common::samewise(
+        &dir,
+        &[
+            "chart",
+            "before-after",
+            "--characteristic",
+            "bore",
+            "--by",
+            "machine",
+            "--event",
+            "99",
+            "--out",
+            "b.svg",
+        ],
+    );
+    assert!(String::from_utf8_lossy(&out.stderr).contains("no event #99"));
+}
