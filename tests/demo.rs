@@ -52,7 +52,7 @@ fn demo_finds_the_injected_effects() {
     let stored = number_after(import, "read,");
     let rejected = number_after(import, "stored,");
     assert_eq!(stored + rejected, read, "{import}");
-    assert!(rejected >= 10.0 && rejected < 100.0, "{import}");
+    assert!((10.0..100.0).contains(&rejected), "{import}");
 
     // Catch-up ran every schedule without a failure.
     let catch_up = story_line(&stdout, "3. Scheduler catch-up");
