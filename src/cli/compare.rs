@@ -554,39 +554,7 @@ pub fn to_json(
 // ---------------------------------------------------------------------------------------------
 // Text report
 
-/// `x` with `sig` significant digits, in plain or exponent notation as fits.
-fn sig(x: f64, sig: usize) -> String {
-    if !x.is_finite() {
-        return "-".into();
-    }
-    if x == 0.0 {
-        return "0".into();
-    }
-    let mag = x.abs().log10().floor() as i32;
-    if !(-4..=9).contains(&mag) {
-        return format!("{:.*e}", sig.saturating_sub(1), x);
-    }
-    let decimals = (sig as i32 - 1 - mag).max(0) as usize;
-    format!("{x:.decimals$}")
-}
-
-/// A p-value for reading: 4 significant digits, exponent form below 1e-4.
-fn pval(p: f64) -> String {
-    if p < 1e-4 {
-        format!("{p:.2e}")
-    } else {
-        format!("{p:.4}")
-    }
-}
-
-/// Degrees of freedom: whole numbers as such, fractional ones (Welch) to 4 significant digits.
-fn dfmt(df: f64) -> String {
-    if df.fract() == 0.0 && df.abs() < 1e15 {
-        format!("{df:.0}")
-    } else {
-        sig(df, 4)
-    }
-}
+use super::format::{dfmt, pval, sig};
 
 fn verdict(p: f64) -> &'static str {
     if p < 0.05 {

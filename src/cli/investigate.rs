@@ -196,29 +196,7 @@ pub struct NearEvent {
 // ---------------------------------------------------------------------------------------------
 // Number formatting
 
-/// `x` with `digits` significant digits, plain or exponent notation as fits.
-fn sig(x: f64, digits: usize) -> String {
-    if !x.is_finite() {
-        return "-".into();
-    }
-    if x == 0.0 {
-        return "0".into();
-    }
-    let mag = x.abs().log10().floor() as i32;
-    if !(-4..=9).contains(&mag) {
-        return format!("{:.*e}", digits.saturating_sub(1), x);
-    }
-    let decimals = (digits as i32 - 1 - mag).max(0) as usize;
-    format!("{x:.decimals$}")
-}
-
-fn pval(p: f64) -> String {
-    if p < 1e-4 {
-        format!("{p:.2e}")
-    } else {
-        format!("{p:.4}")
-    }
-}
+use super::format::{pval, sig};
 
 fn num(x: f64) -> Value {
     serde_json::Number::from_f64(x).map_or(Value::Null, Value::Number)

@@ -16,6 +16,7 @@ pub mod compare;
 pub mod db;
 pub mod demo;
 pub mod event;
+pub mod format;
 pub mod history;
 pub mod import;
 pub mod init;
