@@ -21,32 +21,30 @@
 //! ```
 //!
 //! with `1 - (1 - r)^m = -expm1(m log1p(-r))` and the normal tails taken from `erfc` (relative
-//! accuracy), so every integrand is a positive quantity computed without cancellation. The
-//! quadrature panels march outward from the peak of each integrand until a panel adds less than
-//! 1e-17 of the running sum, which keeps relative accuracy for tails far below 1e-12 and for any
-//! degrees of freedom (fractional, 1e6, infinity). The outer integral runs over `u = ln s`, whose
-//! log-density `0.5 ln(nu / pi) - c(nu / 2) + nu (u - expm1(2u) / 2)` (with `c` the Stirling
-//! remainder of ln Gamma) is evaluated without cancellation even at `nu = 1e6`.
+//! accuracy), so every integrand is a positive quantity computed without cancellation; where
+//! `Phi(z) - Phi(z - w)` would cancel (small `w`) it is integrated by Gauss-Legendre instead
+//! ([`narrow_mass`]). These inner quadrature panels march outward from the peak until a panel
+//! adds less than 1e-17 of the running sum ([`range_inf`]).
+//!
+//! How it is evaluated fast. The inner probability depends on `k` and `w = q s` only, so for each
+//! `k` both of its tails are tabulated once per process as piecewise Chebyshev series in `ln w`
+//! from that direct quadrature (`table.rs`: about 30 pieces, 20-60 ms to build, 12-14 digits).
+//! The outer integral over `u = ln s`, whose log-density
+//! `0.5 ln(nu / pi) - c(nu / 2) + nu (u - expm1(2u) / 2)` (with `c` the Stirling remainder of
+//! ln Gamma) is evaluated without cancellation even at `nu = 1e6`, is then a trapezoidal sum with
+//! a step set by the curvature at the integrand's peak ([`outer_trapezoid`]; geometric
+//! convergence for this entire integrand), marching outward until a term adds less than 1e-17 of
+//! the sum. The tests hold the result to the composite Gauss-Legendre outer rule with the direct
+//! inner quadrature at every node ([`evaluate_outer`], the reference implementation) to 11 digits,
+//! and to scipy and mpmath (fixture tests).
 //!
 //! [`qtukey`] starts from the approximation of Algorithm AS 190.2 (Lund and Lund 1983) and refines
 //! it by Newton steps on the log of the CDF (lower half) or of the upper tail (upper half), using
-//! the density computed in the same pass.
+//! the density computed in the same pass: cheaper sums (FAST) until the iterate settles, then one
+//! or two at full accuracy.
 //!
-//! For `0.01 <= p <= 0.999` and finite df, [`qtukey`] replaces the inner probability by a
-//! Chebyshev interpolant of `t -> P_inf(e^t)` over the whole range of `t = ln(q s)` that the outer
-//! integral needs for quantiles within 5 % of the start (degree doubled from 16 until the last
-//! coefficients are below 1e-15; rebuilt if an iterate leaves the window), so each Newton step
-//! costs only the outer sum. Checked against the direct quadrature to 11 digits in the tests.
-//!
-//! Speed (FIXME, issue 3 asks for a quantile under 50 microseconds for k <= 50): still far from
-//! it. Measured with `cargo run --release --example ptukey_timing` on the shared, heavily loaded
-//! 2-core machine (load average about 12): qtukey 0.25-0.8 ms at df = 1e6, 0.6-1.9 ms at df = 1000,
-//! 1.2-8 ms at df 12-100, 6-42 ms at df = 2.5, 44-190 microseconds at df = infinity (before: 4-85 ms
-//! finite df); the upper tail [`ptukey_sf`] is unchanged at 2-7 ms. The cost is now the inner
-//! integral at each interpolation node (16 nodes at df = 1e6, 256 at df = 2.5, 10-30 microseconds
-//! each); a cheaper inner rule (panels twice as wide, marches stopped at 1e-15) broke the 11-digit
-//! agreement, so it needs a better-targeted rule (fewer nodes where the integrand is flat), not
-//! just a looser one.
+//! Speed (`cargo run --release --example ptukey_timing`, `cargo bench --bench ptukey`): see
+//! DEVELOPERS.md for the measured figures; the first call for a new `k` also builds its table.
 //!
 //! Start reading at [`ptukey_sf`].
 
@@ -54,6 +52,8 @@ use super::{Stat, Unavailable};
 use statrs::function::gamma::ln_gamma;
 use std::f64::consts::{FRAC_1_SQRT_2, PI};
 use std::sync::OnceLock;
+
+mod table;
 
 /// Gauss-Legendre nodes per panel.
 const NODES: usize = 10;
@@ -142,15 +142,17 @@ pub fn qtukey(p: f64, k: f64, df: f64) -> Stat<f64> {
     if p == 1.0 {
         return Ok(f64::INFINITY);
     }
-    match qtukey_interpolated(p, k, df) {
-        Some(q) => Ok(q),
-        None => qtukey_general(p, k, df),
-    }
+    quantile_by_newton(p, k, df, evaluate)
 }
 
-/// [`qtukey`] for any `0 < p < 1`: Newton steps with the direct quadrature of [`evaluate`] (the
-/// FAST settings, then one ACCURATE step).
-fn qtukey_general(p: f64, k: f64, df: f64) -> Stat<f64> {
+/// [`qtukey`] for any `0 < p < 1`: Newton steps with `evaluate` ([`evaluate`], or the direct
+/// quadrature in the tests), with the FAST settings, then one ACCURATE step.
+fn quantile_by_newton(
+    p: f64,
+    k: f64,
+    df: f64,
+    evaluate: impl Fn(f64, f64, f64, bool, &Precision) -> (f64, f64),
+) -> Stat<f64> {
     let use_upper = p > 0.5;
     let target = if use_upper { (1.0 - p).ln() } else { p.ln() };
     let mut q = initial_quantile(p, k, df).max(1e-8);
@@ -185,199 +187,20 @@ fn qtukey_general(p: f64, k: f64, df: f64) -> Stat<f64> {
             step = 0.5 * q;
         }
         q -= step;
-        // Newton converges quadratically: once a step is below 1e-7 of q the next would be below
-        // 1e-13. The FAST quadrature carries the iterate that far; one more step with the
-        // ACCURATE one removes its error.
-        if step.abs() <= 1e-7 * q || error.abs() <= 1e-15 {
-            if std::ptr::eq(prec, &ACCURATE_WITH_DENSITY) {
-                return Ok(q);
-            }
+        // Newton converges quadratically: a step below 1e-7 of q leaves an error of order 1e-14.
+        // The FAST quadrature carries the iterate to within its own accuracy of the root (its
+        // steps fall below 1e-6 of q); then ACCURATE steps until one is below 1e-7.
+        let is_accurate = std::ptr::eq(prec, &ACCURATE_WITH_DENSITY);
+        if is_accurate && (step.abs() <= 1e-7 * q || error.abs() <= 1e-15) {
+            return Ok(q);
+        }
+        if !is_accurate && (step.abs() <= 1e-6 * q || error.abs() <= 1e-15) {
             prec = &ACCURATE_WITH_DENSITY;
         }
     }
     Err(Unavailable::new(format!(
         "studentized range quantile did not converge (p = {p}, k = {k}, df = {df})"
     )))
-}
-
-/// Probabilities for which [`qtukey`] takes the interpolated path: both tails hold at least 1e-3,
-/// so an absolute error near 1e-15 in the lower tail is still a relative one near 1e-12.
-const INTERPOLATED_P: std::ops::RangeInclusive<f64> = 0.01..=0.999;
-
-/// Log-integrand drop (below the peak of the chi density) beyond which the interpolated path
-/// leaves the outer integrand to the exact inner integral: e^-45 = 3e-20.
-const OUTER_DROP: f64 = 45.0;
-
-/// Half-width, in `ln q`, of the window of quantiles one interpolant serves.
-const Q_WINDOW: f64 = 0.05;
-
-/// Quantile by Newton steps on the lower tail with the inner probability `P_inf(e^t)` replaced by
-/// a Chebyshev interpolant ([`ChebRange`], accurate to about 1e-15 absolute) over the whole range
-/// of `t = ln w` that the outer integral needs for quantiles within [`Q_WINDOW`] of the start.
-/// Each Newton step then costs only the outer sum; the interpolant is rebuilt if an iterate leaves
-/// the window. `None` outside [`INTERPOLATED_P`] or if the interpolant does not converge (the
-/// caller then takes the general path).
-fn qtukey_interpolated(p: f64, k: f64, df: f64) -> Option<f64> {
-    if !INTERPOLATED_P.contains(&p) {
-        return None;
-    }
-    let mut q = initial_quantile(p, k, df).max(1e-3);
-    let infinite = df == f64::INFINITY || df > 1.0e15;
-    let mut built: Option<(ChebRange, f64, f64)> = None;
-    for _ in 0..60 {
-        let lq = q.ln();
-        let (value, slope) = if infinite {
-            range_inf(q, k, false, &ACCURATE_WITH_DENSITY)
-        } else {
-            let inside = matches!(&built, Some((_, lo, hi)) if (*lo..=*hi).contains(&lq));
-            if !inside {
-                let (lo, hi) = (lq - Q_WINDOW, lq + Q_WINDOW);
-                let (u_lo, u_hi) = outer_range(k, df, hi.exp());
-                built = Some((ChebRange::build(lo + u_lo, hi + u_hi, k)?, lo, hi));
-            }
-            let (cheb, _, _) = built.as_ref()?;
-            evaluate_outer(q, k, df, false, &ACCURATE_WITH_DENSITY, |w| {
-                let t = w.ln();
-                if (cheb.a..=cheb.b).contains(&t) {
-                    let (f, df_dt) = cheb.eval(t);
-                    (f, df_dt / w)
-                } else {
-                    range_inf(w, k, false, &ACCURATE_WITH_DENSITY)
-                }
-            })
-        };
-        let error = value - p;
-        if !error.is_finite() || !slope.is_finite() || slope <= 0.0 {
-            return None;
-        }
-        let mut step = error / slope;
-        if q - step <= 0.0 {
-            step = 0.5 * q;
-        }
-        q -= step;
-        if step.abs() <= 1e-13 * q || error.abs() <= 1e-16 {
-            return Some(q);
-        }
-    }
-    None
-}
-
-/// The range of `u = ln s` outside which the lower-tail outer integrand at `q` is below
-/// `e^-OUTER_DROP` of the chi density's peak, from the bound `P_inf(w) <= k (w / sqrt(2 pi))^(k-1)`
-/// (each `Phi(z) - Phi(z - w)` is at most `w phi(0)`).
-fn outer_range(k: f64, nu: f64, q: f64) -> (f64, f64) {
-    let log_density = |u: f64| nu * (u - 0.5 * (2.0 * u).exp_m1());
-    let ln_bound = |u: f64| (k.ln() + (k - 1.0) * (q.ln() + u - 0.5 * (2.0 * PI).ln())).min(0.0);
-    let bisect = |mut inside: f64, mut outside: f64, f: &dyn Fn(f64) -> f64| {
-        for _ in 0..60 {
-            let mid = 0.5 * (inside + outside);
-            if f(mid) > -OUTER_DROP {
-                inside = mid;
-            } else {
-                outside = mid;
-            }
-        }
-        outside
-    };
-    let mut hi = 1.0;
-    while log_density(hi) > -OUTER_DROP {
-        hi *= 2.0;
-    }
-    let mut lo = -1.0;
-    let lower = |u: f64| log_density(u) + ln_bound(u);
-    while lower(lo) > -OUTER_DROP {
-        lo *= 2.0;
-    }
-    (bisect(0.0, lo, &lower), bisect(0.0, hi, &log_density))
-}
-
-/// `t -> P_inf(e^t)` (lower tail of the range of `k` standard normals) on `[a, b]` as a Chebyshev
-/// series `sum c_j T_j(x)`, `x = (t - mid) / half`, with its derivative series.
-struct ChebRange {
-    a: f64,
-    b: f64,
-    coef: Vec<f64>,
-    deriv: Vec<f64>,
-}
-
-impl ChebRange {
-    /// Values at Chebyshev-Lobatto points, doubling their number (the old points are reused) until
-    /// the last three coefficients are below 1e-15: the values lie in [0, 1], so the interpolant is
-    /// then accurate to about that, absolutely. `None` if 512 points do not suffice.
-    fn build(a: f64, b: f64, k: f64) -> Option<ChebRange> {
-        let (mid, half) = (0.5 * (a + b), 0.5 * (b - a));
-        let f = |i: usize, n: usize| {
-            let t = mid + half * (PI * i as f64 / n as f64).cos();
-            range_inf(t.exp(), k, false, &ACCURATE).0
-        };
-        let mut n = 16;
-        let mut values: Vec<f64> = (0..=n).map(|i| f(i, n)).collect();
-        loop {
-            let coef = cheb_coefficients(&values);
-            let tail = coef[n - 2..].iter().fold(0.0f64, |m, c| m.max(c.abs()));
-            if tail <= 1e-15 {
-                // f' = sum d_j T_j: d_(j-1) = d_(j+1) + 2 j c_j, then d_0 halved; per unit t.
-                let mut deriv = vec![0.0; n + 2];
-                for j in (1..=n).rev() {
-                    deriv[j - 1] = deriv[j + 1] + 2.0 * j as f64 * coef[j];
-                }
-                deriv[0] *= 0.5;
-                deriv.truncate(n);
-                deriv.iter_mut().for_each(|d| *d /= half);
-                return Some(ChebRange { a, b, coef, deriv });
-            }
-            if n >= 512 {
-                return None;
-            }
-            let m = 2 * n;
-            values = (0..=m)
-                .map(|i| if i % 2 == 0 { values[i / 2] } else { f(i, m) })
-                .collect();
-            n = m;
-        }
-    }
-
-    /// Value and derivative (per unit `t`) at `t`.
-    fn eval(&self, t: f64) -> (f64, f64) {
-        let x = (2.0 * t - self.a - self.b) / (self.b - self.a);
-        (clenshaw(&self.coef, x), clenshaw(&self.deriv, x))
-    }
-}
-
-/// `sum c_j T_j(x)` by Clenshaw's recurrence.
-fn clenshaw(c: &[f64], x: f64) -> f64 {
-    let (mut b1, mut b2) = (0.0, 0.0);
-    for &cj in c[1..].iter().rev() {
-        let b0 = 2.0 * x * b1 - b2 + cj;
-        b2 = b1;
-        b1 = b0;
-    }
-    c[0] + x * b1 - b2
-}
-
-/// Chebyshev coefficients (`f = sum c_j T_j`) of the interpolant through values at the
-/// Chebyshev-Lobatto points `cos(pi i / n)`, `i = 0..=n`.
-fn cheb_coefficients(values: &[f64]) -> Vec<f64> {
-    let n = values.len() - 1;
-    let cosines: Vec<f64> = (0..2 * n)
-        .map(|m| (PI * m as f64 / n as f64).cos())
-        .collect();
-    let mut coef: Vec<f64> = (0..=n)
-        .map(|j| {
-            let sum: f64 = values
-                .iter()
-                .enumerate()
-                .map(|(i, v)| {
-                    let end = if i == 0 || i == n { 0.5 } else { 1.0 };
-                    end * v * cosines[(i * j) % (2 * n)]
-                })
-                .sum();
-            2.0 * sum / n as f64
-        })
-        .collect();
-    coef[0] *= 0.5;
-    coef[n] *= 0.5;
-    coef
 }
 
 /// Initial approximation to the quantile: AS 190.2 (Lund and Lund 1983, after Odeh and Evans'
@@ -422,11 +245,14 @@ fn initial_quantile(p: f64, k: f64, df: f64) -> f64 {
     }
 }
 
-/// Quadrature settings: the share of the running sum below which a panel ends a march, and a
-/// factor on every panel width.
+/// Quadrature settings: the share of the running sum below which a march ends, a factor on every
+/// panel width of the direct quadrature (which builds the tables) and the step of the outer
+/// trapezoidal sum.
 struct Precision {
     negligible: f64,
     width_factor: f64,
+    /// Step of the outer trapezoidal rule ([`outer_trapezoid`]) as a share of the local scale.
+    step: f64,
     with_density: bool,
 }
 
@@ -434,6 +260,7 @@ struct Precision {
 const ACCURATE: Precision = Precision {
     negligible: NEGLIGIBLE,
     width_factor: 1.0,
+    step: 0.6,
     with_density: false,
 };
 
@@ -443,11 +270,13 @@ const ACCURATE_WITH_DENSITY: Precision = Precision {
     ..ACCURATE
 };
 
-/// About 1e-11 relative, for the Newton steps of the quantile (checked against [`ACCURATE`] in the
-/// tests).
+/// About 1e-7 relative or better, for the first Newton steps of the quantile: their root is then
+/// within about 1e-7 of the true one, and one Newton step with [`ACCURATE`] from there leaves an
+/// error of order 1e-14 (checked against the direct quadrature in the tests).
 const FAST: Precision = Precision {
-    negligible: 1e-13,
+    negligible: 1e-10,
     width_factor: 2.0,
+    step: 1.0,
     with_density: true,
 };
 
@@ -463,25 +292,37 @@ fn inner_level(k: f64, prec: &Precision) -> usize {
 /// Returns `(tail, density at q)` where `tail` is `P(Q > q)` when `upper` and `P(Q <= q)`
 /// otherwise, integrated directly (positive integrands, no cancellation either way).
 fn evaluate(q: f64, k: f64, df: f64, upper: bool, prec: &Precision) -> (f64, f64) {
+    let table = table::table_for(k);
+    if df == f64::INFINITY || df > 1.0e15 {
+        return table.tail(q, upper);
+    }
+    outer_trapezoid(q, k, df, upper, prec, |w, t| table.tail_at(w, t, upper))
+}
+
+/// [`evaluate`] with the inner probability integrated directly at every outer node instead of
+/// read from the table (the reference the tests hold the tables to).
+#[cfg(test)]
+fn evaluate_direct(q: f64, k: f64, df: f64, upper: bool, prec: &Precision) -> (f64, f64) {
     if df == f64::INFINITY || df > 1.0e15 {
         return range_inf(q, k, upper, prec);
     }
-    evaluate_outer(q, k, df, upper, prec, |w| range_inf(w, k, upper, prec))
+    evaluate_outer(q, k, df, upper, prec, |w, _| range_inf(w, k, upper, prec))
 }
 
 /// The outer integral of [`evaluate`] over the chi density, with the inner probability (and its
 /// density) of the range at `w` given by `inner`.
+#[cfg(test)]
 fn evaluate_outer(
     q: f64,
     k: f64,
     df: f64,
     upper: bool,
     prec: &Precision,
-    inner: impl Fn(f64) -> (f64, f64),
+    inner: impl Fn(f64, f64) -> (f64, f64),
 ) -> (f64, f64) {
     let nu = df;
     let log_norm = 0.5 * (nu / PI).ln() - stirling_remainder(0.5 * nu);
-    let log_density = |u: f64| log_norm + nu * (u - 0.5 * (2.0 * u).exp_m1());
+    let ln_q = q.ln();
     let gl = legendre();
     // Peak of the upper-tail integrand, from the Gaussian-tail approximation of sf_inf; the lower
     // one starts at the mode of the log-density (u = 0).
@@ -516,12 +357,12 @@ fn evaluate_outer(
             let mut sum_density = 0.0;
             for (x, w) in gl.iter() {
                 let u = mid + half * x;
-                let g = log_density(u).exp();
+                let (s, s2_m1) = scale_and_square_m1(u);
+                let g = (log_norm + nu * (u - 0.5 * s2_m1)).exp();
                 if g == 0.0 {
                     continue;
                 }
-                let s = u.exp();
-                let (part, dens) = inner(q * s);
+                let (part, dens) = inner(q * s, ln_q + u);
                 sum += w * g * part;
                 sum_density += w * g * s * dens;
             }
@@ -546,6 +387,120 @@ fn evaluate_outer(
         }
     }
     (total.min(1.0), total_density)
+}
+
+/// The outer integral of [`evaluate`] by the trapezoidal rule in `u = ln s` with a fixed step.
+///
+/// The integrand (chi density times the tail of the range at `q e^u`) is an entire function of
+/// `u` that decays at both ends, so the trapezoidal rule converges geometrically: with a step `h`
+/// of `c` times the local scale `sigma` of the integrand its error is of order
+/// `exp(-2 pi^2 / c^2)` (the growth of a Gaussian of SD `sigma` in the strip of width
+/// `pi sigma^2 / h`, e.g. Trefethen and Weideman 2014, "The exponentially convergent trapezoidal
+/// rule", SIAM Review 56, 385-458): 1e-24 for the ACCURATE `c = 0.6`, 3e-9 for the FAST `c = 1`;
+/// for small df the strip is at most `pi / 4` wide, which caps the step.
+/// The scale is that of [`evaluate_outer`] at the peak (chi density, Gaussian decay of the upper
+/// tail, sharpness of the range for large `k`). The sum marches outward from the peak until a
+/// term adds less than `negligible` of the running sum (and terms are falling). Checked against
+/// the panel rule of [`evaluate_outer`] with the direct inner quadrature in the tests.
+fn outer_trapezoid(
+    q: f64,
+    k: f64,
+    df: f64,
+    upper: bool,
+    prec: &Precision,
+    inner: impl Fn(f64, f64) -> (f64, f64),
+) -> (f64, f64) {
+    let nu = df;
+    let log_norm = 0.5 * (nu / PI).ln() - stirling_remainder(0.5 * nu);
+    let ln_q = q.ln();
+    let start = if upper {
+        0.5 * (nu / (nu + 0.5 * q * q)).ln()
+    } else {
+        0.0
+    };
+    // Slope of the log-integrand, ln g(u) + ln tail(q e^u), with the inner tail's log-slope from
+    // its density: d ln P / d ln w = w f(w) / P (negated for the upper tail).
+    let sign = if upper { -1.0 } else { 1.0 };
+    let slope = |u: f64| -> Option<f64> {
+        let w = q * u.exp();
+        let (part, dens) = inner(w, ln_q + u);
+        let inner_slope = sign * dens * w / part;
+        (part > 0.0 && inner_slope.is_finite()).then(|| nu * -(2.0 * u).exp_m1() + inner_slope)
+    };
+    // Peak and curvature of the log-integrand by Newton steps on its slope (second derivative by
+    // central difference); the fallback is the scale of the chi density and of the Gaussian decay
+    // of the upper tail at the start, and the sharpness of the range for large k.
+    let tau = 0.6 / (1.0 + k.ln());
+    let fallback = (2.0 * nu + if upper { q * q } else { 0.0 }) * (2.0 * start).exp();
+    let mut peak = start;
+    let mut curvature = None;
+    for _ in 0..40 {
+        let delta = 1e-3 * tau.min(fallback.sqrt().recip());
+        let (Some(d1), Some(lo), Some(hi)) =
+            (slope(peak), slope(peak - delta), slope(peak + delta))
+        else {
+            break;
+        };
+        let d2 = (hi - lo) / (2.0 * delta);
+        if d2.is_nan() || d2 >= 0.0 {
+            break;
+        }
+        curvature = Some(-d2);
+        let step = (d1 / d2).clamp(-1.0, 1.0);
+        peak -= step;
+        if step.abs() <= 1e-3 * delta {
+            break;
+        }
+    }
+    let (start, scale) = match curvature {
+        Some(c) => (peak, tau.min(c.sqrt().recip())),
+        None => (start, tau.min(fallback.sqrt().recip())),
+    };
+    // The e^(2u) of the chi density limits the strip of analyticity to |Im u| < pi / 4, whatever
+    // the scale: a step of at most 1/6 of the scale unit keeps exp(-2 pi 0.7 / h) below 1e-17.
+    let h = prec.step * scale.min(1.0 / 6.0);
+    let term = |u: f64| -> (f64, f64) {
+        let (s, s2_m1) = scale_and_square_m1(u);
+        let g = (log_norm + nu * (u - 0.5 * s2_m1)).exp();
+        if g == 0.0 {
+            return (0.0, 0.0);
+        }
+        let (part, dens) = inner(q * s, ln_q + u);
+        (g * part, g * s * dens)
+    };
+    let (mut total, mut total_density) = term(start);
+    for direction in [1.0f64, -1.0] {
+        let mut previous = f64::INFINITY;
+        for j in 1..20_000 {
+            let u = start + direction * j as f64 * h;
+            let (part, dens) = term(u);
+            total += part;
+            total_density += dens;
+            let is_small = part <= prec.negligible * total
+                && (!prec.with_density || dens <= prec.negligible * total_density);
+            if is_small && part <= previous || total == 0.0 && j > 400 {
+                break;
+            }
+            previous = part;
+            if direction > 0.0 && u > 30.0 || direction < 0.0 && u < -745.0 / nu.min(1.0) - 40.0 {
+                break;
+            }
+        }
+    }
+    ((h * total).min(1.0), h * total_density)
+}
+
+/// `(e^u, e^(2u) - 1)`, each with relative accuracy: `e^(2u) - 1` from `expm1` near `u = 0`,
+/// where the difference would cancel, and from `e^u` elsewhere (it is then at least 0.5 in size).
+#[inline]
+fn scale_and_square_m1(u: f64) -> (f64, f64) {
+    let s = u.exp();
+    let s2_m1 = if u.abs() < 0.35 {
+        (2.0 * u).exp_m1()
+    } else {
+        s * s - 1.0
+    };
+    (s, s2_m1)
 }
 
 /// `ln Gamma(a) - [(a - 1/2) ln a - a + ln(2 pi) / 2]`, without cancellation for large `a`.
@@ -786,13 +741,17 @@ fn range_inf(w: f64, k: f64, upper: bool, prec: &Precision) -> (f64, f64) {
         for node in &grid[p * NODES..(p + 1) * NODES] {
             let zw = node.z - w;
             // R = Phi(z) - Phi(z - w), from whichever tails avoid cancellation (one erfc).
-            let (cdf_zw, r) = if zw > 0.0 {
+            let (cdf_zw, mut r) = if zw > 0.0 {
                 let upper_zw = norm_cdf(-zw);
                 (1.0 - upper_zw, upper_zw - node.upper)
             } else {
                 let cdf_zw = norm_cdf(zw);
                 (cdf_zw, node.cdf - cdf_zw)
             };
+            if is_narrow(node.z, w) {
+                // The two tails nearly cancel: integrate phi over [z - w, z] instead.
+                r = narrow_mass(node.z, w);
+            }
             if r <= 0.0 {
                 // R underflows (w tiny): only the upper tail gets a contribution.
                 if upper {
@@ -834,6 +793,33 @@ fn range_inf(w: f64, k: f64, upper: bool, prec: &Precision) -> (f64, f64) {
         }
     }
     ((k * total).min(1.0), k * km1 * total_density)
+}
+
+/// Whether `Phi(z) - Phi(z - w)` is better integrated than subtracted: `h |c| + h^2 <= 0.6` with
+/// `h = w / 2`, `c = z - h`. Outside it the difference keeps all but about one digit (it is at
+/// least `1 - e^-1` of the larger tail); inside it the Gauss-Legendre rule of [`narrow_mass`] is
+/// exact to rounding.
+#[inline]
+fn is_narrow(z: f64, w: f64) -> bool {
+    let h = 0.5 * w;
+    h * (z - h).abs() + h * h <= 0.6
+}
+
+/// `Phi(z) - Phi(z - w) = phi(c) * integral over |y| <= h of exp(-c y - y^2 / 2)`, `c = z - w / 2`,
+/// `h = w / 2`, by the 10-point Gauss-Legendre rule: for `h |c| + h^2 <= 0.6` its error is below
+/// 1e-20 relative (the integrand's 20th derivative is at most about 0.6^20 of its size), so the
+/// difference keeps full relative accuracy however small `w` is.
+fn narrow_mass(z: f64, w: f64) -> f64 {
+    let h = 0.5 * w;
+    let c = z - h;
+    let sum: f64 = legendre()
+        .iter()
+        .map(|&(x, weight)| {
+            let y = h * x;
+            weight * (-c * y - 0.5 * y * y).exp()
+        })
+        .sum();
+    (-0.5 * c * c).exp() * FRAC_1_SQRT_2PI * h * sum
 }
 
 #[cfg(test)]
@@ -938,32 +924,68 @@ mod tests {
         assert!(lre(tail, 1e-12) >= 3.0, "{tail:e}");
     }
 
-    // The interpolated quantile path against the general one (direct quadrature, no interpolant),
-    // both implemented here: they must agree to 11 digits wherever the fast path applies.
+    // The tabulated inner probability (table.rs) against the direct quadrature at every outer
+    // node, both implemented here: quantiles, lower and upper tails must agree to 11 digits
+    // (relative), including far upper quantiles (1 - p = 1e-9) and tails.
     #[test]
-    fn interpolated_quantile_matches_direct_quadrature() {
-        let mut worst = f64::INFINITY;
-        let mut declined = 0;
-        for p in [0.01, 0.5, 0.95, 0.99, 0.999] {
-            for k in [2.0, 3.0, 7.5, 20.0, 50.0] {
-                for df in [1.0, 2.5, 12.0, 100.0, 1e4, 1e6, f64::INFINITY] {
-                    let Some(fast) = qtukey_interpolated(p, k, df) else {
-                        eprintln!("general path: p {p} k {k} df {df}");
-                        declined += 1;
+    fn tabulated_results_match_direct_quadrature() {
+        let (mut worst_q, mut worst_tail) = (f64::INFINITY, f64::INFINITY);
+        for k in [2.0, 3.0, 7.5, 20.0, 50.0] {
+            for df in [1.0, 2.5, 12.0, 100.0, 1e4, 1e6, f64::INFINITY] {
+                for p in [1e-6, 0.01, 0.5, 0.95, 0.99, 0.999, 1.0 - 1e-9] {
+                    if df < 2.0 && p > 0.999 {
+                        // The direct reference's panels do not reach q ~ 1e9 (checked in closed
+                        // form in k2_df1_quantiles_are_the_cauchy_ones instead).
                         continue;
-                    };
-                    let direct = qtukey_general(p, k, df).unwrap();
-                    let digits = lre(fast, direct);
-                    worst = worst.min(digits);
-                    assert!(digits >= 11.0, "p {p} k {k} df {df}: {fast} vs {direct}");
+                    }
+                    let tabulated = qtukey(p, k, df).unwrap();
+                    let direct = quantile_by_newton(p, k, df, evaluate_direct).unwrap();
+                    let digits = lre(tabulated, direct);
+                    worst_q = worst_q.min(digits);
+                    assert!(
+                        digits >= 11.0,
+                        "p {p} k {k} df {df}: {tabulated} vs {direct}"
+                    );
+                }
+                for q in [0.05, 1.0, 3.0, 6.0, 15.0] {
+                    for upper in [false, true] {
+                        let (tab, _) = evaluate(q, k, df, upper, &ACCURATE);
+                        let (dir, _) = evaluate_direct(q, k, df, upper, &ACCURATE);
+                        if dir < 1e-280 {
+                            continue;
+                        }
+                        let digits = lre(tab, dir);
+                        worst_tail = worst_tail.min(digits);
+                        assert!(
+                            digits >= 11.0,
+                            "q {q} k {k} df {df} upper {upper}: {tab:e} vs {dir:e}"
+                        );
+                    }
                 }
             }
         }
-        eprintln!("interpolated vs direct quantile: worst {worst:.2} digits, {declined} declined");
-        assert!(
-            declined <= 10,
-            "{declined} of 175 cases left to the general path"
+        eprintln!(
+            "tabulated vs direct: quantiles worst {worst_q:.2} digits, tails worst {worst_tail:.2}"
         );
+    }
+
+    // k = 2, df = 1: Q = sqrt(2) |T| with T standard Cauchy, so P(Q <= q) = (2 / pi) atan(q / sqrt 2)
+    // and the quantile is sqrt(2) tan(pi p / 2), closed form (no reference library needed).
+    #[test]
+    fn k2_df1_quantiles_are_the_cauchy_ones() {
+        for p in [1e-6, 0.05, 0.5, 0.95, 0.999, 1.0 - 1e-9] {
+            let exact = std::f64::consts::SQRT_2 * (0.5 * PI * p).tan();
+            let q = qtukey(p, 2.0, 1.0).unwrap();
+            // 1 - p carries the rounding of p (1e-16 / 1e-9 relative): 6 digits at p = 1 - 1e-9.
+            let needed = if p > 0.999 { 6.0 } else { 11.0 };
+            assert!(lre(q, exact) >= needed, "p {p}: {q} vs {exact}");
+            let sf = ptukey_sf(exact, 2.0, 1.0).unwrap();
+            let exact_sf = 1.0 - (2.0 / PI) * (exact / std::f64::consts::SQRT_2).atan();
+            assert!(
+                lre(sf, exact_sf) >= needed,
+                "p {p}: sf {sf:e} vs {exact_sf:e}"
+            );
+        }
     }
 
     #[test]
