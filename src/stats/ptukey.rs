@@ -468,12 +468,30 @@ fn outer_trapezoid(
         let (part, dens) = inner(q * s, ln_q + u);
         (g * part, g * s * dens)
     };
-    let (mut total, mut total_density) = term(start);
+    // Below the peak the integrand decays only like e^(lambda u) (lambda = df, plus k - 1 for the
+    // lower tail), which at small df would take hundreds of steps. The sum runs instead over v with
+    // u = v - e^(v0 - v), v0 at D units below the peak: an entire map, the identity to within
+    // e^-D at the peak and beyond (D = 2 + ln(1 / scale), a tenth of the scale or less), that turns
+    // the exponential left tail into a double-exponential one. Its strip (|Im v| up to about 0.6
+    // where the map bends) still exceeds what the step needs.
+    let bend_distance = 2.0 + scale.recip().ln().max(0.0);
+    let v0 = start - bend_distance;
+    // The v whose image is (nearly) the peak.
+    let start = start + (-bend_distance).exp();
+    let mapped = |v: f64| -> (f64, f64, f64) {
+        let bend = (v0 - v).exp();
+        let u = v - bend;
+        let (part, dens) = term(u);
+        if part == 0.0 && dens == 0.0 {
+            return (u, 0.0, 0.0);
+        }
+        (u, part * (1.0 + bend), dens * (1.0 + bend))
+    };
+    let (_, mut total, mut total_density) = mapped(start);
     for direction in [1.0f64, -1.0] {
         let mut previous = f64::INFINITY;
         for j in 1..20_000 {
-            let u = start + direction * j as f64 * h;
-            let (part, dens) = term(u);
+            let (u, part, dens) = mapped(start + direction * j as f64 * h);
             total += part;
             total_density += dens;
             let is_small = part <= prec.negligible * total
