@@ -92,23 +92,29 @@ fn lock<T>(m: &Mutex<T>) -> std::sync::MutexGuard<'_, T> {
     m.lock().unwrap_or_else(|e| e.into_inner())
 }
 
-/// `(L(t), M(t))` from the direct quadrature of both tails at `w = e^t`.
-fn direct(t: f64, k: f64) -> (f64, f64) {
+/// `(L(t), M(t))` from the direct quadrature at `w = e^t`, and whether the lower tail is at least
+/// 1/2 there.
+///
+/// Each log comes from the tail that holds it with relative accuracy: the smaller tail `P` gives
+/// `ln P` and, for the other, `ln(1 - P)`. `upper_first` guesses which tail is the smaller one, so
+/// that most points need one quadrature, not two.
+fn direct(t: f64, k: f64, upper_first: bool) -> ((f64, f64), bool) {
     let w = t.exp();
-    let lower = range_inf(w, k, false, &ACCURATE).0;
-    let upper = range_inf(w, k, true, &ACCURATE).0;
-    // Each log from the tail that holds it with relative accuracy.
-    let l = if lower < 0.5 {
-        lower.ln()
+    let from_lower = |lower: f64| (lower.ln(), (-lower).ln_1p() + 0.25 * w * w);
+    let from_upper = |upper: f64| ((-upper).ln_1p(), upper.ln() + 0.25 * w * w);
+    if upper_first {
+        let upper = range_inf(w, k, true, &ACCURATE).0;
+        if upper < 0.5 {
+            return (from_upper(upper), true);
+        }
+        (from_lower(range_inf(w, k, false, &ACCURATE).0), false)
     } else {
-        (-upper).ln_1p()
-    };
-    let m = if upper < 0.5 {
-        upper.ln()
-    } else {
-        (-lower).ln_1p()
-    };
-    (l, m + 0.25 * w * w)
+        let lower = range_inf(w, k, false, &ACCURATE).0;
+        if lower < 0.5 {
+            return (from_lower(lower), false);
+        }
+        (from_upper(range_inf(w, k, true, &ACCURATE).0), true)
+    }
 }
 
 impl RangeTable {
@@ -130,6 +136,8 @@ impl RangeTable {
         let mut pieces = Vec::new();
         // End points and midpoints are shared between a piece and its halves or neighbours.
         let mut known: HashMap<u64, (f64, f64)> = HashMap::new();
+        // Lowest t seen where P(W <= e^t) >= 1/2 (the upper tail is then the smaller one).
+        let mut median_above = f64::INFINITY;
         while let Some((a, b)) = pending.pop() {
             let (mid, half) = (0.5 * (a + b), 0.5 * (b - a));
             let mut lower = [0.0; DEGREE + 1];
@@ -145,7 +153,13 @@ impl RangeTable {
                 } else {
                     mid + half * (PI * i as f64 / DEGREE as f64).cos()
                 };
-                let (l, m) = *known.entry(t.to_bits()).or_insert_with(|| direct(t, k));
+                let (l, m) = *known.entry(t.to_bits()).or_insert_with(|| {
+                    let (values, is_upper_half) = direct(t, k, t >= median_above);
+                    if is_upper_half {
+                        median_above = median_above.min(t);
+                    }
+                    values
+                });
                 lower[i] = l;
                 upper[i] = m;
             }
