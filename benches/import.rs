@@ -19,7 +19,11 @@ use samewise::config::Config;
 use samewise::storage::Store;
 
 fn setup() -> Config {
-    let dir = std::env::temp_dir().join("samewise-bench-import");
+    // One directory per page size, so a database written with another page size is not reused.
+    let dir = std::env::temp_dir().join(format!(
+        "samewise-bench-import-p{}",
+        samewise::storage::PAGE_SIZE
+    ));
     let csv = dir.join("day.csv");
     let config_path = PathBuf::from(format!("{}.plant.toml", csv.display()));
     if !config_path.exists() {

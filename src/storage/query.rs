@@ -7,9 +7,6 @@
 //! resolved once per level set of the frame, not per row: the per-row work is one hash look-up
 //! and one push per factor.
 
-use std::collections::hash_map::Entry;
-use std::collections::HashMap;
-
 use crate::ingest::fxhash::FxMap;
 
 use chrono::{DateTime, Utc};
@@ -60,11 +57,13 @@ pub struct PeriodFrame {
     pub characteristics: Vec<CharacteristicFrame>,
 }
 
-/// Level set id -> level id per configured factor (`None`: no level), plus level names.
+/// Level set id -> level id per configured factor (0: no level), plus level names.
 #[derive(Debug, Default)]
 pub(crate) struct LevelCache {
     factor_ids: Vec<i64>,
-    sets: FxMap<i64, Box<[Option<i64>]>>,
+    /// Level set id -> where its level ids (one per configured factor) start in `members`.
+    sets: FxMap<i64, usize>,
+    members: Vec<i64>,
     level_names: FxMap<i64, String>,
 }
 
@@ -189,13 +188,13 @@ impl Store {
             cache.factor_ids = factor_ids;
         }
         let n_factors = factors.len();
-        // Per factor: level id -> index in the frame's level list (assigned in first-seen order,
-        // re-sorted by name at the end).
-        let mut level_index: Vec<HashMap<Option<i64>, u32>> = vec![HashMap::new(); n_factors];
-        let mut level_order: Vec<Vec<Option<i64>>> = vec![Vec::new(); n_factors];
-        // Level set id -> where its `n_factors` level indices start in `set_levels`.
-        let mut set_slot: FxMap<i64, usize> = FxMap::default();
-        let mut set_levels: Vec<u32> = Vec::new();
+        let mut frame_levels = FrameLevels {
+            n_factors,
+            level_index: vec![FxMap::default(); n_factors],
+            level_order: vec![Vec::new(); n_factors],
+            set_slot: FxMap::default(),
+            set_levels: Vec::new(),
+        };
 
         let mut rows_stmt = self.conn.prepare_cached(
             "SELECT ts_ms, value, level_set_id FROM measurements \
@@ -203,6 +202,7 @@ impl Store {
         )?;
         let mut frames = Vec::with_capacity(chosen.len());
         let mut sets: Vec<i64> = Vec::new();
+        let mut missing: Vec<i64> = Vec::new();
         for c in chosen {
             let mut ts_ms = Vec::new();
             let mut values = Vec::new();
@@ -218,38 +218,29 @@ impl Store {
                 sets.push(row.get::<_, i64>(2)?);
             }
             drop(rows);
-            let mut missing: Vec<i64> = sets
-                .iter()
-                .copied()
-                .filter(|s| !set_slot.contains_key(s) && !cache.sets.contains_key(s))
-                .collect();
+            // Resolve each level set of the frame once: from the cache, or fetched in bulk.
+            frame_levels.set_slot.reserve(sets.len());
+            missing.clear();
+            for &set in &sets {
+                if !frame_levels.set_slot.contains_key(&set) {
+                    if cache.sets.contains_key(&set) {
+                        frame_levels.resolve(set, &cache);
+                    } else {
+                        missing.push(set);
+                    }
+                }
+            }
             missing.sort_unstable();
             missing.dedup();
             fetch_members(&self.conn, &mut cache, &missing)?;
+            for &set in &missing {
+                frame_levels.resolve(set, &cache);
+            }
             let mut level_idx: Vec<Vec<u32>> = vec![Vec::with_capacity(sets.len()); n_factors];
-            for &set in &sets {
-                let base = match set_slot.entry(set) {
-                    Entry::Occupied(e) => *e.get(),
-                    Entry::Vacant(e) => {
-                        let base = set_levels.len();
-                        let members = cache.sets.get(&set).ok_or_else(|| {
-                            Error::Database(format!(
-                                "measurements point at level set {set}, which does not exist (run `samewise db check`)"
-                            ))
-                        })?;
-                        for (f, level) in members.iter().enumerate() {
-                            let next = level_index[f].len() as u32;
-                            let i = *level_index[f].entry(*level).or_insert_with(|| {
-                                level_order[f].push(*level);
-                                next
-                            });
-                            set_levels.push(i);
-                        }
-                        *e.insert(base)
-                    }
-                };
-                for (f, column) in level_idx.iter_mut().enumerate() {
-                    column.push(set_levels[base + f]);
+            for set in &sets {
+                let levels = frame_levels.levels_of(*set);
+                for (column, &level) in level_idx.iter_mut().zip(levels) {
+                    column.push(level);
                 }
             }
             frames.push(CharacteristicFrame {
@@ -263,11 +254,11 @@ impl Store {
         // Sort each factor's levels by name and renumber.
         let mut factor_levels = Vec::with_capacity(n_factors);
         for (f, factor) in factors.iter().enumerate() {
-            let names: Vec<String> = level_order[f]
+            let names: Vec<String> = frame_levels.level_order[f]
                 .iter()
-                .map(|l| match l {
-                    Some(id) => cache.level_names[id].clone(),
-                    None => NO_LEVEL.to_string(),
+                .map(|&id| match cache.level_names.get(&id) {
+                    Some(name) if id != 0 => name.clone(),
+                    _ => NO_LEVEL.to_string(),
                 })
                 .collect();
             let mut order: Vec<usize> = (0..names.len()).collect();
@@ -290,6 +281,46 @@ impl Store {
             factors: factor_levels,
             characteristics: frames,
         })
+    }
+}
+
+/// The levels of one frame: each level set resolved once to the frame's level indices.
+struct FrameLevels {
+    n_factors: usize,
+    /// Per factor: level id (0: no level) -> index in the frame's level list (assigned in
+    /// first-seen order, re-sorted by name at the end).
+    level_index: Vec<FxMap<i64, u32>>,
+    /// Per factor: the level ids in first-seen order.
+    level_order: Vec<Vec<i64>>,
+    /// Level set id -> where its `n_factors` level indices start in `set_levels`.
+    set_slot: FxMap<i64, usize>,
+    set_levels: Vec<u32>,
+}
+
+impl FrameLevels {
+    /// Assigns the frame's level indices to a level set held in `cache`.
+    fn resolve(&mut self, set: i64, cache: &LevelCache) {
+        let start = cache.sets[&set];
+        let base = self.set_levels.len();
+        for (f, &level) in cache.members[start..start + self.n_factors]
+            .iter()
+            .enumerate()
+        {
+            let next = self.level_index[f].len() as u32;
+            let order = &mut self.level_order[f];
+            let i = *self.level_index[f].entry(level).or_insert_with(|| {
+                order.push(level);
+                next
+            });
+            self.set_levels.push(i);
+        }
+        self.set_slot.insert(set, base);
+    }
+
+    /// The frame's level index per factor of a resolved level set.
+    fn levels_of(&self, set: i64) -> &[u32] {
+        let base = self.set_slot[&set];
+        &self.set_levels[base..base + self.n_factors]
     }
 }
 
@@ -316,17 +347,15 @@ fn fetch_members(
         let mut rows = stmt.query(rusqlite::params_from_iter(ids))?;
         // Every set of the chunk gets an entry, even one without members of configured factors.
         for &set in chunk {
-            cache
-                .sets
-                .insert(set, vec![None; n_factors].into_boxed_slice());
+            cache.sets.insert(set, cache.members.len());
+            cache.members.resize(cache.members.len() + n_factors, 0);
         }
         while let Some(row) = rows.next()? {
             let (set, factor_id, level_id): (i64, i64, i64) =
                 (row.get(0)?, row.get(1)?, row.get(2)?);
             if let Some(f) = cache.factor_ids.iter().position(|&id| id == factor_id) {
-                if let Some(members) = cache.sets.get_mut(&set) {
-                    members[f] = Some(level_id);
-                }
+                let start = cache.sets[&set];
+                cache.members[start + f] = level_id;
                 new_levels |= !cache.level_names.contains_key(&level_id);
             }
         }
