@@ -3,7 +3,8 @@
 //! Setup writes the deterministic benchmark plant with `samewise generate-bench-data`
 //! (1,000,000 rows, 50 characteristics, 5 factors, 3 days: about 6,700 rows per
 //! characteristic-day) and imports it once; the benchmark then times `Store::load_period` of one
-//! characteristic over one production day.
+//! characteristic over one production day, on an open store (its level cache warm) and on a
+//! freshly opened one (open, migration check, and the level sets fetched in bulk).
 //!
 //! The import throughput target (10,000,000 rows) is measured with the binary, see DEVELOPERS.md:
 //! `samewise generate-bench-data --rows 10000000 --characteristics 50 --factors 5 --days 30 --out /tmp/b.csv`,
@@ -18,7 +19,11 @@ use samewise::config::Config;
 use samewise::storage::Store;
 
 fn setup() -> Config {
-    let dir = std::env::temp_dir().join("samewise-bench-import");
+    // One directory per page size, so a database written with another page size is not reused.
+    let dir = std::env::temp_dir().join(format!(
+        "samewise-bench-import-p{}",
+        samewise::storage::PAGE_SIZE
+    ));
     let csv = dir.join("day.csv");
     let config_path = PathBuf::from(format!("{}.plant.toml", csv.display()));
     if !config_path.exists() {
@@ -70,5 +75,18 @@ fn characteristic_day(c: &mut Criterion) {
     );
 }
 
-criterion_group!(benches, characteristic_day);
+fn characteristic_day_fresh_store(c: &mut Criterion) {
+    let config = setup();
+    let start = chrono::DateTime::from_timestamp(1_793_685_600, 0).unwrap();
+    let end = chrono::DateTime::from_timestamp(1_793_772_000, 0).unwrap();
+    let names = ["char07".to_string()];
+    c.bench_function("open + load_period one characteristic-day", |b| {
+        b.iter(|| {
+            let store = Store::open(&config.plant.database).unwrap();
+            store.load_period(start, end, Some(&names)).unwrap()
+        })
+    });
+}
+
+criterion_group!(benches, characteristic_day, characteristic_day_fresh_store);
 criterion_main!(benches);

@@ -11,7 +11,9 @@ use std::path::{Path, PathBuf};
 use chrono::{DateTime, Utc};
 use proptest::prelude::*;
 use samewise::config::Config;
-use samewise::ingest::{self, Counts, ImportStream, ReadOptions, Rejection, RowOutcome};
+use samewise::ingest::{
+    self, Counts, ImportStream, MeasurementRef, OutcomeSink, ReadOptions, Rejection, RowOutcome,
+};
 use sha2::{Digest, Sha256};
 
 const CONFIG: &str = r#"
@@ -734,6 +736,29 @@ fn check_invariants(bytes: &[u8], config: &Config, options: &ReadOptions) {
             assert!(r.line >= 2 && r.line <= counts.rows_read + 1);
             assert!(!r.reason.is_empty());
         }
+    }
+    // The borrowing path the import uses gives the same outcomes and counts as the iterator,
+    // read wholly through it or after a few outcomes taken by the iterator.
+    for taken_first in [0, 3] {
+        let mut stream = ingest::read_from(bytes, "fuzz.csv", config, options).unwrap();
+        let mut sink = Collect(stream.by_ref().take(taken_first).collect());
+        while stream.read_into(&mut sink) {}
+        assert_eq!(sink.0, outcomes);
+        assert_eq!(stream.counts(), counts);
+        assert_eq!(stream.file_sha256().unwrap(), hex(&Sha256::digest(bytes)));
+    }
+}
+
+/// Copies every outcome of `ImportStream::read_into`.
+struct Collect(Vec<RowOutcome>);
+
+impl OutcomeSink for Collect {
+    fn accepted(&mut self, m: MeasurementRef<'_>) {
+        self.0.push(RowOutcome::Accepted(m.to_measurement()));
+    }
+
+    fn rejected(&mut self, r: Rejection) {
+        self.0.push(RowOutcome::Rejected(r));
     }
 }
 

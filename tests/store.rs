@@ -200,3 +200,70 @@ fn large_offset_values_round_trip_exactly() {
     assert_eq!(mean, 1000000000000.4);
     assert!((summary.variance().unwrap() - 0.01).abs() < 1e-15);
 }
+
+/// The levels of each row as the frame gives them, by factor name order of the configuration.
+fn frame_levels(frame: &samewise::storage::PeriodFrame, c: usize) -> Vec<Vec<String>> {
+    let ch = &frame.characteristics[c];
+    (0..ch.values.len())
+        .map(|row| {
+            frame
+                .factors
+                .iter()
+                .enumerate()
+                .map(|(f, factor)| factor.levels[ch.level_idx[f][row] as usize].clone())
+                .collect()
+        })
+        .collect()
+}
+
+#[test]
+fn load_period_resolves_many_level_combinations_across_imports() {
+    // 3 factors and 700 rows per file, every row a combination of its own: more level sets than
+    // one bulk fetch of the level cache takes, and a second import adding new ones to a store
+    // whose cache already holds the first file's.
+    let dir = temp_dir("combinations");
+    let text = format!("{CONFIG}\n[[factor]]\nname = \"supplier\"\n\n[[factor]]\nname = \"lot\"\n");
+    let cfg = config(&dir, &text);
+    let mut store = Store::create(&cfg.plant.database, &cfg).unwrap();
+    let mut expected: Vec<Vec<String>> = Vec::new();
+    let window = (
+        chrono::DateTime::from_timestamp(0, 0).unwrap(),
+        chrono::DateTime::from_timestamp(4_000_000_000, 0).unwrap(),
+    );
+    for (file, first) in [("a.csv", 0u32), ("b.csv", 700)] {
+        let mut csv = String::from("timestamp,characteristic,value,machine,supplier,lot\n");
+        for i in first..first + 700 {
+            let levels = vec![
+                format!("M{}", i % 7),
+                format!("S{}", (i / 7) % 11),
+                format!("LOT{}", i / 77),
+            ];
+            csv.push_str(&format!(
+                "2026-11-30T{:02}:{:02}:{:02}Z,bore,10.{:03},{}\n",
+                i / 3600,
+                (i / 60) % 60,
+                i % 60,
+                i % 1000,
+                levels.join(",")
+            ));
+            expected.push(levels);
+        }
+        let path = dir.join(file);
+        std::fs::write(&path, csv).unwrap();
+        let stream = ingest::read_file(&path, &cfg, None).unwrap();
+        let options = ImportOptions {
+            force: false,
+            started_at: started(),
+        };
+        assert_eq!(store.import(stream, &options).unwrap().accepted, 700);
+        let names = ["bore".to_string()];
+        let frame = store.load_period(window.0, window.1, Some(&names)).unwrap();
+        assert_eq!(frame_levels(&frame, 0), expected);
+        // A fresh connection (empty cache) gives the same frame.
+        let fresh = Store::open(&cfg.plant.database).unwrap();
+        assert_eq!(
+            fresh.load_period(window.0, window.1, Some(&names)).unwrap(),
+            frame
+        );
+    }
+}

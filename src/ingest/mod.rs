@@ -43,6 +43,7 @@
 //! Hence always `accepted + rejected == measurements_read == rows_read x cells_per_row`
 //! ([`Counts`]), where `cells_per_row` is 1 for long files.
 
+pub(crate) mod fxhash;
 pub mod timestamp;
 
 use std::collections::{HashSet, VecDeque};
@@ -58,6 +59,7 @@ use crate::config::{check_name, Config, Layout, LayoutKind};
 use crate::stats::decimal::Decimal;
 use crate::{Error, Result};
 
+use fxhash::FxSet;
 use timestamp::{shorten, TimestampParser};
 
 /// Longest line read; a longer line is rejected (its bytes are still hashed) and reading
@@ -304,26 +306,31 @@ pub fn read_from<R: Read>(
         cells_per_row: plan.cells_per_row() as u64,
         ..Counts::default()
     };
+    let has_shift = plan.factors.iter().any(|f| matches!(f, FactorCell::Shift));
     Ok(ImportStream {
         path,
         lines,
-        plan,
-        calendar: PlantCalendar::new(config),
-        ts_parser,
-        known: config
-            .characteristics
-            .iter()
-            .map(|c| c.name.clone())
-            .collect(),
-        add_new: options.add_new,
+        rows: RowParser {
+            plan,
+            calendar: PlantCalendar::new(config),
+            ts_parser,
+            known: config
+                .characteristics
+                .iter()
+                .map(|c| c.name.clone())
+                .collect(),
+            add_new: options.add_new,
+            has_shift,
+            shift_cache: None,
+            blank_rows: 0,
+            fields: Vec::new(),
+            field_buf: Vec::new(),
+        },
         pending: VecDeque::new(),
         counts,
         sha256: None,
         error: None,
         is_done: false,
-        shift_cache: None,
-        fields: Vec::new(),
-        field_buf: Vec::new(),
     })
 }
 
@@ -486,28 +493,121 @@ impl Plan {
     }
 }
 
-/// The streaming reader returned by [`read_file`]: an iterator of [`RowOutcome`]s.
+/// One accepted measurement borrowed from the line being read: what [`ImportStream::read_into`]
+/// hands to an [`OutcomeSink`], so that a caller that interns names needs no allocation per row.
+#[derive(Debug, Clone, Copy)]
+pub struct MeasurementRef<'a> {
+    /// 1-based line of the file (the header is line 1).
+    pub line: u64,
+    /// Characteristic name (a configured one, or a new one when `add_new` is set).
+    pub characteristic: &'a str,
+    /// Instant of the measurement.
+    pub ts: DateTime<Utc>,
+    /// The value, exactly as written.
+    pub value: Decimal,
+    /// One level per `Config::factors`, in order.
+    pub levels: &'a [&'a str],
+}
+
+impl MeasurementRef<'_> {
+    /// The owned [`Measurement`].
+    pub fn to_measurement(&self) -> Measurement {
+        Measurement {
+            line: self.line,
+            characteristic: self.characteristic.to_string(),
+            ts: self.ts,
+            value: self.value,
+            levels: self.levels.iter().map(|l| l.to_string()).collect(),
+        }
+    }
+}
+
+/// Receives the outcomes of [`ImportStream::read_into`], in file order.
+pub trait OutcomeSink {
+    /// A valid measurement (borrowed: copy what is kept).
+    fn accepted(&mut self, measurement: MeasurementRef<'_>);
+    /// A rejected measurement.
+    fn rejected(&mut self, rejection: Rejection);
+}
+
+/// Queues owned outcomes (the [`Iterator`] side of [`ImportStream`]).
+struct Queue<'a>(&'a mut VecDeque<RowOutcome>);
+
+impl OutcomeSink for Queue<'_> {
+    fn accepted(&mut self, measurement: MeasurementRef<'_>) {
+        self.0
+            .push_back(RowOutcome::Accepted(measurement.to_measurement()));
+    }
+
+    fn rejected(&mut self, rejection: Rejection) {
+        self.0.push_back(RowOutcome::Rejected(rejection));
+    }
+}
+
+/// Counts what passes on to the inner sink.
+struct Counting<'a, S> {
+    sink: &'a mut S,
+    counts: &'a mut Counts,
+}
+
+impl<S: OutcomeSink> OutcomeSink for Counting<'_, S> {
+    fn accepted(&mut self, measurement: MeasurementRef<'_>) {
+        self.counts.measurements_read += 1;
+        self.counts.accepted += 1;
+        self.sink.accepted(measurement);
+    }
+
+    fn rejected(&mut self, rejection: Rejection) {
+        self.counts.measurements_read += 1;
+        self.counts.rejected += 1;
+        self.sink.rejected(rejection);
+    }
+}
+
+/// The streaming reader returned by [`read_file`]: an iterator of [`RowOutcome`]s, or, without
+/// an allocation per row, [`ImportStream::read_into`] with an [`OutcomeSink`]. Both give the
+/// same outcomes in the same order (the iterator is `read_into` with a sink that copies).
 ///
-/// After the iterator has returned `None`, [`ImportStream::file_sha256`] is the hash of every
-/// byte of the file, unless an I/O error ended the stream early: then
-/// [`ImportStream::take_error`] returns it and the hash stays `None` (the caller must not
-/// commit a partial file).
+/// After the iterator has returned `None` (or `read_into` `false`),
+/// [`ImportStream::file_sha256`] is the hash of every byte of the file, unless an I/O error ended
+/// the stream early: then [`ImportStream::take_error`] returns it and the hash stays `None` (the
+/// caller must not commit a partial file).
 pub struct ImportStream<R: Read = File> {
     path: PathBuf,
     lines: LineReader<R>,
-    plan: Plan,
-    calendar: PlantCalendar,
-    ts_parser: TimestampParser,
-    known: HashSet<String>,
-    add_new: bool,
+    rows: RowParser,
     pending: VecDeque<RowOutcome>,
     counts: Counts,
     sha256: Option<String>,
     error: Option<Error>,
     is_done: bool,
+}
+
+/// Turns one line into outcomes: the plan, the calendar and the reusable buffers.
+struct RowParser {
+    plan: Plan,
+    calendar: PlantCalendar,
+    ts_parser: TimestampParser,
+    known: FxSet<String>,
+    add_new: bool,
+    has_shift: bool,
     shift_cache: Option<ShiftTable>,
+    blank_rows: u64,
     fields: Vec<usize>,
     field_buf: Vec<u8>,
+}
+
+/// Levels held inline per row up to this many factors (more go to a vector).
+const INLINE_LEVELS: usize = 8;
+
+fn cell<'b>(buf: &'b [u8], ends: &[usize], i: usize) -> &'b [u8] {
+    let start = if i == 0 { 0 } else { ends[i - 1] };
+    &buf[start..ends[i]]
+}
+
+fn cell_text<'b>(buf: &'b [u8], ends: &[usize], i: usize) -> std::result::Result<&'b str, String> {
+    std::str::from_utf8(trim_bytes(cell(buf, ends, i)))
+        .map_err(|_| "cell is not UTF-8 text (save the file as UTF-8)".to_string())
 }
 
 impl<R: Read> ImportStream<R> {
@@ -518,22 +618,25 @@ impl<R: Read> ImportStream<R> {
 
     /// The layout in use (named or detected).
     pub fn layout(&self) -> &Layout {
-        &self.plan.layout
+        &self.rows.plan.layout
     }
 
     /// The header's column names, trimmed.
     pub fn columns(&self) -> &[String] {
-        &self.plan.columns
+        &self.rows.plan.columns
     }
 
     /// Header columns that are not read (neither timestamp, factor nor characteristic).
     pub fn ignored_columns(&self) -> &[String] {
-        &self.plan.ignored
+        &self.rows.plan.ignored
     }
 
-    /// Counts so far (final once the iterator has ended).
+    /// Counts so far (final once the stream has ended).
     pub fn counts(&self) -> Counts {
-        self.counts
+        Counts {
+            blank_rows: self.rows.blank_rows,
+            ..self.counts
+        }
     }
 
     /// The SHA-256 of the file's bytes (64 lowercase hex digits), once the whole file was read.
@@ -546,73 +649,143 @@ impl<R: Read> ImportStream<R> {
         self.error.take()
     }
 
-    fn reject_row(&mut self, line: u64, column: Option<usize>, reason: String, raw: &[u8]) {
+    /// Reads the next line and hands its outcomes to `sink` (none for no line, one per
+    /// measurement of the row otherwise). `false` once the file has ended (or an I/O error ended
+    /// it: see [`ImportStream::take_error`]); the counts then are final.
+    ///
+    /// Outcomes the iterator had read ahead but not yet returned go to `sink` first, so the two
+    /// ways of reading can be mixed without losing or repeating an outcome.
+    pub fn read_into<S: OutcomeSink>(&mut self, sink: &mut S) -> bool {
+        while let Some(outcome) = self.pending.pop_front() {
+            self.counts.measurements_read += 1;
+            match outcome {
+                RowOutcome::Accepted(m) => {
+                    self.counts.accepted += 1;
+                    let levels: Vec<&str> = m.levels.iter().map(String::as_str).collect();
+                    sink.accepted(MeasurementRef {
+                        line: m.line,
+                        characteristic: &m.characteristic,
+                        ts: m.ts,
+                        value: m.value,
+                        levels: &levels,
+                    });
+                }
+                RowOutcome::Rejected(r) => {
+                    self.counts.rejected += 1;
+                    sink.rejected(r);
+                }
+            }
+        }
+        if self.is_done {
+            return false;
+        }
+        let mut counting = Counting {
+            sink,
+            counts: &mut self.counts,
+        };
+        let more = read_row(
+            &self.path,
+            &mut self.lines,
+            &mut self.rows,
+            &mut self.sha256,
+            &mut self.error,
+            &mut counting,
+        );
+        if !more {
+            self.is_done = true;
+        }
+        more
+    }
+}
+
+/// Reads one line and hands its outcomes to `sink`. `false` at the end of the file (the hash is
+/// then set) or on a read error (`error` is then set).
+fn read_row<R: Read, S: OutcomeSink>(
+    path: &Path,
+    lines: &mut LineReader<R>,
+    rows: &mut RowParser,
+    sha256: &mut Option<String>,
+    error: &mut Option<Error>,
+    sink: &mut Counting<'_, S>,
+) -> bool {
+    let read = match lines.next_line() {
+        Ok(Some(r)) => r,
+        Ok(None) => {
+            *sha256 = Some(hex(&lines.hasher.clone().finalize()));
+            return false;
+        }
+        Err(e) => {
+            *error = Some(Error::Ingest {
+                path: path.to_path_buf(),
+                line: Some(lines.line_no + 1),
+                column: None,
+                reason: format!("read error, the file was not read to the end: {e}"),
+            });
+            return false;
+        }
+    };
+    sink.counts.rows_read += 1;
+    rows.process_line(lines.line_no, &read, &lines.line, sink);
+    true
+}
+
+impl RowParser {
+    fn reject_row<S: OutcomeSink>(
+        &self,
+        sink: &mut S,
+        line: u64,
+        column: Option<usize>,
+        reason: String,
+        raw: &[u8],
+    ) {
         let raw = raw_text(raw);
         match &self.plan.kind {
-            PlanKind::Long { .. } => self.pending.push_back(RowOutcome::Rejected(Rejection {
+            PlanKind::Long { .. } => sink.rejected(Rejection {
                 line,
                 column: column.map(|c| self.plan.columns[c].clone()),
                 reason,
                 raw,
-            })),
+            }),
             PlanKind::Wide { cells } => {
                 // One rejection per measurement of the row; the column is where the problem is
                 // when it is in one, otherwise the characteristic's column.
                 for (i, _, _) in cells {
                     let col = column.unwrap_or(*i);
-                    self.pending.push_back(RowOutcome::Rejected(Rejection {
+                    sink.rejected(Rejection {
                         line,
                         column: Some(self.plan.columns[col].clone()),
                         reason: reason.clone(),
                         raw: raw.clone(),
-                    }));
+                    });
                 }
             }
         }
     }
 
-    fn shift_level(&mut self, ts: DateTime<Utc>) -> String {
+    /// The index (in `PlantCalendar::shifts`) of the shift `ts` falls in.
+    fn shift_index(&mut self, ts: DateTime<Utc>) -> usize {
         if let Some(table) = &self.shift_cache {
             if let Some(idx) = table.find(ts) {
-                return self.calendar.shifts()[idx].name.clone();
+                return idx;
             }
         }
         let day = self.calendar.production_day(ts);
         let table = self.calendar.shift_table(day);
         let idx = table.find(ts).unwrap_or(0);
         self.shift_cache = Some(table);
-        self.calendar.shifts()[idx].name.clone()
+        idx
     }
 
-    /// Reads one line and queues its outcomes. `false` at the end of the file.
-    fn read_row(&mut self) -> bool {
-        let read = match self.lines.next_line() {
-            Ok(Some(r)) => r,
-            Ok(None) => {
-                self.sha256 = Some(hex(&self.lines.hasher.clone().finalize()));
-                return false;
-            }
-            Err(e) => {
-                self.error = Some(Error::Ingest {
-                    path: self.path.clone(),
-                    line: Some(self.lines.line_no + 1),
-                    column: None,
-                    reason: format!("read error, the file was not read to the end: {e}"),
-                });
-                return false;
-            }
-        };
-        self.counts.rows_read += 1;
-        let line_no = self.lines.line_no;
-        let line = std::mem::take(&mut self.lines.line);
-        self.process_line(line_no, &read, &line);
-        self.lines.line = line;
-        true
-    }
-
-    fn process_line(&mut self, line_no: u64, read: &LineRead, line: &[u8]) {
+    fn process_line<S: OutcomeSink>(
+        &mut self,
+        line_no: u64,
+        read: &LineRead,
+        line: &[u8],
+        sink: &mut S,
+    ) {
         if let LineRead::TooLong { len } = read {
             self.reject_row(
+                sink,
                 line_no,
                 None,
                 format!("line is {len} bytes long, more than the {MAX_LINE_BYTES} read"),
@@ -621,16 +794,17 @@ impl<R: Read> ImportStream<R> {
             return;
         }
         if line.iter().all(|b| matches!(b, b' ' | b'\t')) {
-            self.counts.blank_rows += 1;
-            self.reject_row(line_no, None, "blank line".to_string(), line);
+            self.blank_rows += 1;
+            self.reject_row(sink, line_no, None, "blank line".to_string(), line);
             return;
         }
         let mut fields = std::mem::take(&mut self.fields);
         let mut buf = std::mem::take(&mut self.field_buf);
         let result = split_fields(line, self.plan.layout.delimiter, &mut buf, &mut fields);
         match result {
-            Err(reason) => self.reject_row(line_no, None, reason, line),
+            Err(reason) => self.reject_row(sink, line_no, None, reason, line),
             Ok(()) if fields.len() != self.plan.columns.len() => self.reject_row(
+                sink,
                 line_no,
                 None,
                 format!(
@@ -640,21 +814,21 @@ impl<R: Read> ImportStream<R> {
                 ),
                 line,
             ),
-            Ok(()) => self.process_fields(line_no, line, &buf, &fields),
+            Ok(()) => self.process_fields(line_no, line, &buf, &fields, sink),
         }
         self.fields = fields;
         self.field_buf = buf;
     }
 
-    fn process_fields(&mut self, line_no: u64, line: &[u8], buf: &[u8], ends: &[usize]) {
-        let cell = |i: usize| -> &[u8] {
-            let start = if i == 0 { 0 } else { ends[i - 1] };
-            &buf[start..ends[i]]
-        };
-        let text = |i: usize| -> std::result::Result<&str, String> {
-            std::str::from_utf8(trim_bytes(cell(i)))
-                .map_err(|_| "cell is not UTF-8 text (save the file as UTF-8)".to_string())
-        };
+    fn process_fields<S: OutcomeSink>(
+        &mut self,
+        line_no: u64,
+        line: &[u8],
+        buf: &[u8],
+        ends: &[usize],
+        sink: &mut S,
+    ) {
+        let text = |i: usize| cell_text(buf, ends, i);
         // Timestamp.
         let ts = match text(self.plan.timestamp)
             .and_then(|t| self.ts_parser.parse(t))
@@ -663,39 +837,55 @@ impl<R: Read> ImportStream<R> {
             Ok(ts) => ts,
             Err(reason) => {
                 let col = self.plan.timestamp;
-                self.reject_row(line_no, Some(col), reason, line);
+                self.reject_row(sink, line_no, Some(col), reason, line);
                 return;
             }
         };
-        // Factor levels.
-        let mut levels = Vec::with_capacity(self.plan.factors.len());
-        for f in 0..self.plan.factors.len() {
-            let level = match self.plan.factors[f] {
-                FactorCell::Shift => Ok(self.shift_level(ts)),
+        let shift = if self.has_shift {
+            self.shift_index(ts)
+        } else {
+            0
+        };
+        let this = &*self;
+        // Factor levels, borrowed from the line (or the calendar, for the derived shift).
+        let n_factors = this.plan.factors.len();
+        let mut inline = [""; INLINE_LEVELS];
+        let mut spilled = Vec::new();
+        let levels: &mut [&str] = if n_factors <= INLINE_LEVELS {
+            &mut inline[..n_factors]
+        } else {
+            spilled.resize(n_factors, "");
+            &mut spilled[..]
+        };
+        for (f, factor) in this.plan.factors.iter().enumerate() {
+            match *factor {
+                FactorCell::Shift => levels[f] = &this.calendar.shifts()[shift].name,
                 FactorCell::Column(i) => match text(i) {
-                    Ok("") => Err((i, "empty cell (every factor needs a level)".to_string())),
-                    Ok(t) => Ok(t.to_string()),
-                    Err(r) => Err((i, r)),
+                    Ok("") => {
+                        let reason = "empty cell (every factor needs a level)".to_string();
+                        this.reject_row(sink, line_no, Some(i), reason, line);
+                        return;
+                    }
+                    Ok(t) => levels[f] = t,
+                    Err(reason) => {
+                        this.reject_row(sink, line_no, Some(i), reason, line);
+                        return;
+                    }
                 },
-            };
-            match level {
-                Ok(l) => levels.push(l),
-                Err((col, reason)) => {
-                    self.reject_row(line_no, Some(col), reason, line);
-                    return;
-                }
             }
         }
-        match &self.plan.kind {
+        let levels: &[&str] = levels;
+        match &this.plan.kind {
             PlanKind::Long {
                 characteristic,
                 value,
             } => {
                 let (characteristic, value) = (*characteristic, *value);
+                let checked;
                 let outcome = match text(characteristic) {
                     Err(r) => Err((characteristic, r)),
                     Ok("") => Err((characteristic, "empty cell (no characteristic name)".to_string())),
-                    Ok(name) if !self.known.contains(name) && !self.add_new => Err((
+                    Ok(name) if !this.known.contains(name) && !this.add_new => Err((
                         characteristic,
                         format!(
                             "unknown characteristic \"{}\" (add it to the configuration or import with --add-new)",
@@ -704,12 +894,18 @@ impl<R: Read> ImportStream<R> {
                     )),
                     Ok(name) => {
                         // Configured names were checked with the configuration; new ones here.
-                        let checked = if self.known.contains(name) {
-                            Ok(name.to_string())
+                        let name = if this.known.contains(name) {
+                            Ok(name)
                         } else {
-                            check_name(name)
+                            match check_name(name) {
+                                Ok(n) => {
+                                    checked = n;
+                                    Ok(checked.as_str())
+                                }
+                                Err(r) => Err(r),
+                            }
                         };
-                        match checked {
+                        match name {
                             Err(r) => Err((characteristic, format!("characteristic name: {r}"))),
                             Ok(name) => match text(value).and_then(parse_value) {
                                 Ok(v) => Ok((name, v)),
@@ -719,26 +915,24 @@ impl<R: Read> ImportStream<R> {
                     }
                 };
                 match outcome {
-                    Ok((name, value)) => {
-                        self.pending.push_back(RowOutcome::Accepted(Measurement {
-                            line: line_no,
-                            characteristic: name,
-                            ts,
-                            value,
-                            levels,
-                        }))
-                    }
-                    Err((col, reason)) => self.pending.push_back(RowOutcome::Rejected(Rejection {
+                    Ok((name, value)) => sink.accepted(MeasurementRef {
                         line: line_no,
-                        column: Some(self.plan.columns[col].clone()),
+                        characteristic: name,
+                        ts,
+                        value,
+                        levels,
+                    }),
+                    Err((col, reason)) => sink.rejected(Rejection {
+                        line: line_no,
+                        column: Some(this.plan.columns[col].clone()),
                         reason,
                         raw: raw_text(line),
-                    })),
+                    }),
                 }
             }
             PlanKind::Wide { cells } => {
                 for (i, name, known) in cells {
-                    let outcome = if !known && !self.add_new {
+                    let outcome = if !known && !this.add_new {
                         Err(format!(
                             "unknown characteristic \"{}\" (add it to the configuration or import with --add-new)",
                             shorten(name)
@@ -750,21 +944,21 @@ impl<R: Read> ImportStream<R> {
                     } else {
                         text(*i).and_then(parse_value)
                     };
-                    self.pending.push_back(match outcome {
-                        Ok(value) => RowOutcome::Accepted(Measurement {
+                    match outcome {
+                        Ok(value) => sink.accepted(MeasurementRef {
                             line: line_no,
-                            characteristic: name.clone(),
+                            characteristic: name,
                             ts,
                             value,
-                            levels: levels.clone(),
+                            levels,
                         }),
-                        Err(reason) => RowOutcome::Rejected(Rejection {
+                        Err(reason) => sink.rejected(Rejection {
                             line: line_no,
-                            column: Some(self.plan.columns[*i].clone()),
+                            column: Some(this.plan.columns[*i].clone()),
                             reason,
-                            raw: raw_text(cell(*i)),
+                            raw: raw_text(cell(buf, ends, *i)),
                         }),
-                    });
+                    }
                 }
             }
         }
@@ -787,7 +981,23 @@ impl<R: Read> Iterator for ImportStream<R> {
             if self.is_done {
                 return None;
             }
-            if !self.read_row() {
+            // Read one line into the queue; counted above as each outcome is returned.
+            let mut queue = Queue(&mut self.pending);
+            let mut uncounted = Counts::default();
+            let mut sink = Counting {
+                sink: &mut queue,
+                counts: &mut uncounted,
+            };
+            let more = read_row(
+                &self.path,
+                &mut self.lines,
+                &mut self.rows,
+                &mut self.sha256,
+                &mut self.error,
+                &mut sink,
+            );
+            self.counts.rows_read += uncounted.rows_read;
+            if !more {
                 self.is_done = true;
             }
         }
@@ -948,10 +1158,13 @@ fn split_fields(
                 ));
             }
         } else {
-            while i < line.len() && line[i] != delimiter {
-                buf.push(line[i]);
-                i += 1;
-            }
+            let rest = &line[i..];
+            let n = rest
+                .iter()
+                .position(|&b| b == delimiter)
+                .unwrap_or(rest.len());
+            buf.extend_from_slice(&rest[..n]);
+            i += n;
         }
         ends.push(buf.len());
         if i >= line.len() {

@@ -8,7 +8,6 @@
 //! before the commit; a duplicate is refused (rolled back) unless `force` is set.
 
 use std::collections::HashMap;
-use std::hash::{BuildHasherDefault, Hasher};
 use std::io::Read;
 use std::path::PathBuf;
 use std::sync::mpsc;
@@ -17,17 +16,24 @@ use std::time::{Duration, Instant};
 use chrono::{DateTime, TimeZone, Utc};
 use rusqlite::{params, Connection, OptionalExtension, TransactionBehavior};
 
-use crate::ingest::{ImportStream, Rejection, RowOutcome};
+use crate::ingest::fxhash::FxMap;
+use crate::ingest::{ImportStream, MeasurementRef, OutcomeSink, Rejection};
 use crate::stats::decimal::Decimal;
 use crate::{Error, Result};
 
 use super::master::{load_characteristics, LevelSetWriter};
 use super::Store;
 
-/// Outcomes per batch handed from the reading thread to the writing one.
-const BATCH: usize = 4096;
-/// Batches in flight between the threads (bounds memory).
-const IN_FLIGHT: usize = 8;
+/// Accepted rows per batch handed from the reading thread to the writing one. Each batch is
+/// sorted by key before it is inserted: the larger the batch, the longer the run of rows each
+/// characteristic's B-tree leaf receives at once (262,144 rows: 10 MB; measured in
+/// DEVELOPERS.md, "Import speed").
+const BATCH_ROWS: usize = 1 << 18;
+/// Rejections per batch at most (each keeps up to `ingest::MAX_RAW_CHARS` of its line).
+const BATCH_REJECTIONS: usize = 1024;
+/// Batches in flight between the threads (with the one being filled and the one being written,
+/// this bounds the memory of an import).
+const IN_FLIGHT: usize = 2;
 /// How many rejections the report keeps in full.
 const FIRST_REJECTIONS: usize = 10;
 
@@ -128,77 +134,19 @@ struct Batch {
 }
 
 impl Batch {
-    fn len(&self) -> usize {
-        self.rows.len() + self.rejections.len()
+    fn is_full(&self) -> bool {
+        self.rows.len() >= BATCH_ROWS || self.rejections.len() >= BATCH_REJECTIONS
     }
 
     fn is_empty(&self) -> bool {
-        self.len() == 0
+        self.rows.is_empty() && self.rejections.is_empty()
     }
 }
-
-/// A small multiplicative hasher (the one rustc uses) for the short names and id lists interned
-/// per row; SipHash's resistance to chosen keys is not needed for a plant's own level names and
-/// costs several times as much.
-#[derive(Debug, Default, Clone, Copy)]
-struct FxHasher {
-    hash: u64,
-}
-
-const FX_K: u64 = 0x517c_c1b7_2722_0a95;
-
-impl FxHasher {
-    #[inline]
-    fn add(&mut self, word: u64) {
-        self.hash = (self.hash.rotate_left(5) ^ word).wrapping_mul(FX_K);
-    }
-}
-
-impl Hasher for FxHasher {
-    #[inline]
-    fn write(&mut self, bytes: &[u8]) {
-        let mut chunks = bytes.chunks_exact(8);
-        for chunk in &mut chunks {
-            self.add(u64::from_le_bytes(chunk.try_into().expect("8 bytes")));
-        }
-        let rest = chunks.remainder();
-        if !rest.is_empty() {
-            let mut word = [0u8; 8];
-            word[..rest.len()].copy_from_slice(rest);
-            self.add(u64::from_le_bytes(word));
-        }
-    }
-
-    #[inline]
-    fn write_u8(&mut self, i: u8) {
-        self.add(i as u64);
-    }
-
-    #[inline]
-    fn write_u32(&mut self, i: u32) {
-        self.add(i as u64);
-    }
-
-    #[inline]
-    fn write_u64(&mut self, i: u64) {
-        self.add(i);
-    }
-
-    #[inline]
-    fn write_usize(&mut self, i: usize) {
-        self.add(i as u64);
-    }
-
-    fn finish(&self) -> u64 {
-        self.hash
-    }
-}
-
-type FxMap<K, V> = HashMap<K, V, BuildHasherDefault<FxHasher>>;
 
 /// The reading thread's side of an import: turns each outcome into a compact [`Row`] (names
 /// interned to indices, value to its offset from the characteristic's origin) so the writer does
-/// nothing per row but bind and step, and the strings are freed by the thread that made them.
+/// nothing per row but bind and step. It reads the names borrowed from the line
+/// ([`MeasurementRef`]): a string is copied only the first time it is seen.
 struct Interner {
     /// Per characteristic index (database order, then new ones): origin and decimals so far.
     characteristics: Vec<CharacteristicState>,
@@ -213,6 +161,18 @@ struct Interner {
     /// Combinations numbered so far.
     n_sets: u32,
     scratch: Vec<u32>,
+    /// The batch being filled.
+    batch: Batch,
+}
+
+impl OutcomeSink for Interner {
+    fn accepted(&mut self, m: MeasurementRef<'_>) {
+        self.push(m);
+    }
+
+    fn rejected(&mut self, rejection: Rejection) {
+        self.batch.rejections.push(rejection);
+    }
 }
 
 impl Interner {
@@ -230,30 +190,25 @@ impl Interner {
             level_sets: FxMap::default(),
             n_sets: 0,
             scratch: Vec::new(),
+            batch: Batch::default(),
         }
     }
 
-    fn push(&mut self, outcome: RowOutcome, batch: &mut Batch) {
-        let m = match outcome {
-            RowOutcome::Accepted(m) => m,
-            RowOutcome::Rejected(r) => {
-                batch.rejections.push(r);
-                return;
-            }
-        };
-        let idx = match self.by_name.get(m.characteristic.as_str()) {
+    fn push(&mut self, m: MeasurementRef<'_>) {
+        let batch = &mut self.batch;
+        let idx = match self.by_name.get(m.characteristic) {
             Some(&i) => i as usize,
             None => {
                 let i = self.characteristics.len();
                 self.characteristics.push(CharacteristicState {
                     id: 0,
-                    name: m.characteristic.clone(),
+                    name: m.characteristic.to_string(),
                     origin: None,
                     decimals: 0,
                     is_changed: true,
                 });
-                self.by_name.insert(m.characteristic.clone(), i as u32);
-                batch.new_characteristics.push(m.characteristic);
+                self.by_name.insert(m.characteristic.to_string(), i as u32);
+                batch.new_characteristics.push(m.characteristic.to_string());
                 i
             }
         };
@@ -277,18 +232,19 @@ impl Interner {
             self.levels.resize_with(m.levels.len(), FxMap::default);
         }
         self.scratch.clear();
-        for (f, name) in m.levels.iter().enumerate() {
+        for (f, &name) in m.levels.iter().enumerate() {
             let map = &mut self.levels[f];
-            let id = match map.get(name.as_str()) {
+            let id = match map.get(name) {
                 Some(&id) => id,
                 None => {
                     let id = map.len() as u32;
-                    map.insert(name.clone(), id);
+                    map.insert(name.to_string(), id);
                     id
                 }
             };
             self.scratch.push(id);
         }
+        let owned_levels = || m.levels.iter().map(|l| l.to_string()).collect();
         // Pack the level indices into 64 bits when each fits its share of them (one key per
         // combination, either packed or not, so the two maps never hold the same combination).
         let bits = 64 / self.scratch.len().max(1) as u32;
@@ -304,7 +260,7 @@ impl Interner {
                     let i = self.n_sets;
                     self.n_sets += 1;
                     self.packed_sets.insert(key, i);
-                    batch.new_level_sets.push(m.levels);
+                    batch.new_level_sets.push(owned_levels());
                     i
                 }
             }
@@ -316,7 +272,7 @@ impl Interner {
                     self.n_sets += 1;
                     self.level_sets
                         .insert(self.scratch.clone().into_boxed_slice(), i);
-                    batch.new_level_sets.push(m.levels);
+                    batch.new_level_sets.push(owned_levels());
                     i
                 }
             }
@@ -329,6 +285,55 @@ impl Interner {
             level_set: level_set as i64,
         });
     }
+}
+
+/// Puts a batch in key order (characteristic, time, line), so that each characteristic's rows go
+/// into the B-tree as one run and the pages they touch stay hot. Done by the reading thread, on
+/// the characteristic indices: they are in database id order (existing characteristics by id,
+/// then new ones, which get higher ids), so the order is the key order once the writer maps
+/// them. (The order only matters for speed: any order stores the same rows.)
+///
+/// A counting sort by characteristic, then a sort of each characteristic's run only where the
+/// file was not in time order already.
+fn sort_rows(rows: &mut Vec<Row>) {
+    let n_characteristics = rows
+        .iter()
+        .map(|r| r.characteristic)
+        .max()
+        .map_or(0, |m| m + 1);
+    let mut starts = vec![0usize; n_characteristics as usize + 1];
+    for r in rows.iter() {
+        starts[r.characteristic as usize + 1] += 1;
+    }
+    for i in 1..starts.len() {
+        starts[i] += starts[i - 1];
+    }
+    let mut next = starts.clone();
+    let mut sorted = vec![
+        Row {
+            characteristic: 0,
+            ts_ms: 0,
+            line: 0,
+            value: 0.0,
+            level_set: 0,
+        };
+        rows.len()
+    ];
+    for r in rows.iter() {
+        let at = &mut next[r.characteristic as usize];
+        sorted[*at] = *r;
+        *at += 1;
+    }
+    for run in starts.windows(2) {
+        let run = &mut sorted[run[0]..run[1]];
+        if run
+            .windows(2)
+            .any(|w| (w[0].ts_ms, w[0].line) > (w[1].ts_ms, w[1].line))
+        {
+            run.sort_unstable_by_key(|r| (r.ts_ms, r.line));
+        }
+    }
+    *rows = sorted;
 }
 
 /// Folds the values quoted in a reason (`value "1,5" is ...` -> `value "…" is ...`) so that
@@ -412,8 +417,10 @@ impl Store {
     ///
     /// Foreign-key enforcement is switched off for the import's transaction (and back on after
     /// it, whatever the outcome): every id the import writes is one it has just read or created
-    /// in the same transaction, and the three parent look-ups per measurement would otherwise be
-    /// a third of the writer's work. `samewise db check` still verifies them.
+    /// in the same transaction, and the three parent look-ups per measurement (characteristic,
+    /// import, level set) nearly double the cost of a measurement insert (measured in isolation,
+    /// 3,000,000 rows: 9.3 s of CPU with them, 5.0 s without; DEVELOPERS.md, "Import speed").
+    /// `samewise db check` still verifies them (`PRAGMA foreign_key_check`).
     pub fn import<R: Read + Send>(
         &mut self,
         stream: ImportStream<R>,
@@ -482,19 +489,20 @@ impl Store {
             let reader = scope.spawn(move || {
                 let mut interner = Interner::new(characteristics);
                 let mut stream = stream;
-                let mut batch = Batch::default();
-                for outcome in stream.by_ref() {
-                    interner.push(outcome, &mut batch);
-                    if batch.len() == BATCH {
-                        let full = std::mem::take(&mut batch);
+                while stream.read_into(&mut interner) {
+                    if interner.batch.is_full() {
+                        let mut full = std::mem::take(&mut interner.batch);
+                        sort_rows(&mut full.rows);
                         if sender.send(full).is_err() {
                             // The writer stopped on an error; stop reading.
                             return (stream, interner.characteristics);
                         }
                     }
                 }
-                if !batch.is_empty() {
-                    let _ = sender.send(batch);
+                if !interner.batch.is_empty() {
+                    let mut last = std::mem::take(&mut interner.batch);
+                    sort_rows(&mut last.rows);
+                    let _ = sender.send(last);
                 }
                 (stream, interner.characteristics)
             });
@@ -522,11 +530,6 @@ impl Store {
                         row.characteristic = characteristic_ids[row.characteristic as usize];
                         row.level_set = level_set_ids[row.level_set as usize];
                     }
-                    // Key order within the batch: each characteristic's rows go in as one run,
-                    // so the B-tree pages they touch stay hot.
-                    batch
-                        .rows
-                        .sort_unstable_by_key(|r| (r.characteristic, r.ts_ms, r.line));
                     insert_measurement.raw_bind_parameter(3, import_id)?;
                     for row in &batch.rows {
                         insert_measurement.raw_bind_parameter(1, row.characteristic)?;
@@ -643,7 +646,43 @@ impl Store {
 
 #[cfg(test)]
 mod tests {
-    use super::reason_kind;
+    use super::{reason_kind, sort_rows, Row};
+
+    #[test]
+    fn batches_go_in_key_order_and_keep_every_row() {
+        // Interleaved characteristics, one of them out of time order (a later line with an
+        // earlier instant).
+        let row = |characteristic, ts_ms, line| Row {
+            characteristic,
+            ts_ms,
+            line,
+            value: line as f64,
+            level_set: 0,
+        };
+        let mut rows = vec![
+            row(2, 10, 2),
+            row(0, 10, 3),
+            row(2, 5, 4),
+            row(1, 7, 5),
+            row(0, 11, 6),
+            row(0, 11, 1),
+        ];
+        let mut expected: Vec<(i64, i64, i64)> = rows
+            .iter()
+            .map(|r| (r.characteristic, r.ts_ms, r.line))
+            .collect();
+        expected.sort();
+        sort_rows(&mut rows);
+        let got: Vec<(i64, i64, i64)> = rows
+            .iter()
+            .map(|r| (r.characteristic, r.ts_ms, r.line))
+            .collect();
+        assert_eq!(got, expected);
+        assert!(rows.iter().all(|r| r.value == r.line as f64));
+        let mut empty = Vec::new();
+        sort_rows(&mut empty);
+        assert!(empty.is_empty());
+    }
 
     #[test]
     fn reasons_fold_quoted_values() {

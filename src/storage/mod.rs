@@ -40,6 +40,9 @@ use crate::{Error, Result};
 /// How long a connection waits for another process's lock before giving up.
 pub const BUSY_TIMEOUT: Duration = Duration::from_secs(60);
 
+/// Page size of a new database file, in bytes.
+pub const PAGE_SIZE: i64 = 16 * 1024;
+
 /// Page cache per connection, in KiB (SQLite's negative `cache_size`).
 const CACHE_KIB: i64 = 64 * 1024;
 
@@ -134,6 +137,10 @@ impl Store {
 /// Per-connection settings, set every time a connection opens (never inside a migration).
 fn configure(conn: &Connection, is_file: bool) -> rusqlite::Result<()> {
     conn.busy_timeout(BUSY_TIMEOUT)?;
+    // Takes effect only while the file is still empty (a new database; an existing one keeps
+    // the page size it was created with). Larger pages cut the B-tree work of an import: fewer
+    // page splits and fetches per measurement (measured: see DEVELOPERS.md, "Import speed").
+    conn.pragma_update(None, "page_size", PAGE_SIZE)?;
     if is_file {
         // journal_mode answers with the mode in force; WAL persists in the file once set.
         let mode: String = conn.query_row("PRAGMA journal_mode = WAL", [], |row| row.get(0))?;

@@ -2,11 +2,12 @@
 //! time window column by column (offsets, instants, and for every factor the level index of each
 //! row), read in one pass over the (characteristic, time) primary key.
 //!
-//! Level sets are immutable once written, so the level indices of each level set are cached in the
-//! `Store` (`LevelCache`) and looked up once per level set, not per row.
+//! Level sets are immutable once written, so the levels of each level set are cached in the
+//! `Store` (`LevelCache`), fetched in bulk for the sets a frame needs that are not cached yet, and
+//! resolved once per level set of the frame, not per row: the per-row work is one hash look-up
+//! and one push per factor.
 
-use std::collections::hash_map::Entry;
-use std::collections::HashMap;
+use crate::ingest::fxhash::FxMap;
 
 use chrono::{DateTime, Utc};
 
@@ -56,13 +57,18 @@ pub struct PeriodFrame {
     pub characteristics: Vec<CharacteristicFrame>,
 }
 
-/// Level set id -> level id per configured factor (`None`: no level), plus level names.
+/// Level set id -> level id per configured factor (0: no level), plus level names.
 #[derive(Debug, Default)]
 pub(crate) struct LevelCache {
     factor_ids: Vec<i64>,
-    sets: HashMap<i64, Vec<Option<i64>>>,
-    level_names: HashMap<i64, String>,
+    /// Level set id -> where its level ids (one per configured factor) start in `members`.
+    sets: FxMap<i64, usize>,
+    members: Vec<i64>,
+    level_names: FxMap<i64, String>,
 }
+
+/// Level sets fetched per query when filling the cache.
+const MEMBER_CHUNK: usize = 256;
 
 impl LevelCache {
     pub(crate) fn clear(&mut self) {
@@ -182,21 +188,25 @@ impl Store {
             cache.factor_ids = factor_ids;
         }
         let n_factors = factors.len();
-        // Per factor: level id -> index in the frame's level list (assigned in first-seen order,
-        // re-sorted by name at the end).
-        let mut level_index: Vec<HashMap<Option<i64>, u32>> = vec![HashMap::new(); n_factors];
-        let mut level_order: Vec<Vec<Option<i64>>> = vec![Vec::new(); n_factors];
-        let mut set_index: HashMap<i64, Vec<u32>> = HashMap::new();
+        let mut frame_levels = FrameLevels {
+            n_factors,
+            level_index: vec![FxMap::default(); n_factors],
+            level_order: vec![Vec::new(); n_factors],
+            set_slot: FxMap::default(),
+            set_levels: Vec::new(),
+        };
 
         let mut rows_stmt = self.conn.prepare_cached(
             "SELECT ts_ms, value, level_set_id FROM measurements \
              WHERE characteristic_id = ?1 AND ts_ms >= ?2 AND ts_ms < ?3",
         )?;
         let mut frames = Vec::with_capacity(chosen.len());
+        let mut sets: Vec<i64> = Vec::new();
+        let mut missing: Vec<i64> = Vec::new();
         for c in chosen {
             let mut ts_ms = Vec::new();
             let mut values = Vec::new();
-            let mut level_idx: Vec<Vec<u32>> = vec![Vec::new(); n_factors];
+            sets.clear();
             let mut rows = rows_stmt.query(rusqlite::params![
                 c.id,
                 start.timestamp_millis(),
@@ -205,27 +215,32 @@ impl Store {
             while let Some(row) = rows.next()? {
                 ts_ms.push(row.get::<_, i64>(0)?);
                 values.push(row.get::<_, f64>(1)?);
-                let set: i64 = row.get(2)?;
-                let idx = match set_index.entry(set) {
-                    Entry::Occupied(e) => e.into_mut(),
-                    Entry::Vacant(e) => {
-                        let members = cached_members(&self.conn, &mut cache, set)?;
-                        let idx: Vec<u32> = members
-                            .iter()
-                            .enumerate()
-                            .map(|(f, level)| {
-                                let next = level_index[f].len() as u32;
-                                *level_index[f].entry(*level).or_insert_with(|| {
-                                    level_order[f].push(*level);
-                                    next
-                                })
-                            })
-                            .collect();
-                        e.insert(idx)
+                sets.push(row.get::<_, i64>(2)?);
+            }
+            drop(rows);
+            // Resolve each level set of the frame once: from the cache, or fetched in bulk.
+            frame_levels.set_slot.reserve(sets.len());
+            missing.clear();
+            for &set in &sets {
+                if !frame_levels.set_slot.contains_key(&set) {
+                    if cache.sets.contains_key(&set) {
+                        frame_levels.resolve(set, &cache);
+                    } else {
+                        missing.push(set);
                     }
-                };
-                for (f, column) in level_idx.iter_mut().enumerate() {
-                    column.push(idx[f]);
+                }
+            }
+            missing.sort_unstable();
+            missing.dedup();
+            fetch_members(&self.conn, &mut cache, &missing)?;
+            for &set in &missing {
+                frame_levels.resolve(set, &cache);
+            }
+            let mut level_idx: Vec<Vec<u32>> = vec![Vec::with_capacity(sets.len()); n_factors];
+            for set in &sets {
+                let levels = frame_levels.levels_of(*set);
+                for (column, &level) in level_idx.iter_mut().zip(levels) {
+                    column.push(level);
                 }
             }
             frames.push(CharacteristicFrame {
@@ -239,11 +254,11 @@ impl Store {
         // Sort each factor's levels by name and renumber.
         let mut factor_levels = Vec::with_capacity(n_factors);
         for (f, factor) in factors.iter().enumerate() {
-            let names: Vec<String> = level_order[f]
+            let names: Vec<String> = frame_levels.level_order[f]
                 .iter()
-                .map(|l| match l {
-                    Some(id) => cache.level_names[id].clone(),
-                    None => NO_LEVEL.to_string(),
+                .map(|&id| match cache.level_names.get(&id) {
+                    Some(name) if id != 0 => name.clone(),
+                    _ => NO_LEVEL.to_string(),
                 })
                 .collect();
             let mut order: Vec<usize> = (0..names.len()).collect();
@@ -269,35 +284,91 @@ impl Store {
     }
 }
 
-fn cached_members(
+/// The levels of one frame: each level set resolved once to the frame's level indices.
+struct FrameLevels {
+    n_factors: usize,
+    /// Per factor: level id (0: no level) -> index in the frame's level list (assigned in
+    /// first-seen order, re-sorted by name at the end).
+    level_index: Vec<FxMap<i64, u32>>,
+    /// Per factor: the level ids in first-seen order.
+    level_order: Vec<Vec<i64>>,
+    /// Level set id -> where its `n_factors` level indices start in `set_levels`.
+    set_slot: FxMap<i64, usize>,
+    set_levels: Vec<u32>,
+}
+
+impl FrameLevels {
+    /// Assigns the frame's level indices to a level set held in `cache`.
+    fn resolve(&mut self, set: i64, cache: &LevelCache) {
+        let start = cache.sets[&set];
+        let base = self.set_levels.len();
+        for (f, &level) in cache.members[start..start + self.n_factors]
+            .iter()
+            .enumerate()
+        {
+            let next = self.level_index[f].len() as u32;
+            let order = &mut self.level_order[f];
+            let i = *self.level_index[f].entry(level).or_insert_with(|| {
+                order.push(level);
+                next
+            });
+            self.set_levels.push(i);
+        }
+        self.set_slot.insert(set, base);
+    }
+
+    /// The frame's level index per factor of a resolved level set.
+    fn levels_of(&self, set: i64) -> &[u32] {
+        let base = self.set_slot[&set];
+        &self.set_levels[base..base + self.n_factors]
+    }
+}
+
+/// Puts the levels of each level set in `missing` (sorted, none cached yet) into the cache, with
+/// the names of levels not seen before.
+fn fetch_members(
     conn: &rusqlite::Connection,
     cache: &mut LevelCache,
-    set: i64,
-) -> Result<Vec<Option<i64>>> {
-    if let Some(m) = cache.sets.get(&set) {
-        return Ok(m.clone());
+    missing: &[i64],
+) -> Result<()> {
+    if missing.is_empty() {
+        return Ok(());
     }
-    let mut stmt = conn.prepare_cached(
-        "SELECT m.factor_id, m.level_id, l.name FROM level_set_members m \
-         JOIN levels l ON l.id = m.level_id WHERE m.level_set_id = ?1",
-    )?;
-    let mut members = vec![None; cache.factor_ids.len()];
-    let rows = stmt.query_map([set], |r| {
-        Ok((
-            r.get::<_, i64>(0)?,
-            r.get::<_, i64>(1)?,
-            r.get::<_, String>(2)?,
-        ))
-    })?;
-    for row in rows {
-        let (factor_id, level_id, name) = row?;
-        if let Some(f) = cache.factor_ids.iter().position(|&id| id == factor_id) {
-            members[f] = Some(level_id);
-            cache.level_names.insert(level_id, name);
+    let placeholders = vec!["?"; MEMBER_CHUNK].join(", ");
+    let mut stmt = conn.prepare_cached(&format!(
+        "SELECT level_set_id, factor_id, level_id FROM level_set_members \
+         WHERE level_set_id IN ({placeholders})"
+    ))?;
+    let n_factors = cache.factor_ids.len();
+    let mut new_levels = false;
+    for chunk in missing.chunks(MEMBER_CHUNK) {
+        // A short last chunk repeats its last id (IN ignores repeats).
+        let ids = (0..MEMBER_CHUNK).map(|i| chunk[i.min(chunk.len() - 1)]);
+        let mut rows = stmt.query(rusqlite::params_from_iter(ids))?;
+        // Every set of the chunk gets an entry, even one without members of configured factors.
+        for &set in chunk {
+            cache.sets.insert(set, cache.members.len());
+            cache.members.resize(cache.members.len() + n_factors, 0);
+        }
+        while let Some(row) = rows.next()? {
+            let (set, factor_id, level_id): (i64, i64, i64) =
+                (row.get(0)?, row.get(1)?, row.get(2)?);
+            if let Some(f) = cache.factor_ids.iter().position(|&id| id == factor_id) {
+                let start = cache.sets[&set];
+                cache.members[start + f] = level_id;
+                new_levels |= !cache.level_names.contains_key(&level_id);
+            }
         }
     }
-    cache.sets.insert(set, members.clone());
-    Ok(members)
+    if new_levels {
+        let mut stmt = conn.prepare_cached("SELECT id, name FROM levels")?;
+        let rows = stmt.query_map([], |r| Ok((r.get::<_, i64>(0)?, r.get::<_, String>(1)?)))?;
+        for row in rows {
+            let (id, name) = row?;
+            cache.level_names.insert(id, name);
+        }
+    }
+    Ok(())
 }
 
 #[cfg(test)]
