@@ -840,16 +840,28 @@ pub fn write_month_report(
     Ok(r)
 }
 
-/// The demo's charts (PNG and SVG of each) in `dir` for the sample plant: the trend of
-/// `bore_diameter` by machine over the whole stored history with its events, the share over the
-/// same range, the grid of `month`, the detail of `housing_mass` by supplier on the month's
-/// first flagged day of it (else the month's first day with data), and bore_diameter by machine
-/// around the first event naming it. A chart whose data is missing is skipped and named in the
-/// second list.
-pub fn write_demo_charts(
+/// Which characteristic x factor pairs [`write_story_charts`] draws: a plant's own choice (the demo
+/// names the sample plant's).
+#[derive(Debug, Clone, Copy)]
+pub struct ChartStory<'a> {
+    /// Trend and share over the whole stored history, with its events.
+    pub trend: (&'a str, &'a str),
+    /// Detail (groups and Q-Q) on the month's first day that flagged it (else its first day with
+    /// data).
+    pub detail: (&'a str, &'a str),
+    /// Before/after around the first event naming the characteristic.
+    pub before_after: (&'a str, &'a str),
+}
+
+/// Charts (PNG and SVG of each) in `dir`: the trend and the share of `story.trend` over the whole
+/// stored history, the grid of `month`, the detail of `story.detail` on the month's first flagged
+/// day and the before/after of `story.before_after` around the first event naming its
+/// characteristic. A chart whose data is missing is skipped and named in the second list.
+pub fn write_story_charts(
     store: &Store,
     config: &Config,
     month: &Period,
+    story: &ChartStory<'_>,
     dir: &Path,
 ) -> Result<(Vec<PathBuf>, Vec<String>)> {
     let mut sink = Sink {
@@ -857,20 +869,22 @@ pub fn write_demo_charts(
         written: Vec::new(),
         skipped: Vec::new(),
     };
-    let all_from = DateTime::<Utc>::from_timestamp_millis(i64::MIN / 4).unwrap_or_default();
+    // The whole stored history: from the earliest instant chrono represents.
+    let all_from = DateTime::<Utc>::MIN_UTC;
     let all_to = month.end;
     let size = Size::DEFAULT;
+    let (trend_c, trend_f) = story.trend;
     match trend_input(
         store,
         config,
-        "bore_diameter",
-        "machine",
+        trend_c,
+        trend_f,
         PeriodKind::Day,
         all_from,
         all_to,
     ) {
         Ok(t) => sink.save(
-            "trend_bore_diameter_by_machine",
+            &format!("trend_{trend_c}_by_{trend_f}"),
             report::render_trend(&t, Format::Svg, size),
             report::render_trend(&t, Format::Png, size),
         )?,
@@ -879,14 +893,14 @@ pub fn write_demo_charts(
     match share_input(
         store,
         config,
-        "bore_diameter",
-        "machine",
+        trend_c,
+        trend_f,
         PeriodKind::Day,
         all_from,
         all_to,
     ) {
         Ok(s) => sink.save(
-            "share_bore_diameter_by_machine",
+            &format!("share_{trend_c}_by_{trend_f}"),
             report::render_share(&s, Format::Svg, size),
             report::render_share(&s, Format::Png, size),
         )?,
@@ -901,10 +915,11 @@ pub fn write_demo_charts(
     )?;
     let calendar = PlantCalendar::new(config);
     let loaded = load_runs(store, PeriodKind::Day, month.start, month.end)?;
+    let (detail_c, detail_f) = story.detail;
     let flagged_day = loaded
         .iter()
         .find(|r| {
-            r.test("housing_mass", "supplier")
+            r.test(detail_c, detail_f)
                 .is_some_and(|t| runs::is_flag_state(&t.state))
         })
         .or_else(|| loaded.first())
@@ -912,9 +927,9 @@ pub fn write_demo_charts(
     match flagged_day {
         Some(label) => {
             let period = calendar.parse_period(&label)?;
-            match detail_input(store, config, "housing_mass", "supplier", &period) {
+            match detail_input(store, config, detail_c, detail_f, &period) {
                 Ok(d) => sink.save(
-                    &format!("detail_housing_mass_by_supplier_{label}"),
+                    &format!("detail_{detail_c}_by_{detail_f}_{label}"),
                     report::render_detail(&d, Format::Svg, size),
                     report::render_detail(&d, Format::Png, size),
                 )?,
@@ -925,21 +940,22 @@ pub fn write_demo_charts(
             .skipped
             .push(format!("detail: no daily run in {}", month.label)),
     }
+    let (event_c, event_f) = story.before_after;
     let event = store
         .events(None, None)?
         .into_iter()
-        .find(|e| e.characteristic.as_deref() == Some("bore_diameter"));
+        .find(|e| e.characteristic.as_deref() == Some(event_c));
     match event {
         Some(e) => match before_after_input(
             store,
             config,
-            "bore_diameter",
-            "machine",
+            event_c,
+            event_f,
             e.id,
             Duration::days(EVENT_WINDOW_DAYS),
         ) {
             Ok(b) => sink.save(
-                &format!("before_after_bore_diameter_event_{}", e.id),
+                &format!("before_after_{event_c}_event_{}", e.id),
                 report::render_before_after(&b, Format::Svg, report::before_after_natural_size(&b)),
                 report::render_before_after(&b, Format::Png, report::before_after_natural_size(&b)),
             )?,
@@ -947,7 +963,7 @@ pub fn write_demo_charts(
         },
         None => sink
             .skipped
-            .push("before/after: no event names bore_diameter".to_string()),
+            .push(format!("before/after: no event names {event_c}")),
     }
     Ok((sink.written, sink.skipped))
 }

@@ -381,8 +381,14 @@ pub fn run(args: &DemoArgs) -> Result<ExitCode> {
     report_analysis::write_month_report(&store, &config, &month, &generated, &report_path)?;
     let charts_dir = args.dir.join("charts");
     fs::create_dir_all(&charts_dir).map_err(|e| Error::io(&charts_dir, e))?;
+    // The sample plant's story: the machine 4 bore drift, the supplier mass offset.
+    let story = report_analysis::ChartStory {
+        trend: ("bore_diameter", "machine"),
+        detail: ("housing_mass", "supplier"),
+        before_after: ("bore_diameter", "machine"),
+    };
     let (charts, skipped) =
-        report_analysis::write_demo_charts(&store, &config, &month, &charts_dir)?;
+        report_analysis::write_story_charts(&store, &config, &month, &story, &charts_dir)?;
     println!(
         "\n6. The monthly review report: {}\n   charts ({}): {}",
         report_path.display(),
