@@ -321,16 +321,10 @@ fn evaluate_outer(
     inner: impl Fn(f64, f64) -> (f64, f64),
 ) -> (f64, f64) {
     let nu = df;
-    let log_norm = 0.5 * (nu / PI).ln() - stirling_remainder(0.5 * nu);
+    let log_norm = chi_log_norm(nu);
     let ln_q = q.ln();
     let gl = legendre();
-    // Peak of the upper-tail integrand, from the Gaussian-tail approximation of sf_inf; the lower
-    // one starts at the mode of the log-density (u = 0).
-    let start = if upper {
-        0.5 * (nu / (nu + 0.5 * q * q)).ln()
-    } else {
-        0.0
-    };
+    let start = outer_start(q, nu, upper);
     // Local SD of the log-integrand: the log-density has curvature 2 nu e^(2u); the upper tail
     // ln sf_inf(q e^u) ~ -(q e^u)^2 / 4 adds q^2 e^(2u). The range of k normals sharpens
     // P_inf(q e^u) as k grows: at most tau.
@@ -411,13 +405,9 @@ fn outer_trapezoid(
     inner: impl Fn(f64, f64) -> (f64, f64),
 ) -> (f64, f64) {
     let nu = df;
-    let log_norm = 0.5 * (nu / PI).ln() - stirling_remainder(0.5 * nu);
+    let log_norm = chi_log_norm(nu);
     let ln_q = q.ln();
-    let start = if upper {
-        0.5 * (nu / (nu + 0.5 * q * q)).ln()
-    } else {
-        0.0
-    };
+    let start = outer_start(q, nu, upper);
     // Slope of the log-integrand, ln g(u) + ln tail(q e^u), with the inner tail's log-slope from
     // its density: d ln P / d ln w = w f(w) / P (negated for the upper tail).
     let sign = if upper { -1.0 } else { 1.0 };
@@ -506,6 +496,21 @@ fn outer_trapezoid(
         }
     }
     ((h * total).min(1.0), h * total_density)
+}
+
+/// The constant of the log-density of `u = ln s` ([`evaluate`]): `0.5 ln(nu / pi) - c(nu / 2)`.
+fn chi_log_norm(nu: f64) -> f64 {
+    0.5 * (nu / PI).ln() - stirling_remainder(0.5 * nu)
+}
+
+/// Where the outer sums start: the peak of the upper-tail integrand, from the Gaussian-tail
+/// approximation of the range's upper tail, or the mode of the log-density (`u = 0`) for the lower.
+fn outer_start(q: f64, nu: f64, upper: bool) -> f64 {
+    if upper {
+        0.5 * (nu / (nu + 0.5 * q * q)).ln()
+    } else {
+        0.0
+    }
 }
 
 /// `(e^u, e^(2u) - 1)`, each with relative accuracy: `e^(2u) - 1` from `expm1` near `u = 0`,
