@@ -6,6 +6,9 @@
 //! sets are written in one IMMEDIATE transaction: a crash, a kill or an error before the commit
 //! leaves the database exactly as it was. The content hash is checked against earlier imports
 //! before the commit; a duplicate is refused (rolled back) unless `force` is set.
+//! [`Store::import_checking_early`] also hashes the file on a third thread while the import runs,
+//! so a duplicate is refused within the first batches instead of at the end, without hashing
+//! on the writing thread, which bounds the import's speed.
 
 use std::collections::HashMap;
 use std::io::Read;
