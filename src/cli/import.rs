@@ -38,6 +38,9 @@ pub struct ImportArgs {
     /// Write every rejected row to this CSV file (file, line, column, reason, raw).
     #[arg(long, value_name = "FILE.csv")]
     pub rejects: Option<PathBuf>,
+    /// Print the CPU time of each import thread (for measuring the import, see DEVELOPERS.md).
+    #[arg(long, hide = true)]
+    pub cpu_times: bool,
 }
 
 fn csv_field(text: &str) -> String {
@@ -93,16 +96,6 @@ fn import_one(
     file: &Path,
     rejects: Option<&mut (PathBuf, BufWriter<std::fs::File>)>,
 ) -> Result<()> {
-    // Refuse a duplicate before reading the whole file (the import checks again at its end).
-    if !args.force {
-        let sha256 = ingest::file_sha256(file)?;
-        if let Some(prior) = store.find_import_by_sha256(&sha256)? {
-            return Err(Error::AlreadyImported {
-                path: file.to_path_buf(),
-                earlier: prior.to_string(),
-            });
-        }
-    }
     let stream = ingest::read_file_with(
         file,
         config,
@@ -111,12 +104,15 @@ fn import_one(
             add_new: args.add_new,
         },
     )?;
-    let report = store.import(
+    // A duplicate is refused as soon as a thread of its own has hashed the file (the import
+    // checks again at its end, on the bytes it read).
+    let report = store.import_checking_early(
         stream,
         &ImportOptions {
             force: args.force,
             started_at: chrono::Utc::now(),
         },
+        Some(file),
     )?;
     println!(
         "{}: import #{} (layout {}): {} rows read, {} measurements: {} accepted, {} rejected ({:.1} s)",
@@ -129,6 +125,20 @@ fn import_one(
         report.rejected,
         report.elapsed.as_secs_f64()
     );
+    if args.cpu_times {
+        let secs = |d: Option<std::time::Duration>| {
+            d.map_or("unknown".to_string(), |d| {
+                format!("{:.2} s", d.as_secs_f64())
+            })
+        };
+        println!(
+            "  cpu: writing thread {} (commit {}), reading thread {}, early hash {}",
+            secs(report.cpu.writer),
+            secs(report.cpu.commit),
+            secs(report.cpu.reader),
+            secs(report.cpu.early_hash)
+        );
+    }
     if let Some(prior) = &report.forced_over {
         println!("  imported again with --force; the same content is also {prior}");
     }

@@ -138,7 +138,7 @@ pub fn file_sha256(path: impl AsRef<Path>) -> Result<String> {
     let path = path.as_ref();
     let mut file = File::open(path).map_err(|e| Error::io(path, e))?;
     let mut hasher = Sha256::new();
-    let mut buf = vec![0u8; 1 << 16];
+    let mut buf = vec![0u8; 1 << 20];
     loop {
         let n = file.read(&mut buf).map_err(|e| Error::io(path, e))?;
         if n == 0 {

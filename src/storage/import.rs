@@ -6,10 +6,13 @@
 //! sets are written in one IMMEDIATE transaction: a crash, a kill or an error before the commit
 //! leaves the database exactly as it was. The content hash is checked against earlier imports
 //! before the commit; a duplicate is refused (rolled back) unless `force` is set.
+//! [`Store::import_checking_early`] also hashes the file on a third thread while the import runs,
+//! so a duplicate is refused within the first batches instead of at the end, without hashing
+//! on the writing thread, which bounds the import's speed.
 
 use std::collections::HashMap;
 use std::io::Read;
-use std::path::PathBuf;
+use std::path::{Path, PathBuf};
 use std::sync::mpsc;
 use std::time::{Duration, Instant};
 
@@ -101,6 +104,35 @@ pub struct ImportReport {
     pub forced_over: Option<PriorImport>,
     /// Wall time of the import.
     pub elapsed: Duration,
+    /// CPU time per thread of the import, where the platform tells it.
+    pub cpu: ImportCpu,
+}
+
+/// CPU time used by each thread of one import (`None` where the platform does not tell it; read
+/// from `/proc/thread-self/schedstat` on Linux). The writing thread bounds the import on a
+/// machine with a core per thread, so this is what to watch when making it faster
+/// (DEVELOPERS.md, "Import speed").
+#[derive(Debug, Clone, Copy, Default)]
+pub struct ImportCpu {
+    /// The reading thread: parsing, interning, sorting batches.
+    pub reader: Option<Duration>,
+    /// The writing (calling) thread, from the start of the import to the end of its commit.
+    pub writer: Option<Duration>,
+    /// The part of `writer` spent in the commit (with SQLite's WAL checkpoint after it).
+    pub commit: Option<Duration>,
+    /// The thread that hashed the file up front for the early duplicate check, when there was one.
+    pub early_hash: Option<Duration>,
+}
+
+/// CPU time the calling thread has used so far (Linux; `None` elsewhere).
+fn thread_cpu() -> Option<Duration> {
+    let text = std::fs::read_to_string("/proc/thread-self/schedstat").ok()?;
+    let ns: u64 = text.split_whitespace().next()?.parse().ok()?;
+    Some(Duration::from_nanos(ns))
+}
+
+fn cpu_between(start: Option<Duration>, end: Option<Duration>) -> Option<Duration> {
+    Some(end?.saturating_sub(start?))
 }
 
 struct CharacteristicState {
@@ -426,8 +458,26 @@ impl Store {
         stream: ImportStream<R>,
         options: &ImportOptions,
     ) -> Result<ImportReport> {
+        self.import_checking_early(stream, options, None)
+    }
+
+    /// [`Store::import`], and unless `options.force` is set, `file` (the file the stream reads)
+    /// is hashed on a thread of its own while the import runs: as soon as its SHA-256 is known
+    /// (long before the end of a large file) and matches an earlier import, the import stops
+    /// and is rolled back, as a duplicate found at the end would be. The stream's own hash,
+    /// of the bytes it actually read, is still the one checked before the commit and recorded.
+    ///
+    /// This replaces hashing the file before the import on the writing thread, which bounds the
+    /// import's speed (DEVELOPERS.md, "Import speed").
+    pub fn import_checking_early<R: Read + Send>(
+        &mut self,
+        stream: ImportStream<R>,
+        options: &ImportOptions,
+        file: Option<&Path>,
+    ) -> Result<ImportReport> {
         self.conn.pragma_update(None, "foreign_keys", "OFF")?;
-        let result = self.import_in_transaction(stream, options);
+        let early_file = if options.force { None } else { file };
+        let result = self.import_in_transaction(stream, options, early_file);
         // Outside any transaction again (committed or rolled back), so the pragma takes effect.
         let restored = self.conn.pragma_update(None, "foreign_keys", "ON");
         let report = result?;
@@ -439,8 +489,10 @@ impl Store {
         &mut self,
         stream: ImportStream<R>,
         options: &ImportOptions,
+        early_file: Option<&Path>,
     ) -> Result<ImportReport> {
         let clock = Instant::now();
+        let writer_start = thread_cpu();
         let path = stream.path().to_path_buf();
         let layout = stream.layout().name.clone();
         let file_name = path
@@ -485,7 +537,14 @@ impl Store {
         let mut first_rejections = Vec::new();
 
         let (sender, receiver) = mpsc::sync_channel::<Batch>(IN_FLIGHT);
+        let mut early_hash_cpu = None;
         let (reader_result, write_result) = std::thread::scope(|scope| {
+            let mut early = early_file.map(|file| {
+                scope.spawn(move || {
+                    let sha256 = crate::ingest::file_sha256(file);
+                    (sha256, thread_cpu())
+                })
+            });
             let reader = scope.spawn(move || {
                 let mut interner = Interner::new(characteristics);
                 let mut stream = stream;
@@ -495,7 +554,7 @@ impl Store {
                         sort_rows(&mut full.rows);
                         if sender.send(full).is_err() {
                             // The writer stopped on an error; stop reading.
-                            return (stream, interner.characteristics);
+                            return (stream, interner.characteristics, thread_cpu());
                         }
                     }
                 }
@@ -504,7 +563,7 @@ impl Store {
                     sort_rows(&mut last.rows);
                     let _ = sender.send(last);
                 }
-                (stream, interner.characteristics)
+                (stream, interner.characteristics, thread_cpu())
             });
             let write_result = (|| -> Result<()> {
                 let mut insert_measurement = tx.prepare_cached(
@@ -515,6 +574,22 @@ impl Store {
                     "INSERT INTO rejected_rows (import_id, line, column_name, reason, raw) VALUES (?1, ?2, ?3, ?4, ?5)",
                 )?;
                 for mut batch in receiver.iter() {
+                    if early.as_ref().is_some_and(|h| h.is_finished()) {
+                        let hashed = early.take().map(|h| h.join());
+                        if let Some(Ok((sha256, cpu))) = hashed {
+                            early_hash_cpu = cpu;
+                            // A file that cannot be read up front fails the stream as well;
+                            // that error is the one reported.
+                            if let Ok(sha256) = sha256 {
+                                if let Some(prior) = imports_with_sha256(&tx, &sha256)? {
+                                    return Err(Error::AlreadyImported {
+                                        path: path.clone(),
+                                        earlier: prior.to_string(),
+                                    });
+                                }
+                            }
+                        }
+                    }
                     for name in batch.new_characteristics.drain(..) {
                         tx.execute(
                             "INSERT INTO characteristics (name, is_configured) VALUES (?1, 0)",
@@ -560,9 +635,12 @@ impl Store {
             // Dropping the receiver unblocks a reader still sending after a write error.
             drop(receiver);
             let reader_result = reader.join().expect("the import reading thread panicked");
+            if let Some(Ok((_, cpu))) = early.map(|h| h.join()) {
+                early_hash_cpu = cpu;
+            }
             (reader_result, write_result)
         });
-        let (stream, characteristics) = reader_result;
+        let (stream, characteristics, reader_cpu) = reader_result;
         let mut stream = stream;
         write_result?;
         if let Some(error) = stream.take_error() {
@@ -623,7 +701,9 @@ impl Store {
                 rejected as i64
             ],
         )?;
+        let commit_start = thread_cpu();
         tx.commit()?;
+        let writer_end = thread_cpu();
         let mut reasons: Vec<(String, u64)> = reasons.into_iter().collect();
         reasons.sort_by(|a, b| b.1.cmp(&a.1).then_with(|| a.0.cmp(&b.0)));
         Ok(ImportReport {
@@ -640,6 +720,12 @@ impl Store {
             new_characteristics,
             forced_over: prior,
             elapsed: clock.elapsed(),
+            cpu: ImportCpu {
+                reader: reader_cpu,
+                writer: cpu_between(writer_start, writer_end),
+                commit: cpu_between(commit_start, writer_end),
+                early_hash: early_hash_cpu,
+            },
         })
     }
 }

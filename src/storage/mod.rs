@@ -24,7 +24,7 @@ mod query;
 pub mod runs;
 
 pub use events::{Event, NewEvent};
-pub use import::{ImportOptions, ImportReport, PriorImport};
+pub use import::{ImportCpu, ImportOptions, ImportReport, PriorImport};
 pub use maintenance::{CharacteristicStatus, IntegrityReport, Status};
 pub use master::{StoredCharacteristic, StoredFactor, SyncReport};
 pub(crate) use query::closest;
