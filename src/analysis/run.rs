@@ -1,13 +1,15 @@
-//! Running a check against the store: load the period once, analyse it ([`super::check_frame`]),
-//! and record it as a run (one transaction at the end, see `storage::runs`). Also the
-//! [`EngineRunner`] through which the scheduler runs periods.
+//! Running a check against the store: load the period characteristic by characteristic while
+//! worker threads analyse it ([`super::check_frames`]), and record it as a run (one transaction
+//! at the end, see `storage::runs`). Also the [`EngineRunner`] through which the scheduler runs
+//! periods.
 
 use std::collections::HashSet;
+use std::sync::Arc;
 
 use chrono::{DateTime, Utc};
 use sha2::{Digest, Sha256};
 
-use super::{check_frame, fdr_name, CheckOptions, Frame, FrameCharacteristic, FrameFactor};
+use super::{check_frames, fdr_name, CheckOptions, Frame, FrameCharacteristic, FrameFactor};
 use crate::calendar::PlantCalendar;
 use crate::config::{Config, ScheduleConfig};
 use crate::model::{Period, PeriodKind};
@@ -74,6 +76,12 @@ pub fn previous_flags(
 }
 
 /// Runs the check of one period (nothing is written).
+///
+/// The period is loaded one characteristic at a time ([`Store::load_period`] of one name) on
+/// the calling thread while worker threads analyse the characteristics already loaded
+/// ([`check_frames`]): loading and statistics overlap, and memory holds only the
+/// characteristics in flight instead of the whole period. The result is the same as checking
+/// one frame of every characteristic (each test uses only the levels present in its values).
 pub fn run_check(
     store: &Store,
     config: &Config,
@@ -81,13 +89,22 @@ pub fn run_check(
     options: &CheckOptions,
 ) -> Result<RunContent> {
     let calendar = PlantCalendar::new(config);
-    let frame = frame_from(store.load_period(
-        period.start,
-        period.end,
-        options.characteristics.as_deref(),
-    )?);
+    let names: Vec<String> = match &options.characteristics {
+        Some(names) => names.clone(),
+        None => store
+            .characteristics()?
+            .into_iter()
+            .filter(|c| c.config.is_active)
+            .map(|c| c.config.name)
+            .collect(),
+    };
     let prev = previous_flags(store, &calendar, period)?;
-    check_frame(&frame, options, prev.as_ref())
+    let parts = names.iter().map(|name| {
+        store
+            .load_period(period.start, period.end, Some(std::slice::from_ref(name)))
+            .map(|pf| Arc::new(frame_from(pf)))
+    });
+    check_frames(parts, options, prev.as_ref())
 }
 
 /// The run row for a period.
