@@ -24,7 +24,7 @@ use std::time::{Duration, Instant};
 
 use criterion::{criterion_group, criterion_main, Criterion};
 use samewise::analysis::run::{check_and_record, frame_from, header, previous_flags, run_check};
-use samewise::analysis::{check_frame, CheckOptions};
+use samewise::analysis::{check_frame, check_frames, CheckOptions};
 use samewise::calendar::PlantCalendar;
 use samewise::config::Config;
 use samewise::model::Period;
@@ -81,10 +81,26 @@ fn setup() -> PathBuf {
     config
 }
 
+/// CPU time of this process so far (all threads, user + system), from `/proc/self/stat`
+/// (clock ticks of 10 ms); `None` where that file does not exist.
+fn cpu_seconds() -> Option<f64> {
+    let stat = std::fs::read_to_string("/proc/self/stat").ok()?;
+    // Fields after the command name (which is in parentheses): state is field 3, utime 14, stime 15.
+    let rest = &stat[stat.rfind(')')? + 2..];
+    let fields: Vec<&str> = rest.split_whitespace().collect();
+    let ticks: f64 = fields.get(11)?.parse::<f64>().ok()? + fields.get(12)?.parse::<f64>().ok()?;
+    Some(ticks / 100.0)
+}
+
 fn timed<T>(what: &str, f: impl FnOnce() -> T) -> T {
+    let cpu = cpu_seconds();
     let t = Instant::now();
     let out = f();
-    eprintln!("  {what:<58} {:>9.3} s", t.elapsed().as_secs_f64());
+    let wall = t.elapsed().as_secs_f64();
+    match (cpu, cpu_seconds()) {
+        (Some(a), Some(b)) => eprintln!("  {what:<62} {wall:>8.3} s wall {:>8.2} s CPU", b - a),
+        _ => eprintln!("  {what:<62} {wall:>8.3} s wall"),
+    }
     out
 }
 
@@ -128,13 +144,28 @@ fn stages(config: &Config, label: &str, with_pairs: bool) {
     }
     let content = content.unwrap();
     let streamed = timed(
-        "run_check: load per characteristic, overlapped with analysis",
+        "run_check: parts of 5 characteristics, overlapped with analysis",
         || run_check(&store, config, &period, &options).unwrap(),
     );
     assert_eq!(
         streamed, content,
         "the streamed check must equal check_frame"
     );
+    // Parts of several characteristics: fewer load_period calls, more values in memory at once.
+    for per_part in [1, 2, 10] {
+        let streamed = timed(
+            &format!("check_frames, {per_part} characteristics per load_period call"),
+            || {
+                let parts = names.chunks(per_part).map(|chunk| {
+                    store
+                        .load_period(period.start, period.end, Some(chunk))
+                        .map(|pf| std::sync::Arc::new(frame_from(pf)))
+                });
+                check_frames(parts, &options, prev.as_ref()).unwrap()
+            },
+        );
+        assert_eq!(streamed, content);
+    }
     let n_flagged = content
         .tests
         .iter()

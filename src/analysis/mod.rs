@@ -216,8 +216,8 @@ pub fn check_frame(
     check_frames(std::iter::once(Ok(frame)), options, previous_flags)
 }
 
-/// [`check_frame`] over a period that arrives in parts (for example one characteristic at a
-/// time, as `run::run_check` loads it): the tests of each part go to the worker threads as soon
+/// [`check_frame`] over a period that arrives in parts (a few characteristics at a time, as
+/// `run::run_check` loads it): the tests of each part go to the worker threads as soon
 /// as it arrives, so loading the next part overlaps the statistics of the previous ones, and
 /// only the parts still being analysed are held in memory.
 ///
@@ -240,9 +240,9 @@ where
     I: IntoIterator<Item = crate::Result<F>>,
 {
     let threads = worker_count(options);
-    // At most this many tests wait for a worker: a few characteristics' worth, so memory stays
-    // bounded by the parts in flight however long the period is.
-    let (sender, receiver) = std::sync::mpsc::sync_channel::<Job<F>>(64);
+    // At most two tests per worker wait in the queue: the calling thread blocks instead of
+    // loading further ahead, so memory holds about three parts however long the period is.
+    let (sender, receiver) = std::sync::mpsc::sync_channel::<Job<F>>(2 * threads);
     let receiver = std::sync::Mutex::new(receiver);
     let mut partials: Vec<(usize, Partial)> = Vec::new();
     let mut failure = None;
