@@ -229,7 +229,10 @@ pub fn check_frame(
 ///
 /// Threads: `options.threads` workers (0: one per core) compute the per-test statistics while
 /// the calling thread produces the parts; the post-hoc pairs of the flagged tests (after the
-/// run-level FDR) are then shared out over the same number of threads.
+/// run-level FDR) are then shared out over the same number of threads. `std::thread::scope` and
+/// a bounded `std::sync::mpsc` channel instead of a thread-pool crate: the work is coarse (a few
+/// hundred tests of thousands of values each, a few dozen loads), the producer must block when
+/// the workers fall behind (that bounds memory), and the order is restored by test number.
 pub fn check_frames<F, I>(
     frames: I,
     options: &CheckOptions,
