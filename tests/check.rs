@@ -174,6 +174,117 @@ fn run_level_q_values_equal_statsmodels() {
     }
 }
 
+/// One characteristic of `frame` as its own frame, with each factor's levels cut down to those
+/// that occur in its values (what `Store::load_period` of one characteristic returns).
+fn part_of(frame: &Frame, c: usize) -> Frame {
+    let mut ch = frame.characteristics[c].clone();
+    let factors = frame
+        .factors
+        .iter()
+        .enumerate()
+        .map(|(f, factor)| {
+            let mut present: Vec<u32> = ch.level_idx[f].clone();
+            present.sort_unstable();
+            present.dedup();
+            for l in ch.level_idx[f].iter_mut() {
+                *l = present.binary_search(l).unwrap() as u32;
+            }
+            FrameFactor {
+                name: factor.name.clone(),
+                levels: present
+                    .iter()
+                    .map(|&l| factor.levels[l as usize].clone())
+                    .collect(),
+            }
+        })
+        .collect();
+    Frame {
+        factors,
+        characteristics: vec![ch],
+    }
+}
+
+/// Issue 5 (speed): `samewise check` loads a period one characteristic at a time and analyses it
+/// on worker threads while the next one loads (`analysis::check_frames`). The run must equal, to
+/// the bit and in the same order, the check of one frame holding every characteristic, on one
+/// thread or two. Invented data with injected differences (so pairs are computed), one
+/// characteristic whose machine M3 made nothing that day (its part has no M3 level at all), and
+/// one inactive characteristic (left out either way). Hand check, no outside source needed: the
+/// same arithmetic on the same values in the same order.
+#[test]
+fn issue_5_streamed_parts_equal_one_frame_on_any_thread_count() {
+    let mut rng = Rng(0xC0FF_EE05);
+    let mut frame = invented_day(&mut rng, 12, 600, |c, levels, v| {
+        if c == 2 && levels[0] == 1 {
+            v + 0.02
+        } else if c == 5 && levels[2] == 2 {
+            3.0 * v
+        } else {
+            v
+        }
+    });
+    // char04: drop every row of machine M3 (level 2 of factor 0).
+    let ch = &mut frame.characteristics[4];
+    let keep: Vec<bool> = ch.level_idx[0].iter().map(|&l| l != 2).collect();
+    let mut k = keep.iter();
+    ch.values.retain(|_| *k.next().unwrap());
+    for column in ch.level_idx.iter_mut() {
+        let mut k = keep.iter();
+        column.retain(|_| *k.next().unwrap());
+    }
+    frame.characteristics[7].characteristic.is_active = false;
+    let whole = check_frame(
+        &frame,
+        &CheckOptions {
+            threads: 1,
+            ..options()
+        },
+        None,
+    )
+    .unwrap();
+    assert_eq!(whole.tests.len(), 55);
+    assert!(
+        !whole.pairs.is_empty(),
+        "the injected differences give pairs"
+    );
+    assert!(whole
+        .groups
+        .iter()
+        .all(|g| !(g.test_idx >= 20 && g.test_idx < 25 && g.level == "M3")));
+    for threads in [1, 2, 3] {
+        let opts = CheckOptions {
+            threads,
+            ..options()
+        };
+        let parts = (0..frame.characteristics.len()).map(|c| Ok(part_of(&frame, c)));
+        let parts: Vec<_> = parts.collect::<Vec<samewise::Result<Frame>>>();
+        let streamed = analysis::check_frames(
+            parts.into_iter().map(|p| p.map(std::sync::Arc::new)),
+            &opts,
+            None,
+        )
+        .unwrap();
+        assert_eq!(streamed, whole, "{threads} thread(s)");
+        assert_eq!(check_frame(&frame, &opts, None).unwrap(), whole);
+    }
+}
+
+/// A part that fails to load stops the check with its error.
+#[test]
+fn issue_5_a_failed_part_is_the_check_error() {
+    let mut rng = Rng(0xC0FF_EE06);
+    let frame = invented_day(&mut rng, 3, 100, |_, _, v| v);
+    let parts: Vec<samewise::Result<std::sync::Arc<Frame>>> = vec![
+        Ok(std::sync::Arc::new(part_of(&frame, 0))),
+        Err(samewise::Error::Usage(
+            "unknown characteristic \"x\"".into(),
+        )),
+        Ok(std::sync::Arc::new(part_of(&frame, 2))),
+    ];
+    let err = analysis::check_frames(parts, &options(), None).unwrap_err();
+    assert!(err.to_string().contains("unknown characteristic"), "{err}");
+}
+
 /// Invented plant day: machine M2 offset by +1.5 SD on char03; supplier S3 with 3x the SD on
 /// char07; 48 other characteristics null. 5 factors, 2,400 values per characteristic.
 #[test]

@@ -176,6 +176,15 @@ struct Task<'a> {
     factor_idx: usize,
 }
 
+/// One test waiting for a worker: the frame holding its characteristic (shared between the
+/// tests of that characteristic) and where it sits in the frame and in the run.
+struct Job<F> {
+    frame: F,
+    test_idx: usize,
+    characteristic_idx: usize,
+    factor_idx: usize,
+}
+
 /// Per-test work before the run-level FDR: everything but q, state, is_new and pairs.
 struct Partial {
     row: TestRow,
@@ -184,6 +193,15 @@ struct Partial {
     levels: Vec<String>,
     leading: Option<LeadingMethod>,
     confidence: f64,
+}
+
+/// Worker threads for `options` (0: as many as the machine has cores).
+fn worker_count(options: &CheckOptions) -> usize {
+    if options.threads == 0 {
+        std::thread::available_parallelism().map_or(1, |n| n.get())
+    } else {
+        options.threads
+    }
 }
 
 /// Runs the whole check on one period's frame: every selected active characteristic x every
@@ -195,66 +213,117 @@ pub fn check_frame(
     options: &CheckOptions,
     previous_flags: Option<&HashSet<(String, String)>>,
 ) -> crate::Result<RunContent> {
-    let mut tasks = Vec::new();
-    let factor_ids: Vec<usize> = (0..frame.factors.len())
-        .filter(|&f| {
-            options
-                .factors
-                .as_ref()
-                .map_or(true, |sel| sel.contains(&frame.factors[f].name))
-        })
-        .collect();
-    for c in &frame.characteristics {
-        let selected = match &options.characteristics {
-            Some(sel) => sel.contains(&c.characteristic.name),
-            None => c.characteristic.is_active,
-        };
-        if !selected {
-            continue;
-        }
-        for &f in &factor_ids {
-            tasks.push(Task {
-                test_idx: tasks.len(),
-                characteristic: c,
-                factor_idx: f,
-            });
-        }
-    }
-    let threads = if options.threads == 0 {
-        std::thread::available_parallelism().map_or(1, |n| n.get())
-    } else {
-        options.threads
-    }
-    .min(tasks.len().max(1));
-    let next = AtomicUsize::new(0);
-    let mut partials: Vec<Option<Partial>> = (0..tasks.len()).map(|_| None).collect();
+    check_frames(std::iter::once(Ok(frame)), options, previous_flags)
+}
+
+/// [`check_frame`] over a period that arrives in parts (a few characteristics at a time, as
+/// `run::run_check` loads it): the tests of each part go to the worker threads as soon
+/// as it arrives, so loading the next part overlaps the statistics of the previous ones, and
+/// only the parts still being analysed are held in memory.
+///
+/// Every part must carry the same factors in the same order (their level lists may differ: each
+/// test only uses the levels that occur in its own values). Tests are numbered in arrival order
+/// (part, characteristic, factor), and the result is the same, to the bit, as [`check_frame`]
+/// on one frame holding all the parts, whatever the number of threads. The first error of
+/// `frames` stops the check and is returned.
+///
+/// Threads: `options.threads` workers (0: one per core) compute the per-test statistics while
+/// the calling thread produces the parts; the post-hoc pairs of the flagged tests (after the
+/// run-level FDR) are then shared out over the same number of threads. `std::thread::scope` and
+/// a bounded `std::sync::mpsc` channel instead of a thread-pool crate: the work is coarse (a few
+/// hundred tests of thousands of values each, a few dozen loads), the producer must block when
+/// the workers fall behind (that bounds memory), and the order is restored by test number.
+pub fn check_frames<F, I>(
+    frames: I,
+    options: &CheckOptions,
+    previous_flags: Option<&HashSet<(String, String)>>,
+) -> crate::Result<RunContent>
+where
+    F: std::ops::Deref<Target = Frame> + Clone + Send,
+    I: IntoIterator<Item = crate::Result<F>>,
+{
+    let threads = worker_count(options);
+    // At most two tests per worker wait in the queue: the calling thread blocks instead of
+    // loading further ahead, so memory holds about three parts however long the period is.
+    let (sender, receiver) = std::sync::mpsc::sync_channel::<Job<F>>(2 * threads);
+    let receiver = std::sync::Mutex::new(receiver);
+    let mut partials: Vec<(usize, Partial)> = Vec::new();
+    let mut failure = None;
     std::thread::scope(|scope| {
         let handles: Vec<_> = (0..threads)
             .map(|_| {
                 scope.spawn(|| {
                     let mut done = Vec::new();
                     loop {
-                        let i = next.fetch_add(1, Ordering::Relaxed);
-                        let Some(task) = tasks.get(i) else { break };
-                        done.push((i, one_test(frame, task, options)));
+                        // The lock is held only while waiting for the next job.
+                        let job = receiver
+                            .lock()
+                            .map_err(|_| ())
+                            .and_then(|r| r.recv().map_err(|_| ()));
+                        let Ok(job) = job else { break };
+                        let task = Task {
+                            test_idx: job.test_idx,
+                            characteristic: &job.frame.characteristics[job.characteristic_idx],
+                            factor_idx: job.factor_idx,
+                        };
+                        done.push((job.test_idx, one_test(&job.frame, &task, options)));
                     }
                     done
                 })
             })
             .collect();
-        for h in handles {
-            for (i, p) in h.join().expect("analysis worker panicked") {
-                partials[i] = Some(p);
+        let mut n_tests = 0usize;
+        'parts: for part in frames {
+            let frame = match part {
+                Ok(frame) => frame,
+                Err(e) => {
+                    failure = Some(e);
+                    break;
+                }
+            };
+            let factor_ids: Vec<usize> = (0..frame.factors.len())
+                .filter(|&f| {
+                    options
+                        .factors
+                        .as_ref()
+                        .map_or(true, |sel| sel.contains(&frame.factors[f].name))
+                })
+                .collect();
+            for (characteristic_idx, c) in frame.characteristics.iter().enumerate() {
+                let selected = match &options.characteristics {
+                    Some(sel) => sel.contains(&c.characteristic.name),
+                    None => c.characteristic.is_active,
+                };
+                if !selected {
+                    continue;
+                }
+                for &factor_idx in &factor_ids {
+                    let job = Job {
+                        frame: frame.clone(),
+                        test_idx: n_tests,
+                        characteristic_idx,
+                        factor_idx,
+                    };
+                    n_tests += 1;
+                    if sender.send(job).is_err() {
+                        // Every worker is gone (a panic, raised again at the join below).
+                        break 'parts;
+                    }
+                }
             }
         }
+        drop(sender);
+        for h in handles {
+            partials.extend(h.join().expect("analysis worker panicked"));
+        }
     });
-    let mut partials: Vec<Partial> = partials
-        .into_iter()
-        .map(|p| p.expect("every task ran"))
-        .collect();
+    if let Some(e) = failure {
+        return Err(e);
+    }
+    partials.sort_unstable_by_key(|(i, _)| *i);
+    let mut partials: Vec<Partial> = partials.into_iter().map(|(_, p)| p).collect();
     let p: Vec<Option<f64>> = partials.iter().map(|t| t.row.leading_p).collect();
     let q = run_q_values(&p, options.fdr_method)?;
-    let mut content = RunContent::default();
     for (partial, q) in partials.iter_mut().zip(q) {
         let row = &mut partial.row;
         row.q_value = q;
@@ -282,25 +351,71 @@ pub fn check_frame(
             && previous_flags.map_or(true, |prev| {
                 !prev.contains(&(row.characteristic.clone(), row.factor.clone()))
             });
-        if flagged {
-            let pairs = match partial.leading {
-                Some(LeadingMethod::Welch) => {
-                    posthoc::games_howell(&partial.summaries, partial.confidence)
-                }
-                _ => posthoc::tukey_kramer(&partial.summaries, partial.confidence),
-            };
-            for pair in pairs.into_iter().flatten() {
-                content
-                    .pairs
-                    .push(pair_row(row.test_idx, &partial.levels, &pair));
-            }
-        }
     }
+    let flagged: Vec<&Partial> = partials
+        .iter()
+        .filter(|p| crate::storage::runs::is_flag_state(&p.row.state))
+        .collect();
+    let pairs = parallel_map(&flagged, threads, |partial| {
+        let pairs = match partial.leading {
+            Some(LeadingMethod::Welch) => {
+                posthoc::games_howell(&partial.summaries, partial.confidence)
+            }
+            _ => posthoc::tukey_kramer(&partial.summaries, partial.confidence),
+        };
+        pairs
+            .into_iter()
+            .flatten()
+            .map(|pair| pair_row(partial.row.test_idx, &partial.levels, &pair))
+            .collect::<Vec<_>>()
+    });
+    let mut content = RunContent {
+        pairs: pairs.into_iter().flatten().collect(),
+        ..RunContent::default()
+    };
     for partial in partials {
         content.groups.extend(partial.groups);
         content.tests.push(partial.row);
     }
     Ok(content)
+}
+
+/// `items.iter().map(f)` on up to `threads` threads (items handed out one at a time, so slow
+/// items do not hold up a whole share), results in the order of `items`.
+fn parallel_map<T: Sync, R: Send>(
+    items: &[T],
+    threads: usize,
+    f: impl Fn(&T) -> R + Sync,
+) -> Vec<R> {
+    let threads = threads.min(items.len());
+    if threads <= 1 {
+        return items.iter().map(f).collect();
+    }
+    let next = AtomicUsize::new(0);
+    let mut out: Vec<Option<R>> = (0..items.len()).map(|_| None).collect();
+    std::thread::scope(|scope| {
+        let handles: Vec<_> = (0..threads)
+            .map(|_| {
+                scope.spawn(|| {
+                    let mut done = Vec::new();
+                    loop {
+                        let i = next.fetch_add(1, Ordering::Relaxed);
+                        let Some(item) = items.get(i) else { break };
+                        done.push((i, f(item)));
+                    }
+                    done
+                })
+            })
+            .collect();
+        for h in handles {
+            for (i, r) in h.join().expect("analysis worker panicked") {
+                out[i] = Some(r);
+            }
+        }
+    });
+    out.into_iter()
+        .map(|r| r.expect("every item was mapped"))
+        .collect()
 }
 
 fn pair_row(test_idx: i64, levels: &[String], pair: &Pair) -> PairRow {

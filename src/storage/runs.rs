@@ -842,6 +842,12 @@ impl crate::storage::Store {
     pub fn connection(&self) -> &Connection {
         &self.conn
     }
+
+    /// The connection, mutable, for the functions of this module that open a transaction
+    /// ([`begin_run`], [`complete_run`]).
+    pub fn connection_mut(&mut self) -> &mut Connection {
+        &mut self.conn
+    }
 }
 
 #[cfg(test)]
