@@ -106,12 +106,57 @@ pub fn run_check(
             .collect(),
     };
     let prev = previous_flags(store, &calendar, period)?;
-    let parts = names.chunks(CHARACTERISTICS_PER_PART).map(|chunk| {
-        store
-            .load_period(period.start, period.end, Some(chunk))
+    let chunks: Vec<&[String]> = names.chunks(CHARACTERISTICS_PER_PART).collect();
+    let load = |s: &Store, chunk: &[String]| {
+        s.load_period(period.start, period.end, Some(chunk))
             .map(|pf| Arc::new(frame_from(pf)))
-    });
-    check_frames(parts, options, prev.as_ref())
+    };
+    let threads = match options.threads {
+        0 => std::thread::available_parallelism().map_or(1, |n| n.get()),
+        n => n,
+    };
+    let second_path = store.path().filter(|_| threads >= 2 && chunks.len() >= 2);
+    let Some(path) = second_path else {
+        let parts = chunks.iter().map(|chunk| load(store, chunk));
+        return check_frames(parts, options, prev.as_ref());
+    };
+    // Loading is the longest stage (one core's worth of SQLite reads and level look-ups), so a
+    // second connection loads the odd-numbered parts on its own thread while this one loads the
+    // even ones; the parts reach the workers in their order either way, so the run is the same.
+    // Each part is one read of the database, as with a single loader.
+    std::thread::scope(|scope| {
+        let (tx, rx) = std::sync::mpsc::sync_channel(1);
+        let odd: Vec<&[String]> = chunks.iter().skip(1).step_by(2).copied().collect();
+        scope.spawn(move || {
+            let second = match Store::open(path) {
+                Ok(s) => s,
+                Err(e) => {
+                    let _ = tx.send(Err(e));
+                    return;
+                }
+            };
+            for chunk in odd {
+                // A closed channel means the check stopped early (an error elsewhere).
+                if tx.send(load(&second, chunk)).is_err() {
+                    return;
+                }
+            }
+        });
+        let parts = chunks.iter().enumerate().map(|(i, chunk)| {
+            if i % 2 == 0 {
+                load(store, chunk)
+            } else {
+                rx.recv().unwrap_or_else(|_| {
+                    Err(crate::Error::Database(
+                        "the second loading thread stopped without a result".to_string(),
+                    ))
+                })
+            }
+        });
+        let result = check_frames(parts, options, prev.as_ref());
+        drop(rx);
+        result
+    })
 }
 
 /// The run row for a period.

@@ -98,25 +98,70 @@ fn series(x: f64, df1: f64, df2: f64, nc: f64, upper: bool) -> f64 {
     let mode = half.floor();
     let mut total = 0.0;
     let limit = 40.0 * half.sqrt() + 200.0;
+    // The incomplete betas of neighbouring terms differ by one term of the binomial-like series,
+    // I_y(a + 1, b) = I_y(a, b) - T(a) with T(a) = y^a (1 - y)^b / (a B(a, b)) and
+    // T(a + 1) = T(a) y (a + b) / (a + 1) (Abramowitz and Stegun 26.5.16; the recurrences of
+    // Lenth 1987, AS 226), and the Poisson weights by w(j + 1) = w(j) half / (j + 1): one direct
+    // incomplete beta at the mode instead of one per term. A difference that would cancel (the
+    // running value below 1e-4 of the last direct one) is replaced by a direct evaluation.
+    let ln_y = y.ln();
+    let ln_1my = one_minus_y.ln();
+    let log_t = |a: f64| -> f64 {
+        ln_gamma(a + b) - ln_gamma(a + 1.0) - ln_gamma(b) + a * ln_y + b * ln_1my
+    };
     // Upward from the mode (including it).
     let mut j = mode;
+    let mut w = log_weight(j).exp();
+    let mut beta = term_beta(j);
+    let mut last_direct = beta;
+    let mut t = log_t(a0 + j).exp();
+    let (beta_mode, t_mode, w_mode) = (beta, t, w);
     loop {
-        let w = log_weight(j).exp();
-        let t = w * term_beta(j);
-        total += t;
+        total += w * beta;
         // The remaining Poisson mass beyond j (weights decrease geometrically there) bounds the rest.
         let remaining = w * half / (j + 1.0 - half).max(1.0);
         if j > mode && (remaining <= 1e-17 * total || remaining <= 1e-300) || j - mode > limit {
             break;
         }
+        // Step a = a0 + j to a + 1.
+        let a = a0 + j;
+        beta = if upper { beta + t } else { beta - t };
         j += 1.0;
+        if !upper && beta < 1e-4 * last_direct {
+            beta = term_beta(j);
+            last_direct = beta;
+        }
+        t = if t < 1e-280 {
+            log_t(a + 1.0).exp()
+        } else {
+            t * y * (a + b) / (a + 1.0)
+        };
+        w *= half / j;
     }
     // Downward from the mode.
+    let (mut beta, mut t, mut w) = (beta_mode, t_mode, w_mode);
+    let mut last_direct = beta;
     let mut j = mode - 1.0;
     while j >= 0.0 {
-        let w = log_weight(j).exp();
-        let t = w * term_beta(j);
-        total += t;
+        // Step a = a0 + j + 1 down to a - 1 = a0 + j.
+        let a = a0 + j + 1.0;
+        let t_below = if t < 1e-280 {
+            log_t(a - 1.0).exp()
+        } else {
+            t * a / (y * (a - 1.0 + b))
+        };
+        beta = if upper {
+            beta - t_below
+        } else {
+            beta + t_below
+        };
+        if upper && beta < 1e-4 * last_direct {
+            beta = term_beta(j);
+            last_direct = beta;
+        }
+        t = t_below;
+        w *= (j + 1.0) / half;
+        total += w * beta;
         // Below the mode the weights shrink at least geometrically by j / half.
         let remaining = w * j / (half - j).max(1.0);
         if remaining <= 1e-17 * total || remaining <= 1e-300 || mode - j > limit {
