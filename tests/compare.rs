@@ -10,6 +10,9 @@ use std::process::{Command, Output};
 
 use serde_json::Value;
 
+mod common;
+use common::temp_dir;
+
 /// Log relative error of `x` against the certified `c` (15.9 for an exact match).
 fn lre(x: f64, c: f64) -> f64 {
     if x == c {
@@ -23,14 +26,6 @@ fn lre(x: f64, c: f64) -> f64 {
 
 fn data_dir() -> PathBuf {
     Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/data")
-}
-
-/// A fresh temporary folder named after the test.
-fn temp_dir(test: &str) -> PathBuf {
-    let dir = std::env::temp_dir().join(format!("samewise-compare-{test}"));
-    let _ = std::fs::remove_dir_all(&dir);
-    std::fs::create_dir_all(&dir).unwrap();
-    dir
 }
 
 fn samewise(args: &[&str]) -> Output {

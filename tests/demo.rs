@@ -2,15 +2,10 @@
 //! (sample-plant/README.md: heavier castings from Castalloy, M4's bore drift after the tooling
 //! change of 2026-10-19, more wall-thickness spread on the night shift) and mostly nothing else.
 
-use std::path::PathBuf;
 use std::process::Command;
 
-fn temp_dir(name: &str) -> PathBuf {
-    let dir = std::env::temp_dir().join(format!("samewise-test-{name}-{}", std::process::id()));
-    let _ = std::fs::remove_dir_all(&dir);
-    std::fs::create_dir_all(&dir).unwrap();
-    dir
-}
+mod common;
+use common::temp_dir;
 
 /// The first number after `key` in `line`.
 fn number_after(line: &str, key: &str) -> f64 {

@@ -8,15 +8,11 @@ use std::process::{Command, Output};
 use samewise::config::Config;
 use samewise::storage::Store;
 
+mod common;
+use common::temp_dir;
+
 fn bin() -> &'static str {
     env!("CARGO_BIN_EXE_samewise")
-}
-
-fn temp_dir(name: &str) -> PathBuf {
-    let dir = std::env::temp_dir().join(format!("samewise-import-{name}-{}", std::process::id()));
-    let _ = std::fs::remove_dir_all(&dir);
-    std::fs::create_dir_all(&dir).unwrap();
-    dir
 }
 
 const CONFIG: &str = r#"

@@ -6,7 +6,7 @@
 //! goes 02:00 -> 03:00 on 29 March and 03:00 -> 02:00 on 25 October; America/Chicago goes
 //! 02:00 -> 03:00 on 8 March and 02:00 -> 01:00 on 1 November.
 
-use std::path::{Path, PathBuf};
+use std::path::Path;
 
 use chrono::{DateTime, Utc};
 use proptest::prelude::*;
@@ -15,6 +15,9 @@ use samewise::ingest::{
     self, Counts, ImportStream, MeasurementRef, OutcomeSink, ReadOptions, Rejection, RowOutcome,
 };
 use sha2::{Digest, Sha256};
+
+mod common;
+use common::temp_dir;
 
 const CONFIG: &str = r#"
 [plant]
@@ -647,13 +650,6 @@ fn physical_lines(bytes: &[u8]) -> u64 {
     } else {
         newlines + 1
     }
-}
-
-fn temp_dir(name: &str) -> PathBuf {
-    let dir = std::env::temp_dir().join(format!("samewise-ingest-{}-{name}", std::process::id()));
-    let _ = std::fs::remove_dir_all(&dir);
-    std::fs::create_dir_all(&dir).unwrap();
-    dir
 }
 
 fn hex(bytes: &[u8]) -> String {

@@ -2,18 +2,14 @@
 //! machines, one value per machine per hour for 20 days; machine M3 moves up by 0.004 mm at
 //! 2026-11-10 12:00 UTC, when an event is logged). All data here are invented.
 
-use std::path::{Path, PathBuf};
+use std::path::Path;
 use std::process::{Command, Output};
+
+mod common;
+use common::temp_dir;
 
 fn bin() -> &'static str {
     env!("CARGO_BIN_EXE_samewise")
-}
-
-fn temp_dir(name: &str) -> PathBuf {
-    let dir = std::env::temp_dir().join(format!("samewise-investigate-{name}"));
-    let _ = std::fs::remove_dir_all(&dir);
-    std::fs::create_dir_all(&dir).unwrap();
-    dir
 }
 
 fn run(dir: &Path, args: &[&str]) -> Output {

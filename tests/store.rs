@@ -2,19 +2,13 @@
 //! refusal of a newer database, exact round trip of values with a large offset, and
 //! `sync_config` idempotence.
 
-use std::path::PathBuf;
-
 use samewise::config::Config;
 use samewise::ingest;
 use samewise::stats::decimal::Decimal;
 use samewise::storage::{exact_value, migrate, ImportOptions, Store};
 
-fn temp_dir(name: &str) -> PathBuf {
-    let dir = std::env::temp_dir().join(format!("samewise-store-{name}-{}", std::process::id()));
-    let _ = std::fs::remove_dir_all(&dir);
-    std::fs::create_dir_all(&dir).unwrap();
-    dir
-}
+mod common;
+use common::temp_dir;
 
 const CONFIG: &str = r#"
 [plant]

@@ -1,4 +1,5 @@
-//! Shared helpers of the engine's binary-driving tests: an invented plant (configuration and a
+//! Shared helpers of the integration tests: a fresh temporary directory per test, and for the
+//! engine's binary-driving tests an invented plant (configuration and a
 //! long-format CSV generated with a fixed RNG state) imported into a fresh database.
 #![allow(dead_code)]
 
@@ -57,7 +58,7 @@ delay = "2h"
 
 /// A fresh directory named after the test.
 pub fn temp_dir(name: &str) -> PathBuf {
-    let dir = std::env::temp_dir().join(format!("samewise-engine-{name}-{}", std::process::id()));
+    let dir = std::env::temp_dir().join(format!("samewise-test-{name}-{}", std::process::id()));
     let _ = std::fs::remove_dir_all(&dir);
     std::fs::create_dir_all(&dir).unwrap();
     dir
