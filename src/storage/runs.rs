@@ -629,6 +629,15 @@ pub struct HistoryPoint {
     pub test: TestRow,
 }
 
+/// `columns` (a comma-separated list) with each name prefixed by `alias.`.
+fn qualified(alias: &str, columns: &str) -> String {
+    columns
+        .split(',')
+        .map(|c| format!("{alias}.{}", c.trim()))
+        .collect::<Vec<_>>()
+        .join(", ")
+}
+
 /// The latest complete result of `characteristic` x `factor` for each of the last `last` periods
 /// of `period_kind`, oldest first.
 pub fn history(
@@ -638,16 +647,8 @@ pub fn history(
     period_kind: &str,
     last: usize,
 ) -> Result<Vec<HistoryPoint>> {
-    let run_cols: String = RUN_COLUMNS
-        .split(',')
-        .map(|c| format!("r.{}", c.trim()))
-        .collect::<Vec<_>>()
-        .join(", ");
-    let test_cols: String = TEST_COLUMNS
-        .split(',')
-        .map(|c| format!("t.{}", c.trim()))
-        .collect::<Vec<_>>()
-        .join(", ");
+    let run_cols = qualified("r", RUN_COLUMNS);
+    let test_cols = qualified("t", TEST_COLUMNS);
     let sql = format!(
         "SELECT {run_cols}, {test_cols} FROM run r JOIN run_result t ON t.run_id = r.run_id
          WHERE r.period_kind = ?1 AND r.status = 'complete' AND t.characteristic = ?2
@@ -663,7 +664,7 @@ pub fn history(
             |r| {
                 Ok(HistoryPoint {
                     run: run_from_row(r)?,
-                    test: test_from_row(r, 17)?,
+                    test: test_from_row(r, RUN_COLUMNS.split(',').count())?,
                 })
             },
         )?
@@ -680,11 +681,7 @@ pub fn latest_complete_runs_between(
     start_ms: i64,
     end_ms: i64,
 ) -> Result<Vec<StoredRun>> {
-    let run_cols: String = RUN_COLUMNS
-        .split(',')
-        .map(|c| format!("r.{}", c.trim()))
-        .collect::<Vec<_>>()
-        .join(", ");
+    let run_cols = qualified("r", RUN_COLUMNS);
     let sql = format!(
         "SELECT {run_cols} FROM run r
          WHERE r.period_kind = ?1 AND r.status = 'complete'
