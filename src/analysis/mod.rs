@@ -196,7 +196,7 @@ struct Partial {
 }
 
 /// Worker threads for `options` (0: as many as the machine has cores).
-fn worker_count(options: &CheckOptions) -> usize {
+pub(crate) fn worker_count(options: &CheckOptions) -> usize {
     if options.threads == 0 {
         std::thread::available_parallelism().map_or(1, |n| n.get())
     } else {

@@ -9,7 +9,9 @@ use std::sync::Arc;
 use chrono::{DateTime, Utc};
 use sha2::{Digest, Sha256};
 
-use super::{check_frames, fdr_name, CheckOptions, Frame, FrameCharacteristic, FrameFactor};
+use super::{
+    check_frames, fdr_name, worker_count, CheckOptions, Frame, FrameCharacteristic, FrameFactor,
+};
 use crate::calendar::PlantCalendar;
 use crate::config::{Config, ScheduleConfig};
 use crate::model::{Period, PeriodKind};
@@ -111,11 +113,9 @@ pub fn run_check(
         s.load_period(period.start, period.end, Some(chunk))
             .map(|pf| Arc::new(frame_from(pf)))
     };
-    let threads = match options.threads {
-        0 => std::thread::available_parallelism().map_or(1, |n| n.get()),
-        n => n,
-    };
-    let second_path = store.path().filter(|_| threads >= 2 && chunks.len() >= 2);
+    let second_path = store
+        .path()
+        .filter(|_| worker_count(options) >= 2 && chunks.len() >= 2);
     let Some(path) = second_path else {
         let parts = chunks.iter().map(|chunk| load(store, chunk));
         return check_frames(parts, options, prev.as_ref());

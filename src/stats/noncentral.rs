@@ -13,9 +13,11 @@
 //! probabilities", Applied Statistics 36, 241-244, with the start at the Poisson mode recommended by
 //! Frick 1990, "Algorithm AS R84", Applied Statistics 39, 311-312). Unlike AS 226, which sums
 //! upward from j = 0 and so underflows for large `nc`, the sum here starts at the largest Poisson
-//! weight and runs outward in both directions until the terms are negligible; each incomplete beta
-//! is evaluated directly (statrs `beta_reg`), and the upper tail ([`ncf_sf`]) sums the
-//! complementary terms `I_(1-y)(df2/2, df1/2 + j)` so that it keeps relative accuracy when small.
+//! weight and runs outward in both directions until the terms are negligible. The incomplete beta
+//! is evaluated directly (statrs `beta_reg`) at the mode and carried to its neighbours by the
+//! recurrence `I_y(a + 1, b) = I_y(a, b) - T(a)` (evaluated directly again wherever the
+//! difference would cancel), and the upper tail ([`ncf_sf`]) sums the complementary terms
+//! `I_(1-y)(df2/2, df1/2 + j)` so that it keeps relative accuracy when small.
 //!
 //! Start reading at [`ncf_cdf`].
 
