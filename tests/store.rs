@@ -261,3 +261,79 @@ fn load_period_resolves_many_level_combinations_across_imports() {
         );
     }
 }
+
+#[test]
+fn a_factor_added_later_reads_as_no_level_and_db_check_verifies_level_set_keys() {
+    // Rows imported before `supplier` was configured have no supplier level: "(none)", on a
+    // connection that has read nothing yet as well.
+    let dir = temp_dir("added-factor");
+    let cfg = config(&dir, CONFIG);
+    let mut store = Store::create(&cfg.plant.database, &cfg).unwrap();
+    let options = ImportOptions {
+        force: false,
+        started_at: started(),
+    };
+    let first = dir.join("first.csv");
+    std::fs::write(
+        &first,
+        "timestamp,characteristic,value,machine\n\
+         2026-11-30T07:00:00Z,bore,10.1,M1\n2026-11-30T07:01:00Z,bore,10.2,M2\n",
+    )
+    .unwrap();
+    let stream = ingest::read_file(&first, &cfg, None).unwrap();
+    assert_eq!(store.import(stream, &options).unwrap().accepted, 2);
+    drop(store);
+
+    let text = format!("{CONFIG}\n[[factor]]\nname = \"supplier\"\n");
+    let cfg = config(&dir, &text);
+    let mut store = Store::open(&cfg.plant.database).unwrap();
+    store.sync_config(&cfg).unwrap();
+    let second = dir.join("second.csv");
+    std::fs::write(
+        &second,
+        "timestamp,characteristic,value,machine,supplier\n\
+         2026-11-30T08:00:00Z,bore,10.3,M1,S7\n",
+    )
+    .unwrap();
+    let stream = ingest::read_file(&second, &cfg, None).unwrap();
+    assert_eq!(store.import(stream, &options).unwrap().accepted, 1);
+    drop(store);
+
+    let window = (
+        chrono::DateTime::from_timestamp(0, 0).unwrap(),
+        chrono::DateTime::from_timestamp(4_000_000_000, 0).unwrap(),
+    );
+    let names = ["bore".to_string()];
+    let fresh = Store::open(&cfg.plant.database).unwrap();
+    let frame = fresh.load_period(window.0, window.1, Some(&names)).unwrap();
+    assert_eq!(
+        frame_levels(&frame, 0),
+        [["M1", "(none)"], ["M2", "(none)"], ["M1", "S7"]]
+    );
+    assert!(fresh.integrity_check().unwrap().is_ok());
+    drop(fresh);
+
+    // A key that no longer lists its set's members is a problem `db check` names.
+    let conn = rusqlite::Connection::open(&cfg.plant.database).unwrap();
+    let changed = conn
+        .execute(
+            "UPDATE level_sets SET key = key || ',999' WHERE id = (SELECT min(id) FROM level_sets)",
+            [],
+        )
+        .unwrap();
+    assert_eq!(changed, 1);
+    drop(conn);
+    let store = Store::open(&cfg.plant.database).unwrap();
+    let report = store.integrity_check().unwrap();
+    assert!(!report.is_ok());
+    assert_eq!(
+        report.problems,
+        ["1 level sets have a key that does not list their members"]
+    );
+    // And the analysis refuses to read it rather than guess.
+    let err = store
+        .load_period(window.0, window.1, Some(&names))
+        .unwrap_err()
+        .to_string();
+    assert!(err.contains("does not list known level ids"), "{err}");
+}

@@ -176,6 +176,19 @@ impl Store {
         if empty_sets > 0 {
             problems.push(format!("{empty_sets} level sets have no members"));
         }
+        // The analysis reads a level set's members from its key (one row per set); the key
+        // must list exactly its member level ids, in factor order.
+        let key_mismatch = count(
+            &self.conn,
+            "SELECT count(*) FROM level_sets s WHERE s.key IS NOT \
+               (SELECT coalesce(group_concat(m.level_id, ',' ORDER BY m.factor_id), '') \
+                FROM level_set_members m WHERE m.level_set_id = s.id)",
+        )?;
+        if key_mismatch > 0 {
+            problems.push(format!(
+                "{key_mismatch} level sets have a key that does not list their members"
+            ));
+        }
         let mut counts = Vec::new();
         for table in [
             "characteristics",
