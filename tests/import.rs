@@ -268,7 +268,12 @@ fn big_csv(dir: &Path, rows: u64) -> PathBuf {
 #[test]
 fn killed_import_leaves_nothing_and_the_file_imports_again() {
     let dir = temp_dir("crash");
-    let csv = big_csv(&dir, 600_000);
+    // Large enough that the import's pages outgrow SQLite's page cache (64 MiB) and spill into
+    // the WAL well before the commit: a growing WAL then means the transaction is writing and
+    // not committed (with a smaller file the WAL grows only at the commit, which a fast machine
+    // finishes between two looks).
+    let rows = 3_000_000;
+    let csv = big_csv(&dir, rows);
     let config = format!("{}.plant.toml", csv.display());
     let o = run(&dir, &["init", "--config", &config]);
     assert!(o.status.success(), "{}", text(&o));
@@ -317,7 +322,7 @@ fn killed_import_leaves_nothing_and_the_file_imports_again() {
         .iter()
         .map(|c| c.n_obs)
         .sum();
-    assert_eq!(total, 600_000);
+    assert_eq!(total, rows);
     assert!(s.integrity_check().unwrap().is_ok());
 }
 
