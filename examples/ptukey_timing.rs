@@ -21,9 +21,9 @@ fn time<F: FnMut() -> f64>(label: &str, mut f: F) {
 }
 
 fn main() {
-    for &p in &[0.95, 0.99] {
+    for &p in &[0.95, 0.99, 0.999] {
         for &k in &[3.0, 5.0, 10.0, 20.0, 50.0] {
-            for &df in &[2.5, 12.0, 45.0, 100.0, 1000.0, 1e6, f64::INFINITY] {
+            for &df in &[1.0, 2.5, 12.0, 45.0, 100.0, 1000.0, 1e6, f64::INFINITY] {
                 time(&format!("qtukey p={p} k={k} df={df}"), || {
                     qtukey(p, k, df).unwrap()
                 });

@@ -127,8 +127,8 @@ pub fn ptukey_sf(q: f64, k: f64, df: f64) -> Stat<f64> {
 /// (`p = 0` gives 0, `p = 1` gives infinity).
 ///
 /// Starts from the approximation of Lund and Lund (1983, AS 190.2) and refines it by Newton steps
-/// on `ln P(Q <= q)` (for `p <= 0.5`) or `ln P(Q > q)` (for `p > 0.5`), so upper quantiles far in
-/// the tail (`1 - p = 1e-12`) are found to full accuracy.
+/// in `ln q` on `ln P(Q <= q)` (for `p <= 0.5`) or `ln P(Q > q)` (for `p > 0.5`), so upper
+/// quantiles far in the tail (`1 - p = 1e-12`) are found to full accuracy.
 pub fn qtukey(p: f64, k: f64, df: f64) -> Stat<f64> {
     check_args(k, df)?;
     if !(0.0..=1.0).contains(&p) {
@@ -181,12 +181,14 @@ fn quantile_by_newton(
                 "studentized range quantile did not converge (p = {p}, k = {k}, df = {df})"
             )));
         }
-        let mut step = error / slope;
-        // Keep the iterate positive and the step bounded.
-        if q - step <= 0.0 {
-            step = 0.5 * q;
-        }
-        q -= step;
+        // The step is taken in ln q: the log-tail is close to linear in ln q wherever a tail is
+        // a power of q (the upper tail at small df falls like q^-df, the lower tail near 0 rises
+        // like q^(k-1)), so a start that is far off (the Bonferroni start at df = 1 can be 300
+        // times too large) is corrected in one or two steps instead of by repeated halving.
+        let log_step = (error / (q * slope)).clamp(-5.0, 5.0);
+        let next = q * (-log_step).exp();
+        let step = q - next;
+        q = next;
         // Newton converges quadratically: a step below 1e-7 of q leaves an error of order 1e-14.
         // The FAST quadrature carries the iterate to within its own accuracy of the root (its
         // steps fall below 1e-6 of q); then ACCURATE steps until one is below 1e-7.
@@ -941,6 +943,26 @@ mod tests {
             let back = ptukey_cdf(q, k, df).unwrap();
             assert!(lre(back, p) >= 11.0, "{p} {k} {df}: {back}");
         }
+        // Every tail of the grid the quantile is timed over (heavy tails at df = 1 included,
+        // where the Newton start is hundreds of times too large): the quantile's tail
+        // probability, computed by the CDF or upper tail (held to scipy and mpmath elsewhere),
+        // gives back the one asked for. Measured: 14 digits or more.
+        let mut worst = f64::INFINITY;
+        for k in [2.0, 10.0, 50.0, 100.0] {
+            for df in [1.0, 1.5, 2.5, 5.0, 45.0] {
+                for p in [1e-10, 0.05, 0.9, 0.95, 0.99, 0.999, 1.0 - 1e-8] {
+                    let q = qtukey(p, k, df).unwrap();
+                    let digits = if p > 0.5 {
+                        lre(ptukey_sf(q, k, df).unwrap(), 1.0 - p)
+                    } else {
+                        lre(ptukey_cdf(q, k, df).unwrap(), p)
+                    };
+                    worst = worst.min(digits);
+                    assert!(digits >= 11.0, "p {p} k {k} df {df}: q {q}, {digits:.2}");
+                }
+            }
+        }
+        eprintln!("qtukey inverts its tails: worst {worst:.2} digits");
         // Far upper quantile: P(Q > q) = 1e-12.
         let q = qtukey(1.0 - 1e-12, 5.0, 30.0).unwrap();
         let tail = ptukey_sf(q, 5.0, 30.0).unwrap();
