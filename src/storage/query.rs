@@ -62,7 +62,7 @@ pub struct PeriodFrame {
 pub(crate) struct LevelCache {
     factor_ids: Vec<i64>,
     /// Level set id -> where its level ids (one per configured factor) start in `members`.
-    sets: FxMap<i64, usize>,
+    sets: IdIndex<usize>,
     members: Vec<i64>,
     /// Level id -> (factor id, name), for every level in the database when last read.
     levels: FxMap<i64, (i64, String)>,
@@ -191,9 +191,9 @@ impl Store {
         let n_factors = factors.len();
         let mut frame_levels = FrameLevels {
             n_factors,
-            level_index: vec![FxMap::default(); n_factors],
+            level_index: vec![IdIndex::default(); n_factors],
             level_order: vec![Vec::new(); n_factors],
-            set_slot: FxMap::default(),
+            set_slot: IdIndex::default(),
             set_levels: Vec::new(),
         };
 
@@ -220,11 +220,10 @@ impl Store {
             }
             drop(rows);
             // Resolve each level set of the frame once: from the cache, or fetched in bulk.
-            frame_levels.set_slot.reserve(sets.len());
             missing.clear();
             for &set in &sets {
-                if !frame_levels.set_slot.contains_key(&set) {
-                    if cache.sets.contains_key(&set) {
+                if frame_levels.set_slot.get(set).is_none() {
+                    if cache.sets.get(set).is_some() {
                         frame_levels.resolve(set, &cache);
                     } else {
                         missing.push(set);
@@ -285,34 +284,82 @@ impl Store {
     }
 }
 
+/// A map from database ids (rowids: allocated from 1 upwards, so dense) to small values: a
+/// vector indexed by the id, with a hash map for ids too large or negative to index by (which
+/// samewise never writes, but a database may hold). Resolving the level sets of a frame is a
+/// few of these look-ups per row; as vector reads they cost a fraction of hash look-ups.
+#[derive(Debug, Clone)]
+struct IdIndex<V> {
+    dense: Vec<Option<V>>,
+    sparse: FxMap<i64, V>,
+}
+
+/// Ids below this are indexed by vector (at most 16M slots).
+const DENSE_IDS: i64 = 1 << 24;
+
+impl<V> Default for IdIndex<V> {
+    fn default() -> Self {
+        IdIndex {
+            dense: Vec::new(),
+            sparse: FxMap::default(),
+        }
+    }
+}
+
+impl<V: Copy> IdIndex<V> {
+    fn get(&self, id: i64) -> Option<V> {
+        if (0..DENSE_IDS).contains(&id) {
+            self.dense.get(id as usize).copied().flatten()
+        } else {
+            self.sparse.get(&id).copied()
+        }
+    }
+
+    fn insert(&mut self, id: i64, value: V) {
+        if (0..DENSE_IDS).contains(&id) {
+            let i = id as usize;
+            if i >= self.dense.len() {
+                self.dense.resize(i + 1, None);
+            }
+            self.dense[i] = Some(value);
+        } else {
+            self.sparse.insert(id, value);
+        }
+    }
+}
+
 /// The levels of one frame: each level set resolved once to the frame's level indices.
 struct FrameLevels {
     n_factors: usize,
     /// Per factor: level id (0: no level) -> index in the frame's level list (assigned in
     /// first-seen order, re-sorted by name at the end).
-    level_index: Vec<FxMap<i64, u32>>,
+    level_index: Vec<IdIndex<u32>>,
     /// Per factor: the level ids in first-seen order.
     level_order: Vec<Vec<i64>>,
     /// Level set id -> where its `n_factors` level indices start in `set_levels`.
-    set_slot: FxMap<i64, usize>,
+    set_slot: IdIndex<usize>,
     set_levels: Vec<u32>,
 }
 
 impl FrameLevels {
     /// Assigns the frame's level indices to a level set held in `cache`.
     fn resolve(&mut self, set: i64, cache: &LevelCache) {
-        let start = cache.sets[&set];
+        let start = cache.sets.get(set).expect("resolved sets are cached");
         let base = self.set_levels.len();
         for (f, &level) in cache.members[start..start + self.n_factors]
             .iter()
             .enumerate()
         {
-            let next = self.level_index[f].len() as u32;
             let order = &mut self.level_order[f];
-            let i = *self.level_index[f].entry(level).or_insert_with(|| {
-                order.push(level);
-                next
-            });
+            let i = match self.level_index[f].get(level) {
+                Some(i) => i,
+                None => {
+                    let next = order.len() as u32;
+                    order.push(level);
+                    self.level_index[f].insert(level, next);
+                    next
+                }
+            };
             self.set_levels.push(i);
         }
         self.set_slot.insert(set, base);
@@ -320,7 +367,10 @@ impl FrameLevels {
 
     /// The frame's level index per factor of a resolved level set.
     fn levels_of(&self, set: i64) -> &[u32] {
-        let base = self.set_slot[&set];
+        let base = self
+            .set_slot
+            .get(set)
+            .expect("every set of the frame is resolved");
         &self.set_levels[base..base + self.n_factors]
     }
 }
@@ -360,7 +410,7 @@ fn fetch_members(
                 .get_ref(1)?
                 .as_str()
                 .map_err(|_| bad_key(set, "(not text)"))?;
-            let start = cache.sets[&set];
+            let start = cache.sets.get(set).expect("inserted above");
             for part in key.split(',').filter(|p| !p.is_empty()) {
                 let level_id: i64 = part.parse().map_err(|_| bad_key(set, key))?;
                 if !cache.levels.contains_key(&level_id) && !levels_read {
@@ -399,6 +449,34 @@ fn bad_key(set: i64, key: &str) -> Error {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn id_index_holds_dense_negative_and_huge_ids() {
+        let mut index = IdIndex::default();
+        for (id, value) in [
+            (1, 10u32),
+            (7, 70),
+            (-3, 30),
+            (DENSE_IDS + 5, 50),
+            (i64::MAX, 90),
+        ] {
+            index.insert(id, value);
+        }
+        index.insert(7, 71);
+        assert_eq!(index.get(1), Some(10));
+        assert_eq!(index.get(7), Some(71));
+        assert_eq!(index.get(-3), Some(30));
+        assert_eq!(index.get(DENSE_IDS + 5), Some(50));
+        assert_eq!(index.get(i64::MAX), Some(90));
+        for absent in [0, 2, 8, 1_000, -1, DENSE_IDS, i64::MIN] {
+            assert_eq!(index.get(absent), None, "{absent}");
+        }
+        assert_eq!(
+            index.dense.len(),
+            8,
+            "the vector grows only to the largest dense id"
+        );
+    }
 
     #[test]
     fn natural_order_compares_numbers() {
