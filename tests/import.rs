@@ -3,13 +3,13 @@
 //! Europe/Berlin (2026-03-29 02:00 -> 03:00, 2026-10-25 03:00 -> 02:00).
 
 use std::path::{Path, PathBuf};
-use std::process::{Command, Output};
+use std::process::Command;
 
 use samewise::config::Config;
 use samewise::storage::Store;
 
 mod common;
-use common::temp_dir;
+use common::{output_text as text, samewise as run, temp_dir};
 
 fn bin() -> &'static str {
     env!("CARGO_BIN_EXE_samewise")
@@ -35,23 +35,6 @@ unit = "mm"
 [[factor]]
 name = "machine"
 "#;
-
-fn run(dir: &Path, args: &[&str]) -> Output {
-    Command::new(bin())
-        .args(args)
-        .current_dir(dir)
-        .env_remove("SAMEWISE_CONFIG")
-        .output()
-        .unwrap()
-}
-
-fn text(o: &Output) -> String {
-    format!(
-        "{}{}",
-        String::from_utf8_lossy(&o.stdout),
-        String::from_utf8_lossy(&o.stderr)
-    )
-}
 
 fn setup(name: &str) -> PathBuf {
     let dir = temp_dir(name);

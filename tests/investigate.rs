@@ -3,33 +3,21 @@
 //! 2026-11-10 12:00 UTC, when an event is logged). All data here are invented.
 
 use std::path::Path;
-use std::process::{Command, Output};
+use std::process::Output;
 
 mod common;
-use common::temp_dir;
+use common::{samewise as run, samewise_ok as ok, temp_dir};
 
-fn bin() -> &'static str {
-    env!("CARGO_BIN_EXE_samewise")
+/// `samewise investigate bore_diameter --by machine` followed by `more`.
+fn investigate(dir: &Path, more: &[&str]) -> Output {
+    let args = [&["investigate", "bore_diameter", "--by", "machine"], more].concat();
+    run(dir, &args)
 }
 
-fn run(dir: &Path, args: &[&str]) -> Output {
-    Command::new(bin())
-        .args(args)
-        .current_dir(dir)
-        .env_remove("SAMEWISE_CONFIG")
-        .output()
-        .unwrap()
-}
-
-fn ok(dir: &Path, args: &[&str]) -> String {
-    let out = run(dir, args);
-    assert!(
-        out.status.success(),
-        "{args:?} failed:\n{}\n{}",
-        String::from_utf8_lossy(&out.stdout),
-        String::from_utf8_lossy(&out.stderr)
-    );
-    String::from_utf8(out.stdout).unwrap()
+/// [`investigate`] that must succeed: its standard output.
+fn investigate_ok(dir: &Path, more: &[&str]) -> String {
+    let args = [&["investigate", "bore_diameter", "--by", "machine"], more].concat();
+    ok(dir, &args)
 }
 
 const CONFIG: &str = r#"
@@ -96,32 +84,11 @@ fn write_plant(dir: &Path, with_m4_after: bool) {
 fn event_before_after_shows_the_moved_machine() {
     let dir = temp_dir("event");
     write_plant(&dir, false);
-    let text = ok(
-        &dir,
-        &[
-            "investigate",
-            "bore_diameter",
-            "--by",
-            "machine",
-            "--event",
-            "1",
-        ],
-    );
+    let text = investigate_ok(&dir, &["--event", "1"]);
     assert!(text.contains("new insert holder on M3"), "{text}");
     assert!(text.contains("Two-way ANOVA"), "{text}");
     assert!(text.contains("Caution"), "{text}");
-    let json = ok(
-        &dir,
-        &[
-            "investigate",
-            "bore_diameter",
-            "--by",
-            "machine",
-            "--event",
-            "1",
-            "--json",
-        ],
-    );
+    let json = investigate_ok(&dir, &["--event", "1", "--json"]);
     let v: serde_json::Value = serde_json::from_str(&json).unwrap();
     let groups = v["groups"].as_array().unwrap();
     assert_eq!(groups.len(), 3);
@@ -144,19 +111,9 @@ fn event_before_after_shows_the_moved_machine() {
 fn scan_without_event_finds_the_change_and_the_event() {
     let dir = temp_dir("scan");
     write_plant(&dir, false);
-    let json = ok(
+    let json = investigate_ok(
         &dir,
-        &[
-            "investigate",
-            "bore_diameter",
-            "--by",
-            "machine",
-            "--to",
-            "2026-11-21T00:00:00Z",
-            "--before",
-            "20d",
-            "--json",
-        ],
+        &["--to", "2026-11-21T00:00:00Z", "--before", "20d", "--json"],
     );
     let v: serde_json::Value = serde_json::from_str(&json).unwrap();
     let m3 = v["groups"]
@@ -181,17 +138,7 @@ fn scan_without_event_finds_the_change_and_the_event() {
 fn event_outside_the_data_is_a_clear_error() {
     let dir = temp_dir("outside");
     write_plant(&dir, false);
-    let out = run(
-        &dir,
-        &[
-            "investigate",
-            "bore_diameter",
-            "--by",
-            "machine",
-            "--at",
-            "2027-03-01T00:00:00Z",
-        ],
-    );
+    let out = investigate(&dir, &["--at", "2027-03-01T00:00:00Z"]);
     assert!(!out.status.success());
     let err = String::from_utf8_lossy(&out.stderr);
     assert!(err.contains("bore_diameter"), "{err}");
@@ -208,19 +155,7 @@ fn too_little_data_on_one_side_is_a_clear_error() {
     write_plant(&dir, false);
     // Change at 00:31 on the first day with one hour before it: each machine has only its 00:30
     // value before the change.
-    let out = run(
-        &dir,
-        &[
-            "investigate",
-            "bore_diameter",
-            "--by",
-            "machine",
-            "--at",
-            "2026-11-01T00:31:00Z",
-            "--before",
-            "1h",
-        ],
-    );
+    let out = investigate(&dir, &["--at", "2026-11-01T00:31:00Z", "--before", "1h"]);
     assert!(!out.status.success());
     let err = String::from_utf8_lossy(&out.stderr);
     assert!(err.contains("on each side"), "{err}");
@@ -232,17 +167,7 @@ fn too_little_data_on_one_side_is_a_clear_error() {
 fn group_on_one_side_only_is_named() {
     let dir = temp_dir("oneside");
     write_plant(&dir, true);
-    let text = ok(
-        &dir,
-        &[
-            "investigate",
-            "bore_diameter",
-            "--by",
-            "machine",
-            "--event",
-            "1",
-        ],
-    );
+    let text = investigate_ok(&dir, &["--event", "1"]);
     assert!(
         text.contains("machine M4: no values before the change"),
         "{text}"
@@ -266,30 +191,8 @@ fn bad_flags_are_clear_errors() {
     );
     assert!(!out.status.success());
     assert!(String::from_utf8_lossy(&out.stderr).contains("unknown factor"));
-    let out = run(
-        &dir,
-        &[
-            "investigate",
-            "bore_diameter",
-            "--by",
-            "machine",
-            "--event",
-            "99",
-        ],
-    );
+    let out = investigate(&dir, &["--event", "99"]);
     assert!(String::from_utf8_lossy(&out.stderr).contains("no logged event has id 99"));
-    let out = run(
-        &dir,
-        &[
-            "investigate",
-            "bore_diameter",
-            "--by",
-            "machine",
-            "--at",
-            "2026-11-10T12:00:00Z",
-            "--before",
-            "soon",
-        ],
-    );
+    let out = investigate(&dir, &["--at", "2026-11-10T12:00:00Z", "--before", "soon"]);
     assert!(String::from_utf8_lossy(&out.stderr).contains("--before soon"));
 }

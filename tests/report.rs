@@ -10,8 +10,7 @@
 #![allow(dead_code)]
 
 mod common;
-
-use std::path::Path;
+use common::samewise_ok as ok;
 
 use samewise::analysis::report;
 use samewise::model::PeriodKind;
@@ -37,17 +36,6 @@ fn checked_plant(name: &str) -> std::path::PathBuf {
         );
     }
     dir
-}
-
-fn ok(dir: &Path, args: &[&str]) -> String {
-    let out = common::samewise(dir, args);
-    assert_eq!(
-        out.status.code(),
-        Some(0),
-        "{args:?}: {}",
-        String::from_utf8_lossy(&out.stderr)
-    );
-    String::from_utf8(out.stdout).unwrap()
 }
 
 #[test]

@@ -107,11 +107,33 @@ pub fn invented_plant(dir: &Path, days: i64) -> PathBuf {
     config_path
 }
 
-/// Runs the binary in `dir` with `args`.
+/// Runs the binary in `dir` with `args` (the caller's `SAMEWISE_CONFIG` removed, so only the
+/// test's own configuration is read).
 pub fn samewise(dir: &Path, args: &[&str]) -> std::process::Output {
     std::process::Command::new(env!("CARGO_BIN_EXE_samewise"))
         .current_dir(dir)
         .args(args)
+        .env_remove("SAMEWISE_CONFIG")
         .output()
         .unwrap()
+}
+
+/// [`samewise`] that must succeed: its standard output (stdout and stderr shown on failure).
+pub fn samewise_ok(dir: &Path, args: &[&str]) -> String {
+    let out = samewise(dir, args);
+    assert!(
+        out.status.success(),
+        "{args:?} failed:\n{}",
+        output_text(&out)
+    );
+    String::from_utf8(out.stdout).unwrap()
+}
+
+/// Standard output followed by standard error, for messages.
+pub fn output_text(out: &std::process::Output) -> String {
+    format!(
+        "{}{}",
+        String::from_utf8_lossy(&out.stdout),
+        String::from_utf8_lossy(&out.stderr)
+    )
 }
