@@ -874,44 +874,27 @@ pub fn write_story_charts(
     let all_to = month.end;
     let size = Size::DEFAULT;
     let (trend_c, trend_f) = story.trend;
-    match trend_input(
-        store,
-        config,
-        trend_c,
-        trend_f,
-        PeriodKind::Day,
-        all_from,
-        all_to,
-    ) {
-        Ok(t) => sink.save(
-            &format!("trend_{trend_c}_by_{trend_f}"),
-            report::render_trend(&t, Format::Svg, size),
-            report::render_trend(&t, Format::Png, size),
-        )?,
-        Err(e) => sink.skipped.push(format!("trend: {e}")),
-    }
-    match share_input(
-        store,
-        config,
-        trend_c,
-        trend_f,
-        PeriodKind::Day,
-        all_from,
-        all_to,
-    ) {
-        Ok(s) => sink.save(
-            &format!("share_{trend_c}_by_{trend_f}"),
-            report::render_share(&s, Format::Svg, size),
-            report::render_share(&s, Format::Png, size),
-        )?,
-        Err(e) => sink.skipped.push(format!("share: {e}")),
-    }
+    let day = PeriodKind::Day;
+    sink.render_or_skip(
+        "trend",
+        &format!("trend_{trend_c}_by_{trend_f}"),
+        trend_input(store, config, trend_c, trend_f, day, all_from, all_to),
+        |_| size,
+        report::render_trend,
+    )?;
+    sink.render_or_skip(
+        "share",
+        &format!("share_{trend_c}_by_{trend_f}"),
+        share_input(store, config, trend_c, trend_f, day, all_from, all_to),
+        |_| size,
+        report::render_share,
+    )?;
     let grid = grid_input(store, config, month)?;
-    let gsize = report::grid_natural_size(&grid);
-    sink.save(
+    sink.render(
         &format!("grid_{}", month.label),
-        report::render_grid(&grid, Format::Svg, gsize),
-        report::render_grid(&grid, Format::Png, gsize),
+        &grid,
+        report::grid_natural_size(&grid),
+        report::render_grid,
     )?;
     let calendar = PlantCalendar::new(config);
     let loaded = load_runs(store, PeriodKind::Day, month.start, month.end)?;
@@ -927,14 +910,13 @@ pub fn write_story_charts(
     match flagged_day {
         Some(label) => {
             let period = calendar.parse_period(&label)?;
-            match detail_input(store, config, detail_c, detail_f, &period) {
-                Ok(d) => sink.save(
-                    &format!("detail_{detail_c}_by_{detail_f}_{label}"),
-                    report::render_detail(&d, Format::Svg, size),
-                    report::render_detail(&d, Format::Png, size),
-                )?,
-                Err(e) => sink.skipped.push(format!("detail: {e}")),
-            }
+            sink.render_or_skip(
+                "detail",
+                &format!("detail_{detail_c}_by_{detail_f}_{label}"),
+                detail_input(store, config, detail_c, detail_f, &period),
+                |_| size,
+                report::render_detail,
+            )?;
         }
         None => sink
             .skipped
@@ -946,21 +928,20 @@ pub fn write_story_charts(
         .into_iter()
         .find(|e| e.characteristic.as_deref() == Some(event_c));
     match event {
-        Some(e) => match before_after_input(
-            store,
-            config,
-            event_c,
-            event_f,
-            e.id,
-            Duration::days(EVENT_WINDOW_DAYS),
-        ) {
-            Ok(b) => sink.save(
-                &format!("before_after_{event_c}_event_{}", e.id),
-                report::render_before_after(&b, Format::Svg, report::before_after_natural_size(&b)),
-                report::render_before_after(&b, Format::Png, report::before_after_natural_size(&b)),
-            )?,
-            Err(e) => sink.skipped.push(format!("before/after: {e}")),
-        },
+        Some(e) => sink.render_or_skip(
+            "before/after",
+            &format!("before_after_{event_c}_event_{}", e.id),
+            before_after_input(
+                store,
+                config,
+                event_c,
+                event_f,
+                e.id,
+                Duration::days(EVENT_WINDOW_DAYS),
+            ),
+            report::before_after_natural_size,
+            report::render_before_after,
+        )?,
         None => sink
             .skipped
             .push(format!("before/after: no event names {event_c}")),
@@ -974,7 +955,38 @@ struct Sink<'a> {
     skipped: Vec<String>,
 }
 
+/// How a chart input is drawn in one format at one size.
+type Render<T> = fn(&T, Format, Size) -> Result<Vec<u8>>;
+
 impl Sink<'_> {
+    /// Draws `input` as SVG and as PNG at `size` and saves both under `name`.
+    fn render<T>(&mut self, name: &str, input: &T, size: Size, render: Render<T>) -> Result<()> {
+        self.save(
+            name,
+            render(input, Format::Svg, size),
+            render(input, Format::Png, size),
+        )
+    }
+
+    /// [`Sink::render`] for an input that may be unavailable: its reason is kept among the
+    /// skipped charts, after `what`.
+    fn render_or_skip<T>(
+        &mut self,
+        what: &str,
+        name: &str,
+        input: Result<T>,
+        size: impl Fn(&T) -> Size,
+        render: Render<T>,
+    ) -> Result<()> {
+        match input {
+            Ok(input) => self.render(name, &input, size(&input), render),
+            Err(e) => {
+                self.skipped.push(format!("{what}: {e}"));
+                Ok(())
+            }
+        }
+    }
+
     fn save(&mut self, name: &str, svg: Result<Vec<u8>>, png: Result<Vec<u8>>) -> Result<()> {
         match (svg, png) {
             (Ok(svg), Ok(png)) => {
