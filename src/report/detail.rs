@@ -8,8 +8,8 @@ use statrs::distribution::{ContinuousCDF, Normal};
 
 use super::draw::{
     check_finite, draw_ref_lines, format_number, frame, header, limit_legend, limit_lines,
-    padded_range, sizes, y_axis, Align, Canvas, DrawResult, Drawable, Marker, Palette, RefLine,
-    Swatch, TextOpts, INK,
+    padded_range, require_room, sizes, y_axis, Align, Canvas, DrawResult, Drawable, Marker,
+    Palette, RefLine, Swatch, TextOpts, INK,
 };
 use super::{DetailInput, Layout, Panel, Size};
 
@@ -127,12 +127,7 @@ impl Drawable for Detail<'_> {
         let y = header(c, w, &title, &subtitle, &legend)?;
         let top = y + 34.0;
         let bottom = h - 92.0;
-        if bottom - top < 80.0 {
-            return Err(format!(
-                "{}x{} pixels leave no room for the plot; make the chart taller",
-                size.width, size.height
-            ));
-        }
+        require_room(top, bottom, size)?;
         let split = (w * 0.6).round();
         let all_values = d
             .groups

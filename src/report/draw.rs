@@ -132,6 +132,17 @@ pub fn time_to_x(t: DateTime<Utc>) -> f64 {
     t.timestamp_millis() as f64 / 86_400_000.0
 }
 
+/// Refuses a chart whose plotting area, from `top` to `bottom` pixels, is too short to read.
+pub fn require_room(top: f64, bottom: f64, size: Size) -> DrawResult {
+    if bottom - top < 80.0 {
+        return Err(format!(
+            "{}x{} pixels leave no room for the plot; make the chart taller",
+            size.width, size.height
+        ));
+    }
+    Ok(())
+}
+
 /// The instant of a time-chart x coordinate (to the millisecond).
 pub fn x_to_time(x: f64) -> DateTime<Utc> {
     let ms = (x * 86_400_000.0).round() as i64;
@@ -756,6 +767,21 @@ pub struct TimeAxis {
 }
 
 impl TimeAxis {
+    /// The axis of the given periods, each as (start, end, label, state).
+    pub fn from_periods<'a>(
+        periods: impl IntoIterator<Item = (DateTime<Utc>, DateTime<Utc>, &'a str, super::FlagState)>,
+    ) -> TimeAxis {
+        TimeAxis {
+            periods: periods
+                .into_iter()
+                .map(|(start, end, label, state)| {
+                    let (a, b) = (time_to_x(start), time_to_x(end));
+                    (a, b, (a + b) / 2.0, label.to_string(), state)
+                })
+                .collect(),
+        }
+    }
+
     /// Draws flagged-period bands inside the panel, vertical grid lines at the labelled periods,
     /// tick labels (period labels, thinned to fit) and flag marks under the axis.
     pub fn draw_background<DB: DrawingBackend>(&self, c: &Canvas<DB>, p: &Panel) -> DrawResult {

@@ -5,9 +5,9 @@
 use plotters::prelude::DrawingBackend;
 
 use super::draw::{
-    check_finite, draw_events, draw_ref_lines, flag_event_legend, frame, header, sizes, time_to_x,
-    y_axis, Align, Canvas, DrawResult, Drawable, Marker, Palette, RefLine, Swatch, TextOpts,
-    TimeAxis, INK,
+    check_finite, draw_events, draw_ref_lines, flag_event_legend, frame, header, require_room,
+    sizes, time_to_x, y_axis, Align, Canvas, DrawResult, Drawable, Marker, Palette, RefLine,
+    Swatch, TextOpts, TimeAxis, INK,
 };
 use super::trend::time_range;
 use super::{Layout, Panel, ShareInput, Size};
@@ -132,22 +132,12 @@ impl Drawable for Share<'_> {
             y_min: 0.0,
             y_max,
         };
-        if panel.bottom - panel.top < 80.0 {
-            return Err(format!(
-                "{}x{} pixels leave no room for the plot; make the chart taller",
-                size.width, size.height
-            ));
-        }
-        let axis = TimeAxis {
-            periods: s
-                .periods
+        require_room(panel.top, panel.bottom, size)?;
+        let axis = TimeAxis::from_periods(
+            s.periods
                 .iter()
-                .map(|p| {
-                    let (a, b) = (time_to_x(p.start), time_to_x(p.end));
-                    (a, b, (a + b) / 2.0, p.label.clone(), p.state)
-                })
-                .collect(),
-        };
+                .map(|p| (p.start, p.end, p.label.as_str(), p.state)),
+        );
         axis.draw_background(c, &panel)?;
         y_axis(c, &panel, &|v, _| format!("{v:.0}%"), true)?;
         if let Some(m) = s.material_share {

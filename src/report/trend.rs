@@ -5,8 +5,8 @@ use plotters::prelude::DrawingBackend;
 
 use super::draw::{
     check_finite, draw_events, draw_ref_lines, flag_event_legend, format_number, frame, group_dash,
-    header, limit_legend, limit_lines, padded_range, sizes, time_to_x, y_axis, Align, Canvas,
-    DrawResult, Drawable, Marker, Palette, Swatch, TextOpts, TimeAxis,
+    header, limit_legend, limit_lines, padded_range, require_room, sizes, time_to_x, y_axis, Align,
+    Canvas, DrawResult, Drawable, Marker, Palette, Swatch, TextOpts, TimeAxis,
 };
 use super::{Layout, Panel, Size, TrendInput};
 
@@ -141,23 +141,13 @@ impl Drawable for Trend<'_> {
             y_min,
             y_max,
         };
-        if panel.bottom - panel.top < 80.0 {
-            return Err(format!(
-                "{}x{} pixels leave no room for the plot; make the chart taller",
-                size.width, size.height
-            ));
-        }
+        require_room(panel.top, panel.bottom, size)?;
 
-        let axis = TimeAxis {
-            periods: t
-                .periods
+        let axis = TimeAxis::from_periods(
+            t.periods
                 .iter()
-                .map(|p| {
-                    let (s, e) = (time_to_x(p.start), time_to_x(p.end));
-                    (s, e, (s + e) / 2.0, p.label.clone(), p.state)
-                })
-                .collect(),
-        };
+                .map(|p| (p.start, p.end, p.label.as_str(), p.state)),
+        );
         axis.draw_background(c, &panel)?;
         y_axis(c, &panel, &format_number, true)?;
         draw_ref_lines(c, &panel, &limit_lines(&t.limits, 5), true)?;
