@@ -581,3 +581,37 @@ fn month_report_survives_a_chart_that_cannot_be_drawn() {
     assert!(html.contains("no periods to draw"));
     assert_eq!(html.matches("<svg ").count(), 3);
 }
+
+#[test]
+fn too_short_a_chart_is_refused_with_the_size_named() {
+    // Trend, share and detail need a plotting area of at least 80 pixels between header and
+    // axis labels; 1280x200 leaves less, which each names instead of drawing a squashed plot.
+    let size = Size::new(1280, 200);
+    let errors = [
+        draw_trend(
+            &inputs::trend("bore diameter", "machine", &LEVELS, 5),
+            Format::Svg,
+            size,
+        )
+        .unwrap_err(),
+        draw_share(
+            &inputs::share("bore diameter", "machine", 5),
+            Format::Svg,
+            size,
+        )
+        .unwrap_err(),
+        draw_detail(&inputs::detail(&LEVELS), Format::Svg, size).unwrap_err(),
+    ];
+    for err in errors {
+        let text = err.to_string();
+        assert!(text.contains("1280x200 pixels leave no room"), "{text}");
+        assert!(text.contains("make the chart taller"), "{text}");
+    }
+    // The default size has room for each.
+    assert!(draw_trend(
+        &inputs::trend("bore diameter", "machine", &LEVELS, 5),
+        Format::Svg,
+        Size::DEFAULT
+    )
+    .is_ok());
+}
