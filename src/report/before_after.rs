@@ -268,24 +268,7 @@ impl Drawable for BeforeAfter<'_> {
             ((last.left + last.right) / 2.0, last.bottom + 42.0),
             TextOpts::new(sizes::AXIS).align(Align::Center),
         )?;
-        let unit = if b.unit.is_empty() {
-            String::new()
-        } else {
-            format!(" ({})", b.unit)
-        };
-        let y_title = c.fit_text(
-            &format!("{}{}", b.characteristic, unit),
-            TextOpts::new(sizes::AXIS),
-            bottom - top,
-        )?;
-        c.text(
-            &y_title,
-            (22.0, (top + bottom) / 2.0),
-            TextOpts::new(sizes::AXIS)
-                .vertical()
-                .align(Align::Center)
-                .middle(),
-        )?;
+        c.value_axis_title(&b.characteristic, &b.unit, top, bottom)?;
         Ok(Layout {
             width: size.width,
             height: size.height,

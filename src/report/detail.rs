@@ -8,8 +8,8 @@ use statrs::distribution::{ContinuousCDF, Normal};
 
 use super::draw::{
     check_finite, draw_ref_lines, format_number, frame, header, limit_legend, limit_lines,
-    padded_range, require_room, sizes, y_axis, Align, Canvas, DrawResult, Drawable, Marker,
-    Palette, RefLine, Swatch, TextOpts, INK,
+    padded_range, require_room, sizes, unit_suffix, y_axis, Align, Canvas, DrawResult, Drawable,
+    Marker, Palette, RefLine, Swatch, TextOpts, INK,
 };
 use super::{DetailInput, Layout, Panel, Size};
 
@@ -208,24 +208,8 @@ impl Drawable for Detail<'_> {
             )?;
         }
         frame(c, &left_panel)?;
-        let unit = if d.unit.is_empty() {
-            String::new()
-        } else {
-            format!(" ({})", d.unit)
-        };
-        let y_title = c.fit_text(
-            &format!("{}{}", d.characteristic, unit),
-            TextOpts::new(sizes::AXIS),
-            bottom - top,
-        )?;
-        c.text(
-            &y_title,
-            (22.0, (top + bottom) / 2.0),
-            TextOpts::new(sizes::AXIS)
-                .vertical()
-                .align(Align::Center)
-                .middle(),
-        )?;
+        let unit = unit_suffix(&d.unit);
+        c.value_axis_title(&d.characteristic, &d.unit, top, bottom)?;
         c.text(
             &d.factor,
             ((left_panel.left + left_panel.right) / 2.0, bottom + 60.0),

@@ -132,6 +132,15 @@ pub fn time_to_x(t: DateTime<Utc>) -> f64 {
     t.timestamp_millis() as f64 / 86_400_000.0
 }
 
+/// `" (mm)"` for a unit, nothing without one.
+pub fn unit_suffix(unit: &str) -> String {
+    if unit.is_empty() {
+        String::new()
+    } else {
+        format!(" ({unit})")
+    }
+}
+
 /// Refuses a chart whose plotting area, from `top` to `bottom` pixels, is too short to read.
 pub fn require_room(top: f64, bottom: f64, size: Size) -> DrawResult {
     if bottom - top < 80.0 {
@@ -442,6 +451,30 @@ impl<'a, DB: DrawingBackend> Canvas<'a, DB> {
         let style = self.style(o);
         let (w, _) = self.area.estimate_text_size(s, &style).map_err(de)?;
         Ok(w as f64)
+    }
+
+    /// The vertical title of a value axis at the chart's left edge: the characteristic with its
+    /// unit, shortened to fit the height from `top` to `bottom`.
+    pub fn value_axis_title(
+        &self,
+        characteristic: &str,
+        unit: &str,
+        top: f64,
+        bottom: f64,
+    ) -> DrawResult {
+        let title = self.fit_text(
+            &format!("{characteristic}{}", unit_suffix(unit)),
+            TextOpts::new(sizes::AXIS),
+            bottom - top,
+        )?;
+        self.text(
+            &title,
+            (22.0, (top + bottom) / 2.0),
+            TextOpts::new(sizes::AXIS)
+                .vertical()
+                .align(Align::Center)
+                .middle(),
+        )
     }
 
     /// Text shortened with "..." until it fits in `max_width`.

@@ -188,24 +188,7 @@ impl Drawable for Trend<'_> {
         let below = axis.draw_labels(c, &panel)?;
 
         // Axis titles.
-        let unit = if t.unit.is_empty() {
-            String::new()
-        } else {
-            format!(" ({})", t.unit)
-        };
-        let y_title = c.fit_text(
-            &format!("{}{}", t.characteristic, unit),
-            TextOpts::new(sizes::AXIS),
-            panel.bottom - panel.top,
-        )?;
-        c.text(
-            &y_title,
-            (22.0, (panel.top + panel.bottom) / 2.0),
-            TextOpts::new(sizes::AXIS)
-                .vertical()
-                .align(Align::Center)
-                .middle(),
-        )?;
+        c.value_axis_title(&t.characteristic, &t.unit, panel.top, panel.bottom)?;
         c.text(
             "period (plant calendar)",
             ((panel.left + panel.right) / 2.0, below + 8.0),
