@@ -1037,25 +1037,13 @@ pub(crate) fn check_label(text: &str) -> std::result::Result<String, String> {
 /// The name of a characteristic, factor, shift, layout or schedule: as [`check_label`], and no
 /// `=` or `,` (they separate `--where machine=M4,M5`).
 pub(crate) fn check_name(text: &str) -> std::result::Result<String, String> {
-    let name = text.trim();
-    if name.is_empty() {
-        return Err("empty name".to_string());
-    }
-    if name.chars().count() > 200 {
-        return Err(format!("\"{name}\" is longer than 200 characters"));
-    }
-    if name.chars().any(|c| c.is_control()) {
-        return Err(format!(
-            "\"{}\" contains a control character",
-            name.escape_default()
-        ));
-    }
+    let name = check_label(text)?;
     if name.contains('=') || name.contains(',') {
         return Err(format!(
             "\"{name}\" contains '=' or ',' (they separate filters)"
         ));
     }
-    Ok(name.to_string())
+    Ok(name)
 }
 
 #[cfg(test)]
