@@ -335,23 +335,7 @@ pub fn run(args: &CompareArgs) -> Result<std::process::ExitCode> {
 // ---------------------------------------------------------------------------------------------
 // JSON
 
-/// A finite number, or null (callers pair a null with a reason).
-fn num(x: f64) -> Value {
-    serde_json::Number::from_f64(x).map_or(Value::Null, Value::Number)
-}
-
-/// Inserts `key: value` or `key: null, key_reason: reason`.
-fn put<T>(map: &mut Map<String, Value>, key: &str, stat: &Stat<T>, f: impl Fn(&T) -> Value) {
-    match stat {
-        Ok(v) => {
-            map.insert(key.to_string(), f(v));
-        }
-        Err(e) => {
-            map.insert(key.to_string(), Value::Null);
-            map.insert(format!("{key}_reason"), Value::String(e.reason.clone()));
-        }
-    }
-}
+use super::format::{num, put};
 
 fn test_json(r: &TestResult, statistic_name: &str) -> Value {
     let mut m = Map::new();

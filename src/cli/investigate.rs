@@ -196,23 +196,7 @@ pub struct NearEvent {
 // ---------------------------------------------------------------------------------------------
 // Number formatting
 
-use super::format::{pval, sig};
-
-fn num(x: f64) -> Value {
-    serde_json::Number::from_f64(x).map_or(Value::Null, Value::Number)
-}
-
-fn put<T>(map: &mut Map<String, Value>, key: &str, stat: &Stat<T>, f: impl Fn(&T) -> Value) {
-    match stat {
-        Ok(v) => {
-            map.insert(key.to_string(), f(v));
-        }
-        Err(e) => {
-            map.insert(key.to_string(), Value::Null);
-            map.insert(format!("{key}_reason"), Value::String(e.reason.clone()));
-        }
-    }
-}
+use super::format::{num, put, pval, sig};
 
 // ---------------------------------------------------------------------------------------------
 // Before/after: JSON
@@ -650,6 +634,23 @@ mod tests {
         (v, t, g, vec!["L1".into(), "L2".into()])
     }
 
+    /// The [`data`] as the series of characteristic "bore_d" by factor "line".
+    fn series<'a>(
+        values: &'a [f64],
+        ts_ms: &'a [i64],
+        group_idx: &'a [u32],
+        groups: &'a [String],
+    ) -> GroupedSeries<'a> {
+        GroupedSeries {
+            characteristic: "bore_d",
+            factor: "line",
+            values,
+            ts_ms,
+            group_idx,
+            groups,
+        }
+    }
+
     fn ctx() -> Context {
         Context {
             characteristic: "bore_d".into(),
@@ -665,14 +666,7 @@ mod tests {
     #[test]
     fn compare_views_carry_every_part_and_the_caution() {
         let (v, t, g, names) = data();
-        let s = GroupedSeries {
-            characteristic: "bore_d",
-            factor: "line",
-            values: &v,
-            ts_ms: &t,
-            group_idx: &g,
-            groups: &names,
-        };
+        let s = series(&v, &t, &g, &names);
         let c = compare(&s, 12_000, &CompareOptions::default()).unwrap();
         let text = render_compare(&ctx(), &c);
         for part in [
@@ -705,14 +699,7 @@ mod tests {
     #[test]
     fn scan_views_list_change_points_and_events() {
         let (v, t, g, names) = data();
-        let s = GroupedSeries {
-            characteristic: "bore_d",
-            factor: "line",
-            values: &v,
-            ts_ms: &t,
-            group_idx: &g,
-            groups: &names,
-        };
+        let s = series(&v, &t, &g, &names);
         let scans = scan_groups(&s, &ScanOptions::default()).unwrap();
         let near = vec![
             vec![],
