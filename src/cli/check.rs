@@ -139,6 +139,21 @@ pub fn num(x: Option<f64>) -> String {
     }
 }
 
+/// The leading test of a row in a table column: `Welch F`, `F`, or `-` when none ran.
+pub fn leading(t: &TestRow) -> &'static str {
+    match t.leading_method.as_deref() {
+        Some("welch") => "Welch F",
+        Some(_) => "F",
+        None => "-",
+    }
+}
+
+/// The between-group share of a row as a percentage with one decimal, or `-`.
+pub fn share(t: &TestRow) -> String {
+    t.share_between
+        .map_or("-".to_string(), |s| format!("{:.1}%", 100.0 * s))
+}
+
 /// The standing-out group in words: `M2 +0.0113 (1.1 SD, 5.6% tol)`.
 pub fn standout(t: &TestRow) -> String {
     let Some(level) = &t.standout_level else {
@@ -218,16 +233,11 @@ pub fn print_summary(
             state::label(&t.state),
             t.characteristic,
             t.factor,
-            match t.leading_method.as_deref() {
-                Some("welch") => "Welch F",
-                Some(_) => "F",
-                None => "-",
-            },
+            leading(t),
             num(t.leading_statistic),
             num(t.leading_p),
             num(t.q_value),
-            t.share_between
-                .map_or("-".to_string(), |s| format!("{:.1}%", 100.0 * s)),
+            share(t),
             standout(t),
             if t.is_new { "new" } else { "" }
         )?;

@@ -7,7 +7,7 @@ use std::process::ExitCode;
 
 use clap::Args;
 
-use super::check::{num, standout};
+use super::check::{leading, num, share, standout};
 use crate::analysis::state;
 use crate::storage::runs;
 use crate::{Error, Result};
@@ -77,16 +77,11 @@ pub fn run(args: &HistoryArgs) -> Result<ExitCode> {
                 out,
                 "{:<24} {:<8} {:>9} {:>9} {:>9} {:>8}  {:<22} {}",
                 p.run.header.period_label,
-                match t.leading_method.as_deref() {
-                    Some("welch") => "Welch F",
-                    Some(_) => "F",
-                    None => "-",
-                },
+                leading(t),
                 num(t.leading_statistic),
                 num(t.leading_p),
                 num(t.q_value),
-                t.share_between
-                    .map_or("-".to_string(), |s| format!("{:.1}%", 100.0 * s)),
+                share(t),
                 state::label(&t.state),
                 standout(t)
             )?;
