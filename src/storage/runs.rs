@@ -565,19 +565,30 @@ fn test_from_row(r: &Row<'_>, o: usize) -> rusqlite::Result<TestRow> {
     })
 }
 
+/// The rows `sql` selects with the run id bound to `?1`, each read by `read`.
+fn rows_of_run<T>(
+    conn: &Connection,
+    sql: &str,
+    run_id: i64,
+    read: impl FnMut(&Row<'_>) -> rusqlite::Result<T>,
+) -> Result<Vec<T>> {
+    let mut st = conn.prepare(sql)?;
+    let rows = st
+        .query_map(params![run_id], read)?
+        .collect::<rusqlite::Result<Vec<_>>>()?;
+    Ok(rows)
+}
+
 /// Reads the full content of one run.
 pub fn run_content(conn: &Connection, run_id: i64) -> Result<RunContent> {
     let sql = format!("SELECT {TEST_COLUMNS} FROM run_result WHERE run_id = ?1 ORDER BY test_idx");
-    let mut st = conn.prepare(&sql)?;
-    let tests = st
-        .query_map(params![run_id], |r| test_from_row(r, 0))?
-        .collect::<rusqlite::Result<Vec<_>>>()?;
-    let mut st = conn.prepare(
+    let tests = rows_of_run(conn, &sql, run_id, |r| test_from_row(r, 0))?;
+    let groups = rows_of_run(
+        conn,
         "SELECT test_idx, group_idx, level, n, mean, sd, min, max, origin, diff_from_grand
          FROM run_group WHERE run_id = ?1 ORDER BY test_idx, group_idx",
-    )?;
-    let groups = st
-        .query_map(params![run_id], |r| {
+        run_id,
+        |r| {
             Ok(GroupRow {
                 test_idx: r.get(0)?,
                 group_idx: r.get(1)?,
@@ -590,14 +601,14 @@ pub fn run_content(conn: &Connection, run_id: i64) -> Result<RunContent> {
                 origin: r.get(8)?,
                 diff_from_grand: r.get(9)?,
             })
-        })?
-        .collect::<rusqlite::Result<Vec<_>>>()?;
-    let mut st = conn.prepare(
+        },
+    )?;
+    let pairs = rows_of_run(
+        conn,
         "SELECT test_idx, level_a, level_b, method, diff, se, statistic, df, p_adj, ci_low, ci_high
          FROM run_pair WHERE run_id = ?1 ORDER BY test_idx, rowid",
-    )?;
-    let pairs = st
-        .query_map(params![run_id], |r| {
+        run_id,
+        |r| {
             Ok(PairRow {
                 test_idx: r.get(0)?,
                 level_a: r.get(1)?,
@@ -611,8 +622,8 @@ pub fn run_content(conn: &Connection, run_id: i64) -> Result<RunContent> {
                 ci_low: r.get(9)?,
                 ci_high: r.get(10)?,
             })
-        })?
-        .collect::<rusqlite::Result<Vec<_>>>()?;
+        },
+    )?;
     Ok(RunContent {
         tests,
         groups,
@@ -704,13 +715,13 @@ pub fn flagged_tests(
     let Some(run) = latest_complete_run(conn, period_kind, period_label)? else {
         return Ok(None);
     };
-    let mut st = conn.prepare(
+    let rows = rows_of_run(
+        conn,
         "SELECT characteristic, factor FROM run_result
          WHERE run_id = ?1 AND state IN ('differs_material', 'differs')",
+        run.run_id,
+        |r| Ok((r.get(0)?, r.get(1)?)),
     )?;
-    let rows = st
-        .query_map(params![run.run_id], |r| Ok((r.get(0)?, r.get(1)?)))?
-        .collect::<rusqlite::Result<Vec<_>>>()?;
     Ok(Some(rows))
 }
 
