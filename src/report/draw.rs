@@ -477,6 +477,13 @@ impl<'a, DB: DrawingBackend> Canvas<'a, DB> {
         )
     }
 
+    /// A vertical interval at `x` from `y_low` to `y_high` (pixels), with 10-pixel caps.
+    pub fn interval_bar(&self, x: f64, y_low: f64, y_high: f64, color: RGBColor) -> DrawResult {
+        self.line((x, y_low), (x, y_high), color, 2, None)?;
+        self.line((x - 5.0, y_low), (x + 5.0, y_low), color, 2, None)?;
+        self.line((x - 5.0, y_high), (x + 5.0, y_high), color, 2, None)
+    }
+
     /// Text shortened with "..." until it fits in `max_width`.
     pub fn fit_text(&self, s: &str, opts: TextOpts, max_width: f64) -> DrawResult<String> {
         if self.text_width(s, opts)? <= max_width {
@@ -755,6 +762,25 @@ pub fn flag_mark<DB: DrawingBackend>(
     }
 }
 
+/// [`header`] followed by the strip where the event labels go when there are events: returns
+/// the top of that strip and the y below it, where the panel starts.
+pub fn header_with_event_strip<DB: DrawingBackend>(
+    c: &Canvas<DB>,
+    width: f64,
+    title: &str,
+    subtitle: &str,
+    legend: &[(Swatch, String)],
+    has_events: bool,
+) -> DrawResult<(f64, f64)> {
+    let strip_top = header(c, width, title, subtitle, legend)?;
+    let below = if has_events {
+        strip_top + 52.0
+    } else {
+        strip_top
+    };
+    Ok((strip_top, below))
+}
+
 /// Title, subtitle and a wrapped legend across the top. Returns the y below the header.
 pub fn header<DB: DrawingBackend>(
     c: &Canvas<DB>,
@@ -830,6 +856,21 @@ impl TimeAxis {
             }
         }
         Ok(())
+    }
+
+    /// The title under the time axis, centred on the panel, at `below` (as [`Self::draw_labels`]
+    /// returns it).
+    pub fn draw_title<DB: DrawingBackend>(
+        &self,
+        c: &Canvas<DB>,
+        p: &Panel,
+        below: f64,
+    ) -> DrawResult {
+        c.text(
+            "period (plant calendar)",
+            ((p.left + p.right) / 2.0, below + 8.0),
+            TextOpts::new(sizes::AXIS).align(Align::Center),
+        )
     }
 
     /// Tick labels and flag marks below the axis. Returns the y below the labels.

@@ -5,9 +5,9 @@
 use plotters::prelude::DrawingBackend;
 
 use super::draw::{
-    check_finite, draw_events, draw_ref_lines, flag_event_legend, frame, header, require_room,
-    sizes, time_to_x, y_axis, Align, Canvas, DrawResult, Drawable, Marker, Palette, RefLine,
-    Swatch, TextOpts, TimeAxis, INK,
+    check_finite, draw_events, draw_ref_lines, flag_event_legend, frame, header_with_event_strip,
+    require_room, sizes, time_to_x, y_axis, Align, Canvas, DrawResult, Drawable, Marker, Palette,
+    RefLine, Swatch, TextOpts, TimeAxis, INK,
 };
 use super::trend::time_range;
 use super::{Layout, Panel, ShareInput, Size};
@@ -106,11 +106,8 @@ impl Drawable for Share<'_> {
             s.periods[0].label,
             s.periods[s.periods.len() - 1].label
         );
-        let mut y = header(c, w, &title, &subtitle, &legend)?;
-        let strip_top = y;
-        if !s.events.is_empty() {
-            y += 52.0;
-        }
+        let (strip_top, y) =
+            header_with_event_strip(c, w, &title, &subtitle, &legend, !s.events.is_empty())?;
         let (x_min, x_max) = time_range(s.periods.iter().map(|p| (p.start, p.end)), &s.events);
         // The y axis runs from 0 % to a round value above the data and the material share.
         let top_value = s
@@ -174,10 +171,7 @@ impl Drawable for Share<'_> {
         c.polyline(&line, SERIES, 3, None)?;
         for (x, p) in points {
             if let (Some(lo), Some(hi)) = (p.ci_low, p.ci_high) {
-                let (ylo, yhi) = (panel.y_px(lo * 100.0), panel.y_px(hi * 100.0));
-                c.line((x, ylo), (x, yhi), SERIES, 2, None)?;
-                c.line((x - 5.0, ylo), (x + 5.0, ylo), SERIES, 2, None)?;
-                c.line((x - 5.0, yhi), (x + 5.0, yhi), SERIES, 2, None)?;
+                c.interval_bar(x, panel.y_px(lo * 100.0), panel.y_px(hi * 100.0), SERIES)?;
             }
             if let Some(v) = p.share {
                 c.marker(Marker::Circle, (x, panel.y_px(v * 100.0)), 6.0, SERIES)?;
@@ -194,11 +188,7 @@ impl Drawable for Share<'_> {
                 .middle()
                 .color(INK),
         )?;
-        c.text(
-            "period (plant calendar)",
-            ((panel.left + panel.right) / 2.0, below + 8.0),
-            TextOpts::new(sizes::AXIS).align(Align::Center),
-        )?;
+        axis.draw_title(c, &panel, below)?;
         Ok(Layout {
             width: size.width,
             height: size.height,

@@ -5,8 +5,8 @@ use plotters::prelude::DrawingBackend;
 
 use super::draw::{
     check_finite, draw_events, draw_ref_lines, flag_event_legend, format_number, frame, group_dash,
-    header, limit_legend, limit_lines, padded_range, require_room, sizes, time_to_x, y_axis, Align,
-    Canvas, DrawResult, Drawable, Marker, Palette, Swatch, TextOpts, TimeAxis,
+    header_with_event_strip, limit_legend, limit_lines, padded_range, require_room, time_to_x,
+    y_axis, Canvas, DrawResult, Drawable, Marker, Palette, Swatch, TimeAxis,
 };
 use super::{Layout, Panel, Size, TrendInput};
 
@@ -111,11 +111,8 @@ impl Drawable for Trend<'_> {
             "Group mean per period with 95% interval, {} .. {}",
             first, last
         );
-        let mut y = header(c, w, &title, &subtitle, &legend)?;
-        let strip_top = y;
-        if !t.events.is_empty() {
-            y += 52.0;
-        }
+        let (strip_top, y) =
+            header_with_event_strip(c, w, &title, &subtitle, &legend, !t.events.is_empty())?;
 
         let (x_min, x_max) = time_range(t.periods.iter().map(|p| (p.start, p.end)), &t.events);
         let values = t
@@ -176,10 +173,7 @@ impl Drawable for Trend<'_> {
             c.polyline(&line, color, 2, group_dash(gi))?;
             for (px, g) in points {
                 if let (Some(lo), Some(hi)) = (g.ci_low, g.ci_high) {
-                    let (ylo, yhi) = (panel.y_px(lo), panel.y_px(hi));
-                    c.line((px, ylo), (px, yhi), color, 2, None)?;
-                    c.line((px - 5.0, ylo), (px + 5.0, ylo), color, 2, None)?;
-                    c.line((px - 5.0, yhi), (px + 5.0, yhi), color, 2, None)?;
+                    c.interval_bar(px, panel.y_px(lo), panel.y_px(hi), color)?;
                 }
                 c.marker(Marker::group(gi), (px, panel.y_px(g.mean)), 6.0, color)?;
             }
@@ -189,11 +183,7 @@ impl Drawable for Trend<'_> {
 
         // Axis titles.
         c.value_axis_title(&t.characteristic, &t.unit, panel.top, panel.bottom)?;
-        c.text(
-            "period (plant calendar)",
-            ((panel.left + panel.right) / 2.0, below + 8.0),
-            TextOpts::new(sizes::AXIS).align(Align::Center),
-        )?;
+        axis.draw_title(c, &panel, below)?;
         Ok(Layout {
             width: size.width,
             height: size.height,
