@@ -11,13 +11,6 @@ const LEVELS: [&str; 4] = ["M1", "M4", "M7", "M9"];
 mod svg;
 use svg::*;
 
-// Okabe and Ito (2008) colours as plotters writes them.
-const BLUE: &str = "#0072B2";
-const VERMILLION: &str = "#D55E00";
-const BLUISH_GREEN: &str = "#009E73";
-const REDDISH_PURPLE: &str = "#CC79A7";
-const BLACK: &str = "#000000";
-
 /// Vertical black lines (event markers) inside a panel: their x.
 fn vertical_black_lines(svg: &Svg, p: &Panel) -> Vec<f64> {
     svg.shapes
@@ -58,23 +51,7 @@ fn trend_has_one_series_per_group_with_a_point_per_period() {
     let p = &chart.layout.panels[0];
     // Group markers: M1 filled circles (blue), M4 squares (vermillion), M7 triangles (bluish
     // green), M9 diamonds (reddish purple); one per period inside the panel.
-    let circles = svg
-        .inside(p)
-        .filter(|s| s.tag == "circle" && s.fill == BLUE)
-        .count();
-    let squares = svg
-        .inside(p)
-        .filter(|s| s.tag == "rect" && s.fill == VERMILLION && s.opacity == 1.0)
-        .count();
-    let triangles = svg
-        .inside(p)
-        .filter(|s| s.tag == "polygon" && s.fill == BLUISH_GREEN && s.points.len() == 3)
-        .count();
-    let diamonds = svg
-        .inside(p)
-        .filter(|s| s.tag == "polygon" && s.fill == REDDISH_PURPLE && s.points.len() == 4)
-        .count();
-    assert_eq!([circles, squares, triangles, diamonds], [30, 30, 30, 30]);
+    assert_eq!(svg.group_markers(p), [30, 30, 30, 30]);
     // Each mean sits at its value's pixel y (within plotters' 1-pixel rounding).
     let m1: Vec<f64> = input.periods.iter().map(|p| p.groups[0].mean).collect();
     let mut ys: Vec<(f64, f64)> = svg

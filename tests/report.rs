@@ -19,10 +19,6 @@ use samewise::report::{draw_trend, Format, Size};
 mod svg;
 use svg::*;
 
-const BLUE: &str = "#0072B2";
-const VERMILLION: &str = "#D55E00";
-const BLUISH_GREEN: &str = "#009E73";
-
 /// The invented plant with three checked days (2026-11-28, -29, -30) out of five imported.
 fn checked_plant(name: &str) -> std::path::PathBuf {
     let dir = common::temp_dir(name);
@@ -136,18 +132,7 @@ fn trend_svg_has_one_point_per_group_per_checked_day() {
     let chart = draw_trend(&input, Format::Svg, Size::DEFAULT).unwrap();
     assert_eq!(chart.bytes, bytes);
     let p = &chart.layout.panels[0];
-    let circles = svg
-        .inside(p)
-        .filter(|s| s.tag == "circle" && s.fill == BLUE)
-        .count();
-    let squares = svg
-        .inside(p)
-        .filter(|s| s.tag == "rect" && s.fill == VERMILLION && s.opacity == 1.0)
-        .count();
-    let triangles = svg
-        .inside(p)
-        .filter(|s| s.tag == "polygon" && s.fill == BLUISH_GREEN && s.points.len() == 3)
-        .count();
+    let [circles, squares, triangles, _] = svg.group_markers(p);
     assert_eq!([circles, squares, triangles], [3, 3, 3]);
     // Means come back in the unit (origin added): bore is near 10 mm, M2 higher on the 30th.
     let last = &input.periods[2];

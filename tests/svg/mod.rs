@@ -4,6 +4,13 @@
 
 use samewise::report::Panel;
 
+// Okabe and Ito (2008) colours as plotters writes them.
+pub const BLUE: &str = "#0072B2";
+pub const VERMILLION: &str = "#D55E00";
+pub const BLUISH_GREEN: &str = "#009E73";
+pub const REDDISH_PURPLE: &str = "#CC79A7";
+pub const BLACK: &str = "#000000";
+
 #[derive(Debug, Clone)]
 pub struct Shape {
     pub tag: String,
@@ -110,6 +117,28 @@ impl Svg {
             let (x, y) = centre(s);
             x >= p.left - 1.0 && x <= p.right + 1.0 && y >= p.top - 1.0 && y <= p.bottom + 1.0
         })
+    }
+    /// The group markers inside the panel, counted by group: filled circles (blue, the first
+    /// group), squares (vermillion, the second), triangles (bluish green, the third) and
+    /// diamonds (reddish purple, the fourth).
+    pub fn group_markers(&self, p: &Panel) -> [usize; 4] {
+        let circles = self
+            .inside(p)
+            .filter(|s| s.tag == "circle" && s.fill == BLUE)
+            .count();
+        let squares = self
+            .inside(p)
+            .filter(|s| s.tag == "rect" && s.fill == VERMILLION && s.opacity == 1.0)
+            .count();
+        let triangles = self
+            .inside(p)
+            .filter(|s| s.tag == "polygon" && s.fill == BLUISH_GREEN && s.points.len() == 3)
+            .count();
+        let diamonds = self
+            .inside(p)
+            .filter(|s| s.tag == "polygon" && s.fill == REDDISH_PURPLE && s.points.len() == 4)
+            .count();
+        [circles, squares, triangles, diamonds]
     }
 }
 
