@@ -12,39 +12,8 @@ use samewise::config::CharacteristicConfig;
 use samewise::stats::decimal::Decimal;
 use samewise::stats::fdr::FdrMethod;
 
-/// Log relative error (significant digits in agreement), as in NIST StRD.
-fn lre(x: f64, c: f64) -> f64 {
-    if x == c {
-        return 15.9;
-    }
-    if c == 0.0 {
-        return -(x.abs().log10());
-    }
-    (-((x - c).abs() / c.abs()).log10()).min(15.9)
-}
-
-/// splitmix64 (Steele, Lea and Flood 2014), a fixed-state generator for invented data.
-struct Rng(u64);
-impl Rng {
-    fn next_u64(&mut self) -> u64 {
-        self.0 = self.0.wrapping_add(0x9E37_79B9_7F4A_7C15);
-        let mut z = self.0;
-        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
-        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
-        z ^ (z >> 31)
-    }
-    fn uniform(&mut self) -> f64 {
-        ((self.next_u64() >> 11) as f64 + 0.5) / (1u64 << 53) as f64
-    }
-    /// Standard normal by Box-Muller.
-    fn normal(&mut self) -> f64 {
-        let (u1, u2) = (self.uniform(), self.uniform());
-        (-2.0 * u1.ln()).sqrt() * (2.0 * std::f64::consts::PI * u2).cos()
-    }
-    fn below(&mut self, n: u32) -> u32 {
-        (self.next_u64() % n as u64) as u32
-    }
-}
+mod common;
+use common::{lre, Rng};
 
 const FACTORS: [(&str, u32); 5] = [
     ("machine", 4),
@@ -440,8 +409,6 @@ fn null_days_false_flag_rate_is_consistent_with_the_level() {
         "{days_with_flag} days with a false flag"
     );
 }
-
-mod common;
 
 /// End to end through the binary: `check --day` flags the injected machine offset (exit 3),
 /// stores a run, a rerun makes version 2, `history` shows the comparison per period.

@@ -11,18 +11,7 @@ use std::process::{Command, Output};
 use serde_json::Value;
 
 mod common;
-use common::temp_dir;
-
-/// Log relative error of `x` against the certified `c` (15.9 for an exact match).
-fn lre(x: f64, c: f64) -> f64 {
-    if x == c {
-        return 15.9;
-    }
-    if c == 0.0 {
-        return -(x.abs().log10());
-    }
-    (-((x - c).abs() / c.abs()).log10()).min(15.9)
-}
+use common::{lre, temp_dir};
 
 fn data_dir() -> PathBuf {
     Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/data")

@@ -1,4 +1,5 @@
-//! Shared helpers of the integration tests: a fresh temporary directory per test, and for the
+//! Shared helpers of the integration tests: a fixed-state generator, the log relative error, a
+//! fresh temporary directory per test, and for the
 //! engine's binary-driving tests an invented plant (configuration and a
 //! long-format CSV generated with a fixed RNG state) imported into a fresh database.
 #![allow(dead_code)]
@@ -20,10 +21,27 @@ impl Rng {
     pub fn uniform(&mut self) -> f64 {
         ((self.next_u64() >> 11) as f64 + 0.5) / (1u64 << 53) as f64
     }
+    /// Standard normal by Box-Muller.
     pub fn normal(&mut self) -> f64 {
         let (u1, u2) = (self.uniform(), self.uniform());
         (-2.0 * u1.ln()).sqrt() * (2.0 * std::f64::consts::PI * u2).cos()
     }
+    /// A whole number in `[0, n)`.
+    pub fn below(&mut self, n: u32) -> u32 {
+        (self.next_u64() % n as u64) as u32
+    }
+}
+
+/// Log relative error of `x` against the certified `c` (about the number of significant digits
+/// in agreement; 15.9 for an exact match), as NIST StRD measures accuracy.
+pub fn lre(x: f64, c: f64) -> f64 {
+    if x == c {
+        return 15.9;
+    }
+    if c == 0.0 {
+        return -(x.abs().log10());
+    }
+    (-((x - c).abs() / c.abs()).log10()).min(15.9)
 }
 
 pub const CONFIG: &str = r#"
