@@ -391,23 +391,11 @@ fn nothing_is_due_before_end_plus_delay() {
     let first = berlin(2026, 11, 30, 7);
     let day = &config.schedules[0];
     // Day 2026-11-30 ends 12-01 06:00 local; with 2 h delay it is due at 08:00.
-    let p = schedule::periods_until(
-        &calendar,
-        day.period,
-        day.delay,
-        first,
-        berlin(2026, 12, 1, 7),
-    )
-    .unwrap();
+    let due_by =
+        |now| schedule::periods_until(&calendar, day.period, day.delay, first, now).unwrap();
+    let p = due_by(berlin(2026, 12, 1, 7));
     assert!(p.is_empty());
-    let p = schedule::periods_until(
-        &calendar,
-        day.period,
-        day.delay,
-        first,
-        berlin(2026, 12, 1, 8),
-    )
-    .unwrap();
+    let p = due_by(berlin(2026, 12, 1, 8));
     assert_eq!(p.len(), 1);
     assert_eq!(p[0].label, "2026-11-30");
     let next = schedule::next_due_time(

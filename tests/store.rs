@@ -41,6 +41,20 @@ fn started() -> chrono::DateTime<chrono::Utc> {
     chrono::DateTime::from_timestamp(1_800_000_000, 0).unwrap()
 }
 
+/// Imports the file at `path` into `store`, not forced, started at [`started`].
+fn import_file(store: &mut Store, path: &std::path::Path, cfg: &Config) {
+    let stream = ingest::read_file(path, cfg, None).unwrap();
+    store
+        .import(
+            stream,
+            &ImportOptions {
+                force: false,
+                started_at: started(),
+            },
+        )
+        .unwrap();
+}
+
 #[test]
 fn migrations_apply_from_empty_and_version_counts_the_files() {
     let store = Store::open_in_memory().unwrap();
@@ -107,16 +121,7 @@ fn sync_config_is_idempotent_and_keeps_measurements() {
         "timestamp,characteristic,value,machine\n2026-11-30T07:00:00Z,bore,42.001,M1\n",
     )
     .unwrap();
-    let stream = ingest::read_file(&csv, &cfg, None).unwrap();
-    store
-        .import(
-            stream,
-            &ImportOptions {
-                force: false,
-                started_at: started(),
-            },
-        )
-        .unwrap();
+    import_file(&mut store, &csv, &cfg);
     // A changed limit updates the characteristic; the measurement stays.
     let changed = config(
         &dir,
@@ -153,16 +158,7 @@ fn large_offset_values_round_trip_exactly() {
     }
     let path = dir.join("big.csv");
     std::fs::write(&path, csv).unwrap();
-    let stream = ingest::read_file(&path, &cfg, None).unwrap();
-    store
-        .import(
-            stream,
-            &ImportOptions {
-                force: false,
-                started_at: started(),
-            },
-        )
-        .unwrap();
+    import_file(&mut store, &path, &cfg);
     let frame = store
         .load_period(
             chrono::DateTime::from_timestamp(0, 0).unwrap(),
