@@ -16,7 +16,7 @@
 //! Functions take a `rusqlite::Connection` so they work on any store connection; `Store` exposes
 //! them through its own methods.
 
-use rusqlite::{params, Connection, OptionalExtension, Row, TransactionBehavior};
+use rusqlite::{params, Connection, OptionalExtension, Row, ToSql, TransactionBehavior};
 
 use crate::Result;
 
@@ -402,12 +402,14 @@ pub fn recover_abandoned(conn: &Connection, now_ms: i64) -> Result<usize> {
 /// Marks as failed ("abandoned") the `running` runs of one schedule and period. Called by the
 /// holder of that period's lease: while it holds the lease, no other process can be running it.
 pub fn abandon_running(conn: &Connection, key: &LeaseKey, now_ms: i64) -> Result<usize> {
-    let n = conn.execute(
+    let n = execute_for_lease(
+        conn,
         "UPDATE run SET status = 'failed', finished_ms = ?4,
             error = 'abandoned: the process stopped before the run was written; no results were kept'
          WHERE status = 'running' AND COALESCE(schedule, '') = ?1 AND period_kind = ?2
            AND period_label = ?3",
-        params![key.schedule, key.period_kind, key.period_label, now_ms],
+        key,
+        params![now_ms],
     )?;
     Ok(n)
 }
@@ -747,6 +749,19 @@ pub struct LeaseKey {
     pub period_label: String,
 }
 
+/// Executes `sql` with the lease key bound to `?1` (schedule), `?2` (period kind) and `?3`
+/// (period label), and `more` to the parameters after them; returns the rows changed.
+fn execute_for_lease(
+    conn: &Connection,
+    sql: &str,
+    key: &LeaseKey,
+    more: &[&dyn ToSql],
+) -> Result<usize> {
+    let mut all: Vec<&dyn ToSql> = vec![&key.schedule, &key.period_kind, &key.period_label];
+    all.extend_from_slice(more);
+    Ok(conn.execute(sql, all.as_slice())?)
+}
+
 /// Takes the lease atomically: succeeds when no lease exists, when the existing one has expired
 /// at `now_ms`, or when `holder` already holds it. Returns whether `holder` now holds it.
 pub fn take_lease(
@@ -756,21 +771,16 @@ pub fn take_lease(
     now_ms: i64,
     ttl_ms: i64,
 ) -> Result<bool> {
-    let changed = conn.execute(
+    let changed = execute_for_lease(
+        conn,
         "INSERT INTO run_lease (schedule, period_kind, period_label, holder, taken_ms,
             heartbeat_ms, expires_ms) VALUES (?1, ?2, ?3, ?4, ?5, ?5, ?6)
          ON CONFLICT (schedule, period_kind, period_label) DO UPDATE SET
             holder = excluded.holder, taken_ms = excluded.taken_ms,
             heartbeat_ms = excluded.heartbeat_ms, expires_ms = excluded.expires_ms
          WHERE run_lease.expires_ms <= excluded.taken_ms OR run_lease.holder = excluded.holder",
-        params![
-            key.schedule,
-            key.period_kind,
-            key.period_label,
-            holder,
-            now_ms,
-            now_ms + ttl_ms
-        ],
+        key,
+        params![holder, now_ms, now_ms + ttl_ms],
     )?;
     Ok(changed == 1)
 }
@@ -783,17 +793,12 @@ pub fn heartbeat(
     now_ms: i64,
     ttl_ms: i64,
 ) -> Result<bool> {
-    let changed = conn.execute(
+    let changed = execute_for_lease(
+        conn,
         "UPDATE run_lease SET heartbeat_ms = ?5, expires_ms = ?6
          WHERE schedule = ?1 AND period_kind = ?2 AND period_label = ?3 AND holder = ?4",
-        params![
-            key.schedule,
-            key.period_kind,
-            key.period_label,
-            holder,
-            now_ms,
-            now_ms + ttl_ms
-        ],
+        key,
+        params![holder, now_ms, now_ms + ttl_ms],
     )?;
     Ok(changed == 1)
 }
@@ -819,28 +824,24 @@ pub fn take_over_lease(
     now_ms: i64,
     ttl_ms: i64,
 ) -> Result<bool> {
-    let changed = conn.execute(
+    let changed = execute_for_lease(
+        conn,
         "UPDATE run_lease SET holder = ?5, taken_ms = ?6, heartbeat_ms = ?6, expires_ms = ?7
          WHERE schedule = ?1 AND period_kind = ?2 AND period_label = ?3 AND holder = ?4",
-        params![
-            key.schedule,
-            key.period_kind,
-            key.period_label,
-            old,
-            holder,
-            now_ms,
-            now_ms + ttl_ms
-        ],
+        key,
+        params![old, holder, now_ms, now_ms + ttl_ms],
     )?;
     Ok(changed == 1)
 }
 
 /// Gives the lease up (only when `holder` holds it).
 pub fn release_lease(conn: &Connection, key: &LeaseKey, holder: &str) -> Result<()> {
-    conn.execute(
+    execute_for_lease(
+        conn,
         "DELETE FROM run_lease WHERE schedule = ?1 AND period_kind = ?2 AND period_label = ?3
          AND holder = ?4",
-        params![key.schedule, key.period_kind, key.period_label, holder],
+        key,
+        params![holder],
     )?;
     Ok(())
 }
