@@ -221,22 +221,18 @@ fn check_holding_lease(
     head: &RunHeader,
 ) -> Result<(StoredRun, RunContent)> {
     let run = runs::begin_run(&mut store.conn, head, now().timestamp_millis())?;
-    match run_check(store, config, period, options) {
+    // A failed check and a result that could not be written both leave the run failed.
+    let completed = run_check(store, config, period, options).and_then(|content| {
+        runs::complete_run(
+            &mut store.conn,
+            run.run_id,
+            now().timestamp_millis(),
+            &content,
+        )?;
+        Ok(content)
+    });
+    match completed {
         Ok(content) => {
-            if let Err(e) = runs::complete_run(
-                &mut store.conn,
-                run.run_id,
-                now().timestamp_millis(),
-                &content,
-            ) {
-                runs::fail_run(
-                    &store.conn,
-                    run.run_id,
-                    now().timestamp_millis(),
-                    &e.to_string(),
-                )?;
-                return Err(e);
-            }
             let stored =
                 runs::latest_complete_run(&store.conn, &head.period_kind, &head.period_label)?
                     .unwrap_or(run);
