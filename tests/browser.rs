@@ -195,23 +195,22 @@ fn report_opens_in_chromium_without_errors_and_shows_hostile_text_as_text() {
         title.contains(HOSTILE_SCRIPT) && title.contains(HOSTILE_QUOTES),
         "{title}"
     );
-    let cells: Vec<&str> = probe["cells"]
-        .as_array()
-        .unwrap()
-        .iter()
-        .map(|v| v.as_str().unwrap())
-        .collect();
+    // The probe's list of strings under `key`.
+    let strings = |key: &str| -> Vec<&str> {
+        probe[key]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|v| v.as_str().unwrap())
+            .collect()
+    };
+    let cells = strings("cells");
     assert!(
         cells.iter().any(|c| c.contains(HOSTILE_SCRIPT)),
         "no table cell shows the script text"
     );
     assert!(cells.iter().any(|c| c.contains(HOSTILE_QUOTES)));
-    let svg_text: Vec<&str> = probe["svgText"]
-        .as_array()
-        .unwrap()
-        .iter()
-        .map(|v| v.as_str().unwrap())
-        .collect();
+    let svg_text = strings("svgText");
     assert!(
         svg_text.contains(&HOSTILE_SCRIPT),
         "legend lacks the script text"

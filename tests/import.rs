@@ -48,9 +48,14 @@ fn store(dir: &Path) -> Store {
     Store::open(dir.join("plant.db")).unwrap()
 }
 
-fn n_measurements(dir: &Path) -> u64 {
-    let status = store(dir).status().unwrap();
+/// Measurements stored, over every characteristic.
+fn total_obs(s: &Store) -> u64 {
+    let status = s.status().unwrap();
     status.characteristics.iter().map(|c| c.n_obs).sum()
+}
+
+fn n_measurements(dir: &Path) -> u64 {
+    total_obs(&store(dir))
 }
 
 const MIXED: &str = "timestamp,characteristic,value,machine
@@ -285,26 +290,14 @@ fn killed_import_leaves_nothing_and_the_file_imports_again() {
     assert!(!status.success());
     let s = Store::open(&db).unwrap();
     assert_eq!(s.status().unwrap().n_imports, 0);
-    let total: u64 = s
-        .status()
-        .unwrap()
-        .characteristics
-        .iter()
-        .map(|c| c.n_obs)
-        .sum();
+    let total = total_obs(&s);
     assert_eq!(total, 0);
     assert!(s.integrity_check().unwrap().is_ok());
     drop(s);
     let o = run(&dir, &["import", "--config", &config, "big.csv"]);
     assert!(o.status.success(), "{}", text(&o));
     let s = Store::open(&db).unwrap();
-    let total: u64 = s
-        .status()
-        .unwrap()
-        .characteristics
-        .iter()
-        .map(|c| c.n_obs)
-        .sum();
+    let total = total_obs(&s);
     assert_eq!(total, rows);
     assert!(s.integrity_check().unwrap().is_ok());
 }
