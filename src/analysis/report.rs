@@ -257,6 +257,25 @@ fn share_from_runs(
     }
 }
 
+/// What the trend and share charts read: the characteristic (after checking both names), the
+/// latest complete run of each `kind` period starting in `[from, to)`, and the events of that
+/// range that concern the characteristic.
+fn chart_runs<'c>(
+    store: &Store,
+    config: &'c Config,
+    characteristic: &str,
+    factor: &str,
+    kind: PeriodKind,
+    from: DateTime<Utc>,
+    to: DateTime<Utc>,
+) -> Result<(&'c CharacteristicConfig, Vec<LoadedRun>, Vec<EventMarker>)> {
+    let c = find_characteristic(config, characteristic)?;
+    find_factor(config, factor)?;
+    let loaded = load_runs(store, kind, from, to)?;
+    let events = event_markers(store, Some(characteristic), from, to)?;
+    Ok((c, loaded, events))
+}
+
 /// The group trend of `characteristic` by `factor` over the `kind` periods starting in
 /// `[from, to)`, from the latest complete run of each, with the events of that range.
 pub fn trend_input(
@@ -268,10 +287,7 @@ pub fn trend_input(
     from: DateTime<Utc>,
     to: DateTime<Utc>,
 ) -> Result<TrendInput> {
-    let c = find_characteristic(config, characteristic)?;
-    find_factor(config, factor)?;
-    let loaded = load_runs(store, kind, from, to)?;
-    let events = event_markers(store, Some(characteristic), from, to)?;
+    let (c, loaded, events) = chart_runs(store, config, characteristic, factor, kind, from, to)?;
     Ok(trend_from_runs(c, factor, &loaded, events))
 }
 
@@ -286,10 +302,7 @@ pub fn share_input(
     from: DateTime<Utc>,
     to: DateTime<Utc>,
 ) -> Result<ShareInput> {
-    let c = find_characteristic(config, characteristic)?;
-    find_factor(config, factor)?;
-    let loaded = load_runs(store, kind, from, to)?;
-    let events = event_markers(store, Some(characteristic), from, to)?;
+    let (c, loaded, events) = chart_runs(store, config, characteristic, factor, kind, from, to)?;
     Ok(share_from_runs(c, factor, &loaded, events))
 }
 
