@@ -62,6 +62,25 @@ pub(crate) fn check_groups(groups: &[Summary]) -> Stat<()> {
     Ok(())
 }
 
+/// [`check_groups`], and every group has a variance: at least two values, not all equal.
+/// `zero_variance` says what a zero variance would make undefined (for the message).
+pub(crate) fn check_variances(groups: &[Summary], zero_variance: &str) -> Stat<()> {
+    check_groups(groups)?;
+    if let Some(idx) = groups.iter().position(|g| g.n < 2) {
+        return Err(Unavailable::new(format!(
+            "group {} has fewer than two values, so its variance is unknown",
+            idx + 1
+        )));
+    }
+    if let Some(idx) = groups.iter().position(|g| g.m2 <= 0.0) {
+        return Err(Unavailable::new(format!(
+            "group {} has zero variance (all values equal), so {zero_variance}",
+            idx + 1
+        )));
+    }
+    Ok(())
+}
+
 /// Weighted grand mean `Σ n_i mean_i / N`.
 pub(crate) fn grand_mean(groups: &[Summary]) -> f64 {
     let n: f64 = groups.iter().map(|g| g.n as f64).sum();

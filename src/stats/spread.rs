@@ -12,7 +12,7 @@
 //!   the classic F; common practice, no published source).
 //! - The count of residuals `x_ij - mean_i` beyond 3 residual SDs.
 
-use super::anova::{check_groups, one_way};
+use super::anova::{check_groups, check_variances, one_way};
 use super::describe::Summary;
 use super::distributions::chi_square_sf;
 use super::{Stat, TestResult, Unavailable};
@@ -105,19 +105,7 @@ pub fn brown_forsythe(groups: &[&[f64]]) -> Stat<TestResult> {
 ///
 /// Unavailable when a group has fewer than two values or zero variance (ln 0).
 pub fn bartlett(groups: &[Summary]) -> Stat<TestResult> {
-    check_groups(groups)?;
-    if let Some(idx) = groups.iter().position(|g| g.n < 2) {
-        return Err(Unavailable::new(format!(
-            "group {} has fewer than two values, so its variance is unknown",
-            idx + 1
-        )));
-    }
-    if let Some(idx) = groups.iter().position(|g| g.m2 <= 0.0) {
-        return Err(Unavailable::new(format!(
-            "group {} has zero variance (all values equal), so its log-variance is undefined",
-            idx + 1
-        )));
-    }
+    check_variances(groups, "its log-variance is undefined")?;
     let k = groups.len() as f64;
     let n: f64 = groups.iter().map(|g| g.n as f64).sum();
     let df_within = n - k;

@@ -6,7 +6,7 @@
 //! `F = A / (1 + 2 (k - 2) λ / (k^2 - 1))`, `df1 = k - 1`, `df2 = (k^2 - 1) / (3 λ)`, and p is the
 //! upper tail of F(df1, df2).
 
-use super::anova::check_groups;
+use super::anova::check_variances;
 use super::describe::Summary;
 use super::distributions::f_sf;
 use super::{Stat, TestResult, Unavailable};
@@ -17,19 +17,7 @@ use super::{Stat, TestResult, Unavailable};
 /// Unavailable with fewer than two groups, a group with fewer than two values (its variance is
 /// unknown), or a group whose values are all equal (its weight n/s^2 is infinite).
 pub fn welch(groups: &[Summary]) -> Stat<TestResult> {
-    check_groups(groups)?;
-    if let Some(idx) = groups.iter().position(|g| g.n < 2) {
-        return Err(Unavailable::new(format!(
-            "group {} has fewer than two values, so its variance is unknown",
-            idx + 1
-        )));
-    }
-    if let Some(idx) = groups.iter().position(|g| g.m2 <= 0.0) {
-        return Err(Unavailable::new(format!(
-            "group {} has zero variance (all values equal), so its Welch weight is undefined",
-            idx + 1
-        )));
-    }
+    check_variances(groups, "its Welch weight is undefined")?;
     let k = groups.len() as f64;
     let weights: Vec<f64> = groups
         .iter()
