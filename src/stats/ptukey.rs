@@ -50,6 +50,7 @@
 
 use super::{Stat, Unavailable};
 use statrs::function::gamma::ln_gamma;
+use std::cell::Cell;
 use std::f64::consts::{FRAC_1_SQRT_2, PI};
 use std::sync::OnceLock;
 
@@ -142,7 +143,10 @@ pub fn qtukey(p: f64, k: f64, df: f64) -> Stat<f64> {
     if p == 1.0 {
         return Ok(f64::INFINITY);
     }
-    quantile_by_newton(p, k, df, evaluate)
+    let peak = Cell::new(None);
+    quantile_by_newton(p, k, df, |q, k, df, upper, prec| {
+        evaluate_near(q, k, df, upper, prec, &peak)
+    })
 }
 
 /// [`qtukey`] for any `0 < p < 1`: Newton steps with `evaluate` ([`evaluate`], or the direct
@@ -294,11 +298,26 @@ fn inner_level(k: f64, prec: &Precision) -> usize {
 /// Returns `(tail, density at q)` where `tail` is `P(Q > q)` when `upper` and `P(Q <= q)`
 /// otherwise, integrated directly (positive integrands, no cancellation either way).
 fn evaluate(q: f64, k: f64, df: f64, upper: bool, prec: &Precision) -> (f64, f64) {
+    evaluate_near(q, k, df, upper, prec, &Cell::new(None))
+}
+
+/// [`evaluate`] for a sequence of nearby `q` (the Newton steps of [`qtukey`]): `peak` holds the
+/// peak of the outer integrand found at the previous `q`, from which the next search starts.
+fn evaluate_near(
+    q: f64,
+    k: f64,
+    df: f64,
+    upper: bool,
+    prec: &Precision,
+    peak: &Cell<Option<OuterPeak>>,
+) -> (f64, f64) {
     let table = table::table_for(k);
     if df == f64::INFINITY || df > 1.0e15 {
         return table.tail(q, upper);
     }
-    outer_trapezoid(q, k, df, upper, prec, |w, t| table.tail_at(w, t, upper))
+    outer_trapezoid(q, k, df, upper, prec, peak, |w, t| {
+        table.tail_at(w, t, upper)
+    })
 }
 
 /// [`evaluate`] with the inner probability integrated directly at every outer node instead of
@@ -404,6 +423,7 @@ fn outer_trapezoid(
     df: f64,
     upper: bool,
     prec: &Precision,
+    hint: &Cell<Option<OuterPeak>>,
     inner: impl Fn(f64, f64) -> (f64, f64),
 ) -> (f64, f64) {
     let nu = df;
@@ -424,7 +444,19 @@ fn outer_trapezoid(
     // of the upper tail at the start, and the sharpness of the range for large k.
     let tau = 0.6 / (1.0 + k.ln());
     let fallback = (2.0 * nu + if upper { q * q } else { 0.0 }) * (2.0 * start).exp();
-    let mut peak = start;
+    // From the peak at a nearby q when there is one (the Newton steps of the quantile), moved by
+    // its first-order shift. At the peak g'(u) + h'(ln q + u) = 0 (g the log chi density, h the
+    // log inner tail), so du / d ln q = -h'' / (g'' + h'') = -1 - g''(u) / c with c = -(g'' + h'')
+    // the curvature found there and g''(u) = -2 nu e^(2u). Where the tail sets the peak (large k,
+    // small df) the Gaussian-tail start above is far off (0.6 in u at k = 50, df = 2.5: six
+    // Newton steps of three slopes each); from the moved peak one or two steps suffice.
+    let mut peak = match hint.get() {
+        Some(near) if near.upper == upper && near.nu == nu => {
+            let shift = -1.0 + 2.0 * nu * (2.0 * near.u).exp() / near.curvature;
+            near.u + shift * (ln_q - near.ln_q)
+        }
+        _ => start,
+    };
     let mut curvature = None;
     for _ in 0..40 {
         let delta = 1e-3 * tau.min(fallback.sqrt().recip());
@@ -440,13 +472,27 @@ fn outer_trapezoid(
         curvature = Some(-d2);
         let step = (d1 / d2).clamp(-1.0, 1.0);
         peak -= step;
-        if step.abs() <= 1e-3 * delta {
+        // Newton converges quadratically: after a step of 1e-3 of the scale the peak is within
+        // about 1e-6 of it, and the trapezoidal sum does not depend on where its nodes sit.
+        if step.abs() <= 1e-3 * tau.min((-d2).sqrt().recip()) {
             break;
         }
     }
     let (start, scale) = match curvature {
-        Some(c) => (peak, tau.min(c.sqrt().recip())),
-        None => (start, tau.min(fallback.sqrt().recip())),
+        Some(c) => {
+            hint.set(Some(OuterPeak {
+                upper,
+                nu,
+                ln_q,
+                u: peak,
+                curvature: c,
+            }));
+            (peak, tau.min(c.sqrt().recip()))
+        }
+        None => {
+            hint.set(None);
+            (start, tau.min(fallback.sqrt().recip()))
+        }
     };
     // The e^(2u) of the chi density limits the strip of analyticity to |Im u| < pi / 4, whatever
     // the scale: a step of at most 1/6 of the scale unit keeps exp(-2 pi 0.7 / h) below 1e-17.
@@ -498,6 +544,18 @@ fn outer_trapezoid(
         }
     }
     ((h * total).min(1.0), h * total_density)
+}
+
+/// Where [`outer_trapezoid`] found the peak of its log-integrand, for the next nearby `q`.
+#[derive(Clone, Copy)]
+struct OuterPeak {
+    upper: bool,
+    nu: f64,
+    ln_q: f64,
+    /// The peak in `u = ln s`.
+    u: f64,
+    /// Minus the second derivative of the log-integrand there.
+    curvature: f64,
 }
 
 /// The constant of the log-density of `u = ln s` ([`evaluate`]): `0.5 ln(nu / pi) - c(nu / 2)`.
