@@ -162,6 +162,8 @@ fn quantile_by_newton(
     let mut q = initial_quantile(p, k, df).max(1e-8);
     let mut prec = &FAST;
     let mut previous_q: Option<f64> = None;
+    // ln q and the log-slope d ln tail / d ln q of the previous good FAST evaluation.
+    let mut previous_slope: Option<(f64, f64)> = None;
     for _ in 0..80 {
         let (tail, density) = evaluate(q, k, df, use_upper, prec);
         let slope = if use_upper {
@@ -189,18 +191,35 @@ fn quantile_by_newton(
         // a power of q (the upper tail at small df falls like q^-df, the lower tail near 0 rises
         // like q^(k-1)), so a start that is far off (the Bonferroni start at df = 1 can be 300
         // times too large) is corrected in one or two steps instead of by repeated halving.
-        let log_step = (error / (q * slope)).clamp(-5.0, 5.0);
+        let log_slope = q * slope;
+        let log_step = (error / log_slope).clamp(-5.0, 5.0);
+        // Newton's error after this step is about |f'' / (2 f')| log_step^2 (in ln q), with f''
+        // from the log-slopes of this and the previous evaluation. Only a secant over a short
+        // stretch (at most 0.5 in ln q) is trusted: the log-tail is nearly linear in ln q over
+        // long stretches of a power-law tail (df = 1) and a long secant misses the curvature at
+        // the root (k = 50, df = 1, p = 0.999 then needed a second ACCURATE step).
+        let predicted = match previous_slope {
+            Some((ln_q0, log_slope0)) if ln_q0 != q.ln() && (q.ln() - ln_q0).abs() <= 0.5 => {
+                let curvature = (log_slope - log_slope0) / (q.ln() - ln_q0);
+                (0.5 * curvature / log_slope).abs() * log_step * log_step
+            }
+            _ => f64::INFINITY,
+        };
+        previous_slope = Some((q.ln(), log_slope));
         let next = q * (-log_step).exp();
         let step = q - next;
         q = next;
         // Newton converges quadratically: a step below 1e-7 of q leaves an error of order 1e-14.
         // The FAST quadrature carries the iterate to within its own accuracy of the root (its
-        // steps fall below 1e-6 of q); then ACCURATE steps until one is below 1e-7.
+        // steps fall below 1e-6 of q, or the error predicted after this step falls below 1e-8 of
+        // q, which saves the FAST evaluation that would only confirm it); then ACCURATE steps
+        // until one is below 1e-7. The prediction only chooses when the ACCURATE steps begin, so
+        // a wrong one costs an ACCURATE step more, never accuracy: the stop is the same 1e-7.
         let is_accurate = std::ptr::eq(prec, &ACCURATE_WITH_DENSITY);
         if is_accurate && (step.abs() <= 1e-7 * q || error.abs() <= 1e-15) {
             return Ok(q);
         }
-        if !is_accurate && (step.abs() <= 1e-6 * q || error.abs() <= 1e-15) {
+        if !is_accurate && (step.abs() <= 1e-6 * q || predicted <= 1e-8 || error.abs() <= 1e-15) {
             prec = &ACCURATE_WITH_DENSITY;
         }
     }
