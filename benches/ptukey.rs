@@ -14,12 +14,21 @@ fn quantile(c: &mut Criterion) {
         (50.0, 12.0),
         (10.0, 100.0),
         (20.0, 2.5),
+        (50.0, 1.0),
+        (50.0, 1.5),
+        (50.0, 2.0),
         (50.0, 2.5),
         (50.0, 1000.0),
         (50.0, f64::INFINITY),
     ] {
         c.bench_function(&format!("qtukey p=0.95 k={k} df={df}"), |b| {
             b.iter(|| qtukey(black_box(0.95), black_box(k), black_box(df)).unwrap())
+        });
+    }
+    // The slowest corner of the target (k = 50, small df) further in the upper tail.
+    for p in [0.99, 0.999] {
+        c.bench_function(&format!("qtukey p={p} k=50 df=2.5"), |b| {
+            b.iter(|| qtukey(black_box(p), black_box(50.0), black_box(2.5)).unwrap())
         });
     }
     // Heavy upper tail: the Newton start (a Bonferroni bound) is about 300 times too large.

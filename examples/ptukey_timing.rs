@@ -30,6 +30,14 @@ fn main() {
             }
         }
     }
+    // Small fractional df at the largest k of the target (k = 50): the widest chi densities.
+    for &p in &[0.95, 0.99, 0.999] {
+        for &df in &[1.5, 2.0, 3.0, 5.0] {
+            time(&format!("qtukey p={p} k=50 df={df}"), || {
+                qtukey(p, 50.0, df).unwrap()
+            });
+        }
+    }
     for &(q, k, df) in &[
         (4.0, 5.0, 45.0),
         (3.0, 3.0, 12.0),

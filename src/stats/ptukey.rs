@@ -50,6 +50,7 @@
 
 use super::{Stat, Unavailable};
 use statrs::function::gamma::ln_gamma;
+use std::cell::Cell;
 use std::f64::consts::{FRAC_1_SQRT_2, PI};
 use std::sync::OnceLock;
 
@@ -142,7 +143,10 @@ pub fn qtukey(p: f64, k: f64, df: f64) -> Stat<f64> {
     if p == 1.0 {
         return Ok(f64::INFINITY);
     }
-    quantile_by_newton(p, k, df, evaluate)
+    let peak = Cell::new(None);
+    quantile_by_newton(p, k, df, |q, k, df, upper, prec| {
+        evaluate_near(q, k, df, upper, prec, &peak)
+    })
 }
 
 /// [`qtukey`] for any `0 < p < 1`: Newton steps with `evaluate` ([`evaluate`], or the direct
@@ -158,6 +162,8 @@ fn quantile_by_newton(
     let mut q = initial_quantile(p, k, df).max(1e-8);
     let mut prec = &FAST;
     let mut previous_q: Option<f64> = None;
+    // ln q and the log-slope d ln tail / d ln q of the previous good FAST evaluation.
+    let mut previous_slope: Option<(f64, f64)> = None;
     for _ in 0..80 {
         let (tail, density) = evaluate(q, k, df, use_upper, prec);
         let slope = if use_upper {
@@ -184,19 +190,46 @@ fn quantile_by_newton(
         // The step is taken in ln q: the log-tail is close to linear in ln q wherever a tail is
         // a power of q (the upper tail at small df falls like q^-df, the lower tail near 0 rises
         // like q^(k-1)), so a start that is far off (the Bonferroni start at df = 1 can be 300
-        // times too large) is corrected in one or two steps instead of by repeated halving.
-        let log_step = (error / (q * slope)).clamp(-5.0, 5.0);
+        // times too large) is corrected in one or two steps instead of by repeated halving. The
+        // clamp at 8 (a factor 3000) lets that first step land near the root: at 5 (a factor 150)
+        // k = 50, df = 1, p = 0.999 (start 300 times too large) took a FAST step more.
+        let log_slope = q * slope;
+        let log_step = (error / log_slope).clamp(-8.0, 8.0);
+        // Newton's error after this step is about |f'' / (2 f')| log_step^2 (in ln q), with f''
+        // from the log-slopes of this and the previous evaluation. Only a secant over a short
+        // stretch (at most 0.5 in ln q) is trusted: the log-tail is nearly linear in ln q over
+        // long stretches of a power-law tail (df = 1) and a long secant misses the curvature at
+        // the root (k = 50, df = 1, p = 0.999 then needed a second ACCURATE step).
+        let predicted = match previous_slope {
+            Some((ln_q0, log_slope0)) if ln_q0 != q.ln() && (q.ln() - ln_q0).abs() <= 0.5 => {
+                let curvature = (log_slope - log_slope0) / (q.ln() - ln_q0);
+                (0.5 * curvature / log_slope).abs() * log_step * log_step
+            }
+            // After a long Newton step (the far starts at small df), the constant from the two
+            // steps instead: this step is the error the previous one left, so C ~ this / previous^2
+            // (k = 50, df = 1, p = 0.99: a FAST evaluation fewer). Not after a clamped step, which
+            // was no Newton step.
+            Some((ln_q0, _)) if (q.ln() - ln_q0).abs() < 8.0 => {
+                let previous_step = q.ln() - ln_q0;
+                log_step.abs() / (previous_step * previous_step) * log_step * log_step
+            }
+            _ => f64::INFINITY,
+        };
+        previous_slope = Some((q.ln(), log_slope));
         let next = q * (-log_step).exp();
         let step = q - next;
         q = next;
         // Newton converges quadratically: a step below 1e-7 of q leaves an error of order 1e-14.
         // The FAST quadrature carries the iterate to within its own accuracy of the root (its
-        // steps fall below 1e-6 of q); then ACCURATE steps until one is below 1e-7.
+        // steps fall below 1e-6 of q, or the error predicted after this step falls below 1e-8 of
+        // q, which saves the FAST evaluation that would only confirm it); then ACCURATE steps
+        // until one is below 1e-7. The prediction only chooses when the ACCURATE steps begin, so
+        // a wrong one costs an ACCURATE step more, never accuracy: the stop is the same 1e-7.
         let is_accurate = std::ptr::eq(prec, &ACCURATE_WITH_DENSITY);
         if is_accurate && (step.abs() <= 1e-7 * q || error.abs() <= 1e-15) {
             return Ok(q);
         }
-        if !is_accurate && (step.abs() <= 1e-6 * q || error.abs() <= 1e-15) {
+        if !is_accurate && (step.abs() <= 1e-6 * q || predicted <= 1e-8 || error.abs() <= 1e-15) {
             prec = &ACCURATE_WITH_DENSITY;
         }
     }
@@ -294,11 +327,26 @@ fn inner_level(k: f64, prec: &Precision) -> usize {
 /// Returns `(tail, density at q)` where `tail` is `P(Q > q)` when `upper` and `P(Q <= q)`
 /// otherwise, integrated directly (positive integrands, no cancellation either way).
 fn evaluate(q: f64, k: f64, df: f64, upper: bool, prec: &Precision) -> (f64, f64) {
+    evaluate_near(q, k, df, upper, prec, &Cell::new(None))
+}
+
+/// [`evaluate`] for a sequence of nearby `q` (the Newton steps of [`qtukey`]): `peak` holds the
+/// peak of the outer integrand found at the previous `q`, from which the next search starts.
+fn evaluate_near(
+    q: f64,
+    k: f64,
+    df: f64,
+    upper: bool,
+    prec: &Precision,
+    peak: &Cell<Option<OuterPeak>>,
+) -> (f64, f64) {
     let table = table::table_for(k);
     if df == f64::INFINITY || df > 1.0e15 {
         return table.tail(q, upper);
     }
-    outer_trapezoid(q, k, df, upper, prec, |w, t| table.tail_at(w, t, upper))
+    outer_trapezoid(q, k, df, upper, prec, peak, |w, t| {
+        table.tail_at(w, t, upper)
+    })
 }
 
 /// [`evaluate`] with the inner probability integrated directly at every outer node instead of
@@ -404,6 +452,7 @@ fn outer_trapezoid(
     df: f64,
     upper: bool,
     prec: &Precision,
+    hint: &Cell<Option<OuterPeak>>,
     inner: impl Fn(f64, f64) -> (f64, f64),
 ) -> (f64, f64) {
     let nu = df;
@@ -424,7 +473,19 @@ fn outer_trapezoid(
     // of the upper tail at the start, and the sharpness of the range for large k.
     let tau = 0.6 / (1.0 + k.ln());
     let fallback = (2.0 * nu + if upper { q * q } else { 0.0 }) * (2.0 * start).exp();
-    let mut peak = start;
+    // From the peak at a nearby q when there is one (the Newton steps of the quantile), moved by
+    // its first-order shift. At the peak g'(u) + h'(ln q + u) = 0 (g the log chi density, h the
+    // log inner tail), so du / d ln q = -h'' / (g'' + h'') = -1 - g''(u) / c with c = -(g'' + h'')
+    // the curvature found there and g''(u) = -2 nu e^(2u). Where the tail sets the peak (large k,
+    // small df) the Gaussian-tail start above is far off (0.6 in u at k = 50, df = 2.5: six
+    // Newton steps of three slopes each); from the moved peak one or two steps suffice.
+    let mut peak = match hint.get() {
+        Some(near) if near.upper == upper && near.nu == nu => {
+            let shift = -1.0 + 2.0 * nu * (2.0 * near.u).exp() / near.curvature;
+            near.u + shift * (ln_q - near.ln_q)
+        }
+        _ => start,
+    };
     let mut curvature = None;
     for _ in 0..40 {
         let delta = 1e-3 * tau.min(fallback.sqrt().recip());
@@ -440,13 +501,27 @@ fn outer_trapezoid(
         curvature = Some(-d2);
         let step = (d1 / d2).clamp(-1.0, 1.0);
         peak -= step;
-        if step.abs() <= 1e-3 * delta {
+        // Newton converges quadratically: after a step of 1e-3 of the scale the peak is within
+        // about 1e-6 of it, and the trapezoidal sum does not depend on where its nodes sit.
+        if step.abs() <= 1e-3 * tau.min((-d2).sqrt().recip()) {
             break;
         }
     }
     let (start, scale) = match curvature {
-        Some(c) => (peak, tau.min(c.sqrt().recip())),
-        None => (start, tau.min(fallback.sqrt().recip())),
+        Some(c) => {
+            hint.set(Some(OuterPeak {
+                upper,
+                nu,
+                ln_q,
+                u: peak,
+                curvature: c,
+            }));
+            (peak, tau.min(c.sqrt().recip()))
+        }
+        None => {
+            hint.set(None);
+            (start, tau.min(fallback.sqrt().recip()))
+        }
     };
     // The e^(2u) of the chi density limits the strip of analyticity to |Im u| < pi / 4, whatever
     // the scale: a step of at most 1/6 of the scale unit keeps exp(-2 pi 0.7 / h) below 1e-17.
@@ -498,6 +573,18 @@ fn outer_trapezoid(
         }
     }
     ((h * total).min(1.0), h * total_density)
+}
+
+/// Where [`outer_trapezoid`] found the peak of its log-integrand, for the next nearby `q`.
+#[derive(Clone, Copy)]
+struct OuterPeak {
+    upper: bool,
+    nu: f64,
+    ln_q: f64,
+    /// The peak in `u = ln s`.
+    u: f64,
+    /// Minus the second derivative of the log-integrand there.
+    curvature: f64,
 }
 
 /// The constant of the log-density of `u = ln s` ([`evaluate`]): `0.5 ln(nu / pi) - c(nu / 2)`.
