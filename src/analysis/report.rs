@@ -269,11 +269,21 @@ fn chart_runs<'c>(
     from: DateTime<Utc>,
     to: DateTime<Utc>,
 ) -> Result<(&'c CharacteristicConfig, Vec<LoadedRun>, Vec<EventMarker>)> {
-    let c = find_characteristic(config, characteristic)?;
-    find_factor(config, factor)?;
+    let c = chart_names(config, characteristic, factor)?;
     let loaded = load_runs(store, kind, from, to)?;
     let events = event_markers(store, Some(characteristic), from, to)?;
     Ok((c, loaded, events))
+}
+
+/// The configured characteristic of a chart, once both its names are known.
+fn chart_names<'c>(
+    config: &'c Config,
+    characteristic: &str,
+    factor: &str,
+) -> Result<&'c CharacteristicConfig> {
+    let c = find_characteristic(config, characteristic)?;
+    find_factor(config, factor)?;
+    Ok(c)
 }
 
 /// The group trend of `characteristic` by `factor` over the `kind` periods starting in
@@ -365,10 +375,14 @@ fn grid_from_runs(
 /// The month grid: one row per active characteristic x factor, one column per production day of
 /// the month, each cell the state of the latest complete daily run ("not run" where none).
 pub fn grid_input(store: &Store, config: &Config, month: &Period) -> Result<GridInput> {
-    let calendar = PlantCalendar::new(config);
-    let days = days_of(&calendar, month);
     let loaded = load_runs(store, PeriodKind::Day, month.start, month.end)?;
-    Ok(grid_from_runs(config, month, &days, &loaded))
+    Ok(month_grid(config, month, &loaded))
+}
+
+/// [`grid_input`] from the month's daily runs, already loaded.
+fn month_grid(config: &Config, month: &Period, loaded: &[LoadedRun]) -> GridInput {
+    let days = days_of(&PlantCalendar::new(config), month);
+    grid_from_runs(config, month, &days, loaded)
 }
 
 /// Values of one characteristic in `[start, end)` split by the levels of one factor:
@@ -886,23 +900,27 @@ pub fn write_story_charts(
     let all_from = DateTime::<Utc>::MIN_UTC;
     let all_to = month.end;
     let size = Size::DEFAULT;
+    // Every stored daily run up to the month's end, read once: the trend and share charts draw
+    // all of them, the grid and the detail chart the month's (the runs come in start order).
+    let history = load_runs(store, PeriodKind::Day, all_from, all_to)?;
+    let month_runs = &history[history.partition_point(|r| r.start() < month.start)..];
     let (trend_c, trend_f) = story.trend;
-    let day = PeriodKind::Day;
-    sink.render_or_skip(
-        "trend",
-        &format!("trend_{trend_c}_by_{trend_f}"),
-        trend_input(store, config, trend_c, trend_f, day, all_from, all_to),
-        |_| size,
-        report::render_trend,
-    )?;
-    sink.render_or_skip(
-        "share",
-        &format!("share_{trend_c}_by_{trend_f}"),
-        share_input(store, config, trend_c, trend_f, day, all_from, all_to),
-        |_| size,
-        report::render_share,
-    )?;
-    let grid = grid_input(store, config, month)?;
+    let trend_chart = chart_names(config, trend_c, trend_f)
+        .and_then(|c| Ok((c, event_markers(store, Some(trend_c), all_from, all_to)?)));
+    match trend_chart {
+        Ok((c, events)) => {
+            let trend = trend_from_runs(c, trend_f, &history, events.clone());
+            let share = share_from_runs(c, trend_f, &history, events);
+            let name = format!("{trend_c}_by_{trend_f}");
+            sink.render(&format!("trend_{name}"), &trend, size, report::render_trend)?;
+            sink.render(&format!("share_{name}"), &share, size, report::render_share)?;
+        }
+        Err(e) => {
+            sink.skipped.push(format!("trend: {e}"));
+            sink.skipped.push(format!("share: {e}"));
+        }
+    }
+    let grid = month_grid(config, month, month_runs);
     sink.render(
         &format!("grid_{}", month.label),
         &grid,
@@ -910,15 +928,14 @@ pub fn write_story_charts(
         report::render_grid,
     )?;
     let calendar = PlantCalendar::new(config);
-    let loaded = load_runs(store, PeriodKind::Day, month.start, month.end)?;
     let (detail_c, detail_f) = story.detail;
-    let flagged_day = loaded
+    let flagged_day = month_runs
         .iter()
         .find(|r| {
             r.test(detail_c, detail_f)
                 .is_some_and(|t| runs::is_flag_state(&t.state))
         })
-        .or_else(|| loaded.first())
+        .or_else(|| month_runs.first())
         .map(|r| r.run.header.period_label.clone());
     match flagged_day {
         Some(label) => {
