@@ -393,7 +393,36 @@ impl LevelSetWriter {
 }
 
 /// The `level_sets.key` of a combination: member level ids in factor-id order, comma-separated.
+/// (`samewise db check` rebuilds it from `level_set_members` with the same order and separator.)
 fn level_set_key(members: &[(i64, i64)]) -> String {
     let ids: Vec<String> = members.iter().map(|(_, level)| level.to_string()).collect();
     ids.join(",")
+}
+
+/// The member level ids a `level_sets.key` lists ([`level_set_key`]), in order; `None` for a
+/// part that is not an id.
+pub(crate) fn level_set_key_ids(key: &str) -> impl Iterator<Item = Option<i64>> + '_ {
+    key.split(',')
+        .filter(|part| !part.is_empty())
+        .map(|part| part.parse().ok())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn level_set_key_lists_the_levels_in_factor_order_and_reads_back() {
+        // (factor id, level id) pairs, sorted by factor as the import sorts them.
+        let key = level_set_key(&[(1, 12), (2, 7), (5, 30)]);
+        assert_eq!(key, "12,7,30");
+        let ids = |key: &str| level_set_key_ids(key).collect::<Option<Vec<i64>>>();
+        assert_eq!(ids(&key), Some(vec![12, 7, 30]));
+        // No configured factor: an empty key, no members.
+        assert_eq!(level_set_key(&[]), "");
+        assert_eq!(ids(""), Some(vec![]));
+        for bad in ["12,x", "1.5", "12;7", " 3"] {
+            assert_eq!(ids(bad), None, "{bad}");
+        }
+    }
 }

@@ -15,7 +15,7 @@ use crate::config::CharacteristicConfig;
 use crate::stats::decimal::Decimal;
 use crate::{Error, Result};
 
-use super::master::{load_characteristics, load_factors, StoredCharacteristic};
+use super::master::{level_set_key_ids, load_characteristics, load_factors, StoredCharacteristic};
 use super::Store;
 
 /// The level shown for a factor a measurement has no level of (it was imported before the factor
@@ -223,18 +223,18 @@ impl Store {
             missing.clear();
             for &set in &sets {
                 if frame_levels.set_slot.get(set).is_none() {
-                    if cache.sets.get(set).is_some() {
-                        frame_levels.resolve(set, &cache);
-                    } else {
-                        missing.push(set);
+                    match cache.sets.get(set) {
+                        Some(start) => frame_levels.resolve(set, start, &cache),
+                        None => missing.push(set),
                     }
                 }
             }
             missing.sort_unstable();
             missing.dedup();
-            fetch_members(&self.conn, &mut cache, &missing)?;
+            fetch_level_sets(&self.conn, &mut cache, &missing)?;
             for &set in &missing {
-                frame_levels.resolve(set, &cache);
+                let start = cache.sets.get(set).expect("fetched above");
+                frame_levels.resolve(set, start, &cache);
             }
             let mut level_idx: Vec<Vec<u32>> = vec![Vec::with_capacity(sets.len()); n_factors];
             for set in &sets {
@@ -342,9 +342,8 @@ struct FrameLevels {
 }
 
 impl FrameLevels {
-    /// Assigns the frame's level indices to a level set held in `cache`.
-    fn resolve(&mut self, set: i64, cache: &LevelCache) {
-        let start = cache.sets.get(set).expect("resolved sets are cached");
+    /// Assigns the frame's level indices to a level set held in `cache` from `start` on.
+    fn resolve(&mut self, set: i64, start: usize, cache: &LevelCache) {
         let base = self.set_levels.len();
         for (f, &level) in cache.members[start..start + self.n_factors]
             .iter()
@@ -381,7 +380,7 @@ impl FrameLevels {
 /// as its `level_set_members` rows (both are written together by the import, and `samewise db
 /// check` verifies that they agree), and each level belongs to one factor. One row per set
 /// instead of one per member makes a cold read of a characteristic-day several times cheaper.
-fn fetch_members(
+fn fetch_level_sets(
     conn: &rusqlite::Connection,
     cache: &mut LevelCache,
     missing: &[i64],
@@ -411,8 +410,8 @@ fn fetch_members(
                 .as_str()
                 .map_err(|_| bad_key(set, "(not text)"))?;
             let start = cache.sets.get(set).expect("inserted above");
-            for part in key.split(',').filter(|p| !p.is_empty()) {
-                let level_id: i64 = part.parse().map_err(|_| bad_key(set, key))?;
+            for level_id in level_set_key_ids(key) {
+                let level_id = level_id.ok_or_else(|| bad_key(set, key))?;
                 if !cache.levels.contains_key(&level_id) && !levels_read {
                     read_levels(conn, &mut cache.levels)?;
                     levels_read = true;
