@@ -126,8 +126,8 @@ pub fn run(args: &CheckArgs) -> Result<ExitCode> {
     }))
 }
 
-/// A number in 4 significant digits, or "-" when absent.
-pub fn num(x: Option<f64>) -> String {
+/// A table cell: the number to 4 significant digits, or "-" when absent.
+pub fn cell(x: Option<f64>) -> String {
     match x {
         None => "-".into(),
         Some(0.0) => "0".into(),
@@ -166,7 +166,7 @@ pub fn standout(t: &TestRow) -> String {
         } else {
             ""
         },
-        num(t.standout_diff)
+        cell(t.standout_diff)
     );
     if let Some(sd) = t.standout_sd_units {
         s.push_str(&format!(" ({:+.2} SD", sd));
@@ -234,9 +234,9 @@ pub fn print_summary(
             t.characteristic,
             t.factor,
             leading(t),
-            num(t.leading_statistic),
-            num(t.leading_p),
-            num(t.q_value),
+            cell(t.leading_statistic),
+            cell(t.leading_p),
+            cell(t.q_value),
             share(t),
             standout(t),
             if t.is_new { "new" } else { "" }

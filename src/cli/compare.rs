@@ -335,21 +335,21 @@ pub fn run(args: &CompareArgs) -> Result<std::process::ExitCode> {
 // ---------------------------------------------------------------------------------------------
 // JSON
 
-use super::format::{num, put};
+use super::format::{json_number, put};
 
 fn test_json(r: &TestResult, statistic_name: &str) -> Value {
     let mut m = Map::new();
-    m.insert(statistic_name.to_string(), num(r.statistic));
+    m.insert(statistic_name.to_string(), json_number(r.statistic));
     if let Some(d) = r.df1 {
         m.insert(
             if r.df2.is_some() { "df1" } else { "df" }.to_string(),
-            num(d),
+            json_number(d),
         );
     }
     if let Some(d) = r.df2 {
-        m.insert("df2".to_string(), num(d));
+        m.insert("df2".to_string(), json_number(d));
     }
-    m.insert("p".to_string(), num(r.p));
+    m.insert("p".to_string(), json_number(r.p));
     Value::Object(m)
 }
 
@@ -361,7 +361,7 @@ pub fn to_json(
     options: &OneWayOptions,
 ) -> Value {
     let origin = data.origin.to_f64();
-    let abs = |offset: f64| num(origin + offset);
+    let abs = |offset: f64| json_number(origin + offset);
     let groups: Vec<Value> = data
         .names
         .iter()
@@ -371,11 +371,11 @@ pub fn to_json(
             m.insert("name".into(), Value::String(name.clone()));
             m.insert("n".into(), json!(s.n));
             m.insert("mean".into(), abs(s.mean));
-            m.insert("mean_offset".into(), num(s.mean));
+            m.insert("mean_offset".into(), json_number(s.mean));
             let sd: Stat<f64> = s
                 .sd()
                 .ok_or_else(|| crate::stats::Unavailable::new("a group of one value has no SD"));
-            put(&mut m, "sd", &sd, |v| num(*v));
+            put(&mut m, "sd", &sd, |v| json_number(*v));
             m.insert("min".into(), abs(s.min));
             m.insert("max".into(), abs(s.max));
             Value::Object(m)
@@ -400,10 +400,10 @@ pub fn to_json(
     root.insert("groups".into(), Value::Array(groups));
     put(&mut root, "anova", &r.anova, |t| {
         json!({
-            "ss_between": num(t.ss_between), "ss_within": num(t.ss_within), "ss_total": num(t.ss_total),
-            "df_between": num(t.df_between), "df_within": num(t.df_within), "df_total": num(t.df_total),
-            "ms_between": num(t.ms_between), "ms_within": num(t.ms_within),
-            "f": num(t.f), "p": num(t.p), "r_squared": num(t.r_squared), "resid_sd": num(t.resid_sd),
+            "ss_between": json_number(t.ss_between), "ss_within": json_number(t.ss_within), "ss_total": json_number(t.ss_total),
+            "df_between": json_number(t.df_between), "df_within": json_number(t.df_within), "df_total": json_number(t.df_total),
+            "ms_between": json_number(t.ms_between), "ms_within": json_number(t.ms_within),
+            "f": json_number(t.f), "p": json_number(t.p), "r_squared": json_number(t.r_squared), "resid_sd": json_number(t.resid_sd),
             "grand_mean": abs(t.grand_mean),
         })
     });
@@ -420,20 +420,20 @@ pub fn to_json(
     put(&mut root, "bartlett", &r.bartlett, |t| {
         test_json(t, "statistic")
     });
-    put(&mut root, "sd_ratio", &r.sd_ratio, |v| num(*v));
+    put(&mut root, "sd_ratio", &r.sd_ratio, |v| json_number(*v));
     put(&mut root, "n_beyond_3sd", &r.n_beyond_3sd, |v| json!(v));
     put(
         &mut root,
         "shapiro_wilk",
         &r.shapiro_wilk,
-        |t| json!({"w": num(t.w), "p": num(t.p), "n": t.n}),
+        |t| json!({"w": json_number(t.w), "p": json_number(t.p), "n": t.n}),
     );
     put(&mut root, "effect", &r.effect, |e| {
         json!({
-            "eta_squared": num(e.eta_squared),
-            "omega_squared": num(e.omega_squared),
-            "mean_spread": num(e.mean_spread),
-            "mean_spread_pct_tolerance": e.mean_spread_pct_tolerance.map_or(Value::Null, num),
+            "eta_squared": json_number(e.eta_squared),
+            "omega_squared": json_number(e.omega_squared),
+            "mean_spread": json_number(e.mean_spread),
+            "mean_spread_pct_tolerance": e.mean_spread_pct_tolerance.map_or(Value::Null, json_number),
         })
     });
     put(
@@ -441,20 +441,20 @@ pub fn to_json(
         "variance_components",
         &r.variance_components,
         |v| {
-            let interval = |i: &crate::stats::variance_components::Interval| json!({"low": num(i.low), "high": num(i.high)});
+            let interval = |i: &crate::stats::variance_components::Interval| json!({"low": json_number(i.low), "high": json_number(i.high)});
             let mut m = Map::new();
-            m.insert("between".into(), num(v.between));
-            m.insert("between_raw".into(), num(v.between_raw));
+            m.insert("between".into(), json_number(v.between));
+            m.insert("between_raw".into(), json_number(v.between_raw));
             m.insert("is_truncated".into(), json!(v.is_truncated));
-            m.insert("within".into(), num(v.within));
-            m.insert("share_between".into(), num(v.share_between));
-            m.insert("icc".into(), num(v.icc));
-            m.insert("n0".into(), num(v.n0));
+            m.insert("within".into(), json_number(v.within));
+            m.insert("share_between".into(), json_number(v.share_between));
+            m.insert("icc".into(), json_number(v.icc));
+            m.insert("n0".into(), json_number(v.n0));
             m.insert("is_balanced".into(), json!(v.is_balanced));
             m.insert("within_ci".into(), interval(&v.within_ci));
             put(&mut m, "icc_ci", &v.icc_ci, interval);
             put(&mut m, "between_ci", &v.between_ci, interval);
-            m.insert("confidence".into(), num(options.confidence));
+            m.insert("confidence".into(), json_number(options.confidence));
             m.insert("method".into(), Value::String(v.method.to_string()));
             m.insert("notes".into(), json!(v.notes));
             Value::Object(m)
@@ -467,9 +467,9 @@ pub fn to_json(
             Ok(p) => json!({
                 "a": p.a, "b": p.b,
                 "a_name": data.names[p.a], "b_name": data.names[p.b],
-                "diff": num(p.diff), "se": num(p.se), "statistic": num(p.statistic),
-                "df": num(p.df), "p_adj": num(p.p_adj),
-                "ci_low": num(p.ci_low), "ci_high": num(p.ci_high),
+                "diff": json_number(p.diff), "se": json_number(p.se), "statistic": json_number(p.statistic),
+                "df": json_number(p.df), "p_adj": json_number(p.p_adj),
+                "ci_low": json_number(p.ci_low), "ci_high": json_number(p.ci_high),
                 "method": p.method.name(),
             }),
             Err(e) => json!({"pair": Value::Null, "pair_reason": e.reason}),
@@ -486,11 +486,13 @@ pub fn to_json(
                 Value::String(data.names[g.group_idx].clone()),
             );
             m.insert("group_idx".into(), json!(g.group_idx));
-            m.insert("diff_from_grand".into(), num(g.diff_from_grand));
-            put(&mut m, "diff_sd_units", &g.diff_sd_units, |v| num(*v));
+            m.insert("diff_from_grand".into(), json_number(g.diff_from_grand));
+            put(&mut m, "diff_sd_units", &g.diff_sd_units, |v| {
+                json_number(*v)
+            });
             m.insert(
                 "diff_pct_tolerance".into(),
-                g.diff_pct_tolerance.map_or(Value::Null, num),
+                g.diff_pct_tolerance.map_or(Value::Null, json_number),
             );
             Value::Object(m)
         })
@@ -498,19 +500,20 @@ pub fn to_json(
     root.insert("group_effects".into(), Value::Array(effects));
     put(&mut root, "sensitivity", &r.sensitivity, |s| {
         let mut m = Map::new();
-        m.insert("alpha".into(), num(s.alpha));
-        m.insert("power_target".into(), num(s.power_target));
+        m.insert("alpha".into(), json_number(s.alpha));
+        m.insert("power_target".into(), json_number(s.power_target));
         put(&mut m, "min_detectable_diff", &s.min_detectable_diff, |v| {
-            num(*v)
+            json_number(*v)
         });
         m.insert(
             "min_detectable_pct_tolerance".into(),
-            s.min_detectable_pct_tolerance.map_or(Value::Null, num),
+            s.min_detectable_pct_tolerance
+                .map_or(Value::Null, json_number),
         );
-        m.insert("detect".into(), s.detect.map_or(Value::Null, num));
+        m.insert("detect".into(), s.detect.map_or(Value::Null, json_number));
         m.insert(
             "power_at_detect".into(),
-            s.power_at_detect.map_or(Value::Null, num),
+            s.power_at_detect.map_or(Value::Null, json_number),
         );
         match &s.n_needed {
             None => {
@@ -527,8 +530,8 @@ pub fn to_json(
             "method": match l.method { LeadingMethod::ClassicF => "classic_f", LeadingMethod::Welch => "welch" },
             "reason": l.reason,
             "recommend_kruskal_wallis": l.recommend_kruskal_wallis,
-            "statistic": l.statistic.map_or(Value::Null, num),
-            "p": l.p.map_or(Value::Null, num),
+            "statistic": l.statistic.map_or(Value::Null, json_number),
+            "p": l.p.map_or(Value::Null, json_number),
         }),
     );
     root.insert("caution".into(), Value::String(crate::CAUTION.to_string()));

@@ -40,8 +40,8 @@ pub fn dfmt(df: f64) -> String {
     }
 }
 
-/// A finite number, or null (callers pair a null with a reason).
-pub fn num(x: f64) -> Value {
+/// A finite number as JSON, or null (callers pair a null with a reason).
+pub fn json_number(x: f64) -> Value {
     serde_json::Number::from_f64(x).map_or(Value::Null, Value::Number)
 }
 

@@ -7,7 +7,7 @@ use std::process::ExitCode;
 
 use clap::Args;
 
-use super::check::{leading, num, share, standout};
+use super::check::{cell, leading, share, standout};
 use crate::analysis::state;
 use crate::storage::runs;
 use crate::{Error, Result};
@@ -78,9 +78,9 @@ pub fn run(args: &HistoryArgs) -> Result<ExitCode> {
                 "{:<24} {:<8} {:>9} {:>9} {:>9} {:>8}  {:<22} {}",
                 p.run.header.period_label,
                 leading(t),
-                num(t.leading_statistic),
-                num(t.leading_p),
-                num(t.q_value),
+                cell(t.leading_statistic),
+                cell(t.leading_p),
+                cell(t.q_value),
                 share(t),
                 state::label(&t.state),
                 standout(t)

@@ -196,7 +196,7 @@ pub struct NearEvent {
 // ---------------------------------------------------------------------------------------------
 // Number formatting
 
-use super::format::{num, put, pval, sig};
+use super::format::{json_number, put, pval, sig};
 
 // ---------------------------------------------------------------------------------------------
 // Before/after: JSON
@@ -206,30 +206,36 @@ fn group_json(g: &GroupChange, origin: f64) -> Value {
     m.insert("group".into(), json!(g.group));
     m.insert("n_before".into(), json!(g.before.n));
     m.insert("n_after".into(), json!(g.after.n));
-    m.insert("mean_before".into(), num(origin + g.before.mean));
-    m.insert("mean_after".into(), num(origin + g.after.mean));
-    m.insert("sd_before".into(), g.before.sd().map_or(Value::Null, num));
-    m.insert("sd_after".into(), g.after.sd().map_or(Value::Null, num));
+    m.insert("mean_before".into(), json_number(origin + g.before.mean));
+    m.insert("mean_after".into(), json_number(origin + g.after.mean));
+    m.insert(
+        "sd_before".into(),
+        g.before.sd().map_or(Value::Null, json_number),
+    );
+    m.insert(
+        "sd_after".into(),
+        g.after.sd().map_or(Value::Null, json_number),
+    );
     put(&mut m, "mean_shift", &g.mean_shift, |s| {
-        json!({"shift": num(s.shift), "se": num(s.se), "df": num(s.df), "t": num(s.t), "p": num(s.p),
-               "ci_low": num(s.ci_low), "ci_high": num(s.ci_high), "confidence": num(s.confidence),
+        json!({"shift": json_number(s.shift), "se": json_number(s.se), "df": json_number(s.df), "t": json_number(s.t), "p": json_number(s.p),
+               "ci_low": json_number(s.ci_low), "ci_high": json_number(s.ci_high), "confidence": json_number(s.confidence),
                "method": "Welch two-sample t"})
     });
     put(&mut m, "sd_ratio", &g.sd_ratio, |r| {
-        json!({"ratio": num(r.ratio), "ci_low": num(r.ci_low), "ci_high": num(r.ci_high), "f": num(r.f),
-               "df1": num(r.df1), "df2": num(r.df2), "p": num(r.p), "confidence": num(r.confidence),
+        json!({"ratio": json_number(r.ratio), "ci_low": json_number(r.ci_low), "ci_high": json_number(r.ci_high), "f": json_number(r.f),
+               "df1": json_number(r.df1), "df2": json_number(r.df2), "p": json_number(r.p), "confidence": json_number(r.confidence),
                "method": "F interval for the variance ratio (after / before)"})
     });
     put(&mut m, "brown_forsythe", &g.brown_forsythe, |t| {
-        json!({"statistic": num(t.statistic), "df1": t.df1.map_or(Value::Null, num),
-               "df2": t.df2.map_or(Value::Null, num), "p": num(t.p)})
+        json!({"statistic": json_number(t.statistic), "df1": t.df1.map_or(Value::Null, json_number),
+               "df2": t.df2.map_or(Value::Null, json_number), "p": json_number(t.p)})
     });
     Value::Object(m)
 }
 
 fn share_json(v: &VarianceComponents) -> Value {
-    json!({"share_between": num(v.share_between), "between": num(v.between), "within": num(v.within),
-           "is_truncated": v.is_truncated, "icc_ci": v.icc_ci.as_ref().ok().map(|i| json!([num(i.low), num(i.high)])),
+    json!({"share_between": json_number(v.share_between), "between": json_number(v.between), "within": json_number(v.within),
+           "is_truncated": v.is_truncated, "icc_ci": v.icc_ci.as_ref().ok().map(|i| json!([json_number(i.low), json_number(i.high)])),
            "method": v.method})
 }
 
@@ -237,12 +243,12 @@ fn term_json(row: &Stat<TermRow>) -> Value {
     let mut m = Map::new();
     match row {
         Ok(r) => {
-            m.insert("ss".into(), num(r.ss));
+            m.insert("ss".into(), json_number(r.ss));
             m.insert("df".into(), json!(r.df));
-            m.insert("ms".into(), num(r.ms));
+            m.insert("ms".into(), json_number(r.ms));
             put(&mut m, "test", &r.test, |t: &TestResult| {
-                json!({"f": num(t.statistic), "p": num(t.p), "df1": t.df1.map_or(Value::Null, num),
-                       "df2": t.df2.map_or(Value::Null, num)})
+                json!({"f": json_number(t.statistic), "p": json_number(t.p), "df1": t.df1.map_or(Value::Null, json_number),
+                       "df2": t.df2.map_or(Value::Null, json_number)})
             });
         }
         Err(e) => {
@@ -268,7 +274,7 @@ fn two_way_json(t: &TwoWay) -> Value {
     put(&mut m, "type3", &t.type3, table_json);
     m.insert(
         "residual".into(),
-        json!({"ss": num(t.residual.ss), "df": t.residual.df, "ms": t.residual.ms.map_or(Value::Null, num)}),
+        json!({"ss": json_number(t.residual.ss), "df": t.residual.df, "ms": t.residual.ms.map_or(Value::Null, json_number)}),
     );
     m.insert("notes".into(), json!(t.notes));
     Value::Object(m)
@@ -522,11 +528,11 @@ pub fn scan_json(ctx: &Context, scans: &[GroupScan], nearest: &[Vec<Vec<NearEven
                             json!({
                                 "at": format_ms(g.change_ms[ci]), "at_ms": g.change_ms[ci],
                                 "at_range": [format_ms(g.change_range_ms[ci].0), format_ms(g.change_range_ms[ci].1)],
-                                "index": c.index, "shift": num(c.shift), "se": num(c.se),
-                                "shift_ci": [num(c.shift_low), num(c.shift_high)],
-                                "mean_before": num(ctx.origin + c.before.mean), "mean_after": num(ctx.origin + c.after.mean),
+                                "index": c.index, "shift": json_number(c.shift), "se": json_number(c.se),
+                                "shift_ci": [json_number(c.shift_low), json_number(c.shift_high)],
+                                "mean_before": json_number(ctx.origin + c.before.mean), "mean_after": json_number(ctx.origin + c.after.mean),
                                 "n_before": c.before.n, "n_after": c.after.n,
-                                "p": num(c.p), "share_explained": num(c.share_explained),
+                                "p": json_number(c.p), "share_explained": json_number(c.share_explained),
                                 "nearest_events": near,
                             })
                         })
