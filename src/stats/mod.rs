@@ -10,12 +10,14 @@
 
 pub mod anova;
 pub mod changepoint;
+pub mod constant_groups;
 pub mod decimal;
 pub mod describe;
 pub mod distributions;
 pub mod effect;
 pub mod fdr;
 pub mod kruskal;
+pub mod materiality;
 pub mod noncentral;
 pub mod normality;
 pub mod oneway;
