@@ -6,20 +6,31 @@
 //! [`CheckOptions`].
 //!
 //! Flag states (our own names), decided per test after the FDR adjustment over the run:
-//! - `differs_material` ("differs and material"): `q <= level` and the spread of the group means
-//!   (largest minus smallest) is at least `material_share` of the tolerance (USL - LSL);
-//! - `differs`: `q <= level`, and the spread is smaller than that share or no tolerance is set
-//!   (then materiality cannot be judged; the notes say so);
+//! - `differs_material` ("differs and material"): `q <= level` and the difference the data
+//!   support at the least is at least `material_share` of the reference: the bound nearest zero
+//!   of the standing-out group's interval against the other groups
+//!   ([`crate::stats::materiality`], Bonferroni over the groups since that group was picked as the
+//!   furthest out), against the tolerance width (USL - LSL) or, with a single limit, the
+//!   distance from the target (or the test's grand mean) to that limit. The range of the group
+//!   means is not used: with many small groups noise alone makes it wide;
+//! - `differs`: `q <= level`, and the supported difference is below that share or no limit is
+//!   set (then materiality cannot be judged; the notes say so);
 //! - `no_evidence`: `q > level`;
+//! - `too_few_to_compare`: there are groups to compare, but no available test holds its level on
+//!   data of this shape (small groups whose spreads look different, or very unequal group sizes
+//!   with fewer than five values in a group; [`crate::stats::oneway::choose_leading`], proven by the
+//!   null-rate study in docs/null-rates.md): no p-value, and the reason in the notes;
 //! - `too_little_data`: fewer than two groups with at least `max(min_per_group, 2)` values.
 //!   Groups below that size are left out of the test (and named in the notes); when fewer than
 //!   two remain, the test is kept in the results with this state and *no* p-value.
 //!
 //! The FDR family is every test of the run that has a p-value (the leading method's p). Tests in
-//! `too_little_data`, and tests whose leading statistic is unavailable (zero within-group
-//! variance, say), have no p and are not part of the family: they could never be rejected, and
-//! counting them would only dilute `m`. Their state is `too_little_data` or `no_evidence` with the
-//! reason in the notes.
+//! `too_little_data` or `too_few_to_compare`, and tests whose leading statistic is unavailable,
+//! have no p and are not part of the family: they could never be rejected, and
+//! counting them would only dilute `m`. Their state is `too_little_data`, `too_few_to_compare` or
+//! `no_evidence` with the reason in the notes. Groups that are each constant (a coarse gauge) are
+//! not such a case: the exact permutation test of [`crate::stats::constant_groups`] gives them a
+//! p-value.
 //!
 //! "New" marks a flag that the latest complete run of the previous period of the same kind did
 //! not have (when no previous run exists, every flag is new).
@@ -51,6 +62,9 @@ pub mod state {
     pub const NO_EVIDENCE: &str = "no_evidence";
     /// Fewer than two groups with enough values.
     pub const TOO_LITTLE_DATA: &str = "too_little_data";
+    /// Groups to compare, but too few values per group for any available test to hold its level
+    /// (small groups whose spreads look different, or very unequal sizes): no p-value.
+    pub const TOO_FEW_TO_COMPARE: &str = "too_few_to_compare";
 
     /// Human wording for terminal output.
     pub fn label(state: &str) -> &'static str {
@@ -58,6 +72,7 @@ pub mod state {
             DIFFERS_MATERIAL => "differs and material",
             DIFFERS => "differs",
             NO_EVIDENCE => "no evidence",
+            TOO_FEW_TO_COMPARE => "too few values to compare",
             _ => "too little data",
         }
     }
@@ -68,7 +83,8 @@ pub mod state {
             DIFFERS_MATERIAL => 0,
             DIFFERS => 1,
             NO_EVIDENCE => 2,
-            _ => 3,
+            TOO_FEW_TO_COMPARE => 3,
+            _ => 4,
         }
     }
 }
@@ -192,6 +208,11 @@ struct Partial {
     summaries: Vec<Summary>,
     levels: Vec<String>,
     leading: Option<LeadingMethod>,
+    /// The leading rule declined to judge (too few values per group to compare).
+    declined: bool,
+    /// What materiality is judged against: the tolerance width, or the distance from the target
+    /// (or the grand mean) to a single limit; with its description.
+    material_reference: Option<(f64, &'static str)>,
     confidence: f64,
 }
 
@@ -325,24 +346,31 @@ where
     let p: Vec<Option<f64>> = partials.iter().map(|t| t.row.leading_p).collect();
     let q = run_q_values(&p, options.fdr_method)?;
     for (partial, q) in partials.iter_mut().zip(q) {
+        let material = match q {
+            Some(q) if q <= options.fdr_level => Some(materiality(partial, options)),
+            _ => None,
+        };
         let row = &mut partial.row;
         row.q_value = q;
         row.state = match q {
-            Some(q) if q <= options.fdr_level => match (row.spread_of_means, row.tolerance) {
-                (Some(spread), Some(tol)) if spread >= options.material_share * tol => {
-                    state::DIFFERS_MATERIAL
+            Some(q) if q <= options.fdr_level => match material {
+                Some(Ok((is_material, note))) => {
+                    push_note(&mut row.notes, &note);
+                    if is_material {
+                        state::DIFFERS_MATERIAL
+                    } else {
+                        state::DIFFERS
+                    }
                 }
-                (_, None) => {
-                    push_note(
-                        &mut row.notes,
-                        "no tolerance (LSL and USL) configured: materiality not judged",
-                    );
+                Some(Err(reason)) => {
+                    push_note(&mut row.notes, &reason);
                     state::DIFFERS
                 }
-                _ => state::DIFFERS,
+                None => state::DIFFERS,
             },
             Some(_) => state::NO_EVIDENCE,
             None if row.n_groups_used < 2 => state::TOO_LITTLE_DATA,
+            None if partial.declined => state::TOO_FEW_TO_COMPARE,
             None => state::NO_EVIDENCE,
         }
         .to_string();
@@ -416,6 +444,62 @@ fn parallel_map<T: Sync, R: Send>(
     out.into_iter()
         .map(|r| r.expect("every item was mapped"))
         .collect()
+}
+
+/// Whether a flagged test's difference is material: the bound nearest zero of the standing-out
+/// group's interval against the rest ([`crate::stats::materiality`]) reaches `material_share` of
+/// the reference (tolerance width, or the distance to a single limit). `Err` says why it cannot
+/// be judged.
+fn materiality(partial: &Partial, options: &CheckOptions) -> Result<(bool, String), String> {
+    let Some((reference, what)) = partial.material_reference else {
+        return Err("no specification limit configured: materiality not judged".into());
+    };
+    let Some(level) = &partial.row.standout_level else {
+        return Err("no standing-out group: materiality not judged".into());
+    };
+    let standout = partial
+        .levels
+        .iter()
+        .position(|l| l == level)
+        .ok_or_else(|| "standing-out group not found: materiality not judged".to_string())?;
+    let pooled = match partial.leading {
+        Some(LeadingMethod::Welch) => None,
+        _ => partial
+            .row
+            .resid_sd
+            .zip(partial.row.anova_df2)
+            .filter(|(sd, _)| *sd > 0.0),
+    };
+    let supported = if partial.leading == Some(LeadingMethod::ExactPermutation) {
+        // Constant groups: the difference is known exactly as far as the gauge resolves.
+        let g = &partial.summaries[standout];
+        let rest = partial
+            .summaries
+            .iter()
+            .enumerate()
+            .filter(|&(i, _)| i != standout)
+            .fold(Summary::default(), |acc, (_, s)| acc.merge(s));
+        (g.mean - rest.mean).abs()
+    } else {
+        crate::stats::materiality::standout_interval(
+            &partial.summaries,
+            standout,
+            pooled,
+            partial.confidence,
+        )
+        .map_err(|e| format!("materiality not judged: {}", e.reason))?
+        .supported
+    };
+    let share = supported / reference;
+    Ok((
+        share >= options.material_share,
+        format!(
+            "materiality: {level} differs from the rest by at least {} (the near end of its interval), {:.1}% of {what} (material from {:.0}%)",
+            oneway::short(supported),
+            100.0 * share,
+            100.0 * options.material_share
+        ),
+    ))
 }
 
 fn pair_row(test_idx: i64, levels: &[String], pair: &Pair) -> PairRow {
@@ -536,6 +620,7 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
     let origin = c.origin.to_string();
     let mut summaries: Vec<Summary> = groups.iter().map(|g| Summary::from_slice(g)).collect();
     let mut leading = None;
+    let mut declined = false;
     let mut bundle_vc = None;
     let mut bundle_sensitivity = None;
     if used.len() < 2 {
@@ -558,19 +643,24 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
             Ok(ow) => {
                 summaries = ow.summaries.clone();
                 leading = Some(ow.leading.method);
-                row.leading_method = Some(
-                    match ow.leading.method {
-                        LeadingMethod::ClassicF => "classic_f",
-                        LeadingMethod::Welch => "welch",
-                    }
-                    .into(),
-                );
+                row.leading_method = Some(ow.leading.method.key().into());
+                declined = ow.leading.declined.is_some();
                 row.leading_reason = Some(ow.leading.reason.clone());
                 row.recommend_kruskal = Some(ow.leading.recommend_kruskal_wallis);
                 row.leading_statistic = ow.leading.statistic;
                 row.leading_p = ow.leading.p;
-                if ow.leading.p.is_none() {
+                if ow.leading.p.is_none() && !declined {
                     push_note(&mut notes, "the leading test has no p-value");
+                }
+                if let Ok(c) = &ow.constant_groups {
+                    // F is infinite; the table's defined parts are still given.
+                    row.ss_between = Some(c.ss_between);
+                    row.ss_within = Some(0.0);
+                    row.anova_df1 = Some(c.df_between);
+                    row.anova_df2 = Some(c.df_within);
+                    row.ms_within = Some(0.0);
+                    row.r_squared = Some(1.0);
+                    row.eta_squared = Some(1.0);
                 }
                 note_unavailable(&mut notes, "ANOVA", &ow.anova);
                 if let Ok(t) = &ow.anova {
@@ -648,6 +738,9 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
             }
         }
     }
+    if let Some(r) = c.characteristic.resolution {
+        push_resolution_notes(&mut notes, r, tol_width, row.resid_sd, &groups);
+    }
     // Group table, spread of means and the group that stands out.
     let effects = posthoc::group_effects(&summaries, row.resid_sd, tol_width);
     let mut group_rows = Vec::with_capacity(summaries.len());
@@ -685,13 +778,97 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
         }
     }
     row.notes = notes;
+    let material_reference = material_reference(c, &summaries);
     Partial {
         row,
         groups: group_rows,
         summaries,
         levels,
         leading,
+        declined,
+        material_reference,
         confidence: options.confidence,
     }
+}
+
+/// Notes on a coarse gauge: a resolution above a tenth of the tolerance, or above a tenth of the
+/// process spread (six within-group SDs), both common practice ("the ten-to-one rule"); and, when
+/// it is coarse, how few distinct values the readings take.
+fn push_resolution_notes(
+    notes: &mut String,
+    resolution: f64,
+    tolerance: Option<f64>,
+    within_sd: Option<f64>,
+    groups: &[&[f64]],
+) {
+    let mut coarse = Vec::new();
+    if let Some(t) = tolerance.filter(|t| resolution > t / 10.0) {
+        coarse.push(format!(
+            "{:.0}% of the tolerance (at most 10% is common practice)",
+            100.0 * resolution / t
+        ));
+    }
+    if let Some(sd) = within_sd.filter(|sd| *sd > 0.0 && resolution > 0.6 * sd) {
+        coarse.push(format!(
+            "{:.2} within-group SDs (at most a tenth of the process spread, 0.6 SD, is common practice)",
+            resolution / sd
+        ));
+    }
+    if coarse.is_empty() {
+        return;
+    }
+    let mut steps: Vec<i64> = groups
+        .iter()
+        .flat_map(|g| g.iter().map(|v| (v / resolution).round() as i64))
+        .collect();
+    steps.sort_unstable();
+    steps.dedup();
+    push_note(
+        notes,
+        &format!(
+            "coarse gauge: its resolution {} is {}; the readings take {} distinct values, so tests lose power and Kruskal-Wallis works on many ties{}",
+            oneway::short(resolution),
+            coarse.join(" and "),
+            steps.len(),
+            if steps.len() < 5 { " (fewer than 5 distinct values: read every p-value with care)" } else { "" }
+        ),
+    );
+}
+
+/// What a difference is judged against for materiality: the tolerance width when both limits
+/// are set; with one limit, the distance from the target (or, without one, the grand mean of the
+/// test) to that limit.
+fn material_reference(
+    c: &FrameCharacteristic,
+    summaries: &[Summary],
+) -> Option<(f64, &'static str)> {
+    let t = tolerance_of(c)?;
+    if let Some(w) = t.width() {
+        return Some((w, "the tolerance"));
+    }
+    let centre = t.target.or_else(|| {
+        let n: f64 = summaries.iter().map(|s| s.n as f64).sum();
+        (n > 0.0).then(|| summaries.iter().map(|s| s.n as f64 * s.mean).sum::<f64>() / n)
+    })?;
+    let (distance, what) = match (t.lsl, t.usl) {
+        (Some(l), None) => (
+            centre - l,
+            if t.target.is_some() {
+                "the distance from the target to the LSL"
+            } else {
+                "the distance from the mean to the LSL"
+            },
+        ),
+        (None, Some(u)) => (
+            u - centre,
+            if t.target.is_some() {
+                "the distance from the target to the USL"
+            } else {
+                "the distance from the mean to the USL"
+            },
+        ),
+        _ => return None,
+    };
+    (distance > 0.0).then_some((distance, what))
 }
 pub mod investigate;

@@ -527,8 +527,9 @@ pub fn to_json(
     root.insert(
         "leading".into(),
         json!({
-            "method": match l.method { LeadingMethod::ClassicF => "classic_f", LeadingMethod::Welch => "welch" },
+            "method": l.method.key(),
             "reason": l.reason,
+            "declined": l.declined.is_some(),
             "recommend_kruskal_wallis": l.recommend_kruskal_wallis,
             "statistic": l.statistic.map_or(Value::Null, json_number),
             "p": l.p.map_or(Value::Null, json_number),
@@ -823,7 +824,7 @@ fn render_pairs(o: &mut String, data: &GroupedData, r: &OneWay, options: &OneWay
     }
     let method = match r.leading.method {
         LeadingMethod::Welch => "Games-Howell",
-        LeadingMethod::ClassicF => "Tukey-Kramer",
+        LeadingMethod::ClassicF | LeadingMethod::ExactPermutation => "Tukey-Kramer",
     };
     o.push_str(&format!(
         "Pairs ({method}, 95% simultaneous intervals; * = interval excludes zero), largest difference first\n"

@@ -7,16 +7,33 @@
 //! leading result with its reason. Names of groups stay with the caller; results refer to groups by
 //! index in input order.
 //!
-//! The leading result (issue 2, item 7), with thresholds that are common practice (no published
-//! source):
-//! - Welch leads when the variances look different: Brown-Forsythe p < [`VARIANCE_CHECK_ALPHA`]
-//!   (0.05) or the ratio of the largest to the smallest group SD exceeds [`SD_RATIO_LIMIT`] (2).
-//! - Otherwise the classic F leads.
+//! The leading result. The numbers come from the null-rate study (docs/null-rates.md,
+//! `cargo run --release --example null_rates`): Monte Carlo over 2-40 groups of 2-200 values,
+//! balanced and very unbalanced, variance ratios 1-16, normal, skewed, heavy-tailed and
+//! coarse-gauge values, judged by Bradley's liberal criterion (a rate of "differs" under no real
+//! difference within 0.5 to 1.5 times the level; Bradley 1978, British Journal of Mathematical and
+//! Statistical Psychology 31, 144-152). In that order:
+//! - every group constant (a coarse gauge): the exact permutation test of
+//!   [`super::constant_groups`] leads (F is infinite, Welch undefined);
+//! - groups about equally sized (largest at most [`BALANCE_LIMIT`] times the smallest) but
+//!   smaller than Welch's test needs ([`welch_min_n`]: 5 values per group up to 5 groups, 10 up to
+//!   10, 15 up to 20, 30 up to 40): the classic F leads without a check of the spreads (the check
+//!   has little power there, and a verdict conditioned on it passing is less trustworthy than
+//!   the unconditional F, which equal sizes keep near its level);
+//! - very unequal sizes with a group of fewer than [`SPREAD_CHECK_MIN_N`] values: *declined*
+//!   ("too few values per group to compare"): unequal spreads cannot be ruled out, the classic F
+//!   then rejects up to half of true nulls, and Welch's test is far from its level;
+//! - otherwise the spreads are judged from Brown-Forsythe (p < [`VARIANCE_CHECK_ALPHA`]) and, with
+//!   at most [`SD_RATIO_MAX_GROUPS`] groups, the ratio of the largest to the smallest group SD
+//!   (> [`SD_RATIO_LIMIT`], common practice); spreads look alike: the classic F leads; they look
+//!   different: Welch's test leads when every group has [`welch_min_n`] values, else declined;
 //! - Kruskal-Wallis is recommended in addition when the residuals are clearly non-normal
 //!   (Shapiro-Wilk p < [`NORMALITY_ALPHA`], 0.01) and the groups are small (the smallest has fewer
-//!   than [`SMALL_GROUP_N`], 15, values), where the F test cannot lean on the central limit theorem.
+//!   than [`SMALL_GROUP_N`], 15, values), where the F test cannot lean on the central limit
+//!   theorem (common practice).
 
 use super::anova::{one_way, AnovaTable};
+use super::constant_groups::{constant_groups, ConstantGroups};
 use super::describe::Summary;
 use super::effect::{effect_sizes, Effect};
 use super::kruskal::kruskal_wallis;
@@ -98,6 +115,9 @@ pub enum LeadingMethod {
     ClassicF,
     /// Welch's ANOVA (unequal variances).
     Welch,
+    /// The exact permutation test of the group labels, when every group is constant
+    /// ([`super::constant_groups`]).
+    ExactPermutation,
 }
 
 impl LeadingMethod {
@@ -106,6 +126,16 @@ impl LeadingMethod {
         match self {
             LeadingMethod::ClassicF => "classic one-way ANOVA F",
             LeadingMethod::Welch => "Welch ANOVA",
+            LeadingMethod::ExactPermutation => "exact permutation test (constant groups)",
+        }
+    }
+
+    /// The stable name stored and printed in JSON.
+    pub fn key(self) -> &'static str {
+        match self {
+            LeadingMethod::ClassicF => "classic_f",
+            LeadingMethod::Welch => "welch",
+            LeadingMethod::ExactPermutation => "exact_permutation",
         }
     }
 }
@@ -123,6 +153,10 @@ pub struct Leading {
     pub p: Option<f64>,
     /// Statistic (F) of the leading test, when it could be computed.
     pub statistic: Option<f64>,
+    /// Why no test leads although there are groups to compare: no available test holds its level
+    /// on data of this shape (too few values per group with possibly unequal spreads). `p` and
+    /// `statistic` are then `None`; the check reports the state "too few values to compare".
+    pub declined: Option<String>,
 }
 
 /// Every one-way result for one set of groups.
@@ -152,6 +186,9 @@ pub struct OneWay {
     pub effect: Stat<Effect>,
     /// Variance components of the random-effects one-way model.
     pub variance_components: Stat<VarianceComponents>,
+    /// The exact permutation test of constant groups (available only when every group is
+    /// constant and they do not all share one value).
+    pub constant_groups: Stat<ConstantGroups>,
     /// The leading result.
     pub leading: Leading,
     /// All pairs (a < b): Games-Howell when Welch leads, Tukey-Kramer otherwise (empty when
@@ -185,15 +222,99 @@ fn check_input(groups: &[&[f64]]) -> Stat<()> {
     Ok(())
 }
 
-/// Chooses the leading result from the variance checks (see the module docs for the rule).
-pub fn choose_leading(
-    anova: &Stat<AnovaTable>,
-    welch: &Stat<TestResult>,
-    brown_forsythe: &Stat<TestResult>,
-    sd_ratio: &Stat<f64>,
-) -> Leading {
+/// What the leading-method rule looks at, besides the tests themselves.
+#[derive(Debug, Clone, Copy)]
+pub struct Evidence<'a> {
+    /// Group summaries (sizes).
+    pub summaries: &'a [Summary],
+    /// The classic ANOVA table.
+    pub anova: &'a Stat<AnovaTable>,
+    /// Welch's ANOVA.
+    pub welch: &'a Stat<TestResult>,
+    /// Brown-Forsythe (median-centred Levene).
+    pub brown_forsythe: &'a Stat<TestResult>,
+    /// Largest / smallest group SD.
+    pub sd_ratio: &'a Stat<f64>,
+    /// The exact test of constant groups (available only when every group is constant).
+    pub constant: &'a Stat<ConstantGroups>,
+}
+
+/// Smallest group size at which unequal group sizes can still be judged: below it a group SD rests
+/// on three or fewer degrees of freedom (null-rate study, docs/null-rates.md).
+pub const SPREAD_CHECK_MIN_N: u64 = 5;
+/// The SD-ratio rule of thumb is used with at most this many groups: the largest to smallest of
+/// many sample SDs exceeds 2 by chance alone (null-rate study), so with more groups only
+/// Brown-Forsythe judges the spreads.
+pub const SD_RATIO_MAX_GROUPS: u64 = 5;
+
+/// Smallest group size for Welch's test to lead with `k` groups (null-rate study: with fewer
+/// values it rejects far more than its level of true nulls, up to 90 % with 40 groups of two):
+/// 5 up to 5 groups, 10 up to 10, 15 up to 20, 30 up to 40, and three quarters of `k` beyond.
+pub fn welch_min_n(k: u64) -> u64 {
+    match k {
+        0..=5 => 5,
+        6..=10 => 10,
+        11..=20 => 15,
+        21..=40 => 30,
+        _ => (3 * k).div_ceil(4),
+    }
+}
+/// Largest / smallest group size up to which groups count as about equally sized, where the
+/// classic F keeps close to its level even when spreads differ (Box 1954, Annals of Mathematical
+/// Statistics 25, 290-302; checked in the null-rate study).
+pub const BALANCE_LIMIT: f64 = 1.5;
+
+/// Chooses the leading result (see the module docs for the rule and docs/null-rates.md for the
+/// study behind its numbers).
+pub fn choose_leading(e: &Evidence<'_>) -> Leading {
+    let sizes = || e.summaries.iter().map(|s| s.n);
+    let n_min = sizes().min().unwrap_or(0);
+    let n_max = sizes().max().unwrap_or(0);
+    let k = e.summaries.len() as u64;
+    let classic = |reason: String| Leading {
+        method: LeadingMethod::ClassicF,
+        reason,
+        recommend_kruskal_wallis: false,
+        p: e.anova.as_ref().ok().map(|t| t.p),
+        statistic: e.anova.as_ref().ok().map(|t| t.f),
+        declined: None,
+    };
+    let declined = |reason: String| Leading {
+        method: LeadingMethod::ClassicF,
+        reason: reason.clone(),
+        recommend_kruskal_wallis: false,
+        p: None,
+        statistic: None,
+        declined: Some(reason),
+    };
+    if let Ok(c) = e.constant {
+        return Leading {
+            method: LeadingMethod::ExactPermutation,
+            reason: format!(
+                "every group is constant ({} distinct values), so the within-group variance is zero and F is infinite; the exact permutation test of the group labels, which needs no variance, leads{}",
+                c.n_distinct,
+                if c.is_exact { "" } else { " (p is a conservative upper bound)" }
+            ),
+            recommend_kruskal_wallis: false,
+            p: Some(c.p),
+            statistic: None,
+            declined: None,
+        };
+    }
+    let welch_min = welch_min_n(k);
+    let balanced = n_max as f64 <= BALANCE_LIMIT * n_min as f64;
+    if n_min < welch_min && balanced {
+        return classic(format!(
+            "the groups are about equally sized ({n_min} to {n_max} values) and smaller than the {welch_min} values per group that Welch's test needs to hold its level with {k} groups, so the classic F leads without a check of the spreads (with groups this small a check mostly passes by chance, and a verdict conditioned on it would be less trustworthy); about equal sizes keep the classic F near its level even when spreads differ moderately"
+        ));
+    }
+    if n_min < SPREAD_CHECK_MIN_N {
+        return declined(format!(
+            "too few values per group to compare: the groups have {n_min} to {n_max} values; with fewer than {SPREAD_CHECK_MIN_N} values in a group unequal spreads cannot be ruled out, with sizes this unequal (more than {BALANCE_LIMIT} times) the classic F does not hold its level if they differ, and Welch's test needs at least {welch_min} values per group with {k} groups"
+        ));
+    }
     let mut signals = Vec::new();
-    if let Ok(bf) = brown_forsythe {
+    if let Ok(bf) = e.brown_forsythe {
         if bf.p < VARIANCE_CHECK_ALPHA {
             signals.push(format!(
                 "Brown-Forsythe p = {} < {VARIANCE_CHECK_ALPHA}",
@@ -201,46 +322,48 @@ pub fn choose_leading(
             ));
         }
     }
-    if let Ok(r) = sd_ratio {
-        if *r > SD_RATIO_LIMIT {
-            signals.push(format!(
-                "largest/smallest group SD = {} > {SD_RATIO_LIMIT}",
-                short(*r)
-            ));
+    if k <= SD_RATIO_MAX_GROUPS {
+        if let Ok(r) = e.sd_ratio {
+            if *r > SD_RATIO_LIMIT {
+                signals.push(format!(
+                    "largest/smallest group SD = {} > {SD_RATIO_LIMIT}",
+                    short(*r)
+                ));
+            }
         }
     }
-    let classic = |reason: String| Leading {
-        method: LeadingMethod::ClassicF,
-        reason,
-        recommend_kruskal_wallis: false,
-        p: anova.as_ref().ok().map(|t| t.p),
-        statistic: anova.as_ref().ok().map(|t| t.f),
-    };
     if !signals.is_empty() {
-        return match welch {
-            Ok(w) => Leading {
-                method: LeadingMethod::Welch,
-                reason: format!(
-                    "group variances look different ({}), so Welch's test, which does not assume equal variances, leads",
-                    signals.join("; ")
-                ),
-                recommend_kruskal_wallis: false,
-                p: Some(w.p),
-                statistic: Some(w.statistic),
-            },
-            Err(e) => classic(format!(
-                "group variances look different ({}), but Welch's test is unavailable ({}); read the classic F with care",
-                signals.join("; "),
-                e.reason
-            )),
-        };
+        if n_min >= welch_min {
+            return match e.welch {
+                Ok(w) => Leading {
+                    method: LeadingMethod::Welch,
+                    reason: format!(
+                        "group variances look different ({}), so Welch's test, which does not assume equal variances, leads",
+                        signals.join("; ")
+                    ),
+                    recommend_kruskal_wallis: false,
+                    p: Some(w.p),
+                    statistic: Some(w.statistic),
+                    declined: None,
+                },
+                Err(err) => declined(format!(
+                    "too few values per group to compare: group variances look different ({}) and Welch's test is unavailable ({})",
+                    signals.join("; "),
+                    err.reason
+                )),
+            };
+        }
+        return declined(format!(
+            "too few values per group to compare: group variances look different ({}) and the group sizes differ ({n_min} to {n_max}), where the classic F does not hold its level, and Welch's test needs at least {welch_min} values in every group with {k} groups (the smallest has {n_min})",
+            signals.join("; ")
+        ));
     }
     let mut unknown = Vec::new();
-    if let Err(e) = brown_forsythe {
-        unknown.push(format!("Brown-Forsythe unavailable: {}", e.reason));
+    if let Err(err) = e.brown_forsythe {
+        unknown.push(format!("Brown-Forsythe unavailable: {}", err.reason));
     }
-    if let Err(e) = sd_ratio {
-        unknown.push(format!("SD ratio unavailable: {}", e.reason));
+    if let Err(err) = e.sd_ratio {
+        unknown.push(format!("SD ratio unavailable: {}", err.reason));
     }
     if unknown.is_empty() {
         classic(format!(
@@ -255,7 +378,7 @@ pub fn choose_leading(
 }
 
 /// A number in a short form for reasons (4 significant digits).
-fn short(x: f64) -> String {
+pub(crate) fn short(x: f64) -> String {
     if x != 0.0 && (x.abs() < 1e-3 || x.abs() >= 1e5) {
         format!("{x:.3e}")
     } else {
@@ -295,7 +418,15 @@ pub fn analyze(groups: &[&[f64]], options: &OneWayOptions) -> Stat<OneWay> {
         .flat_map(|(g, s)| g.iter().map(move |v| v - s.mean))
         .collect();
     let sw = shapiro_wilk(&residuals);
-    let mut leading = choose_leading(&anova, &welch_result, &bf, &ratio);
+    let constant = constant_groups(&summaries);
+    let mut leading = choose_leading(&Evidence {
+        summaries: &summaries,
+        anova: &anova,
+        welch: &welch_result,
+        brown_forsythe: &bf,
+        sd_ratio: &ratio,
+        constant: &constant,
+    });
     let smallest = summaries.iter().map(|s| s.n).min().unwrap_or(0);
     if let Ok(test) = &sw {
         if test.p < NORMALITY_ALPHA && smallest < SMALL_GROUP_N {
@@ -310,7 +441,9 @@ pub fn analyze(groups: &[&[f64]], options: &OneWayOptions) -> Stat<OneWay> {
     let pairs = match leading.method {
         _ if !options.with_pairs => Vec::new(),
         LeadingMethod::Welch => games_howell(&summaries, options.confidence),
-        LeadingMethod::ClassicF => tukey_kramer(&summaries, options.confidence),
+        LeadingMethod::ClassicF | LeadingMethod::ExactPermutation => {
+            tukey_kramer(&summaries, options.confidence)
+        }
     };
     let within_sd = anova.as_ref().ok().map(|t| t.resid_sd);
     let effects = group_effects(&summaries, within_sd, tolerance);
@@ -341,6 +474,7 @@ pub fn analyze(groups: &[&[f64]], options: &OneWayOptions) -> Stat<OneWay> {
         shapiro_wilk: sw,
         effect,
         variance_components,
+        constant_groups: constant,
         leading,
         pairs,
         group_effects: effects,
@@ -379,6 +513,8 @@ mod tests {
         assert_eq!(r.leading.p, Some(r.welch.as_ref().unwrap().p));
     }
 
+    // Constant groups: F is undefined, but the exact permutation test leads with its p (two
+    // groups of two: 1/3, see stats::constant_groups), so the data are not "no evidence" by default.
     #[test]
     fn zero_variance_keeps_groups_and_reasons() {
         let r = analyze(&[&[1.0, 1.0], &[2.0, 2.0]], &OneWayOptions::default()).unwrap();
@@ -386,7 +522,68 @@ mod tests {
         assert!(r.anova.unwrap_err().reason.contains("F is undefined"));
         assert!(r.welch.is_err());
         assert!(r.effect.is_err());
+        assert_eq!(r.leading.method, LeadingMethod::ExactPermutation);
+        assert!((r.leading.p.unwrap() - 1.0 / 3.0).abs() < 1e-14);
+        let c = r.constant_groups.unwrap();
+        assert_eq!((c.ss_between, c.df_between, c.df_within), (1.0, 1.0, 2.0));
+    }
+
+    // Three groups of five constant readings (a coarse gauge), each its own value: the exact
+    // p is 3! / (15! / (5! 5! 5!)) = 6 / 756756, a difference, never "no evidence".
+    #[test]
+    fn constant_groups_that_differ_lead_with_the_exact_test() {
+        let r = analyze(
+            &[&[2.5; 5], &[2.6; 5], &[2.7; 5]],
+            &OneWayOptions::default(),
+        )
+        .unwrap();
+        assert_eq!(r.leading.method, LeadingMethod::ExactPermutation);
+        assert!(r.leading.p.unwrap() < 1e-5);
+    }
+
+    // Forty groups of two (balanced, below Welch's size): the classic F leads whatever the SDs
+    // look like (an SD ratio of 197 between groups of two says nothing).
+    #[test]
+    fn small_balanced_groups_lead_with_classic_f() {
+        let groups: Vec<Vec<f64>> = (0..40)
+            .map(|g| {
+                vec![
+                    g as f64 * 0.01,
+                    g as f64 * 0.01 + if g == 0 { 1.97 } else { 0.01 },
+                ]
+            })
+            .collect();
+        let refs: Vec<&[f64]> = groups.iter().map(Vec::as_slice).collect();
+        let r = analyze(&refs, &OneWayOptions::default()).unwrap();
+        assert!(*r.sd_ratio.as_ref().unwrap() > 100.0);
+        assert_eq!(r.leading.method, LeadingMethod::ClassicF);
+        assert!(r.leading.declined.is_none());
+        assert_eq!(r.leading.p, Some(r.anova.as_ref().unwrap().p));
+    }
+
+    // Very unequal sizes with a group of two: no test holds its level if spreads differ, so the
+    // rule declines and says why.
+    #[test]
+    fn unequal_sizes_with_tiny_groups_are_declined() {
+        let a = [1.0, 1.2];
+        let b: Vec<f64> = (0..20).map(|i| 1.0 + 0.01 * i as f64).collect();
+        let r = analyze(&[&a, &b], &OneWayOptions::default()).unwrap();
         assert!(r.leading.p.is_none());
+        let reason = r.leading.declined.unwrap();
+        assert!(
+            reason.contains("too few values per group to compare"),
+            "{reason}"
+        );
+        assert!(reason.contains("2 to 20"), "{reason}");
+    }
+
+    #[test]
+    fn welch_minimum_grows_with_the_number_of_groups() {
+        assert_eq!(welch_min_n(2), 5);
+        assert_eq!(welch_min_n(10), 10);
+        assert_eq!(welch_min_n(20), 15);
+        assert_eq!(welch_min_n(40), 30);
+        assert_eq!(welch_min_n(60), 45);
     }
 
     // Clearly non-normal residuals (one far value per group) in groups of 10 (< 15): the report
