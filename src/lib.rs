@@ -26,6 +26,7 @@ pub mod ingest;
 pub mod model;
 pub mod report;
 pub mod sample;
+pub mod scenario;
 pub mod schedule;
 pub mod stats;
 pub mod storage;

@@ -99,18 +99,22 @@ pub fn events() -> Vec<SampleEvent> {
     ]
 }
 
-/// SplitMix64 with normal deviates by the Marsaglia polar method.
-struct Rng {
+/// SplitMix64 with normal deviates by the Marsaglia polar method (also drives the simulated
+/// plants of [`crate::scenario`]).
+#[derive(Debug, Clone)]
+pub struct Rng {
     state: u64,
     spare: Option<f64>,
 }
 
 impl Rng {
-    fn new(state: u64) -> Self {
+    /// A generator started from `state`.
+    pub fn new(state: u64) -> Self {
         Rng { state, spare: None }
     }
 
-    fn next_u64(&mut self) -> u64 {
+    /// The next 64 random bits.
+    pub fn next_u64(&mut self) -> u64 {
         self.state = self.state.wrapping_add(0x9e37_79b9_7f4a_7c15);
         let mut z = self.state;
         z = (z ^ (z >> 30)).wrapping_mul(0xbf58_476d_1ce4_e5b9);
@@ -119,15 +123,17 @@ impl Rng {
     }
 
     /// Uniform on [0, 1).
-    fn uniform(&mut self) -> f64 {
+    pub fn uniform(&mut self) -> f64 {
         (self.next_u64() >> 11) as f64 / (1u64 << 53) as f64
     }
 
-    fn below(&mut self, n: usize) -> usize {
+    /// Uniform on `0..n`.
+    pub fn below(&mut self, n: usize) -> usize {
         (self.uniform() * n as f64) as usize % n
     }
 
-    fn normal(&mut self) -> f64 {
+    /// A standard normal deviate.
+    pub fn normal(&mut self) -> f64 {
         if let Some(z) = self.spare.take() {
             return z;
         }
