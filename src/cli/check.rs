@@ -139,10 +139,15 @@ pub fn cell(x: Option<f64>) -> String {
     }
 }
 
-/// The leading test of a row in a table column: `Welch F`, `F`, or `-` when none ran.
+/// The leading test of a row in a table column: `Welch F`, `F`, `exact` (the permutation test
+/// of constant groups), or `-` when none ran or the rule declined to judge.
 pub fn leading(t: &TestRow) -> &'static str {
+    if t.state == crate::analysis::state::TOO_FEW_TO_COMPARE {
+        return "-";
+    }
     match t.leading_method.as_deref() {
         Some("welch") => "Welch F",
+        Some("exact_permutation") => "exact",
         Some(_) => "F",
         None => "-",
     }

@@ -64,6 +64,7 @@ pub enum Command {
     #[command(hide = true)]
     GenerateBenchData(import::GenerateArgs),
     /// Check one period: every characteristic x factor, false-discovery control, stored as a run.
+    #[command(long_about = CHECK_RULE)]
     Check(check::CheckArgs),
     /// The trend of one comparison (characteristic by factor) over the stored runs.
     History(history::HistoryArgs),
@@ -86,6 +87,20 @@ impl Args {
         Args::parse()
     }
 }
+
+/// The leading-method rule and the flag states, for `samewise check --help` (the same text as the
+/// README's concepts; the numbers come from the null-rate study, docs/null-rates.md).
+const CHECK_RULE: &str = "Check one period: every characteristic x factor, false-discovery control, stored as a run.
+
+Which test leads (chosen from the null-rate study in docs/null-rates.md, `cargo run --release --example null_rates`):
+- every group constant (a coarse gauge): the exact permutation test of the group labels;
+- groups about equally sized (largest at most 1.5 x smallest) but smaller than Welch's test needs (5 values per group up to 5 groups, 10 up to 10, 15 up to 20, 30 up to 40): the classic F, without a check of the spreads;
+- very unequal sizes and a group of fewer than 5 values: no test; the state is \"too few values to compare\";
+- otherwise Brown-Forsythe (p < 0.05) and, with at most 5 groups, the SD ratio (> 2) judge the spreads: alike, the classic F leads; different, Welch's test leads if every group has the values it needs, else \"too few values to compare\".
+
+States: differs and material (q <= level and the near end of the standing-out group's 95% interval against the rest, Bonferroni over the groups, reaches the material share of the tolerance, or of the distance from the target to a single limit), differs, no evidence, too few values to compare (no p-value, outside the false-discovery family), too little data.
+
+Exit status: 0 nothing flagged, 3 something flagged, 2 an error.";
 
 /// Runs one command and returns the process exit code.
 pub fn run(args: Args) -> crate::Result<ExitCode> {
