@@ -872,3 +872,77 @@ fn material_reference(
     (distance > 0.0).then_some((distance, what))
 }
 pub mod investigate;
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::scenario::{study_options, Cell, Shape, Sizes, Spread};
+
+    fn two_groups(shift: f64) -> Frame {
+        let cell = Cell {
+            k: 2,
+            sizes: Sizes::Balanced(50),
+            spread: Spread::Equal,
+            shape: Shape::Normal,
+            shift,
+        };
+        let mut rng = crate::sample::Rng::new(7);
+        cell.frame(&cell.groups(&mut rng))
+    }
+
+    // A one-sided characteristic (USL only, target 0): a 2-SD shift is judged against the
+    // distance from the target to the USL (4 SD), so it is material; before, a characteristic
+    // without both limits could never be.
+    #[test]
+    fn one_sided_limits_can_be_material() {
+        let mut frame = two_groups(-2.0);
+        frame.characteristics[0].characteristic.lsl = None;
+        let content = check_frame(&frame, &study_options(), None).unwrap();
+        let t = &content.tests[0];
+        assert_eq!(t.state, state::DIFFERS_MATERIAL, "{}", t.notes);
+        assert!(
+            t.notes.contains("the distance from the target to the USL"),
+            "{}",
+            t.notes
+        );
+    }
+
+    // Both limits, a shift of 0.3 SD (3.75 % of the 8-SD tolerance) found with many values: it
+    // differs, but the supported difference is below 10 % of the tolerance: not material.
+    #[test]
+    fn a_small_supported_difference_is_not_material() {
+        let cell = Cell {
+            k: 2,
+            sizes: Sizes::Balanced(2000),
+            spread: Spread::Equal,
+            shape: Shape::Normal,
+            shift: 0.3,
+        };
+        let mut rng = crate::sample::Rng::new(11);
+        let frame = cell.frame(&cell.groups(&mut rng));
+        let content = check_frame(&frame, &study_options(), None).unwrap();
+        let t = &content.tests[0];
+        assert_eq!(t.state, state::DIFFERS, "{}", t.notes);
+        assert!(t.notes.contains("materiality:"), "{}", t.notes);
+    }
+
+    // A gauge step of one within-group SD: noted as coarse against the process spread (it is
+    // 12.5 % of the tolerance too), with the count of distinct readings.
+    #[test]
+    fn coarse_gauge_is_noted() {
+        let cell = Cell {
+            k: 3,
+            sizes: Sizes::Balanced(20),
+            spread: Spread::Equal,
+            shape: Shape::Coarse { step: 1.0 },
+            shift: 0.0,
+        };
+        let mut rng = crate::sample::Rng::new(3);
+        let frame = cell.frame(&cell.groups(&mut rng));
+        let content = check_frame(&frame, &study_options(), None).unwrap();
+        let notes = &content.tests[0].notes;
+        assert!(notes.contains("coarse gauge"), "{notes}");
+        assert!(notes.contains("12% of the tolerance"), "{notes}");
+        assert!(notes.contains("distinct values"), "{notes}");
+    }
+}

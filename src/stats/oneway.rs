@@ -23,10 +23,14 @@
 //! - very unequal sizes with a group of fewer than [`SPREAD_CHECK_MIN_N`] values: *declined*
 //!   ("too few values per group to compare"): unequal spreads cannot be ruled out, the classic F
 //!   then rejects up to half of true nulls, and Welch's test is far from its level;
-//! - otherwise the spreads are judged from Brown-Forsythe (p < [`VARIANCE_CHECK_ALPHA`]) and, with
-//!   at most [`SD_RATIO_MAX_GROUPS`] groups, the ratio of the largest to the smallest group SD
-//!   (> [`SD_RATIO_LIMIT`], common practice); spreads look alike: the classic F leads; they look
-//!   different: Welch's test leads when every group has [`welch_min_n`] values, else declined;
+//! - very unequal sizes with every group at Welch's size: Welch's test leads without a check of
+//!   the spreads (the classic F's level then depends on spread differences a check can miss);
+//! - otherwise (about equal sizes at Welch's size, or unequal sizes below it with at least
+//!   [`SPREAD_CHECK_MIN_N`] values per group) the spreads are judged from Brown-Forsythe
+//!   (p < [`VARIANCE_CHECK_ALPHA`]) and, with at most [`SD_RATIO_MAX_GROUPS`] groups, the ratio
+//!   of the largest to the smallest group SD (> [`SD_RATIO_LIMIT`], common practice); spreads
+//!   look alike: the classic F leads; they look different: Welch's test leads when every group has
+//!   [`welch_min_n`] values, else declined;
 //! - Kruskal-Wallis is recommended in addition when the residuals are clearly non-normal
 //!   (Shapiro-Wilk p < [`NORMALITY_ALPHA`], 0.01) and the groups are small (the smallest has fewer
 //!   than [`SMALL_GROUP_N`], 15, values), where the F test cannot lean on the central limit
@@ -312,6 +316,20 @@ pub fn choose_leading(e: &Evidence<'_>) -> Leading {
         return declined(format!(
             "too few values per group to compare: the groups have {n_min} to {n_max} values; with fewer than {SPREAD_CHECK_MIN_N} values in a group unequal spreads cannot be ruled out, with sizes this unequal (more than {BALANCE_LIMIT} times) the classic F does not hold its level if they differ, and Welch's test needs at least {welch_min} values per group with {k} groups"
         ));
+    }
+    if !balanced && n_min >= welch_min {
+        if let Ok(w) = e.welch {
+            return Leading {
+                method: LeadingMethod::Welch,
+                reason: format!(
+                    "the group sizes differ ({n_min} to {n_max} values), where the classic F's level depends on spread differences no check can rule out, and every group has the {welch_min} values Welch's test needs with {k} groups, so Welch's test leads"
+                ),
+                recommend_kruskal_wallis: false,
+                p: Some(w.p),
+                statistic: Some(w.statistic),
+                declined: None,
+            };
+        }
     }
     let mut signals = Vec::new();
     if let Ok(bf) = e.brown_forsythe {
