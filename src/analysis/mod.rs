@@ -462,14 +462,7 @@ fn materiality(partial: &Partial, options: &CheckOptions) -> Result<(bool, Strin
         .iter()
         .position(|l| l == level)
         .ok_or_else(|| "standing-out group not found: materiality not judged".to_string())?;
-    let pooled = match partial.leading {
-        Some(LeadingMethod::Welch) => None,
-        _ => partial
-            .row
-            .resid_sd
-            .zip(partial.row.anova_df2)
-            .filter(|(sd, _)| *sd > 0.0),
-    };
+    let pooled = partial.row.resid_sd.zip(partial.row.anova_df2);
     let supported = if partial.leading == Some(LeadingMethod::ExactPermutation) {
         // Constant groups: the difference is known exactly as far as the gauge resolves.
         let g = &partial.summaries[standout];
@@ -481,6 +474,8 @@ fn materiality(partial: &Partial, options: &CheckOptions) -> Result<(bool, Strin
             .fold(Summary::default(), |acc, (_, s)| acc.merge(s));
         (g.mean - rest.mean).abs()
     } else {
+        let pooled =
+            pooled.ok_or("materiality not judged: the pooled within-group SD is unavailable")?;
         crate::stats::materiality::standout_interval(
             &partial.summaries,
             standout,

@@ -10,10 +10,11 @@
 //!
 //! Interval: `d = mean_g - mean_rest` (the rest: every other value pooled), standard error
 //! `sqrt(s_g^2 / n_g + s_rest^2 / n_rest)` with Welch-Satterthwaite degrees of freedom when the
-//! spreads may differ, or `s_p sqrt(1/n_g + 1/n_rest)` with the pooled within-group SD and `N - k`
-//! degrees of freedom otherwise; Student's t quantile at `1 - (1 - confidence) / (2 k)`
+//! spreads may differ (a standing-out group of two values then has about one degree of freedom,
+//! and supports almost no difference: the honest answer), or `s_p sqrt(1/n_g + 1/n_rest)` with
+//! the pooled within-group SD and `N - k` degrees of freedom where the spreads were checked; Student's t quantile at `1 - (1 - confidence) / (2 k)`
 //! (Bonferroni over the `k` groups the standing-out one was chosen from). References: Welch 1947,
-//! Biometrika 34, 28-35; the Bonferroni inequality as used for simultaneous intervals, e.g.
+//! Biometrika 34, 28-35 (separate variances); the Bonferroni inequality as used for simultaneous intervals, e.g.
 //! Miller 1981, *Simultaneous Statistical Inference*, chapter 1.
 
 use super::describe::Summary;
@@ -35,45 +36,44 @@ pub struct StandoutInterval {
 }
 
 /// The interval of `groups[standout]` against the other groups pooled (see the module docs).
-/// `pooled_sd` is `Some((s_p, df))` to use the pooled within-group SD; `None` uses the
-/// Welch-Satterthwaite form.
+/// `pooled` is the pooled within-group SD with its degrees of freedom (`N - k`).
 pub fn standout_interval(
     groups: &[Summary],
     standout: usize,
-    pooled_sd: Option<(f64, f64)>,
+    pooled: (f64, f64),
     confidence: f64,
 ) -> Stat<StandoutInterval> {
     if groups.len() < 2 || standout >= groups.len() {
         return Err(Unavailable::new("needs at least two groups"));
     }
-    let g = &groups[standout];
-    let rest = groups
-        .iter()
-        .enumerate()
-        .filter(|&(i, _)| i != standout)
-        .fold(Summary::default(), |acc, (_, s)| acc.merge(s));
-    if g.n == 0 || rest.n == 0 {
-        return Err(Unavailable::new("a side of the comparison has no values"));
-    }
-    let diff = g.mean - rest.mean;
-    let (se, df) = match pooled_sd {
-        Some((sp, df)) => (sp * (1.0 / g.n as f64 + 1.0 / rest.n as f64).sqrt(), df),
-        None => {
-            let (Some(vg), Some(vr)) = (g.variance(), rest.variance()) else {
-                return Err(Unavailable::new(
-                    "a side has fewer than two values, so its spread is unknown",
-                ));
-            };
-            let (a, b) = (vg / g.n as f64, vr / rest.n as f64);
-            let df = (a + b).powi(2) / (a * a / (g.n as f64 - 1.0) + b * b / (rest.n as f64 - 1.0));
-            ((a + b).sqrt(), df)
-        }
-    };
-    if !(se.is_finite() && se > 0.0 && df.is_finite() && df > 0.0) {
+    let (sp, df) = pooled;
+    if !(sp.is_finite() && sp > 0.0 && df.is_finite() && df > 0.0) {
         return Err(Unavailable::new(
-            "the standard error of the difference is zero or undefined",
+            "the pooled within-group SD is zero or undefined",
         ));
     }
+    let g = &groups[standout];
+    let (mut n_rest, mut sum_rest, mut m2_rest, mut df_rest) = (0u64, 0.0, 0.0, 0.0);
+    for (i, s) in groups.iter().enumerate() {
+        if i != standout {
+            n_rest += s.n;
+            sum_rest += s.n as f64 * s.mean;
+            m2_rest += s.m2;
+            df_rest += s.n.saturating_sub(1) as f64;
+        }
+    }
+    if g.n == 0 || n_rest == 0 {
+        return Err(Unavailable::new("a side of the comparison has no values"));
+    }
+    let diff = g.mean - sum_rest / n_rest as f64;
+    let var_p = sp * sp;
+    let var_g = g.variance().map_or(var_p, |v| v.max(var_p));
+    let var_rest = if df_rest > 0.0 {
+        (m2_rest / df_rest).max(var_p)
+    } else {
+        var_p
+    };
+    let se = (var_g / g.n as f64 + var_rest / n_rest as f64).sqrt();
     let tail = (1.0 - confidence) / groups.len() as f64;
     let t = t_quantile_two_sided(tail, df)?;
     let (low, high) = (diff - t * se, diff + t * se);
@@ -163,13 +163,13 @@ mod tests {
             Summary::from_slice(&[1.0, 2.0, 3.0]),
             Summary::from_slice(&[4.0, 5.0, 6.0]),
         ];
-        let r = standout_interval(&g, 1, Some((1.0, 4.0)), 0.95).unwrap();
+        let r = standout_interval(&g, 1, (1.0, 4.0), 0.95).unwrap();
         let t = t_quantile_two_sided(0.025, 4.0).unwrap();
         assert!(lre(t, 3.495_405_932_516_437_6) > 11.0, "{t}");
         let se = (2.0f64 / 3.0).sqrt();
         assert!(lre(r.low, 3.0 - t * se) > 12.0);
         assert!(lre(r.supported, r.low) > 14.0);
-        let r = standout_interval(&g, 0, Some((1.0, 4.0)), 0.95).unwrap();
+        let r = standout_interval(&g, 0, (1.0, 4.0), 0.95).unwrap();
         assert!(lre(r.supported, -r.high) > 14.0);
         assert!(r.diff < 0.0);
     }
@@ -181,7 +181,7 @@ mod tests {
             Summary::from_slice(&[1.0, 2.0, 3.0]),
             Summary::from_slice(&[1.5, 2.5, 3.5]),
         ];
-        let r = standout_interval(&g, 1, None, 0.95).unwrap();
+        let r = standout_interval(&g, 1, (1.0, 4.0), 0.95).unwrap();
         assert!(r.low < 0.0 && r.high > 0.0);
         assert_eq!(r.supported, 0.0);
     }
