@@ -20,17 +20,15 @@
 //!   10, 15 up to 20, 30 up to 40): the classic F leads without a check of the spreads (the check
 //!   has little power there, and a verdict conditioned on it passing is less trustworthy than
 //!   the unconditional F, which equal sizes keep near its level);
-//! - very unequal sizes with a group of fewer than [`SPREAD_CHECK_MIN_N`] values: *declined*
-//!   ("too few values per group to compare"): unequal spreads cannot be ruled out, the classic F
-//!   then rejects up to half of true nulls, and Welch's test is far from its level;
+//! - very unequal sizes with a group below Welch's size: *declined* ("too few values per group to
+//!   compare"): unequal spreads cannot be ruled out with groups that small, the classic F then
+//!   rejects up to half of true nulls, and Welch's test is far from its level;
 //! - very unequal sizes with every group at Welch's size: Welch's test leads without a check of
 //!   the spreads (the classic F's level then depends on spread differences a check can miss);
-//! - otherwise (about equal sizes at Welch's size, or unequal sizes below it with at least
-//!   [`SPREAD_CHECK_MIN_N`] values per group) the spreads are judged from Brown-Forsythe
+//! - about equal sizes at Welch's size: the spreads are judged from Brown-Forsythe
 //!   (p < [`VARIANCE_CHECK_ALPHA`]) and, with at most [`SD_RATIO_MAX_GROUPS`] groups, the ratio
-//!   of the largest to the smallest group SD (> [`SD_RATIO_LIMIT`], common practice); spreads
-//!   look alike: the classic F leads; they look different: Welch's test leads when every group has
-//!   [`welch_min_n`] values, else declined;
+//!   of the largest to the smallest group SD (> [`SD_RATIO_LIMIT`], common practice); alike: the
+//!   classic F leads; different: Welch's test leads;
 //! - Kruskal-Wallis is recommended in addition when the residuals are clearly non-normal
 //!   (Shapiro-Wilk p < [`NORMALITY_ALPHA`], 0.01) and the groups are small (the smallest has fewer
 //!   than [`SMALL_GROUP_N`], 15, values), where the F test cannot lean on the central limit
@@ -243,9 +241,6 @@ pub struct Evidence<'a> {
     pub constant: &'a Stat<ConstantGroups>,
 }
 
-/// Smallest group size at which unequal group sizes can still be judged: below it a group SD rests
-/// on three or fewer degrees of freedom (null-rate study, docs/null-rates.md).
-pub const SPREAD_CHECK_MIN_N: u64 = 5;
 /// The SD-ratio rule of thumb is used with at most this many groups: the largest to smallest of
 /// many sample SDs exceeds 2 by chance alone (null-rate study), so with more groups only
 /// Brown-Forsythe judges the spreads.
@@ -312,12 +307,12 @@ pub fn choose_leading(e: &Evidence<'_>) -> Leading {
             "the groups are about equally sized ({n_min} to {n_max} values) and smaller than the {welch_min} values per group that Welch's test needs to hold its level with {k} groups, so the classic F leads without a check of the spreads (with groups this small a check mostly passes by chance, and a verdict conditioned on it would be less trustworthy); about equal sizes keep the classic F near its level even when spreads differ moderately"
         ));
     }
-    if n_min < SPREAD_CHECK_MIN_N {
+    if n_min < welch_min {
         return declined(format!(
-            "too few values per group to compare: the groups have {n_min} to {n_max} values; with fewer than {SPREAD_CHECK_MIN_N} values in a group unequal spreads cannot be ruled out, with sizes this unequal (more than {BALANCE_LIMIT} times) the classic F does not hold its level if they differ, and Welch's test needs at least {welch_min} values per group with {k} groups"
+            "too few values per group to compare: the groups have {n_min} to {n_max} values; with sizes this unequal (more than {BALANCE_LIMIT} times) the classic F does not hold its level if the spreads differ, which groups this small cannot rule out, and Welch's test needs at least {welch_min} values in every group with {k} groups"
         ));
     }
-    if !balanced && n_min >= welch_min {
+    if !balanced {
         if let Ok(w) = e.welch {
             return Leading {
                 method: LeadingMethod::Welch,
@@ -351,42 +346,42 @@ pub fn choose_leading(e: &Evidence<'_>) -> Leading {
         }
     }
     if !signals.is_empty() {
-        if n_min >= welch_min {
-            return match e.welch {
-                Ok(w) => Leading {
-                    method: LeadingMethod::Welch,
-                    reason: format!(
-                        "group variances look different ({}), so Welch's test, which does not assume equal variances, leads",
-                        signals.join("; ")
-                    ),
-                    recommend_kruskal_wallis: false,
-                    p: Some(w.p),
-                    statistic: Some(w.statistic),
-                    declined: None,
-                },
-                Err(err) => declined(format!(
-                    "too few values per group to compare: group variances look different ({}) and Welch's test is unavailable ({})",
-                    signals.join("; "),
-                    err.reason
-                )),
-            };
-        }
-        return declined(format!(
-            "too few values per group to compare: group variances look different ({}) and the group sizes differ ({n_min} to {n_max}), where the classic F does not hold its level, and Welch's test needs at least {welch_min} values in every group with {k} groups (the smallest has {n_min})",
-            signals.join("; ")
-        ));
+        return match e.welch {
+            Ok(w) => Leading {
+                method: LeadingMethod::Welch,
+                reason: format!(
+                    "group variances look different ({}), so Welch's test, which does not assume equal variances, leads",
+                    signals.join("; ")
+                ),
+                recommend_kruskal_wallis: false,
+                p: Some(w.p),
+                statistic: Some(w.statistic),
+                declined: None,
+            },
+            Err(err) => declined(format!(
+                "too few values per group to compare: group variances look different ({}) and Welch's test is unavailable ({})",
+                signals.join("; "),
+                err.reason
+            )),
+        };
     }
     let mut unknown = Vec::new();
     if let Err(err) = e.brown_forsythe {
         unknown.push(format!("Brown-Forsythe unavailable: {}", err.reason));
     }
-    if let Err(err) = e.sd_ratio {
+    if let (Err(err), true) = (e.sd_ratio, k <= SD_RATIO_MAX_GROUPS) {
         unknown.push(format!("SD ratio unavailable: {}", err.reason));
     }
     if unknown.is_empty() {
-        classic(format!(
-            "the variance checks pass (Brown-Forsythe p >= {VARIANCE_CHECK_ALPHA}, largest/smallest group SD <= {SD_RATIO_LIMIT}), so the classic F leads"
-        ))
+        classic(if k <= SD_RATIO_MAX_GROUPS {
+            format!(
+                "the variance checks pass (Brown-Forsythe p >= {VARIANCE_CHECK_ALPHA}, largest/smallest group SD <= {SD_RATIO_LIMIT}), so the classic F leads"
+            )
+        } else {
+            format!(
+                "the variance check passes (Brown-Forsythe p >= {VARIANCE_CHECK_ALPHA}; with {k} groups the SD ratio is not used, many sample SDs differ twofold by chance), so the classic F leads"
+            )
+        })
     } else {
         classic(format!(
             "the variance checks could not all be made ({}), so the classic F leads by default",
