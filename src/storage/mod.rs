@@ -80,7 +80,28 @@ impl Store {
         let flags = OpenFlags::SQLITE_OPEN_READ_WRITE
             | OpenFlags::SQLITE_OPEN_URI
             | OpenFlags::SQLITE_OPEN_NO_MUTEX;
+        let empty_file = std::fs::metadata(path).is_ok_and(|m| m.is_file() && m.len() == 0);
+        if empty_file {
+            return Err(Error::Database(format!(
+                "{} is an empty file (0 bytes), not a samewise database: if it is an interrupted \
+                 copy, restore the database from a backup; to start a new one, delete the file and \
+                 run `samewise init`",
+                path.display()
+            )));
+        }
         let conn = Connection::open_with_flags(path, flags)?;
+        match identify(&conn, path)? {
+            migrate::FileKind::Samewise => {}
+            migrate::FileKind::Empty => {
+                return Err(Error::Database(format!(
+                    "{} is an SQLite file without any table, not a samewise database (an \
+                     interrupted copy?): restore the database from a backup, or delete the file \
+                     and run `samewise init`",
+                    path.display()
+                )))
+            }
+            migrate::FileKind::Foreign => return Err(foreign(path)),
+        }
         Store::from_connection(conn, Some(path.to_path_buf()))
     }
 
@@ -94,7 +115,27 @@ impl Store {
             }
         }
         let conn = Connection::open(path)?;
+        if identify(&conn, path)? == migrate::FileKind::Foreign {
+            return Err(foreign(path));
+        }
         Store::from_connection(conn, Some(path.to_path_buf()))
+    }
+
+    /// Whether `path` is a file with no database in it yet (0 bytes, or SQLite without any table
+    /// and at schema version 0): `samewise init` may create the database there; every other
+    /// command refuses it ([`Store::open`]).
+    pub fn is_empty_file(path: impl AsRef<Path>) -> Result<bool> {
+        let path = path.as_ref();
+        match std::fs::metadata(path) {
+            Ok(m) if m.is_file() && m.len() == 0 => return Ok(true),
+            Ok(m) if m.is_file() => {}
+            _ => return Ok(false),
+        }
+        let conn = Connection::open_with_flags(
+            path,
+            OpenFlags::SQLITE_OPEN_READ_ONLY | OpenFlags::SQLITE_OPEN_NO_MUTEX,
+        )?;
+        Ok(identify(&conn, path)? == migrate::FileKind::Empty)
     }
 
     /// A fresh database in memory with every migration applied (for tests and dry runs).
@@ -116,6 +157,7 @@ impl Store {
             other => Error::Storage(other),
         })?;
         migrate::migrate(&mut conn, &what)?;
+        migrate::mark_samewise(&conn)?;
         Ok(Store {
             conn,
             path,
@@ -132,6 +174,32 @@ impl Store {
     pub fn schema_version(&self) -> Result<u32> {
         migrate::schema_version(&self.conn)
     }
+}
+
+/// What `path` holds ([`migrate::file_kind`]), before anything is written to it; a file that is
+/// not SQLite at all is an error saying so.
+fn identify(conn: &Connection, path: &Path) -> Result<migrate::FileKind> {
+    conn.busy_timeout(BUSY_TIMEOUT)?;
+    migrate::file_kind(conn).map_err(|e| match e {
+        Error::Storage(rusqlite::Error::SqliteFailure(code, _))
+            if code.code == rusqlite::ErrorCode::NotADatabase =>
+        {
+            Error::Database(format!(
+                "{} is not a samewise database (not an SQLite file): check `database` in the \
+                 plant configuration",
+                path.display()
+            ))
+        }
+        other => other,
+    })
+}
+
+fn foreign(path: &Path) -> Error {
+    Error::Database(format!(
+        "{} is another program's SQLite database, not a samewise database; nothing was changed: \
+         point `database` in the plant configuration at a new file (or at the samewise database)",
+        path.display()
+    ))
 }
 
 /// Per-connection settings, set every time a connection opens (never inside a migration).
