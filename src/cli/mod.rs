@@ -4,10 +4,32 @@
 
 use std::io::Write;
 use std::process::ExitCode;
+use std::sync::atomic::{AtomicBool, Ordering};
+use std::sync::Mutex;
 
 use clap::{Parser, Subcommand};
 
 use crate::Error;
+
+// Every `println!` and `print!` in the subcommands below goes through [`write_stdout`] (these
+// definitions shadow the standard macros in this module and its children): a closed pipe
+// (`samewise status | head -1`) or a full device never panics; the command carries on quietly
+// and [`run`] turns a write error other than a closed pipe into an error status at the end.
+macro_rules! println {
+    () => {
+        $crate::cli::write_stdout(format_args!("\n"))
+    };
+    ($($arg:tt)*) => {
+        $crate::cli::write_stdout(format_args!("{}\n", format_args!($($arg)*)))
+    };
+}
+
+#[allow(unused_macros)]
+macro_rules! print {
+    ($($arg:tt)*) => {
+        $crate::cli::write_stdout(format_args!($($arg)*))
+    };
+}
 
 pub mod chart;
 pub mod check;
@@ -87,8 +109,63 @@ impl Args {
     }
 }
 
+/// Set once a write to stdout failed: later output is dropped.
+static STDOUT_CLOSED: AtomicBool = AtomicBool::new(false);
+/// The first stdout write error that was not a closed pipe (a full device, an I/O error).
+static STDOUT_ERROR: Mutex<Option<std::io::Error>> = Mutex::new(None);
+
+/// Writes to stdout; once a write has failed (closed pipe, full device) output is dropped and
+/// the failure is noted for [`run`] (see [`note_stdout_error`]). Used by `println!` and `print!`
+/// in this module.
+pub fn write_stdout(args: std::fmt::Arguments<'_>) {
+    if STDOUT_CLOSED.load(Ordering::Relaxed) {
+        return;
+    }
+    let mut out = std::io::stdout().lock();
+    if let Err(e) = out.write_fmt(args) {
+        note_stdout_error(e);
+    }
+}
+
+/// Notes a failed write to stdout: a closed pipe ends the output quietly (the reader wanted no
+/// more, as `head` does); any other error makes the command end with the error status.
+pub fn note_stdout_error(e: std::io::Error) {
+    STDOUT_CLOSED.store(true, Ordering::Relaxed);
+    if e.kind() != std::io::ErrorKind::BrokenPipe {
+        let mut first = STDOUT_ERROR.lock().unwrap_or_else(|p| p.into_inner());
+        if first.is_none() {
+            *first = Some(e);
+        }
+    }
+}
+
+/// Whether a write to stdout has failed (its later output was dropped).
+pub fn stdout_closed() -> bool {
+    STDOUT_CLOSED.load(Ordering::Relaxed)
+}
+
 /// Runs one command and returns the process exit code.
+///
+/// A closed stdout pipe counts as success (exit status of the command as if it had printed); a
+/// stdout that could not be written otherwise (a full device) gives the error status.
 pub fn run(args: Args) -> crate::Result<ExitCode> {
+    let result = run_command(args);
+    if !stdout_closed() {
+        if let Err(e) = std::io::stdout().lock().flush() {
+            note_stdout_error(e);
+        }
+    }
+    let failed = STDOUT_ERROR
+        .lock()
+        .unwrap_or_else(|p| p.into_inner())
+        .take();
+    match (result, failed) {
+        (Ok(_), Some(e)) => Err(Error::io("<stdout>", e)),
+        (result, _) => result,
+    }
+}
+
+fn run_command(args: Args) -> crate::Result<ExitCode> {
     match args.command {
         Command::Demo(a) => demo::run(&a),
         Command::Compare(compare_args) => compare::run(&compare_args),
@@ -106,9 +183,13 @@ pub fn run(args: Args) -> crate::Result<ExitCode> {
         Command::Chart(a) => chart::run(&a),
         Command::Completions { shell } => {
             let mut cmd = <Args as clap::CommandFactory>::command();
+            // Generated into memory: the generator panics on a failed write.
+            let mut script = Vec::new();
+            clap_complete::generate(shell, &mut cmd, "samewise", &mut script);
             let mut out = std::io::stdout().lock();
-            clap_complete::generate(shell, &mut cmd, "samewise", &mut out);
-            let _ = out.flush();
+            if let Err(e) = out.write_all(&script).and_then(|_| out.flush()) {
+                note_stdout_error(e);
+            }
             Ok(ExitCode::from(EXIT_OK))
         }
     }
