@@ -61,6 +61,8 @@ pub fn run(args: &DbArgs) -> Result<ExitCode> {
             }
         }
         DbAction::Backup { path } => {
+            let protected = crate::output::Protected::plant(&config.plant.database, &config.path);
+            crate::output::refuse_protected(path, "db backup", &protected)?;
             store.backup(path)?;
             println!(
                 "backed up {} to {}",
