@@ -196,9 +196,18 @@ fn run_command(args: Args) -> crate::Result<ExitCode> {
 }
 
 /// Prints `error: ` and the message with each cause on its own line to stderr; returns exit code 1.
+/// A writer that gave up waiting for the database's lock says what holds it.
 pub fn report_error(err: &Error) -> ExitCode {
     let mut stderr = std::io::stderr().lock();
-    let _ = writeln!(stderr, "error: {err}");
+    match common::database_in_use().filter(|_| crate::storage::is_busy(err)) {
+        Some(db) => {
+            let _ = writeln!(stderr, "error: {}", crate::storage::busy_message(&db));
+            let _ = writeln!(stderr, "  caused by: {err}");
+        }
+        None => {
+            let _ = writeln!(stderr, "error: {err}");
+        }
+    }
     let mut source = std::error::Error::source(err);
     while let Some(cause) = source {
         let _ = writeln!(stderr, "  caused by: {cause}");

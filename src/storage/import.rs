@@ -517,6 +517,12 @@ impl Store {
             ],
         )?;
         let import_id = tx.last_insert_rowid();
+        // While this transaction holds the write lock, other writers can tell who holds it.
+        let _writer_note = super::WriterNote::write(
+            self.path.as_deref(),
+            &format!("import #{import_id} of {file_name}"),
+            options.started_at,
+        );
 
         let characteristics: Vec<CharacteristicState> = load_characteristics(&tx)?
             .into_iter()
