@@ -54,48 +54,74 @@ pub const EXIT_ERROR: u8 = 1;
 /// Exit code: finished, and at least one test was flagged.
 pub const EXIT_FLAGGED: u8 = 3;
 
+/// The exit statuses every command shares (the README's table lists them per command).
+const EXITS_COMMON: &str = "Exit status: 0 done; 1 an error stopped it (message on stderr); \
+2 the command line could not be parsed. A closed stdout (`| head`) does not change the status; \
+a stdout that cannot be written otherwise (a full device) gives 1.";
+
 /// samewise: do your machines, lines, shifts and suppliers still produce the same result?
 #[derive(Debug, Parser)]
-#[command(name = "samewise", version, about, long_about = None)]
+#[command(name = "samewise", version, about, long_about = None, after_help = EXITS_ALL)]
 pub struct Args {
     /// What to do.
     #[command(subcommand)]
     pub command: Command,
 }
 
+/// The exit statuses of every command, for `samewise --help`.
+const EXITS_ALL: &str = "Exit status: 0 done (nothing flagged); 1 an error stopped the command \
+(`import`: a file failed, was already imported, or stored nothing; `schedule`: a period failed; \
+`db check`: the database failed the check); 2 the command line could not be parsed; 3 `check` \
+finished and at least one test was flagged. A closed stdout (`| head`) does not change the \
+status. `samewise COMMAND --help` gives each command's.";
+
 /// The subcommands.
 #[derive(Debug, Subcommand)]
 pub enum Command {
     /// Run the invented sample plant end to end: import, catch-up of every check, report.
+    #[command(after_help = EXITS_COMMON)]
     Demo(demo::DemoArgs),
     /// Compare the groups of one CSV file: one-way ANOVA, checks, Welch, Kruskal-Wallis and more.
+    #[command(after_help = EXITS_COMMON)]
     Compare(compare::CompareArgs),
     /// Create the plant database from the configuration, or bring it up to date.
+    #[command(after_help = "Exit status: 0 the database is created or up to date; 1 an error stopped it (also: the file is another program's database); 2 the command line could not be parsed.")]
     Init(init::InitArgs),
     /// Import CSV exports; each file goes in completely or not at all.
+    #[command(after_help = "Exit status: 0 every file stored measurements; 1 a file could not be read, was already imported (without --force), or stored nothing (every row rejected, or no data rows: such an import keeps its rejections but does not count as imported, so the corrected file needs no --force); the other files are still imported; 2 the command line could not be parsed. A closed stdout does not change the status; with several files, stderr then names the files stored.")]
     Import(import::ImportArgs),
     /// Show what the database holds.
+    #[command(after_help = EXITS_COMMON)]
     Status(status::StatusArgs),
     /// Record and list process-change events.
+    #[command(after_help = EXITS_COMMON)]
     Event(event::EventArgs),
     /// Check or back up the database.
+    #[command(after_help = "Exit status: 0 done (`db check`: the database is sound); 1 an error stopped it, or `db check` found a problem; 2 the command line could not be parsed.")]
     Db(db::DbArgs),
     /// Before vs after a process change per group (two-way ANOVA), or a change-point scan.
+    #[command(after_help = EXITS_COMMON)]
     Investigate(investigate::InvestigateArgs),
     /// Write the deterministic benchmark plant (CSV + configuration).
     #[command(hide = true)]
     GenerateBenchData(import::GenerateArgs),
     /// Check one period: every characteristic x factor, false-discovery control, stored as a run.
+    #[command(after_help = "Exit status: 0 done, nothing flagged; 3 done, at least one test flagged; 1 an error stopped it (the run is kept as failed); 2 the command line could not be parsed. A closed stdout does not change the status.")]
     Check(check::CheckArgs),
     /// The trend of one comparison (characteristic by factor) over the stored runs.
+    #[command(after_help = EXITS_COMMON)]
     History(history::HistoryArgs),
     /// Run the configured schedules: `due` once (for cron), `run` in the foreground.
+    #[command(after_help = "Exit status: 0 every due period ran (flags do not change it: they are stored and shown by `history` and the report); 1 a period failed (the others still ran) or an error stopped it; 2 the command line could not be parsed.")]
     Schedule(schedule::ScheduleArgs),
     /// Write the monthly review report (one self-contained HTML file) from the stored runs.
+    #[command(after_help = EXITS_COMMON)]
     Report(report::ReportArgs),
     /// Draw one chart (trend, share, detail, grid, before-after) as SVG or PNG.
+    #[command(after_help = EXITS_COMMON)]
     Chart(chart::ChartArgs),
     /// Print a shell completion script (bash, zsh or fish) to stdout.
+    #[command(after_help = EXITS_COMMON)]
     Completions {
         /// The shell.
         shell: clap_complete::Shell,
