@@ -155,7 +155,10 @@ impl AtomicFile {
     /// Flushes, syncs and renames the temporary file over the target.
     pub fn commit(mut self) -> Result<()> {
         let target = self.target.clone();
-        let writer = self.writer.take().expect("an uncommitted file has its writer");
+        let writer = self
+            .writer
+            .take()
+            .expect("an uncommitted file has its writer");
         let file = writer
             .into_inner()
             .map_err(|e| Error::io(&target, e.into_error()))?;
@@ -213,7 +216,10 @@ mod tests {
         std::fs::hard_link(&db, &linked).unwrap();
         assert!(same_file(&linked, &db));
         // Not yet written: compared by directory and name.
-        assert!(same_file(&dir.join("new.html"), &dir.join(".").join("new.html")));
+        assert!(same_file(
+            &dir.join("new.html"),
+            &dir.join(".").join("new.html")
+        ));
         assert!(!same_file(&dir.join("new.html"), &db));
         let wal = Protected::plant(&db, &dir.join("plant.toml"));
         let err = refuse_protected(&dir.join("plant.db-wal"), "--out", &wal).unwrap_err();
@@ -234,7 +240,11 @@ mod tests {
             // dropped without commit
         }
         assert_eq!(std::fs::read(&target).unwrap(), b"old");
-        assert_eq!(std::fs::read_dir(&dir).unwrap().count(), 1, "no temporary left");
+        assert_eq!(
+            std::fs::read_dir(&dir).unwrap().count(),
+            1,
+            "no temporary left"
+        );
         write_atomic(&target, b"new").unwrap();
         assert_eq!(std::fs::read(&target).unwrap(), b"new");
         std::fs::remove_dir_all(&dir).unwrap();

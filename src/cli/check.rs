@@ -412,6 +412,8 @@ fn write_csv(path: &std::path::Path, content: &RunContent) -> Result<()> {
         .map_err(io)?;
     }
     w.flush().map_err(|e| Error::io(path, e))?;
-    let file = w.into_inner().map_err(|e| Error::io(path, e.into_error()))?;
+    let file = w
+        .into_inner()
+        .map_err(|e| Error::io(path, e.into_error()))?;
     file.commit()
 }

@@ -127,10 +127,7 @@ fn open_input(file: &Path) -> Result<(Box<dyn std::io::Read + Send>, PathBuf, bo
         return Ok((Box::new(std::io::stdin()), PathBuf::from(STDIN_NAME), false));
     }
     let opened = std::fs::File::open(file).map_err(|e| Error::io(file, e))?;
-    let is_regular = opened
-        .metadata()
-        .map_err(|e| Error::io(file, e))?
-        .is_file();
+    let is_regular = opened.metadata().map_err(|e| Error::io(file, e))?.is_file();
     Ok((Box::new(opened), file.to_path_buf(), is_regular))
 }
 

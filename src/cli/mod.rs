@@ -85,10 +85,14 @@ pub enum Command {
     #[command(after_help = EXITS_COMMON)]
     Compare(compare::CompareArgs),
     /// Create the plant database from the configuration, or bring it up to date.
-    #[command(after_help = "Exit status: 0 the database is created or up to date; 1 an error stopped it (also: the file is another program's database); 2 the command line could not be parsed.")]
+    #[command(
+        after_help = "Exit status: 0 the database is created or up to date; 1 an error stopped it (also: the file is another program's database); 2 the command line could not be parsed."
+    )]
     Init(init::InitArgs),
     /// Import CSV exports; each file goes in completely or not at all.
-    #[command(after_help = "Exit status: 0 every file stored measurements; 1 a file could not be read, was already imported (without --force), or stored nothing (every row rejected, or no data rows: such an import keeps its rejections but does not count as imported, so the corrected file needs no --force); the other files are still imported; 2 the command line could not be parsed. A closed stdout does not change the status; with several files, stderr then names the files stored.")]
+    #[command(
+        after_help = "Exit status: 0 every file stored measurements; 1 a file could not be read, was already imported (without --force), or stored nothing (every row rejected, or no data rows: such an import keeps its rejections but does not count as imported, so the corrected file needs no --force); the other files are still imported; 2 the command line could not be parsed. A closed stdout does not change the status; with several files, stderr then names the files stored."
+    )]
     Import(import::ImportArgs),
     /// Show what the database holds.
     #[command(after_help = EXITS_COMMON)]
@@ -97,7 +101,9 @@ pub enum Command {
     #[command(after_help = EXITS_COMMON)]
     Event(event::EventArgs),
     /// Check or back up the database.
-    #[command(after_help = "Exit status: 0 done (`db check`: the database is sound); 1 an error stopped it, or `db check` found a problem; 2 the command line could not be parsed.")]
+    #[command(
+        after_help = "Exit status: 0 done (`db check`: the database is sound); 1 an error stopped it, or `db check` found a problem; 2 the command line could not be parsed."
+    )]
     Db(db::DbArgs),
     /// Before vs after a process change per group (two-way ANOVA), or a change-point scan.
     #[command(after_help = EXITS_COMMON)]
@@ -106,13 +112,17 @@ pub enum Command {
     #[command(hide = true)]
     GenerateBenchData(import::GenerateArgs),
     /// Check one period: every characteristic x factor, false-discovery control, stored as a run.
-    #[command(after_help = "Exit status: 0 done, nothing flagged; 3 done, at least one test flagged; 1 an error stopped it (the run is kept as failed); 2 the command line could not be parsed. A closed stdout does not change the status.")]
+    #[command(
+        after_help = "Exit status: 0 done, nothing flagged; 3 done, at least one test flagged; 1 an error stopped it (the run is kept as failed); 2 the command line could not be parsed. A closed stdout does not change the status."
+    )]
     Check(check::CheckArgs),
     /// The trend of one comparison (characteristic by factor) over the stored runs.
     #[command(after_help = EXITS_COMMON)]
     History(history::HistoryArgs),
     /// Run the configured schedules: `due` once (for cron), `run` in the foreground.
-    #[command(after_help = "Exit status: 0 every due period ran (flags do not change it: they are stored and shown by `history` and the report); 1 a period failed (the others still ran) or an error stopped it; 2 the command line could not be parsed.")]
+    #[command(
+        after_help = "Exit status: 0 every due period ran (flags do not change it: they are stored and shown by `history` and the report); 1 a period failed (the others still ran) or an error stopped it; 2 the command line could not be parsed."
+    )]
     Schedule(schedule::ScheduleArgs),
     /// Write the monthly review report (one self-contained HTML file) from the stored runs.
     #[command(after_help = EXITS_COMMON)]
