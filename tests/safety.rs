@@ -414,6 +414,27 @@ fn issue_15_a_closed_stdout_or_a_full_device_never_panics() {
     );
     assert!(o.status.success(), "{}", text(&o));
 
+    // stderr closed as well (`2>&1 | head -1`): an error message that cannot be written is
+    // dropped, the status stays.
+    let o = Command::new(bin())
+        .current_dir(&dir)
+        .args(["import", "missing.csv"])
+        .env_remove("SAMEWISE_CONFIG")
+        .stdout(closed_pipe())
+        .stderr(closed_pipe())
+        .status()
+        .unwrap();
+    assert_eq!(o.code(), Some(1));
+    let o = Command::new(bin())
+        .current_dir(&dir)
+        .args(["schedule", "due", "--now", "2026-12-01T12:00:00Z"])
+        .env_remove("SAMEWISE_CONFIG")
+        .stdout(closed_pipe())
+        .stderr(closed_pipe())
+        .status()
+        .unwrap();
+    assert_eq!(o.code(), Some(0));
+
     let printing: &[&[&str]] = &[
         &["status"],
         &["db", "check"],

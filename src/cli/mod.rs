@@ -31,6 +31,15 @@ macro_rules! print {
     };
 }
 
+// `eprintln!` likewise never panics: stderr may be a closed pipe too (`2>&1 | head -1`); a
+// message that cannot be written is dropped.
+macro_rules! eprintln {
+    ($($arg:tt)*) => {{
+        use std::io::Write as _;
+        let _ = writeln!(std::io::stderr().lock(), $($arg)*);
+    }};
+}
+
 pub mod chart;
 pub mod check;
 pub mod common;
