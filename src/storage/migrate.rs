@@ -137,6 +137,31 @@ mod tests {
     use super::*;
 
     #[test]
+    fn samewise_empty_and_foreign_files_are_told_apart() {
+        let conn = Connection::open_in_memory().unwrap();
+        assert_eq!(file_kind(&conn).unwrap(), FileKind::Empty);
+        // A samewise database from before the application id: schema version and tables.
+        let mut conn = Connection::open_in_memory().unwrap();
+        migrate(&mut conn, "test").unwrap();
+        assert_eq!(file_kind(&conn).unwrap(), FileKind::Samewise);
+        mark_samewise(&conn).unwrap();
+        let id: i32 = conn
+            .query_row("PRAGMA application_id", [], |r| r.get(0))
+            .unwrap();
+        assert_eq!(id, APPLICATION_ID);
+        assert_eq!(file_kind(&conn).unwrap(), FileKind::Samewise);
+        // Another program's tables, with or without a schema version; another application id.
+        let conn = Connection::open_in_memory().unwrap();
+        conn.execute_batch("CREATE TABLE measurements (x)").unwrap();
+        assert_eq!(file_kind(&conn).unwrap(), FileKind::Foreign);
+        conn.execute_batch("PRAGMA user_version = 2").unwrap();
+        assert_eq!(file_kind(&conn).unwrap(), FileKind::Foreign);
+        let conn = Connection::open_in_memory().unwrap();
+        conn.execute_batch("PRAGMA application_id = 7").unwrap();
+        assert_eq!(file_kind(&conn).unwrap(), FileKind::Foreign);
+    }
+
+    #[test]
     fn migration_names_are_numbered_in_order() {
         for (i, migration) in MIGRATIONS.iter().enumerate() {
             let number: usize = migration.name[..4].parse().expect("four-digit prefix");
