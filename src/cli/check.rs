@@ -47,7 +47,8 @@ pub struct CheckArgs {
     /// Print one JSON object instead of the summary.
     #[arg(long)]
     pub json: bool,
-    /// Also write every test as a CSV row to FILE.
+    /// Also write every test as a CSV row to FILE (never the database or its configuration;
+    /// written whole or not at all).
     #[arg(long, value_name = "FILE")]
     pub csv: Option<PathBuf>,
     /// False-discovery procedure: bh (Benjamini-Hochberg) or by (Benjamini-Yekutieli).

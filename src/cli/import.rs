@@ -3,7 +3,8 @@
 //!
 //! Each file is one transaction: it goes in completely or not at all. The summary gives rows
 //! read, accepted, rejected, the first rejections and the counts by reason; `--rejects` writes
-//! every rejection of the run to a CSV file.
+//! every rejection of the run to a CSV file. An input is a path or `-` (standard input, named
+//! `<stdin>`), read once; a file that stores nothing makes the exit status 1.
 
 use std::io::{BufWriter, Write};
 use std::path::{Path, PathBuf};
@@ -21,7 +22,8 @@ use super::common::load_config;
 /// Arguments of `samewise import`.
 #[derive(Debug, Args)]
 pub struct ImportArgs {
-    /// CSV files to import (each one is one transaction).
+    /// CSV files to import (each one is one transaction); `-` reads standard input, and pipes,
+    /// FIFOs and `<(zcat export.csv.gz)` work too (each input is read once).
     #[arg(required = true, value_name = "FILE")]
     pub files: Vec<PathBuf>,
     /// The plant configuration (default: $SAMEWISE_CONFIG, then ./plant.toml).
@@ -36,7 +38,8 @@ pub struct ImportArgs {
     /// Accept characteristics that are not in the configuration (they are added).
     #[arg(long)]
     pub add_new: bool,
-    /// Write every rejected row to this CSV file (file, line, column, reason, raw).
+    /// Write every rejected row to this CSV file (file, line, column, reason, raw); never the
+    /// database, its configuration or an input; written whole or not at all.
     #[arg(long, value_name = "FILE.csv")]
     pub rejects: Option<PathBuf>,
     /// Print the CPU time of each import thread (for measuring the import, see DEVELOPERS.md).
