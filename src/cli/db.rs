@@ -28,7 +28,8 @@ pub enum DbAction {
     Check,
     /// Copy the database to PATH with SQLite's online backup (safe while it is in use).
     Backup {
-        /// The new file.
+        /// The new file (must not exist; written under a temporary name and renamed once it has
+        /// passed its integrity check).
         path: PathBuf,
     },
 }
