@@ -83,7 +83,14 @@ pub fn run(args: &ImportArgs) -> Result<ExitCode> {
     let mut stored = Vec::new();
     for file in &args.files {
         match import_one(&mut store, &config, args, file, rejects.as_mut()) {
-            Ok(import_id) => stored.push(format!("{} (import #{import_id})", file.display())),
+            Ok(import_id) => {
+                let name = if file.as_os_str() == "-" {
+                    STDIN_NAME.to_string()
+                } else {
+                    file.display().to_string()
+                };
+                stored.push(format!("{name} (import #{import_id})"));
+            }
             Err(e) => {
                 failures += 1;
                 super::report_error(&e);
