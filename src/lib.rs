@@ -13,6 +13,8 @@
 //! - [`storage`]: all SQLite code (migrations, typed queries).
 //! - [`analysis`]: loads a period, calls `stats`, returns an analysis run.
 //! - [`schedule`]: which periods are due at a given `now`; runs the engine for each.
+//! - [`output`]: output files that never replace an input, written through a temporary name.
+//! - [`process`]: host name and whether a process still runs (lease and lock holders).
 //! - [`report`]: charts (plotters) and the self-contained HTML review report.
 //! - [`cli`]: clap types and one file per subcommand; the only module that reads the wall clock.
 #![warn(missing_docs)]
@@ -24,6 +26,8 @@ pub mod config;
 pub mod error;
 pub mod ingest;
 pub mod model;
+pub mod output;
+pub mod process;
 pub mod report;
 pub mod sample;
 pub mod scenario;

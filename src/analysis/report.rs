@@ -863,7 +863,7 @@ pub fn write_month_report(
 ) -> Result<MonthReport> {
     let r = month_report(store, config, month, generated)?;
     let html = report::render_month_report(&r);
-    std::fs::write(out_path, html).map_err(|e| Error::io(out_path, e))?;
+    crate::output::write_atomic(out_path, html.as_bytes())?;
     Ok(r)
 }
 

@@ -197,11 +197,30 @@ pub fn check_and_record(
         period_kind: head.period_kind.clone(),
         period_label: head.period_label.clone(),
     };
-    let holder = format!("check:{}:{}", std::process::id(), now().timestamp_millis());
+    let holder = crate::schedule::holder_name(now().timestamp_millis());
     let ttl = crate::schedule::DEFAULT_LEASE_TTL.num_milliseconds();
-    if !runs::take_lease(&store.conn, &key, &holder, now().timestamp_millis(), ttl)? {
+    let mut taken = runs::take_lease(&store.conn, &key, &holder, now().timestamp_millis(), ttl)?;
+    if !taken {
+        // A holder on this host whose process is gone (a check killed outright) cannot finish:
+        // its lease is taken over at once, as the scheduler does.
+        if let Some(old) = runs::lease_holder(&store.conn, &key)? {
+            if crate::schedule::holder_is_dead_local(&old, &holder) {
+                taken = runs::take_over_lease(
+                    &store.conn,
+                    &key,
+                    &old,
+                    &holder,
+                    now().timestamp_millis(),
+                    ttl,
+                )?;
+            }
+        }
+    }
+    if !taken {
+        let who = runs::lease_holder(&store.conn, &key)?.unwrap_or_default();
         return Err(crate::Error::Usage(format!(
-            "another check of {} is running (its lease expires within {} minutes)",
+            "another check of {} is running (lease holder {who}; its lease expires within {} \
+             minutes unless renewed)",
             period.label,
             crate::schedule::DEFAULT_LEASE_TTL.num_minutes()
         )));

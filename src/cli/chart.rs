@@ -70,7 +70,8 @@ pub struct ChartArgs {
     /// Days before and after the event (before-after).
     #[arg(long, default_value_t = report::EVENT_WINDOW_DAYS)]
     pub window_days: i64,
-    /// The file to write: .svg or .png.
+    /// The file to write: .svg or .png (never the database or its configuration; written to a
+    /// temporary name and renamed).
     #[arg(long)]
     pub out: PathBuf,
     /// Width in pixels (default 1280; the grid sizes itself).
@@ -213,6 +214,8 @@ fn no_runs(kind: &str, p: &Period) -> Error {
 /// Runs `samewise chart`.
 pub fn run(args: &ChartArgs) -> Result<ExitCode> {
     let config = super::common::load_config(args.config.as_deref())?;
+    let protected = crate::output::Protected::plant(&config.plant.database, &config.path);
+    crate::output::refuse_protected(&args.out, "--out", &protected)?;
     let store = super::common::open_store(&config)?;
     let bytes = render(args, &config, &store)?;
     crate::report::write_chart(&args.out, &bytes)?;

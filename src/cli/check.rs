@@ -15,6 +15,7 @@ use crate::analysis::{state, CheckOptions};
 use crate::calendar::PlantCalendar;
 use crate::config::Config;
 use crate::model::Period;
+use crate::output::{refuse_protected, AtomicFile, Protected};
 use crate::stats::fdr::FdrMethod;
 use crate::storage::runs::{is_flag_state, RunContent, StoredRun, TestRow};
 use crate::{Error, Result};
@@ -46,7 +47,8 @@ pub struct CheckArgs {
     /// Print one JSON object instead of the summary.
     #[arg(long)]
     pub json: bool,
-    /// Also write every test as a CSV row to FILE.
+    /// Also write every test as a CSV row to FILE (never the database or its configuration;
+    /// written whole or not at all).
     #[arg(long, value_name = "FILE")]
     pub csv: Option<PathBuf>,
     /// False-discovery procedure: bh (Benjamini-Hochberg) or by (Benjamini-Yekutieli).
@@ -83,6 +85,10 @@ pub fn period_from_flags(args: &CheckArgs, calendar: &PlantCalendar) -> Result<P
 /// Runs `samewise check`.
 pub fn run(args: &CheckArgs) -> Result<ExitCode> {
     let config = super::common::load_config(args.config.as_deref())?;
+    if let Some(path) = &args.csv {
+        let protected = Protected::plant(&config.plant.database, &config.path);
+        refuse_protected(path, "--csv", &protected)?;
+    }
     let calendar = PlantCalendar::new(&config);
     let period = period_from_flags(args, &calendar)?;
     let mut options = CheckOptions::from_config(&config);
@@ -345,10 +351,7 @@ fn print_json(
 }
 
 fn write_csv(path: &std::path::Path, content: &RunContent) -> Result<()> {
-    let mut w = csv::Writer::from_path(path).map_err(|e| Error::Io {
-        path: path.to_path_buf(),
-        source: std::io::Error::other(e),
-    })?;
+    let mut w = csv::Writer::from_writer(AtomicFile::create(path)?);
     let header = [
         "characteristic",
         "factor",
@@ -415,5 +418,8 @@ fn write_csv(path: &std::path::Path, content: &RunContent) -> Result<()> {
         .map_err(io)?;
     }
     w.flush().map_err(|e| Error::io(path, e))?;
-    Ok(())
+    let file = w
+        .into_inner()
+        .map_err(|e| Error::io(path, e.into_error()))?;
+    file.commit()
 }

@@ -43,8 +43,22 @@ pub fn load_config(flag: Option<&Path>) -> Result<Config> {
     Config::load(&path)
 }
 
+/// The database this command opened (for the message of a writer that gave up waiting).
+static DATABASE: std::sync::Mutex<Option<PathBuf>> = std::sync::Mutex::new(None);
+
+/// Notes the database this command uses (see [`database_in_use`]).
+pub fn note_database(path: &Path) {
+    *DATABASE.lock().unwrap_or_else(|p| p.into_inner()) = Some(path.to_path_buf());
+}
+
+/// The database this command uses, once it was opened.
+pub fn database_in_use() -> Option<PathBuf> {
+    DATABASE.lock().unwrap_or_else(|p| p.into_inner()).clone()
+}
+
 /// Opens the configuration's existing database (an error suggesting `samewise init` if there is
 /// none yet).
 pub fn open_store(config: &Config) -> Result<Store> {
+    note_database(&config.plant.database);
     Store::open(&config.plant.database)
 }

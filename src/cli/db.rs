@@ -28,7 +28,8 @@ pub enum DbAction {
     Check,
     /// Copy the database to PATH with SQLite's online backup (safe while it is in use).
     Backup {
-        /// The new file.
+        /// The new file (must not exist; written under a temporary name and renamed once it has
+        /// passed its integrity check).
         path: PathBuf,
     },
 }
@@ -61,6 +62,8 @@ pub fn run(args: &DbArgs) -> Result<ExitCode> {
             }
         }
         DbAction::Backup { path } => {
+            let protected = crate::output::Protected::plant(&config.plant.database, &config.path);
+            crate::output::refuse_protected(path, "db backup", &protected)?;
             store.backup(path)?;
             println!(
                 "backed up {} to {}",

@@ -298,8 +298,9 @@ pub fn run(args: &DemoArgs) -> Result<ExitCode> {
         let content = runs::run_content(store.connection(), run.run_id)?;
         println!("\n4. The latest daily check ({}):\n", period.label);
         let mut out = std::io::stdout().lock();
-        check_cli::print_summary(&mut out, &period, &run, &content, Some(5))
-            .map_err(|e| Error::io("<stdout>", e))?;
+        if let Err(e) = check_cli::print_summary(&mut out, &period, &run, &content, Some(5)) {
+            super::note_stdout_error(e);
+        }
     }
 
     println!("\n5. What the 90 days show (the sample plant's injected effects are listed in sample-plant/README.md):");

@@ -3,7 +3,8 @@
 //!
 //! Each file is one transaction: it goes in completely or not at all. The summary gives rows
 //! read, accepted, rejected, the first rejections and the counts by reason; `--rejects` writes
-//! every rejection of the run to a CSV file.
+//! every rejection of the run to a CSV file. An input is a path or `-` (standard input, named
+//! `<stdin>`), read once; a file that stores nothing makes the exit status 1.
 
 use std::io::{BufWriter, Write};
 use std::path::{Path, PathBuf};
@@ -12,6 +13,7 @@ use std::process::ExitCode;
 use clap::Args;
 
 use crate::ingest::{self, ReadOptions};
+use crate::output::{refuse_protected, AtomicFile, Protected};
 use crate::storage::{ImportOptions, Store};
 use crate::{Error, Result};
 
@@ -20,7 +22,8 @@ use super::common::load_config;
 /// Arguments of `samewise import`.
 #[derive(Debug, Args)]
 pub struct ImportArgs {
-    /// CSV files to import (each one is one transaction).
+    /// CSV files to import (each one is one transaction); `-` reads standard input, and pipes,
+    /// FIFOs and `<(zcat export.csv.gz)` work too (each input is read once).
     #[arg(required = true, value_name = "FILE")]
     pub files: Vec<PathBuf>,
     /// The plant configuration (default: $SAMEWISE_CONFIG, then ./plant.toml).
@@ -35,7 +38,8 @@ pub struct ImportArgs {
     /// Accept characteristics that are not in the configuration (they are added).
     #[arg(long)]
     pub add_new: bool,
-    /// Write every rejected row to this CSV file (file, line, column, reason, raw).
+    /// Write every rejected row to this CSV file (file, line, column, reason, raw); never the
+    /// database, its configuration or an input; written whole or not at all.
     #[arg(long, value_name = "FILE.csv")]
     pub rejects: Option<PathBuf>,
     /// Print the CPU time of each import thread (for measuring the import, see DEVELOPERS.md).
@@ -52,33 +56,64 @@ fn csv_field(text: &str) -> String {
 }
 
 /// Runs `samewise import`.
+///
+/// Exit status 0 when every file stored something; 1 when a file failed, was a duplicate, or
+/// stored nothing (every row rejected, or no data rows: such an import keeps its rejections but
+/// does not count as done, so the corrected file imports without `--force`).
 pub fn run(args: &ImportArgs) -> Result<ExitCode> {
     let config = load_config(args.config.as_deref())?;
-    let mut store = super::common::open_store(&config)?;
-    // The configuration is the truth for characteristics and factors: bring the database in step.
-    store.sync_config(&config)?;
     let mut rejects = match &args.rejects {
         Some(path) => {
-            let file = std::fs::File::create(path).map_err(|e| Error::io(path, e))?;
-            let mut w = BufWriter::new(file);
-            writeln!(w, "file,line,column,reason,raw").map_err(|e| Error::io(path, e))?;
-            Some((path.clone(), w))
+            let mut protected = Protected::plant(&config.plant.database, &config.path);
+            for file in args.files.iter().filter(|f| f.as_os_str() != "-") {
+                protected.push(Protected::new(file, "an input of this import"));
+            }
+            refuse_protected(path, "--rejects", &protected)?;
+            Some(AtomicFile::create(path)?)
         }
         None => None,
     };
+    let mut store = super::common::open_store(&config)?;
+    // The configuration is the truth for characteristics and factors: bring the database in step.
+    store.sync_config(&config)?;
+    if let Some(w) = rejects.as_mut() {
+        writeln!(w, "file,line,column,reason,raw").map_err(|e| Error::io(w.path(), e))?;
+    }
     let mut failures = 0;
+    let mut stored = Vec::new();
     for file in &args.files {
         match import_one(&mut store, &config, args, file, rejects.as_mut()) {
-            Ok(()) => {}
+            Ok(import_id) => {
+                let name = if file.as_os_str() == "-" {
+                    STDIN_NAME.to_string()
+                } else {
+                    file.display().to_string()
+                };
+                stored.push(format!("{name} (import #{import_id})"));
+            }
             Err(e) => {
                 failures += 1;
                 super::report_error(&e);
             }
         }
     }
-    if let Some((path, mut w)) = rejects {
-        w.flush().map_err(|e| Error::io(&path, e))?;
+    if let Some(w) = rejects {
+        let path = w.path().to_path_buf();
+        w.commit()?;
         println!("rejected rows written to {}", path.display());
+    }
+    if super::stdout_closed() && args.files.len() > 1 {
+        // The summary went nowhere: say on stderr what is in the database now.
+        eprintln!(
+            "samewise import: stdout was closed; stored {} of {} files: {}",
+            stored.len(),
+            args.files.len(),
+            if stored.is_empty() {
+                "none".to_string()
+            } else {
+                stored.join(", ")
+            }
+        );
     }
     if failures > 0 {
         return Err(Error::Usage(format!(
@@ -89,31 +124,51 @@ pub fn run(args: &ImportArgs) -> Result<ExitCode> {
     Ok(ExitCode::from(super::EXIT_OK))
 }
 
+/// The name `-` (standard input) goes by in messages and in the import record.
+pub const STDIN_NAME: &str = "<stdin>";
+
+/// Opens one input: `-` is standard input, anything else a path (a regular file, a pipe, a FIFO,
+/// `/dev/stdin`, a process substitution). Returns the reader, the name for messages, and whether
+/// it is a regular file (only a regular file can be read a second time, so only it is hashed
+/// ahead for the early duplicate check; every other input is hashed by the one pass that parses
+/// it, and a duplicate is refused at its end).
+fn open_input(file: &Path) -> Result<(Box<dyn std::io::Read + Send>, PathBuf, bool)> {
+    if file.as_os_str() == "-" {
+        return Ok((Box::new(std::io::stdin()), PathBuf::from(STDIN_NAME), false));
+    }
+    let opened = std::fs::File::open(file).map_err(|e| Error::io(file, e))?;
+    let is_regular = opened.metadata().map_err(|e| Error::io(file, e))?.is_file();
+    Ok((Box::new(opened), file.to_path_buf(), is_regular))
+}
+
 fn import_one(
     store: &mut Store,
     config: &crate::config::Config,
     args: &ImportArgs,
     file: &Path,
-    rejects: Option<&mut (PathBuf, BufWriter<std::fs::File>)>,
-) -> Result<()> {
-    let stream = ingest::read_file_with(
-        file,
+    rejects: Option<&mut AtomicFile>,
+) -> Result<i64> {
+    let (reader, name, is_regular) = open_input(file)?;
+    let stream = ingest::read_from(
+        reader,
+        &name,
         config,
         &ReadOptions {
             layout: args.layout.clone(),
             add_new: args.add_new,
         },
     )?;
-    // A duplicate is refused as soon as a thread of its own has hashed the file (the import
-    // checks again at its end, on the bytes it read).
+    // A duplicate regular file is refused as soon as a thread of its own has hashed it (the
+    // import checks again at its end, on the bytes it read: the only check for a pipe).
     let report = store.import_checking_early(
         stream,
         &ImportOptions {
             force: args.force,
             started_at: chrono::Utc::now(),
         },
-        Some(file),
+        is_regular.then_some(file),
     )?;
+    let file = name.as_path();
     println!(
         "{}: import #{} (layout {}): {} rows read, {} measurements: {} accepted, {} rejected ({:.1} s)",
         file.display(),
@@ -163,7 +218,8 @@ fn import_one(
             println!("    {n:>8}  {reason}");
         }
     }
-    if let Some((path, w)) = rejects {
+    if let Some(w) = rejects {
+        let path = w.path().to_path_buf();
         let rows = store.rejected_rows(report.import_id)?;
         let name = file.display().to_string();
         for r in rows {
@@ -176,10 +232,23 @@ fn import_one(
                 csv_field(&r.reason),
                 csv_field(&r.raw)
             )
-            .map_err(|e| Error::io(path.as_path(), e))?;
+            .map_err(|e| Error::io(&path, e))?;
         }
     }
-    Ok(())
+    if report.accepted == 0 {
+        return Err(Error::Ingest {
+            path: file.to_path_buf(),
+            line: None,
+            column: None,
+            reason: format!(
+                "nothing was stored ({} of {} measurements rejected); import #{} keeps the \
+                 rejections but does not count as imported: correct the file or the \
+                 configuration and import it again (no --force needed)",
+                report.rejected, report.measurements_read, report.import_id
+            ),
+        });
+    }
+    Ok(report.import_id)
 }
 
 /// Arguments of the hidden `samewise generate-bench-data`.

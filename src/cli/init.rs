@@ -24,7 +24,10 @@ pub struct InitArgs {
 pub fn run(args: &InitArgs) -> Result<ExitCode> {
     let config = load_config(args.config.as_deref())?;
     let db = &config.plant.database;
-    let existed = db.exists();
+    super::common::note_database(db);
+    // A 0-byte or table-less file holds nothing: the database is created in it. Another
+    // program's database is refused (by `Store::open_or_create`).
+    let existed = db.exists() && !Store::is_empty_file(db)?;
     let before = if existed {
         Some(Store::open(db)?.schema_version()?)
     } else {

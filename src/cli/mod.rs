@@ -4,10 +4,41 @@
 
 use std::io::Write;
 use std::process::ExitCode;
+use std::sync::atomic::{AtomicBool, Ordering};
+use std::sync::Mutex;
 
 use clap::{Parser, Subcommand};
 
 use crate::Error;
+
+// Every `println!` and `print!` in the subcommands below goes through [`write_stdout`] (these
+// definitions shadow the standard macros in this module and its children): a closed pipe
+// (`samewise status | head -1`) or a full device never panics; the command carries on quietly
+// and [`run`] turns a write error other than a closed pipe into an error status at the end.
+macro_rules! println {
+    () => {
+        $crate::cli::write_stdout(format_args!("\n"))
+    };
+    ($($arg:tt)*) => {
+        $crate::cli::write_stdout(format_args!("{}\n", format_args!($($arg)*)))
+    };
+}
+
+#[allow(unused_macros)]
+macro_rules! print {
+    ($($arg:tt)*) => {
+        $crate::cli::write_stdout(format_args!($($arg)*))
+    };
+}
+
+// `eprintln!` likewise never panics: stderr may be a closed pipe too (`2>&1 | head -1`); a
+// message that cannot be written is dropped.
+macro_rules! eprintln {
+    ($($arg:tt)*) => {{
+        use std::io::Write as _;
+        let _ = writeln!(std::io::stderr().lock(), $($arg)*);
+    }};
+}
 
 pub mod chart;
 pub mod check;
@@ -32,49 +63,85 @@ pub const EXIT_ERROR: u8 = 1;
 /// Exit code: finished, and at least one test was flagged.
 pub const EXIT_FLAGGED: u8 = 3;
 
+/// The exit statuses every command shares (the README's table lists them per command).
+const EXITS_COMMON: &str = "Exit status: 0 done; 1 an error stopped it (message on stderr); \
+2 the command line could not be parsed. A closed stdout (`| head`) does not change the status; \
+a stdout that cannot be written otherwise (a full device) gives 1.";
+
 /// samewise: do your machines, lines, shifts and suppliers still produce the same result?
 #[derive(Debug, Parser)]
-#[command(name = "samewise", version, about, long_about = None)]
+#[command(name = "samewise", version, about, long_about = None, after_help = EXITS_ALL)]
 pub struct Args {
     /// What to do.
     #[command(subcommand)]
     pub command: Command,
 }
 
+/// The exit statuses of every command, for `samewise --help`.
+const EXITS_ALL: &str = "Exit status: 0 done (nothing flagged); 1 an error stopped the command \
+(`import`: a file failed, was already imported, or stored nothing; `schedule`: a period failed; \
+`db check`: the database failed the check); 2 the command line could not be parsed; 3 `check` \
+finished and at least one test was flagged. A closed stdout (`| head`) does not change the \
+status. `samewise COMMAND --help` gives each command's.";
+
 /// The subcommands.
 #[derive(Debug, Subcommand)]
 pub enum Command {
     /// Run the invented sample plant end to end: import, catch-up of every check, report.
+    #[command(after_help = EXITS_COMMON)]
     Demo(demo::DemoArgs),
     /// Compare the groups of one CSV file: one-way ANOVA, checks, Welch, Kruskal-Wallis and more.
+    #[command(after_help = EXITS_COMMON)]
     Compare(compare::CompareArgs),
     /// Create the plant database from the configuration, or bring it up to date.
+    #[command(
+        after_help = "Exit status: 0 the database is created or up to date; 1 an error stopped it (also: the file is another program's database); 2 the command line could not be parsed."
+    )]
     Init(init::InitArgs),
     /// Import CSV exports; each file goes in completely or not at all.
+    #[command(
+        after_help = "Exit status: 0 every file stored measurements; 1 a file could not be read, was already imported (without --force), or stored nothing (every row rejected, or no data rows: such an import keeps its rejections but does not count as imported, so the corrected file needs no --force); the other files are still imported; 2 the command line could not be parsed. A closed stdout does not change the status; with several files, stderr then names the files stored."
+    )]
     Import(import::ImportArgs),
     /// Show what the database holds.
+    #[command(after_help = EXITS_COMMON)]
     Status(status::StatusArgs),
     /// Record and list process-change events.
+    #[command(after_help = EXITS_COMMON)]
     Event(event::EventArgs),
     /// Check or back up the database.
+    #[command(
+        after_help = "Exit status: 0 done (`db check`: the database is sound); 1 an error stopped it, or `db check` found a problem; 2 the command line could not be parsed."
+    )]
     Db(db::DbArgs),
     /// Before vs after a process change per group (two-way ANOVA), or a change-point scan.
+    #[command(after_help = EXITS_COMMON)]
     Investigate(investigate::InvestigateArgs),
     /// Write the deterministic benchmark plant (CSV + configuration).
     #[command(hide = true)]
     GenerateBenchData(import::GenerateArgs),
     /// Check one period: every characteristic x factor, false-discovery control, stored as a run.
-    #[command(long_about = CHECK_RULE)]
+    #[command(
+        long_about = CHECK_RULE,
+        after_help = "Exit status: 0 done, nothing flagged; 3 done, at least one test flagged; 1 an error stopped it (the run is kept as failed); 2 the command line could not be parsed. A closed stdout does not change the status."
+    )]
     Check(check::CheckArgs),
     /// The trend of one comparison (characteristic by factor) over the stored runs.
+    #[command(after_help = EXITS_COMMON)]
     History(history::HistoryArgs),
     /// Run the configured schedules: `due` once (for cron), `run` in the foreground.
+    #[command(
+        after_help = "Exit status: 0 every due period ran (flags do not change it: they are stored and shown by `history` and the report); 1 a period failed (the others still ran) or an error stopped it; 2 the command line could not be parsed."
+    )]
     Schedule(schedule::ScheduleArgs),
     /// Write the monthly review report (one self-contained HTML file) from the stored runs.
+    #[command(after_help = EXITS_COMMON)]
     Report(report::ReportArgs),
     /// Draw one chart (trend, share, detail, grid, before-after) as SVG or PNG.
+    #[command(after_help = EXITS_COMMON)]
     Chart(chart::ChartArgs),
     /// Print a shell completion script (bash, zsh or fish) to stdout.
+    #[command(after_help = EXITS_COMMON)]
     Completions {
         /// The shell.
         shell: clap_complete::Shell,
@@ -99,12 +166,65 @@ Which test leads (chosen from the null-rate study in docs/null-rates.md, `cargo 
 - very unequal sizes and every group at Welch's size: Welch's test, without a check of the spreads;
 - about equal sizes at Welch's size: Brown-Forsythe (p < 0.05) and, with at most 5 groups, the SD ratio (> 2) judge the spreads: alike, the classic F leads; different, Welch's test.
 
-States: differs and material (q <= level and the near end of the standing-out group's 95% interval against the rest, Bonferroni over the groups, reaches the material share of the tolerance, or of the distance from the target to a single limit), differs, no evidence, too few values to compare (no p-value, outside the false-discovery family), too little data.
+States: differs and material (q <= level and the near end of the standing-out group's 95% interval against the rest, Bonferroni over the groups, reaches the material share of the tolerance, or of the distance from the target to a single limit), differs, no evidence, too few values to compare (no p-value, outside the false-discovery family), too little data.";
 
-Exit status: 0 nothing flagged, 3 something flagged, 2 an error.";
+/// Set once a write to stdout failed: later output is dropped.
+static STDOUT_CLOSED: AtomicBool = AtomicBool::new(false);
+/// The first stdout write error that was not a closed pipe (a full device, an I/O error).
+static STDOUT_ERROR: Mutex<Option<std::io::Error>> = Mutex::new(None);
+
+/// Writes to stdout; once a write has failed (closed pipe, full device) output is dropped and
+/// the failure is noted for [`run`] (see [`note_stdout_error`]). Used by `println!` and `print!`
+/// in this module.
+pub fn write_stdout(args: std::fmt::Arguments<'_>) {
+    if STDOUT_CLOSED.load(Ordering::Relaxed) {
+        return;
+    }
+    let mut out = std::io::stdout().lock();
+    if let Err(e) = out.write_fmt(args) {
+        note_stdout_error(e);
+    }
+}
+
+/// Notes a failed write to stdout: a closed pipe ends the output quietly (the reader wanted no
+/// more, as `head` does); any other error makes the command end with the error status.
+pub fn note_stdout_error(e: std::io::Error) {
+    STDOUT_CLOSED.store(true, Ordering::Relaxed);
+    if e.kind() != std::io::ErrorKind::BrokenPipe {
+        let mut first = STDOUT_ERROR.lock().unwrap_or_else(|p| p.into_inner());
+        if first.is_none() {
+            *first = Some(e);
+        }
+    }
+}
+
+/// Whether a write to stdout has failed (its later output was dropped).
+pub fn stdout_closed() -> bool {
+    STDOUT_CLOSED.load(Ordering::Relaxed)
+}
 
 /// Runs one command and returns the process exit code.
+///
+/// A closed stdout pipe counts as success (exit status of the command as if it had printed); a
+/// stdout that could not be written otherwise (a full device) gives the error status.
 pub fn run(args: Args) -> crate::Result<ExitCode> {
+    let result = run_command(args);
+    if !stdout_closed() {
+        if let Err(e) = std::io::stdout().lock().flush() {
+            note_stdout_error(e);
+        }
+    }
+    let failed = STDOUT_ERROR
+        .lock()
+        .unwrap_or_else(|p| p.into_inner())
+        .take();
+    match (result, failed) {
+        (Ok(_), Some(e)) => Err(Error::io("<stdout>", e)),
+        (result, _) => result,
+    }
+}
+
+fn run_command(args: Args) -> crate::Result<ExitCode> {
     match args.command {
         Command::Demo(a) => demo::run(&a),
         Command::Compare(compare_args) => compare::run(&compare_args),
@@ -122,18 +242,31 @@ pub fn run(args: Args) -> crate::Result<ExitCode> {
         Command::Chart(a) => chart::run(&a),
         Command::Completions { shell } => {
             let mut cmd = <Args as clap::CommandFactory>::command();
+            // Generated into memory: the generator panics on a failed write.
+            let mut script = Vec::new();
+            clap_complete::generate(shell, &mut cmd, "samewise", &mut script);
             let mut out = std::io::stdout().lock();
-            clap_complete::generate(shell, &mut cmd, "samewise", &mut out);
-            let _ = out.flush();
+            if let Err(e) = out.write_all(&script).and_then(|_| out.flush()) {
+                note_stdout_error(e);
+            }
             Ok(ExitCode::from(EXIT_OK))
         }
     }
 }
 
 /// Prints `error: ` and the message with each cause on its own line to stderr; returns exit code 1.
+/// A writer that gave up waiting for the database's lock says what holds it.
 pub fn report_error(err: &Error) -> ExitCode {
     let mut stderr = std::io::stderr().lock();
-    let _ = writeln!(stderr, "error: {err}");
+    match common::database_in_use().filter(|_| crate::storage::is_busy(err)) {
+        Some(db) => {
+            let _ = writeln!(stderr, "error: {}", crate::storage::busy_message(&db));
+            let _ = writeln!(stderr, "  caused by: {err}");
+        }
+        None => {
+            let _ = writeln!(stderr, "error: {err}");
+        }
+    }
     let mut source = std::error::Error::source(err);
     while let Some(cause) = source {
         let _ = writeln!(stderr, "  caused by: {cause}");

@@ -22,7 +22,8 @@ pub struct ReportArgs {
     /// The month, as YYYY-MM.
     #[arg(long)]
     pub month: String,
-    /// The HTML file to write.
+    /// The HTML file to write (.html or .htm; never the database, its configuration or an
+    /// existing file's half: written to a temporary name and renamed).
     #[arg(long)]
     pub out: PathBuf,
 }
@@ -45,6 +46,9 @@ pub fn parse_month(calendar: &PlantCalendar, label: &str) -> Result<crate::model
 /// Runs `samewise report` (`now` is the time shown as the report's date).
 pub fn run(args: &ReportArgs, now: chrono::DateTime<chrono::Utc>) -> Result<ExitCode> {
     let config = super::common::load_config(args.config.as_deref())?;
+    let protected = crate::output::Protected::plant(&config.plant.database, &config.path);
+    crate::output::refuse_protected(&args.out, "--out", &protected)?;
+    crate::output::require_extension(&args.out, "--out", &["html", "htm"])?;
     let calendar = PlantCalendar::new(&config);
     let month = parse_month(&calendar, &args.month)?;
     let store = super::common::open_store(&config)?;

@@ -80,16 +80,7 @@ fn parse_instant(flag: &str, text: &str) -> Result<DateTime<Utc>> {
 
 /// `host:pid:start-nanos`, naming this process in leases.
 pub fn holder_name() -> String {
-    let host = std::fs::read_to_string("/proc/sys/kernel/hostname")
-        .ok()
-        .map(|h| h.trim().to_string())
-        .or_else(|| std::env::var("HOSTNAME").ok())
-        .unwrap_or_else(|| "localhost".into());
-    format!(
-        "{host}:{}:{}",
-        std::process::id(),
-        Utc::now().timestamp_nanos_opt().unwrap_or_default()
-    )
+    crate::schedule::holder_name(Utc::now().timestamp_nanos_opt().unwrap_or_default())
 }
 
 /// Runs `samewise schedule`.

@@ -31,7 +31,7 @@ pub use grid::natural_size as grid_natural_size;
 pub use html::{escape_html, render_month_report, standard_methods};
 pub use input::*;
 
-use crate::error::{Error, Result};
+use crate::error::Result;
 
 /// Output format of a chart.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -204,7 +204,7 @@ pub fn render_before_after(
     draw_before_after(input, format, size).map(|c| c.bytes)
 }
 
-/// Writes chart bytes to `path`.
+/// Writes chart bytes to `path` (through a temporary name: a failure leaves no half file).
 pub fn write_chart(path: &Path, bytes: &[u8]) -> Result<()> {
-    std::fs::write(path, bytes).map_err(|e| Error::io(path, e))
+    crate::output::write_atomic(path, bytes)
 }

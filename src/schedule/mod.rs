@@ -330,15 +330,23 @@ pub fn holder_is_dead_local(old: &str, me: &str) -> bool {
     let (Some(old_host), Some(old_pid), Some(my_host)) = (o.next(), o.next(), m.next()) else {
         return false;
     };
-    if old_host != my_host || !std::path::Path::new("/proc/self").exists() {
+    if old_host != my_host {
         return false;
     }
     match old_pid.parse::<u32>() {
-        Ok(pid) => {
-            pid != std::process::id() && !std::path::Path::new(&format!("/proc/{pid}")).exists()
-        }
+        Ok(pid) => crate::process::pid_is_gone(pid),
         Err(_) => false,
     }
+}
+
+/// `host:pid:tag`, naming this process in leases (`tag` tells apart two holders of one process,
+/// e.g. the start instant in nanoseconds).
+pub fn holder_name(tag: i64) -> String {
+    format!(
+        "{}:{}:{tag}",
+        crate::process::host_name(),
+        std::process::id()
+    )
 }
 
 /// The instant the scheduler should wake up next: the earliest next due time over all

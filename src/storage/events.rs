@@ -52,7 +52,11 @@ impl Store {
         if event.note.trim().is_empty() {
             return Err(Error::Usage("the event note is empty".to_string()));
         }
-        let tx = self.conn.transaction()?;
+        // IMMEDIATE: the write lock is taken (waiting with the busy timeout while an import
+        // writes) before anything is read; a deferred transaction could not wait for it.
+        let tx = self
+            .conn
+            .transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)?;
         let characteristic_id = match &event.characteristic {
             None => None,
             Some(name) => {

@@ -400,11 +400,14 @@ fn ms(ts: DateTime<Utc>) -> i64 {
     ts.timestamp_millis()
 }
 
-/// The earlier imports with this content hash, oldest first.
+/// The earliest import with this content hash that stored something. An import that stored
+/// nothing (every row rejected, or no rows) is kept with its rejections but does not count as
+/// done: the corrected file, or the same one after a configuration fix, imports without `--force`.
 pub(crate) fn imports_with_sha256(conn: &Connection, sha256: &str) -> Result<Option<PriorImport>> {
     Ok(conn
         .prepare_cached(
-            "SELECT id, file_name, started_ms, accepted FROM imports WHERE sha256 = ?1 ORDER BY id LIMIT 1",
+            "SELECT id, file_name, started_ms, accepted FROM imports WHERE sha256 = ?1 AND accepted > 0 \
+             ORDER BY id LIMIT 1",
         )?
         .query_row([sha256], |r| {
             Ok(PriorImport {
@@ -514,6 +517,12 @@ impl Store {
             ],
         )?;
         let import_id = tx.last_insert_rowid();
+        // While this transaction holds the write lock, other writers can tell who holds it.
+        let _writer_note = super::WriterNote::write(
+            self.path.as_deref(),
+            &format!("import #{import_id} of {file_name}"),
+            options.started_at,
+        );
 
         let characteristics: Vec<CharacteristicState> = load_characteristics(&tx)?
             .into_iter()

@@ -223,20 +223,39 @@ impl Store {
                 dest.display()
             )));
         }
-        let mut target = Connection::open(dest)?;
-        {
-            let backup = Backup::new(&self.conn, &mut target)?;
-            // Copy in steps so writers are not blocked for the whole copy; a write by another
-            // connection restarts the copy, which the loop runs to completion.
-            backup.run_to_completion(1024, Duration::from_millis(5), None)?;
+        // Written under a temporary name beside `dest` and renamed once it is whole and has
+        // passed its integrity check: an interrupted backup leaves no file that looks like one.
+        let temp = crate::output::temp_name(dest);
+        let result = (|| -> Result<()> {
+            let mut target = Connection::open(&temp)?;
+            {
+                let backup = Backup::new(&self.conn, &mut target)?;
+                // Copy in steps so writers are not blocked for the whole copy; a write by another
+                // connection restarts the copy, which the loop runs to completion.
+                backup.run_to_completion(1024, Duration::from_millis(5), None)?;
+            }
+            let check: String = target.query_row("PRAGMA integrity_check", [], |r| r.get(0))?;
+            if check != "ok" {
+                return Err(Error::Database(format!(
+                    "the backup {} failed its integrity check: {check}",
+                    dest.display()
+                )));
+            }
+            target.close().map_err(|(_, e)| Error::Storage(e))?;
+            if dest.exists() {
+                return Err(Error::Usage(format!(
+                    "{} appeared while the backup was written; choose a new file for the backup",
+                    dest.display()
+                )));
+            }
+            std::fs::rename(&temp, dest).map_err(|e| Error::io(dest, e))
+        })();
+        if result.is_err() {
+            let _ = std::fs::remove_file(&temp);
+            let mut journal = temp.into_os_string();
+            journal.push("-journal");
+            let _ = std::fs::remove_file(journal);
         }
-        let check: String = target.query_row("PRAGMA integrity_check", [], |r| r.get(0))?;
-        if check != "ok" {
-            return Err(Error::Database(format!(
-                "the backup {} failed its integrity check: {check}",
-                dest.display()
-            )));
-        }
-        Ok(())
+        result
     }
 }

@@ -33,6 +33,59 @@ pub const MIGRATIONS: &[Migration] = &[
     },
 ];
 
+/// SQLite's `PRAGMA application_id` of a samewise database: "SMWS" in ASCII. Set when a database
+/// is created and on the first open of a database made before it was set, so a samewise file is
+/// known as such exactly.
+pub const APPLICATION_ID: i32 = 0x534D_5753;
+
+/// What an opened SQLite file holds, before anything is written to it.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum FileKind {
+    /// A samewise database (its application id, or from before the id: schema version and tables).
+    Samewise,
+    /// A file without any table and schema version 0: a new file, or an interrupted copy.
+    Empty,
+    /// Another program's database (its own application id, or tables samewise did not make).
+    Foreign,
+}
+
+/// Tells a samewise database from an empty or another program's SQLite file (reads only).
+pub fn file_kind(conn: &Connection) -> Result<FileKind> {
+    let app_id: i32 = conn.query_row("PRAGMA application_id", [], |r| r.get(0))?;
+    if app_id == APPLICATION_ID {
+        return Ok(FileKind::Samewise);
+    }
+    if app_id != 0 {
+        return Ok(FileKind::Foreign);
+    }
+    let objects: i64 = conn.query_row("SELECT COUNT(*) FROM sqlite_master", [], |r| r.get(0))?;
+    let version = schema_version(conn)?;
+    if objects == 0 && version == 0 {
+        return Ok(FileKind::Empty);
+    }
+    let ours: i64 = conn.query_row(
+        "SELECT COUNT(*) FROM sqlite_master WHERE type = 'table' \
+         AND name IN ('characteristics', 'imports', 'measurements', 'rejected_rows')",
+        [],
+        |r| r.get(0),
+    )?;
+    Ok(if version > 0 && ours == 4 {
+        FileKind::Samewise
+    } else {
+        FileKind::Foreign
+    })
+}
+
+/// Sets the samewise application id where it is not set yet (a new database, or one made before
+/// the id existed). Call only on a file [`file_kind`] found to be samewise or empty.
+pub fn mark_samewise(conn: &Connection) -> Result<()> {
+    let app_id: i32 = conn.query_row("PRAGMA application_id", [], |r| r.get(0))?;
+    if app_id != APPLICATION_ID {
+        conn.pragma_update(None, "application_id", APPLICATION_ID)?;
+    }
+    Ok(())
+}
+
 /// The schema version this build writes (the number of migrations).
 pub fn latest_version() -> u32 {
     MIGRATIONS.len() as u32
@@ -82,6 +135,31 @@ fn refuse_newer(version: u32, what: &str) -> Result<()> {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn samewise_empty_and_foreign_files_are_told_apart() {
+        let conn = Connection::open_in_memory().unwrap();
+        assert_eq!(file_kind(&conn).unwrap(), FileKind::Empty);
+        // A samewise database from before the application id: schema version and tables.
+        let mut conn = Connection::open_in_memory().unwrap();
+        migrate(&mut conn, "test").unwrap();
+        assert_eq!(file_kind(&conn).unwrap(), FileKind::Samewise);
+        mark_samewise(&conn).unwrap();
+        let id: i32 = conn
+            .query_row("PRAGMA application_id", [], |r| r.get(0))
+            .unwrap();
+        assert_eq!(id, APPLICATION_ID);
+        assert_eq!(file_kind(&conn).unwrap(), FileKind::Samewise);
+        // Another program's tables, with or without a schema version; another application id.
+        let conn = Connection::open_in_memory().unwrap();
+        conn.execute_batch("CREATE TABLE measurements (x)").unwrap();
+        assert_eq!(file_kind(&conn).unwrap(), FileKind::Foreign);
+        conn.execute_batch("PRAGMA user_version = 2").unwrap();
+        assert_eq!(file_kind(&conn).unwrap(), FileKind::Foreign);
+        let conn = Connection::open_in_memory().unwrap();
+        conn.execute_batch("PRAGMA application_id = 7").unwrap();
+        assert_eq!(file_kind(&conn).unwrap(), FileKind::Foreign);
+    }
 
     #[test]
     fn migration_names_are_numbered_in_order() {

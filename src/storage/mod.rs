@@ -37,8 +37,117 @@ use rusqlite::{Connection, OpenFlags};
 
 use crate::{Error, Result};
 
-/// How long a connection waits for another process's lock before giving up.
+/// How long a connection waits for another process's lock before giving up (unless
+/// `SAMEWISE_BUSY_TIMEOUT` says otherwise, see [`busy_timeout`]).
 pub const BUSY_TIMEOUT: Duration = Duration::from_secs(60);
+
+/// The environment variable that sets the busy timeout in seconds (e.g. `5` or `0.5`).
+pub const BUSY_TIMEOUT_ENV: &str = "SAMEWISE_BUSY_TIMEOUT";
+
+/// How long a writer waits for another process's write lock: `SAMEWISE_BUSY_TIMEOUT` seconds
+/// when set to a number, else [`BUSY_TIMEOUT`].
+pub fn busy_timeout() -> Duration {
+    std::env::var(BUSY_TIMEOUT_ENV)
+        .ok()
+        .and_then(|v| v.trim().parse::<f64>().ok())
+        .filter(|s| s.is_finite() && *s >= 0.0 && *s < 1e6)
+        .map_or(BUSY_TIMEOUT, Duration::from_secs_f64)
+}
+
+/// The note beside the database (`<database>-writer`) naming the process in a long write
+/// transaction (an import), so that a writer that gives up waiting can say what holds the
+/// database. Written before the long transaction's work and removed after it; a note left by a
+/// killed process is recognised by its process id.
+#[derive(Debug)]
+pub struct WriterNote {
+    path: PathBuf,
+    text: String,
+}
+
+/// The path of the writer note of `database`.
+pub fn writer_note_path(database: &Path) -> PathBuf {
+    let mut name = database.as_os_str().to_owned();
+    name.push("-writer");
+    PathBuf::from(name)
+}
+
+impl WriterNote {
+    /// Writes the note (`what`, e.g. "import #12 of line-2026-11.csv"); `None` in memory or when
+    /// the note cannot be written (it only serves messages).
+    fn write(
+        database: Option<&Path>,
+        what: &str,
+        started: chrono::DateTime<chrono::Utc>,
+    ) -> Option<WriterNote> {
+        let path = writer_note_path(database?);
+        let text = format!(
+            "{}\t{}\t{}\t{}\n",
+            std::process::id(),
+            crate::process::host_name(),
+            started.timestamp_millis(),
+            what.replace(['\t', '\n', '\r'], " ")
+        );
+        std::fs::write(&path, &text).ok()?;
+        Some(WriterNote { path, text })
+    }
+}
+
+impl Drop for WriterNote {
+    fn drop(&mut self) {
+        // Only our own note: another writer may have written its own since.
+        if std::fs::read_to_string(&self.path).is_ok_and(|t| t == self.text) {
+            let _ = std::fs::remove_file(&self.path);
+        }
+    }
+}
+
+/// What holds `database`'s write lock, from its writer note: "import #12 of line-2026-11.csv,
+/// started 14:03 UTC (process 4711 on host-a)"; `None` when there is no note or its process is
+/// gone (then the holder is a short writer or another program).
+pub fn describe_writer(database: &Path) -> Option<String> {
+    let text = std::fs::read_to_string(writer_note_path(database)).ok()?;
+    let mut parts = text.trim_end().splitn(4, '\t');
+    let pid: u32 = parts.next()?.parse().ok()?;
+    let host = parts.next()?;
+    let started_ms: i64 = parts.next()?.parse().ok()?;
+    let what = parts.next()?;
+    if crate::process::is_gone(host, pid) {
+        return None;
+    }
+    let started = chrono::DateTime::from_timestamp_millis(started_ms)?;
+    Some(format!(
+        "{what}, started {} (process {pid} on {host})",
+        started.format("%Y-%m-%d %H:%M UTC")
+    ))
+}
+
+/// Whether `err` is SQLite giving up on a lock another connection holds.
+pub fn is_busy(err: &Error) -> bool {
+    let code = match err {
+        Error::Storage(rusqlite::Error::SqliteFailure(code, _)) => code.code,
+        _ => return false,
+    };
+    matches!(
+        code,
+        rusqlite::ErrorCode::DatabaseBusy | rusqlite::ErrorCode::DatabaseLocked
+    )
+}
+
+/// The message for a writer that gave up waiting for `database`: what holds it (see
+/// [`describe_writer`]), how long it waited and what to do.
+pub fn busy_message(database: &Path) -> String {
+    let holder = describe_writer(database).unwrap_or_else(|| {
+        "another process (no samewise import is writing: a check, a schedule, `db backup` or \
+         another program)"
+            .to_string()
+    });
+    format!(
+        "{} is busy: {holder} holds its write lock; gave up after waiting {} s; nothing was \
+         changed by this command: run it again when that has finished",
+        database.display(),
+        busy_timeout().as_secs_f64()
+    )
+}
 
 /// Page size of a new database file, in bytes.
 pub const PAGE_SIZE: i64 = 16 * 1024;
@@ -80,7 +189,28 @@ impl Store {
         let flags = OpenFlags::SQLITE_OPEN_READ_WRITE
             | OpenFlags::SQLITE_OPEN_URI
             | OpenFlags::SQLITE_OPEN_NO_MUTEX;
+        let empty_file = std::fs::metadata(path).is_ok_and(|m| m.is_file() && m.len() == 0);
+        if empty_file {
+            return Err(Error::Database(format!(
+                "{} is an empty file (0 bytes), not a samewise database: if it is an interrupted \
+                 copy, restore the database from a backup; to start a new one, delete the file and \
+                 run `samewise init`",
+                path.display()
+            )));
+        }
         let conn = Connection::open_with_flags(path, flags)?;
+        match identify(&conn, path)? {
+            migrate::FileKind::Samewise => {}
+            migrate::FileKind::Empty => {
+                return Err(Error::Database(format!(
+                    "{} is an SQLite file without any table, not a samewise database (an \
+                     interrupted copy?): restore the database from a backup, or delete the file \
+                     and run `samewise init`",
+                    path.display()
+                )))
+            }
+            migrate::FileKind::Foreign => return Err(foreign(path)),
+        }
         Store::from_connection(conn, Some(path.to_path_buf()))
     }
 
@@ -94,7 +224,27 @@ impl Store {
             }
         }
         let conn = Connection::open(path)?;
+        if identify(&conn, path)? == migrate::FileKind::Foreign {
+            return Err(foreign(path));
+        }
         Store::from_connection(conn, Some(path.to_path_buf()))
+    }
+
+    /// Whether `path` is a file with no database in it yet (0 bytes, or SQLite without any table
+    /// and at schema version 0): `samewise init` may create the database there; every other
+    /// command refuses it ([`Store::open`]).
+    pub fn is_empty_file(path: impl AsRef<Path>) -> Result<bool> {
+        let path = path.as_ref();
+        match std::fs::metadata(path) {
+            Ok(m) if m.is_file() && m.len() == 0 => return Ok(true),
+            Ok(m) if m.is_file() => {}
+            _ => return Ok(false),
+        }
+        let conn = Connection::open_with_flags(
+            path,
+            OpenFlags::SQLITE_OPEN_READ_ONLY | OpenFlags::SQLITE_OPEN_NO_MUTEX,
+        )?;
+        Ok(identify(&conn, path)? == migrate::FileKind::Empty)
     }
 
     /// A fresh database in memory with every migration applied (for tests and dry runs).
@@ -116,6 +266,7 @@ impl Store {
             other => Error::Storage(other),
         })?;
         migrate::migrate(&mut conn, &what)?;
+        migrate::mark_samewise(&conn)?;
         Ok(Store {
             conn,
             path,
@@ -128,15 +279,50 @@ impl Store {
         self.path.as_deref()
     }
 
+    /// Writes the writer note of this database (see [`WriterNote`]); held for a long write.
+    pub fn note_writer(
+        &self,
+        what: &str,
+        started: chrono::DateTime<chrono::Utc>,
+    ) -> Option<WriterNote> {
+        WriterNote::write(self.path.as_deref(), what, started)
+    }
+
     /// The schema version of the database (`PRAGMA user_version`).
     pub fn schema_version(&self) -> Result<u32> {
         migrate::schema_version(&self.conn)
     }
 }
 
+/// What `path` holds ([`migrate::file_kind`]), before anything is written to it; a file that is
+/// not SQLite at all is an error saying so.
+fn identify(conn: &Connection, path: &Path) -> Result<migrate::FileKind> {
+    conn.busy_timeout(busy_timeout())?;
+    migrate::file_kind(conn).map_err(|e| match e {
+        Error::Storage(rusqlite::Error::SqliteFailure(code, _))
+            if code.code == rusqlite::ErrorCode::NotADatabase =>
+        {
+            Error::Database(format!(
+                "{} is not a samewise database (not an SQLite file): check `database` in the \
+                 plant configuration",
+                path.display()
+            ))
+        }
+        other => other,
+    })
+}
+
+fn foreign(path: &Path) -> Error {
+    Error::Database(format!(
+        "{} is another program's SQLite database, not a samewise database; nothing was changed: \
+         point `database` in the plant configuration at a new file (or at the samewise database)",
+        path.display()
+    ))
+}
+
 /// Per-connection settings, set every time a connection opens (never inside a migration).
 fn configure(conn: &Connection, is_file: bool) -> rusqlite::Result<()> {
-    conn.busy_timeout(BUSY_TIMEOUT)?;
+    conn.busy_timeout(busy_timeout())?;
     // Takes effect only while the file is still empty (a new database; an existing one keeps
     // the page size it was created with). Larger pages cut the B-tree work of an import: fewer
     // page splits and fetches per measurement (measured: see DEVELOPERS.md, "Import speed").
