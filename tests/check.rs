@@ -468,3 +468,27 @@ fn check_command_flags_stores_versions_and_history() {
     assert_eq!(out.status.code(), Some(1));
     assert!(String::from_utf8_lossy(&out.stderr).contains("--day 30.11.2026"));
 }
+
+/// The alert hook: `schedule due` exits 3 when a run it made has a flag (the README and the
+/// example timer rely on it), 0 when nothing is due or nothing is flagged; `check` of a period
+/// without any measurement exits 4, not 0 ("nothing flagged" would hide a missing export).
+#[test]
+fn issue_16_exit_statuses_of_schedule_due_and_an_empty_check() {
+    let dir = common::temp_dir("issue-16-exits");
+    common::invented_plant(&dir, 3);
+    // Days 2026-11-28 and -29 are quiet, 2026-11-30 has M2 high; all three are due here.
+    let out = common::samewise(&dir, &["schedule", "due", "--now", "2026-12-01T12:00:00Z"]);
+    assert_eq!(out.status.code(), Some(3), "{}", common::output_text(&out));
+    assert!(
+        String::from_utf8_lossy(&out.stderr).contains("3 period(s) run, 1 with a flag, 0 failed"),
+        "{}",
+        common::output_text(&out)
+    );
+    // Nothing new is due: 0.
+    let out = common::samewise(&dir, &["schedule", "due", "--now", "2026-12-01T12:00:00Z"]);
+    assert_eq!(out.status.code(), Some(0), "{}", common::output_text(&out));
+    // A day without any export.
+    let out = common::samewise(&dir, &["check", "--day", "2026-12-20"]);
+    assert_eq!(out.status.code(), Some(4), "{}", common::output_text(&out));
+    assert!(String::from_utf8_lossy(&out.stderr).contains("holds no measurement"));
+}

@@ -1,7 +1,8 @@
 //! `samewise check`: one period, every active characteristic x every factor, FDR across the run,
 //! stored as a new run version; terminal summary, `--json`, `--csv FILE`.
 //!
-//! Exit status: 0 nothing flagged, 3 at least one flag, 1 error (see `cli::EXIT_*`).
+//! Exit status: 0 nothing flagged, 3 at least one flag, 4 no measurement in the period, 1 error
+//! (see `cli::EXIT_*`).
 
 use std::io::Write;
 use std::path::PathBuf;
@@ -125,8 +126,18 @@ pub fn run(args: &CheckArgs) -> Result<ExitCode> {
         }
     }
     let flagged = content.tests.iter().any(|t| is_flag_state(&t.state));
+    let no_data = content.tests.iter().all(|t| t.n_obs == 0);
+    if no_data {
+        eprintln!(
+            "note: {} holds no measurement of the checked characteristics (exit status {}): is an export missing?",
+            period.label,
+            super::EXIT_NO_DATA
+        );
+    }
     Ok(ExitCode::from(if flagged {
         super::EXIT_FLAGGED
+    } else if no_data {
+        super::EXIT_NO_DATA
     } else {
         super::EXIT_OK
     }))

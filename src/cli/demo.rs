@@ -188,7 +188,7 @@ pub fn catch_up(store: &mut Store, config: &Config, quiet: bool) -> Result<(usiz
     pb.finish_and_clear();
     let completed = entries
         .iter()
-        .filter(|e| matches!(e.outcome, PeriodOutcome::Completed(_)))
+        .filter(|e| matches!(e.outcome, PeriodOutcome::Completed(..)))
         .count();
     let failed = entries
         .iter()

@@ -62,6 +62,9 @@ pub const EXIT_OK: u8 = 0;
 pub const EXIT_ERROR: u8 = 1;
 /// Exit code: finished, and at least one test was flagged.
 pub const EXIT_FLAGGED: u8 = 3;
+/// Exit code (`check`): finished, but the period holds no measurement of the checked
+/// characteristics, which is not the same as "nothing flagged".
+pub const EXIT_NO_DATA: u8 = 4;
 
 /// The exit statuses every command shares (the README's table lists them per command).
 const EXITS_COMMON: &str = "Exit status: 0 done; 1 an error stopped it (message on stderr); \
@@ -123,7 +126,7 @@ pub enum Command {
     /// Check one period: every characteristic x factor, false-discovery control, stored as a run.
     #[command(
         long_about = CHECK_RULE,
-        after_help = "Exit status: 0 done, nothing flagged; 3 done, at least one test flagged; 1 an error stopped it (the run is kept as failed); 2 the command line could not be parsed. A closed stdout does not change the status."
+        after_help = "Exit status: 0 done, nothing flagged; 3 done, at least one test flagged; 4 done, but the period holds no measurement of the checked characteristics (an export may be missing); 1 an error stopped it (the run is kept as failed); 2 the command line could not be parsed. A closed stdout does not change the status."
     )]
     Check(check::CheckArgs),
     /// The trend of one comparison (characteristic by factor) over the stored runs.
@@ -131,7 +134,7 @@ pub enum Command {
     History(history::HistoryArgs),
     /// Run the configured schedules: `due` once (for cron), `run` in the foreground.
     #[command(
-        after_help = "Exit status: 0 every due period ran (flags do not change it: they are stored and shown by `history` and the report); 1 a period failed (the others still ran) or an error stopped it; 2 the command line could not be parsed."
+        after_help = "Exit status (`schedule due`): 0 every due period ran and none has a flag; 3 every due period ran and at least one run it made has a flag (the alert hook for cron and timers); 1 a period failed (the others still ran; a failure outranks a flag) or an error stopped it; 2 the command line could not be parsed."
     )]
     Schedule(schedule::ScheduleArgs),
     /// Write the monthly review report (one self-contained HTML file) from the stored runs.

@@ -151,11 +151,20 @@ pub fn run(args: &ScheduleArgs) -> Result<ExitCode> {
         .count();
     let done = entries
         .iter()
-        .filter(|e| matches!(e.outcome, PeriodOutcome::Completed(_)))
+        .filter(|e| matches!(e.outcome, PeriodOutcome::Completed(..)))
         .count();
-    log(&format!("{done} period(s) run, {failed} failed"));
+    let flagged_runs = entries
+        .iter()
+        .filter(|e| matches!(e.outcome, PeriodOutcome::Completed(_, n) if n > 0))
+        .count();
+    log(&format!(
+        "{done} period(s) run, {flagged_runs} with a flag, {failed} failed"
+    ));
+    // A failure outranks a flag: the timer must hear about the run that did not happen.
     Ok(ExitCode::from(if failed > 0 {
         super::EXIT_ERROR
+    } else if flagged_runs > 0 {
+        super::EXIT_FLAGGED
     } else {
         super::EXIT_OK
     }))

@@ -143,8 +143,8 @@ pub fn due_periods(
 /// What happened to one (schedule, period) in a pass.
 #[derive(Debug, Clone, PartialEq)]
 pub enum PeriodOutcome {
-    /// Run and stored as complete (run id).
-    Completed(i64),
+    /// Run and stored as complete (run id, number of flagged tests).
+    Completed(i64, usize),
     /// Run and failed; the error is stored with the run (run id, error).
     Failed(i64, String),
     /// Another scheduler holds the lease.
@@ -299,7 +299,7 @@ fn run_one(
                         content.tests.len(),
                         flagged
                     ));
-                    PeriodOutcome::Completed(run.run_id)
+                    PeriodOutcome::Completed(run.run_id, flagged)
                 }
                 Err(e) => {
                     let error = e.to_string();
