@@ -6,7 +6,7 @@
 //! characteristic over one production day, on an open store (its level cache warm) and on a
 //! freshly opened one (open, migration check, and the level sets fetched in bulk).
 //!
-//! The import throughput target (10,000,000 rows) is measured with the binary, see DEVELOPERS.md:
+//! The import throughput target (10,000,000 rows) is measured with the binary, see docs/performance.md:
 //! `samewise generate-bench-data --rows 10000000 --characteristics 50 --factors 5 --days 30 --out /tmp/b.csv`,
 //! then `samewise init --config /tmp/b.csv.plant.toml` and
 //! `/usr/bin/time -v samewise import --config /tmp/b.csv.plant.toml /tmp/b.csv`.

@@ -42,7 +42,7 @@ pub struct ImportArgs {
     /// database, its configuration or an input; written whole or not at all.
     #[arg(long, value_name = "FILE.csv")]
     pub rejects: Option<PathBuf>,
-    /// Print the CPU time of each import thread (for measuring the import, see DEVELOPERS.md).
+    /// Print the CPU time of each import thread (for measuring the import, see docs/performance.md).
     #[arg(long, hide = true)]
     pub cpu_times: bool,
 }

@@ -44,7 +44,7 @@
 //! or two at full accuracy.
 //!
 //! Speed (`cargo run --release --example ptukey_timing`, `cargo bench --bench ptukey`): see
-//! DEVELOPERS.md for the measured figures; the first call for a new `k` also builds its table.
+//! docs/performance.md for the measured figures; the first call for a new `k` also builds its table.
 //!
 //! Start reading at [`ptukey_sf`].
 

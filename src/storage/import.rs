@@ -30,7 +30,7 @@ use super::Store;
 /// Accepted rows per batch handed from the reading thread to the writing one. Each batch is
 /// sorted by key before it is inserted: the larger the batch, the longer the run of rows each
 /// characteristic's B-tree leaf receives at once (262,144 rows: 10 MB; measured in
-/// DEVELOPERS.md, "Import speed").
+/// docs/performance.md, "Import speed").
 const BATCH_ROWS: usize = 1 << 18;
 /// Rejections per batch at most (each keeps up to `ingest::MAX_RAW_CHARS` of its line).
 const BATCH_REJECTIONS: usize = 1024;
@@ -111,7 +111,7 @@ pub struct ImportReport {
 /// CPU time used by each thread of one import (`None` where the platform does not tell it; read
 /// from `/proc/thread-self/schedstat` on Linux). The writing thread bounds the import on a
 /// machine with a core per thread, so this is what to watch when making it faster
-/// (DEVELOPERS.md, "Import speed").
+/// (docs/performance.md, "Import speed").
 #[derive(Debug, Clone, Copy, Default)]
 pub struct ImportCpu {
     /// The reading thread: parsing, interning, sorting batches.
@@ -454,7 +454,7 @@ impl Store {
     /// it, whatever the outcome): every id the import writes is one it has just read or created
     /// in the same transaction, and the three parent look-ups per measurement (characteristic,
     /// import, level set) nearly double the cost of a measurement insert (measured in isolation,
-    /// 3,000,000 rows: 9.3 s of CPU with them, 5.0 s without; DEVELOPERS.md, "Import speed").
+    /// 3,000,000 rows: 9.3 s of CPU with them, 5.0 s without; docs/performance.md, "Import speed").
     /// `samewise db check` still verifies them (`PRAGMA foreign_key_check`).
     pub fn import<R: Read + Send>(
         &mut self,
@@ -471,7 +471,7 @@ impl Store {
     /// of the bytes it actually read, is still the one checked before the commit and recorded.
     ///
     /// This replaces hashing the file before the import on the writing thread, which bounds the
-    /// import's speed (DEVELOPERS.md, "Import speed").
+    /// import's speed (docs/performance.md, "Import speed").
     pub fn import_checking_early<R: Read + Send>(
         &mut self,
         stream: ImportStream<R>,

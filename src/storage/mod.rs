@@ -325,7 +325,7 @@ fn configure(conn: &Connection, is_file: bool) -> rusqlite::Result<()> {
     conn.busy_timeout(busy_timeout())?;
     // Takes effect only while the file is still empty (a new database; an existing one keeps
     // the page size it was created with). Larger pages cut the B-tree work of an import: fewer
-    // page splits and fetches per measurement (measured: see DEVELOPERS.md, "Import speed").
+    // page splits and fetches per measurement (measured: see docs/performance.md, "Import speed").
     conn.pragma_update(None, "page_size", PAGE_SIZE)?;
     if is_file {
         // journal_mode answers with the mode in force; WAL persists in the file once set.
