@@ -492,3 +492,30 @@ fn issue_16_exit_statuses_of_schedule_due_and_an_empty_check() {
     assert_eq!(out.status.code(), Some(4), "{}", common::output_text(&out));
     assert!(String::from_utf8_lossy(&out.stderr).contains("holds no measurement"));
 }
+
+/// Reading a stored run never writes: `check --stored` prints the latest complete run of the
+/// period (text or JSON) and makes no new version; a period never checked is an error that says
+/// what to do.
+#[test]
+fn issue_17_check_stored_reads_without_a_new_version() {
+    let dir = common::temp_dir("issue-17-stored");
+    common::invented_plant(&dir, 3);
+    let out = common::samewise(&dir, &["check", "--day", "2026-11-30", "--json"]);
+    assert_eq!(out.status.code(), Some(3), "{}", common::output_text(&out));
+    let checked: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    for _ in 0..2 {
+        let out = common::samewise(
+            &dir,
+            &["check", "--day", "2026-11-30", "--stored", "--json"],
+        );
+        assert_eq!(out.status.code(), Some(3), "{}", common::output_text(&out));
+        let stored: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+        assert_eq!(stored["run"], checked["run"]);
+        assert_eq!(stored["tests"], checked["tests"]);
+    }
+    let out = common::samewise(&dir, &["check", "--day", "2026-11-30", "--stored"]);
+    assert!(String::from_utf8_lossy(&out.stdout).contains("version 1"));
+    let out = common::samewise(&dir, &["check", "--day", "2026-11-29", "--stored"]);
+    assert_eq!(out.status.code(), Some(1));
+    assert!(common::output_text(&out).contains("has no complete stored run"));
+}

@@ -701,3 +701,21 @@ fn issue_15_a_writer_waits_for_the_lock_and_names_what_holds_it() {
     assert!(o.status.success(), "{}", text(&o));
     assert!(text(&o).contains("recorded event #1"), "{}", text(&o));
 }
+
+/// The shell completions offer what a user can type: no hidden benchmark helper, every visible
+/// command (issue 17, build hygiene).
+#[test]
+fn completions_leave_out_hidden_commands() {
+    for shell in ["bash", "zsh", "fish"] {
+        let out = std::process::Command::new(env!("CARGO_BIN_EXE_samewise"))
+            .args(["completions", shell])
+            .output()
+            .unwrap();
+        assert!(out.status.success());
+        let script = String::from_utf8_lossy(&out.stdout);
+        assert!(!script.contains("generate-bench-data"), "{shell}");
+        for visible in ["import", "check", "investigate", "schedule", "report"] {
+            assert!(script.contains(visible), "{shell}: {visible}");
+        }
+    }
+}

@@ -56,8 +56,12 @@ pub struct CheckArgs {
     #[arg(long, value_parser = ["bh", "by"])]
     pub fdr: Option<String>,
     /// False-discovery level q (default from the configuration, 0.05).
-    #[arg(long)]
+    #[arg(long, conflicts_with = "stored")]
     pub level: Option<f64>,
+    /// Print the latest stored run of the period instead of checking it again (reads only: no
+    /// new run version is made).
+    #[arg(long, conflicts_with = "fdr")]
+    pub stored: bool,
 }
 
 /// The period named by the flags.
@@ -109,7 +113,18 @@ pub fn run(args: &CheckArgs) -> Result<ExitCode> {
         options.fdr_level = level;
     }
     let mut store = super::common::open_store(&config)?;
-    let (run, content) = check_and_record(&mut store, &config, &period, &options, &Utc::now)?;
+    let (run, content) = if args.stored {
+        store
+            .latest_run(period.kind.as_str(), &period.label)?
+            .ok_or_else(|| {
+                Error::Usage(format!(
+                    "{} has no complete stored run: check it first (samewise check without --stored)",
+                    period.label
+                ))
+            })?
+    } else {
+        check_and_record(&mut store, &config, &period, &options, &Utc::now)?
+    };
     if let Some(path) = &args.csv {
         write_csv(path, &content)?;
     }

@@ -244,7 +244,7 @@ fn run_command(args: Args) -> crate::Result<ExitCode> {
         Command::Report(a) => report::run(&a, chrono::Utc::now()),
         Command::Chart(a) => chart::run(&a),
         Command::Completions { shell } => {
-            let mut cmd = <Args as clap::CommandFactory>::command();
+            let mut cmd = without_hidden(<Args as clap::CommandFactory>::command());
             // Generated into memory: the generator panics on a failed write.
             let mut script = Vec::new();
             clap_complete::generate(shell, &mut cmd, "samewise", &mut script);
@@ -255,6 +255,20 @@ fn run_command(args: Args) -> crate::Result<ExitCode> {
             Ok(ExitCode::from(EXIT_OK))
         }
     }
+}
+
+/// `cmd` without its hidden subcommands (a benchmark helper), for the shell completions: clap
+/// cannot remove a subcommand, so the top level is rebuilt with the same flags and the visible
+/// subcommands.
+fn without_hidden(cmd: clap::Command) -> clap::Command {
+    let visible: Vec<clap::Command> = cmd
+        .get_subcommands()
+        .filter(|s| !s.is_hide_set())
+        .cloned()
+        .collect();
+    clap::Command::new("samewise")
+        .args(cmd.get_arguments().cloned())
+        .subcommands(visible)
 }
 
 /// Prints `error: ` and the message with each cause on its own line to stderr; returns exit code 1.

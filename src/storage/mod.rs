@@ -292,6 +292,20 @@ impl Store {
     pub fn schema_version(&self) -> Result<u32> {
         migrate::schema_version(&self.conn)
     }
+
+    /// The latest complete run of a period (kind and label as stored) with its content, or
+    /// `None` when the period was never checked to the end. Reads only.
+    pub fn latest_run(
+        &self,
+        period_kind: &str,
+        period_label: &str,
+    ) -> Result<Option<(runs::StoredRun, runs::RunContent)>> {
+        let Some(run) = runs::latest_complete_run(&self.conn, period_kind, period_label)? else {
+            return Ok(None);
+        };
+        let content = runs::run_content(&self.conn, run.run_id)?;
+        Ok(Some((run, content)))
+    }
 }
 
 /// What `path` holds ([`migrate::file_kind`]), before anything is written to it; a file that is
