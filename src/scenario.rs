@@ -208,7 +208,7 @@ impl Cell {
         let mut level_idx = Vec::new();
         for (g, v) in groups.iter().enumerate() {
             values.extend_from_slice(v);
-            level_idx.extend(std::iter::repeat(g as u32).take(v.len()));
+            level_idx.extend(std::iter::repeat_n(g as u32, v.len()));
         }
         Frame {
             factors: vec![FrameFactor {

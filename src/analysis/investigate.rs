@@ -443,7 +443,7 @@ fn concerns(event: &Event, characteristic: &str, factor: &str, level: &str) -> b
     let characteristic_ok = event
         .characteristic
         .as_deref()
-        .map_or(true, |c| c == characteristic);
+        .is_none_or(|c| c == characteristic);
     let on_factor: Vec<&(String, String)> =
         event.scope.iter().filter(|(f, _)| f == factor).collect();
     characteristic_ok && (on_factor.is_empty() || on_factor.iter().any(|(_, l)| l == level))

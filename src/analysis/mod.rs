@@ -307,7 +307,7 @@ where
                     options
                         .factors
                         .as_ref()
-                        .map_or(true, |sel| sel.contains(&frame.factors[f].name))
+                        .is_none_or(|sel| sel.contains(&frame.factors[f].name))
                 })
                 .collect();
             for (characteristic_idx, c) in frame.characteristics.iter().enumerate() {
@@ -376,7 +376,7 @@ where
         .to_string();
         let flagged = crate::storage::runs::is_flag_state(&row.state);
         row.is_new = flagged
-            && previous_flags.map_or(true, |prev| {
+            && previous_flags.is_none_or(|prev| {
                 !prev.contains(&(row.characteristic.clone(), row.factor.clone()))
             });
     }
