@@ -641,3 +641,59 @@ fn reference_fixtures_oneway() {
         failures.join("\n")
     );
 }
+
+/// Issue 13, printing: a p-value below what a double holds is shown as `< 1e-300` (never `0`)
+/// and in JSON as the bound with `p_is_bound`; the outlier count is read against what normal
+/// residuals give; the Shapiro-Wilk verdict uses the level its header states (5 %).
+#[test]
+fn issue_13_p_bounds_outlier_expectation_and_stated_levels() {
+    let dir = temp_dir("issue-13-printing");
+    let mut csv = String::from("machine,bore\n");
+    for i in 0..400 {
+        let wiggle = f64::from(i % 7) * 0.0001;
+        csv.push_str(&format!("A,{:.4}\nB,{:.4}\n", 10.0 + wiggle, 20.0 + wiggle));
+    }
+    let file = write(&dir, "far.csv", csv.as_bytes());
+    let json = compare_json(&file, "machine", "bore", &[]);
+    assert_eq!(
+        json["leading"]["p"].as_f64(),
+        Some(1e-300),
+        "{:#}",
+        json["leading"]
+    );
+    assert_eq!(json["leading"]["p_is_bound"], true);
+    let out = samewise(&[
+        "compare",
+        file.to_str().unwrap(),
+        "--by",
+        "machine",
+        "--measure",
+        "bore",
+    ]);
+    let text = String::from_utf8_lossy(&out.stdout);
+    assert!(text.contains("< 1e-300"), "{text}");
+    assert!(
+        !text.contains("p = 0\n") && !text.contains("p = 0.00e0"),
+        "{text}"
+    );
+    let outliers = text
+        .lines()
+        .find(|l| l.contains("residuals beyond 3 SD"))
+        .unwrap();
+    assert!(
+        outliers.contains("normal residuals give 2.16"),
+        "{outliers}"
+    );
+    assert!(text.contains("at the 5% level"), "{text}");
+    let sw = text.lines().find(|l| l.contains("Shapiro-Wilk")).unwrap();
+    let p: f64 = sw
+        .split("p = ")
+        .nth(1)
+        .unwrap()
+        .split_whitespace()
+        .next()
+        .unwrap()
+        .parse()
+        .unwrap_or(0.0);
+    assert_eq!(sw.trim_end().ends_with("attention"), p < 0.05, "{sw}");
+}

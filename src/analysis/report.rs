@@ -811,7 +811,14 @@ fn requirement_texts(t: &TestRow) -> Vec<String> {
         ));
     }
     if let Some(n) = t.n_beyond_3sd.filter(|&n| n > 0) {
-        out.push(format!("{n} value(s) beyond 3 SD of their group mean"));
+        let c = crate::stats::spread::outlier_excess(n as usize, t.n_obs.max(0) as usize);
+        // Normal residuals put 0.27 % beyond 3 SD: only a count well above that is a sign.
+        if c.p < 0.05 {
+            out.push(format!(
+                "{n} value(s) beyond 3 SD of their group mean, where normal data give {:.1} (binomial p = {:.2e})",
+                c.expected, c.p
+            ));
+        }
     }
     if !t.notes.is_empty() {
         out.push(t.notes.clone());

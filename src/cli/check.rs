@@ -272,8 +272,8 @@ pub fn print_summary(
             t.factor,
             leading(t),
             cell(t.leading_statistic),
-            cell(t.leading_p),
-            cell(t.q_value),
+            super::format::p_cell(t.leading_p),
+            super::format::p_cell(t.q_value),
             share(t),
             standout(t),
             if t.is_new { "new" } else { "" }
@@ -372,6 +372,8 @@ fn print_json(
         "tests": tests,
         "caution": crate::CAUTION,
     });
+    let mut doc = doc;
+    super::format::bound_tiny_p(&mut doc);
     serde_json::to_writer_pretty(&mut *out, &doc)?;
     writeln!(out)
 }

@@ -313,7 +313,8 @@ pub fn run(args: &CompareArgs) -> Result<std::process::ExitCode> {
     })?;
     let mut out = std::io::stdout().lock();
     let written = if args.json {
-        let value = to_json(args, &data, &result, &options);
+        let mut value = to_json(args, &data, &result, &options);
+        super::format::bound_tiny_p(&mut value);
         writeln!(
             out,
             "{}",
@@ -422,6 +423,12 @@ pub fn to_json(
     });
     put(&mut root, "sd_ratio", &r.sd_ratio, |v| json_number(*v));
     put(&mut root, "n_beyond_3sd", &r.n_beyond_3sd, |v| json!(v));
+    put(
+        &mut root,
+        "outliers",
+        &r.outliers,
+        |c| json!({"n": c.n, "expected": json_number(c.expected), "p": json_number(c.p)}),
+    );
     put(
         &mut root,
         "shapiro_wilk",
@@ -695,22 +702,21 @@ pub fn render_text(
             "normal residuals, Shapiro-Wilk",
             sig(t.w, 6),
             pval(t.p),
-            if t.p < crate::stats::oneway::NORMALITY_ALPHA {
-                "attention"
-            } else {
-                "pass"
-            }
+            verdict(t.p)
         )),
         Err(e) => o.push_str(&format!(
             "  {:<32} not available: {}\n",
             "normal residuals, Shapiro-Wilk", e.reason
         )),
     }
-    match &r.n_beyond_3sd {
-        Ok(n) => o.push_str(&format!(
-            "  {:<32} {n}  {}\n",
+    match &r.outliers {
+        Ok(c) => o.push_str(&format!(
+            "  {:<32} {} (normal residuals give {}; p = {})  {}\n",
             "residuals beyond 3 SD",
-            if *n == 0 { "pass" } else { "attention" }
+            c.n,
+            sig(c.expected, 3),
+            pval(c.p),
+            verdict(c.p)
         )),
         Err(e) => o.push_str(&format!(
             "  {:<32} not available: {}\n",

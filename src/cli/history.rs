@@ -79,8 +79,8 @@ pub fn run(args: &HistoryArgs) -> Result<ExitCode> {
                 p.run.header.period_label,
                 leading(t),
                 cell(t.leading_statistic),
-                cell(t.leading_p),
-                cell(t.q_value),
+                super::format::p_cell(t.leading_p),
+                super::format::p_cell(t.q_value),
                 share(t),
                 state::label(&t.state),
                 standout(t)

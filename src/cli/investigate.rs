@@ -124,7 +124,9 @@ pub fn run(args: &InvestigateArgs, now: DateTime<Utc>) -> Result<ExitCode> {
     let text = match &found.outcome {
         Outcome::BeforeAfter(c) => {
             if args.json {
-                serde_json::to_string_pretty(&compare_json(&ctx, c)).unwrap_or_default()
+                let mut v = compare_json(&ctx, c);
+                super::format::bound_tiny_p(&mut v);
+                serde_json::to_string_pretty(&v).unwrap_or_default()
             } else {
                 render_compare(&ctx, c)
             }
@@ -147,7 +149,9 @@ pub fn run(args: &InvestigateArgs, now: DateTime<Utc>) -> Result<ExitCode> {
                 })
                 .collect();
             if args.json {
-                serde_json::to_string_pretty(&scan_json(&ctx, scans, &near)).unwrap_or_default()
+                let mut v = scan_json(&ctx, scans, &near);
+                super::format::bound_tiny_p(&mut v);
+                serde_json::to_string_pretty(&v).unwrap_or_default()
             } else {
                 render_scan(&ctx, scans, &near)
             }

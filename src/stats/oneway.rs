@@ -42,7 +42,9 @@ use super::kruskal::kruskal_wallis;
 use super::normality::{shapiro_wilk, ShapiroWilk};
 use super::posthoc::{games_howell, group_effects, tukey_kramer, GroupEffect, Pair};
 use super::power::{sensitivity, Sensitivity};
-use super::spread::{bartlett, brown_forsythe, count_beyond, levene_mean, sd_ratio};
+use super::spread::{
+    bartlett, brown_forsythe, count_beyond, levene_mean, outlier_excess, sd_ratio, OutlierCount,
+};
 use super::variance_components::{one_way_random, VarianceComponents};
 use super::welch::welch;
 use super::{Stat, TestResult, Unavailable};
@@ -182,6 +184,8 @@ pub struct OneWay {
     pub sd_ratio: Stat<f64>,
     /// Number of residuals beyond [`OUTLIER_SD`] residual SDs.
     pub n_beyond_3sd: Stat<usize>,
+    /// That count against what normal residuals give (binomial upper tail).
+    pub outliers: Stat<OutlierCount>,
     /// Shapiro-Wilk on the residuals (value minus its group mean, in group order).
     pub shapiro_wilk: Stat<ShapiroWilk>,
     /// Effect sizes.
@@ -483,6 +487,10 @@ pub fn analyze(groups: &[&[f64]], options: &OneWayOptions) -> Stat<OneWay> {
         brown_forsythe: bf,
         bartlett: bart,
         sd_ratio: ratio,
+        outliers: n_beyond
+            .as_ref()
+            .map(|&n| outlier_excess(n, residuals.len()))
+            .map_err(Clone::clone),
         n_beyond_3sd: n_beyond,
         shapiro_wilk: sw,
         effect,

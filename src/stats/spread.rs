@@ -117,6 +117,24 @@ pub fn bartlett(groups: &[Summary]) -> Stat<TestResult> {
             dfi * (pooled / (g.m2 / dfi)).ln()
         })
         .sum();
+    // The numerator is a weighted sum of log ratios that cannot be negative (the pooled variance,
+    // an arithmetic mean, is at least the geometric mean); with equal variances it is zero, and
+    // rounding can leave it a few units of its own rounding error below zero (-3e-31 was printed):
+    // such a value is zero.
+    let rounding: f64 = groups
+        .iter()
+        .map(|g| {
+            let dfi = g.n as f64 - 1.0;
+            dfi * (1.0 + (pooled / (g.m2 / dfi)).ln().abs())
+        })
+        .sum::<f64>()
+        * 64.0
+        * f64::EPSILON;
+    let numerator = if numerator < 0.0 && -numerator <= rounding {
+        0.0
+    } else {
+        numerator
+    };
     let inv_sum: f64 = groups.iter().map(|g| 1.0 / (g.n as f64 - 1.0)).sum();
     let c = 1.0 + (inv_sum - 1.0 / df_within) / (3.0 * (k - 1.0));
     let t = numerator / c;
@@ -180,10 +198,82 @@ pub fn count_beyond(
         .sum())
 }
 
+/// Share of a normal population beyond 3 SDs on either side, `2 Phi(-3)` (0.0026997960632601866,
+/// the value of scipy.stats.norm.sf(3) * 2).
+pub const NORMAL_BEYOND_3SD: f64 = 0.002_699_796_063_260_186_6;
+
+/// The count of residuals beyond 3 SD against what normal residuals would give.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct OutlierCount {
+    /// Residuals beyond 3 residual SDs.
+    pub n: usize,
+    /// Expected under normality: `N * 2 Phi(-3)`.
+    pub expected: f64,
+    /// `P(X >= n)` for `X ~ Binomial(N, 2 Phi(-3))`: small when there are more far values than
+    /// normal residuals give (1 when `n` is 0).
+    pub p: f64,
+}
+
+/// Compares `n` residuals beyond 3 SD among `total` with the binomial count normal residuals
+/// give (the upper tail `I_q(n, N - n + 1)`, Abramowitz and Stegun 26.5.24 and 6.6.4): 2,717
+/// beyond 3 SD among 1,000,000 values is what normal data give (expected 2,700), not a sign of
+/// outliers.
+pub fn outlier_excess(n: usize, total: usize) -> OutlierCount {
+    let q = NORMAL_BEYOND_3SD;
+    let expected = total as f64 * q;
+    let p = if n == 0 {
+        1.0
+    } else if n > total {
+        0.0
+    } else {
+        super::distributions::beta_reg(n as f64, (total - n + 1) as f64, q, 1.0 - q)
+    };
+    OutlierCount { n, expected, p }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
     use crate::stats::lre;
+
+    // Binomial upper tails from scipy.stats.binom.sf(n - 1, N, 2 * norm.sf(3)) (scipy 1.x, run
+    // 2026-12-05): n = 2717 of 1,000,000: 0.3726754375575873; n = 3 of 100:
+    // 0.0026174562733868923 (also the exact sum below).
+    #[test]
+    fn outlier_excess_against_the_binomial() {
+        let big = outlier_excess(2717, 1_000_000);
+        assert!(lre(big.expected, 2_699.796_063_260_186_6) > 12.0);
+        assert!(lre(big.p, 0.372_675_437_557_587_3) > 9.0, "{}", big.p);
+        // Exact for N = 100, n = 3: 1 - sum_{x<3} C(100, x) q^x (1-q)^(100-x).
+        let q = NORMAL_BEYOND_3SD;
+        let pmf = |x: i32| -> f64 {
+            let c = match x {
+                0 => 1.0,
+                1 => 100.0,
+                _ => 4950.0,
+            };
+            c * q.powi(x) * (1.0 - q).powi(100 - x)
+        };
+        let exact = 1.0 - (pmf(0) + pmf(1) + pmf(2));
+        let r = outlier_excess(3, 100);
+        assert!(lre(r.p, exact) > 9.0, "{} {exact}", r.p);
+        assert!(lre(r.p, 0.002_617_456_273_386_892_3) > 9.0, "{}", r.p);
+        assert_eq!(outlier_excess(0, 100).p, 1.0);
+    }
+
+    // Equal variances up to rounding (0.1-steps are not exact in binary): T is 0, never a tiny
+    // negative number, and p is 1.
+    #[test]
+    fn bartlett_is_zero_for_equal_variances() {
+        let g = [
+            Summary::from_slice(&[0.1, 0.2, 0.3]),
+            Summary::from_slice(&[0.4, 0.5, 0.6]),
+            Summary::from_slice(&[0.7, 0.8, 0.9]),
+        ];
+        let r = bartlett(&g).unwrap();
+        assert!(r.statistic >= 0.0, "{}", r.statistic);
+        assert!(r.statistic < 1e-12);
+    }
 
     /// NIST/SEMATECH e-Handbook of Statistical Methods, gear diameters (sections 1.3.5.10,
     /// 1.3.5.7): 10 batches x 10, in tests/data/nist_handbook/gear.csv.
