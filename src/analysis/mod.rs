@@ -694,7 +694,12 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
                     row.omega_squared = Some(e.omega_squared);
                 }
                 // Shapiro-Wilk on the residuals (value - group mean), as the bundle computed it.
-                note_unavailable(&mut notes, "Shapiro-Wilk", &ow.shapiro_wilk);
+                match (&ow.shapiro_wilk, &ow.dagostino_pearson) {
+                    (Err(_), Ok(dp)) if dp.n > crate::stats::normality::MAX_N => {
+                        push_note(&mut notes, &normality_note(dp));
+                    }
+                    _ => note_unavailable(&mut notes, "Shapiro-Wilk", &ow.shapiro_wilk),
+                }
                 if let Ok(sw) = &ow.shapiro_wilk {
                     row.shapiro_w = Some(sw.w);
                     row.shapiro_p = Some(sw.p);
@@ -784,6 +789,26 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
         material_reference,
         confidence: options.confidence,
     }
+}
+
+/// The normality line of a test beyond Shapiro-Wilk's range: D'Agostino-Pearson K^2 with the
+/// size of the departure (skewness, excess kurtosis, each with its standard error).
+fn normality_note(dp: &crate::stats::normality::DagostinoPearson) -> String {
+    format!(
+        "normality: {} residuals, beyond Shapiro-Wilk's 5,000, so D'Agostino-Pearson K2 = {}, p = {}; skewness {} (SE {}), excess kurtosis {} (SE {}){}",
+        dp.n,
+        oneway::short(dp.k2),
+        oneway::short(dp.p),
+        oneway::short(dp.skewness),
+        oneway::short(dp.skewness_se),
+        oneway::short(dp.excess_kurtosis),
+        oneway::short(dp.excess_kurtosis_se),
+        if dp.skewness.abs() < 1.0 && dp.excess_kurtosis.abs() < 2.0 {
+            "; at this size the F test is robust to a departure this moderate"
+        } else {
+            "; a marked departure: read Kruskal-Wallis beside the leading test"
+        }
+    )
 }
 
 /// Notes on a coarse gauge: a resolution above a tenth of the tolerance, or above a tenth of the
@@ -939,5 +964,27 @@ mod tests {
         assert!(notes.contains("coarse gauge"), "{notes}");
         assert!(notes.contains("12% of the tolerance"), "{notes}");
         assert!(notes.contains("distinct values"), "{notes}");
+    }
+
+    // A month's test beyond Shapiro-Wilk's 5,000 residuals: normality is still judged, by
+    // D'Agostino-Pearson with the skewness and kurtosis and their standard errors, never a bare
+    // "not available".
+    #[test]
+    fn normality_beyond_shapiro_wilk_range() {
+        let cell = Cell {
+            k: 2,
+            sizes: Sizes::Balanced(3000),
+            spread: Spread::Equal,
+            shape: Shape::Skewed,
+            shift: 0.0,
+        };
+        let mut rng = crate::sample::Rng::new(5);
+        let frame = cell.frame(&cell.groups(&mut rng));
+        let content = check_frame(&frame, &study_options(), None).unwrap();
+        let notes = &content.tests[0].notes;
+        assert!(notes.contains("D'Agostino-Pearson K2"), "{notes}");
+        assert!(notes.contains("skewness"), "{notes}");
+        assert!(!notes.contains("Shapiro-Wilk unavailable"), "{notes}");
+        assert!(notes.contains("marked departure"), "{notes}");
     }
 }

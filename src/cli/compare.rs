@@ -709,6 +709,23 @@ pub fn render_text(
             "normal residuals, Shapiro-Wilk", e.reason
         )),
     }
+    match &r.dagostino_pearson {
+        Ok(d) => o.push_str(&format!(
+            "  {:<32} K2 = {}, p = {}  {}; skewness {} (SE {}), excess kurtosis {} (SE {})\n",
+            "normal residuals, D'Agostino",
+            sig(d.k2, 5),
+            pval(d.p),
+            verdict(d.p),
+            sig(d.skewness, 3),
+            sig(d.skewness_se, 2),
+            sig(d.excess_kurtosis, 3),
+            sig(d.excess_kurtosis_se, 2)
+        )),
+        Err(e) => o.push_str(&format!(
+            "  {:<32} not available: {}\n",
+            "normal residuals, D'Agostino", e.reason
+        )),
+    }
     match &r.outliers {
         Ok(c) => o.push_str(&format!(
             "  {:<32} {} (normal residuals give {}; p = {})  {}\n",

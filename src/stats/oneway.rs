@@ -39,7 +39,7 @@ use super::constant_groups::{constant_groups, ConstantGroups};
 use super::describe::Summary;
 use super::effect::{effect_sizes, Effect};
 use super::kruskal::kruskal_wallis;
-use super::normality::{shapiro_wilk, ShapiroWilk};
+use super::normality::{dagostino_pearson, shapiro_wilk, DagostinoPearson, ShapiroWilk};
 use super::posthoc::{games_howell, group_effects, tukey_kramer, GroupEffect, Pair};
 use super::power::{sensitivity, Sensitivity};
 use super::spread::{
@@ -188,6 +188,9 @@ pub struct OneWay {
     pub outliers: Stat<OutlierCount>,
     /// Shapiro-Wilk on the residuals (value minus its group mean, in group order).
     pub shapiro_wilk: Stat<ShapiroWilk>,
+    /// D'Agostino-Pearson K^2 on the same residuals, with skewness and excess kurtosis and their
+    /// standard errors: the normality check beyond Shapiro-Wilk's 5,000 values.
+    pub dagostino_pearson: Stat<DagostinoPearson>,
     /// Effect sizes.
     pub effect: Stat<Effect>,
     /// Variance components of the random-effects one-way model.
@@ -435,6 +438,7 @@ pub fn analyze(groups: &[&[f64]], options: &OneWayOptions) -> Stat<OneWay> {
         .flat_map(|(g, s)| g.iter().map(move |v| v - s.mean))
         .collect();
     let sw = shapiro_wilk(&residuals);
+    let dp = dagostino_pearson(&residuals);
     let constant = constant_groups(&summaries);
     let mut leading = choose_leading(&Evidence {
         summaries: &summaries,
@@ -493,6 +497,7 @@ pub fn analyze(groups: &[&[f64]], options: &OneWayOptions) -> Stat<OneWay> {
             .map_err(Clone::clone),
         n_beyond_3sd: n_beyond,
         shapiro_wilk: sw,
+        dagostino_pearson: dp,
         effect,
         variance_components,
         constant_groups: constant,
