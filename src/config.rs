@@ -40,6 +40,10 @@
 //! target = 42.0
 //! resolution = 0.001
 //! active = true                       # default true
+//! plausible = [41.5, 42.5]            # values outside are rejected at import; default: the
+//!                                     # limits widened by 10 tolerance widths (none without
+//!                                     # both limits). The stored values' exact origin is the
+//!                                     # target, or the middle of the limits (or of plausible).
 //!
 //! [[factor]]
 //! name = "machine"
@@ -188,6 +192,40 @@ pub struct CharacteristicConfig {
     pub resolution: Option<f64>,
     /// Whether the periodic checks include it.
     pub is_active: bool,
+    /// Values outside this range are rejected at import as implausible (`plausible = [lo, hi]`);
+    /// see [`CharacteristicConfig::plausible_range`] for the default. Not stored in the
+    /// database: only the import uses it.
+    pub plausible: Option<(f64, f64)>,
+}
+
+/// The default plausible range reaches this many tolerance widths beyond each limit.
+pub const PLAUSIBLE_WIDTHS: f64 = 10.0;
+
+impl CharacteristicConfig {
+    /// The range outside which a value is rejected at import as implausible (a typo such as
+    /// `10000123000000` for `10.000123`): `plausible = [lo, hi]` when configured, otherwise, with
+    /// both limits, the limits widened by [`PLAUSIBLE_WIDTHS`] tolerance widths on each side (a
+    /// value that far out is a misreading, not a part; common practice, no published source);
+    /// `None` without both limits.
+    pub fn plausible_range(&self) -> Option<(f64, f64)> {
+        if self.plausible.is_some() {
+            return self.plausible;
+        }
+        let (lsl, usl) = (self.lsl?, self.usl?);
+        let w = usl - lsl;
+        Some((lsl - PLAUSIBLE_WIDTHS * w, usl + PLAUSIBLE_WIDTHS * w))
+    }
+
+    /// The exact decimal origin its values are stored against when none is stored yet: the
+    /// target, or the middle of the limits (so no single value, a typo among them, can fix an
+    /// origin far from the data); `None` without them.
+    pub fn configured_origin(&self) -> Option<crate::stats::decimal::Decimal> {
+        let centre = self.target.or(match (self.lsl, self.usl) {
+            (Some(l), Some(u)) => Some(0.5 * (l + u)),
+            _ => self.plausible.map(|(l, u)| 0.5 * (l + u)),
+        })?;
+        crate::stats::decimal::Decimal::parse(&format!("{centre}")).ok()
+    }
 }
 
 /// Where a factor's level comes from.
@@ -481,6 +519,7 @@ struct RawCharacteristic {
     target: Option<f64>,
     resolution: Option<f64>,
     active: Option<bool>,
+    plausible: Option<[f64; 2]>,
 }
 
 #[derive(Deserialize)]
@@ -687,6 +726,20 @@ fn validate(raw: RawConfig, path: &Path) -> Result<Config> {
                 return Err(fail(format!("{}: {r} must be positive", key("resolution"))));
             }
         }
+        if let Some([lo, hi]) = c.plausible {
+            if !(lo.is_finite() && hi.is_finite() && lo < hi) {
+                return Err(fail(format!(
+                    "{}: [{lo}, {hi}] must be two finite numbers, the first below the second",
+                    key("plausible")
+                )));
+            }
+            if c.lsl.is_some_and(|l| l < lo) || c.usl.is_some_and(|u| u > hi) {
+                return Err(fail(format!(
+                    "{}: [{lo}, {hi}] must contain the specification limits",
+                    key("plausible")
+                )));
+            }
+        }
         characteristics.push(CharacteristicConfig {
             name,
             unit: c.unit.trim().to_string(),
@@ -695,6 +748,7 @@ fn validate(raw: RawConfig, path: &Path) -> Result<Config> {
             target: c.target,
             resolution: c.resolution,
             is_active: c.active.unwrap_or(true),
+            plausible: c.plausible.map(|[lo, hi]| (lo, hi)),
         });
     }
 

@@ -224,6 +224,7 @@ impl Cell {
                     target: Some(0.0),
                     resolution,
                     is_active: true,
+                    plausible: None,
                 },
                 origin: Decimal::parse("0").expect("zero is a decimal"),
                 values,

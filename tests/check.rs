@@ -63,6 +63,7 @@ fn invented_day(
                     target: Some(50.0),
                     resolution: None,
                     is_active: true,
+                    plausible: None,
                 },
                 origin: Decimal::parse("50.000").unwrap(),
                 values,

@@ -344,3 +344,98 @@ fn import_and_reader_run_together() {
         .unwrap();
     assert_eq!(frame.characteristics[0].values.len(), 30_000);
 }
+
+/// Issue 13, a decimal origin no single value can spoil: the first value of a characteristic
+/// with limits is a typo (`42000012000000` for `42.000012`), the second an instrument's no-value
+/// code (`9.9E+37`); both are rejected with their reasons, the origin comes from the limits, and
+/// the later days keep 12 or more significant digits on F, the group means and SDs (checked
+/// against sums computed here from the same decimal text, centred on 42 exactly) while later
+/// imports work. Invented data.
+#[test]
+fn issue_13_wild_first_values_do_not_spoil_later_days() {
+    let dir = setup("issue-13-wild-first");
+    let mut first = String::from("timestamp,characteristic,value,machine\n");
+    first.push_str("2026-11-02T06:00:00Z,bore_diameter,42000012000000,M1\n");
+    first.push_str("2026-11-02T06:01:00Z,bore_diameter,9.9E+37,M1\n");
+    std::fs::write(dir.join("first.csv"), &first).unwrap();
+    let o = run(&dir, &["import", "first.csv"]);
+    let t = text(&o);
+    assert!(t.contains("implausible"), "{t}");
+    assert!(t.contains("no-value code"), "{t}");
+    // Two later days of real values (micrometre digits), three machines.
+    let mut csv = String::from("timestamp,characteristic,value,machine\n");
+    let mut by_day: Vec<Vec<Vec<i64>>> = vec![vec![Vec::new(); 3]; 2];
+    for (day, groups) in by_day.iter_mut().enumerate() {
+        for i in 0..60i64 {
+            let m = (i % 3) as usize;
+            // 42 mm + a few micrometres, machine M3 +3 um: integer micrometres x 1e-6.
+            let um = 12 + (i * 37 % 11) - 5 + if m == 2 { 3 } else { 0 };
+            groups[m].push(um);
+            csv.push_str(&format!(
+                "2026-11-{:02}T{:02}:{:02}:00Z,bore_diameter,{}.{:06},M{}\n",
+                3 + day,
+                7 + i / 20,
+                (i % 20) * 2,
+                42,
+                um,
+                m + 1
+            ));
+        }
+    }
+    std::fs::write(dir.join("later.csv"), &csv).unwrap();
+    let o = run(&dir, &["import", "later.csv"]);
+    assert!(o.status.success(), "{}", text(&o));
+    for (day, groups) in by_day.iter().enumerate() {
+        let label = format!("2026-11-{:02}", 3 + day);
+        let o = run(&dir, &["check", "--day", &label, "--json"]);
+        let doc: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
+        let test = &doc["tests"][0];
+        // Reference: sums in integer micrometres, exact, then one division.
+        let n: Vec<f64> = groups.iter().map(|g| g.len() as f64).collect();
+        let sums: Vec<f64> = groups
+            .iter()
+            .map(|g| g.iter().sum::<i64>() as f64)
+            .collect();
+        let total_n: f64 = n.iter().sum();
+        let grand = sums.iter().sum::<f64>() / total_n;
+        let ss_between: f64 = (0..3)
+            .map(|k| n[k] * (sums[k] / n[k] - grand).powi(2))
+            .sum();
+        let ss_within: f64 = (0..3)
+            .map(|k| {
+                let mean = sums[k] / n[k];
+                groups[k]
+                    .iter()
+                    .map(|&v| (v as f64 - mean).powi(2))
+                    .sum::<f64>()
+            })
+            .sum();
+        let f_ref = (ss_between / 2.0) / (ss_within / (total_n - 3.0));
+        let f = test["anova"]["f"].as_f64().unwrap();
+        assert!(common::lre(f, f_ref) >= 12.0, "{label}: F {f} vs {f_ref}");
+        let ss_w = test["anova"]["ss_within"].as_f64().unwrap();
+        assert!(
+            common::lre(ss_w, ss_within * 1e-12) >= 12.0,
+            "{label}: {ss_w}"
+        );
+        for g in test["groups"].as_array().unwrap() {
+            let k: usize = g["level"].as_str().unwrap()[1..].parse::<usize>().unwrap() - 1;
+            let mean_offset = g["mean_offset"].as_f64().unwrap();
+            let origin: f64 = g["origin"].as_str().unwrap().parse().unwrap();
+            // The origin is the middle of the limits (42), not the typo.
+            assert_eq!(origin, 42.0, "{g}");
+            assert!(
+                common::lre(mean_offset, sums[k] / n[k] * 1e-6) >= 12.0,
+                "{g}"
+            );
+            let sd = g["sd"].as_f64().unwrap();
+            let mean = sums[k] / n[k];
+            let var = groups[k]
+                .iter()
+                .map(|&v| (v as f64 - mean).powi(2))
+                .sum::<f64>()
+                / (n[k] - 1.0);
+            assert!(common::lre(sd, var.sqrt() * 1e-6) >= 12.0, "{g}");
+        }
+    }
+}

@@ -59,7 +59,7 @@ use crate::config::{check_name, Config, Layout, LayoutKind};
 use crate::stats::decimal::Decimal;
 use crate::{Error, Result};
 
-use fxhash::FxSet;
+use fxhash::{FxMap, FxSet};
 use timestamp::{shorten, TimestampParser};
 
 /// Longest line read; a longer line is rejected (its bytes are still hashed) and reading
@@ -318,6 +318,11 @@ pub fn read_from<R: Read>(
                 .characteristics
                 .iter()
                 .map(|c| c.name.clone())
+                .collect(),
+            plausible: config
+                .characteristics
+                .iter()
+                .filter_map(|c| c.plausible_range().map(|r| (c.name.clone(), r)))
                 .collect(),
             add_new: options.add_new,
             has_shift,
@@ -589,6 +594,8 @@ struct RowParser {
     calendar: PlantCalendar,
     ts_parser: TimestampParser,
     known: FxSet<String>,
+    /// Plausible range per configured characteristic (`CharacteristicConfig::plausible_range`).
+    plausible: FxMap<String, (f64, f64)>,
     add_new: bool,
     has_shift: bool,
     shift_cache: Option<ShiftTable>,
@@ -730,6 +737,19 @@ fn read_row<R: Read, S: OutcomeSink>(
 }
 
 impl RowParser {
+    /// `value` when it lies in the characteristic's plausible range (or none is known), else the
+    /// reason naming the range and how to change it.
+    fn check_plausible(&self, name: &str, value: Decimal) -> std::result::Result<Decimal, String> {
+        match self.plausible.get(name) {
+            Some(&(lo, hi)) if !(lo..=hi).contains(&value.to_f64()) => Err(format!(
+                "value {value} is implausible for \"{}\": outside [{lo}, {hi}] (by default the limits widened by {} tolerance widths; set plausible = [lo, hi] in its [[characteristic]] to change it)",
+                shorten(name),
+                crate::config::PLAUSIBLE_WIDTHS
+            )),
+            _ => Ok(value),
+        }
+    }
+
     fn reject_row<S: OutcomeSink>(
         &self,
         sink: &mut S,
@@ -907,7 +927,10 @@ impl RowParser {
                         };
                         match name {
                             Err(r) => Err((characteristic, format!("characteristic name: {r}"))),
-                            Ok(name) => match text(value).and_then(parse_value) {
+                            Ok(name) => match text(value)
+                                .and_then(parse_value)
+                                .and_then(|v| this.check_plausible(name, v))
+                            {
                                 Ok(v) => Ok((name, v)),
                                 Err(r) => Err((value, r)),
                             },
@@ -942,7 +965,9 @@ impl RowParser {
                             .map_err(|r| format!("characteristic name: {r}"))
                             .and_then(|_| text(*i).and_then(parse_value))
                     } else {
-                        text(*i).and_then(parse_value)
+                        text(*i)
+                            .and_then(parse_value)
+                            .and_then(|v| this.check_plausible(name, v))
                     };
                     match outcome {
                         Ok(value) => sink.accepted(MeasurementRef {
@@ -1032,14 +1057,25 @@ pub fn parse_value(text: &str) -> std::result::Result<Decimal, String> {
             shorten(t)
         ));
     }
-    Decimal::parse(t).map_err(|e| {
+    let value = Decimal::parse(t).map_err(|e| {
         let mut message = e.to_string();
         if message.chars().count() > 200 {
             message = format!("value \"{}\" {}", shorten(t), e.reason);
         }
         message
-    })
+    })?;
+    if value.to_f64().abs() >= NO_VALUE_CODE {
+        return Err(format!(
+            "value \"{}\" is an instrument's no-value code (magnitudes from 9.9E+37 up mean \"no reading\"), not a measurement",
+            shorten(t)
+        ));
+    }
+    Ok(value)
 }
+
+/// Values of this magnitude and above are instruments' codes for "no reading" (9.9E+37 and
+/// 9.91E+37 are the usual ones; common practice, no published source), never measurements.
+pub const NO_VALUE_CODE: f64 = 9.9e37;
 
 /// What [`LineReader::next_line`] found.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]

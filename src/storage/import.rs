@@ -526,12 +526,18 @@ impl Store {
 
         let characteristics: Vec<CharacteristicState> = load_characteristics(&tx)?
             .into_iter()
-            .map(|c| CharacteristicState {
-                id: c.id,
-                name: c.config.name,
-                origin: c.origin,
-                decimals: c.decimals,
-                is_changed: false,
+            .map(|c| {
+                // No origin yet (no value stored): the configuration's target or the middle of
+                // its limits, so the first value, a typo perhaps, does not fix it for good.
+                let configured = c.origin.is_none().then(|| c.config.configured_origin());
+                let configured = configured.flatten();
+                CharacteristicState {
+                    id: c.id,
+                    name: c.config.name,
+                    origin: c.origin.or(configured),
+                    decimals: c.decimals,
+                    is_changed: configured.is_some(),
+                }
             })
             .collect();
         let mut level_sets = LevelSetWriter::load(&tx)?;

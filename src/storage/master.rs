@@ -106,6 +106,7 @@ fn characteristic_from_row(
                 target: row.get(5)?,
                 resolution: row.get(6)?,
                 is_active: row.get(7)?,
+                plausible: None,
             },
             is_configured: row.get(8)?,
             origin: None,
@@ -178,7 +179,15 @@ impl Store {
                         )?;
                         report.characteristics_added.push(c.name.clone());
                     }
-                    Some(s) if s.config != *c || !s.is_configured => {
+                    // `plausible` is not stored (only the import reads it from the file).
+                    Some(s)
+                        if s.config
+                            != (CharacteristicConfig {
+                                plausible: None,
+                                ..c.clone()
+                            })
+                            || !s.is_configured =>
+                    {
                         tx.execute(
                             "UPDATE characteristics SET unit = ?2, lsl = ?3, usl = ?4, target = ?5, \
                              resolution = ?6, is_active = ?7, is_configured = 1 WHERE id = ?1",
