@@ -520,3 +520,41 @@ fn issue_17_check_stored_reads_without_a_new_version() {
     assert_eq!(out.status.code(), Some(1));
     assert!(common::output_text(&out).contains("has no complete stored run"));
 }
+
+/// Issue 13: every `null` in `check --json` carries a `<key>_reason` beside it, on a day with
+/// data and on a day with none (too little data everywhere); intervals are `{low, high}`.
+#[test]
+fn issue_13_every_null_in_check_json_has_a_reason() {
+    fn bare_nulls(v: &serde_json::Value, path: &str, out: &mut Vec<String>) {
+        match v {
+            serde_json::Value::Object(map) => {
+                for (k, child) in map {
+                    if child.is_null() && !map.contains_key(&format!("{k}_reason")) {
+                        out.push(format!("{path}.{k}"));
+                    }
+                    bare_nulls(child, &format!("{path}.{k}"), out);
+                }
+            }
+            serde_json::Value::Array(items) => {
+                for item in items {
+                    bare_nulls(item, &format!("{path}[]"), out);
+                }
+            }
+            _ => {}
+        }
+    }
+    let dir = common::temp_dir("issue-13-null-reasons");
+    common::invented_plant(&dir, 3);
+    for day in ["2026-11-30", "2026-12-20"] {
+        let out = common::samewise(&dir, &["check", "--day", day, "--json"]);
+        let doc: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+        let mut bare = Vec::new();
+        bare_nulls(&doc, "", &mut bare);
+        assert!(bare.is_empty(), "{day}: {bare:?}");
+        let icc = &doc["tests"][0]["variance_components"]["icc_ci"];
+        assert!(
+            icc.get("low").is_some() && icc.get("high").is_some(),
+            "{icc}"
+        );
+    }
+}

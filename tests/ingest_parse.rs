@@ -128,7 +128,9 @@ fn long_file_with_derived_shift() {
     let text = "timestamp,machine,supplier,characteristic,value\n\
                 2026-11-30 06:15:00,M1,S1,bore,10.0012\n\
                 2026-11-30T21:00:00Z,M2,S2,mass,1000000000000.4\n\
-                2026-12-01 05:59:59,M1,S1,bore,-0.5e-3\n";
+                2026-12-01 05:59:59,M1,S1,mass,-0.5e-3\n";
+    // (The exponent value is on "mass", which has no limits: on "bore", limits 9.9-10.1, it would
+    // be rejected as implausible, see the plausible-range test below.)
     let (outcomes, counts, _) = read_all(text.as_bytes(), &config(), &ReadOptions::default());
     assert_counts_add_up(&counts, outcomes.len());
     assert_eq!(
@@ -794,4 +796,24 @@ proptest! {
         with_header.extend_from_slice(&bytes);
         check_invariants(&with_header, &config(), &ReadOptions::default());
     }
+}
+
+/// Issue 13: a value far outside a characteristic's plausible range (by default its limits
+/// widened by 10 tolerance widths) and an instrument's no-value code are rejected with reasons
+/// naming the value and the range; a characteristic without limits has no range.
+#[test]
+fn implausible_values_and_no_value_codes_are_rejected() {
+    let r = reject_one("2026-11-30 06:15:00,M1,S1,bore,10000123000000");
+    assert_eq!(r.column.as_deref(), Some("value"));
+    assert!(r.reason.contains("implausible"), "{}", r.reason);
+    assert!(r.reason.contains("outside [7.9, 12.1]"), "{}", r.reason);
+    let r = reject_one("2026-11-30 06:15:00,M1,S1,mass,9.9E+37");
+    assert!(r.reason.contains("no-value code"), "{}", r.reason);
+    let r = reject_one("2026-11-30 06:15:00,M1,S1,bore,-9.91E37");
+    assert!(r.reason.contains("no-value code"), "{}", r.reason);
+    // Without limits, a large value is kept (no range is known).
+    let text = "timestamp,machine,supplier,characteristic,value\n\
+                2026-11-30 06:15:00,M1,S1,mass,10000123000000\n";
+    let (_, counts, _) = read_all(text.as_bytes(), &config(), &ReadOptions::default());
+    assert_eq!(counts.accepted, 1);
 }

@@ -295,8 +295,98 @@ fn json_num(x: Option<f64>) -> serde_json::Value {
         .map_or(serde_json::Value::Null, serde_json::Value::from)
 }
 
-/// One test as a JSON object (field names as the stored columns).
+/// Gives every `null` of a test's JSON a sibling `<key>_reason` (the JSON convention of
+/// docs/json.md): the reason the analysis noted for that statistic when there is one (its notes
+/// hold `Welch: ...`, `ANOVA: ...`), "no specification limits" for the tolerance-based fields,
+/// and otherwise what the state says (too little data, declined, no p-value).
+fn add_null_reasons(v: &mut serde_json::Value, t: &TestRow) {
+    use crate::analysis::state;
+    let note_for = |label: &str| {
+        t.notes
+            .split("; ")
+            .find_map(|n| n.strip_prefix(&format!("{label}: ")).map(str::to_string))
+    };
+    let general = match t.state.as_str() {
+        state::TOO_LITTLE_DATA => format!(
+            "too little data: {}",
+            if t.notes.is_empty() {
+                "fewer than two groups with values"
+            } else {
+                &t.notes
+            }
+        ),
+        state::TOO_FEW_TO_COMPARE => t
+            .leading_reason
+            .clone()
+            .unwrap_or_else(|| "too few values per group to compare".into()),
+        _ => "not computed for this test (see notes)".into(),
+    };
+    let no_limits = "no specification limits (LSL and USL) configured for this characteristic";
+    let sections = [
+        ("anova", "ANOVA"),
+        ("effect", "ANOVA"),
+        ("welch", "Welch"),
+        ("kruskal_wallis", "Kruskal-Wallis"),
+        ("levene", "Levene"),
+        ("brown_forsythe", "Brown-Forsythe"),
+        ("bartlett", "Bartlett"),
+        ("shapiro_wilk", "Shapiro-Wilk"),
+        ("variance_components", "variance components"),
+        ("sensitivity", "sensitivity"),
+    ];
+    let reason_for = |section: &str, key: &str| -> String {
+        if key.contains("tolerance") && t.tolerance.is_none() {
+            return no_limits.into();
+        }
+        if let Some((_, label)) = sections.iter().find(|(s, _)| *s == section) {
+            if let Some(r) = note_for(label) {
+                return r;
+            }
+        }
+        match (section, key) {
+            ("", "q_value") => {
+                "no p-value, so the test is outside the false-discovery family".into()
+            }
+            ("leading", _) => t.leading_reason.clone().unwrap_or_else(|| general.clone()),
+            ("stands_out", "sd_units") => "the within-group SD is unavailable".into(),
+            ("", "sd_ratio") => note_for("SD ratio").unwrap_or_else(|| general.clone()),
+            _ => general.clone(),
+        }
+    };
+    fn walk(v: &mut serde_json::Value, section: &str, reason_for: &dyn Fn(&str, &str) -> String) {
+        if let serde_json::Value::Object(map) = v {
+            let nulls: Vec<String> = map
+                .iter()
+                .filter(|(k, v)| v.is_null() && !map.contains_key(&format!("{k}_reason")))
+                .map(|(k, _)| k.clone())
+                .collect();
+            for key in nulls {
+                let reason = reason_for(section, &key);
+                map.insert(format!("{key}_reason"), serde_json::Value::String(reason));
+            }
+            for (key, child) in map.iter_mut() {
+                if child.is_object() {
+                    let next = if section.is_empty() {
+                        key.as_str()
+                    } else {
+                        section
+                    };
+                    walk(child, next, reason_for);
+                }
+            }
+        }
+    }
+    walk(v, "", &reason_for);
+}
+
+/// One test as a JSON object (field names as the stored columns; every `null` with a reason).
 pub fn test_json(t: &TestRow) -> serde_json::Value {
+    let mut v = test_json_values(t);
+    add_null_reasons(&mut v, t);
+    v
+}
+
+fn test_json_values(t: &TestRow) -> serde_json::Value {
     serde_json::json!({
         "characteristic": t.characteristic, "factor": t.factor, "state": t.state, "is_new": t.is_new,
         "n_obs": t.n_obs, "n_groups": t.n_groups, "n_groups_used": t.n_groups_used,
@@ -317,7 +407,7 @@ pub fn test_json(t: &TestRow) -> serde_json::Value {
         "effect": {"eta_squared": json_num(t.eta_squared), "omega_squared": json_num(t.omega_squared)},
         "variance_components": {"between": json_num(t.var_between), "within": json_num(t.var_within),
                                 "share_between": json_num(t.share_between), "icc": json_num(t.icc),
-                                "icc_ci": [json_num(t.icc_low), json_num(t.icc_high)]},
+                                "icc_ci": {"low": json_num(t.icc_low), "high": json_num(t.icc_high)}},
         "tolerance": json_num(t.tolerance), "spread_of_means": json_num(t.spread_of_means),
         "spread_pct_tolerance": json_num(t.spread_pct_tolerance),
         "stands_out": {"level": t.standout_level, "diff": json_num(t.standout_diff),
@@ -343,9 +433,18 @@ fn print_json(
                 .groups
                 .iter()
                 .filter(|g| g.test_idx == t.test_idx)
-                .map(|g| serde_json::json!({"level": g.level, "n": g.n, "mean_offset": g.mean,
-                    "sd": json_num(g.sd), "min_offset": g.min, "max_offset": g.max, "origin": g.origin,
-                    "diff_from_grand": json_num(g.diff_from_grand)}))
+                .map(|g| {
+                    let mut v = serde_json::json!({"level": g.level, "n": g.n, "mean_offset": g.mean,
+                        "sd": json_num(g.sd), "min_offset": g.min, "max_offset": g.max, "origin": g.origin,
+                        "diff_from_grand": json_num(g.diff_from_grand)});
+                    if g.sd.is_none() {
+                        v["sd_reason"] = "a group of one value has no SD".into();
+                    }
+                    if g.diff_from_grand.is_none() {
+                        v["diff_from_grand_reason"] = "the group was left out of the test".into();
+                    }
+                    v
+                })
                 .collect();
             let pairs: Vec<serde_json::Value> = content
                 .pairs

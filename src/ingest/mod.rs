@@ -742,8 +742,10 @@ impl RowParser {
     fn check_plausible(&self, name: &str, value: Decimal) -> std::result::Result<Decimal, String> {
         match self.plausible.get(name) {
             Some(&(lo, hi)) if !(lo..=hi).contains(&value.to_f64()) => Err(format!(
-                "value {value} is implausible for \"{}\": outside [{lo}, {hi}] (by default the limits widened by {} tolerance widths; set plausible = [lo, hi] in its [[characteristic]] to change it)",
+                "value {value} is implausible for \"{}\": outside [{}, {}] (by default the limits widened by {} tolerance widths; set plausible = [lo, hi] in its [[characteristic]] to change it)",
                 shorten(name),
+                plain(lo),
+                plain(hi),
                 crate::config::PLAUSIBLE_WIDTHS
             )),
             _ => Ok(value),
@@ -1071,6 +1073,12 @@ pub fn parse_value(text: &str) -> std::result::Result<Decimal, String> {
         ));
     }
     Ok(value)
+}
+
+/// `x` to 12 significant digits without trailing zeros (7.9, not 7.9000000000000004).
+fn plain(x: f64) -> String {
+    let text = format!("{:.*e}", 11, x);
+    text.parse::<f64>().map_or(text, |v| v.to_string())
 }
 
 /// Values of this magnitude and above are instruments' codes for "no reading" (9.9E+37 and
