@@ -43,7 +43,8 @@
 //! plausible = [41.5, 42.5]            # values outside are rejected at import; default: the
 //!                                     # limits widened by 10 tolerance widths (none without
 //!                                     # both limits). The stored values' exact origin is the
-//!                                     # target, or the middle of the limits (or of plausible).
+//!                                     # target, or the middle of the limits (or of plausible),
+//!                                     # else the median of the first 31 values imported.
 //!
 //! [[factor]]
 //! name = "machine"

@@ -439,3 +439,58 @@ fn issue_13_wild_first_values_do_not_spoil_later_days() {
         }
     }
 }
+
+/// Issue 13: a characteristic without limits (no configured origin) whose first value is a typo:
+/// the origin is the median of its first values, not the typo, so the other values keep their
+/// digits (the typo itself is stored: without limits nothing says it is implausible).
+#[test]
+fn issue_13_wild_first_value_without_limits_does_not_fix_the_origin() {
+    let dir = setup("issue-13-wild-no-limits");
+    let mut csv = String::from("timestamp,characteristic,value,machine\n");
+    csv.push_str("2026-11-02T06:00:00Z,flatness,10000123000000,M1\n");
+    let mut groups: Vec<Vec<i64>> = vec![Vec::new(); 2];
+    for i in 0..40i64 {
+        let m = (i % 2) as usize;
+        let um = 100 + (i * 29 % 13) + if m == 1 { 4 } else { 0 };
+        groups[m].push(um);
+        csv.push_str(&format!(
+            "2026-11-03T{:02}:{:02}:00Z,flatness,0.{:06},M{}\n",
+            7 + i / 20,
+            (i % 20) * 2,
+            um,
+            m + 1
+        ));
+    }
+    std::fs::write(dir.join("f.csv"), &csv).unwrap();
+    let o = run(&dir, &["import", "f.csv"]);
+    assert!(o.status.success(), "{}", text(&o));
+    let o = run(&dir, &["check", "--day", "2026-11-03", "--json"]);
+    let doc: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
+    let test = &doc["tests"][0];
+    let origin: f64 = test["groups"][0]["origin"]
+        .as_str()
+        .unwrap()
+        .parse()
+        .unwrap();
+    assert!(origin < 1.0, "origin {origin} is the typo");
+    let n = [20.0, 20.0];
+    let sums: Vec<f64> = groups
+        .iter()
+        .map(|g| g.iter().sum::<i64>() as f64)
+        .collect();
+    let grand = (sums[0] + sums[1]) / 40.0;
+    let ss_b: f64 = (0..2)
+        .map(|k| n[k] * (sums[k] / n[k] - grand).powi(2))
+        .sum();
+    let ss_w: f64 = (0..2)
+        .map(|k| {
+            groups[k]
+                .iter()
+                .map(|&v| (v as f64 - sums[k] / n[k]).powi(2))
+                .sum::<f64>()
+        })
+        .sum();
+    let f_ref = ss_b / (ss_w / 38.0);
+    let f = test["anova"]["f"].as_f64().unwrap();
+    assert!(common::lre(f, f_ref) >= 12.0, "F {f} vs {f_ref}");
+}

@@ -75,8 +75,10 @@ pub const METHOD: &str = "ANOVA (method-of-moments) estimator; within interval: 
 ICC interval: F-based (Searle 1971); between interval: modified large-sample (Graybill and Wang 1980)";
 
 /// One-way random-effects variance components from group summaries (see the module docs for the
-/// formulas). Needs at least two non-empty groups, `N - k >= 1` and a positive within-group
-/// variance; `confidence` in (0, 1). Otherwise Unavailable with the reason.
+/// formulas). Needs at least two non-empty groups, `N - k >= 1` and values that are not all the
+/// same; `confidence` in (0, 1). Otherwise Unavailable with the reason. Every group constant
+/// (zero within-group variance, groups differing) gives within 0, share and ICC 1, the within
+/// interval [0, 0] and no ICC interval.
 pub fn one_way_random(groups: &[Summary], confidence: f64) -> Stat<VarianceComponents> {
     if !(confidence > 0.0 && confidence < 1.0) {
         return Err(Unavailable::new(format!(
@@ -111,9 +113,9 @@ pub fn one_way_random(groups: &[Summary], confidence: f64) -> Stat<VarianceCompo
     let ss_within: f64 = groups.iter().map(|g| g.m2).sum();
     let ms_between = ss_between / df_between;
     let ms_within = ss_within / df_within;
-    if !(ms_within.is_finite() && ms_within > 0.0) {
+    if !(ms_within.is_finite() && ms_within >= 0.0) || (ms_within == 0.0 && ms_between <= 0.0) {
         return Err(Unavailable::new(
-            "within-group variance is zero: variance components are undefined",
+            "every value is the same: variance components are undefined",
         ));
     }
     let sum_sq: f64 = groups.iter().map(|g| (g.n as f64).powi(2)).sum();
@@ -149,15 +151,23 @@ pub fn one_way_random(groups: &[Summary], confidence: f64) -> Stat<VarianceCompo
         high: ss_within / chi_within(tail_lo, tail_hi)?,
     };
 
-    let icc_ci = icc_interval(
-        ms_between / ms_within,
-        df_between,
-        df_within,
-        n0,
-        tail_lo,
-        tail_hi,
-        &mut notes,
-    );
+    // Every group constant (a coarse gauge): all variance is between groups; the ICC's F-based
+    // interval needs a finite F.
+    let icc_ci = if ms_within == 0.0 {
+        Err(Unavailable::new(
+            "every group is constant, so F is infinite and the ICC is 1 without an interval",
+        ))
+    } else {
+        icc_interval(
+            ms_between / ms_within,
+            df_between,
+            df_within,
+            n0,
+            tail_lo,
+            tail_hi,
+            &mut notes,
+        )
+    };
     let between_ci = between_interval(
         ms_between, ms_within, df_between, df_within, n0, tail_lo, tail_hi, &mut notes,
     );
@@ -366,10 +376,23 @@ mod tests {
             Summary::from_slice(&[1.0, 1.0]),
             Summary::from_slice(&[2.0, 2.0]),
         ];
-        assert!(one_way_random(&flat, 0.95)
+        // Every group constant, the groups differing: defined (hand check: grand mean 1.5,
+        // SS_between = 4 x 0.25 = 1 on 1 df, n0 = 2, so between_raw = 0.5), all of it between.
+        let vc = one_way_random(&flat, 0.95).unwrap();
+        assert_eq!(
+            (vc.between_raw, vc.within, vc.share_between),
+            (0.5, 0.0, 1.0)
+        );
+        assert_eq!((vc.within_ci.low, vc.within_ci.high), (0.0, 0.0));
+        assert!(vc.icc_ci.unwrap_err().reason.contains("constant"));
+        let same = [
+            Summary::from_slice(&[1.0, 1.0]),
+            Summary::from_slice(&[1.0, 1.0]),
+        ];
+        assert!(one_way_random(&same, 0.95)
             .unwrap_err()
             .reason
-            .contains("zero"));
+            .contains("same"));
         let singles = [Summary::from_slice(&[1.0]), Summary::from_slice(&[2.0])];
         assert!(one_way_random(&singles, 0.95).is_err());
         let ok = [

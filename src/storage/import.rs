@@ -141,7 +141,15 @@ struct CharacteristicState {
     origin: Option<Decimal>,
     decimals: u32,
     is_changed: bool,
+    /// Without an origin yet (no stored value, nothing configured): the first values of this
+    /// import (their row in the current batch and their exact value), until [`ORIGIN_SAMPLE`]
+    /// of them, or the batch's end, fix the origin at their median.
+    pending: Vec<(usize, Decimal)>,
 }
+
+/// Values of a characteristic without a configured origin whose median becomes its origin, so
+/// that one wild first value (a typo) cannot fix an origin far from the data.
+const ORIGIN_SAMPLE: usize = 31;
 
 /// One accepted measurement on its way to the writer. `characteristic` and `level_set` are the
 /// reading thread's indices until the writer replaces them with database ids.
@@ -238,6 +246,7 @@ impl Interner {
                     origin: None,
                     decimals: 0,
                     is_changed: true,
+                    pending: Vec::new(),
                 });
                 self.by_name.insert(m.characteristic.to_string(), i as u32);
                 batch.new_characteristics.push(m.characteristic.to_string());
@@ -245,20 +254,19 @@ impl Interner {
             }
         };
         let state = &mut self.characteristics[idx];
-        let origin = match state.origin {
-            Some(o) => o,
-            None => {
-                state.origin = Some(m.value);
-                state.is_changed = true;
-                m.value
-            }
-        };
         let decimals = m.value.scale().max(0) as u32;
         if decimals > state.decimals {
             state.decimals = decimals;
             state.is_changed = true;
         }
-        let value = m.value.offset_from(&origin);
+        let value = match state.origin {
+            Some(origin) => m.value.offset_from(&origin),
+            None => {
+                // Placeholder until the origin is fixed (resolve_origin patches the row).
+                state.pending.push((batch.rows.len(), m.value));
+                0.0
+            }
+        };
 
         if self.levels.len() < m.levels.len() {
             self.levels.resize_with(m.levels.len(), FxMap::default);
@@ -316,6 +324,32 @@ impl Interner {
             value,
             level_set: level_set as i64,
         });
+        if self.characteristics[idx].pending.len() >= ORIGIN_SAMPLE {
+            Self::resolve_origin(&mut self.characteristics[idx], &mut self.batch);
+        }
+    }
+
+    /// Fixes a characteristic's origin at the median of its pending values and writes their
+    /// offsets into the batch rows they hold.
+    fn resolve_origin(state: &mut CharacteristicState, batch: &mut Batch) {
+        if state.pending.is_empty() {
+            return;
+        }
+        let mut values: Vec<Decimal> = state.pending.iter().map(|&(_, v)| v).collect();
+        values.sort_by(|a, b| a.to_f64().total_cmp(&b.to_f64()));
+        let origin = values[values.len() / 2];
+        state.origin = Some(origin);
+        state.is_changed = true;
+        for (row, value) in state.pending.drain(..) {
+            batch.rows[row].value = value.offset_from(&origin);
+        }
+    }
+
+    /// Fixes every pending origin before the batch leaves (its rows are patched in place).
+    fn resolve_pending(&mut self) {
+        for state in &mut self.characteristics {
+            Self::resolve_origin(state, &mut self.batch);
+        }
     }
 }
 
@@ -537,6 +571,7 @@ impl Store {
                     origin: c.origin.or(configured),
                     decimals: c.decimals,
                     is_changed: configured.is_some(),
+                    pending: Vec::new(),
                 }
             })
             .collect();
@@ -565,6 +600,7 @@ impl Store {
                 let mut stream = stream;
                 while stream.read_into(&mut interner) {
                     if interner.batch.is_full() {
+                        interner.resolve_pending();
                         let mut full = std::mem::take(&mut interner.batch);
                         sort_rows(&mut full.rows);
                         if sender.send(full).is_err() {
@@ -573,6 +609,7 @@ impl Store {
                         }
                     }
                 }
+                interner.resolve_pending();
                 if !interner.batch.is_empty() {
                     let mut last = std::mem::take(&mut interner.batch);
                     sort_rows(&mut last.rows);
