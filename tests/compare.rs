@@ -223,11 +223,13 @@ fn nist_strd_shifted_to_1e12() {
             .zip(reference["groups"].as_array().unwrap())
         {
             assert!(lre(f(g_big, &["sd"]), f(g_small, &["sd"])) >= 9.0);
-            // mean_offset is relative to the first value (1000000000000.4 vs 1.4): equal offsets.
+            // mean_offset is relative to the origin, the median of the first 31 values (the
+            // shifted file's is the reference's shifted by 999999999999): equal offsets.
             let (a, b) = (f(g_big, &["mean_offset"]), f(g_small, &["mean_offset"]));
             assert!((a - b).abs() <= 1e-9 * b.abs().max(0.1), "{a} vs {b}");
         }
-        assert_eq!(json["origin"], "1000000000000.4");
+        let shifted_origin = shift_decimal(reference["origin"].as_str().unwrap(), 999_999_999_999);
+        assert_eq!(json["origin"].as_str().unwrap(), shifted_origin);
     }
 }
 
@@ -696,4 +698,44 @@ fn issue_13_p_bounds_outlier_expectation_and_stated_levels() {
         .parse()
         .unwrap_or(0.0);
     assert_eq!(sw.trim_end().ends_with("attention"), p < 0.05, "{sw}");
+}
+
+/// Issue 13: the origin is the median of the first 31 values, so a wild first value (a typo)
+/// costs the other values no digits: the same rows with the typo first or last give the same
+/// statistics to 12 digits, and the origin is never the typo.
+#[test]
+fn issue_13_a_wild_first_value_does_not_fix_the_origin() {
+    let dir = temp_dir("issue-13-compare-wild");
+    let mut rows = Vec::new();
+    for i in 0..60 {
+        rows.push(format!(
+            "{},42.{:06}",
+            ["A", "B", "C"][i % 3],
+            12 + (i * 37) % 11
+        ));
+    }
+    let typo = "A,42000012000000".to_string();
+    let first = format!("machine,bore\n{typo}\n{}\n", rows.join("\n"));
+    let last = format!("machine,bore\n{}\n{typo}\n", rows.join("\n"));
+    let a = compare_json(
+        &write(&dir, "first.csv", first.as_bytes()),
+        "machine",
+        "bore",
+        &[],
+    );
+    let b = compare_json(
+        &write(&dir, "last.csv", last.as_bytes()),
+        "machine",
+        "bore",
+        &[],
+    );
+    assert_ne!(a["origin"], "42000012000000");
+    for path in [
+        &["anova", "f"][..],
+        &["anova", "ss_within"],
+        &["welch", "f"],
+    ] {
+        let (x, y) = (f(&a, path), f(&b, path));
+        assert!(lre(x, y) >= 12.0, "{path:?}: {x} vs {y}");
+    }
 }

@@ -3,7 +3,7 @@
 //!
 //! Reads any CSV with a header row (quoted fields, commas and non-ASCII text in labels, UTF-8 with
 //! or without a byte-order mark, CRLF or LF line ends). Measure cells are parsed as exact decimals
-//! and centred on one exact origin (the first value) before any arithmetic, so gauge readings such
+//! and centred on one exact origin (the median of the first 31 values) before any arithmetic, so gauge readings such
 //! as `1000000000000.4` keep their digits. Rows are grouped by the label column in first-seen
 //! order and handed to [`crate::stats::oneway::analyze`].
 //!
@@ -57,7 +57,8 @@ pub struct GroupedData {
     pub names: Vec<String>,
     /// Offsets `value - origin` per group.
     pub values: Vec<Vec<f64>>,
-    /// The exact origin (the first measured value).
+    /// The exact origin (the median of the first 31 measured values, so one wild value cannot
+    /// fix it).
     pub origin: Decimal,
     /// Largest number of decimal places seen in the measure column (for display).
     pub max_places: i32,
@@ -172,6 +173,18 @@ pub fn parse_grouped(path: &Path, bytes: &[u8], by: &str, measure: &str) -> Resu
     let mut names: Vec<String> = Vec::new();
     let mut values: Vec<Vec<f64>> = Vec::new();
     let mut origin: Option<Decimal> = None;
+    // The first values wait (group, exact value) until their median fixes the origin, so one
+    // wild first value cannot (the same rule as the import's, storage::import::ORIGIN_SAMPLE).
+    let mut pending: Vec<(usize, Decimal)> = Vec::new();
+    let fix_origin = |pending: &mut Vec<(usize, Decimal)>, values: &mut Vec<Vec<f64>>| {
+        let mut sorted: Vec<Decimal> = pending.iter().map(|&(_, v)| v).collect();
+        sorted.sort_by(|a, b| a.to_f64().total_cmp(&b.to_f64()));
+        let o = sorted[sorted.len() / 2];
+        for (group, value) in pending.drain(..) {
+            values[group].push(value.offset_from(&o));
+        }
+        o
+    };
     let mut max_places = 0i32;
     let mut n_rows = 0u64;
     while read(&mut reader, &mut record)? {
@@ -227,8 +240,6 @@ pub fn parse_grouped(path: &Path, bytes: &[u8], by: &str, measure: &str) -> Resu
         let value = Decimal::parse(cell)
             .map_err(|e| ingest_error(path, Some(line), Some(measure), e.to_string()))?;
         max_places = max_places.max(value.normalized().scale());
-        let origin = *origin.get_or_insert(value);
-        let offset = value.offset_from(&origin);
         let group = match index.get(label) {
             Some(&g) => g,
             None => {
@@ -238,7 +249,18 @@ pub fn parse_grouped(path: &Path, bytes: &[u8], by: &str, measure: &str) -> Resu
                 names.len() - 1
             }
         };
-        values[group].push(offset);
+        match origin {
+            Some(o) => values[group].push(value.offset_from(&o)),
+            None => {
+                pending.push((group, value));
+                if pending.len() >= 31 {
+                    origin = Some(fix_origin(&mut pending, &mut values));
+                }
+            }
+        }
+    }
+    if !pending.is_empty() {
+        origin = Some(fix_origin(&mut pending, &mut values));
     }
     if n_rows == 0 {
         return Err(ingest_error(

@@ -11,9 +11,10 @@
 //! - `events`: process changes ([`Store::add_event`], [`Store::events`]);
 //! - `maintenance`: status, integrity check and online backup.
 //!
-//! Values are stored as `f64` offsets from an exact decimal origin per characteristic (the first
-//! value ever stored for it, the same centring as `stats::decimal::centre`), so data such as
-//! 1000000000000.4 and 1000000000000.3 keep every digit; see `migrations/0001_initial.sql`.
+//! Values are stored as `f64` offsets from an exact decimal origin per characteristic (its
+//! target or the middle of its limits when configured, else the median of its first 31 imported
+//! values: no single value, a typo, fixes it), so data such as 1000000000000.4 and
+//! 1000000000000.3 keep every digit; see `migrations/0001_initial.sql`.
 
 mod events;
 mod import;
