@@ -739,3 +739,30 @@ fn issue_13_a_wild_first_value_does_not_fix_the_origin() {
         assert!(lre(x, y) >= 12.0, "{path:?}: {x} vs {y}");
     }
 }
+
+/// Issue 13: groups that are each constant (a coarse gauge) and differ are a difference: the
+/// exact permutation test leads (hand count: 3! of 15!/(5! 5! 5!) = 756,756 arrangements keep
+/// every group constant, p = 6/756756), and the defined parts of the table are given.
+#[test]
+fn issue_13_constant_groups_are_a_difference() {
+    let dir = temp_dir("issue-13-constant");
+    let mut csv = String::from("machine,bore\n");
+    for (g, v) in [("A", "2.5"), ("B", "2.6"), ("C", "2.7")] {
+        for _ in 0..5 {
+            csv.push_str(&format!("{g},{v}\n"));
+        }
+    }
+    let json = compare_json(
+        &write(&dir, "c.csv", csv.as_bytes()),
+        "machine",
+        "bore",
+        &[],
+    );
+    assert_eq!(json["leading"]["method"], "exact_permutation");
+    assert!(lre(f(&json, &["leading", "p"]), 6.0 / 756_756.0) >= 13.0);
+    assert!(json["leading"]["statistic_reason"].is_string());
+    let c = &json["constant_groups"];
+    assert!(lre(f(c, &["ss_between"]), 0.1) >= 12.0);
+    assert_eq!((f(c, &["df_between"]), f(c, &["df_within"])), (2.0, 12.0));
+    assert!(lre(f(c, &["grand_mean"]), 2.6) >= 14.0);
+}

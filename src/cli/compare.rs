@@ -451,6 +451,23 @@ pub fn to_json(
         &r.outliers,
         |c| json!({"n": c.n, "expected": json_number(c.expected), "p": json_number(c.p)}),
     );
+    put(&mut root, "dagostino_pearson", &r.dagostino_pearson, |d| {
+        json!({"k2": json_number(d.k2), "p": json_number(d.p), "n": d.n,
+               "skewness": json_number(d.skewness), "skewness_se": json_number(d.skewness_se),
+               "excess_kurtosis": json_number(d.excess_kurtosis),
+               "excess_kurtosis_se": json_number(d.excess_kurtosis_se)})
+    });
+    if let Ok(c) = &r.constant_groups {
+        // Every group constant: the ANOVA table's defined parts (F is infinite).
+        root.insert(
+            "constant_groups".into(),
+            json!({"ss_between": json_number(c.ss_between), "ss_within": 0.0,
+                   "df_between": c.df_between, "df_within": c.df_within,
+                   "grand_mean": json_number(data.origin.plus_offset(c.grand_mean)),
+                   "eta_squared": 1.0, "n_distinct": c.n_distinct,
+                   "p_exact": json_number(c.p), "p_is_exact_count": c.is_exact}),
+        );
+    }
     put(
         &mut root,
         "shapiro_wilk",
@@ -564,6 +581,20 @@ pub fn to_json(
             "p": l.p.map_or(Value::Null, json_number),
         }),
     );
+    if let Some(Value::Object(leading)) = root.get_mut("leading") {
+        let why = l.declined.clone().unwrap_or_else(|| match l.method {
+            LeadingMethod::ExactPermutation => {
+                "the exact permutation test of constant groups has a p-value but no F (F is infinite)"
+                    .to_string()
+            }
+            _ => "the leading test could not be computed (its section gives the reason)".to_string(),
+        });
+        for key in ["statistic", "p"] {
+            if leading.get(key).is_some_and(Value::is_null) {
+                leading.insert(format!("{key}_reason"), Value::String(why.clone()));
+            }
+        }
+    }
     root.insert("caution".into(), Value::String(crate::CAUTION.to_string()));
     Value::Object(root)
 }
@@ -683,7 +714,32 @@ pub fn render_text(
                 sig(t.resid_sd, 4)
             ));
         }
-        Err(e) => o.push_str(&format!("  not available: {}\n", e.reason)),
+        Err(e) => match &r.constant_groups {
+            // Every group constant: the table's defined parts, F infinite.
+            Ok(c) => {
+                o.push_str(&format!(
+                    "  {:<9} {:>16} {:>8} {:>16} {:>12}\n",
+                    "source", "SS", "df", "MS", "F"
+                ));
+                o.push_str(&format!(
+                    "  {:<9} {:>16} {:>8} {:>16} {:>12}\n",
+                    "between",
+                    sig(c.ss_between, 8),
+                    c.df_between,
+                    sig(c.ss_between / c.df_between, 8),
+                    "infinite"
+                ));
+                o.push_str(&format!(
+                    "  {:<9} {:>16} {:>8} {:>16}\n",
+                    "within", "0", c.df_within, "0"
+                ));
+                o.push_str(&format!(
+                    "  grand mean {}, R-squared 1: every group is constant, so all the variation lies between the groups\n",
+                    sig(data.origin.plus_offset(c.grand_mean), 8)
+                ));
+            }
+            Err(_) => o.push_str(&format!("  not available: {}\n", e.reason)),
+        },
     }
     o.push('\n');
     o.push_str("Requirement checks (pass = no sign of a problem at the 5% level)\n");
@@ -776,6 +832,16 @@ pub fn render_text(
                 "no difference between the group means shown"
             }
         )),
+        (None, Some(p)) => o.push_str(&format!(
+            "  p = {} (exact): {}\n",
+            pval(p),
+            if p < options.alpha {
+                "the group means differ"
+            } else {
+                "no difference between the group means shown (too few values for a constant reading to be conclusive)"
+            }
+        )),
+        _ if l.declined.is_some() => o.push_str("  no test: too few values per group to compare\n"),
         _ => o.push_str("  not available (see above)\n"),
     }
     o.push_str(&format!("  why: {}\n", l.reason));
