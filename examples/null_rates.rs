@@ -107,7 +107,7 @@ fn methods(reps: usize, shift: f64) {
     use samewise::stats::{anova::one_way, kruskal::kruskal_wallis, welch::welch};
     let cells = grid(shift);
     let next = AtomicUsize::new(0);
-    let results: Mutex<Vec<[usize; 4]>> = Mutex::new(vec![[0; 4]; cells.len()]);
+    let results: Mutex<Vec<[usize; 5]>> = Mutex::new(vec![[0; 5]; cells.len()]);
     std::thread::scope(|scope| {
         for _ in 0..2 {
             scope.spawn(|| loop {
@@ -116,7 +116,7 @@ fn methods(reps: usize, shift: f64) {
                     break;
                 }
                 let mut rng = Rng::new(cell_state(i, shift));
-                let mut count = [0usize; 4];
+                let mut count = [0usize; 5];
                 for _ in 0..reps {
                     let groups = cells[i].groups(&mut rng);
                     let s: Vec<Summary> = groups.iter().map(|g| Summary::from_slice(g)).collect();
@@ -131,23 +131,54 @@ fn methods(reps: usize, shift: f64) {
                         count[2] += 1;
                     }
                     count[3] += 1;
+                    // Brown and Forsythe's (1974) F*: the classic F's statistic for equal sizes,
+                    // with Satterthwaite's denominator df from the group variances.
+                    if let Ok(t) = one_way(&s) {
+                        let n: f64 = s.iter().map(|g| g.n as f64).sum();
+                        let c: Vec<f64> = s
+                            .iter()
+                            .map(|g| (1.0 - g.n as f64 / n) * g.variance().unwrap_or(0.0))
+                            .collect();
+                        let num: f64 = s
+                            .iter()
+                            .zip(&c)
+                            .map(|(g, _)| g.n as f64 * (g.mean - t.grand_mean).powi(2))
+                            .sum();
+                        let den: f64 = c.iter().sum();
+                        let f2 = den * den
+                            / s.iter()
+                                .zip(&c)
+                                .map(|(g, ci)| ci * ci / (g.n as f64 - 1.0))
+                                .sum::<f64>();
+                        if den > 0.0 {
+                            let fstar = num / den;
+                            if samewise::stats::distributions::f_sf(fstar, (s.len() - 1) as f64, f2)
+                                .is_ok_and(|p| p <= 0.05)
+                            {
+                                count[4] += 1;
+                            }
+                        }
+                    }
                 }
                 results.lock().expect("no panic")[i] = count;
             });
         }
     });
-    println!("| k | n | variance ratio | values | F | Welch | Kruskal-Wallis |");
+    println!(
+        "| k | n | variance ratio | values | F | Welch | Kruskal-Wallis | Brown-Forsythe F* |"
+    );
     for (cell, c) in cells.iter().zip(results.into_inner().expect("no panic")) {
         let r = |x: usize| x as f64 / c[3] as f64;
         println!(
-            "| {} | {} | {} | {} | {:.3} | {:.3} | {:.3} |",
+            "| {} | {} | {} | {} | {:.3} | {:.3} | {:.3} | {:.3} |",
             cell.k,
             cell.sizes.label(),
             cell.spread.label(),
             cell.shape.label(),
             r(c[0]),
             r(c[1]),
-            r(c[2])
+            r(c[2]),
+            r(c[4])
         );
     }
 }
