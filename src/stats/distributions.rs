@@ -438,40 +438,12 @@ pub fn chi_square_quantile(p: f64, q: f64, df: f64) -> Stat<f64> {
     };
     let wh = df * (1.0 - 2.0 / (9.0 * df) + z * (2.0 / (9.0 * df)).sqrt()).powi(3);
     let small = 2.0 * ((p.ln() + ln_gamma(a + 1.0)) / a).exp();
-    let mut u = if wh > 0.0 && (p > 0.05 || df > 10.0) {
+    let u = if wh > 0.0 && (p > 0.05 || df > 10.0) {
         wh.ln()
     } else {
         small.max(1e-300).ln()
     };
-    let (mut lo, mut hi) = (f64::NEG_INFINITY, f64::INFINITY);
-    for _ in 0..200 {
-        let (f, slope) = tail(u.exp());
-        let err = f - target;
-        // The tail grows with x in the lower tail and shrinks in the upper.
-        let too_high = if lower { err > 0.0 } else { err < 0.0 };
-        if too_high {
-            hi = hi.min(u);
-        } else {
-            lo = lo.max(u);
-        }
-        if err.abs() < 1e-15 * target.abs().max(1.0) {
-            break;
-        }
-        let mut next = u - err / slope;
-        if !next.is_finite() || next <= lo || next >= hi {
-            next = match (lo.is_finite(), hi.is_finite()) {
-                (true, true) => 0.5 * (lo + hi),
-                (true, false) => lo + 1.0,
-                (false, true) => hi - 1.0,
-                _ => u,
-            };
-        }
-        if (next - u).abs() < 1e-15 * u.abs().max(1.0) {
-            u = next;
-            break;
-        }
-        u = next;
-    }
+    let u = solve_in_tail(u, target, lower, 1.0, |u| tail(u.exp()));
     Ok(u.exp())
 }
 
@@ -537,6 +509,48 @@ fn ln_gamma_prefactor(a: f64, t: f64) -> f64 {
     a * (d.ln_1p() - d) - 0.5 * (2.0 * std::f64::consts::PI * a).ln() - stirlerr
 }
 
+/// The root of `ln tail(u) = target` from `start`: Newton's method on the log of a tail that
+/// grows with `u` (`lower`) or shrinks with it, kept inside the bracket the steps have found and
+/// bisecting (or stepping out by `step` while one side is open) whenever Newton would leave it.
+/// `tail(u)` returns the log of the tail and its derivative with respect to `u`.
+fn solve_in_tail(
+    start: f64,
+    target: f64,
+    lower: bool,
+    step: f64,
+    tail: impl Fn(f64) -> (f64, f64),
+) -> f64 {
+    let mut u = start;
+    let (mut lo, mut hi) = (f64::NEG_INFINITY, f64::INFINITY);
+    for _ in 0..300 {
+        let (f, slope) = tail(u);
+        let err = f - target;
+        let too_high = if lower { err > 0.0 } else { err < 0.0 };
+        if too_high {
+            hi = hi.min(u);
+        } else {
+            lo = lo.max(u);
+        }
+        if err.abs() < 1e-15 * target.abs().max(1.0) {
+            break;
+        }
+        let mut next = u - err / slope;
+        if !next.is_finite() || next <= lo || next >= hi {
+            next = match (lo.is_finite(), hi.is_finite()) {
+                (true, true) => 0.5 * (lo + hi),
+                (true, false) => lo + step,
+                (false, true) => hi - step,
+                _ => u,
+            };
+        }
+        if (next - u).abs() < 1e-15 * u.abs().max(1.0) {
+            return next;
+        }
+        u = next;
+    }
+    u
+}
+
 /// Quantile of the F distribution with `df1`, `df2` degrees of freedom at lower-tail
 /// probability `p` (upper tail `q = 1 - p`, passed separately): `F = (df2 / df1) x / (1 - x)`
 /// with `x` the Beta(df1/2, df2/2) quantile, found by safeguarded Newton in the logit of `x` on
@@ -577,34 +591,7 @@ pub fn f_quantile(p: f64, q: f64, df1: f64, df2: f64) -> Stat<f64> {
     if !v.is_finite() {
         v = 0.0;
     }
-    let (mut lo, mut hi) = (f64::NEG_INFINITY, f64::INFINITY);
-    for _ in 0..300 {
-        let (f, slope) = tail(v);
-        let err = f - target;
-        let too_high = if lower { err > 0.0 } else { err < 0.0 };
-        if too_high {
-            hi = hi.min(v);
-        } else {
-            lo = lo.max(v);
-        }
-        if err.abs() < 1e-15 * target.abs().max(1.0) {
-            break;
-        }
-        let mut next = v - err / slope;
-        if !next.is_finite() || next <= lo || next >= hi {
-            next = match (lo.is_finite(), hi.is_finite()) {
-                (true, true) => 0.5 * (lo + hi),
-                (true, false) => lo + 2.0,
-                (false, true) => hi - 2.0,
-                _ => v,
-            };
-        }
-        if (next - v).abs() < 1e-15 * v.abs().max(1.0) {
-            v = next;
-            break;
-        }
-        v = next;
-    }
+    let v = solve_in_tail(v, target, lower, 2.0, tail);
     // F = (df2/df1) x / (1 - x) = (df2/df1) e^v.
     Ok(df2 / df1 * v.exp())
 }
