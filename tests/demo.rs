@@ -41,12 +41,15 @@ fn demo_finds_the_injected_effects() {
     let stderr = String::from_utf8_lossy(&out.stderr);
     assert!(out.status.success(), "demo failed:\n{stdout}\n{stderr}");
 
-    // Import: every measurement stored or rejected, and the planted bad rows were rejected.
+    // Import: every measurement stored, a duplicate or rejected (the sample exports do not
+    // overlap, so no duplicate), and the planted bad rows were rejected.
     let import = story_line(&stdout, "1. Imported 6 exports");
     let read = number_after(import, "exports:");
     let stored = number_after(import, "read,");
-    let rejected = number_after(import, "stored,");
-    assert_eq!(stored + rejected, read, "{import}");
+    let duplicate = number_after(import, "stored,");
+    let rejected = number_after(import, "duplicate,");
+    assert_eq!(duplicate, 0.0, "{import}");
+    assert_eq!(stored + duplicate + rejected, read, "{import}");
     assert!((10.0..100.0).contains(&rejected), "{import}");
 
     // Catch-up ran every schedule without a failure.

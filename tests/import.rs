@@ -494,3 +494,59 @@ fn issue_13_wild_first_value_without_limits_does_not_fix_the_origin() {
     let f = test["anova"]["f"].as_f64().unwrap();
     assert!(common::lre(f, f_ref) >= 12.0, "F {f} vs {f_ref}");
 }
+
+/// Issue 15: an export that overlaps the previous one (the last day again, with the next) is not
+/// counted twice: identical rows are counted as duplicates and not stored, a row with the same
+/// characteristic, time and levels but another value is rejected naming both values, and the
+/// summary reads read = stored + duplicate + rejected. Invented data.
+#[test]
+fn issue_15_overlapping_export_is_not_counted_twice() {
+    let dir = setup("issue-15-overlap");
+    let row = |day: u32, i: u32, um: u32| {
+        format!(
+            "2026-11-{day:02}T{:02}:{:02}:00Z,bore_diameter,42.{um:06},M{}\n",
+            7 + i / 20,
+            (i % 20) * 2,
+            1 + i % 3
+        )
+    };
+    let header = "timestamp,characteristic,value,machine\n";
+    let mut first = String::from(header);
+    for day in [3, 4] {
+        for i in 0..30 {
+            first.push_str(&row(day, i, 10 + (i * 7) % 9));
+        }
+    }
+    std::fs::write(dir.join("week1.csv"), &first).unwrap();
+    let o = run(&dir, &["import", "week1.csv"]);
+    assert!(o.status.success(), "{}", text(&o));
+    // The re-export: day 4 again (one value changed at the source) and day 5.
+    let mut second = String::from(header);
+    for i in 0..30 {
+        let um = if i == 5 { 99 } else { 10 + (i * 7) % 9 };
+        second.push_str(&row(4, i, um));
+    }
+    for i in 0..30 {
+        second.push_str(&row(5, i, 10 + (i * 5) % 9));
+    }
+    std::fs::write(dir.join("week1b.csv"), &second).unwrap();
+    let o = run(&dir, &["import", "week1b.csv"]);
+    let t = text(&o);
+    assert!(o.status.success(), "{t}");
+    assert!(
+        t.contains("60 measurements: 30 stored, 29 already stored (duplicate), 1 rejected"),
+        "{t}"
+    );
+    assert!(t.contains("conflicts with a stored measurement"), "{t}");
+    assert!(
+        t.contains("stored \"42.000018\", this row \"42.000099\""),
+        "{t}"
+    );
+    // Day 4 holds 30 measurements, not 60; the database check agrees with the import records.
+    let o = run(&dir, &["check", "--day", "2026-11-04", "--json"]);
+    let doc: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
+    assert_eq!(doc["tests"][0]["n_obs"], 30, "{}", text(&o));
+    assert_eq!(n_measurements(&dir), 90);
+    let o = run(&dir, &["db", "check"]);
+    assert!(o.status.success(), "{}", text(&o));
+}

@@ -54,6 +54,8 @@ pub struct ImportTotals {
     pub measurements_read: u64,
     /// Measurements stored.
     pub accepted: u64,
+    /// Measurements already stored (identical rows of an overlapping export).
+    pub duplicates: u64,
     /// Measurements rejected.
     pub rejected: u64,
     /// Rejections by kind of reason.
@@ -106,6 +108,7 @@ pub fn prepare(dir: &Path, quiet: bool) -> Result<(Config, Store, Vec<PathBuf>, 
         totals.files += 1;
         totals.measurements_read += report.measurements_read;
         totals.accepted += report.accepted;
+        totals.duplicates += report.duplicates;
         totals.rejected += report.rejected;
         for (reason, n) in report.reasons {
             *totals.reasons.entry(reason).or_default() += n;
@@ -257,8 +260,8 @@ pub fn run(args: &DemoArgs) -> Result<ExitCode> {
     );
     let (config, mut store, exports, totals) = prepare(&args.dir, args.quiet)?;
     println!(
-        "\n1. Imported {} exports: {} measurements read, {} stored, {} rejected (accepted + rejected = read)",
-        totals.files, totals.measurements_read, totals.accepted, totals.rejected
+        "\n1. Imported {} exports: {} measurements read, {} stored, {} duplicate, {} rejected (stored + duplicate + rejected = read)",
+        totals.files, totals.measurements_read, totals.accepted, totals.duplicates, totals.rejected
     );
     for (reason, n) in &totals.reasons {
         println!("     {n:>5}  {reason}");

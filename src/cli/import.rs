@@ -170,13 +170,14 @@ fn import_one(
     )?;
     let file = name.as_path();
     println!(
-        "{}: import #{} (layout {}): {} rows read, {} measurements: {} accepted, {} rejected ({:.1} s)",
+        "{}: import #{} (layout {}): {} rows read, {} measurements: {} stored, {} already stored (duplicate), {} rejected ({:.1} s)",
         file.display(),
         report.import_id,
         report.layout,
         report.rows_read,
         report.measurements_read,
         report.accepted,
+        report.duplicates,
         report.rejected,
         report.elapsed.as_secs_f64()
     );
@@ -235,7 +236,13 @@ fn import_one(
             .map_err(|e| Error::io(&path, e))?;
         }
     }
-    if report.accepted == 0 {
+    if report.accepted == 0 && report.duplicates > 0 {
+        println!(
+            "  every accepted measurement was already stored ({} duplicates of an earlier export): nothing new",
+            report.duplicates
+        );
+    }
+    if report.accepted == 0 && report.duplicates == 0 {
         return Err(Error::Ingest {
             path: file.to_path_buf(),
             line: None,

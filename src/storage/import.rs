@@ -92,7 +92,10 @@ pub struct ImportReport {
     pub measurements_read: u64,
     /// Measurements stored.
     pub accepted: u64,
-    /// Measurements rejected (stored in `rejected_rows`).
+    /// Measurements identical to a stored one (same characteristic, time, levels and value: an
+    /// overlapping export), counted and not stored again.
+    pub duplicates: u64,
+    /// Measurements rejected (stored in `rejected_rows`), conflicts with stored ones included.
     pub rejected: u64,
     /// Rejection counts by reason (quoted values folded), most frequent first.
     pub reasons: Vec<(String, u64)>,
@@ -581,7 +584,14 @@ impl Store {
         let mut characteristic_ids: Vec<i64> = characteristics.iter().map(|c| c.id).collect();
         let mut level_set_ids: Vec<i64> = Vec::new();
         let mut new_characteristics = Vec::new();
-        let mut accepted = 0u64;
+        // Stored origins by characteristic id, to name both values of a conflict in units.
+        let origins: HashMap<i64, Decimal> = characteristics
+            .iter()
+            .filter_map(|c| c.origin.map(|o| (c.id, o)))
+            .collect();
+        let mut stored_rows = 0u64;
+        let mut duplicates = 0u64;
+        let mut n_conflicts = 0u64;
         let mut rejected = 0u64;
         let mut reasons: HashMap<String, u64> = HashMap::new();
         let mut first_rejections = Vec::new();
@@ -622,6 +632,15 @@ impl Store {
                     "INSERT INTO measurements (characteristic_id, ts_ms, import_id, line, value, level_set_id) \
                      VALUES (?1, ?2, ?3, ?4, ?5, ?6)",
                 )?;
+                let mut latest_stmt = tx.prepare_cached(
+                    "SELECT MAX(ts_ms) FROM measurements WHERE characteristic_id = ?1",
+                )?;
+                let mut same_instant_stmt = tx.prepare_cached(
+                    "SELECT value FROM measurements \
+                     WHERE characteristic_id = ?1 AND ts_ms = ?2 AND level_set_id = ?3 LIMIT 1",
+                )?;
+                let mut latest_stored: HashMap<i64, Option<i64>> = HashMap::new();
+                let mut conflicts: Vec<Rejection> = Vec::new();
                 let mut insert_rejection = tx.prepare_cached(
                     "INSERT INTO rejected_rows (import_id, line, column_name, reason, raw) VALUES (?1, ?2, ?3, ?4, ?5)",
                 )?;
@@ -659,14 +678,59 @@ impl Store {
                     }
                     insert_measurement.raw_bind_parameter(3, import_id)?;
                     for row in &batch.rows {
+                        // A row at or before the latest instant stored for its characteristic
+                        // (read before this import wrote any) may repeat a stored measurement: an
+                        // export that overlaps the previous one.
+                        let latest = match latest_stored.get(&row.characteristic) {
+                            Some(&t) => t,
+                            None => {
+                                let t: Option<i64> =
+                                    latest_stmt.query_row([row.characteristic], |r| r.get(0))?;
+                                latest_stored.insert(row.characteristic, t);
+                                t
+                            }
+                        };
+                        if latest.is_some_and(|t| row.ts_ms <= t) {
+                            let mut stored = same_instant_stmt.query(params![
+                                row.characteristic,
+                                row.ts_ms,
+                                row.level_set
+                            ])?;
+                            if let Some(r) = stored.next()? {
+                                let value: f64 = r.get(0)?;
+                                if value == row.value {
+                                    duplicates += 1;
+                                } else {
+                                    let origin = origins.get(&row.characteristic);
+                                    let units = |v: f64| {
+                                        origin.map_or(format!("{v} (offset)"), |o| {
+                                            format!("{}", o.plus_offset(v))
+                                        })
+                                    };
+                                    conflicts.push(Rejection {
+                                        line: row.line as u64,
+                                        column: Some("value".to_string()),
+                                        reason: format!(
+                                            "conflicts with a stored measurement of the same characteristic, time and levels: stored \"{}\", this row \"{}\"",
+                                            units(value),
+                                            units(row.value)
+                                        ),
+                                        raw: String::new(),
+                                    });
+                                }
+                                continue;
+                            }
+                        }
                         insert_measurement.raw_bind_parameter(1, row.characteristic)?;
                         insert_measurement.raw_bind_parameter(2, row.ts_ms)?;
                         insert_measurement.raw_bind_parameter(4, row.line)?;
                         insert_measurement.raw_bind_parameter(5, row.value)?;
                         insert_measurement.raw_bind_parameter(6, row.level_set)?;
                         insert_measurement.raw_execute()?;
+                        stored_rows += 1;
                     }
-                    accepted += batch.rows.len() as u64;
+                    n_conflicts += conflicts.len() as u64;
+                    batch.rejections.append(&mut conflicts);
                     for r in batch.rejections {
                         insert_rejection.execute(params![
                             import_id,
@@ -708,9 +772,11 @@ impl Store {
                 reason: "the file was not read to the end".to_string(),
             })?
             .to_string();
-        if accepted != counts.accepted || rejected != counts.rejected {
+        // What the reader accepted was stored, found stored already, or conflicts (rejected here).
+        let accepted = stored_rows + duplicates;
+        if accepted + n_conflicts != counts.accepted || rejected != counts.rejected + n_conflicts {
             return Err(Error::Database(format!(
-                "{}: counts do not add up (stored {accepted} + rejected {rejected}, read {} + {}); nothing was imported",
+                "{}: counts do not add up (stored {stored_rows} + duplicate {duplicates} + rejected {rejected}, read {} + {}); nothing was imported",
                 path.display(),
                 counts.accepted,
                 counts.rejected
@@ -742,15 +808,16 @@ impl Store {
         let elapsed = clock.elapsed();
         let finished = options.started_at + chrono::Duration::from_std(elapsed).unwrap_or_default();
         tx.execute(
-            "UPDATE imports SET sha256 = ?2, finished_ms = ?3, rows_read = ?4, accepted = ?5, rejected = ?6 \
-             WHERE id = ?1",
+            "UPDATE imports SET sha256 = ?2, finished_ms = ?3, rows_read = ?4, accepted = ?5, rejected = ?6, \
+             duplicates = ?7 WHERE id = ?1",
             params![
                 import_id,
                 sha256,
                 ms(finished),
                 (accepted + rejected) as i64,
                 accepted as i64,
-                rejected as i64
+                rejected as i64,
+                duplicates as i64
             ],
         )?;
         let commit_start = thread_cpu();
@@ -765,7 +832,8 @@ impl Store {
             layout,
             rows_read: counts.rows_read,
             measurements_read: counts.measurements_read,
-            accepted,
+            accepted: stored_rows,
+            duplicates,
             rejected,
             reasons,
             first_rejections,

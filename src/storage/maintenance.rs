@@ -144,7 +144,7 @@ impl Store {
             .collect::<rusqlite::Result<_>>()?;
         let mut problems = Vec::new();
         let mut stmt = self.conn.prepare(
-            "SELECT i.id, i.file_name, i.accepted, i.rejected, \
+            "SELECT i.id, i.file_name, i.accepted - i.duplicates, i.rejected, \
                (SELECT count(*) FROM measurements m WHERE m.import_id = i.id), \
                (SELECT count(*) FROM rejected_rows r WHERE r.import_id = i.id) \
              FROM imports i ORDER BY i.id",
@@ -163,7 +163,7 @@ impl Store {
             let (id, file, accepted, rejected, stored, stored_rejected) = row?;
             if accepted != stored || rejected != stored_rejected {
                 problems.push(format!(
-                    "import #{id} ({file}) recorded {accepted} accepted and {rejected} rejected, \
+                    "import #{id} ({file}) recorded {accepted} stored and {rejected} rejected, \
                      but {stored} measurements and {stored_rejected} rejected rows are stored"
                 ));
             }

@@ -31,6 +31,10 @@ pub const MIGRATIONS: &[Migration] = &[
         name: "0002_runs.sql",
         sql: include_str!("../../migrations/0002_runs.sql"),
     },
+    Migration {
+        name: "0003_import_duplicates.sql",
+        sql: include_str!("../../migrations/0003_import_duplicates.sql"),
+    },
 ];
 
 /// SQLite's `PRAGMA application_id` of a samewise database: "SMWS" in ASCII. Set when a database
