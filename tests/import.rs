@@ -77,7 +77,10 @@ fn counts_add_up_and_rejects_are_written() {
     assert!(o.status.success(), "{}", text(&o));
     let out = text(&o);
     assert!(out.contains("8 rows read"), "{out}");
-    assert!(out.contains("2 accepted, 6 rejected"), "{out}");
+    assert!(
+        out.contains("2 stored, 0 already stored (duplicate), 6 rejected"),
+        "{out}"
+    );
     let rejects = std::fs::read_to_string(dir.join("rej.csv")).unwrap();
     // header + 6 rejections
     assert_eq!(rejects.lines().count(), 7, "{rejects}");
@@ -117,9 +120,16 @@ fn duplicate_content_is_refused_unless_forced() {
         "{out}"
     );
     assert_eq!(n_measurements(&dir), 2);
+    // Forced, the file is read again, but its rows are the stored ones (issue 15): counted as
+    // duplicates, nothing stored twice.
     let o = run(&dir, &["import", "b.csv", "--force"]);
     assert!(o.status.success(), "{}", text(&o));
-    assert_eq!(n_measurements(&dir), 4);
+    assert!(
+        text(&o).contains("0 stored, 2 already stored (duplicate)"),
+        "{}",
+        text(&o)
+    );
+    assert_eq!(n_measurements(&dir), 2);
 }
 
 #[test]
@@ -215,7 +225,10 @@ fn dst_edge_cases_end_to_end() {
     let o = run(&dir, &["import", "dst.csv"]);
     let out = text(&o);
     assert!(o.status.success(), "{out}");
-    assert!(out.contains("4 accepted, 2 rejected"), "{out}");
+    assert!(
+        out.contains("4 stored, 0 already stored (duplicate), 2 rejected"),
+        "{out}"
+    );
     let frame = store(&dir)
         .load_period(
             chrono::DateTime::from_timestamp(0, 0).unwrap(),
