@@ -558,3 +558,51 @@ fn issue_13_every_null_in_check_json_has_a_reason() {
         );
     }
 }
+
+/// Issue 15, late data: an export that arrives after its day was checked makes that day stale,
+/// and the next `schedule due` checks it again (a new run version); days it does not touch are
+/// not re-run, and a pass after that has nothing to do.
+#[test]
+fn issue_15_late_data_is_checked_again() {
+    let dir = common::temp_dir("issue-15-late-data");
+    common::invented_plant(&dir, 3);
+    let now = "2026-12-01T12:00:00Z";
+    let out = common::samewise(&dir, &["schedule", "due", "--now", now]);
+    assert!(
+        common::output_text(&out).contains("3 period(s) run"),
+        "{}",
+        common::output_text(&out)
+    );
+    // A late export for production day 2026-11-29 (06:00 UTC to 06:00 UTC).
+    let mut late = String::from("timestamp,characteristic,value,machine,supplier\n");
+    for i in 0..30 {
+        late.push_str(&format!(
+            "2026-11-29T20:{:02}:30Z,bore,10.00{},M{},S1\n",
+            i,
+            i % 10,
+            1 + i % 3
+        ));
+    }
+    std::fs::write(dir.join("late.csv"), late).unwrap();
+    let out = common::samewise(&dir, &["import", "late.csv"]);
+    assert!(out.status.success(), "{}", common::output_text(&out));
+    let status = common::samewise_ok(&dir, &["status"]);
+    assert!(
+        status.contains("stale periods") && status.contains("day 2026-11-29 (daily)"),
+        "{status}"
+    );
+    let out = common::samewise(&dir, &["schedule", "due", "--now", now]);
+    let text = common::output_text(&out);
+    assert!(text.contains("1 period(s) run"), "{text}");
+    assert!(
+        text.contains("2026-11-29") && text.contains("version 2"),
+        "{text}"
+    );
+    let out = common::samewise(&dir, &["schedule", "due", "--now", now]);
+    assert!(
+        common::output_text(&out).contains("0 period(s) run"),
+        "{}",
+        common::output_text(&out)
+    );
+    assert!(common::samewise_ok(&dir, &["status"]).contains("stale periods: none"));
+}

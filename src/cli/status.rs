@@ -68,5 +68,18 @@ pub fn run(args: &StatusArgs) -> Result<ExitCode> {
     }
     println!("rejected rows: {}", status.n_rejected);
     println!("events: {}", status.n_events);
+    if status.stale_periods.is_empty() {
+        println!("stale periods: none");
+    } else {
+        let list: Vec<String> = status
+            .stale_periods
+            .iter()
+            .map(|(schedule, kind, label)| format!("{kind} {label} ({schedule})"))
+            .collect();
+        println!(
+            "stale periods (data arrived after their check; `samewise schedule due` checks them again): {}",
+            list.join(", ")
+        );
+    }
     Ok(ExitCode::from(super::EXIT_OK))
 }

@@ -590,6 +590,8 @@ impl Store {
             .filter_map(|c| c.origin.map(|o| (c.id, o)))
             .collect();
         let mut stored_rows = 0u64;
+        // The time range of what this import stores: a checked period it falls in is stale.
+        let (mut ts_min, mut ts_max) = (i64::MAX, i64::MIN);
         let mut duplicates = 0u64;
         let mut n_conflicts = 0u64;
         let mut rejected = 0u64;
@@ -728,6 +730,8 @@ impl Store {
                         insert_measurement.raw_bind_parameter(6, row.level_set)?;
                         insert_measurement.raw_execute()?;
                         stored_rows += 1;
+                        ts_min = ts_min.min(row.ts_ms);
+                        ts_max = ts_max.max(row.ts_ms);
                     }
                     n_conflicts += conflicts.len() as u64;
                     batch.rejections.append(&mut conflicts);
@@ -809,7 +813,7 @@ impl Store {
         let finished = options.started_at + chrono::Duration::from_std(elapsed).unwrap_or_default();
         tx.execute(
             "UPDATE imports SET sha256 = ?2, finished_ms = ?3, rows_read = ?4, accepted = ?5, rejected = ?6, \
-             duplicates = ?7 WHERE id = ?1",
+             duplicates = ?7, ts_min_ms = ?8, ts_max_ms = ?9 WHERE id = ?1",
             params![
                 import_id,
                 sha256,
@@ -817,7 +821,9 @@ impl Store {
                 (accepted + rejected) as i64,
                 accepted as i64,
                 rejected as i64,
-                duplicates as i64
+                duplicates as i64,
+                (stored_rows > 0).then_some(ts_min),
+                (stored_rows > 0).then_some(ts_max)
             ],
         )?;
         let commit_start = thread_cpu();

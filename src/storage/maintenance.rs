@@ -44,6 +44,9 @@ pub struct Status {
     pub n_rejected: u64,
     /// Events recorded.
     pub n_events: u64,
+    /// Checked periods that later data made stale (schedule or `by hand`, kind, label): the
+    /// scheduler checks them again on its next pass.
+    pub stale_periods: Vec<(String, String, String)>,
 }
 
 /// What `samewise db check` found.
@@ -119,7 +122,27 @@ impl Store {
             last_import,
             n_rejected: count(&self.conn, "SELECT count(*) FROM rejected_rows")?,
             n_events: count(&self.conn, "SELECT count(*) FROM events")?,
+            stale_periods: self.stale_periods()?,
         })
+    }
+
+    /// Periods whose latest complete run began before an import that stored measurements inside
+    /// them (the rule of `runs::completed_labels`, from the other side).
+    fn stale_periods(&self) -> Result<Vec<(String, String, String)>> {
+        let mut stmt = self.conn.prepare(
+            "SELECT COALESCE(g.schedule, 'by hand'), g.kind, g.label FROM (
+                 SELECT schedule, period_kind AS kind, period_label AS label,
+                        MAX(max_import_id) AS seen, MIN(period_start_ms) AS start_ms,
+                        MAX(period_end_ms) AS end_ms
+                 FROM run WHERE status = 'complete'
+                 GROUP BY schedule, period_kind, period_label) g
+             WHERE EXISTS (SELECT 1 FROM imports i
+                 WHERE i.id > g.seen AND i.accepted > i.duplicates
+                   AND i.ts_min_ms < g.end_ms AND i.ts_max_ms >= g.start_ms)
+             ORDER BY g.start_ms, g.kind",
+        )?;
+        let rows = stmt.query_map([], |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?)))?;
+        Ok(rows.collect::<rusqlite::Result<_>>()?)
     }
 
     /// SQLite's integrity check, the foreign-key check, and samewise's own consistency checks.

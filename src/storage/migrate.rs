@@ -35,6 +35,10 @@ pub const MIGRATIONS: &[Migration] = &[
         name: "0003_import_duplicates.sql",
         sql: include_str!("../../migrations/0003_import_duplicates.sql"),
     },
+    Migration {
+        name: "0004_stale_periods.sql",
+        sql: include_str!("../../migrations/0004_stale_periods.sql"),
+    },
 ];
 
 /// SQLite's `PRAGMA application_id` of a samewise database: "SMWS" in ASCII. Set when a database

@@ -192,8 +192,10 @@ pub fn begin_run(conn: &mut Connection, header: &RunHeader, started_ms: i64) -> 
     )?;
     tx.execute(
         "INSERT INTO run (period_kind, period_label, period_start_ms, period_end_ms, schedule,
-            version, config_hash, tool_version, fdr_method, fdr_level, started_ms, status)
-         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, 'running')",
+            version, config_hash, tool_version, fdr_method, fdr_level, started_ms, status,
+            max_import_id)
+         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, 'running',
+            (SELECT COALESCE(MAX(id), 0) FROM imports))",
         params![
             header.period_kind,
             header.period_label,
@@ -480,16 +482,26 @@ pub fn all_runs(conn: &Connection) -> Result<Vec<StoredRun>> {
     Ok(rows.collect::<rusqlite::Result<_>>()?)
 }
 
-/// Labels of the periods of `kind` that have a complete run of `schedule` (`None`: runs by
-/// hand).
+/// Labels of the periods of `period_kind` (and `schedule`) that are done: checked to the end,
+/// and not stale (no import stored measurements inside them after their latest complete run
+/// began).
 pub fn completed_labels(
     conn: &Connection,
     schedule: Option<&str>,
     period_kind: &str,
 ) -> Result<Vec<String>> {
+    // Done: a complete run exists, and no import that stored measurements inside the period
+    // came after the latest complete run began (else the period is stale and due again).
     let mut st = conn.prepare_cached(
-        "SELECT DISTINCT period_label FROM run WHERE period_kind = ?1 AND status = 'complete'
-         AND schedule IS ?2 ORDER BY period_label",
+        "SELECT g.label FROM (
+             SELECT period_label AS label, MAX(max_import_id) AS seen,
+                    MIN(period_start_ms) AS start_ms, MAX(period_end_ms) AS end_ms
+             FROM run WHERE period_kind = ?1 AND status = 'complete' AND schedule IS ?2
+             GROUP BY period_label) g
+         WHERE NOT EXISTS (SELECT 1 FROM imports i
+             WHERE i.id > g.seen AND i.accepted > i.duplicates
+               AND i.ts_min_ms < g.end_ms AND i.ts_max_ms >= g.start_ms)
+         ORDER BY g.label",
     )?;
     let rows = st.query_map(params![period_kind, schedule], |r| r.get(0))?;
     Ok(rows.collect::<rusqlite::Result<_>>()?)
