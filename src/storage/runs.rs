@@ -875,10 +875,13 @@ impl crate::storage::Store {
 mod tests {
     use super::*;
 
+    /// Every migration in order: the run history reads the import records too (stale
+    /// periods, migration 0004).
     fn conn() -> Connection {
         let c = Connection::open_in_memory().unwrap();
-        c.execute_batch(include_str!("../../migrations/0002_runs.sql"))
-            .unwrap();
+        for m in crate::storage::migrate::MIGRATIONS {
+            c.execute_batch(m.sql).unwrap();
+        }
         c
     }
 
