@@ -592,3 +592,27 @@ fn too_short_a_chart_is_refused_with_the_size_named() {
     )
     .is_ok());
 }
+
+/// Issue 16: with small shares the axis steps by 2.5 %, and each tick says its own value
+/// ("2.5%", "7.5%"), not a rounded one ("2%", "8%") that sits at another height.
+#[test]
+fn issue_16_share_ticks_say_their_own_value() {
+    let mut input = inputs::share("bore diameter", "machine", 30);
+    input.material_share = None;
+    for q in input.periods.iter_mut().filter(|q| q.share.is_some()) {
+        q.share = Some(0.03);
+        q.ci_low = Some(0.01);
+        q.ci_high = Some(0.08);
+    }
+    let chart = draw_share(&input, Format::Svg, Size::new(1280, 520)).unwrap();
+    let svg = parse_svg(&chart.bytes);
+    let p = &chart.layout.panels[0];
+    let ticks = y_ticks(&svg, p);
+    assert!(
+        ticks.iter().any(|(v, _)| (*v - 2.5).abs() < 1e-9),
+        "{ticks:?}"
+    );
+    for (v, y) in ticks {
+        assert!((p.y_px(v) - y).abs() <= 1.0, "tick {v} drawn at {y}");
+    }
+}

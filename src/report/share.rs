@@ -5,9 +5,9 @@
 use plotters::prelude::DrawingBackend;
 
 use super::draw::{
-    check_finite, draw_events, draw_ref_lines, flag_event_legend, frame, header_with_event_strip,
-    require_room, sizes, time_to_x, y_axis, Align, Canvas, DrawResult, Drawable, Marker, Palette,
-    RefLine, Swatch, TextOpts, TimeAxis, INK,
+    check_finite, draw_events, draw_ref_lines, flag_event_legend, format_number, frame,
+    header_with_event_strip, require_room, sizes, time_to_x, y_axis, Align, Canvas, DrawResult,
+    Drawable, Marker, Palette, RefLine, Swatch, TextOpts, TimeAxis, INK,
 };
 use super::trend::time_range;
 use super::{Layout, Panel, ShareInput, Size};
@@ -136,7 +136,13 @@ impl Drawable for Share<'_> {
                 .map(|p| (p.start, p.end, p.label.as_str(), p.state)),
         );
         axis.draw_background(c, &panel)?;
-        y_axis(c, &panel, &|v, _| format!("{v:.0}%"), true)?;
+        // As many decimals as the tick step needs (2.5 %, not "2%").
+        y_axis(
+            c,
+            &panel,
+            &|v, step| format!("{}%", format_number(v, step)),
+            true,
+        )?;
         if let Some(m) = s.material_share {
             draw_ref_lines(
                 c,
