@@ -6,7 +6,7 @@
 //! only when everything was written, so a failure leaves no half file and the old file intact.
 
 use std::fs::File;
-use std::io::{BufWriter, Write};
+use std::io::{BufWriter, Seek, SeekFrom, Write};
 use std::path::{Path, PathBuf};
 
 use crate::{Error, Result};
@@ -150,6 +150,36 @@ impl AtomicFile {
     /// The target path.
     pub fn path(&self) -> &Path {
         &self.target
+    }
+
+    /// How many bytes have been written so far (a point to go back to with
+    /// [`AtomicFile::truncate_to`]).
+    pub fn position(&mut self) -> Result<u64> {
+        let target = self.target.clone();
+        let w = self
+            .writer
+            .as_mut()
+            .expect("an uncommitted file has its writer");
+        w.flush().map_err(|e| Error::io(&target, e))?;
+        w.get_mut()
+            .stream_position()
+            .map_err(|e| Error::io(&target, e))
+    }
+
+    /// Drops everything written after `len` bytes (what [`AtomicFile::position`] returned), so
+    /// a part that turned out not to count (a file whose import failed) leaves no trace.
+    pub fn truncate_to(&mut self, len: u64) -> Result<()> {
+        let target = self.target.clone();
+        let w = self
+            .writer
+            .as_mut()
+            .expect("an uncommitted file has its writer");
+        w.flush().map_err(|e| Error::io(&target, e))?;
+        let file = w.get_mut();
+        file.set_len(len).map_err(|e| Error::io(&target, e))?;
+        file.seek(SeekFrom::Start(len))
+            .map(|_| ())
+            .map_err(|e| Error::io(&target, e))
     }
 
     /// Flushes, syncs and renames the temporary file over the target.

@@ -563,3 +563,137 @@ fn issue_15_overlapping_export_is_not_counted_twice() {
     let o = run(&dir, &["db", "check"]);
     assert!(o.status.success(), "{}", text(&o));
 }
+
+/// A wide file of 3,000 bad rows x 300 characteristic columns (issue 15): one rejection record
+/// per bad row, the database stays small, the counts are exact.
+#[test]
+fn issue_15_wide_bad_rows_are_one_record_each() {
+    let dir = temp_dir("issue-15-wide-bad");
+    let mut config = String::from(
+        "[plant]\nname = \"Invented wide plant\"\ntime_zone = \"UTC\"\ndatabase = \"plant.db\"\n\n[[factor]]\nname = \"machine\"\n",
+    );
+    let names: Vec<String> = (0..300).map(|i| format!("c{i:03}")).collect();
+    for n in &names {
+        config.push_str(&format!("\n[[characteristic]]\nname = \"{n}\"\n"));
+    }
+    std::fs::write(dir.join("plant.toml"), &config).unwrap();
+    assert!(run(&dir, &["init"]).status.success());
+    let mut csv = format!("timestamp,machine,{}\n", names.join(","));
+    let cells = vec!["1.25"; 300].join(",");
+    // Two good rows, then 3,000 rows whose timestamp is unreadable.
+    csv.push_str(&format!("2026-11-30T07:00:00Z,M1,{cells}\n"));
+    csv.push_str(&format!("2026-11-30T07:01:00Z,M2,{cells}\n"));
+    for i in 0..3000 {
+        csv.push_str(&format!("30.11.2026 25:{:02},M1,{cells}\n", i % 60));
+    }
+    std::fs::write(dir.join("wide.csv"), &csv).unwrap();
+    let o = run(&dir, &["import", "wide.csv", "--rejects", "rej.csv"]);
+    let t = text(&o);
+    assert!(o.status.success(), "{t}");
+    assert!(
+        t.contains("3002 rows read, 900600 measurements: 600 stored, 0 already stored (duplicate), 900000 rejected"),
+        "{t}"
+    );
+    assert!(t.contains("(the whole row: 300 measurements)"), "{t}");
+    let rejects = std::fs::read_to_string(dir.join("rej.csv")).unwrap();
+    assert_eq!(rejects.lines().count(), 1 + 3000, "one line per bad row");
+    assert!(rejects.lines().nth(1).unwrap().ends_with(",300"));
+    let s = store(&dir);
+    assert_eq!(s.status().unwrap().n_rejected, 3000, "records");
+    assert!(s.integrity_check().unwrap().is_ok());
+    drop(s);
+    // 3,000 records of at most 1,000 characters each: a few MB, not a gigabyte.
+    let size = std::fs::metadata(dir.join("plant.db")).unwrap().len()
+        + std::fs::metadata(dir.join("plant.db-wal")).map_or(0, |m| m.len());
+    assert!(size < 16 << 20, "database of {size} bytes");
+}
+
+/// More bad rows than the database keeps per import: the counts stay exact, the records past
+/// the bound are counted, and `--rejects` holds every one (issue 15).
+#[test]
+fn issue_15_rejection_records_are_bounded_and_counted() {
+    let dir = setup("issue-15-reject-cap");
+    let mut csv = String::from("timestamp,characteristic,value,machine\n");
+    csv.push_str("2026-11-30T07:00:00Z,bore_diameter,42.001,M1\n");
+    let bad = samewise::storage::MAX_KEPT_REJECTIONS + 2_500;
+    for i in 0..bad {
+        csv.push_str(&format!("2026-11-30T07:00:00Z,bore_diameter,x{i},M1\n"));
+    }
+    std::fs::write(dir.join("bad.csv"), &csv).unwrap();
+    let o = run(&dir, &["import", "bad.csv", "--rejects", "rej.csv"]);
+    let t = text(&o);
+    assert!(o.status.success(), "{t}");
+    assert!(
+        t.contains(&format!(
+            "1 stored, 0 already stored (duplicate), {bad} rejected"
+        )),
+        "{t}"
+    );
+    assert!(
+        t.contains(
+            "the database keeps the first 10000 (the other 2500 rejected measurements are counted"
+        ),
+        "{t}"
+    );
+    let rejects = std::fs::read_to_string(dir.join("rej.csv")).unwrap();
+    assert_eq!(rejects.lines().count() as u64, 1 + bad);
+    assert!(
+        rejects.contains(&format!("\"x{}\"", bad - 1))
+            || rejects.contains(&format!("x{}", bad - 1))
+    );
+    let s = store(&dir);
+    assert_eq!(
+        s.status().unwrap().n_rejected,
+        samewise::storage::MAX_KEPT_REJECTIONS
+    );
+    // db check: the import's record (rejected minus not kept) agrees with the stored records.
+    assert!(
+        s.integrity_check().unwrap().is_ok(),
+        "{:?}",
+        s.integrity_check().unwrap()
+    );
+}
+
+/// An import that fails takes its lines back out of the --rejects file (issue 15).
+#[test]
+fn issue_15_failed_import_leaves_no_rejects_lines() {
+    let dir = setup("issue-15-reject-rollback");
+    std::fs::write(dir.join("a.csv"), MIXED).unwrap();
+    assert!(run(&dir, &["import", "a.csv"]).status.success());
+    // The same file again is a duplicate: refused; a second file with one bad row is stored.
+    std::fs::write(
+        dir.join("b.csv"),
+        "timestamp,characteristic,value,machine\n2026-12-01T07:00:00Z,bore_diameter,42.001,M1\n2026-12-01T07:01:00Z,bore_diameter,oops,M1\n",
+    )
+    .unwrap();
+    // Read from a pipe the duplicate is found only at the end, after its six rejections were
+    // written: they must be taken out again.
+    use std::io::Write as _;
+    let mut child = Command::new(bin())
+        .current_dir(&dir)
+        .args(["import", "-", "b.csv", "--rejects", "rej.csv"])
+        .stdin(std::process::Stdio::piped())
+        .stdout(std::process::Stdio::piped())
+        .stderr(std::process::Stdio::piped())
+        .spawn()
+        .unwrap();
+    child
+        .stdin
+        .take()
+        .unwrap()
+        .write_all(MIXED.as_bytes())
+        .unwrap();
+    let o = child.wait_with_output().unwrap();
+    assert!(!o.status.success());
+    assert!(text(&o).contains("already imported"), "{}", text(&o));
+    let rejects = std::fs::read_to_string(dir.join("rej.csv")).unwrap();
+    assert_eq!(
+        rejects.lines().count(),
+        2,
+        "header and b.csv's one rejection: {rejects}"
+    );
+    assert!(
+        rejects.lines().nth(1).unwrap().starts_with("b.csv,3,"),
+        "{rejects}"
+    );
+}

@@ -105,9 +105,20 @@ fn accepted(outcomes: &[RowOutcome]) -> Vec<&ingest::Measurement> {
         .collect()
 }
 
-fn assert_counts_add_up(counts: &Counts, outcomes: usize) {
+/// The measurements the outcomes stand for (a wide row rejected as a whole is one rejection).
+fn measurements(outcomes: &[RowOutcome]) -> usize {
+    outcomes
+        .iter()
+        .map(|o| match o {
+            RowOutcome::Accepted(_) => 1,
+            RowOutcome::Rejected(r) => r.measurements as usize,
+        })
+        .sum()
+}
+
+fn assert_counts_add_up(counts: &Counts, measurements: usize) {
     assert_eq!(counts.accepted + counts.rejected, counts.measurements_read);
-    assert_eq!(counts.measurements_read, outcomes as u64);
+    assert_eq!(counts.measurements_read, measurements as u64);
     assert_eq!(
         counts.measurements_read,
         counts.rows_read * counts.cells_per_row
@@ -132,7 +143,7 @@ fn long_file_with_derived_shift() {
     // (The exponent value is on "mass", which has no limits: on "bore", limits 9.9-10.1, it would
     // be rejected as implausible, see the plausible-range test below.)
     let (outcomes, counts, _) = read_all(text.as_bytes(), &config(), &ReadOptions::default());
-    assert_counts_add_up(&counts, outcomes.len());
+    assert_counts_add_up(&counts, measurements(&outcomes));
     assert_eq!(
         (counts.rows_read, counts.accepted, counts.rejected),
         (3, 3, 0)
@@ -164,18 +175,24 @@ fn wide_file_counts_measurements() {
                 2026-11-30 07:02:00,M1,S1,1,5,250.5\n\
                 not a time,M1,S1,10.03,250.6\n";
     let (outcomes, counts, _) = read_all(text.as_bytes(), &config(), &ReadOptions::default());
-    assert_counts_add_up(&counts, outcomes.len());
+    assert_counts_add_up(&counts, measurements(&outcomes));
     assert_eq!(counts.cells_per_row, 2);
     assert_eq!(counts.rows_read, 4);
     // Row 2: two accepted. Row 3: one accepted, empty mass cell rejected. Row 4: ragged (6
-    // fields), both rejected. Row 5: bad timestamp, both rejected.
+    // fields), both rejected in one record. Row 5: bad timestamp, both rejected in one record.
     assert_eq!((counts.accepted, counts.rejected), (3, 5));
     let r = rejections(&outcomes);
+    assert_eq!(r.len(), 3, "one record per bad cell or bad row: {r:?}");
     assert_eq!((r[0].line, r[0].column.as_deref()), (3, Some("mass")));
     assert!(r[0].reason.contains("empty"), "{}", r[0].reason);
+    assert_eq!(r[0].measurements, 1);
     assert!(r[1].reason.contains("row has 6 fields, the header has 5"));
-    assert_eq!(r[1].line, r[2].line);
-    assert_eq!((r[3].line, r[3].column.as_deref()), (5, Some("timestamp")));
+    assert_eq!(
+        (r[1].line, r[1].column.as_deref(), r[1].measurements),
+        (4, None, 2)
+    );
+    assert_eq!((r[2].line, r[2].column.as_deref()), (5, Some("timestamp")));
+    assert_eq!(r[2].measurements, 2);
     let m = accepted(&outcomes);
     assert_eq!(
         (m[0].characteristic.as_str(), m[1].characteristic.as_str()),
@@ -329,7 +346,7 @@ fn non_utf8_bytes_reject_the_cell_they_are_in() {
     bytes.extend_from_slice(b"2026-11-30 07:00:00,M\xe91,S1,bore,10\n");
     bytes.extend_from_slice(b"2026-11-30 07:00:00,M1,S1,bore,10\xb5\n");
     let (outcomes, counts, _) = read_all(&bytes, &config(), &ReadOptions::default());
-    assert_counts_add_up(&counts, outcomes.len());
+    assert_counts_add_up(&counts, measurements(&outcomes));
     let r = rejections(&outcomes);
     assert_eq!(r.len(), 2);
     assert_eq!(r[0].column.as_deref(), Some("machine"));
@@ -367,7 +384,7 @@ fn blank_lines_are_counted_and_rejected() {
                 \n   \n\
                 2026-11-30 07:00:01,M1,S1,bore,10\n\n";
     let (outcomes, counts, _) = read_all(text.as_bytes(), &config(), &ReadOptions::default());
-    assert_counts_add_up(&counts, outcomes.len());
+    assert_counts_add_up(&counts, measurements(&outcomes));
     assert_eq!(
         (
             counts.rows_read,
@@ -386,7 +403,12 @@ fn blank_lines_are_counted_and_rejected() {
     let text = "timestamp,machine,supplier,bore,mass\n\n";
     let (outcomes, counts, _) = read_all(text.as_bytes(), &config(), &ReadOptions::default());
     assert_eq!((counts.rows_read, counts.rejected), (1, 2));
-    assert_counts_add_up(&counts, outcomes.len());
+    assert_counts_add_up(&counts, measurements(&outcomes));
+    assert_eq!(
+        rejections(&outcomes).len(),
+        1,
+        "one record for the blank row"
+    );
 }
 
 #[test]
@@ -415,7 +437,7 @@ fn dst_local_times_in_berlin_are_rejected_not_guessed() {
                 2026-10-25T02:30:00+01:00,M1,S1,bore,10\n\
                 2026-10-25T00:30:00Z,M1,S1,bore,10\n";
     let (outcomes, counts, _) = read_all(text.as_bytes(), &config(), &ReadOptions::default());
-    assert_counts_add_up(&counts, outcomes.len());
+    assert_counts_add_up(&counts, measurements(&outcomes));
     let r = rejections(&outcomes);
     assert_eq!(r.len(), 2);
     assert_eq!((r[0].line, r[0].column.as_deref()), (2, Some("timestamp")));
@@ -495,7 +517,7 @@ fn huge_field_is_one_rejected_row_and_reading_goes_on() {
     text.push('\n');
     text.push_str("2026-11-30 07:00:02,M1,S1,bore,10\n");
     let (outcomes, counts, sha) = read_all(text.as_bytes(), &config(), &ReadOptions::default());
-    assert_counts_add_up(&counts, outcomes.len());
+    assert_counts_add_up(&counts, measurements(&outcomes));
     assert_eq!(
         (counts.rows_read, counts.accepted, counts.rejected),
         (3, 1, 2)
@@ -557,13 +579,16 @@ fn sample_plant_config_and_exports() {
         assert_eq!(stream.layout().name, expected_layout, "{name}");
         let mut outcomes = 0;
         for outcome in stream.by_ref() {
-            outcomes += 1;
             match outcome {
                 RowOutcome::Accepted(m) => {
+                    outcomes += 1;
                     assert_eq!(m.levels.len(), 5);
                     assert!(config.characteristic(&m.characteristic).is_some());
                 }
-                RowOutcome::Rejected(r) => rejected.push((name.clone(), r)),
+                RowOutcome::Rejected(r) => {
+                    outcomes += r.measurements as usize;
+                    rejected.push((name.clone(), r))
+                }
             }
         }
         let c = stream.counts();
@@ -578,42 +603,44 @@ fn sample_plant_config_and_exports() {
     // repeated hour; each must be rejected, and they stay a small share.
     // The generator (src/sample.rs, write_exports) plants these bad rows; each must be
     // rejected where it was planted, with the right column and reason.
-    let planted: [(&str, u64, &str, &str, usize); 7] = [
+    let planted: [(&str, u64, Option<&str>, &str, u64); 7] = [
         (
             "cmm-2026-09.csv",
             137,
-            "value",
+            Some("value"),
             "use '.' as the decimal separator",
             1,
         ),
-        ("cmm-2026-09.csv", 2203, "value", "NaN", 1),
+        ("cmm-2026-09.csv", 2203, Some("value"), "NaN", 1),
         (
             "line-2026-09.csv",
             502,
-            "Mass [g]",
+            None,
             "row has 9 fields, the header has 10",
             4,
         ),
-        ("cmm-2026-10.csv", 911, "value", "empty cell", 1),
+        ("cmm-2026-10.csv", 911, Some("value"), "empty cell", 1),
         (
             "cmm-2026-10.csv",
             4410,
-            "characteristic",
+            Some("characteristic"),
             "unknown characteristic \"bore_dia\"",
             1,
         ),
-        ("line-2026-10.csv", 1502, "Time", "31.09.2026", 4),
-        ("cmm-2026-11.csv", 1288, "value", "no units", 1),
+        ("line-2026-10.csv", 1502, Some("Time"), "31.09.2026", 4),
+        ("cmm-2026-11.csv", 1288, Some("value"), "no units", 1),
     ];
-    let mut n_planted = 0;
+    let mut n_planted = 0u64;
     for (file, line, column, reason, n) in planted {
         let found: Vec<&Rejection> = rejected
             .iter()
             .filter(|(name, r)| name == file && r.line == line)
             .map(|(_, r)| r)
             .collect();
-        assert_eq!(found.len(), n, "{file}:{line}");
-        assert_eq!(found[0].column.as_deref(), Some(column), "{file}:{line}");
+        // One record per bad row (a wide row's record stands for its n measurements).
+        assert_eq!(found.len(), 1, "{file}:{line}");
+        assert_eq!(found[0].measurements, n, "{file}:{line}");
+        assert_eq!(found[0].column.as_deref(), column, "{file}:{line}");
         assert!(
             found.iter().all(|r| r.reason.contains(reason)),
             "{file}:{line}: {}",
@@ -627,7 +654,8 @@ fn sample_plant_config_and_exports() {
         .filter(|(name, r)| name == "line-2026-11.csv" && r.line == 702)
         .map(|(_, r)| r)
         .collect();
-    assert_eq!(extra.len(), 4);
+    assert_eq!(extra.len(), 1);
+    assert_eq!(extra[0].measurements, 4);
     assert!(extra[0].reason.contains("row has 11 fields"));
     n_planted += 4;
     // Everything else: local times in the repeated hour of 25 October 2026 (IANA tz database:
@@ -639,8 +667,10 @@ fn sample_plant_config_and_exports() {
         .collect();
     assert!(!repeated.is_empty());
     assert!(repeated.iter().all(|r| r.raw.contains("25.10.2026 02:")));
-    assert_eq!(rejected.len(), n_planted + repeated.len());
-    assert_eq!(totals.rejected as usize, rejected.len());
+    let repeated_measurements: u64 = repeated.iter().map(|r| r.measurements).sum();
+    let rejected_measurements: u64 = rejected.iter().map(|(_, r)| r.measurements).sum();
+    assert_eq!(rejected_measurements, n_planted + repeated_measurements);
+    assert_eq!(totals.rejected, rejected_measurements);
 }
 
 fn physical_lines(bytes: &[u8]) -> u64 {
@@ -722,7 +752,7 @@ fn check_invariants(bytes: &[u8], config: &Config, options: &ReadOptions) {
     };
     let outcomes: Vec<RowOutcome> = stream.by_ref().collect();
     let counts = stream.counts();
-    assert_counts_add_up(&counts, outcomes.len());
+    assert_counts_add_up(&counts, measurements(&outcomes));
     let expected_rows = match header_end {
         None => 0,
         Some(_) => physical_lines(bytes) - 1,

@@ -38,8 +38,10 @@ pub struct ImportArgs {
     /// Accept characteristics that are not in the configuration (they are added).
     #[arg(long)]
     pub add_new: bool,
-    /// Write every rejected row to this CSV file (file, line, column, reason, raw); never the
-    /// database, its configuration or an input; written whole or not at all.
+    /// Write every rejected row to this CSV file (file, line, column, reason, raw, measurements:
+    /// how many measurements the row held); every one, also past the 10,000 records the
+    /// database keeps per import; never the database, its configuration or an input; written
+    /// whole or not at all.
     #[arg(long, value_name = "FILE.csv")]
     pub rejects: Option<PathBuf>,
     /// Print the CPU time of each import thread (for measuring the import, see docs/performance.md).
@@ -77,7 +79,8 @@ pub fn run(args: &ImportArgs) -> Result<ExitCode> {
     // The configuration is the truth for characteristics and factors: bring the database in step.
     store.sync_config(&config)?;
     if let Some(w) = rejects.as_mut() {
-        writeln!(w, "file,line,column,reason,raw").map_err(|e| Error::io(w.path(), e))?;
+        writeln!(w, "file,line,column,reason,raw,measurements")
+            .map_err(|e| Error::io(w.path(), e))?;
     }
     let mut failures = 0;
     let mut stored = Vec::new();
@@ -146,9 +149,32 @@ fn import_one(
     config: &crate::config::Config,
     args: &ImportArgs,
     file: &Path,
-    rejects: Option<&mut AtomicFile>,
+    mut rejects: Option<&mut AtomicFile>,
 ) -> Result<i64> {
     let (reader, name, is_regular) = open_input(file)?;
+    // Every rejection record goes to the --rejects file as it is read (the database keeps the
+    // first MAX_KEPT_REJECTIONS); a failed import takes its lines back out.
+    let rejects_start = match rejects.as_mut() {
+        Some(w) => Some(w.position()?),
+        None => None,
+    };
+    let shown_name = name.display().to_string();
+    let mut write_rejection = |r: &ingest::Rejection| -> Result<()> {
+        if let Some(w) = rejects.as_mut() {
+            writeln!(
+                w,
+                "{},{},{},{},{},{}",
+                csv_field(&shown_name),
+                r.line,
+                csv_field(r.column.as_deref().unwrap_or("")),
+                csv_field(&r.reason),
+                csv_field(&r.raw),
+                r.measurements
+            )
+            .map_err(|e| Error::io(w.path(), e))?;
+        }
+        Ok(())
+    };
     let stream = ingest::read_from(
         reader,
         &name,
@@ -160,14 +186,24 @@ fn import_one(
     )?;
     // A duplicate regular file is refused as soon as a thread of its own has hashed it (the
     // import checks again at its end, on the bytes it read: the only check for a pipe).
-    let report = store.import_checking_early(
+    let imported = store.import_checking_early(
         stream,
         &ImportOptions {
             force: args.force,
             started_at: chrono::Utc::now(),
         },
         is_regular.then_some(file),
-    )?;
+        Some(&mut write_rejection),
+    );
+    let report = match imported {
+        Ok(report) => report,
+        Err(e) => {
+            if let (Some(w), Some(start)) = (rejects.as_mut(), rejects_start) {
+                w.truncate_to(start)?;
+            }
+            return Err(e);
+        }
+    };
     let file = name.as_path();
     println!(
         "{}: import #{} (layout {}): {} rows read, {} measurements: {} stored, {} already stored (duplicate), {} rejected ({:.1} s)",
@@ -212,29 +248,26 @@ fn import_one(
                 .as_deref()
                 .map(|c| format!(" column \"{c}\""))
                 .unwrap_or_default();
-            println!("    line {}{column}: {}", r.line, r.reason);
+            let whole_row = if r.measurements > 1 {
+                format!(" (the whole row: {} measurements)", r.measurements)
+            } else {
+                String::new()
+            };
+            println!("    line {}{column}{whole_row}: {}", r.line, r.reason);
         }
         println!("  rejections by reason:");
         for (reason, n) in &report.reasons {
             println!("    {n:>8}  {reason}");
         }
     }
-    if let Some(w) = rejects {
-        let path = w.path().to_path_buf();
-        let rows = store.rejected_rows(report.import_id)?;
-        let name = file.display().to_string();
-        for r in rows {
-            writeln!(
-                w,
-                "{},{},{},{},{}",
-                csv_field(&name),
-                r.line,
-                csv_field(r.column.as_deref().unwrap_or("")),
-                csv_field(&r.reason),
-                csv_field(&r.raw)
-            )
-            .map_err(|e| Error::io(&path, e))?;
-        }
+    if report.rejected_not_kept > 0 {
+        println!(
+            "  {} rejection records in all; the database keeps the first {} (the other {} \
+             rejected measurements are counted; --rejects FILE writes every record)",
+            report.rejection_records,
+            crate::storage::MAX_KEPT_REJECTIONS,
+            report.rejected_not_kept
+        );
     }
     if report.accepted == 0 && report.duplicates > 0 {
         println!(

@@ -34,14 +34,16 @@
 //! - in a wide file each row holds one measurement per characteristic column and yields exactly
 //!   that many outcomes. A problem with one cell rejects that cell only; a problem with the whole
 //!   row (blank line, wrong number of fields, bad timestamp or factor cell, an over-long line)
-//!   rejects every measurement of the row: one [`Rejection`] per characteristic column, all
-//!   with the same line, reason and raw line; its `column` is the column at fault (the
-//!   timestamp or factor column) when there is one, otherwise the characteristic's column.
+//!   rejects every measurement of the row in one [`Rejection`] whose `measurements` is the
+//!   number of characteristic columns; its `column` is the column at fault (the timestamp or
+//!   factor column) when there is one, otherwise none (every characteristic column). One bad
+//!   row is one record, however wide the file.
 //!
 //! Timestamps outside the years 1900 to 2200 are rejected as clock or format errors.
 //!
 //! Hence always `accepted + rejected == measurements_read == rows_read x cells_per_row`
-//! ([`Counts`]), where `cells_per_row` is 1 for long files.
+//! ([`Counts`]), where `cells_per_row` is 1 for long files and `rejected` is the sum of the
+//! rejections' `measurements`.
 
 pub(crate) mod fxhash;
 pub mod timestamp;
@@ -96,6 +98,9 @@ pub struct Rejection {
     /// The offending text: the whole line (long files and row-level problems) or the cell (a
     /// wide file's cell), lossily decoded, at most [`MAX_RAW_CHARS`] characters.
     pub raw: String,
+    /// The measurements this rejection stands for: 1 for a long file's row or a wide file's
+    /// cell, every characteristic column of a wide row rejected as a whole.
+    pub measurements: u64,
 }
 
 /// What became of one measurement of the file.
@@ -563,8 +568,8 @@ impl<S: OutcomeSink> OutcomeSink for Counting<'_, S> {
     }
 
     fn rejected(&mut self, rejection: Rejection) {
-        self.counts.measurements_read += 1;
-        self.counts.rejected += 1;
+        self.counts.measurements_read += rejection.measurements;
+        self.counts.rejected += rejection.measurements;
         self.sink.rejected(rejection);
     }
 }
@@ -664,9 +669,9 @@ impl<R: Read> ImportStream<R> {
     /// ways of reading can be mixed without losing or repeating an outcome.
     pub fn read_into<S: OutcomeSink>(&mut self, sink: &mut S) -> bool {
         while let Some(outcome) = self.pending.pop_front() {
-            self.counts.measurements_read += 1;
             match outcome {
                 RowOutcome::Accepted(m) => {
+                    self.counts.measurements_read += 1;
                     self.counts.accepted += 1;
                     let levels: Vec<&str> = m.levels.iter().map(String::as_str).collect();
                     sink.accepted(MeasurementRef {
@@ -678,7 +683,8 @@ impl<R: Read> ImportStream<R> {
                     });
                 }
                 RowOutcome::Rejected(r) => {
-                    self.counts.rejected += 1;
+                    self.counts.measurements_read += r.measurements;
+                    self.counts.rejected += r.measurements;
                     sink.rejected(r);
                 }
             }
@@ -767,20 +773,18 @@ impl RowParser {
                 column: column.map(|c| self.plan.columns[c].clone()),
                 reason,
                 raw,
+                measurements: 1,
             }),
-            PlanKind::Wide { cells } => {
-                // One rejection per measurement of the row; the column is where the problem is
-                // when it is in one, otherwise the characteristic's column.
-                for (i, _, _) in cells {
-                    let col = column.unwrap_or(*i);
-                    sink.rejected(Rejection {
-                        line,
-                        column: Some(self.plan.columns[col].clone()),
-                        reason: reason.clone(),
-                        raw: raw.clone(),
-                    });
-                }
-            }
+            // One rejection for every measurement of the row; the column is where the problem
+            // is when it is in one, otherwise none (every characteristic column).
+            PlanKind::Wide { cells } if !cells.is_empty() => sink.rejected(Rejection {
+                line,
+                column: column.map(|c| self.plan.columns[c].clone()),
+                reason,
+                raw,
+                measurements: cells.len() as u64,
+            }),
+            PlanKind::Wide { .. } => {}
         }
     }
 
@@ -952,6 +956,7 @@ impl RowParser {
                         column: Some(this.plan.columns[col].clone()),
                         reason,
                         raw: raw_text(line),
+                        measurements: 1,
                     }),
                 }
             }
@@ -984,6 +989,7 @@ impl RowParser {
                             column: Some(this.plan.columns[*i].clone()),
                             reason,
                             raw: raw_text(cell(buf, ends, *i)),
+                            measurements: 1,
                         }),
                     }
                 }
@@ -998,11 +1004,17 @@ impl<R: Read> Iterator for ImportStream<R> {
     fn next(&mut self) -> Option<RowOutcome> {
         loop {
             if let Some(outcome) = self.pending.pop_front() {
-                self.counts.measurements_read += 1;
-                match &outcome {
-                    RowOutcome::Accepted(_) => self.counts.accepted += 1,
-                    RowOutcome::Rejected(_) => self.counts.rejected += 1,
-                }
+                let n = match &outcome {
+                    RowOutcome::Accepted(_) => {
+                        self.counts.accepted += 1;
+                        1
+                    }
+                    RowOutcome::Rejected(r) => {
+                        self.counts.rejected += r.measurements;
+                        r.measurements
+                    }
+                };
+                self.counts.measurements_read += n;
                 return Some(outcome);
             }
             if self.is_done {

@@ -39,6 +39,11 @@ const BATCH_REJECTIONS: usize = 1024;
 const IN_FLIGHT: usize = 2;
 /// How many rejections the report keeps in full.
 const FIRST_REJECTIONS: usize = 10;
+/// Rejection records stored per import at most (each keeps up to `ingest::MAX_RAW_CHARS` of its
+/// line, so a file of bad lines cannot grow the database without bound). The counts stay exact:
+/// the import row records the measurements of the records not kept, and `import --rejects FILE`
+/// receives every record as it is read.
+pub const MAX_KEPT_REJECTIONS: u64 = 10_000;
 
 /// Options of [`Store::import`].
 #[derive(Debug, Clone)]
@@ -95,8 +100,13 @@ pub struct ImportReport {
     /// Measurements identical to a stored one (same characteristic, time, levels and value: an
     /// overlapping export), counted and not stored again.
     pub duplicates: u64,
-    /// Measurements rejected (stored in `rejected_rows`), conflicts with stored ones included.
+    /// Measurements rejected (recorded in `rejected_rows`), conflicts with stored ones included.
     pub rejected: u64,
+    /// Rejection records (one per bad row, or per bad cell of a wide row).
+    pub rejection_records: u64,
+    /// Of `rejected`, the measurements whose records were not stored (past
+    /// [`MAX_KEPT_REJECTIONS`] records).
+    pub rejected_not_kept: u64,
     /// Rejection counts by reason (quoted values folded), most frequent first.
     pub reasons: Vec<(String, u64)>,
     /// The first rejections, in file order.
@@ -470,7 +480,7 @@ impl Store {
     /// The rejected rows stored for one import, in file order.
     pub fn rejected_rows(&self, import_id: i64) -> Result<Vec<Rejection>> {
         let mut stmt = self.conn.prepare_cached(
-            "SELECT line, column_name, reason, raw FROM rejected_rows WHERE import_id = ?1 ORDER BY line, id",
+            "SELECT line, column_name, reason, raw, measurements FROM rejected_rows WHERE import_id = ?1 ORDER BY line, id",
         )?;
         let rows = stmt.query_map([import_id], |r| {
             Ok(Rejection {
@@ -478,6 +488,7 @@ impl Store {
                 column: r.get(1)?,
                 reason: r.get(2)?,
                 raw: r.get(3)?,
+                measurements: r.get::<_, i64>(4)? as u64,
             })
         })?;
         Ok(rows.collect::<rusqlite::Result<_>>()?)
@@ -498,7 +509,7 @@ impl Store {
         stream: ImportStream<R>,
         options: &ImportOptions,
     ) -> Result<ImportReport> {
-        self.import_checking_early(stream, options, None)
+        self.import_checking_early(stream, options, None, None)
     }
 
     /// [`Store::import`], and unless `options.force` is set, `file` (the file the stream reads)
@@ -509,15 +520,20 @@ impl Store {
     ///
     /// This replaces hashing the file before the import on the writing thread, which bounds the
     /// import's speed (docs/performance.md, "Import speed").
+    ///
+    /// `on_rejection` receives every rejection record in file order as it is written (the
+    /// database keeps the first [`MAX_KEPT_REJECTIONS`]); an error from it ends the import with
+    /// nothing written.
     pub fn import_checking_early<R: Read + Send>(
         &mut self,
         stream: ImportStream<R>,
         options: &ImportOptions,
         file: Option<&Path>,
+        on_rejection: Option<&mut dyn FnMut(&Rejection) -> Result<()>>,
     ) -> Result<ImportReport> {
         self.conn.pragma_update(None, "foreign_keys", "OFF")?;
         let early_file = if options.force { None } else { file };
-        let result = self.import_in_transaction(stream, options, early_file);
+        let result = self.import_in_transaction(stream, options, early_file, on_rejection);
         // Outside any transaction again (committed or rolled back), so the pragma takes effect.
         let restored = self.conn.pragma_update(None, "foreign_keys", "ON");
         let report = result?;
@@ -530,6 +546,7 @@ impl Store {
         stream: ImportStream<R>,
         options: &ImportOptions,
         early_file: Option<&Path>,
+        mut on_rejection: Option<&mut dyn FnMut(&Rejection) -> Result<()>>,
     ) -> Result<ImportReport> {
         let clock = Instant::now();
         let writer_start = thread_cpu();
@@ -595,6 +612,8 @@ impl Store {
         let mut duplicates = 0u64;
         let mut n_conflicts = 0u64;
         let mut rejected = 0u64;
+        let mut records = 0u64;
+        let mut not_kept = 0u64;
         let mut reasons: HashMap<String, u64> = HashMap::new();
         let mut first_rejections = Vec::new();
 
@@ -644,7 +663,8 @@ impl Store {
                 let mut latest_stored: HashMap<i64, Option<i64>> = HashMap::new();
                 let mut conflicts: Vec<Rejection> = Vec::new();
                 let mut insert_rejection = tx.prepare_cached(
-                    "INSERT INTO rejected_rows (import_id, line, column_name, reason, raw) VALUES (?1, ?2, ?3, ?4, ?5)",
+                    "INSERT INTO rejected_rows (import_id, line, column_name, reason, raw, measurements) \
+                     VALUES (?1, ?2, ?3, ?4, ?5, ?6)",
                 )?;
                 for mut batch in receiver.iter() {
                     if early.as_ref().is_some_and(|h| h.is_finished()) {
@@ -718,6 +738,7 @@ impl Store {
                                             units(row.value)
                                         ),
                                         raw: String::new(),
+                                        measurements: 1,
                                     });
                                 }
                                 continue;
@@ -736,15 +757,24 @@ impl Store {
                     n_conflicts += conflicts.len() as u64;
                     batch.rejections.append(&mut conflicts);
                     for r in batch.rejections {
-                        insert_rejection.execute(params![
-                            import_id,
-                            r.line as i64,
-                            r.column,
-                            r.reason,
-                            r.raw
-                        ])?;
-                        *reasons.entry(reason_kind(&r.reason)).or_insert(0) += 1;
-                        rejected += 1;
+                        if let Some(f) = on_rejection.as_mut() {
+                            f(&r)?;
+                        }
+                        if records < MAX_KEPT_REJECTIONS {
+                            insert_rejection.execute(params![
+                                import_id,
+                                r.line as i64,
+                                r.column,
+                                r.reason,
+                                r.raw,
+                                r.measurements as i64
+                            ])?;
+                        } else {
+                            not_kept += r.measurements;
+                        }
+                        records += 1;
+                        *reasons.entry(reason_kind(&r.reason)).or_insert(0) += r.measurements;
+                        rejected += r.measurements;
                         if first_rejections.len() < FIRST_REJECTIONS {
                             first_rejections.push(r);
                         }
@@ -813,7 +843,7 @@ impl Store {
         let finished = options.started_at + chrono::Duration::from_std(elapsed).unwrap_or_default();
         tx.execute(
             "UPDATE imports SET sha256 = ?2, finished_ms = ?3, rows_read = ?4, accepted = ?5, rejected = ?6, \
-             duplicates = ?7, ts_min_ms = ?8, ts_max_ms = ?9 WHERE id = ?1",
+             duplicates = ?7, ts_min_ms = ?8, ts_max_ms = ?9, rejected_not_kept = ?10 WHERE id = ?1",
             params![
                 import_id,
                 sha256,
@@ -823,7 +853,8 @@ impl Store {
                 rejected as i64,
                 duplicates as i64,
                 (stored_rows > 0).then_some(ts_min),
-                (stored_rows > 0).then_some(ts_max)
+                (stored_rows > 0).then_some(ts_max),
+                not_kept as i64
             ],
         )?;
         let commit_start = thread_cpu();
@@ -841,6 +872,8 @@ impl Store {
             accepted: stored_rows,
             duplicates,
             rejected,
+            rejection_records: records,
+            rejected_not_kept: not_kept,
             reasons,
             first_rejections,
             new_characteristics,

@@ -167,9 +167,13 @@ impl Store {
             .collect::<rusqlite::Result<_>>()?;
         let mut problems = Vec::new();
         let mut stmt = self.conn.prepare(
-            "SELECT i.id, i.file_name, i.accepted - i.duplicates, i.rejected, \
+            "SELECT i.id, i.file_name, \
+               CASE WHEN EXISTS (SELECT 1 FROM imports u WHERE u.undoes = i.id) THEN 0 \
+                    ELSE i.accepted - i.duplicates END, \
+               CASE WHEN EXISTS (SELECT 1 FROM imports u WHERE u.undoes = i.id) THEN 0 \
+                    ELSE i.rejected - i.rejected_not_kept END, \
                (SELECT count(*) FROM measurements m WHERE m.import_id = i.id), \
-               (SELECT count(*) FROM rejected_rows r WHERE r.import_id = i.id) \
+               (SELECT COALESCE(SUM(r.measurements), 0) FROM rejected_rows r WHERE r.import_id = i.id) \
              FROM imports i ORDER BY i.id",
         )?;
         let rows = stmt.query_map([], |r| {

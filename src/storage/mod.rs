@@ -25,7 +25,7 @@ mod query;
 pub mod runs;
 
 pub use events::{Event, NewEvent};
-pub use import::{ImportCpu, ImportOptions, ImportReport, PriorImport};
+pub use import::{ImportCpu, ImportOptions, ImportReport, PriorImport, MAX_KEPT_REJECTIONS};
 pub use maintenance::{CharacteristicStatus, IntegrityReport, Status};
 pub use master::{StoredCharacteristic, StoredFactor, SyncReport};
 pub(crate) use query::closest;
