@@ -45,6 +45,10 @@ const FIRST_REJECTIONS: usize = 10;
 /// receives every record as it is read.
 pub const MAX_KEPT_REJECTIONS: u64 = 10_000;
 
+/// Receives every rejection record of an import as it is written (see
+/// [`Store::import_checking_early`]).
+pub type RejectionSink<'a> = &'a mut dyn FnMut(&Rejection) -> Result<()>;
+
 /// Options of [`Store::import`].
 #[derive(Debug, Clone)]
 pub struct ImportOptions {
@@ -529,7 +533,7 @@ impl Store {
         stream: ImportStream<R>,
         options: &ImportOptions,
         file: Option<&Path>,
-        on_rejection: Option<&mut dyn FnMut(&Rejection) -> Result<()>>,
+        on_rejection: Option<RejectionSink<'_>>,
     ) -> Result<ImportReport> {
         self.conn.pragma_update(None, "foreign_keys", "OFF")?;
         let early_file = if options.force { None } else { file };
@@ -546,7 +550,7 @@ impl Store {
         stream: ImportStream<R>,
         options: &ImportOptions,
         early_file: Option<&Path>,
-        mut on_rejection: Option<&mut dyn FnMut(&Rejection) -> Result<()>>,
+        mut on_rejection: Option<RejectionSink<'_>>,
     ) -> Result<ImportReport> {
         let clock = Instant::now();
         let writer_start = thread_cpu();
