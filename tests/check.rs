@@ -605,4 +605,63 @@ fn issue_15_late_data_is_checked_again() {
         common::output_text(&out)
     );
     assert!(common::samewise_ok(&dir, &["status"]).contains("stale periods: none"));
+    // The history shows the newest check and marks the period revised.
+    let history = common::samewise_ok(&dir, &["history", "bore", "--by", "machine"]);
+    assert!(history.contains("2026-11-29 (revised)"), "{history}");
+    assert!(!history.contains("2026-11-30 (revised)"), "{history}");
+
+    // Undoing the late import (issue 15): its measurements go, the undo is listed, the day is
+    // stale again and checked again with the measurements it had before.
+    let list = common::samewise_ok(&dir, &["import", "list", "--json"]);
+    let imports: serde_json::Value = serde_json::from_str(&list).unwrap();
+    let late_id = imports
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|i| i["file_name"] == "late.csv")
+        .unwrap()["id"]
+        .as_i64()
+        .unwrap();
+    let before = common::samewise_ok(
+        &dir,
+        &["check", "--day", "2026-11-29", "--stored", "--json"],
+    );
+    let before: serde_json::Value = serde_json::from_str(&before).unwrap();
+    let n_with_late = before["tests"][0]["n_obs"].as_i64().unwrap();
+    let undo = common::samewise_ok(&dir, &["import", "undo", &late_id.to_string()]);
+    assert!(
+        undo.contains(&format!(
+            "undid import #{late_id} (late.csv): removed 30 measurements"
+        )),
+        "{undo}"
+    );
+    assert!(undo.contains("day 2026-11-29 (daily)"), "{undo}");
+    let list = common::samewise_ok(&dir, &["import", "list"]);
+    assert!(
+        list.contains(&format!("undone by #{}", late_id + 1)),
+        "{list}"
+    );
+    assert!(list.contains(&format!("undo of #{late_id}")), "{list}");
+    let out = common::samewise(&dir, &["schedule", "due", "--now", now]);
+    let text = common::output_text(&out);
+    assert!(text.contains("1 period(s) run"), "{text}");
+    assert!(text.contains("version 3"), "{text}");
+    let after = common::samewise_ok(
+        &dir,
+        &["check", "--day", "2026-11-29", "--stored", "--json"],
+    );
+    let after: serde_json::Value = serde_json::from_str(&after).unwrap();
+    assert_eq!(
+        after["tests"][0]["n_obs"].as_i64().unwrap(),
+        n_with_late - 30
+    );
+    // Undone twice, or an undo undone: refused with the reason.
+    let again = common::samewise(&dir, &["import", "undo", &late_id.to_string()]);
+    assert!(!again.status.success());
+    assert!(common::output_text(&again).contains("was undone already"));
+    // The undone file imports again without --force.
+    let out = common::samewise(&dir, &["import", "late.csv"]);
+    assert!(out.status.success(), "{}", common::output_text(&out));
+    let out = common::samewise(&dir, &["db", "check"]);
+    assert!(out.status.success(), "{}", common::output_text(&out));
 }

@@ -41,6 +41,9 @@ pub struct LoadedRun {
     pub run: StoredRun,
     /// Its tests, groups and pairs.
     pub content: RunContent,
+    /// The period was checked more than once to the end (late or undone data): this is its
+    /// newest check.
+    pub revised: bool,
 }
 
 impl LoadedRun {
@@ -81,7 +84,13 @@ pub fn load_runs(
     .into_iter()
     .map(|run| {
         let content = runs::run_content(conn, run.run_id)?;
-        Ok(LoadedRun { run, content })
+        let revised =
+            runs::complete_versions(conn, &run.header.period_kind, &run.header.period_label)? > 1;
+        Ok(LoadedRun {
+            run,
+            content,
+            revised,
+        })
     })
     .collect()
 }
@@ -579,7 +588,11 @@ fn flagged_item(c: &CharacteristicConfig, r: &LoadedRun, t: &TestRow) -> Flagged
         characteristic: t.characteristic.clone(),
         factor: t.factor.clone(),
         unit: c.unit.clone(),
-        period_label: r.run.header.period_label.clone(),
+        period_label: if r.revised {
+            format!("{} (revised)", r.run.header.period_label)
+        } else {
+            r.run.header.period_label.clone()
+        },
         state: flag_state(&t.state),
         test: leading_name(t),
         p_value: t.leading_p.unwrap_or(f64::NAN),

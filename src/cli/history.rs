@@ -76,7 +76,11 @@ pub fn run(args: &HistoryArgs) -> Result<ExitCode> {
             writeln!(
                 out,
                 "{:<24} {:<8} {:>9} {:>9} {:>9} {:>8}  {:<22} {}",
-                p.run.header.period_label,
+                if p.complete_versions > 1 {
+                    format!("{} (revised)", p.run.header.period_label)
+                } else {
+                    p.run.header.period_label.clone()
+                },
                 leading(t),
                 cell(t.leading_statistic),
                 super::format::p_cell(t.leading_p),
@@ -87,6 +91,12 @@ pub fn run(args: &HistoryArgs) -> Result<ExitCode> {
             )?;
         }
         writeln!(out)?;
+        if points.iter().any(|p| p.complete_versions > 1) {
+            writeln!(
+                out,
+                "(revised): the period was checked again after data arrived or was undone; its newest check is shown"
+            )?;
+        }
         writeln!(out, "{}", crate::CAUTION)
     };
     if let Err(e) = body() {

@@ -10,7 +10,7 @@ use std::io::{BufWriter, Write};
 use std::path::{Path, PathBuf};
 use std::process::ExitCode;
 
-use clap::Args;
+use clap::{Args, Subcommand};
 
 use crate::ingest::{self, ReadOptions};
 use crate::output::{refuse_protected, AtomicFile, Protected};
@@ -21,13 +21,18 @@ use super::common::load_config;
 
 /// Arguments of `samewise import`.
 #[derive(Debug, Args)]
+#[command(args_conflicts_with_subcommands = true, subcommand_negates_reqs = true)]
 pub struct ImportArgs {
+    /// `list` or `undo N` instead of importing files (a file named `list` or `undo` is given
+    /// as `./list`).
+    #[command(subcommand)]
+    pub action: Option<ImportAction>,
     /// CSV files to import (each one is one transaction); `-` reads standard input, and pipes,
     /// FIFOs and `<(zcat export.csv.gz)` work too (each input is read once).
     #[arg(required = true, value_name = "FILE")]
     pub files: Vec<PathBuf>,
     /// The plant configuration (default: $SAMEWISE_CONFIG, then ./plant.toml).
-    #[arg(long, value_name = "FILE")]
+    #[arg(long, value_name = "FILE", global = true)]
     pub config: Option<PathBuf>,
     /// Layout name from the configuration (default: detected from the header).
     #[arg(long, value_name = "NAME")]
@@ -49,6 +54,27 @@ pub struct ImportArgs {
     pub cpu_times: bool,
 }
 
+/// `samewise import list` and `samewise import undo N`.
+#[derive(Debug, Subcommand)]
+pub enum ImportAction {
+    /// List every import: when, which file, what it stored, rejected and found stored already,
+    /// the time range of its measurements, and undos.
+    List {
+        /// Print JSON (an array of imports; times RFC 3339 in the plant's zone).
+        #[arg(long)]
+        json: bool,
+    },
+    /// Remove import N's measurements and rejected rows (one transaction); the import stays in
+    /// the list marked undone, the undo is recorded, every checked period it touched becomes
+    /// stale (`samewise schedule due` checks it again), and the file can be imported again
+    /// without --force.
+    Undo {
+        /// The import id (`samewise import list`).
+        #[arg(value_name = "N")]
+        id: i64,
+    },
+}
+
 fn csv_field(text: &str) -> String {
     if text.contains([',', '"', '\n', '\r']) {
         format!("\"{}\"", text.replace('"', "\"\""))
@@ -64,6 +90,11 @@ fn csv_field(text: &str) -> String {
 /// does not count as done, so the corrected file imports without `--force`).
 pub fn run(args: &ImportArgs) -> Result<ExitCode> {
     let config = load_config(args.config.as_deref())?;
+    match &args.action {
+        Some(ImportAction::List { json }) => return list(&config, *json),
+        Some(ImportAction::Undo { id }) => return undo(&config, *id),
+        None => {}
+    }
     let mut rejects = match &args.rejects {
         Some(path) => {
             let mut protected = Protected::plant(&config.plant.database, &config.path);
@@ -123,6 +154,147 @@ pub fn run(args: &ImportArgs) -> Result<ExitCode> {
             "{failures} of {} files were not imported (see above)",
             args.files.len()
         )));
+    }
+    Ok(ExitCode::from(super::EXIT_OK))
+}
+
+/// `samewise import list`.
+fn list(config: &crate::config::Config, json: bool) -> Result<ExitCode> {
+    let store = super::common::open_store(config)?;
+    let records = store.import_records()?;
+    let tz = config.plant.time_zone;
+    let local = |t: chrono::DateTime<chrono::Utc>| t.with_timezone(&tz);
+    if json {
+        let rows: Vec<serde_json::Value> = records
+            .iter()
+            .map(|r| {
+                let mut v = serde_json::json!({
+                    "id": r.id,
+                    "file_name": r.file_name,
+                    "path": r.path,
+                    "sha256": r.sha256,
+                    "layout": r.layout,
+                    "started_at": local(r.started_at).to_rfc3339(),
+                    "finished_at": local(r.finished_at).to_rfc3339(),
+                    "measurements_read": r.measurements_read,
+                    "stored": r.stored,
+                    "duplicates": r.duplicates,
+                    "rejected": r.rejected,
+                    "rejected_not_kept": r.rejected_not_kept,
+                    "forced": r.forced,
+                    "first_measurement": r.first_measurement.map(|t| local(t).to_rfc3339()),
+                    "last_measurement": r.last_measurement.map(|t| local(t).to_rfc3339()),
+                    "undoes": r.undoes,
+                    "undone_by": r.undone_by,
+                });
+                let map = v.as_object_mut().expect("an object");
+                if r.first_measurement.is_none() {
+                    let reason = if r.undoes.is_some() {
+                        "an undo stores nothing; see the undone import"
+                    } else {
+                        "the import stored no measurement"
+                    };
+                    map.insert("first_measurement_reason".into(), reason.into());
+                    map.insert("last_measurement_reason".into(), reason.into());
+                }
+                if r.undoes.is_none() {
+                    map.insert("undoes_reason".into(), "an import, not an undo".into());
+                }
+                if r.undone_by.is_none() {
+                    map.insert("undone_by_reason".into(), "not undone".into());
+                }
+                v
+            })
+            .collect();
+        println!(
+            "{}",
+            serde_json::to_string_pretty(&rows).unwrap_or_default()
+        );
+        return Ok(ExitCode::from(super::EXIT_OK));
+    }
+    if records.is_empty() {
+        println!("no imports yet (`samewise import FILE`)");
+        return Ok(ExitCode::from(super::EXIT_OK));
+    }
+    println!(
+        "{:>5}  {:<16}  {:>9}  {:>9}  {:>9}  {:>9}  {:<33}  file",
+        "#", "started", "read", "stored", "duplicate", "rejected", "measurements from - to"
+    );
+    for r in &records {
+        let range = match (r.first_measurement, r.last_measurement) {
+            (Some(a), Some(b)) => format!(
+                "{} - {}",
+                local(a).format("%Y-%m-%d %H:%M"),
+                local(b).format("%Y-%m-%d %H:%M")
+            ),
+            _ => "-".to_string(),
+        };
+        let mut note = Vec::new();
+        if let Some(u) = r.undoes {
+            note.push(format!("undo of #{u}"));
+        }
+        if let Some(by) = r.undone_by {
+            note.push(format!("undone by #{by}"));
+        }
+        if r.forced {
+            note.push("forced".to_string());
+        }
+        if r.rejected_not_kept > 0 {
+            note.push(format!("{} rejections not kept", r.rejected_not_kept));
+        }
+        let note = if note.is_empty() {
+            String::new()
+        } else {
+            format!("  ({})", note.join(", "))
+        };
+        if r.undoes.is_some() {
+            println!(
+                "{:>5}  {:<16}  {:>9}  {:>9}  {:>9}  {:>9}  {:<33}  {}{note}",
+                r.id,
+                local(r.started_at).format("%Y-%m-%d %H:%M"),
+                "-",
+                "-",
+                "-",
+                "-",
+                range,
+                r.file_name
+            );
+        } else {
+            println!(
+                "{:>5}  {:<16}  {:>9}  {:>9}  {:>9}  {:>9}  {:<33}  {}{note}",
+                r.id,
+                local(r.started_at).format("%Y-%m-%d %H:%M"),
+                r.measurements_read,
+                r.stored,
+                r.duplicates,
+                r.rejected,
+                range,
+                r.file_name
+            );
+        }
+    }
+    println!("times in the plant's zone ({tz})");
+    Ok(ExitCode::from(super::EXIT_OK))
+}
+
+/// `samewise import undo N`.
+fn undo(config: &crate::config::Config, id: i64) -> Result<ExitCode> {
+    let mut store = super::common::open_store(config)?;
+    let report = store.undo_import(id, chrono::Utc::now())?;
+    println!(
+        "undid import #{} ({}): removed {} measurements and {} rejection records; recorded as #{}",
+        report.import_id,
+        report.file_name,
+        report.measurements_removed,
+        report.rejections_removed,
+        report.undo_id
+    );
+    let stale = store.stale_periods()?;
+    if !stale.is_empty() {
+        println!(
+            "checked periods now stale (`samewise schedule due` checks them again): {}",
+            super::status::stale_summary(&stale)
+        );
     }
     Ok(ExitCode::from(super::EXIT_OK))
 }

@@ -103,7 +103,7 @@ pub enum Command {
     Init(init::InitArgs),
     /// Import CSV exports; each file goes in completely or not at all.
     #[command(
-        after_help = "Exit status: 0 every file stored measurements; 1 a file could not be read, was already imported (without --force), or stored nothing (every row rejected, or no data rows: such an import keeps its rejections but does not count as imported, so the corrected file needs no --force); the other files are still imported; 2 the command line could not be parsed. A closed stdout does not change the status; with several files, stderr then names the files stored."
+        after_help = "Exit status: 0 every file stored measurements; 1 a file could not be read, was already imported (without --force), or stored nothing (every row rejected, or no data rows: such an import keeps its rejections but does not count as imported, so the corrected file needs no --force); the other files are still imported; 2 the command line could not be parsed. A closed stdout does not change the status; with several files, stderr then names the files stored. `import list`: 0 listed, 1 an error. `import undo N`: 0 undone; 1 nothing changed (no such import, undone already, an undo, or an error)."
     )]
     Import(import::ImportArgs),
     /// Show what the database holds.

@@ -71,15 +71,53 @@ pub fn run(args: &StatusArgs) -> Result<ExitCode> {
     if status.stale_periods.is_empty() {
         println!("stale periods: none");
     } else {
-        let list: Vec<String> = status
-            .stale_periods
-            .iter()
-            .map(|(schedule, kind, label)| format!("{kind} {label} ({schedule})"))
-            .collect();
         println!(
-            "stale periods (data arrived after their check; `samewise schedule due` checks them again): {}",
-            list.join(", ")
+            "stale periods (data arrived or was undone after their check; `samewise schedule due` checks them again): {}",
+            stale_summary(&status.stale_periods)
         );
     }
     Ok(ExitCode::from(super::EXIT_OK))
+}
+
+/// Stale periods (schedule, kind, label; in time order) in a line: the periods one by one when
+/// there are few, else per schedule and kind the count with the first and last label.
+pub fn stale_summary(stale: &[(String, String, String)]) -> String {
+    const LIST_UP_TO: usize = 8;
+    if stale.len() <= LIST_UP_TO {
+        let list: Vec<String> = stale
+            .iter()
+            .map(|(schedule, kind, label)| format!("{kind} {label} ({schedule})"))
+            .collect();
+        return list.join(", ");
+    }
+    /// Per (schedule, kind): how many, the first and the last label.
+    type Group<'a> = ((&'a str, &'a str), (usize, &'a str, &'a str));
+    // In order of first appearance.
+    let mut groups: Vec<Group<'_>> = Vec::new();
+    for (schedule, kind, label) in stale {
+        let key = (schedule.as_str(), kind.as_str());
+        match groups.iter_mut().find(|(k, _)| *k == key) {
+            Some((_, (n, first, last))) => {
+                *n += 1;
+                if label.as_str() < *first {
+                    *first = label;
+                }
+                if label.as_str() > *last {
+                    *last = label;
+                }
+            }
+            None => groups.push((key, (1, label, label))),
+        }
+    }
+    let parts: Vec<String> = groups
+        .iter()
+        .map(|((schedule, kind), (n, first, last))| {
+            if n == &1 {
+                format!("{kind} {first} ({schedule})")
+            } else {
+                format!("{n} {kind}s {first} to {last} ({schedule})")
+            }
+        })
+        .collect();
+    format!("{} in all: {}", stale.len(), parts.join(", "))
 }

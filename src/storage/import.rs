@@ -451,14 +451,15 @@ fn ms(ts: DateTime<Utc>) -> i64 {
     ts.timestamp_millis()
 }
 
-/// The earliest import with this content hash that stored something. An import that stored
-/// nothing (every row rejected, or no rows) is kept with its rejections but does not count as
-/// done: the corrected file, or the same one after a configuration fix, imports without `--force`.
+/// The earliest import with this content hash that stored something and was not undone. An
+/// import that stored nothing (every row rejected, or no rows) is kept with its rejections but
+/// does not count as done: the corrected file, or the same one after a configuration fix, imports
+/// without `--force`; so does a file whose import was undone.
 pub(crate) fn imports_with_sha256(conn: &Connection, sha256: &str) -> Result<Option<PriorImport>> {
     Ok(conn
         .prepare_cached(
-            "SELECT id, file_name, started_ms, accepted FROM imports WHERE sha256 = ?1 AND accepted > 0 \
-             ORDER BY id LIMIT 1",
+            "SELECT id, file_name, started_ms, accepted FROM imports i WHERE sha256 = ?1 AND accepted > 0 \
+             AND NOT EXISTS (SELECT 1 FROM imports u WHERE u.undoes = i.id) ORDER BY id LIMIT 1",
         )?
         .query_row([sha256], |r| {
             Ok(PriorImport {

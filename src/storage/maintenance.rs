@@ -127,8 +127,9 @@ impl Store {
     }
 
     /// Periods whose latest complete run began before an import that stored measurements inside
-    /// them (the rule of `runs::completed_labels`, from the other side).
-    fn stale_periods(&self) -> Result<Vec<(String, String, String)>> {
+    /// them or an undo that removed some (the rule of `runs::completed_labels`, from the other
+    /// side).
+    pub fn stale_periods(&self) -> Result<Vec<(String, String, String)>> {
         let mut stmt = self.conn.prepare(
             "SELECT COALESCE(g.schedule, 'by hand'), g.kind, g.label FROM (
                  SELECT schedule, period_kind AS kind, period_label AS label,
@@ -137,7 +138,7 @@ impl Store {
                  FROM run WHERE status = 'complete'
                  GROUP BY schedule, period_kind, period_label) g
              WHERE EXISTS (SELECT 1 FROM imports i
-                 WHERE i.id > g.seen AND i.accepted > i.duplicates
+                 WHERE i.id > g.seen AND (i.accepted > i.duplicates OR i.undoes IS NOT NULL)
                    AND i.ts_min_ms < g.end_ms AND i.ts_max_ms >= g.start_ms)
              ORDER BY g.start_ms, g.kind",
         )?;

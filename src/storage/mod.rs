@@ -18,6 +18,7 @@
 
 mod events;
 mod import;
+mod imports;
 mod maintenance;
 mod master;
 pub mod migrate;
@@ -26,6 +27,7 @@ pub mod runs;
 
 pub use events::{Event, NewEvent};
 pub use import::{ImportCpu, ImportOptions, ImportReport, PriorImport, MAX_KEPT_REJECTIONS};
+pub use imports::{ImportRecord, UndoReport};
 pub use maintenance::{CharacteristicStatus, IntegrityReport, Status};
 pub use master::{StoredCharacteristic, StoredFactor, SyncReport};
 pub(crate) use query::closest;

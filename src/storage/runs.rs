@@ -444,6 +444,17 @@ fn run_from_row(r: &Row<'_>) -> rusqlite::Result<StoredRun> {
     })
 }
 
+/// How many complete versions a period's run has: more than one means the period was checked
+/// again (late or undone data made it stale, or it was rerun) and is shown as revised.
+pub fn complete_versions(conn: &Connection, period_kind: &str, period_label: &str) -> Result<i64> {
+    Ok(conn
+        .prepare_cached(
+            "SELECT COUNT(*) FROM run WHERE period_kind = ?1 AND period_label = ?2 \
+             AND status = 'complete'",
+        )?
+        .query_row(params![period_kind, period_label], |r| r.get(0))?)
+}
+
 /// The latest complete version of a period's run, if any.
 pub fn latest_complete_run(
     conn: &Connection,
@@ -483,8 +494,8 @@ pub fn all_runs(conn: &Connection) -> Result<Vec<StoredRun>> {
 }
 
 /// Labels of the periods of `period_kind` (and `schedule`) that are done: checked to the end,
-/// and not stale (no import stored measurements inside them after their latest complete run
-/// began).
+/// and not stale (no import stored measurements inside them, and no undo removed any, after
+/// their latest complete run began).
 pub fn completed_labels(
     conn: &Connection,
     schedule: Option<&str>,
@@ -499,7 +510,7 @@ pub fn completed_labels(
              FROM run WHERE period_kind = ?1 AND status = 'complete' AND schedule IS ?2
              GROUP BY period_label) g
          WHERE NOT EXISTS (SELECT 1 FROM imports i
-             WHERE i.id > g.seen AND i.accepted > i.duplicates
+             WHERE i.id > g.seen AND (i.accepted > i.duplicates OR i.undoes IS NOT NULL)
                AND i.ts_min_ms < g.end_ms AND i.ts_max_ms >= g.start_ms)
          ORDER BY g.label",
     )?;
@@ -652,6 +663,8 @@ pub struct HistoryPoint {
     pub run: StoredRun,
     /// The stored result.
     pub test: TestRow,
+    /// Complete versions of the period's run (more than one: the period was checked again).
+    pub complete_versions: i64,
 }
 
 /// `columns` (a comma-separated list) with each name prefixed by `alias.`.
@@ -690,11 +703,16 @@ pub fn history(
                 Ok(HistoryPoint {
                     run: run_from_row(r)?,
                     test: test_from_row(r, RUN_COLUMNS.split(',').count())?,
+                    complete_versions: 1,
                 })
             },
         )?
         .collect::<rusqlite::Result<Vec<_>>>()?;
     points.reverse();
+    for p in &mut points {
+        p.complete_versions =
+            complete_versions(conn, &p.run.header.period_kind, &p.run.header.period_label)?;
+    }
     Ok(points)
 }
 
