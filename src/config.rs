@@ -62,6 +62,9 @@
 //! value = "Value"                     # long only; default "value"
 //! delimiter = ";"                     # one ASCII character; default ","
 //! ignore = ["Comment"]                # columns that are present but not read
+//! part = "Serial"                     # optional part (serial) id column, stored
+//! identity = ["characteristic", "part"]  # optional; default: characteristic, time, every
+//!                                     # factor, and the part when there is a part column
 //! [layout.factors]                    # factor = "Column"; default: the factor's own column
 //! machine = "Machine ID"
 //! [layout.characteristics]            # wide only: characteristic = "Column"
@@ -283,6 +286,38 @@ pub struct Layout {
     pub ignore: Vec<String>,
     /// Field separator, one ASCII character (default `,`; many European exports use `;`).
     pub delimiter: u8,
+    /// Column holding a part (serial) id, stored with each measurement (`part = "Serial"`).
+    pub part_column: Option<String>,
+    /// What identifies one measurement, for telling an overlapping export's rows (duplicates)
+    /// and changed values (conflicts) from new measurements.
+    pub identity: Identity,
+}
+
+/// What identifies one measurement of a layout (`identity = [...]` in a `[[layout]]`): always
+/// the characteristic, and some of the time, the part id and the factor levels. The default is
+/// the characteristic, the time, every factor level and the part id when the layout has a part
+/// column. A stored measurement with the same identity and value is a duplicate (counted, not
+/// stored again); with another value, a conflict (rejected, both values named).
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Identity {
+    /// The measurement's instant is part of its identity.
+    pub time: bool,
+    /// The part id is part of its identity (the layout has a part column).
+    pub part: bool,
+    /// The factors (indices into `Config::factors`) whose levels are part of it.
+    pub factors: Vec<usize>,
+}
+
+impl Identity {
+    /// The default identity: characteristic, time, every factor level, and the part id when
+    /// there is a part column.
+    pub fn full(n_factors: usize, has_part: bool) -> Identity {
+        Identity {
+            time: true,
+            part: has_part,
+            factors: (0..n_factors).collect(),
+        }
+    }
 }
 
 /// One `[[schedule]]`.
@@ -541,6 +576,8 @@ struct RawLayout {
     characteristic: Option<String>,
     value: Option<String>,
     delimiter: Option<String>,
+    part: Option<String>,
+    identity: Option<Vec<String>>,
     #[serde(default)]
     ignore: Vec<String>,
     #[serde(default)]
@@ -984,6 +1021,54 @@ fn validate_layout(
     for col in &l.ignore {
         ignore.push(check_label(col).map_err(|r| format!("ignore: {r}"))?);
     }
+    let part_column = match &l.part {
+        None => None,
+        Some(c) => Some(check_label(c).map_err(|r| format!("part: {r}"))?),
+    };
+    let identity = match &l.identity {
+        None => Identity::full(factors.len(), part_column.is_some()),
+        Some(names) => {
+            let mut identity = Identity {
+                time: false,
+                part: false,
+                factors: Vec::new(),
+            };
+            for n in names {
+                match n.as_str() {
+                    "characteristic" => {}
+                    "time" => identity.time = true,
+                    "part" if part_column.is_some() => identity.part = true,
+                    "part" => {
+                        return Err("identity: \"part\" needs a part column (part = \"COLUMN\")"
+                            .to_string())
+                    }
+                    other => match factors.iter().position(|f| f.name == other) {
+                        Some(i) if !identity.factors.contains(&i) => identity.factors.push(i),
+                        Some(_) => {}
+                        None => {
+                            let known: Vec<&str> = ["characteristic", "time", "part"]
+                                .into_iter()
+                                .chain(factors.iter().map(|f| f.name.as_str()))
+                                .collect();
+                            return Err(format!(
+                                "identity: \"{other}\" is not \"characteristic\", \"time\", \"part\" or a configured factor (known: {})",
+                                known.join(", ")
+                            ));
+                        }
+                    },
+                }
+            }
+            if !identity.time && !identity.part {
+                return Err(
+                    "identity: must include \"time\" or \"part\" (else every measurement of a \
+                     characteristic would be the same one)"
+                        .to_string(),
+                );
+            }
+            identity.factors.sort_unstable();
+            identity
+        }
+    };
     let layout = Layout {
         name: name.to_string(),
         kind,
@@ -992,6 +1077,8 @@ fn validate_layout(
         factor_columns,
         ignore,
         delimiter,
+        part_column,
+        identity,
     };
     // One column, one role.
     let mut roles: Vec<(String, &str)> = vec![(layout.timestamp_column.clone(), "timestamp")];
@@ -1016,6 +1103,9 @@ fn validate_layout(
     }
     for col in &layout.ignore {
         roles.push((col.clone(), "ignore"));
+    }
+    if let Some(col) = &layout.part_column {
+        roles.push((col.clone(), "the part id"));
     }
     for i in 0..roles.len() {
         for j in 0..i {
@@ -1050,6 +1140,8 @@ fn default_layouts(factors: &[FactorConfig]) -> Vec<Layout> {
             factor_columns: factor_columns.clone(),
             ignore: Vec::new(),
             delimiter: b',',
+            part_column: None,
+            identity: Identity::full(factors.len(), false),
         },
         Layout {
             name: "wide".to_string(),
@@ -1061,6 +1153,8 @@ fn default_layouts(factors: &[FactorConfig]) -> Vec<Layout> {
             factor_columns,
             ignore: Vec::new(),
             delimiter: b',',
+            part_column: None,
+            identity: Identity::full(factors.len(), false),
         },
     ]
 }

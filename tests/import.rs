@@ -697,3 +697,149 @@ fn issue_15_failed_import_leaves_no_rejects_lines() {
         "{rejects}"
     );
 }
+
+/// Measurement identity (issue 15): a layout names a part id column and identifies a measurement
+/// by characteristic and part. A re-export that gives the same parts new timestamps (the CMM
+/// report was regenerated) is counted as duplicates; a part whose value changed is a conflict
+/// naming both values; new parts are stored.
+#[test]
+fn issue_15_identity_by_part_id() {
+    let dir = temp_dir("issue-15-identity");
+    let config = format!(
+        "{CONFIG}\n[[layout]]\nname = \"cmm\"\nkind = \"long\"\ntimestamp = \"measured\"\npart = \"serial\"\nidentity = [\"characteristic\", \"part\"]\n"
+    );
+    std::fs::write(dir.join("plant.toml"), config).unwrap();
+    assert!(run(&dir, &["init"]).status.success());
+    let header = "measured,serial,characteristic,value,machine\n";
+    let mut first = String::from(header);
+    for i in 0..10 {
+        first.push_str(&format!(
+            "2026-11-30T07:{i:02}:00Z,SN{i:04},bore_diameter,42.00{},M{}\n",
+            i % 10,
+            1 + i % 2
+        ));
+    }
+    std::fs::write(dir.join("r1.csv"), &first).unwrap();
+    let o = run(&dir, &["import", "r1.csv"]);
+    assert!(o.status.success(), "{}", text(&o));
+    // Regenerated report: the same ten parts with the report's time (one part's value
+    // corrected at the source), and two new parts.
+    let mut second = String::from(header);
+    for i in 0..10 {
+        let v = if i == 3 {
+            "42.0111".to_string()
+        } else {
+            format!("42.00{}", i % 10)
+        };
+        second.push_str(&format!(
+            "2026-11-30T15:00:00Z,SN{i:04},bore_diameter,{v},M{}\n",
+            1 + i % 2
+        ));
+    }
+    for i in 10..12 {
+        second.push_str(&format!(
+            "2026-11-30T15:{i:02}:00Z,SN{i:04},bore_diameter,42.005,M1\n"
+        ));
+    }
+    std::fs::write(dir.join("r2.csv"), &second).unwrap();
+    let o = run(&dir, &["import", "r2.csv"]);
+    let t = text(&o);
+    assert!(o.status.success(), "{t}");
+    assert!(
+        t.contains("12 measurements: 2 stored, 9 already stored (duplicate), 1 rejected"),
+        "{t}"
+    );
+    assert!(t.contains("stored \"42.003\", this row \"42.0111\""), "{t}");
+    assert_eq!(n_measurements(&dir), 12);
+    // A row without its part id cannot be identified: rejected with the reason.
+    std::fs::write(
+        dir.join("r3.csv"),
+        format!("{header}2026-11-30T16:00:00Z,,bore_diameter,42.001,M1\n2026-11-30T16:01:00Z,SN0100,bore_diameter,42.001,M1\n"),
+    )
+    .unwrap();
+    let o = run(&dir, &["import", "r3.csv"]);
+    let t = text(&o);
+    assert!(t.contains("the part id identifies the measurement"), "{t}");
+    assert!(run(&dir, &["db", "check"]).status.success());
+}
+
+/// The default identity (characteristic, time, every factor level) with a part column: the same
+/// instant and levels but another part is a new measurement (two parts gauged together).
+#[test]
+fn issue_15_default_identity_includes_the_part() {
+    let dir = temp_dir("issue-15-identity-default");
+    let config =
+        format!("{CONFIG}\n[[layout]]\nname = \"cmm\"\nkind = \"long\"\npart = \"serial\"\n");
+    std::fs::write(dir.join("plant.toml"), config).unwrap();
+    assert!(run(&dir, &["init"]).status.success());
+    let csv = "timestamp,serial,characteristic,value,machine\n\
+               2026-11-30T07:00:00Z,A1,bore_diameter,42.001,M1\n\
+               2026-11-30T07:00:00Z,A2,bore_diameter,42.002,M1\n";
+    std::fs::write(dir.join("a.csv"), csv).unwrap();
+    assert!(run(&dir, &["import", "a.csv"]).status.success());
+    std::fs::write(
+        dir.join("b.csv"),
+        format!("{csv}2026-11-30T07:05:00Z,A3,bore_diameter,42.003,M1\n"),
+    )
+    .unwrap();
+    let o = run(&dir, &["import", "b.csv"]);
+    let t = text(&o);
+    assert!(
+        t.contains("1 stored, 2 already stored (duplicate), 0 rejected"),
+        "{t}"
+    );
+    assert_eq!(n_measurements(&dir), 3);
+}
+
+/// Identity settings are checked with the configuration.
+#[test]
+fn issue_15_identity_configuration_errors() {
+    let dir = temp_dir("issue-15-identity-config");
+    for (identity, part, expected) in [
+        ("[\"characteristic\", \"machine\"]", "", "must include \"time\" or \"part\""),
+        ("[\"time\", \"part\"]", "", "\"part\" needs a part column"),
+        ("[\"time\", \"machin\"]", "", "is not \"characteristic\", \"time\", \"part\" or a configured factor (known: characteristic, time, part, machine)"),
+        ("[\"time\"]", "part = \"machine\"\n", "column \"machine\" is used both as a factor and as the part id"),
+    ] {
+        let config = format!(
+            "{CONFIG}\n[[layout]]\nname = \"x\"\nkind = \"long\"\n{part}identity = {identity}\n"
+        );
+        std::fs::write(dir.join("plant.toml"), config).unwrap();
+        let o = run(&dir, &["init"]);
+        assert!(!o.status.success());
+        assert!(text(&o).contains(expected), "{identity}: {}", text(&o));
+    }
+}
+
+/// An identity without the factor levels (issue 15): a re-export whose machine column was
+/// corrected at the source repeats the same measurements (time and value) and is counted as
+/// duplicates, not stored a second time under the other machine.
+#[test]
+fn issue_15_identity_without_levels() {
+    let dir = temp_dir("issue-15-identity-levels");
+    let config = format!(
+        "{CONFIG}\n[[layout]]\nname = \"x\"\nkind = \"long\"\nidentity = [\"characteristic\", \"time\"]\n"
+    );
+    std::fs::write(dir.join("plant.toml"), config).unwrap();
+    assert!(run(&dir, &["init"]).status.success());
+    let header = "timestamp,characteristic,value,machine\n";
+    std::fs::write(
+        dir.join("a.csv"),
+        format!("{header}2026-11-30T07:00:00Z,bore_diameter,42.001,M1\n2026-11-30T07:01:00Z,bore_diameter,42.002,M1\n"),
+    )
+    .unwrap();
+    assert!(run(&dir, &["import", "a.csv"]).status.success());
+    std::fs::write(
+        dir.join("b.csv"),
+        format!("{header}2026-11-30T07:00:00Z,bore_diameter,42.001,M2\n2026-11-30T07:01:00Z,bore_diameter,42.009,M2\n2026-11-30T07:02:00Z,bore_diameter,42.003,M2\n"),
+    )
+    .unwrap();
+    let o = run(&dir, &["import", "b.csv"]);
+    let t = text(&o);
+    assert!(
+        t.contains("1 stored, 1 already stored (duplicate), 1 rejected"),
+        "{t}"
+    );
+    assert!(t.contains("stored \"42.002\", this row \"42.009\""), "{t}");
+    assert_eq!(n_measurements(&dir), 3);
+}

@@ -84,6 +84,8 @@ pub struct Measurement {
     pub value: Decimal,
     /// One level per `Config::factors`, in order.
     pub levels: Vec<String>,
+    /// The part (serial) id, when the layout has a part column.
+    pub part: Option<String>,
 }
 
 /// One rejected measurement (or a whole rejected row of a long file).
@@ -370,6 +372,8 @@ struct Plan {
     columns: Vec<String>,
     timestamp: usize,
     factors: Vec<FactorCell>,
+    /// The part id column, when the layout has one.
+    part: Option<usize>,
     kind: PlanKind,
     ignored: Vec<String>,
     /// How much of the header the layout explains (for detection).
@@ -399,6 +403,7 @@ impl Plan {
             }
         };
         let timestamp = need(&layout.timestamp_column, &mut missing);
+        let part = layout.part_column.as_deref().map(|c| need(c, &mut missing));
         let mut factors = Vec::new();
         for column in &layout.factor_columns {
             factors.push(match column {
@@ -489,6 +494,7 @@ impl Plan {
             columns: columns.to_vec(),
             timestamp,
             factors,
+            part,
             kind,
             ignored,
             score,
@@ -517,6 +523,8 @@ pub struct MeasurementRef<'a> {
     pub value: Decimal,
     /// One level per `Config::factors`, in order.
     pub levels: &'a [&'a str],
+    /// The part (serial) id, when the layout has a part column.
+    pub part: Option<&'a str>,
 }
 
 impl MeasurementRef<'_> {
@@ -528,6 +536,7 @@ impl MeasurementRef<'_> {
             ts: self.ts,
             value: self.value,
             levels: self.levels.iter().map(|l| l.to_string()).collect(),
+            part: self.part.map(str::to_string),
         }
     }
 }
@@ -680,6 +689,7 @@ impl<R: Read> ImportStream<R> {
                         ts: m.ts,
                         value: m.value,
                         levels: &levels,
+                        part: m.part.as_deref(),
                     });
                 }
                 RowOutcome::Rejected(r) => {
@@ -901,6 +911,25 @@ impl RowParser {
             }
         }
         let levels: &[&str] = levels;
+        // The part id: required when it identifies the measurement.
+        let part = match this.plan.part {
+            None => None,
+            Some(i) => match text(i) {
+                Ok("") if this.plan.layout.identity.part => {
+                    let reason =
+                        "empty cell (the part id identifies the measurement in this layout)"
+                            .to_string();
+                    this.reject_row(sink, line_no, Some(i), reason, line);
+                    return;
+                }
+                Ok("") => None,
+                Ok(t) => Some(t),
+                Err(reason) => {
+                    this.reject_row(sink, line_no, Some(i), reason, line);
+                    return;
+                }
+            },
+        };
         match &this.plan.kind {
             PlanKind::Long {
                 characteristic,
@@ -950,6 +979,7 @@ impl RowParser {
                         ts,
                         value,
                         levels,
+                        part,
                     }),
                     Err((col, reason)) => sink.rejected(Rejection {
                         line: line_no,
@@ -983,6 +1013,7 @@ impl RowParser {
                             ts,
                             value,
                             levels,
+                            part,
                         }),
                         Err(reason) => sink.rejected(Rejection {
                             line: line_no,

@@ -177,7 +177,12 @@ struct Row {
     line: i64,
     value: f64,
     level_set: i64,
+    /// Index into `Batch::parts`, or [`NO_PART`].
+    part: u32,
 }
+
+/// `Row::part` of a measurement without a part id.
+const NO_PART: u32 = u32::MAX;
 
 /// What the reading thread hands to the writer: rows and rejections in file order, plus the
 /// characteristic names and level combinations first seen in this batch (numbered on from the
@@ -188,6 +193,8 @@ struct Batch {
     new_level_sets: Vec<Vec<String>>,
     rows: Vec<Row>,
     rejections: Vec<Rejection>,
+    /// Part ids of the batch's rows (layouts with a part column).
+    parts: Vec<String>,
 }
 
 impl Batch {
@@ -334,12 +341,20 @@ impl Interner {
                 }
             }
         };
+        let part = match m.part {
+            Some(p) => {
+                batch.parts.push(p.to_string());
+                (batch.parts.len() - 1) as u32
+            }
+            None => NO_PART,
+        };
         batch.rows.push(Row {
             characteristic: idx as i64,
             ts_ms: ms(m.ts),
             line: m.line as i64,
             value,
             level_set: level_set as i64,
+            part,
         });
         if self.characteristics[idx].pending.len() >= ORIGIN_SAMPLE {
             Self::resolve_origin(&mut self.characteristics[idx], &mut self.batch);
@@ -399,6 +414,7 @@ fn sort_rows(rows: &mut Vec<Row>) {
             line: 0,
             value: 0.0,
             level_set: 0,
+            part: NO_PART,
         };
         rows.len()
     ];
@@ -449,6 +465,125 @@ pub(crate) fn reason_kind(reason: &str) -> String {
 
 fn ms(ts: DateTime<Utc>) -> i64 {
     ts.timestamp_millis()
+}
+
+/// Finds the stored measurement with the same identity as an incoming row (the layout's
+/// [`Identity`](crate::config::Identity): characteristic, and time, part id and factor levels as
+/// configured).
+struct IdentityLookup {
+    time: bool,
+    part: bool,
+    all_factors: bool,
+    /// Factor ids whose levels belong to the identity (when not all do).
+    factor_ids: Vec<i64>,
+    /// Level set id -> its (factor id, level id) members, read as needed.
+    members: HashMap<i64, Vec<(i64, i64)>>,
+}
+
+impl IdentityLookup {
+    fn new(
+        identity: &crate::config::Identity,
+        all_factors: bool,
+        configured_factor_ids: &[i64],
+    ) -> IdentityLookup {
+        IdentityLookup {
+            time: identity.time,
+            part: identity.part,
+            all_factors,
+            factor_ids: identity
+                .factors
+                .iter()
+                .filter_map(|&i| configured_factor_ids.get(i).copied())
+                .collect(),
+            members: HashMap::new(),
+        }
+    }
+
+    fn members(&mut self, conn: &Connection, set: i64) -> Result<&[(i64, i64)]> {
+        if !self.members.contains_key(&set) {
+            let rows: Vec<(i64, i64)> = conn
+                .prepare_cached(
+                    "SELECT factor_id, level_id FROM level_set_members WHERE level_set_id = ?1",
+                )?
+                .query_map([set], |r| Ok((r.get(0)?, r.get(1)?)))?
+                .collect::<rusqlite::Result<_>>()?;
+            self.members.insert(set, rows);
+        }
+        Ok(&self.members[&set])
+    }
+
+    /// Whether two level sets agree on every identity factor.
+    fn same_levels(&mut self, conn: &Connection, a: i64, b: i64) -> Result<bool> {
+        if a == b {
+            return Ok(true);
+        }
+        if self.all_factors {
+            // A level set is one combination of every factor: another id, other levels.
+            return Ok(false);
+        }
+        self.members(conn, a)?;
+        self.members(conn, b)?;
+        let (a_members, b_members) = (&self.members[&a], &self.members[&b]);
+        Ok(self.factor_ids.iter().all(|f| {
+            let level = |m: &[(i64, i64)]| m.iter().find(|x| x.0 == *f).map(|x| x.1);
+            level(a_members) == level(b_members)
+        }))
+    }
+
+    /// The value of a stored measurement with `row`'s identity: the row's own value when one of
+    /// them has it (a duplicate), else the first one's (a conflict); `None` when none is stored.
+    fn stored_value(
+        &mut self,
+        conn: &Connection,
+        row: &Row,
+        part: Option<&str>,
+    ) -> Result<Option<f64>> {
+        if self.part && part.is_none() {
+            return Ok(None);
+        }
+        let candidates: Vec<(f64, i64, Option<String>)> = if self.time && self.all_factors {
+            conn.prepare_cached(
+                "SELECT value, level_set_id, part FROM measurements \
+                 WHERE characteristic_id = ?1 AND ts_ms = ?2 AND level_set_id = ?3",
+            )?
+            .query_map(params![row.characteristic, row.ts_ms, row.level_set], |r| {
+                Ok((r.get(0)?, r.get(1)?, r.get(2)?))
+            })?
+            .collect::<rusqlite::Result<_>>()?
+        } else if self.time {
+            conn.prepare_cached(
+                "SELECT value, level_set_id, part FROM measurements \
+                 WHERE characteristic_id = ?1 AND ts_ms = ?2",
+            )?
+            .query_map(params![row.characteristic, row.ts_ms], |r| {
+                Ok((r.get(0)?, r.get(1)?, r.get(2)?))
+            })?
+            .collect::<rusqlite::Result<_>>()?
+        } else {
+            conn.prepare_cached(
+                "SELECT value, level_set_id, part FROM measurements \
+                 WHERE characteristic_id = ?1 AND part = ?2",
+            )?
+            .query_map(params![row.characteristic, part], |r| {
+                Ok((r.get(0)?, r.get(1)?, r.get(2)?))
+            })?
+            .collect::<rusqlite::Result<_>>()?
+        };
+        let mut first = None;
+        for (value, set, stored_part) in candidates {
+            if self.part && stored_part.as_deref() != part {
+                continue;
+            }
+            if !self.same_levels(conn, set, row.level_set)? {
+                continue;
+            }
+            if value == row.value {
+                return Ok(Some(value));
+            }
+            first.get_or_insert(value);
+        }
+        Ok(first)
+    }
 }
 
 /// The earliest import with this content hash that stored something and was not undone. An
@@ -556,6 +691,8 @@ impl Store {
         let clock = Instant::now();
         let writer_start = thread_cpu();
         let path = stream.path().to_path_buf();
+        let identity = stream.layout().identity.clone();
+        let all_factors = identity.factors.len() == stream.layout().factor_columns.len();
         let layout = stream.layout().name.clone();
         let file_name = path
             .file_name()
@@ -655,15 +792,13 @@ impl Store {
             });
             let write_result = (|| -> Result<()> {
                 let mut insert_measurement = tx.prepare_cached(
-                    "INSERT INTO measurements (characteristic_id, ts_ms, import_id, line, value, level_set_id) \
-                     VALUES (?1, ?2, ?3, ?4, ?5, ?6)",
+                    "INSERT INTO measurements (characteristic_id, ts_ms, import_id, line, value, level_set_id, part) \
+                     VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7)",
                 )?;
+                let mut lookup =
+                    IdentityLookup::new(&identity, all_factors, level_sets.factor_ids());
                 let mut latest_stmt = tx.prepare_cached(
                     "SELECT MAX(ts_ms) FROM measurements WHERE characteristic_id = ?1",
-                )?;
-                let mut same_instant_stmt = tx.prepare_cached(
-                    "SELECT value FROM measurements \
-                     WHERE characteristic_id = ?1 AND ts_ms = ?2 AND level_set_id = ?3 LIMIT 1",
                 )?;
                 let mut latest_stored: HashMap<i64, Option<i64>> = HashMap::new();
                 let mut conflicts: Vec<Rejection> = Vec::new();
@@ -705,26 +840,28 @@ impl Store {
                     }
                     insert_measurement.raw_bind_parameter(3, import_id)?;
                     for row in &batch.rows {
-                        // A row at or before the latest instant stored for its characteristic
-                        // (read before this import wrote any) may repeat a stored measurement: an
-                        // export that overlaps the previous one.
-                        let latest = match latest_stored.get(&row.characteristic) {
-                            Some(&t) => t,
-                            None => {
-                                let t: Option<i64> =
-                                    latest_stmt.query_row([row.characteristic], |r| r.get(0))?;
-                                latest_stored.insert(row.characteristic, t);
-                                t
-                            }
+                        let part =
+                            (row.part != NO_PART).then(|| batch.parts[row.part as usize].as_str());
+                        // With the time in the identity, only a row at or before the latest
+                        // instant stored for its characteristic (read before this import wrote
+                        // any) may repeat a stored measurement: an export that overlaps the
+                        // previous one. Identified by its part alone, any row may.
+                        let may_repeat = if identity.time {
+                            let latest = match latest_stored.get(&row.characteristic) {
+                                Some(&t) => t,
+                                None => {
+                                    let t: Option<i64> = latest_stmt
+                                        .query_row([row.characteristic], |r| r.get(0))?;
+                                    latest_stored.insert(row.characteristic, t);
+                                    t
+                                }
+                            };
+                            latest.is_some_and(|t| row.ts_ms <= t)
+                        } else {
+                            part.is_some()
                         };
-                        if latest.is_some_and(|t| row.ts_ms <= t) {
-                            let mut stored = same_instant_stmt.query(params![
-                                row.characteristic,
-                                row.ts_ms,
-                                row.level_set
-                            ])?;
-                            if let Some(r) = stored.next()? {
-                                let value: f64 = r.get(0)?;
+                        if may_repeat {
+                            if let Some(value) = lookup.stored_value(&tx, row, part)? {
                                 if value == row.value {
                                     duplicates += 1;
                                 } else {
@@ -754,6 +891,7 @@ impl Store {
                         insert_measurement.raw_bind_parameter(4, row.line)?;
                         insert_measurement.raw_bind_parameter(5, row.value)?;
                         insert_measurement.raw_bind_parameter(6, row.level_set)?;
+                        insert_measurement.raw_bind_parameter(7, part)?;
                         insert_measurement.raw_execute()?;
                         stored_rows += 1;
                         ts_min = ts_min.min(row.ts_ms);
@@ -908,6 +1046,7 @@ mod tests {
             line,
             value: line as f64,
             level_set: 0,
+            part: super::NO_PART,
         };
         let mut rows = vec![
             row(2, 10, 2),

@@ -337,6 +337,11 @@ impl LevelSetWriter {
         })
     }
 
+    /// Configured factor ids, in configuration order.
+    pub(crate) fn factor_ids(&self) -> &[i64] {
+        &self.factor_ids
+    }
+
     /// The level set id of a combination of levels (in configuration order), creating it if new.
     /// The caller asks once per distinct combination (the import interns them), so nothing is
     /// cached here: a second call with the same names in one import could create it twice.
