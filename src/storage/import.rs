@@ -499,17 +499,17 @@ impl IdentityLookup {
         }
     }
 
-    fn members(&mut self, conn: &Connection, set: i64) -> Result<&[(i64, i64)]> {
-        if !self.members.contains_key(&set) {
+    fn load_members(&mut self, conn: &Connection, set: i64) -> Result<()> {
+        if let std::collections::hash_map::Entry::Vacant(e) = self.members.entry(set) {
             let rows: Vec<(i64, i64)> = conn
                 .prepare_cached(
                     "SELECT factor_id, level_id FROM level_set_members WHERE level_set_id = ?1",
                 )?
                 .query_map([set], |r| Ok((r.get(0)?, r.get(1)?)))?
                 .collect::<rusqlite::Result<_>>()?;
-            self.members.insert(set, rows);
+            e.insert(rows);
         }
-        Ok(&self.members[&set])
+        Ok(())
     }
 
     /// Whether two level sets agree on every identity factor.
@@ -521,8 +521,8 @@ impl IdentityLookup {
             // A level set is one combination of every factor: another id, other levels.
             return Ok(false);
         }
-        self.members(conn, a)?;
-        self.members(conn, b)?;
+        self.load_members(conn, a)?;
+        self.load_members(conn, b)?;
         let (a_members, b_members) = (&self.members[&a], &self.members[&b]);
         Ok(self.factor_ids.iter().all(|f| {
             let level = |m: &[(i64, i64)]| m.iter().find(|x| x.0 == *f).map(|x| x.1);
