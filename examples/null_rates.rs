@@ -98,65 +98,43 @@ fn main() {
     );
 }
 
-/// `--methods`: the raw rejection rate at 0.05 of each candidate test on its own (classic F,
-/// Welch, Kruskal-Wallis), per cell, outside the decision path: what the leading-method rule is
-/// chosen from.
+/// `--methods`: the raw rejection rate at 0.05 of each candidate test on its own, per cell,
+/// outside the decision path: what the leading-method rule is chosen from. Classic F, Welch,
+/// Kruskal-Wallis; Brown and Forsythe's (1974) F* (the classic F's statistic for equal sizes with
+/// Satterthwaite's denominator df from the group variances); Mehrotra's (1997) F* (the same
+/// statistic with his modified numerator df); and "F and KW" (a flag only when the classic F and
+/// Kruskal-Wallis both reject: the concordance rule).
 fn methods(reps: usize, shift: f64) {
     use samewise::sample::Rng;
     use samewise::stats::describe::Summary;
     use samewise::stats::{anova::one_way, kruskal::kruskal_wallis, welch::welch};
+    const ALPHA: f64 = 0.05;
+    const METHODS: usize = 6;
     let cells = grid(shift);
     let next = AtomicUsize::new(0);
-    let results: Mutex<Vec<[usize; 5]>> = Mutex::new(vec![[0; 5]; cells.len()]);
+    let results: Mutex<Vec<[usize; METHODS]>> = Mutex::new(vec![[0; METHODS]; cells.len()]);
+    let threads = std::thread::available_parallelism().map_or(1, |n| n.get());
     std::thread::scope(|scope| {
-        for _ in 0..2 {
+        for _ in 0..threads {
             scope.spawn(|| loop {
                 let i = next.fetch_add(1, Ordering::Relaxed);
                 if i >= cells.len() {
                     break;
                 }
                 let mut rng = Rng::new(cell_state(i, shift));
-                let mut count = [0usize; 5];
+                let mut count = [0usize; METHODS];
                 for _ in 0..reps {
                     let groups = cells[i].groups(&mut rng);
                     let s: Vec<Summary> = groups.iter().map(|g| Summary::from_slice(g)).collect();
                     let refs: Vec<&[f64]> = groups.iter().map(Vec::as_slice).collect();
-                    if one_way(&s).is_ok_and(|t| t.p <= 0.05) {
-                        count[0] += 1;
-                    }
-                    if welch(&s).is_ok_and(|t| t.p <= 0.05) {
-                        count[1] += 1;
-                    }
-                    if kruskal_wallis(&refs).is_ok_and(|t| t.p <= 0.05) {
-                        count[2] += 1;
-                    }
-                    count[3] += 1;
-                    // Brown and Forsythe's (1974) F*: the classic F's statistic for equal sizes,
-                    // with Satterthwaite's denominator df from the group variances.
-                    if let Ok(t) = one_way(&s) {
-                        let n: f64 = s.iter().map(|g| g.n as f64).sum();
-                        let c: Vec<f64> = s
-                            .iter()
-                            .map(|g| (1.0 - g.n as f64 / n) * g.variance().unwrap_or(0.0))
-                            .collect();
-                        let num: f64 = s
-                            .iter()
-                            .zip(&c)
-                            .map(|(g, _)| g.n as f64 * (g.mean - t.grand_mean).powi(2))
-                            .sum();
-                        let den: f64 = c.iter().sum();
-                        let f2 = den * den
-                            / s.iter()
-                                .zip(&c)
-                                .map(|(g, ci)| ci * ci / (g.n as f64 - 1.0))
-                                .sum::<f64>();
-                        if den > 0.0 {
-                            let fstar = num / den;
-                            if samewise::stats::distributions::f_sf(fstar, (s.len() - 1) as f64, f2)
-                                .is_ok_and(|p| p <= 0.05)
-                            {
-                                count[4] += 1;
-                            }
+                    let p_f = one_way(&s).map_or(1.0, |t| t.p);
+                    let p_welch = welch(&s).map_or(1.0, |t| t.p);
+                    let p_kw = kruskal_wallis(&refs).map_or(1.0, |t| t.p);
+                    let (p_bf, p_mehrotra) = brown_forsythe_means(&s);
+                    let ps = [p_f, p_welch, p_kw, p_bf, p_mehrotra, p_f.max(p_kw)];
+                    for (c, p) in count.iter_mut().zip(ps) {
+                        if p <= ALPHA {
+                            *c += 1;
                         }
                     }
                 }
@@ -165,12 +143,13 @@ fn methods(reps: usize, shift: f64) {
         }
     });
     println!(
-        "| k | n | variance ratio | values | F | Welch | Kruskal-Wallis | Brown-Forsythe F* |"
+        "| k | n | variance ratio | values | F | Welch | Kruskal-Wallis | Brown-Forsythe F* | Mehrotra F* | F and KW |"
     );
+    println!("|---|---|---|---|---|---|---|---|---|---|");
     for (cell, c) in cells.iter().zip(results.into_inner().expect("no panic")) {
-        let r = |x: usize| x as f64 / c[3] as f64;
+        let r = |x: usize| x as f64 / reps as f64;
         println!(
-            "| {} | {} | {} | {} | {:.3} | {:.3} | {:.3} | {:.3} |",
+            "| {} | {} | {} | {} | {:.3} | {:.3} | {:.3} | {:.3} | {:.3} | {:.3} |",
             cell.k,
             cell.sizes.label(),
             cell.spread.label(),
@@ -178,7 +157,57 @@ fn methods(reps: usize, shift: f64) {
             r(c[0]),
             r(c[1]),
             r(c[2]),
-            r(c[4])
+            r(c[3]),
+            r(c[4]),
+            r(c[5])
         );
     }
+}
+
+/// The p-values of Brown and Forsythe's (1974) F* for means and of Mehrotra's (1997) version
+/// (Mehrotra, "Improving the Brown-Forsythe solution to the generalized Behrens-Fisher problem",
+/// Communications in Statistics - Simulation and Computation 26, 1139-1145): the statistic
+/// sum n_j (mean_j - grand mean)^2 / sum (1 - n_j/N) s_j^2, the denominator df by Satterthwaite,
+/// the numerator df k - 1 (Brown-Forsythe) or Mehrotra's
+/// (sum s_j^2 - sum n_j s_j^2 / N)^2 / (sum s_j^4 + (sum n_j s_j^2 / N)^2 - 2 sum n_j s_j^4 / N).
+/// 1 where undefined (a zero denominator).
+fn brown_forsythe_means(s: &[samewise::stats::describe::Summary]) -> (f64, f64) {
+    use samewise::stats::distributions::f_sf;
+    let n: f64 = s.iter().map(|g| g.n as f64).sum();
+    let v: Vec<f64> = s.iter().map(|g| g.variance().unwrap_or(0.0)).collect();
+    let grand = s.iter().map(|g| g.n as f64 * g.mean).sum::<f64>() / n;
+    let c: Vec<f64> = s
+        .iter()
+        .zip(&v)
+        .map(|(g, v)| (1.0 - g.n as f64 / n) * v)
+        .collect();
+    let numerator: f64 = s
+        .iter()
+        .map(|g| g.n as f64 * (g.mean - grand).powi(2))
+        .sum();
+    let denominator: f64 = c.iter().sum();
+    if denominator <= 0.0 {
+        return (1.0, 1.0);
+    }
+    let df2 = denominator * denominator
+        / s.iter()
+            .zip(&c)
+            .map(|(g, ci)| ci * ci / (g.n as f64 - 1.0))
+            .sum::<f64>();
+    let sum_v: f64 = v.iter().sum();
+    let weighted: f64 = s.iter().zip(&v).map(|(g, v)| g.n as f64 * v).sum::<f64>() / n;
+    let df1_mehrotra = (sum_v - weighted).powi(2)
+        / (v.iter().map(|x| x * x).sum::<f64>() + weighted * weighted
+            - 2.0
+                * s.iter()
+                    .zip(&v)
+                    .map(|(g, v)| g.n as f64 * v * v)
+                    .sum::<f64>()
+                / n);
+    let statistic = numerator / denominator;
+    let k1 = (s.len() - 1) as f64;
+    (
+        f_sf(statistic, k1, df2).unwrap_or(1.0),
+        f_sf(statistic, df1_mehrotra, df2).unwrap_or(1.0),
+    )
 }

@@ -113,6 +113,27 @@ fn unequal_spreads_with_enough_values_hold_the_level() {
     assert!(r.leading.get("welch").copied().unwrap_or(0) > 500, "{r:?}");
 }
 
+// Ten groups of five whose variances differ sixteen-fold: below Welch's size, about equal sizes:
+// Brown and Forsythe's F* leads and holds the level (the classic F flagged 0.094 of these in the
+// study's `--methods` table).
+#[test]
+fn small_equal_groups_with_unequal_spreads_hold_the_level_with_f_star() {
+    let cell = null_cell(
+        10,
+        Sizes::Balanced(5),
+        Spread::Unequal {
+            variance_ratio: 16.0,
+            on_small: true,
+        },
+        Shape::Normal,
+    );
+    let r = assert_in_band(&cell, 5, 2000);
+    assert!(
+        r.leading.get("f_star").copied().unwrap_or(0) > 1900,
+        "{r:?}"
+    );
+}
+
 // Groups of 2 and 20 values: no test holds its level if the spreads differ, so every replicate
 // is declined ("too few values to compare"), none is flagged.
 #[test]

@@ -578,6 +578,8 @@ fn day_means(calendar: &PlantCalendar, tv: &[(i64, f64)], at_ms: i64) -> Vec<Tim
 fn leading_name(t: &TestRow) -> String {
     match t.leading_method.as_deref() {
         Some("welch") => "Welch".to_string(),
+        Some("f_star") => "Brown-Forsythe F*".to_string(),
+        Some("exact_permutation") => "exact permutation".to_string(),
         Some(_) => "classic F".to_string(),
         None => "none".to_string(),
     }
@@ -812,8 +814,10 @@ pub fn month_report(
 fn requirement_texts(t: &TestRow) -> Vec<String> {
     let mut out = Vec::new();
     if let Some(reason) = &t.leading_reason {
-        if t.leading_method.as_deref() == Some("welch") {
-            out.push(format!("Welch used: {reason}"));
+        match t.leading_method.as_deref() {
+            Some("welch") => out.push(format!("Welch used: {reason}")),
+            Some("f_star") => out.push(format!("Brown-Forsythe F* used: {reason}")),
+            _ => {}
         }
     }
     if t.recommend_kruskal == Some(true) {

@@ -179,6 +179,7 @@ pub fn leading(t: &TestRow) -> &'static str {
     }
     match t.leading_method.as_deref() {
         Some("welch") => "Welch F",
+        Some("f_star") => "F*",
         Some("exact_permutation") => "exact",
         Some(_) => "F",
         None => "-",

@@ -431,6 +431,7 @@ pub fn to_json(
         })
     });
     put(&mut root, "welch", &r.welch, |t| test_json(t, "f"));
+    put(&mut root, "f_star", &r.f_star, |t| test_json(t, "f"));
     put(&mut root, "kruskal_wallis", &r.kruskal_wallis, |t| {
         test_json(t, "h")
     });
@@ -853,6 +854,7 @@ pub fn render_text(
     o.push('\n');
     o.push_str("Robust alternatives\n");
     test_line(&mut o, "Welch ANOVA", "F", &r.welch, false);
+    test_line(&mut o, "Brown-Forsythe F* (means)", "F*", &r.f_star, false);
     test_line(
         &mut o,
         "Kruskal-Wallis (ties corrected)",
@@ -935,7 +937,9 @@ fn render_pairs(o: &mut String, data: &GroupedData, r: &OneWay, options: &OneWay
     }
     let method = match r.leading.method {
         LeadingMethod::Welch => "Games-Howell",
-        LeadingMethod::ClassicF | LeadingMethod::ExactPermutation => "Tukey-Kramer",
+        LeadingMethod::ClassicF | LeadingMethod::ExactPermutation | LeadingMethod::FStar => {
+            "Tukey-Kramer"
+        }
     };
     o.push_str(&format!(
         "Pairs ({method}, 95% simultaneous intervals; * = interval excludes zero), largest difference first\n"

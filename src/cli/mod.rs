@@ -164,7 +164,7 @@ const CHECK_RULE: &str = "Check one period: every characteristic x factor, false
 
 Which test leads (chosen from the null-rate study in docs/null-rates.md, `cargo run --release --example null_rates`):
 - every group constant (a coarse gauge): the exact permutation test of the group labels;
-- groups about equally sized (largest at most 1.5 x smallest) but smaller than Welch's test needs (5 values per group up to 5 groups, 10 up to 10, 15 up to 20, 30 up to 40): the classic F, without a check of the spreads;
+- groups about equally sized (largest at most 1.5 x smallest) but smaller than Welch's test needs (5 values per group up to 5 groups, 10 up to 10, 15 up to 20, 30 up to 40), without a check of the spreads: from 5 values per group Brown and Forsythe's F* (its df follow the group variances), with 2-4 the classic F;
 - very unequal sizes and a group below Welch's size: no test; the state is \"too few values to compare\";
 - very unequal sizes and every group at Welch's size: Welch's test, without a check of the spreads;
 - about equal sizes at Welch's size: Brown-Forsythe (p < 0.05) and, with at most 5 groups, the SD ratio (> 2) judge the spreads: alike, the classic F leads; different, Welch's test.

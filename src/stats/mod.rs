@@ -16,6 +16,7 @@ pub mod describe;
 pub mod distributions;
 pub mod effect;
 pub mod fdr;
+pub mod fstar;
 pub mod kruskal;
 pub mod materiality;
 pub mod noncentral;
