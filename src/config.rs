@@ -32,6 +32,13 @@
 //! alpha = 0.05
 //! power_target = 0.8
 //!
+//! [findings]                          # optional
+//! close_after = 3                     # quiet checked periods that close a finding (1-100)
+//!
+//! [alert]                             # optional: a command run when findings are new or change
+//! command = ["/usr/local/bin/notify-quality", "--channel", "line-2"]  # program and arguments
+//! timeout = "30s"                     # the command is stopped after this long (default 30s)
+//!
 //! [[characteristic]]
 //! name = "bore_diameter"
 //! unit = "mm"
@@ -114,6 +121,34 @@ pub struct Config {
     pub layouts: Vec<Layout>,
     /// Schedules in file order.
     pub schedules: Vec<ScheduleConfig>,
+    /// How flags become findings.
+    pub findings: FindingsSettings,
+    /// The command run when findings are new or change, if any.
+    pub alert: Option<AlertConfig>,
+}
+
+/// The `[findings]` table.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct FindingsSettings {
+    /// Checked periods without the flag after which a finding closes; shorter quiet stretches
+    /// keep it open and join the flags around them into one finding.
+    pub close_after: u32,
+}
+
+impl Default for FindingsSettings {
+    fn default() -> Self {
+        FindingsSettings { close_after: 3 }
+    }
+}
+
+/// The `[alert]` table: a program run (without a shell) with the new and changed findings as
+/// JSON on its standard input.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct AlertConfig {
+    /// The program and its arguments.
+    pub command: Vec<String>,
+    /// How long the program may run before it is stopped.
+    pub timeout: Duration,
 }
 
 /// The `[plant]` table.
@@ -515,6 +550,21 @@ struct RawConfig {
     layout: Vec<RawLayout>,
     #[serde(default)]
     schedule: Vec<RawSchedule>,
+    findings: Option<RawFindings>,
+    alert: Option<RawAlert>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawFindings {
+    close_after: Option<u32>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawAlert {
+    command: Vec<String>,
+    timeout: Option<String>,
 }
 
 #[derive(Deserialize)]
@@ -907,6 +957,39 @@ fn validate(raw: RawConfig, path: &Path) -> Result<Config> {
         });
     }
 
+    // [findings]
+    let mut findings = FindingsSettings::default();
+    if let Some(f) = &raw.findings {
+        if let Some(n) = f.close_after {
+            if !(1..=100).contains(&n) {
+                return Err(fail(format!(
+                    "findings.close_after: {n} is not between 1 and 100 quiet periods"
+                )));
+            }
+            findings.close_after = n;
+        }
+    }
+    // [alert]
+    let alert = match &raw.alert {
+        None => None,
+        Some(a) => {
+            if a.command.is_empty() || a.command[0].trim().is_empty() {
+                return Err(fail(
+                    "alert.command: give the program and its arguments, e.g. [\"/usr/local/bin/notify\", \"--to\", \"quality\"]"
+                        .to_string(),
+                ));
+            }
+            let timeout = match &a.timeout {
+                None => Duration::seconds(30),
+                Some(t) => parse_duration(t).map_err(|r| fail(format!("alert.timeout: {r}")))?,
+            };
+            Some(AlertConfig {
+                command: a.command.clone(),
+                timeout,
+            })
+        }
+    };
+
     Ok(Config {
         path: path.to_path_buf(),
         plant,
@@ -916,6 +999,8 @@ fn validate(raw: RawConfig, path: &Path) -> Result<Config> {
         factors,
         layouts,
         schedules,
+        findings,
+        alert,
     })
 }
 

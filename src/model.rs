@@ -28,6 +28,19 @@ pub enum PeriodKind {
 }
 
 impl PeriodKind {
+    /// The kind of a lowercase name (`"shift"`, `"day"`, ...).
+    pub fn parse(text: &str) -> Option<PeriodKind> {
+        [
+            PeriodKind::Shift,
+            PeriodKind::Day,
+            PeriodKind::Week,
+            PeriodKind::Month,
+            PeriodKind::Range,
+        ]
+        .into_iter()
+        .find(|k| k.as_str() == text)
+    }
+
     /// The lowercase name used in configuration files and JSON (`"shift"`, `"day"`, ...).
     pub fn as_str(self) -> &'static str {
         match self {
@@ -87,4 +100,109 @@ impl std::fmt::Display for Period {
     fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
         f.write_str(&self.label)
     }
+}
+
+/// Whether a [`Finding`] still flags.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+pub enum FindingStatus {
+    /// Flagged in the latest checked periods (fewer quiet periods since than close it).
+    Open,
+    /// Quiet for as many checked periods as close a finding.
+    Closed,
+}
+
+impl FindingStatus {
+    /// The stored and printed name (`"open"`, `"closed"`).
+    pub fn as_str(self) -> &'static str {
+        match self {
+            FindingStatus::Open => "open",
+            FindingStatus::Closed => "closed",
+        }
+    }
+
+    /// The status of a stored name.
+    pub fn parse(text: &str) -> Option<FindingStatus> {
+        match text {
+            "open" => Some(FindingStatus::Open),
+            "closed" => Some(FindingStatus::Closed),
+            _ => None,
+        }
+    }
+}
+
+/// A finding: the flags of one characteristic x factor whose standing-out group is the same,
+/// joined over consecutive checked periods of one kind (quiet stretches shorter than
+/// `[findings] close_after` included). Built by `analysis::findings`, kept by `storage`.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Finding {
+    /// Its number (`samewise findings note N`); 0 before it is stored.
+    pub id: i64,
+    /// The kind of the periods it was found in.
+    pub period_kind: PeriodKind,
+    /// The characteristic.
+    pub characteristic: String,
+    /// The factor.
+    pub factor: String,
+    /// The standing-out level.
+    pub level: String,
+    /// Open or closed.
+    pub status: FindingStatus,
+    /// How often it closed and flagged again.
+    pub times_reopened: u32,
+    /// The first period it ever flagged: label and start.
+    pub first_label: String,
+    /// See `first_label`.
+    pub first_start: DateTime<Utc>,
+    /// The first flagged period of the current episode (since the last reopening).
+    pub episode_label: String,
+    /// See `episode_label`.
+    pub episode_start: DateTime<Utc>,
+    /// The last flagged period: label, start and end.
+    pub last_label: String,
+    /// See `last_label`.
+    pub last_start: DateTime<Utc>,
+    /// See `last_label`.
+    pub last_end: DateTime<Utc>,
+    /// Flagged periods of the current episode.
+    pub n_flagged: u32,
+    /// Of those, flags resting on weak evidence (clearly non-normal residuals in small groups,
+    /// where the leading test's p-value is less trustworthy).
+    pub n_weak: u32,
+    /// Checked periods since the last flag.
+    pub quiet_periods: u32,
+    /// The characteristic's unit.
+    pub unit: String,
+    /// The standing-out group's mean minus the grand mean in the last flagged period, in units.
+    pub effect_now: Option<f64>,
+    /// The same in within-group SDs.
+    pub effect_now_sd: Option<f64>,
+    /// The same in % of the tolerance (or of the distance to a single limit).
+    pub effect_now_pct: Option<f64>,
+    /// The within-group SD of the last flagged period.
+    pub within_sd: Option<f64>,
+    /// The largest effect (by size) of the current episode, in units.
+    pub peak_effect: Option<f64>,
+    /// The same in % of the tolerance.
+    pub peak_pct: Option<f64>,
+    /// The period of the peak.
+    pub peak_label: Option<String>,
+    /// When the standing-out group's offset from the others changed (change-point estimate),
+    /// with its interval; or the start of the first flagged period.
+    pub onset: Option<DateTime<Utc>>,
+    /// See `onset`.
+    pub onset_low: Option<DateTime<Utc>>,
+    /// See `onset`.
+    pub onset_high: Option<DateTime<Utc>>,
+    /// How the onset was found.
+    pub onset_method: String,
+    /// The nearest logged process change in scope at or before the onset: id, time, note.
+    pub event_id: Option<i64>,
+    /// See `event_id`.
+    pub event_at: Option<DateTime<Utc>>,
+    /// See `event_id`.
+    pub event_note: Option<String>,
+    /// When it was first stored and last changed.
+    pub created: DateTime<Utc>,
+    /// See `created`.
+    pub updated: DateTime<Utc>,
 }

@@ -665,3 +665,115 @@ fn issue_15_late_data_is_checked_again() {
     let out = common::samewise(&dir, &["db", "check"]);
     assert!(out.status.success(), "{}", common::output_text(&out));
 }
+
+/// Issue 16: a scheduler pass keeps the findings up to date and runs the `[alert]` command with
+/// the new findings as JSON on its stdin; a failing alert command is logged and shown in
+/// `status`, and changes neither the pass nor its exit status.
+#[test]
+fn issue_16_findings_and_alerts_from_the_scheduler() {
+    let dir = common::temp_dir("issue-16-alert");
+    let config = common::invented_plant(&dir, 4);
+    let script = dir.join("alert.sh");
+    std::fs::write(
+        &script,
+        "#!/bin/sh\ncat > \"$(dirname \"$0\")/alert-input.json\"\n",
+    )
+    .unwrap();
+    #[cfg(unix)]
+    {
+        use std::os::unix::fs::PermissionsExt;
+        std::fs::set_permissions(&script, std::fs::Permissions::from_mode(0o755)).unwrap();
+    }
+    let text = std::fs::read_to_string(&config).unwrap();
+    std::fs::write(
+        &config,
+        format!(
+            "{text}\n[alert]\ncommand = [\"{}\"]\ntimeout = \"10s\"\n",
+            script.display()
+        ),
+    )
+    .unwrap();
+    let now = "2026-12-03T12:00:00Z";
+    let out = common::samewise(&dir, &["schedule", "due", "--now", now]);
+    let log = common::output_text(&out);
+    // M2's bore is high from 2026-11-30: flagged, so exit 3; the finding is new.
+    assert_eq!(out.status.code(), Some(3), "{log}");
+    assert!(log.contains("day findings:"), "{log}");
+    assert!(log.contains("bore by machine: M2 stands out"), "{log}");
+    assert!(log.contains("alert: `"), "{log}");
+    let doc: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(dir.join("alert-input.json")).unwrap())
+            .unwrap();
+    let new = doc["new"].as_array().unwrap();
+    let m2 = new
+        .iter()
+        .find(|f| f["characteristic"] == "bore" && f["factor"] == "machine")
+        .unwrap_or_else(|| panic!("{doc}"));
+    assert_eq!(m2["group"], "M2");
+    assert_eq!(m2["status"], "open");
+    assert_eq!(m2["first_flagged"], "2026-11-30");
+    assert!(doc["caution"]
+        .as_str()
+        .unwrap()
+        .contains("decision support"));
+    let status = common::samewise_ok(&dir, &["status"]);
+    assert!(status.contains("delivered (exit status 0)"), "{status}");
+    assert!(status.contains("open findings: "), "{status}");
+
+    // The same finding in `findings`, with a note kept beside it.
+    let id = m2["id"].as_i64().unwrap().to_string();
+    common::samewise_ok(
+        &dir,
+        &[
+            "findings",
+            "note",
+            &id,
+            "containment: 100 % check of M2 bores",
+        ],
+    );
+    let list = common::samewise_ok(&dir, &["findings"]);
+    assert!(
+        list.contains("containment: 100 % check of M2 bores"),
+        "{list}"
+    );
+    let csv = dir.join("findings.csv");
+    common::samewise_ok(&dir, &["findings", "--all", "--csv", csv.to_str().unwrap()]);
+    assert!(std::fs::read_to_string(&csv).unwrap().contains(",M2,"));
+
+    // A failing alert command (a fresh plant): logged, shown in status; the pass and its exit
+    // status are those of the checks.
+    let dir = common::temp_dir("issue-16-alert-fails");
+    let config = common::invented_plant(&dir, 4);
+    let text = std::fs::read_to_string(&config).unwrap();
+    std::fs::write(
+        &config,
+        format!("{text}\n[alert]\ncommand = [\"/bin/false\"]\n"),
+    )
+    .unwrap();
+    let out = common::samewise(&dir, &["schedule", "due", "--now", now]);
+    let log = common::output_text(&out);
+    assert_eq!(out.status.code(), Some(3), "{log}");
+    assert!(log.contains("failed (exited with status 1)"), "{log}");
+    assert!(log.contains("the checks are not affected"), "{log}");
+    let status = common::samewise_ok(&dir, &["status"]);
+    assert!(status.contains("exited with status 1"), "{status}");
+
+    // A command that hangs is stopped after its timeout; the pass goes on.
+    let dir = common::temp_dir("issue-16-alert-hangs");
+    let config = common::invented_plant(&dir, 4);
+    let text = std::fs::read_to_string(&config).unwrap();
+    std::fs::write(
+        &config,
+        format!("{text}\n[alert]\ncommand = [\"/bin/sleep\", \"30\"]\ntimeout = \"1s\"\n"),
+    )
+    .unwrap();
+    let started = std::time::Instant::now();
+    let out = common::samewise(&dir, &["schedule", "due", "--now", now]);
+    let log = common::output_text(&out);
+    assert_eq!(out.status.code(), Some(3), "{log}");
+    assert!(log.contains("stopped after its timeout of 1 s"), "{log}");
+    assert!(
+        started.elapsed() < std::time::Duration::from_secs(20),
+        "{log}"
+    );
+}

@@ -35,6 +35,7 @@
 //! "New" marks a flag that the latest complete run of the previous period of the same kind did
 //! not have (when no previous run exists, every flag is new).
 
+pub mod findings;
 pub mod report;
 pub mod run;
 

@@ -128,7 +128,36 @@ pub fn run(args: &CheckArgs) -> Result<ExitCode> {
     if let Some(path) = &args.csv {
         write_csv(path, &content)?;
     }
+    // A new check brings the findings of its period kind up to date (ranges have none).
+    let findings = if args.stored || period.kind == crate::model::PeriodKind::Range {
+        None
+    } else {
+        let update = crate::analysis::findings::update_findings(
+            &mut store,
+            &config,
+            period.kind,
+            Utc::now(),
+        )?;
+        Some(super::findings::summary_lines(
+            &store,
+            config.plant.time_zone,
+            &update,
+        )?)
+    };
     let mut out = std::io::stdout().lock();
+    if let (Some(lines), false) = (&findings, args.json) {
+        let mut block = || -> std::io::Result<()> {
+            for line in lines {
+                writeln!(out, "{line}")?;
+            }
+            writeln!(out)
+        };
+        if let Err(e) = block() {
+            if e.kind() != std::io::ErrorKind::BrokenPipe {
+                return Err(Error::io("<stdout>", e));
+            }
+        }
+    }
     let written = if args.json {
         print_json(&mut out, &config, &period, &run, &content)
     } else {

@@ -294,6 +294,17 @@ pub fn run(args: &DemoArgs) -> Result<ExitCode> {
             .join(", ")
     );
 
+    // The scheduler's findings of every period kind it checked.
+    let mut kinds: Vec<crate::model::PeriodKind> = Vec::new();
+    for s in &config.schedules {
+        if !kinds.contains(&s.period) {
+            kinds.push(s.period);
+        }
+    }
+    for kind in kinds {
+        crate::analysis::findings::update_findings(&mut store, &config, kind, demo_now())?;
+    }
+
     let calendar = PlantCalendar::new(&config);
     let last_day = sample::first_day() + chrono::Duration::days(sample::N_DAYS - 1);
     let period = calendar.day(last_day);
@@ -378,6 +389,24 @@ pub fn run(args: &DemoArgs) -> Result<ExitCode> {
         }
     );
 
+    let daily: Vec<crate::model::Finding> = store
+        .findings(Some(crate::model::PeriodKind::Day))?
+        .into_iter()
+        .collect();
+    println!(
+        "\n   Findings of the daily checks (samewise findings --all --kind day): {} ({} open)",
+        daily.len(),
+        daily
+            .iter()
+            .filter(|f| f.status == crate::model::FindingStatus::Open)
+            .count()
+    );
+    for f in &daily {
+        for line in super::findings::finding_lines(f, config.plant.time_zone, &[]) {
+            println!("   {line}");
+        }
+    }
+
     // 6. The monthly review report and charts of the last full month.
     let month = calendar.month(2026, 11)?;
     let report_path = args.dir.join(format!("review-{}.html", month.label));
@@ -404,6 +433,7 @@ pub fn run(args: &DemoArgs) -> Result<ExitCode> {
     }
     println!(
         "\nTry next (in {}):\n  samewise check --day 2026-11-29 --config plant.toml\n  \
+         samewise findings --all --config plant.toml\n  \
          samewise history bore_diameter --by machine --last 30 --config plant.toml\n  \
          samewise investigate bore_diameter --by machine --event 3 --config plant.toml\n  \
          samewise report --month 2026-11 --out review.html --config plant.toml",

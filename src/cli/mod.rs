@@ -40,6 +40,7 @@ macro_rules! eprintln {
     }};
 }
 
+pub mod alert;
 pub mod chart;
 pub mod check;
 pub mod common;
@@ -47,6 +48,7 @@ pub mod compare;
 pub mod db;
 pub mod demo;
 pub mod event;
+pub mod findings;
 pub mod format;
 pub mod history;
 pub mod import;
@@ -129,6 +131,10 @@ pub enum Command {
         after_help = "Exit status: 0 done, nothing flagged; 3 done, at least one test flagged; 4 done, but the period holds no measurement of the checked characteristics (an export may be missing); 1 an error stopped it (the run is kept as failed); 2 the command line could not be parsed. A closed stdout does not change the status."
     )]
     Check(check::CheckArgs),
+    /// Findings: flags of one group joined over the periods (which group, how much, since
+    /// when, after which logged change); `findings note N TEXT` adds a note.
+    #[command(after_help = EXITS_COMMON)]
+    Findings(findings::FindingsArgs),
     /// The trend of one comparison (characteristic by factor) over the stored runs.
     #[command(after_help = EXITS_COMMON)]
     History(history::HistoryArgs),
@@ -240,6 +246,7 @@ fn run_command(args: Args) -> crate::Result<ExitCode> {
         Command::GenerateBenchData(a) => import::generate(&a),
         Command::Check(a) => check::run(&a),
         Command::History(a) => history::run(&a),
+        Command::Findings(a) => findings::run(&a, chrono::Utc::now()),
         Command::Schedule(a) => schedule::run(&a),
         Command::Report(a) => report::run(&a, chrono::Utc::now()),
         Command::Chart(a) => chart::run(&a),

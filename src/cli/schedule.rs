@@ -12,8 +12,12 @@ use std::sync::Arc;
 use chrono::{DateTime, Utc};
 use clap::{Args, Subcommand};
 
+use crate::analysis::findings::{update_findings, FindingsUpdate};
 use crate::analysis::run::EngineRunner;
-use crate::schedule::{self, Clock, PeriodOutcome, SchedulerOptions, SimulatedClock};
+use crate::config::Config;
+use crate::model::PeriodKind;
+use crate::schedule::{self, Clock, PassEntry, PeriodOutcome, SchedulerOptions, SimulatedClock};
+use crate::storage::Store;
 use crate::{Error, Result};
 
 /// Flags of `samewise schedule`.
@@ -117,7 +121,7 @@ pub fn run(args: &ScheduleArgs) -> Result<ExitCode> {
                 }
                 None => &wall,
             };
-            schedule::run_pass(
+            let entries = schedule::run_pass(
                 &mut store,
                 &config,
                 clock,
@@ -125,7 +129,9 @@ pub fn run(args: &ScheduleArgs) -> Result<ExitCode> {
                 &options,
                 &stop,
                 &mut log,
-            )?
+            )?;
+            after_pass(&mut store, &config, &entries, &mut log);
+            entries
         }
         ScheduleAction::Run { since } => {
             options.start = since
@@ -133,7 +139,11 @@ pub fn run(args: &ScheduleArgs) -> Result<ExitCode> {
                 .map(|s| parse_instant("--since", s))
                 .transpose()?;
             let clock = WallClock { stop: stop.clone() };
-            schedule::run_forever(
+            let mut after =
+                |store: &mut Store, entries: &[PassEntry], log: &mut dyn FnMut(&str)| {
+                    after_pass(store, &config, entries, log)
+                };
+            schedule::run_forever_with(
                 &mut store,
                 &config,
                 &clock,
@@ -142,6 +152,7 @@ pub fn run(args: &ScheduleArgs) -> Result<ExitCode> {
                 &stop,
                 None,
                 &mut log,
+                &mut after,
             )?
         }
     };
@@ -168,4 +179,59 @@ pub fn run(args: &ScheduleArgs) -> Result<ExitCode> {
     } else {
         super::EXIT_OK
     }))
+}
+
+/// After a scheduler pass: the findings of every period kind that got a complete run are brought
+/// up to date and logged, and the `[alert]` command gets the new, closed and reopened ones.
+/// Nothing here fails the pass: a problem is logged.
+fn after_pass(
+    store: &mut Store,
+    config: &Config,
+    entries: &[PassEntry],
+    log: &mut dyn FnMut(&str),
+) {
+    let mut kinds: Vec<PeriodKind> = Vec::new();
+    for e in entries {
+        if !matches!(e.outcome, PeriodOutcome::Completed(..)) {
+            continue;
+        }
+        if let Some(s) = config.schedules.iter().find(|s| s.name == e.schedule) {
+            if !kinds.contains(&s.period) {
+                kinds.push(s.period);
+            }
+        }
+    }
+    let mut all = FindingsUpdate::default();
+    for kind in kinds {
+        match update_findings(store, config, kind, Utc::now()) {
+            Ok(update) => {
+                let tz = config.plant.time_zone;
+                match super::findings::summary_lines(store, tz, &update) {
+                    Ok(lines) => {
+                        log(&format!("{} findings:", kind.as_str()));
+                        for line in lines {
+                            log(&line);
+                        }
+                    }
+                    Err(e) => log(&format!("findings could not be listed: {e}")),
+                }
+                all.new.extend(update.new);
+                all.changed.extend(update.changed);
+                all.open.extend(update.open);
+            }
+            Err(e) => log(&format!(
+                "{} findings could not be brought up to date: {e}",
+                kind.as_str()
+            )),
+        }
+    }
+    if let Some(alert) = &config.alert {
+        let n = (all.new.len() + all.changed.len()) as u32;
+        if n > 0 {
+            match super::findings::alert_document(store, config, &all, Utc::now()) {
+                Ok(doc) => log(&super::alert::run_alert(store, alert, &doc, n, &Utc::now)),
+                Err(e) => log(&format!("alert: the findings could not be read: {e}")),
+            }
+        }
+    }
 }

@@ -68,6 +68,23 @@ pub fn run(args: &StatusArgs) -> Result<ExitCode> {
     }
     println!("rejected rows: {}", status.n_rejected);
     println!("events: {}", status.n_events);
+    match store.last_alert()? {
+        None if config.alert.is_some() => println!("last alert: none yet"),
+        None => {}
+        Some(a) => println!(
+            "last alert: {} to `{}` for {} finding(s): {}",
+            fmt(Some(a.started)),
+            a.command,
+            a.n_findings,
+            a.error.as_deref().unwrap_or("delivered (exit status 0)")
+        ),
+    }
+    let open = store
+        .findings(None)?
+        .into_iter()
+        .filter(|f| f.status == crate::model::FindingStatus::Open)
+        .count();
+    println!("open findings: {open} (`samewise findings`)");
     if status.stale_periods.is_empty() {
         println!("stale periods: none");
     } else {

@@ -390,6 +390,36 @@ pub fn run_forever(
     until: Option<DateTime<Utc>>,
     log: &mut dyn FnMut(&str),
 ) -> Result<Vec<PassEntry>> {
+    let mut nothing = |_: &mut Store, _: &[PassEntry], _: &mut dyn FnMut(&str)| {};
+    run_forever_with(
+        store,
+        config,
+        clock,
+        runner,
+        options,
+        stop,
+        until,
+        log,
+        &mut nothing,
+    )
+}
+
+/// What runs after each pass of [`run_forever_with`] (findings and alerts, in the CLI).
+pub type AfterPass<'a> = &'a mut dyn FnMut(&mut Store, &[PassEntry], &mut dyn FnMut(&str));
+
+/// [`run_forever`], calling `after_pass` with each pass's entries.
+#[allow(clippy::too_many_arguments)]
+pub fn run_forever_with(
+    store: &mut Store,
+    config: &Config,
+    clock: &dyn Clock,
+    runner: &mut dyn PeriodRunner,
+    options: &SchedulerOptions,
+    stop: &AtomicBool,
+    until: Option<DateTime<Utc>>,
+    log: &mut dyn FnMut(&str),
+    after_pass: AfterPass<'_>,
+) -> Result<Vec<PassEntry>> {
     if config.schedules.is_empty() {
         return Err(Error::Config {
             path: config.path.clone(),
@@ -402,6 +432,7 @@ pub fn run_forever(
             break;
         }
         let entries = run_pass(store, config, clock, runner, options, stop, log)?;
+        after_pass(store, &entries, log);
         let had_failure = entries
             .iter()
             .any(|e| matches!(e.outcome, PeriodOutcome::Failed(..) | PeriodOutcome::Leased));

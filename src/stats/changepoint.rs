@@ -259,6 +259,122 @@ fn percentile(sorted: &[f64], q: f64) -> f64 {
     sorted[lo] + (h - lo as f64) * (sorted[hi] - sorted[lo])
 }
 
+/// The start of a trend: a two-phase ("broken stick") regression whose first phase is level and
+/// whose second rises or falls linearly, `x_t = a` for `t <= k` and `a + b (t - k)` after (a
+/// segmented regression with an estimated join point: Hudson 1966, "Fitting segmented curves
+/// whose join points have to be estimated", JASA 61, 1097-1129; Hinkley 1971, "Inference in
+/// two-phase regression", JASA 66, 736-743 — from memory). A drift that grows after a change
+/// (tool wear after a holder was fitted) has its onset at the join point, where a mean-split
+/// scan would put it in the middle of the ramp.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Trend {
+    /// The join point: the last index of the level phase (the trend starts after it).
+    pub index: usize,
+    /// The level before the join.
+    pub level: f64,
+    /// The slope after it, per step.
+    pub slope: f64,
+    /// Residual sum of squares of the fit.
+    pub rss: f64,
+    /// Bootstrap percentile interval of the join point (residual bootstrap that refits it).
+    pub index_low: usize,
+    /// Upper end of the join-point interval.
+    pub index_high: usize,
+}
+
+/// The least-squares join point of `x` over `k` in `first..=x.len() - 3` and its fit:
+/// (k, level, slope, rss).
+fn best_join(x: &[f64], first: usize) -> Option<(usize, f64, f64, f64)> {
+    let n = x.len();
+    let mean = x.iter().sum::<f64>() / n as f64;
+    let syy: f64 = x.iter().map(|v| (v - mean) * (v - mean)).sum();
+    let mut best: Option<(usize, f64, f64, f64)> = None;
+    for k in first..n.saturating_sub(2) {
+        // z_t = max(0, t - k); OLS of x on (1, z).
+        let m = (n - 1 - k) as f64; // values with z > 0: z = 1..=m
+        let sz = m * (m + 1.0) / 2.0;
+        let szz_raw = m * (m + 1.0) * (2.0 * m + 1.0) / 6.0;
+        let zbar = sz / n as f64;
+        let szz = szz_raw - n as f64 * zbar * zbar;
+        if szz <= 0.0 {
+            continue;
+        }
+        let szy: f64 = x[k + 1..]
+            .iter()
+            .enumerate()
+            .map(|(j, v)| (j + 1) as f64 * (v - mean))
+            .sum();
+        let slope = szy / szz;
+        let rss = (syy - slope * szy).max(0.0);
+        if best.is_none_or(|b| rss < b.3) {
+            best = Some((k, mean - slope * zbar, slope, rss));
+        }
+    }
+    best
+}
+
+/// Fits the two-phase trend model of [`Trend`] to `x` (time order), with a join point no
+/// earlier than index `first`, and a residual-bootstrap interval for the join point
+/// (`options.bootstrap` replicates, `options.confidence`, `options.rng_state`).
+///
+/// Unavailable with fewer than 5 values, a value that is not finite, or no join point to fit.
+pub fn trend_onset(x: &[f64], first: usize, options: &ScanOptions) -> Stat<Trend> {
+    if x.len() < 5 {
+        return Err(Unavailable::new(format!(
+            "{} values are too few to fit a trend's start (at least 5)",
+            x.len()
+        )));
+    }
+    if let Some(i) = x.iter().position(|v| !v.is_finite()) {
+        return Err(Unavailable::new(format!("value {i} is not finite")));
+    }
+    let (k, level, slope, rss) = best_join(x, first)
+        .ok_or_else(|| Unavailable::new("no join point leaves a trend phase to fit"))?;
+    let fitted: Vec<f64> = (0..x.len())
+        .map(|t| level + slope * t.saturating_sub(k) as f64)
+        .collect();
+    let residuals: Vec<f64> = x.iter().zip(&fitted).map(|(v, f)| v - f).collect();
+    let mut rng = SplitMix64::new(options.rng_state);
+    let mut joins: Vec<f64> = Vec::with_capacity(options.bootstrap);
+    let mut sample = vec![0.0; x.len()];
+    for _ in 0..options.bootstrap {
+        for (t, s) in sample.iter_mut().enumerate() {
+            *s = fitted[t] + residuals[rng.below(residuals.len() as u64) as usize];
+        }
+        if let Some((kb, ..)) = best_join(&sample, first) {
+            joins.push(kb as f64);
+        }
+    }
+    let (index_low, index_high) = if joins.is_empty() {
+        (k, k)
+    } else {
+        joins.sort_by(f64::total_cmp);
+        let tail = (1.0 - options.confidence) / 2.0;
+        (
+            percentile(&joins, tail).floor() as usize,
+            percentile(&joins, 1.0 - tail).ceil() as usize,
+        )
+    };
+    Ok(Trend {
+        index: k,
+        level,
+        slope,
+        rss,
+        index_low,
+        index_high,
+    })
+}
+
+/// The residual sum of squares of the best single mean split of `x` (the step model), for
+/// comparing it with [`trend_onset`]'s fit (both have two parameters).
+pub fn step_rss(x: &[f64], min_segment: usize) -> Option<f64> {
+    if x.len() < 2 * min_segment.max(1) {
+        return None;
+    }
+    let (_, b, total) = best_split(x, min_segment.max(1));
+    Some((total - b).max(0.0))
+}
+
 /// Scans `x` (time order) for changes in the mean. See the module documentation for the method.
 ///
 /// Returns `Unavailable` when the options are invalid, a value is not finite, or the series is
@@ -620,5 +736,36 @@ mod tests {
         let a = scan(&x, &ScanOptions::default()).unwrap();
         let b = scan(&x, &ScanOptions::default()).unwrap();
         assert_eq!(a, b);
+    }
+
+    // A level series that starts to rise linearly after index 19: the join point is found there
+    // (exactly, without noise), where a mean split would land in the middle of the ramp.
+    #[test]
+    fn trend_onset_finds_the_start_of_a_ramp() {
+        let x: Vec<f64> = (0..40)
+            .map(|t: usize| 1.0 + 0.25 * t.saturating_sub(19) as f64)
+            .collect();
+        let t = trend_onset(&x, 0, &ScanOptions::default()).unwrap();
+        assert_eq!(t.index, 19);
+        assert!((t.slope - 0.25).abs() < 1e-12, "{}", t.slope);
+        assert!((t.level - 1.0).abs() < 1e-12, "{}", t.level);
+        assert!(t.rss < 1e-18);
+        assert_eq!((t.index_low, t.index_high), (19, 19));
+        let (k, ..) = best_split(&x, 3);
+        assert!(k > 25, "the mean split lands in the ramp: {k}");
+        assert!(step_rss(&x, 3).unwrap() > 1.0);
+    }
+
+    // With noise the interval covers the true join point. Values from SplitMix64 (uniform
+    // noise of half-width 0.5 around a ramp of slope 0.2 after index 29).
+    #[test]
+    fn trend_onset_interval_covers_the_join_with_noise() {
+        let mut rng = SplitMix64::new(7);
+        let x: Vec<f64> = (0..60)
+            .map(|t: usize| 0.2 * t.saturating_sub(29) as f64 + rng.next_f64() - 0.5)
+            .collect();
+        let t = trend_onset(&x, 0, &ScanOptions::default()).unwrap();
+        assert!(t.index_low <= 29 && 29 <= t.index_high, "{t:?}");
+        assert!(t.index.abs_diff(29) <= 4, "{t:?}");
     }
 }

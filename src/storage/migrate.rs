@@ -43,6 +43,10 @@ pub const MIGRATIONS: &[Migration] = &[
         name: "0005_import_undo_rejections.sql",
         sql: include_str!("../../migrations/0005_import_undo_rejections.sql"),
     },
+    Migration {
+        name: "0006_findings.sql",
+        sql: include_str!("../../migrations/0006_findings.sql"),
+    },
 ];
 
 /// SQLite's `PRAGMA application_id` of a samewise database: "SMWS" in ASCII. Set when a database

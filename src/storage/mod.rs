@@ -17,6 +17,7 @@
 //! 1000000000000.3 keep every digit; see `migrations/0001_initial.sql`.
 
 mod events;
+mod findings;
 mod import;
 mod imports;
 mod maintenance;
@@ -26,6 +27,7 @@ mod query;
 pub mod runs;
 
 pub use events::{Event, NewEvent};
+pub use findings::{AlertRecord, FlagHistoryRow};
 pub use import::{ImportCpu, ImportOptions, ImportReport, PriorImport, MAX_KEPT_REJECTIONS};
 pub use imports::{ImportRecord, UndoReport};
 pub use maintenance::{CharacteristicStatus, IntegrityReport, Status};
