@@ -853,15 +853,14 @@ fn coverage(
     month: &Period,
     days: &[NaiveDate],
 ) -> Result<Coverage> {
-    let frame = store.load_period(month.start, month.end, None)?;
+    // Counted with queries along the primary key: no value of the month is loaded.
+    let rows_by_characteristic = store.count_between(month.start, month.end)?;
+    let rows_stored = rows_by_characteristic.iter().map(|c| c.1).sum();
     let mut with_data = BTreeSet::new();
-    let mut rows_by_characteristic = Vec::new();
-    let mut rows_stored = 0u64;
-    for c in &frame.characteristics {
-        rows_stored += c.values.len() as u64;
-        rows_by_characteristic.push((c.characteristic.name.clone(), c.values.len() as u64));
-        for &t in &c.ts_ms {
-            with_data.insert(calendar.production_day(ms(t)));
+    for &d in days {
+        let day = calendar.day(d);
+        if store.has_data_between(day.start, day.end)? {
+            with_data.insert(d);
         }
     }
     Ok(Coverage {

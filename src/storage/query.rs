@@ -153,7 +153,51 @@ pub(crate) fn unknown_characteristic(name: &str, known: &[StoredCharacteristic])
     Error::Usage(format!("unknown characteristic \"{name}\"{hint}"))
 }
 
+
 impl Store {
+    /// Measurements stored per characteristic in `[start, end)` (every stored characteristic,
+    /// in id order), counted along the primary key without loading a value.
+    pub fn count_between(
+        &self,
+        start: DateTime<Utc>,
+        end: DateTime<Utc>,
+    ) -> Result<Vec<(String, u64)>> {
+        let stored = load_characteristics(&self.conn)?;
+        let mut stmt = self.conn.prepare_cached(
+            "SELECT COUNT(*) FROM measurements WHERE characteristic_id = ?1 \
+             AND ts_ms >= ?2 AND ts_ms < ?3",
+        )?;
+        stored
+            .iter()
+            .map(|c| {
+                let n: i64 = stmt.query_row(
+                    rusqlite::params![c.id, start.timestamp_millis(), end.timestamp_millis()],
+                    |r| r.get(0),
+                )?;
+                Ok((c.config.name.clone(), n as u64))
+            })
+            .collect()
+    }
+
+    /// Whether any measurement lies in `[start, end)` (one index probe per characteristic).
+    pub fn has_data_between(&self, start: DateTime<Utc>, end: DateTime<Utc>) -> Result<bool> {
+        let stored = load_characteristics(&self.conn)?;
+        let mut stmt = self.conn.prepare_cached(
+            "SELECT EXISTS (SELECT 1 FROM measurements WHERE characteristic_id = ?1 \
+             AND ts_ms >= ?2 AND ts_ms < ?3)",
+        )?;
+        for c in &stored {
+            let found: bool = stmt.query_row(
+                rusqlite::params![c.id, start.timestamp_millis(), end.timestamp_millis()],
+                |r| r.get(0),
+            )?;
+            if found {
+                return Ok(true);
+            }
+        }
+        Ok(false)
+    }
+
     /// The measurements with `start <= ts < end` of the characteristics named (all when `None`),
     /// columnar and in time order, read in one pass per characteristic.
     ///
