@@ -76,29 +76,29 @@ fn trend_has_one_series_per_group_with_a_point_per_period() {
 }
 
 #[test]
-fn trend_axis_covers_data_and_spec_limits_and_ticks_match_the_layout() {
+fn trend_axis_fits_the_data_and_names_limits_beyond_it() {
     let mut input = inputs::trend("bore diameter", "machine", &LEVELS, 30);
-    // Put one interval beyond the upper limit: the axis must still cover it.
+    // Put one interval beyond the upper limit: the axis must cover it, and the upper limit then
+    // lies inside the axis and is drawn as a line at its value.
     input.periods[3].groups[2].ci_high = Some(12.071);
     let chart = draw_trend(&input, Format::Svg, Size::DEFAULT).unwrap();
     let svg = parse_svg(&chart.bytes);
     let p = &chart.layout.panels[0];
-    let lo = input
-        .periods
-        .iter()
-        .flat_map(|p| &p.groups)
-        .filter_map(|g| g.ci_low)
-        .fold(f64::INFINITY, f64::min)
-        .min(11.95);
-    let hi = input
-        .periods
-        .iter()
-        .flat_map(|p| &p.groups)
-        .filter_map(|g| g.ci_high)
-        .fold(f64::NEG_INFINITY, f64::max)
-        .max(12.05);
+    let values = || {
+        input
+            .periods
+            .iter()
+            .flat_map(|p| &p.groups)
+            .flat_map(|g| [Some(g.mean), g.ci_low, g.ci_high])
+            .flatten()
+    };
+    let lo = values().fold(f64::INFINITY, f64::min);
+    let hi = values().fold(f64::NEG_INFINITY, f64::max);
     assert_eq!(hi, 12.071);
     assert!(p.y_min < lo && p.y_max > hi, "{p:?}");
+    // The axis fits the data (6 % padding), not the limits: the lower limit lies below it.
+    assert!(p.y_min > lo - 0.07 * (hi - lo), "{p:?}");
+    assert!(p.y_min > 11.95, "{p:?}");
     // The tick labels printed in the SVG agree with the layout's mapping, so the layout is what
     // was drawn.
     let ticks = y_ticks(&svg, p);
@@ -110,14 +110,43 @@ fn trend_axis_covers_data_and_spec_limits_and_ticks_match_the_layout() {
             p.y_px(v)
         );
     }
-    // Spec limit and target labels sit at their values.
-    for (label, v) in [("USL 12.050", 12.05), ("LSL 11.950", 11.95)] {
-        let t = svg.text(label);
-        assert_eq!(t.len(), 1, "{label}");
-        assert!((t[0].y - p.y_px(v)).abs() <= 1.0);
-    }
+    // The upper limit inside the axis: its label at its value. The lower limit below the axis:
+    // named with its value and an arrow at the panel's bottom edge.
+    let t = svg.text("USL 12.050");
+    assert_eq!(t.len(), 1);
+    assert!((t[0].y - p.y_px(12.05)).abs() <= 1.0);
+    let below = svg.text("LSL 11.950 \u{2193}");
+    assert_eq!(below.len(), 1, "{:?}", svg.texts);
+    assert!((below[0].y - p.bottom).abs() <= 20.0, "{below:?} {p:?}");
     assert!(svg.has_text("target 12.000"));
     assert!(svg.has_text("bore diameter (mm)"));
+}
+
+/// The standing-out group of a finding is drawn in colour on top and the others muted in grey
+/// without intervals; the legend names both.
+#[test]
+fn trend_highlights_the_standing_out_group() {
+    let mut input = inputs::trend("bore diameter", "machine", &LEVELS, 30);
+    input.highlight = Some(LEVELS[2].to_string());
+    let chart = draw_trend(&input, Format::Svg, Size::DEFAULT).unwrap();
+    let svg = parse_svg(&chart.bytes);
+    assert!(svg.has_text(&format!("{} (stands out)", LEVELS[2])));
+    assert!(svg.has_text(&format!("the other {} groups", LEVELS.len() - 1)));
+    let muted = svg
+        .shapes
+        .iter()
+        .filter(|s| s.tag == "circle" && s.fill == "#AFAFAF")
+        .count();
+    let coloured = svg
+        .shapes
+        .iter()
+        .filter(|s| s.tag == "circle" && s.fill != "#AFAFAF")
+        .count();
+    assert!(
+        muted >= 30 * (LEVELS.len() - 1) - 5,
+        "{muted} muted markers"
+    );
+    assert!(coloured < muted, "{coloured} coloured markers");
 }
 
 #[test]

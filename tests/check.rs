@@ -441,7 +441,15 @@ fn check_command_flags_stores_versions_and_history() {
         String::from_utf8_lossy(&out.stderr)
     );
     let text = String::from_utf8_lossy(&out.stdout);
-    let first = text.lines().nth(2).unwrap();
+    // The summary opens with the findings (issue 16), then the run's table.
+    assert!(text.starts_with("findings: 1 new"), "{text}");
+    assert!(text.contains("bore by machine: M2 stands out"), "{text}");
+    let lines: Vec<&str> = text.lines().collect();
+    let head = lines
+        .iter()
+        .position(|l| l.starts_with("check 2026-11-30"))
+        .unwrap_or_else(|| panic!("{text}"));
+    let first = lines[head + 2];
     assert!(first.starts_with("differs and material"), "{text}");
     assert!(first.contains("bore") && first.contains("machine") && first.contains("M2"));
     assert!(text.contains(samewise::CAUTION));

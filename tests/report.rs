@@ -258,3 +258,109 @@ fn chart_errors_name_the_fix() {
     );
     assert!(String::from_utf8_lossy(&out.stderr).contains("no event #99"));
 }
+
+/// Issue 16: the month report of an invented 32-cavity plant (two parts per cavity and day, 30
+/// days, cavity C17 0.6 SD high from day 10) opens with its findings, draws the finding's trend
+/// with the standing-out cavity highlighted, keeps the chronological flag list collapsed, and
+/// stays under 2 MB.
+#[test]
+fn issue_16_report_of_32_cavities_leads_with_findings_and_stays_small() {
+    use chrono::{Duration, TimeZone, Utc};
+    let dir = common::temp_dir("issue-16-32-cavities");
+    std::fs::write(
+        dir.join("plant.toml"),
+        r#"
+[plant]
+name = "Invented moulding plant"
+time_zone = "UTC"
+production_day_start = "06:00"
+database = "plant.db"
+
+[[characteristic]]
+name = "pin_pitch"
+unit = "mm"
+lsl = 2.44
+usl = 2.56
+
+[[characteristic]]
+name = "weight"
+unit = "g"
+lsl = 11.4
+usl = 12.6
+
+[[factor]]
+name = "cavity"
+
+[[schedule]]
+name = "daily"
+period = "day"
+delay = "1h"
+"#,
+    )
+    .unwrap();
+    let mut rng = common::Rng(32);
+    let mut csv = String::from("timestamp,characteristic,value,cavity\n");
+    let t0 = Utc.with_ymd_and_hms(2026, 11, 1, 6, 0, 0).unwrap();
+    for day in 0..30 {
+        for part in 0..12 {
+            for cavity in 1..=32 {
+                let ts = t0 + Duration::days(day) + Duration::minutes(part * 100 + cavity);
+                // 12 parts per cavity and day: enough to see a 0.01 mm (1 SD) cavity offset.
+                let offset = if cavity == 17 && day >= 10 { 0.01 } else { 0.0 };
+                let pitch = 2.5 + 0.01 * rng.normal() + offset;
+                let weight = 12.0 + 0.05 * rng.normal();
+                for (name, v) in [("pin_pitch", pitch), ("weight", weight)] {
+                    csv.push_str(&format!(
+                        "{},{name},{v:.4},C{cavity:02}\n",
+                        ts.format("%Y-%m-%dT%H:%M:%SZ")
+                    ));
+                }
+            }
+        }
+    }
+    std::fs::write(dir.join("m.csv"), csv).unwrap();
+    for args in [
+        vec!["init"],
+        vec!["import", "m.csv"],
+        vec!["schedule", "due", "--now", "2026-12-02T12:00:00Z"],
+    ] {
+        let o = common::samewise(&dir, &args);
+        assert!(
+            o.status.success() || o.status.code() == Some(3),
+            "{args:?}: {}",
+            common::output_text(&o)
+        );
+    }
+    let o = common::samewise(&dir, &["findings", "--json"]);
+    let findings: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
+    let c17 = findings
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|f| f["characteristic"] == "pin_pitch" && f["group"] == "C17")
+        .unwrap_or_else(|| panic!("{findings}"));
+    assert_eq!(c17["status"], "open");
+    let o = common::samewise(&dir, &["report", "--month", "2026-11", "--out", "r.html"]);
+    assert!(o.status.success(), "{}", common::output_text(&o));
+    let html = std::fs::read_to_string(dir.join("r.html")).unwrap();
+    assert!(html.len() < 2_000_000, "report of {} bytes", html.len());
+    let findings_at = html.find("<h2>Findings of the month</h2>").unwrap();
+    let flagged_at = html.find("<h2>Flagged checks</h2>").unwrap();
+    assert!(findings_at < flagged_at, "the findings lead");
+    let section = &html[findings_at..flagged_at];
+    assert!(
+        section.contains("pin_pitch by cavity: C17 stands out"),
+        "{}",
+        &section[..2000.min(section.len())]
+    );
+    assert!(
+        section.contains("C17 (stands out)"),
+        "the legend names the highlighted cavity"
+    );
+    assert!(section.contains("the other 31 groups"));
+    assert!(
+        html[flagged_at..].contains("<details><summary>All "),
+        "the flag list is collapsed"
+    );
+    let _ = std::fs::remove_dir_all(&dir);
+}

@@ -202,6 +202,155 @@ pub fn event_markers(
         .collect())
 }
 
+/// The daily findings active in `month` (flagged in it), open ones first, each kind largest
+/// against the tolerance first, each with its month trend (the group highlighted) and the pairs
+/// of its last flagged day in the month whose interval excludes 0.
+fn finding_items(
+    store: &Store,
+    config: &Config,
+    month: &Period,
+    loaded: &[LoadedRun],
+) -> Result<Vec<crate::report::FindingItem>> {
+    let tz = config.plant.time_zone;
+    let day = |t: DateTime<Utc>| t.with_timezone(&tz).format("%Y-%m-%d").to_string();
+    let signed = |x: f64, digits: usize| {
+        let s = crate::report::format_sig(x, digits);
+        if x > 0.0 {
+            format!("+{s}")
+        } else {
+            s
+        }
+    };
+    let mut items = Vec::new();
+    for f in store.findings(Some(PeriodKind::Day))? {
+        // Flagged inside the month: its episode overlaps the month.
+        if f.last_end <= month.start || f.episode_start >= month.end {
+            continue;
+        }
+        let Some(c) = config.characteristic(&f.characteristic) else {
+            continue;
+        };
+        let events = event_markers(store, Some(&c.name), month.start, month.end)?;
+        let mut trend = trend_from_runs(c, &f.factor, loaded, events);
+        trend.highlight = Some(f.level.clone());
+        let onset = match (f.onset, f.onset_low, f.onset_high) {
+            (Some(o), Some(lo), Some(hi)) => format!(
+                "onset about {} (between {} and {}; {})",
+                day(o),
+                day(lo),
+                day(hi),
+                f.onset_method
+            ),
+            (Some(o), _, _) => format!("onset {} ({})", day(o), f.onset_method),
+            _ => "onset not computed".to_string(),
+        };
+        let since = format!(
+            "Flagged since {} ({} days flagged, the last {}){}; {onset}.",
+            f.episode_label,
+            f.n_flagged,
+            f.last_label,
+            if f.times_reopened > 0 {
+                format!(
+                    ", reopened {} time(s) after closing, first flagged {}",
+                    f.times_reopened, f.first_label
+                )
+            } else {
+                String::new()
+            }
+        );
+        let effect = match f.effect_now {
+            Some(e) => format!(
+                "Effect now {} {} from the grand mean{}{}; peak {}.",
+                signed(e, 3),
+                c.unit,
+                f.effect_now_sd.map_or(String::new(), |s| format!(
+                    ", {} within-group SD",
+                    signed(s, 3)
+                )),
+                f.effect_now_pct.map_or(String::new(), |p| format!(
+                    ", {}% of the tolerance",
+                    signed(p, 3)
+                )),
+                match (f.peak_effect, &f.peak_label) {
+                    (Some(p), Some(l)) => format!("{} {} on {l}", signed(p, 3), c.unit),
+                    _ => "not stored".to_string(),
+                }
+            ),
+            None => "The effect was not stored.".to_string(),
+        };
+        let event = match (f.event_id, f.event_at, &f.event_note) {
+            (Some(id), Some(at), Some(note)) => Some(format!(
+                "Nearest logged change in scope: event #{id}, {} \"{note}\".",
+                at.with_timezone(&tz).format("%Y-%m-%d %H:%M")
+            )),
+            _ => None,
+        };
+        let notes = store
+            .finding_notes(f.id)?
+            .into_iter()
+            .map(|(at, text)| format!("{}: {text}", day(at)))
+            .collect();
+        // The pairs of the last day of the month that flagged it with this group standing out.
+        let last_flag = loaded.iter().rev().find_map(|r| {
+            r.test(&f.characteristic, &f.factor)
+                .filter(|t| {
+                    runs::is_flag_state(&t.state) && t.standout_level.as_deref() == Some(&f.level)
+                })
+                .map(|t| (r, t))
+        });
+        let (mut pairs, mut pairs_not_shown, mut pairs_period) = (Vec::new(), 0, String::new());
+        if let Some((r, t)) = last_flag {
+            pairs_period = r.run.header.period_label.clone();
+            for p in r.content.pairs.iter().filter(|p| p.test_idx == t.test_idx) {
+                if p.ci_low > 0.0 || p.ci_high < 0.0 {
+                    pairs.push(crate::report::PairRow {
+                        a: p.level_a.clone(),
+                        b: p.level_b.clone(),
+                        diff: p.diff,
+                        ci_low: p.ci_low,
+                        ci_high: p.ci_high,
+                        p_adj: p.p_adj,
+                        method: pair_method_name(&p.method),
+                    });
+                } else {
+                    pairs_not_shown += 1;
+                }
+            }
+        }
+        items.push(crate::report::FindingItem {
+            id: f.id,
+            status: f.status.as_str().to_string(),
+            characteristic: f.characteristic.clone(),
+            factor: f.factor.clone(),
+            level: f.level.clone(),
+            unit: c.unit.clone(),
+            since,
+            effect,
+            size_pct: f.effect_now_pct,
+            event,
+            notes,
+            trend,
+            pairs,
+            pairs_not_shown,
+            pairs_period,
+        });
+    }
+    // Open findings first, each group largest against the tolerance first (those without a
+    // tolerance after them).
+    items.sort_by(|a, b| {
+        let key = |i: &crate::report::FindingItem| i.size_pct.map(f64::abs);
+        (b.status == "open")
+            .cmp(&(a.status == "open"))
+            .then(
+                key(b)
+                    .partial_cmp(&key(a))
+                    .unwrap_or(std::cmp::Ordering::Equal),
+            )
+            .then(a.id.cmp(&b.id))
+    });
+    Ok(items)
+}
+
 fn trend_from_runs(
     c: &CharacteristicConfig,
     factor: &str,
@@ -228,6 +377,7 @@ fn trend_from_runs(
         limits: limits(c),
         periods,
         events,
+        highlight: None,
     }
 }
 
@@ -615,13 +765,18 @@ fn flagged_item(c: &CharacteristicConfig, r: &LoadedRun, t: &TestRow) -> Flagged
                 ci_low: p.ci_low,
                 ci_high: p.ci_high,
                 p_adj: p.p_adj,
-                method: match p.method.as_str() {
-                    "games_howell" => "Games-Howell".to_string(),
-                    "tukey_kramer" => "Tukey-Kramer".to_string(),
-                    other => other.to_string(),
-                },
+                method: pair_method_name(&p.method),
             })
             .collect(),
+    }
+}
+
+/// The published name of a stored pair method.
+fn pair_method_name(key: &str) -> String {
+    match key {
+        "games_howell" => "Games-Howell".to_string(),
+        "tukey_kramer" => "Tukey-Kramer".to_string(),
+        other => other.to_string(),
     }
 }
 
@@ -762,6 +917,8 @@ pub fn month_report(
         });
     }
 
+    let findings = finding_items(store, config, month, &loaded)?;
+
     // Investigations: each event of the month that names a characteristic, by the factor its
     // scope names (else the first factor).
     let mut investigations = Vec::new();
@@ -800,6 +957,7 @@ pub fn month_report(
         generated: generated.to_string(),
         counts,
         new_this_month,
+        findings,
         flagged,
         grid: Some(grid),
         characteristics,

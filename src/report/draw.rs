@@ -538,7 +538,7 @@ pub fn render<C: Drawable>(chart: &C, format: Format, size: Size) -> Result<Char
                 layout
             };
             Ok(Chart {
-                bytes: text.into_bytes(),
+                bytes: compact_svg(&text).into_bytes(),
                 layout,
             })
         }
@@ -564,6 +564,14 @@ pub fn render<C: Drawable>(chart: &C, format: Format, size: Size) -> Result<Char
             Ok(Chart { bytes, layout })
         }
     }
+}
+
+/// The SVG without attributes that only restate SVG's defaults (`opacity="1"`, a stroke width
+/// of 1 on a shape without a stroke): a chart of 32 groups over a month holds about a thousand
+/// markers, and the month report embeds several.
+fn compact_svg(text: &str) -> String {
+    text.replace(" opacity=\"1\"", "")
+        .replace(" stroke=\"none\" stroke-width=\"1\"", " stroke=\"none\"")
 }
 
 /// Nice tick positions covering `[lo, hi]` with about `target` steps (1, 2, 2.5 or 5 times a
@@ -1033,6 +1041,46 @@ pub fn limit_lines(limits: &super::Limits, digits: usize) -> Vec<RefLine> {
         });
     }
     out
+}
+
+/// Grey of the groups a highlighted chart mutes.
+pub const MUTED: RGBColor = RGBColor(175, 175, 175);
+
+/// The reference lines inside `[y_min, y_max]`, drawn as lines, and those outside, returned for
+/// [`draw_outside_limits`] (a value axis that fits the data instead of the limits).
+pub fn split_ref_lines(
+    lines: Vec<RefLine>,
+    y_min: f64,
+    y_max: f64,
+) -> (Vec<RefLine>, Vec<RefLine>) {
+    lines
+        .into_iter()
+        .partition(|l| l.value >= y_min && l.value <= y_max)
+}
+
+/// Reference lines beyond the panel's value range: their label with an arrow at the top or
+/// bottom edge, right of the panel ("USL 42.02 ↑ above").
+pub fn draw_outside_limits<DB: DrawingBackend>(
+    c: &Canvas<DB>,
+    p: &Panel,
+    lines: &[RefLine],
+) -> DrawResult {
+    let (mut above, mut below) = (0.0, 0.0);
+    for l in lines {
+        let (y, text) = if l.value > p.y_max {
+            above += 20.0;
+            (p.top + above - 10.0, format!("{} \u{2191}", l.label))
+        } else {
+            below += 20.0;
+            (p.bottom - below + 10.0, format!("{} \u{2193}", l.label))
+        };
+        c.text(
+            &text,
+            (p.right + 8.0, y),
+            TextOpts::new(sizes::NOTE).color(l.color).middle(),
+        )?;
+    }
+    Ok(())
 }
 
 /// Legend entries of the limits present.

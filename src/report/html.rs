@@ -12,7 +12,7 @@ use std::sync::OnceLock;
 use super::draw::format_sig;
 use super::{
     draw_before_after, draw_grid, draw_share, draw_trend, grid_natural_size, FlagState, Format,
-    MethodNote, MonthReport, Size,
+    MethodNote, MonthReport, PairRow, Size,
 };
 
 /// Escapes text for HTML element content and attribute values.
@@ -161,15 +161,17 @@ fn base64(bytes: &[u8]) -> String {
 }
 
 /// `@font-face` rules carrying the embedded DejaVu Sans, so the browser lays text out with the
-/// same font the charts were measured with.
+/// same font the charts were measured with: subsets with Latin, Greek, punctuation, arrows and
+/// mathematical signs (`scripts/subset_fonts.py`; 145 kB instead of 1.4 MB), other characters
+/// fall back to the browser's fonts.
 fn font_css() -> &'static str {
     static CSS_FONTS: OnceLock<String> = OnceLock::new();
     CSS_FONTS.get_or_init(|| {
         format!(
             "@font-face {{ font-family: \"DejaVu Sans\"; font-weight: normal; src: url(data:font/ttf;base64,{}) format(\"truetype\"); }}\n\
              @font-face {{ font-family: \"DejaVu Sans\"; font-weight: bold; src: url(data:font/ttf;base64,{}) format(\"truetype\"); }}\n",
-            base64(include_bytes!("../../assets/fonts/DejaVuSans.ttf")),
-            base64(include_bytes!("../../assets/fonts/DejaVuSans-Bold.ttf"))
+            base64(include_bytes!("../../assets/fonts/DejaVuSans-report.ttf")),
+            base64(include_bytes!("../../assets/fonts/DejaVuSans-Bold-report.ttf"))
         )
     })
 }
@@ -276,6 +278,65 @@ pub fn render_month_report(r: &MonthReport) -> String {
     }
     body.push_str("</section>\n");
 
+    // Findings first: which group, how much, since when, after which change.
+    body.push_str("<section id=\"findings\"><h2>Findings of the month</h2>\n");
+    if r.findings.is_empty() {
+        body.push_str(
+            "<p>No finding: no group stood out in a flagged daily check this month (or the \
+             findings were not brought up to date: run <code>samewise schedule due</code>).</p>\n",
+        );
+    } else {
+        let _ = writeln!(
+            body,
+            "<p>{} finding(s), largest against the tolerance first. A finding joins the daily \
+             flags of one characteristic x factor whose standing-out group is the same \
+             (<code>samewise findings</code>).</p>",
+            r.findings.len()
+        );
+    }
+    for (i, f) in r.findings.iter().enumerate() {
+        let _ = writeln!(
+            body,
+            "<h3 id=\"finding-{}\">#{} {} by {}: {} stands out <span class=\"meta\">({})</span></h3>",
+            i + 1,
+            f.id,
+            escape_html(&f.characteristic),
+            escape_html(&f.factor),
+            escape_html(&f.level),
+            escape_html(&f.status)
+        );
+        body.push_str("<ul>\n");
+        for line in [Some(&f.since), Some(&f.effect), f.event.as_ref()]
+            .into_iter()
+            .flatten()
+        {
+            let _ = writeln!(body, "<li>{}</li>", escape_html(line));
+        }
+        for n in &f.notes {
+            let _ = writeln!(body, "<li>Note {}</li>", escape_html(n));
+        }
+        body.push_str("</ul>\n");
+        figs.figure(
+            &mut body,
+            &format!(
+                "trend of {} by {}, {} highlighted",
+                f.characteristic, f.factor, f.level
+            ),
+            "Group mean per day with 95% interval; the standing-out group in colour, the others in grey; shaded days were flagged.",
+            draw_trend(&f.trend, Format::Svg, Size::DEFAULT),
+        );
+        if !f.pairs_period.is_empty() {
+            let _ = writeln!(
+                body,
+                "<p>Pairs of {} whose simultaneous 95% interval excludes zero ({} other pair(s) include it):</p>",
+                escape_html(&f.pairs_period),
+                f.pairs_not_shown
+            );
+            pair_table(&mut body, &f.unit, &f.pairs);
+        }
+    }
+    body.push_str("</section>\n");
+
     // Overview grid.
     if let Some(g) = &r.grid {
         body.push_str("<section id=\"overview\"><h2>Month overview</h2>\n");
@@ -288,11 +349,16 @@ pub fn render_month_report(r: &MonthReport) -> String {
         body.push_str("</section>\n");
     }
 
-    // Flagged items.
+    // Flagged items: the chronological list, collapsed (the findings above summarise them).
     body.push_str("<section id=\"flagged\"><h2>Flagged checks</h2>\n");
     if r.flagged.is_empty() {
         body.push_str("<p>No check was flagged this month.</p>\n");
     } else {
+        let _ = writeln!(
+            body,
+            "<details><summary>All {} flagged checks of the month in time order, with their pairs</summary>",
+            r.flagged.len()
+        );
         body.push_str(
             "<table><thead><tr><th>characteristic</th><th>factor</th><th>period</th><th>outcome</th>\
              <th>test</th><th>p</th><th>q (after FDR)</th><th>between-group share</th>\
@@ -332,28 +398,26 @@ pub fn render_month_report(r: &MonthReport) -> String {
                 body.push_str("<p>No pairwise comparison available.</p>\n");
                 continue;
             }
+            // Pairs whose interval excludes zero; the rest counted (a plant of 32 cavities has
+            // 496 pairs per check).
+            let shown: Vec<PairRow> = f
+                .pairs
+                .iter()
+                .filter(|p| p.ci_low > 0.0 || p.ci_high < 0.0)
+                .cloned()
+                .collect();
             let _ = writeln!(
                 body,
-                "<table><thead><tr><th>pair</th><th>difference ({})</th><th>simultaneous 95% interval</th>\
-                 <th>adjusted p</th><th>method</th></tr></thead><tbody>",
-                escape_html(&f.unit)
+                "<p>{} of {} pairs have a simultaneous 95% interval that excludes zero{}</p>",
+                shown.len(),
+                f.pairs.len(),
+                if shown.is_empty() { "." } else { ":" }
             );
-            for p in &f.pairs {
-                let _ = writeln!(
-                    body,
-                    "<tr><td>{} \u{2212} {}</td><td class=\"num\">{}</td><td class=\"num\">{} .. {}</td>\
-                     <td class=\"num\">{}</td><td>{}</td></tr>",
-                    escape_html(&p.a),
-                    escape_html(&p.b),
-                    fmt_signed(p.diff, 4),
-                    fmt_signed(p.ci_low, 4),
-                    fmt_signed(p.ci_high, 4),
-                    fmt_p(p.p_adj),
-                    escape_html(&p.method)
-                );
+            if !shown.is_empty() {
+                pair_table(&mut body, &f.unit, &shown);
             }
-            body.push_str("</tbody></table>\n");
         }
+        body.push_str("</details>\n");
     }
     body.push_str("</section>\n");
 
@@ -503,6 +567,7 @@ pub fn render_month_report(r: &MonthReport) -> String {
         escape_html(crate::CAUTION)
     );
     out.push_str("<nav><ol>\n<li><a href=\"#summary\">Summary of the month</a></li>\n");
+    out.push_str("<li><a href=\"#findings\">Findings of the month</a></li>\n");
     if r.grid.is_some() {
         out.push_str("<li><a href=\"#overview\">Month overview</a></li>\n");
     }
@@ -538,6 +603,31 @@ pub fn render_month_report(r: &MonthReport) -> String {
         env!("CARGO_PKG_VERSION")
     );
     out
+}
+
+/// A table of pairwise differences with their simultaneous intervals.
+fn pair_table(body: &mut String, unit: &str, pairs: &[PairRow]) {
+    let _ = writeln!(
+        body,
+        "<table><thead><tr><th>pair</th><th>difference ({})</th><th>simultaneous 95% interval</th>\
+         <th>adjusted p</th><th>method</th></tr></thead><tbody>",
+        escape_html(unit)
+    );
+    for p in pairs {
+        let _ = writeln!(
+            body,
+            "<tr><td>{} \u{2212} {}</td><td class=\"num\">{}</td><td class=\"num\">{} .. {}</td>\
+             <td class=\"num\">{}</td><td>{}</td></tr>",
+            escape_html(&p.a),
+            escape_html(&p.b),
+            fmt_signed(p.diff, 4),
+            fmt_signed(p.ci_low, 4),
+            fmt_signed(p.ci_high, 4),
+            fmt_p(p.p_adj),
+            escape_html(&p.method)
+        );
+    }
+    body.push_str("</tbody></table>\n");
 }
 
 #[cfg(test)]

@@ -156,6 +156,9 @@ pub struct TrendInput {
     pub periods: Vec<TrendPeriod>,
     /// Logged process changes inside (or near) the range.
     pub events: Vec<EventMarker>,
+    /// The group to highlight (a finding's standing-out group): drawn in colour on top, the
+    /// others muted in grey without intervals.
+    pub highlight: Option<String>,
 }
 
 // ---------------------------------------------------------------------------------------------
@@ -376,6 +379,41 @@ pub struct PairRow {
     pub method: String,
 }
 
+/// One finding of the month, as the report opens with them.
+#[derive(Debug, Clone, PartialEq)]
+pub struct FindingItem {
+    /// Its number (`samewise findings`).
+    pub id: i64,
+    /// "open" or "closed".
+    pub status: String,
+    /// Characteristic name.
+    pub characteristic: String,
+    /// Factor name.
+    pub factor: String,
+    /// The standing-out group.
+    pub level: String,
+    /// Unit of the characteristic.
+    pub unit: String,
+    /// Since when, and the onset with its interval and method (one sentence, plant time).
+    pub since: String,
+    /// The effect now and at its peak (one sentence).
+    pub effect: String,
+    /// Size against the tolerance for ranking (|% of tolerance| of the effect now), if known.
+    pub size_pct: Option<f64>,
+    /// The nearest logged change in scope (one sentence), if any.
+    pub event: Option<String>,
+    /// The engineer's notes (one sentence each, dated).
+    pub notes: Vec<String>,
+    /// The month's trend with the group highlighted.
+    pub trend: TrendInput,
+    /// The pairs of the last flagged period of the month whose interval excludes zero.
+    pub pairs: Vec<PairRow>,
+    /// Pairs of that period whose interval includes zero (counted, not listed).
+    pub pairs_not_shown: usize,
+    /// The period the pairs come from.
+    pub pairs_period: String,
+}
+
 /// One flagged check of the month.
 #[derive(Debug, Clone, PartialEq)]
 pub struct FlaggedItem {
@@ -481,6 +519,8 @@ pub struct MonthReport {
     pub counts: StateCounts,
     /// What is new compared with the previous month (one sentence each).
     pub new_this_month: Vec<String>,
+    /// The month's findings, largest against the tolerance first.
+    pub findings: Vec<FindingItem>,
     /// The flagged checks.
     pub flagged: Vec<FlaggedItem>,
     /// The month overview grid.

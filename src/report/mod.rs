@@ -26,6 +26,7 @@ mod trend;
 use std::path::Path;
 
 pub use before_after::before_after_natural_size;
+pub use draw::format_sig;
 pub use draw::{time_to_x, x_to_time, Palette};
 pub use grid::natural_size as grid_natural_size;
 pub use html::{escape_html, render_month_report, standard_methods};

@@ -4,13 +4,17 @@
 use plotters::prelude::DrawingBackend;
 
 use super::draw::{
-    check_finite, draw_events, draw_ref_lines, flag_event_legend, format_number, frame, group_dash,
-    header_with_event_strip, limit_legend, limit_lines, padded_range, require_room, time_to_x,
-    y_axis, Canvas, DrawResult, Drawable, Marker, Palette, Swatch, TimeAxis,
+    check_finite, draw_events, draw_outside_limits, draw_ref_lines, flag_event_legend,
+    format_number, frame, group_dash, header_with_event_strip, limit_legend, limit_lines,
+    padded_range, require_room, split_ref_lines, time_to_x, y_axis, Canvas, DrawResult, Drawable,
+    Marker, Palette, Swatch, TimeAxis, MUTED,
 };
 use super::{Layout, Panel, Size, TrendInput};
 
 pub(super) struct Trend<'a>(pub &'a TrendInput);
+
+/// More groups than this, without a highlighted one, are drawn thin and without intervals.
+pub(super) const CROWDED_GROUPS: usize = 8;
 
 /// Levels in order of first appearance.
 pub(super) fn levels_in_order<'a>(names: impl IntoIterator<Item = &'a str>) -> Vec<String> {
@@ -84,21 +88,47 @@ impl Drawable for Trend<'_> {
                 .flat_map(|p| p.groups.iter().map(|g| g.level.as_str())),
         );
 
-        let mut legend: Vec<(Swatch, String)> = levels
-            .iter()
-            .enumerate()
-            .map(|(i, l)| {
+        let highlight = t
+            .highlight
+            .as_deref()
+            .filter(|h| levels.iter().any(|l| l == h));
+        let mut legend: Vec<(Swatch, String)> = match highlight {
+            Some(h) => vec![
                 (
                     Swatch::Series {
-                        color: Palette::group(i),
-                        marker: Marker::group(i),
-                        dash: group_dash(i),
+                        color: Palette::group(1),
+                        marker: Marker::group(1),
+                        dash: None,
                         line: true,
                     },
-                    l.clone(),
-                )
-            })
-            .collect();
+                    format!("{h} (stands out)"),
+                ),
+                (
+                    Swatch::Series {
+                        color: MUTED,
+                        marker: Marker::group(0),
+                        dash: None,
+                        line: true,
+                    },
+                    format!("the other {} groups", levels.len() - 1),
+                ),
+            ],
+            None => levels
+                .iter()
+                .enumerate()
+                .map(|(i, l)| {
+                    (
+                        Swatch::Series {
+                            color: Palette::group(i),
+                            marker: Marker::group(i),
+                            dash: group_dash(i),
+                            line: true,
+                        },
+                        l.clone(),
+                    )
+                })
+                .collect(),
+        };
         legend.extend(limit_legend(&t.limits));
         legend.extend(flag_event_legend(
             t.periods.iter().map(|p| p.state),
@@ -115,18 +145,16 @@ impl Drawable for Trend<'_> {
             header_with_event_strip(c, w, &title, &subtitle, &legend, !t.events.is_empty())?;
 
         let (x_min, x_max) = time_range(t.periods.iter().map(|p| (p.start, p.end)), &t.events);
+        // The value axis fits the data: a 0.009 g shift stays visible against a 2 g tolerance;
+        // limits beyond it are named at the panel's edge.
         let values = t
             .periods
             .iter()
             .flat_map(|p| p.groups.iter())
             .flat_map(|g| [Some(g.mean), g.ci_low, g.ci_high])
-            .flatten()
-            .chain(
-                [t.limits.lsl, t.limits.usl, t.limits.target]
-                    .into_iter()
-                    .flatten(),
-            );
+            .flatten();
         let (y_min, y_max) = padded_range(values).ok_or("no finite value to draw")?;
+        let (inside, outside) = split_ref_lines(limit_lines(&t.limits, 5), y_min, y_max);
         let panel = Panel {
             name: "trend",
             left: 120.0,
@@ -147,19 +175,51 @@ impl Drawable for Trend<'_> {
         );
         axis.draw_background(c, &panel)?;
         y_axis(c, &panel, &format_number, true)?;
-        draw_ref_lines(c, &panel, &limit_lines(&t.limits, 5), true)?;
+        draw_ref_lines(c, &panel, &inside, true)?;
+        draw_outside_limits(c, &panel, &outside)?;
         draw_events(c, &panel, &t.events, strip_top, true)?;
 
         // Series: dodge the groups sideways within each period so the intervals stay apart.
         let n_levels = levels.len() as f64;
-        for (gi, level) in levels.iter().enumerate() {
-            let color = Palette::group(gi);
+        // With a highlight, the muted groups first and the highlighted one last (on top).
+        let mut order: Vec<usize> = (0..levels.len()).collect();
+        if let Some(h) = highlight {
+            order.sort_by_key(|&i| levels[i] == h);
+        }
+        for gi in order {
+            let level = &levels[gi];
+            let is_muted = highlight.is_some_and(|h| h != level);
+            let is_highlit = highlight.is_some_and(|h| h == level);
+            // Many groups without a highlight: thin lines and markers without intervals, so
+            // the chart stays readable (and small); the detail chart gives the intervals.
+            let crowded = highlight.is_none() && levels.len() > CROWDED_GROUPS;
+            let (color, width, dash, marker, marker_size) = if is_muted {
+                (MUTED, 1, None, Marker::group(0), 3.5)
+            } else if is_highlit {
+                (Palette::group(1), 3, None, Marker::group(1), 7.0)
+            } else if crowded {
+                (
+                    Palette::group(gi),
+                    1,
+                    group_dash(gi),
+                    Marker::group(gi),
+                    3.5,
+                )
+            } else {
+                (
+                    Palette::group(gi),
+                    2,
+                    group_dash(gi),
+                    Marker::group(gi),
+                    6.0,
+                )
+            };
             let mut line: Vec<(f64, f64)> = Vec::new();
             let mut points = Vec::new();
             for p in &t.periods {
                 let Some(g) = p.groups.iter().find(|g| &g.level == level) else {
                     // A gap in the data breaks the connecting line.
-                    c.polyline(&line, color, 2, group_dash(gi))?;
+                    c.polyline(&line, color, width, dash)?;
                     line.clear();
                     continue;
                 };
@@ -170,12 +230,12 @@ impl Drawable for Trend<'_> {
                 line.push((px, panel.y_px(g.mean)));
                 points.push((px, g));
             }
-            c.polyline(&line, color, 2, group_dash(gi))?;
+            c.polyline(&line, color, width, dash)?;
             for (px, g) in points {
-                if let (Some(lo), Some(hi)) = (g.ci_low, g.ci_high) {
+                if let (Some(lo), Some(hi), false) = (g.ci_low, g.ci_high, is_muted || crowded) {
                     c.interval_bar(px, panel.y_px(lo), panel.y_px(hi), color)?;
                 }
-                c.marker(Marker::group(gi), (px, panel.y_px(g.mean)), 6.0, color)?;
+                c.marker(marker, (px, panel.y_px(g.mean)), marker_size, color)?;
             }
         }
         frame(c, &panel)?;

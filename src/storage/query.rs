@@ -153,7 +153,6 @@ pub(crate) fn unknown_characteristic(name: &str, known: &[StoredCharacteristic])
     Error::Usage(format!("unknown characteristic \"{name}\"{hint}"))
 }
 
-
 impl Store {
     /// Measurements stored per characteristic in `[start, end)` (every stored characteristic,
     /// in id order), counted along the primary key without loading a value.

@@ -90,6 +90,7 @@ pub fn trend(characteristic: &str, factor: &str, levels: &[&str], days: u32) -> 
                 label: "coolant change".to_string(),
             },
         ],
+        highlight: None,
     }
 }
 
@@ -293,6 +294,7 @@ pub fn month_report(
             "{} by machine flagged for the first time",
             levels[1]
         )],
+        findings: Vec::new(),
         flagged: vec![FlaggedItem {
             characteristic: "characteristic 01".to_string(),
             factor: factors[0].to_string(),
