@@ -98,6 +98,25 @@ fn event_before_after_shows_the_moved_machine() {
     assert!(s["ci_low"].as_f64().unwrap() < 0.004 && 0.004 < s["ci_high"].as_f64().unwrap());
     let m1 = groups.iter().find(|g| g["group"] == "M1").unwrap();
     assert!(m1["mean_shift"]["p"].as_f64().unwrap() > 0.001);
+    // Issue 16: per-group p-values adjusted across the groups (Benjamini-Hochberg over 3 groups:
+    // the adjusted p of each is at least its raw p and at most 3 times it), shifts in SD units.
+    for g in groups {
+        let s = &g["mean_shift"];
+        let (p, q) = (s["p"].as_f64().unwrap(), s["p_adjusted"].as_f64().unwrap());
+        assert!(q >= p && q <= (3.0 * p).min(1.0) + 1e-15, "{s}");
+        assert_eq!(
+            s["p_adjusted_method"],
+            "Benjamini-Hochberg across the compared groups"
+        );
+        assert!(s["shift_sd"].as_f64().is_some(), "{s}");
+    }
+    assert!(m3["mean_shift"]["shift_sd"].as_f64().unwrap() > 2.0);
+    assert!(v["pooled"]["mean_shift"]["p_adjusted"].is_null());
+    assert!(v["pooled"]["mean_shift"]["p_adjusted_reason"].is_string());
+    assert!(text.contains("p adj"), "{text}");
+    // Times in the plant's zone with its offset.
+    // (this invented plant's zone is UTC: the offset is +00:00).
+    assert_eq!(v["change"]["at"], "2026-11-10T12:00:00+00:00");
     let inter = &v["two_way"]["type2"]["interaction"]["test"]["p"];
     assert!(inter.as_f64().unwrap() < 1e-6, "{inter}");
     // 14 days each side around 2026-11-10 12:00 covers all 20 days.

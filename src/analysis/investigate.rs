@@ -52,6 +52,9 @@ pub struct CompareOptions {
     pub alpha: f64,
     /// Fewest values a group needs on each side to be compared (default 2, at least 2).
     pub min_per_side: u64,
+    /// The tolerance width (USL - LSL), or the distance from the target to a single limit, for
+    /// shifts in % of it.
+    pub tolerance: Option<f64>,
 }
 
 impl Default for CompareOptions {
@@ -60,6 +63,7 @@ impl Default for CompareOptions {
             confidence: 0.95,
             alpha: 0.05,
             min_per_side: 2,
+            tolerance: None,
         }
     }
 }
@@ -79,6 +83,14 @@ pub struct GroupChange {
     pub sd_ratio: Stat<SdRatio>,
     /// Brown-Forsythe test of equal spread before and after.
     pub brown_forsythe: Stat<TestResult>,
+    /// The shift's p-value adjusted across the compared groups (Benjamini-Hochberg): one
+    /// question per group, so some would pass 0.05 by chance alone among many groups. `None` for
+    /// the pooled line and where the shift has no p-value.
+    pub p_adjusted: Option<f64>,
+    /// The shift in within-group SDs (the group's SD before and after pooled).
+    pub shift_sd: Option<f64>,
+    /// The shift in % of the tolerance (or of the distance to a single limit).
+    pub shift_pct_tolerance: Option<f64>,
 }
 
 /// A group left out of the comparison because one side has too few values.
@@ -121,16 +133,33 @@ pub fn format_ms(ms: i64) -> String {
     }
 }
 
-fn group_change(group: String, before: &[f64], after: &[f64], confidence: f64) -> GroupChange {
+fn group_change(
+    group: String,
+    before: &[f64],
+    after: &[f64],
+    confidence: f64,
+    tolerance: Option<f64>,
+) -> GroupChange {
     let b = Summary::from_slice(before);
     let a = Summary::from_slice(after);
+    let mean_shift = welch_shift(&b, &a, confidence);
+    let dof = (b.n + a.n) as f64 - 2.0;
+    let pooled_sd = (dof > 0.0)
+        .then(|| ((b.m2 + a.m2) / dof).sqrt())
+        .filter(|s| *s > 0.0 && s.is_finite());
+    let shift = mean_shift.as_ref().ok().map(|s| s.shift);
     GroupChange {
         group,
         before: b,
         after: a,
-        mean_shift: welch_shift(&b, &a, confidence),
         sd_ratio: sd_ratio(&b, &a, confidence),
         brown_forsythe: brown_forsythe(&[before, after]),
+        p_adjusted: None,
+        shift_sd: shift.zip(pooled_sd).map(|(d, s)| d / s),
+        shift_pct_tolerance: shift
+            .zip(tolerance.filter(|t| *t > 0.0))
+            .map(|(d, t)| 100.0 * d / t),
+        mean_shift,
     }
 }
 
@@ -249,7 +278,22 @@ pub fn compare(
             &before[g],
             &after[g],
             options.confidence,
+            options.tolerance,
         ));
+    }
+    // One question per group: adjust the shifts' p-values across the groups (Benjamini-Hochberg).
+    let raw: Vec<(usize, f64)> = groups
+        .iter()
+        .enumerate()
+        .filter_map(|(i, g)| g.mean_shift.as_ref().ok().map(|s| (i, s.p)))
+        .collect();
+    if let Ok(adjusted) = crate::stats::fdr::adjust(
+        &raw.iter().map(|r| r.1).collect::<Vec<_>>(),
+        crate::stats::fdr::FdrMethod::BenjaminiHochberg,
+    ) {
+        for ((i, _), q) in raw.iter().zip(adjusted) {
+            groups[*i].p_adjusted = Some(q);
+        }
     }
     if kept.is_empty() {
         return Err(not_enough(format!(
@@ -263,6 +307,7 @@ pub fn compare(
         &all_before,
         &all_after,
         options.confidence,
+        options.tolerance,
     );
     let summaries = |side: &[Vec<f64>]| -> Vec<Summary> {
         kept.iter()

@@ -104,6 +104,15 @@ pub fn run(args: &InvestigateArgs, now: DateTime<Utc>) -> Result<ExitCode> {
         after,
         compare: CompareOptions {
             alpha: config.check.alpha,
+            // Shifts in % of the tolerance, or of the distance from the target to a single limit.
+            tolerance: config.characteristic(&args.characteristic).and_then(|c| {
+                match (c.lsl, c.usl, c.target) {
+                    (Some(l), Some(u), _) => Some(u - l),
+                    (Some(l), None, Some(t)) => Some(t - l),
+                    (None, Some(u), Some(t)) => Some(u - t),
+                    _ => None,
+                }
+            }),
             ..CompareOptions::default()
         },
         scan: ScanOptions {
@@ -120,6 +129,7 @@ pub fn run(args: &InvestigateArgs, now: DateTime<Utc>) -> Result<ExitCode> {
         event: found.event.as_ref().map(|e| (e.id, e.note.clone())),
         window_start_ms: found.start.timestamp_millis(),
         window_end_ms: found.end.timestamp_millis(),
+        tz: config.plant.time_zone,
     };
     let text = match &found.outcome {
         Outcome::BeforeAfter(c) => {
@@ -184,6 +194,29 @@ pub struct Context {
     pub window_start_ms: i64,
     /// Window end, exclusive.
     pub window_end_ms: i64,
+    /// The plant's time zone: every time is printed in it (JSON: RFC 3339 with its offset).
+    pub tz: chrono_tz::Tz,
+}
+
+impl Context {
+    /// An instant for the terminal, in the plant's zone ("2026-10-19 06:30:00 CEST").
+    pub fn local(&self, ms: i64) -> String {
+        match chrono::TimeZone::timestamp_millis_opt(&Utc, ms).single() {
+            Some(t) => t
+                .with_timezone(&self.tz)
+                .format("%Y-%m-%d %H:%M:%S %Z")
+                .to_string(),
+            None => format_ms(ms),
+        }
+    }
+
+    /// An instant for JSON: RFC 3339 with the plant's offset.
+    pub fn rfc3339(&self, ms: i64) -> String {
+        match chrono::TimeZone::timestamp_millis_opt(&Utc, ms).single() {
+            Some(t) => t.with_timezone(&self.tz).to_rfc3339(),
+            None => format_ms(ms),
+        }
+    }
 }
 
 /// A logged event near a detected change point.
@@ -225,6 +258,35 @@ fn group_json(g: &GroupChange, origin: f64) -> Value {
                "ci_low": json_number(s.ci_low), "ci_high": json_number(s.ci_high), "confidence": json_number(s.confidence),
                "method": "Welch two-sample t"})
     });
+    if let Some(Value::Object(shift)) = m.get_mut("mean_shift") {
+        let mut optional = |key: &str, v: Option<f64>, reason: &str| {
+            shift.insert(key.into(), v.map_or(Value::Null, json_number));
+            if v.is_none() {
+                shift.insert(format!("{key}_reason"), json!(reason));
+            }
+        };
+        optional(
+            "p_adjusted",
+            g.p_adjusted,
+            "the pooled line is one question of its own (no adjustment across groups)",
+        );
+        optional(
+            "shift_sd",
+            g.shift_sd,
+            "the group's values do not vary (no within-group SD)",
+        );
+        optional(
+            "shift_pct_tolerance",
+            g.shift_pct_tolerance,
+            "no tolerance: configure both limits, or a target and a single limit",
+        );
+        if g.p_adjusted.is_some() {
+            shift.insert(
+                "p_adjusted_method".into(),
+                json!("Benjamini-Hochberg across the compared groups"),
+            );
+        }
+    }
     put(&mut m, "sd_ratio", &g.sd_ratio, |r| {
         json!({"ratio": json_number(r.ratio), "ci_low": json_number(r.ci_low), "ci_high": json_number(r.ci_high), "f": json_number(r.f),
                "df1": json_number(r.df1), "df2": json_number(r.df2), "p": json_number(r.p), "confidence": json_number(r.confidence),
@@ -290,7 +352,7 @@ fn context_json(ctx: &Context, root: &mut Map<String, Value>) {
     root.insert("factor".into(), json!(ctx.factor));
     root.insert(
         "window".into(),
-        json!({"start": format_ms(ctx.window_start_ms), "end": format_ms(ctx.window_end_ms),
+        json!({"start": ctx.rfc3339(ctx.window_start_ms), "end": ctx.rfc3339(ctx.window_end_ms),
                "start_ms": ctx.window_start_ms, "end_ms": ctx.window_end_ms}),
     );
     root.insert(
@@ -308,7 +370,7 @@ pub fn compare_json(ctx: &Context, c: &Comparison) -> Value {
     context_json(ctx, &mut root);
     root.insert(
         "change".into(),
-        json!({"at": format_ms(c.change_ms), "at_ms": c.change_ms}),
+        json!({"at": ctx.rfc3339(c.change_ms), "at_ms": c.change_ms}),
     );
     root.insert(
         "groups".into(),
@@ -344,8 +406,8 @@ fn header(ctx: &Context, o: &mut String) {
     o.push_str(&format!("{}{unit} by {}\n", ctx.characteristic, ctx.factor));
     o.push_str(&format!(
         "window: {} to {}\n",
-        format_ms(ctx.window_start_ms),
-        format_ms(ctx.window_end_ms)
+        ctx.local(ctx.window_start_ms),
+        ctx.local(ctx.window_end_ms)
     ));
     if let Some((id, note)) = &ctx.event {
         o.push_str(&format!("event {id}: {note}\n"));
@@ -381,14 +443,26 @@ pub fn render_compare(ctx: &Context, c: &Comparison) -> String {
     header(ctx, &mut o);
     o.push_str(&format!(
         "change at {}: values before it count as before, values at or after it as after\n\n",
-        format_ms(c.change_ms)
+        ctx.local(c.change_ms)
     ));
     let mut lines: Vec<&GroupChange> = c.groups.iter().collect();
     lines.push(&c.pooled);
-    o.push_str("Mean shift (after - before), 95% Welch interval\n");
+    o.push_str(
+        "Mean shift (after - before), 95% Welch interval; p adjusted across the groups (Benjamini-Hochberg)\n",
+    );
     o.push_str(&format!(
-        "  {:<14} {:>8} {:>8} {:>12} {:>12} {:>11} {:>25} {:>10}\n",
-        "group", "n before", "n after", "mean before", "mean after", "shift", "interval", "p"
+        "  {:<14} {:>8} {:>8} {:>12} {:>12} {:>11} {:>25} {:>10} {:>10} {:>8} {:>8}\n",
+        "group",
+        "n before",
+        "n after",
+        "mean before",
+        "mean after",
+        "shift",
+        "interval",
+        "p",
+        "p adj",
+        "SDs",
+        "% tol"
     ));
     for g in &lines {
         let (shift, interval, p) = match &g.mean_shift {
@@ -399,8 +473,9 @@ pub fn render_compare(ctx: &Context, c: &Comparison) -> String {
             ),
             Err(e) => ("-".into(), e.reason.clone(), "-".into()),
         };
+        let opt = |v: Option<f64>, f: &dyn Fn(f64) -> String| v.map_or("-".to_string(), f);
         o.push_str(&format!(
-            "  {:<14} {:>8} {:>8} {:>12} {:>12} {:>11} {:>25} {:>10}\n",
+            "  {:<14} {:>8} {:>8} {:>12} {:>12} {:>11} {:>25} {:>10} {:>10} {:>8} {:>8}\n",
             g.group,
             g.before.n,
             g.after.n,
@@ -408,7 +483,10 @@ pub fn render_compare(ctx: &Context, c: &Comparison) -> String {
             sig(ctx.origin + g.after.mean, 7),
             shift,
             interval,
-            p
+            p,
+            opt(g.p_adjusted, &pval),
+            opt(g.shift_sd, &|x| format!("{:+.2}", x)),
+            opt(g.shift_pct_tolerance, &|x| format!("{:+.1}", x))
         ));
     }
     o.push_str(
@@ -525,13 +603,13 @@ pub fn scan_json(ctx: &Context, scans: &[GroupScan], nearest: &[Vec<Vec<NearEven
                                 .and_then(|v| v.get(ci))
                                 .map(|v| {
                                     v.iter()
-                                        .map(|e| json!({"id": e.id, "at": format_ms(e.at_ms), "note": e.note}))
+                                        .map(|e| json!({"id": e.id, "at": ctx.rfc3339(e.at_ms), "note": e.note}))
                                         .collect::<Vec<_>>()
                                 })
                                 .unwrap_or_default();
                             json!({
-                                "at": format_ms(g.change_ms[ci]), "at_ms": g.change_ms[ci],
-                                "at_range": [format_ms(g.change_range_ms[ci].0), format_ms(g.change_range_ms[ci].1)],
+                                "at": ctx.rfc3339(g.change_ms[ci]), "at_ms": g.change_ms[ci],
+                                "at_range": [ctx.rfc3339(g.change_range_ms[ci].0), ctx.rfc3339(g.change_range_ms[ci].1)],
                                 "index": c.index, "shift": json_number(c.shift), "se": json_number(c.se),
                                 "shift_ci": [json_number(c.shift_low), json_number(c.shift_high)],
                                 "mean_before": json_number(ctx.origin + c.before.mean), "mean_after": json_number(ctx.origin + c.after.mean),
@@ -586,9 +664,9 @@ pub fn render_scan(ctx: &Context, scans: &[GroupScan], nearest: &[Vec<Vec<NearEv
                     o.push_str(&format!(
                         "  from {} (between {} and {}): shift {} (se {}, 95% bootstrap [{}, {}]), \
                          mean {} -> {}, p = {}\n",
-                        format_ms(g.change_ms[ci]),
-                        format_ms(g.change_range_ms[ci].0),
-                        format_ms(g.change_range_ms[ci].1),
+                        ctx.local(g.change_ms[ci]),
+                        ctx.local(g.change_range_ms[ci].0),
+                        ctx.local(g.change_range_ms[ci].1),
                         sig(c.shift, 4),
                         sig(c.se, 3),
                         sig(c.shift_low, 4),
@@ -605,7 +683,7 @@ pub fn render_scan(ctx: &Context, scans: &[GroupScan], nearest: &[Vec<Vec<NearEv
                                     "    nearest event {}: {} at {}\n",
                                     e.id,
                                     e.note,
-                                    format_ms(e.at_ms)
+                                    ctx.local(e.at_ms)
                                 ));
                             }
                         }
@@ -670,6 +748,7 @@ mod tests {
             event: Some((3, "new insert holder".into())),
             window_start_ms: 0,
             window_end_ms: 24_000,
+            tz: chrono_tz::UTC,
         }
     }
 

@@ -105,7 +105,16 @@ pub fn run(args: &ScheduleArgs) -> Result<ExitCode> {
         options.pause_after_begin = Some(std::time::Duration::from_millis(ms));
     }
     let mut runner = EngineRunner::new(&config);
-    let mut log = |line: &str| eprintln!("{} {line}", Utc::now().format("%Y-%m-%dT%H:%M:%SZ"));
+    // Log lines carry the plant's local time with its offset, like every time samewise prints.
+    let tz = config.plant.time_zone;
+    let mut log = |line: &str| {
+        eprintln!(
+            "{} {line}",
+            Utc::now()
+                .with_timezone(&tz)
+                .to_rfc3339_opts(chrono::SecondsFormat::Secs, false)
+        )
+    };
     let entries = match &args.action {
         ScheduleAction::Due { now, since } => {
             options.start = since

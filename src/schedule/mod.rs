@@ -453,7 +453,10 @@ pub fn run_forever_with(
         if wake <= now {
             wake = now + Duration::seconds(1);
         }
-        log(&format!("sleeping until {}", wake.to_rfc3339()));
+        log(&format!(
+            "sleeping until {}",
+            wake.with_timezone(&config.plant.time_zone).to_rfc3339()
+        ));
         clock.sleep_until(wake);
     }
     Ok(all)
