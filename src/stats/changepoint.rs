@@ -768,4 +768,32 @@ mod tests {
         assert!(t.index_low <= 29 && 29 <= t.index_high, "{t:?}");
         assert!(t.index.abs_diff(29) <= 4, "{t:?}");
     }
+
+    // Coverage of the change time's bootstrap interval, by simulation (issue 16): 200 invented
+    // series of 60 independent N(0, 1) values whose mean steps up by 1 SD at index 30; among the
+    // series where the step is found (p <= 0.05), the share whose [index_low, index_high] holds
+    // the true index. Printed with `cargo test --release --lib coverage -- --nocapture`.
+    #[test]
+    fn change_time_interval_coverage_for_a_one_sd_step() {
+        let options = ScanOptions {
+            permutations: 199,
+            max_change_points: 1,
+            ..ScanOptions::default()
+        };
+        let (mut found, mut covered) = (0usize, 0usize);
+        for state in 0..200u64 {
+            let x = invented(60, 30, 1.0, 5000 + state);
+            let scan = scan(&x, &options).unwrap();
+            if let Some(c) = scan.change_points.first() {
+                found += 1;
+                if c.index_low <= 30 && 30 <= c.index_high {
+                    covered += 1;
+                }
+            }
+        }
+        let rate = covered as f64 / found as f64;
+        eprintln!("1-SD step: found in {found} of 200 series; interval covers the true index in {covered} of them ({rate:.3})");
+        assert!(found >= 120, "found {found}");
+        assert!(rate >= 0.90, "coverage {rate}");
+    }
 }
