@@ -212,6 +212,7 @@ impl Store {
                 }
             }
             sync_factors(&tx, &config.factors, &mut report)?;
+            create_measurement_view(&tx)?;
         }
         tx.commit()?;
         self.level_cache.borrow_mut().clear();
@@ -227,6 +228,52 @@ impl Store {
     pub fn factors(&self) -> Result<Vec<StoredFactor>> {
         load_factors(&self.conn)
     }
+}
+
+/// (Re)creates the view `measurement_values` (docs/database.md): one row per stored
+/// measurement with its time (UTC), characteristic, unit, value in units, import and line, part
+/// id, and one column per configured factor holding its level. Column names are the factor
+/// names, quoted (a factor named like a fixed column gets a `factor_` prefix).
+pub(crate) fn create_measurement_view(tx: &Connection) -> Result<()> {
+    const FIXED: [&str; 9] = [
+        "ts_utc",
+        "ts_ms",
+        "characteristic",
+        "unit",
+        "value",
+        "import_id",
+        "line",
+        "part",
+        "level_set_id",
+    ];
+    let factors: Vec<(i64, String)> = tx
+        .prepare("SELECT id, name FROM factors WHERE is_configured = 1 ORDER BY position")?
+        .query_map([], |r| Ok((r.get(0)?, r.get(1)?)))?
+        .collect::<rusqlite::Result<_>>()?;
+    let quote = |name: &str| format!("\"{}\"", name.replace('"', "\"\""));
+    let mut columns = String::new();
+    for (id, name) in &factors {
+        let column = if FIXED.contains(&name.as_str()) {
+            format!("factor_{name}")
+        } else {
+            name.clone()
+        };
+        columns.push_str(&format!(
+            ",\n       (SELECT l.name FROM level_set_members s JOIN levels l ON l.id = s.level_id \
+             WHERE s.level_set_id = m.level_set_id AND s.factor_id = {id}) AS {}",
+            quote(&column)
+        ));
+    }
+    tx.execute_batch(&format!(
+        "DROP VIEW IF EXISTS measurement_values;
+         CREATE VIEW measurement_values AS
+         SELECT strftime('%Y-%m-%dT%H:%M:%fZ', m.ts_ms / 1000.0, 'unixepoch') AS ts_utc,
+                m.ts_ms, c.name AS characteristic, c.unit,
+                CAST(c.origin AS REAL) + m.value AS value,
+                m.import_id, m.line, m.part, m.level_set_id{columns}
+         FROM measurements m JOIN characteristics c ON c.id = m.characteristic_id;"
+    ))?;
+    Ok(())
 }
 
 fn sync_factors(tx: &Connection, factors: &[FactorConfig], report: &mut SyncReport) -> Result<()> {

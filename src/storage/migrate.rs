@@ -47,6 +47,10 @@ pub const MIGRATIONS: &[Migration] = &[
         name: "0006_findings.sql",
         sql: include_str!("../../migrations/0006_findings.sql"),
     },
+    Migration {
+        name: "0007_views.sql",
+        sql: include_str!("../../migrations/0007_views.sql"),
+    },
 ];
 
 /// SQLite's `PRAGMA application_id` of a samewise database: "SMWS" in ASCII. Set when a database
