@@ -35,8 +35,8 @@ pub enum Error {
         /// What is wrong.
         reason: String,
     },
-    /// The database failed.
-    Storage(rusqlite::Error),
+    /// The database failed (the store's own description; no SQLite type leaves `storage`).
+    Storage(StorageError),
     /// The database exists but cannot be used as it is (newer schema, missing, corrupt).
     Database(String),
     /// Not enough data for the analysis that was asked for.
@@ -106,15 +106,34 @@ impl std::error::Error for Error {
     fn source(&self) -> Option<&(dyn std::error::Error + 'static)> {
         match self {
             Error::Io { source, .. } => Some(source),
-            Error::Storage(e) => Some(e),
             _ => None,
         }
     }
 }
 
-impl From<rusqlite::Error> for Error {
-    fn from(e: rusqlite::Error) -> Self {
-        Error::Storage(e)
+/// A failure of the database engine, as the store describes it.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct StorageError {
+    /// What the engine said.
+    pub message: String,
+    /// What kind of failure it was.
+    pub kind: StorageErrorKind,
+}
+
+/// Kinds of [`StorageError`] that callers act on.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum StorageErrorKind {
+    /// Another connection holds a lock the engine gave up waiting for.
+    Busy,
+    /// The file is not a database at all.
+    NotADatabase,
+    /// Anything else.
+    Other,
+}
+
+impl std::fmt::Display for StorageError {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(&self.message)
     }
 }
 

@@ -269,7 +269,7 @@ impl Store {
                     dest.display()
                 )));
             }
-            target.close().map_err(|(_, e)| Error::Storage(e))?;
+            target.close().map_err(|(_, e)| Error::from(e))?;
             if dest.exists() {
                 return Err(Error::Usage(format!(
                     "{} appeared while the backup was written; choose a new file for the backup",

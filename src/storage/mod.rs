@@ -128,14 +128,27 @@ pub fn describe_writer(database: &Path) -> Option<String> {
 
 /// Whether `err` is SQLite giving up on a lock another connection holds.
 pub fn is_busy(err: &Error) -> bool {
-    let code = match err {
-        Error::Storage(rusqlite::Error::SqliteFailure(code, _)) => code.code,
-        _ => return false,
-    };
-    matches!(
-        code,
-        rusqlite::ErrorCode::DatabaseBusy | rusqlite::ErrorCode::DatabaseLocked
-    )
+    matches!(err, Error::Storage(e) if e.kind == crate::error::StorageErrorKind::Busy)
+}
+
+impl From<rusqlite::Error> for Error {
+    fn from(e: rusqlite::Error) -> Self {
+        use crate::error::{StorageError, StorageErrorKind};
+        let kind = match &e {
+            rusqlite::Error::SqliteFailure(code, _) => match code.code {
+                rusqlite::ErrorCode::DatabaseBusy | rusqlite::ErrorCode::DatabaseLocked => {
+                    StorageErrorKind::Busy
+                }
+                rusqlite::ErrorCode::NotADatabase => StorageErrorKind::NotADatabase,
+                _ => StorageErrorKind::Other,
+            },
+            _ => StorageErrorKind::Other,
+        };
+        Error::Storage(StorageError {
+            message: e.to_string(),
+            kind,
+        })
+    }
 }
 
 /// The message for a writer that gave up waiting for `database`: what holds it (see
@@ -268,7 +281,7 @@ impl Store {
             {
                 Error::Database(format!("{what} is not a samewise database (not SQLite)"))
             }
-            other => Error::Storage(other),
+            other => Error::from(other),
         })?;
         migrate::migrate(&mut conn, &what)?;
         migrate::mark_samewise(&conn)?;
@@ -318,9 +331,7 @@ impl Store {
 fn identify(conn: &Connection, path: &Path) -> Result<migrate::FileKind> {
     conn.busy_timeout(busy_timeout())?;
     migrate::file_kind(conn).map_err(|e| match e {
-        Error::Storage(rusqlite::Error::SqliteFailure(code, _))
-            if code.code == rusqlite::ErrorCode::NotADatabase =>
-        {
+        Error::Storage(e) if e.kind == crate::error::StorageErrorKind::NotADatabase => {
             Error::Database(format!(
                 "{} is not a samewise database (not an SQLite file): check `database` in the \
                  plant configuration",

@@ -1,0 +1,133 @@
+//! ARCHITECTURE.md's invariants, checked on the sources (issue 17): SQL and SQLite types only in
+//! `storage`, clap only in `cli`, wall-clock reads only in `cli`, and a statistics core without
+//! I/O, printing, SQL or clocks. Test modules (`#[cfg(test)]` to the end of a file) are not
+//! checked; comment lines are not code.
+
+use std::path::{Path, PathBuf};
+
+fn sources(dir: &Path, out: &mut Vec<PathBuf>) {
+    for entry in std::fs::read_dir(dir).unwrap() {
+        let path = entry.unwrap().path();
+        if path.is_dir() {
+            sources(&path, out);
+        } else if path.extension().is_some_and(|e| e == "rs") {
+            out.push(path);
+        }
+    }
+}
+
+/// The code lines of a source file (comments and test modules left out), with their numbers.
+fn code_lines(path: &Path) -> Vec<(usize, String)> {
+    let text = std::fs::read_to_string(path).unwrap();
+    let code = match text.find("#[cfg(test)]") {
+        Some(at) => &text[..at],
+        None => &text[..],
+    };
+    code.lines()
+        .enumerate()
+        .filter(|(_, l)| !l.trim_start().starts_with("//"))
+        .map(|(i, l)| (i + 1, l.to_string()))
+        .collect()
+}
+
+/// Every use of one of `needles` outside the modules whose path starts with one of `allowed`.
+fn offenders(needles: &[&str], allowed: &[&str]) -> Vec<String> {
+    let root = Path::new(env!("CARGO_MANIFEST_DIR"));
+    let mut files = Vec::new();
+    sources(&root.join("src"), &mut files);
+    let mut out = Vec::new();
+    for f in files {
+        let rel = f
+            .strip_prefix(root)
+            .unwrap()
+            .to_string_lossy()
+            .replace('\\', "/");
+        if allowed.iter().any(|a| rel.starts_with(a)) {
+            continue;
+        }
+        for (n, line) in code_lines(&f) {
+            if needles.iter().any(|needle| line.contains(needle)) {
+                out.push(format!("{rel}:{n}: {}", line.trim()));
+            }
+        }
+    }
+    out
+}
+
+#[test]
+fn sqlite_only_in_storage() {
+    let found = offenders(
+        &[
+            "rusqlite",
+            "Connection",
+            "SELECT ",
+            "INSERT INTO",
+            "UPDATE ",
+        ],
+        &["src/storage/"],
+    );
+    assert!(
+        found.is_empty(),
+        "SQLite or SQL outside src/storage:\n{}",
+        found.join("\n")
+    );
+}
+
+#[test]
+fn clap_only_in_cli() {
+    let found = offenders(&["clap"], &["src/cli/", "src/main.rs"]);
+    assert!(
+        found.is_empty(),
+        "clap outside src/cli:\n{}",
+        found.join("\n")
+    );
+}
+
+#[test]
+fn wall_clock_only_in_cli() {
+    let found = offenders(
+        &["Utc::now", "Local::now", "SystemTime::now", "chrono::Local"],
+        &["src/cli/", "src/main.rs"],
+    );
+    assert!(
+        found.is_empty(),
+        "wall-clock reads outside src/cli:\n{}",
+        found.join("\n")
+    );
+}
+
+#[test]
+fn statistics_core_is_pure() {
+    let root = Path::new(env!("CARGO_MANIFEST_DIR"));
+    let mut files = Vec::new();
+    sources(&root.join("src/stats"), &mut files);
+    let needles = [
+        "std::fs",
+        "File::",
+        "println!",
+        "eprintln!",
+        "print!",
+        "std::io",
+        "Instant::now",
+        "rusqlite",
+        "crate::storage",
+        "crate::cli",
+        "crate::analysis",
+        "crate::report",
+        "crate::ingest",
+        "crate::schedule",
+    ];
+    let mut found = Vec::new();
+    for f in files {
+        for (n, line) in code_lines(&f) {
+            if needles.iter().any(|needle| line.contains(needle)) {
+                found.push(format!("{}:{n}: {}", f.display(), line.trim()));
+            }
+        }
+    }
+    assert!(
+        found.is_empty(),
+        "the statistics core does I/O or reaches up:\n{}",
+        found.join("\n")
+    );
+}
