@@ -853,3 +853,64 @@ fn issue_17_sql_views_give_values_in_units_and_latest_results() {
     assert!((means[1].1 - means[0].1 - 0.03).abs() < 0.005, "{means:?}");
     assert!((means[0].1 - 10.0).abs() < 0.005, "{means:?}");
 }
+
+/// Issue 17: `--json` on status, history and db check, `--csv` on history, and check's CSV with
+/// the period, run, unit, limits and group means; every `null` carries a reason.
+#[test]
+fn issue_17_json_and_csv_of_status_history_and_db_check() {
+    let dir = common::temp_dir("issue-17-json");
+    common::invented_plant(&dir, 3);
+    common::samewise(&dir, &["check", "--day", "2026-11-29"]);
+    common::samewise(&dir, &["check", "--day", "2026-11-30", "--csv", "day.csv"]);
+    let csv = std::fs::read_to_string(dir.join("day.csv")).unwrap();
+    let header = csv.lines().next().unwrap();
+    assert!(header.starts_with("period_kind,period,period_start,run_id,version,characteristic,factor,unit,lsl,usl,target"), "{header}");
+    assert!(header.contains(",group_means,"), "{header}");
+    let bore = csv.lines().find(|l| l.contains(",bore,machine,")).unwrap();
+    assert!(
+        bore.starts_with("day,2026-11-30,2026-11-30T06:00:00+00:00,"),
+        "{bore}"
+    );
+    assert!(
+        bore.contains("M1=10.0") && bore.contains("M2=10.0"),
+        "{bore}"
+    );
+
+    let status: serde_json::Value =
+        serde_json::from_str(&common::samewise_ok(&dir, &["status", "--json"])).unwrap();
+    assert_eq!(status["measurements"], 3 * 240 * 2);
+    assert_eq!(status["characteristics"][0]["name"], "bore");
+    assert!(status["last_alert"].is_null() && status["last_alert_reason"].is_string());
+
+    let history: serde_json::Value = serde_json::from_str(&common::samewise_ok(
+        &dir,
+        &["history", "bore", "--by", "machine", "--json"],
+    ))
+    .unwrap();
+    let periods = history["periods"].as_array().unwrap();
+    assert_eq!(periods.len(), 2);
+    assert_eq!(periods[1]["period"], "2026-11-30");
+    assert_eq!(periods[1]["standout"]["group"], "M2");
+    assert_eq!(history["unit"], "mm");
+    let mut bare = Vec::new();
+    for p in periods {
+        for (k, v) in p.as_object().unwrap() {
+            if v.is_null() && p.get(format!("{k}_reason")).is_none() {
+                bare.push(k.clone());
+            }
+        }
+    }
+    assert!(bare.is_empty(), "nulls without a reason: {bare:?}");
+    common::samewise_ok(
+        &dir,
+        &["history", "bore", "--by", "machine", "--csv", "h.csv"],
+    );
+    let h = std::fs::read_to_string(dir.join("h.csv")).unwrap();
+    assert_eq!(h.lines().count(), 3, "{h}");
+    assert!(h.lines().nth(2).unwrap().contains(",M2,"), "{h}");
+
+    let db: serde_json::Value =
+        serde_json::from_str(&common::samewise_ok(&dir, &["db", "check", "--json"])).unwrap();
+    assert_eq!(db["sound"], true);
+    assert_eq!(db["counts"]["measurements"], 3 * 240 * 2);
+}

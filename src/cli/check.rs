@@ -126,7 +126,7 @@ pub fn run(args: &CheckArgs) -> Result<ExitCode> {
         check_and_record(&mut store, &config, &period, &options, &Utc::now)?
     };
     if let Some(path) = &args.csv {
-        write_csv(path, &content)?;
+        write_csv(path, &config, &period, &run, &content)?;
     }
     // A new check brings the findings of its period kind up to date (ranges have none).
     let findings = if args.stored || period.kind == crate::model::PeriodKind::Range {
@@ -507,11 +507,28 @@ fn print_json(
     writeln!(out)
 }
 
-fn write_csv(path: &std::path::Path, content: &RunContent) -> Result<()> {
+/// One row per test: the period and run, the characteristic's unit and limits, the results,
+/// and the group means in units (`level=mean;...`).
+fn write_csv(
+    path: &std::path::Path,
+    config: &crate::config::Config,
+    period: &Period,
+    run: &StoredRun,
+    content: &RunContent,
+) -> Result<()> {
     let mut w = csv::Writer::from_writer(AtomicFile::create(path)?);
     let header = [
+        "period_kind",
+        "period",
+        "period_start",
+        "run_id",
+        "version",
         "characteristic",
         "factor",
+        "unit",
+        "lsl",
+        "usl",
+        "target",
         "state",
         "is_new",
         "n_obs",
@@ -535,6 +552,7 @@ fn write_csv(path: &std::path::Path, content: &RunContent) -> Result<()> {
         "standout_diff",
         "standout_sd_units",
         "standout_pct_tolerance",
+        "group_means",
         "notes",
     ];
     let io = |e: csv::Error| Error::Io {
@@ -543,10 +561,33 @@ fn write_csv(path: &std::path::Path, content: &RunContent) -> Result<()> {
     };
     w.write_record(header).map_err(io)?;
     let f = |x: Option<f64>| x.map_or(String::new(), |v| format!("{v:?}"));
+    let start = period
+        .start
+        .with_timezone(&config.plant.time_zone)
+        .to_rfc3339();
     for t in sorted(content) {
+        let c = config.characteristic(&t.characteristic);
+        let means: Vec<String> = content
+            .groups
+            .iter()
+            .filter(|g| g.test_idx == t.test_idx)
+            .map(|g| {
+                let origin: f64 = g.origin.parse().unwrap_or(0.0);
+                format!("{}={:?}", g.level, origin + g.mean)
+            })
+            .collect();
         w.write_record([
+            period.kind.as_str().to_string(),
+            period.label.clone(),
+            start.clone(),
+            run.run_id.to_string(),
+            run.version.to_string(),
             t.characteristic.clone(),
             t.factor.clone(),
+            c.map(|c| c.unit.clone()).unwrap_or_default(),
+            f(c.and_then(|c| c.lsl)),
+            f(c.and_then(|c| c.usl)),
+            f(c.and_then(|c| c.target)),
             t.state.clone(),
             t.is_new.to_string(),
             t.n_obs.to_string(),
@@ -570,6 +611,7 @@ fn write_csv(path: &std::path::Path, content: &RunContent) -> Result<()> {
             f(t.standout_diff),
             f(t.standout_sd_units),
             f(t.standout_pct_tolerance),
+            means.join(";"),
             t.notes.clone(),
         ])
         .map_err(io)?;

@@ -25,7 +25,11 @@ pub struct DbArgs {
 #[derive(Debug, Subcommand)]
 pub enum DbAction {
     /// Check the database: SQLite integrity, foreign keys, import counts; print row counts.
-    Check,
+    Check {
+        /// Print one JSON object (counts, integrity, orphans, problems, sound).
+        #[arg(long)]
+        json: bool,
+    },
     /// Copy the database to PATH with SQLite's online backup (safe while it is in use).
     Backup {
         /// The new file (must not exist; written under a temporary name and renamed once it has
@@ -39,8 +43,32 @@ pub fn run(args: &DbArgs) -> Result<ExitCode> {
     let config = load_config(args.config.as_deref())?;
     let store = open_store(&config)?;
     match &args.action {
-        DbAction::Check => {
+        DbAction::Check { json } => {
             let report = store.integrity_check()?;
+            if *json {
+                let counts: serde_json::Map<String, serde_json::Value> = report
+                    .counts
+                    .iter()
+                    .map(|(t, n)| (t.clone(), serde_json::json!(n)))
+                    .collect();
+                println!(
+                    "{}",
+                    serde_json::to_string_pretty(&serde_json::json!({
+                        "database": config.plant.database.display().to_string(),
+                        "sound": report.is_ok(),
+                        "counts": counts,
+                        "integrity": report.integrity,
+                        "orphan_rows": report.foreign_keys,
+                        "problems": report.problems,
+                    }))
+                    .unwrap_or_default()
+                );
+                return if report.is_ok() {
+                    Ok(ExitCode::from(super::EXIT_OK))
+                } else {
+                    Ok(ExitCode::from(super::EXIT_ERROR))
+                };
+            }
             for (table, n) in &report.counts {
                 println!("{table}: {n}");
             }

@@ -29,6 +29,12 @@ pub struct HistoryArgs {
     /// Period kind: shift, day, week, month or range.
     #[arg(long, default_value = "day", value_parser = ["shift", "day", "week", "month", "range"])]
     pub kind: String,
+    /// Print one JSON object (the periods oldest first; times RFC 3339 in the plant's zone).
+    #[arg(long, conflicts_with = "csv")]
+    pub json: bool,
+    /// Write the periods to this CSV file (one row each).
+    #[arg(long, value_name = "FILE.csv")]
+    pub csv: Option<PathBuf>,
 }
 
 /// Runs `samewise history`.
@@ -48,6 +54,10 @@ pub fn run(args: &HistoryArgs) -> Result<ExitCode> {
             config.path.display()
         )));
     }
+    if let Some(path) = &args.csv {
+        let protected = crate::output::Protected::plant(&config.plant.database, &config.path);
+        crate::output::refuse_protected(path, "--csv", &protected)?;
+    }
     let store = super::common::open_store(&config)?;
     let points = runs::history(
         store.connection(),
@@ -56,6 +66,28 @@ pub fn run(args: &HistoryArgs) -> Result<ExitCode> {
         &args.kind,
         args.last,
     )?;
+    if args.json || args.csv.is_some() {
+        let rows: Vec<serde_json::Value> = points.iter().map(|p| point_json(&config, p)).collect();
+        let c = config.characteristic(&args.characteristic);
+        if let Some(path) = &args.csv {
+            write_csv(path, &rows)?;
+            println!("{} periods written to {}", rows.len(), path.display());
+        } else {
+            let doc = serde_json::json!({
+                "characteristic": args.characteristic,
+                "factor": args.factor,
+                "unit": c.map(|c| c.unit.clone()),
+                "lsl": c.and_then(|c| c.lsl),
+                "usl": c.and_then(|c| c.usl),
+                "target": c.and_then(|c| c.target),
+                "period_kind": args.kind,
+                "periods": rows,
+                "caution": crate::CAUTION,
+            });
+            println!("{}", serde_json::to_string_pretty(&doc).unwrap_or_default());
+        }
+        return Ok(ExitCode::from(super::EXIT_OK));
+    }
     let mut out = std::io::stdout().lock();
     let mut body = || -> std::io::Result<()> {
         writeln!(
@@ -105,4 +137,109 @@ pub fn run(args: &HistoryArgs) -> Result<ExitCode> {
         }
     }
     Ok(ExitCode::from(super::EXIT_OK))
+}
+
+/// One period of the history as JSON: the period and run, the state and leading test, the
+/// between-group share and the standing-out group; every `null` with a `<name>_reason`.
+fn point_json(config: &crate::config::Config, p: &runs::HistoryPoint) -> serde_json::Value {
+    use serde_json::{json, Map, Value};
+    let tz = config.plant.time_zone;
+    let t = &p.test;
+    let time = |ms: i64| {
+        chrono::DateTime::<chrono::Utc>::from_timestamp_millis(ms)
+            .map_or(Value::Null, |d| json!(d.with_timezone(&tz).to_rfc3339()))
+    };
+    let mut m = Map::new();
+    m.insert("period".into(), json!(p.run.header.period_label));
+    m.insert("start".into(), time(p.run.header.period_start_ms));
+    m.insert("end".into(), time(p.run.header.period_end_ms));
+    m.insert("run_id".into(), json!(p.run.run_id));
+    m.insert("version".into(), json!(p.run.version));
+    m.insert("revised".into(), json!(p.complete_versions > 1));
+    m.insert("state".into(), json!(t.state));
+    m.insert("n_obs".into(), json!(t.n_obs));
+    m.insert("n_groups".into(), json!(t.n_groups_used));
+    let why = if t.state == state::TOO_FEW_TO_COMPARE || t.state == state::TOO_LITTLE_DATA {
+        format!("{}: no test was run", state::label(&t.state))
+    } else {
+        "not available for this test (see notes)".to_string()
+    };
+    let mut num = |key: &str, v: Option<f64>| {
+        m.insert(
+            key.into(),
+            v.filter(|x| x.is_finite())
+                .map_or(Value::Null, |x| json!(x)),
+        );
+        if v.is_none() {
+            m.insert(format!("{key}_reason"), json!(why));
+        }
+    };
+    num("statistic", t.leading_statistic);
+    num("p", t.leading_p);
+    num("q", t.q_value);
+    num("share_between", t.share_between);
+    num("within_sd", t.resid_sd);
+    m.insert("leading_method".into(), json!(t.leading_method));
+    if t.leading_method.is_none() {
+        m.insert("leading_method_reason".into(), json!(why));
+    }
+    match &t.standout_level {
+        Some(level) => {
+            m.insert(
+                "standout".into(),
+                json!({"group": level, "diff": t.standout_diff, "sd_units": t.standout_sd_units,
+                       "pct_tolerance": t.standout_pct_tolerance}),
+            );
+        }
+        None => {
+            m.insert("standout".into(), Value::Null);
+            m.insert("standout_reason".into(), json!(why));
+        }
+    }
+    m.insert("notes".into(), json!(t.notes));
+    Value::Object(m)
+}
+
+fn write_csv(path: &std::path::Path, rows: &[serde_json::Value]) -> Result<()> {
+    let mut out = crate::output::AtomicFile::create(path)?;
+    let cell = |v: &serde_json::Value| match v {
+        serde_json::Value::Null => String::new(),
+        serde_json::Value::String(s) if s.contains([',', '"', '\n', '\r']) => {
+            format!("\"{}\"", s.replace('"', "\"\""))
+        }
+        serde_json::Value::String(s) => s.clone(),
+        other => other.to_string(),
+    };
+    let columns = [
+        "period",
+        "start",
+        "end",
+        "run_id",
+        "version",
+        "revised",
+        "state",
+        "n_obs",
+        "n_groups",
+        "leading_method",
+        "statistic",
+        "p",
+        "q",
+        "share_between",
+        "within_sd",
+    ];
+    let mut text = format!(
+        "{},standout_group,standout_diff,standout_sd_units,standout_pct_tolerance\n",
+        columns.join(",")
+    );
+    for r in rows {
+        let mut line: Vec<String> = columns.iter().map(|c| cell(&r[*c])).collect();
+        for k in ["group", "diff", "sd_units", "pct_tolerance"] {
+            line.push(cell(&r["standout"][k]));
+        }
+        text.push_str(&line.join(","));
+        text.push('\n');
+    }
+    out.write_all(text.as_bytes())
+        .map_err(|e| Error::io(path, e))?;
+    out.commit()
 }
