@@ -96,6 +96,8 @@ use std::path::{Path, PathBuf};
 
 use chrono::format::{Item, StrftimeItems};
 use chrono::{Duration, NaiveTime};
+
+pub use crate::stats::fdr::FdrMethod;
 use serde::Deserialize;
 
 use crate::model::PeriodKind;
@@ -175,20 +177,11 @@ pub struct Shift {
     pub start: NaiveTime,
 }
 
-/// Which false-discovery-rate procedure the checks use.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum FdrChoice {
-    /// Benjamini-Hochberg (1995).
-    Bh,
-    /// Benjamini-Yekutieli (2001), valid under any dependence.
-    By,
-}
-
 /// The `[check]` table.
 #[derive(Debug, Clone)]
 pub struct CheckSettings {
     /// FDR procedure across all tests of a run.
-    pub fdr_method: FdrChoice,
+    pub fdr_method: FdrMethod,
     /// q-value level at or below which a test is flagged.
     pub fdr_level: f64,
     /// Share of the tolerance width the spread of group means must reach to be "material".
@@ -204,7 +197,7 @@ pub struct CheckSettings {
 impl Default for CheckSettings {
     fn default() -> Self {
         CheckSettings {
-            fdr_method: FdrChoice::Bh,
+            fdr_method: FdrMethod::BenjaminiHochberg,
             fdr_level: 0.05,
             material_share: 0.10,
             min_per_group: 2,
@@ -728,13 +721,11 @@ fn validate(raw: RawConfig, path: &Path) -> Result<Config> {
     let defaults = CheckSettings::default();
     let fdr_method = match raw.check.fdr_method.as_deref() {
         None => defaults.fdr_method,
-        Some(m) if m.eq_ignore_ascii_case("bh") => FdrChoice::Bh,
-        Some(m) if m.eq_ignore_ascii_case("by") => FdrChoice::By,
-        Some(m) => {
-            return Err(fail(format!(
+        Some(m) => FdrMethod::from_key(m).ok_or_else(|| {
+            fail(format!(
                 "check.fdr_method: \"{m}\" is not \"bh\" (Benjamini-Hochberg) or \"by\" (Benjamini-Yekutieli)"
-            )))
-        }
+            ))
+        })?,
     };
     let open_unit = |key: &str, value: Option<f64>, default: f64| -> Result<f64> {
         match value {

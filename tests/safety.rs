@@ -277,7 +277,7 @@ fn issue_15_outputs_onto_the_database_configuration_or_an_input_are_refused() {
     assert!(leftovers.is_empty(), "{leftovers:?}");
     assert!(std::fs::read_to_string(dir.join("tests.csv"))
         .unwrap()
-        .starts_with("characteristic,factor,state"));
+        .starts_with("period_kind,period,period_start,run_id,version,characteristic,factor"));
     let copy = Store::open(dir.join("copy.db")).unwrap();
     assert_eq!(copy.status().unwrap().characteristics.len(), 2);
 }

@@ -151,10 +151,7 @@ impl CheckOptions {
     pub fn from_config(config: &crate::config::Config) -> Self {
         let c = &config.check;
         CheckOptions {
-            fdr_method: match c.fdr_method {
-                crate::config::FdrChoice::Bh => FdrMethod::BenjaminiHochberg,
-                crate::config::FdrChoice::By => FdrMethod::BenjaminiYekutieli,
-            },
+            fdr_method: c.fdr_method,
             fdr_level: c.fdr_level,
             material_share: c.material_share,
             min_per_group: c.min_per_group,
@@ -165,14 +162,6 @@ impl CheckOptions {
             factors: None,
             threads: 0,
         }
-    }
-}
-
-/// Short stable name of an FDR method (`bh`, `by`).
-pub fn fdr_name(method: FdrMethod) -> &'static str {
-    match method {
-        FdrMethod::BenjaminiHochberg => "bh",
-        FdrMethod::BenjaminiYekutieli => "by",
     }
 }
 

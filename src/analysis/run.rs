@@ -9,9 +9,7 @@ use std::sync::Arc;
 use chrono::{DateTime, Utc};
 use sha2::{Digest, Sha256};
 
-use super::{
-    check_frames, fdr_name, worker_count, CheckOptions, Frame, FrameCharacteristic, FrameFactor,
-};
+use super::{check_frames, worker_count, CheckOptions, Frame, FrameCharacteristic, FrameFactor};
 use crate::calendar::PlantCalendar;
 use crate::config::{Config, ScheduleConfig};
 use crate::model::{Period, PeriodKind};
@@ -174,7 +172,7 @@ pub fn header(
         schedule: schedule.map(str::to_string),
         config_hash: config_hash(config),
         tool_version: env!("CARGO_PKG_VERSION").to_string(),
-        fdr_method: fdr_name(options.fdr_method).to_string(),
+        fdr_method: options.fdr_method.key().to_string(),
         fdr_level: options.fdr_level,
     }
 }

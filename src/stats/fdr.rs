@@ -23,6 +23,21 @@ pub enum FdrMethod {
 }
 
 impl FdrMethod {
+    /// The short stable name used in configuration files, the database and JSON (`bh`, `by`).
+    pub fn key(self) -> &'static str {
+        match self {
+            FdrMethod::BenjaminiHochberg => "bh",
+            FdrMethod::BenjaminiYekutieli => "by",
+        }
+    }
+
+    /// The method of a short name (`bh`, `by`, any case).
+    pub fn from_key(key: &str) -> Option<FdrMethod> {
+        [FdrMethod::BenjaminiHochberg, FdrMethod::BenjaminiYekutieli]
+            .into_iter()
+            .find(|m| m.key().eq_ignore_ascii_case(key))
+    }
+
     /// The published name of the method.
     pub fn name(self) -> &'static str {
         match self {
