@@ -129,8 +129,9 @@ pub fn run(args: &CheckArgs) -> Result<ExitCode> {
         write_csv(path, &config, &period, &run, &content)?;
     }
     // A new check brings the findings of its period kind up to date (ranges have none).
-    let findings = if args.stored || period.kind == crate::model::PeriodKind::Range {
-        None
+    let (findings, findings_json) = if args.stored || period.kind == crate::model::PeriodKind::Range
+    {
+        (None, serde_json::Value::Null)
     } else {
         let update = crate::analysis::findings::update_findings(
             &mut store,
@@ -138,11 +139,21 @@ pub fn run(args: &CheckArgs) -> Result<ExitCode> {
             period.kind,
             Utc::now(),
         )?;
-        Some(super::findings::summary_lines(
-            &store,
-            config.plant.time_zone,
-            &update,
-        )?)
+        let tz = config.plant.time_zone;
+        let list = |v: &[crate::model::Finding]| -> Result<Vec<serde_json::Value>> {
+            v.iter()
+                .map(|f| super::findings::finding_json(&store, f, tz))
+                .collect()
+        };
+        let doc = serde_json::json!({
+            "new": list(&update.new)?,
+            "changed": list(&update.changed)?,
+            "open": update.open.iter().map(|f| f.id).collect::<Vec<_>>(),
+        });
+        (
+            Some(super::findings::summary_lines(&store, tz, &update)?),
+            doc,
+        )
     };
     let mut out = std::io::stdout().lock();
     if let (Some(lines), false) = (&findings, args.json) {
@@ -159,7 +170,7 @@ pub fn run(args: &CheckArgs) -> Result<ExitCode> {
         }
     }
     let written = if args.json {
-        print_json(&mut out, &config, &period, &run, &content)
+        print_json(&mut out, &config, &period, &run, &content, findings_json)
     } else {
         print_summary(&mut out, &period, &run, &content, None)
     };
@@ -454,6 +465,7 @@ fn print_json(
     period: &Period,
     run: &StoredRun,
     content: &RunContent,
+    findings: serde_json::Value,
 ) -> std::io::Result<()> {
     let tests: Vec<serde_json::Value> = sorted(content)
         .into_iter()
@@ -489,10 +501,16 @@ fn print_json(
             v
         })
         .collect();
+    let tz = config.plant.time_zone;
+    let findings_reason = findings
+        .is_null()
+        .then_some("findings are kept for shift, day, week and month checks, not read back with --stored or for ranges");
     let doc = serde_json::json!({
         "plant": config.plant.name,
         "period": {"kind": period.kind.as_str(), "label": period.label,
-                   "start": period.start.to_rfc3339(), "end": period.end.to_rfc3339()},
+                   "start": period.start.with_timezone(&tz).to_rfc3339(),
+                   "end": period.end.with_timezone(&tz).to_rfc3339()},
+        "findings": findings,
         "run": {"run_id": run.run_id, "version": run.version, "config_hash": run.header.config_hash,
                 "tool_version": run.header.tool_version, "fdr_method": run.header.fdr_method,
                 "fdr_level": run.header.fdr_level},
@@ -502,6 +520,9 @@ fn print_json(
         "caution": crate::CAUTION,
     });
     let mut doc = doc;
+    if let Some(reason) = findings_reason {
+        doc["findings_reason"] = reason.into();
+    }
     super::format::bound_tiny_p(&mut doc);
     serde_json::to_writer_pretty(&mut *out, &doc)?;
     writeln!(out)
