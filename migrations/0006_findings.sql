@@ -1,6 +1,7 @@
 -- Findings: flags of one characteristic x factor whose standing-out group is the same, joined over
 -- the periods of one kind (a shorter quiet stretch than `[findings] close_after` keeps a finding
--- open), kept up to date after every run (src/analysis/findings.rs). One row per period kind,
+-- open; fewer flagged periods than `[findings] confirm_after` keep it on watch), kept up to date
+-- after every run (src/analysis/findings.rs). One row per period kind,
 -- characteristic, factor and standing-out level: a finding that closed and flags again is
 -- reopened, not a new one. Times are integer milliseconds since 1970-01-01 UTC.
 CREATE TABLE finding (
@@ -9,7 +10,7 @@ CREATE TABLE finding (
     characteristic    TEXT    NOT NULL,
     factor            TEXT    NOT NULL,
     level             TEXT    NOT NULL,
-    status            TEXT    NOT NULL CHECK (status IN ('open', 'closed')),
+    status            TEXT    NOT NULL CHECK (status IN ('watch', 'open', 'closed')),
     times_reopened    INTEGER NOT NULL DEFAULT 0,
     first_label       TEXT    NOT NULL,            -- first flagged period ever
     first_start_ms    INTEGER NOT NULL,

@@ -34,6 +34,7 @@
 //!
 //! [findings]                          # optional
 //! close_after = 3                     # quiet checked periods that close a finding (1-100)
+//! confirm_after = 2                   # flagged periods that confirm it (on watch before)
 //!
 //! [alert]                             # optional: a command run when findings are new or change
 //! command = ["/usr/local/bin/notify-quality", "--channel", "line-2"]  # program and arguments
@@ -135,11 +136,17 @@ pub struct FindingsSettings {
     /// Checked periods without the flag after which a finding closes; shorter quiet stretches
     /// keep it open and join the flags around them into one finding.
     pub close_after: u32,
+    /// Flagged periods that confirm a finding (it is on watch before: not alerted, not listed
+    /// by default).
+    pub confirm_after: u32,
 }
 
 impl Default for FindingsSettings {
     fn default() -> Self {
-        FindingsSettings { close_after: 3 }
+        FindingsSettings {
+            close_after: 3,
+            confirm_after: 2,
+        }
     }
 }
 
@@ -551,6 +558,7 @@ struct RawConfig {
 #[serde(deny_unknown_fields)]
 struct RawFindings {
     close_after: Option<u32>,
+    confirm_after: Option<u32>,
 }
 
 #[derive(Deserialize)]
@@ -958,6 +966,14 @@ fn validate(raw: RawConfig, path: &Path) -> Result<Config> {
                 )));
             }
             findings.close_after = n;
+        }
+        if let Some(n) = f.confirm_after {
+            if !(1..=100).contains(&n) {
+                return Err(fail(format!(
+                    "findings.confirm_after: {n} is not between 1 and 100 flagged periods"
+                )));
+            }
+            findings.confirm_after = n;
         }
     }
     // [alert]

@@ -105,6 +105,9 @@ impl std::fmt::Display for Period {
 /// Whether a [`Finding`] still flags.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
 pub enum FindingStatus {
+    /// Flagged in fewer periods than confirm a finding (`[findings] confirm_after`): one flag
+    /// may be one of the false discoveries the FDR level allows; watched, not alerted.
+    Watch,
     /// Flagged in the latest checked periods (fewer quiet periods since than close it).
     Open,
     /// Quiet for as many checked periods as close a finding.
@@ -115,6 +118,7 @@ impl FindingStatus {
     /// The stored and printed name (`"open"`, `"closed"`).
     pub fn as_str(self) -> &'static str {
         match self {
+            FindingStatus::Watch => "watch",
             FindingStatus::Open => "open",
             FindingStatus::Closed => "closed",
         }
@@ -123,6 +127,7 @@ impl FindingStatus {
     /// The status of a stored name.
     pub fn parse(text: &str) -> Option<FindingStatus> {
         match text {
+            "watch" => Some(FindingStatus::Watch),
             "open" => Some(FindingStatus::Open),
             "closed" => Some(FindingStatus::Closed),
             _ => None,

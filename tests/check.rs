@@ -442,8 +442,13 @@ fn check_command_flags_stores_versions_and_history() {
     );
     let text = String::from_utf8_lossy(&out.stdout);
     // The summary opens with the findings (issue 16), then the run's table.
-    assert!(text.starts_with("findings: 1 new"), "{text}");
-    assert!(text.contains("bore by machine: M2 stands out"), "{text}");
+    // One flagged day: the finding is on watch until the next flag confirms it.
+    assert!(text.starts_with("findings: 0 new"), "{text}");
+    assert!(text.contains("1 on watch"), "{text}");
+    assert!(
+        text.contains("watch #1: bore by machine: M2 since 2026-11-30"),
+        "{text}"
+    );
     let lines: Vec<&str> = text.lines().collect();
     let head = lines
         .iter()

@@ -11,6 +11,9 @@
 //!   still stands out but is not flagged (an effect near the detection limit) neither counts as
 //!   a flag nor as quiet, and neither do periods without a verdict (too little data, too few
 //!   values to compare);
+//! - a finding flagged in fewer periods than `[findings] confirm_after` (default 2) is on watch:
+//!   one flag may be one of the false discoveries the FDR level allows, so it is kept but neither
+//!   listed by default nor alerted; with the next flag it is confirmed (open);
 //! - a closed finding whose group flags again is reopened (its current episode starts there);
 //! - the onset: a change-point scan (binary segmentation, `stats::changepoint`) of the standing-
 //!   out group's mean minus the other groups' mean, period by period, over up to
@@ -20,7 +23,8 @@
 //!   the series better than the best step, the start of that drift; each with its bootstrap
 //!   interval; without a change, the start of the first flagged period;
 //! - the nearest logged process change in scope (an event for this characteristic or for every
-//!   one, scoped to this factor's level or to nothing) at or before the onset's interval end;
+//!   one, scoped to this factor's level or to nothing) before the end of the period in which the
+//!   onset's interval ends;
 //! - effects as stored by the runs: the standing-out group's mean minus the grand mean, in units,
 //!   in within-group SDs and in % of the tolerance, now (the last flag) and at the episode's peak.
 
@@ -42,10 +46,12 @@ pub const ONSET_WINDOW: usize = 60;
 /// What [`update_findings`] changed.
 #[derive(Debug, Clone, Default)]
 pub struct FindingsUpdate {
-    /// Findings stored for the first time.
+    /// Findings confirmed (open) for the first time; a finding on watch is not new yet.
     pub new: Vec<Finding>,
-    /// Findings whose status changed: closed, or reopened (a flag after closing).
+    /// Open findings that closed, and closed ones confirmed again (reopened).
     pub changed: Vec<Finding>,
+    /// Findings on watch: flagged in fewer periods than confirm them.
+    pub watch: Vec<Finding>,
     /// Every open finding of the kind after the update.
     pub open: Vec<Finding>,
 }
@@ -167,10 +173,11 @@ pub fn update_findings(
                     && o.quiet_periods == f.quiet_periods
             });
             if unchanged {
-                if f.status == FindingStatus::Open {
-                    update
-                        .open
-                        .push(old.cloned().expect("an unchanged finding exists"));
+                let o = old.cloned().expect("an unchanged finding exists");
+                match o.status {
+                    FindingStatus::Open => update.open.push(o),
+                    FindingStatus::Watch => update.watch.push(o),
+                    FindingStatus::Closed => {}
                 }
                 continue;
             }
@@ -183,16 +190,24 @@ pub fn update_findings(
                 onset_of(store, test, &level, &w, &mut f)?;
                 nearest_event(&events, &mut f);
             }
-            let status_changed =
-                old.is_some_and(|o| o.status != f.status || o.times_reopened != f.times_reopened);
-            to_save.push((old.is_none(), status_changed, f));
+            // News: a finding confirmed (open) for the first time, one confirmed again after
+            // closing, and an open one that closed. A finding on watch is not news yet.
+            let became_open = f.status == FindingStatus::Open
+                && old.is_none_or(|o| o.status != FindingStatus::Open);
+            let is_new = became_open && f.times_reopened == 0;
+            let status_changed = (became_open && f.times_reopened > 0)
+                || (f.status == FindingStatus::Closed
+                    && old.is_some_and(|o| o.status == FindingStatus::Open));
+            to_save.push((is_new, status_changed, f));
         }
     }
     let mut findings: Vec<Finding> = to_save.iter().map(|(_, _, f)| f.clone()).collect();
     store.save_findings(&mut findings)?;
     for ((is_new, status_changed, _), f) in to_save.into_iter().zip(findings) {
-        if f.status == FindingStatus::Open {
-            update.open.push(f.clone());
+        match f.status {
+            FindingStatus::Open => update.open.push(f.clone()),
+            FindingStatus::Watch => update.watch.push(f.clone()),
+            FindingStatus::Closed => {}
         }
         if is_new {
             update.new.push(f);
@@ -240,6 +255,8 @@ fn finding_of(
         level: level.to_string(),
         status: if w.closed {
             FindingStatus::Closed
+        } else if w.n_flagged < config.findings.confirm_after {
+            FindingStatus::Watch
         } else {
             FindingStatus::Open
         },
@@ -368,9 +385,16 @@ fn onset_of(
     Ok(())
 }
 
-/// The latest logged event in scope at or before the onset's interval end (or the onset).
+/// The latest logged event in scope before the end of the period in which the onset's interval
+/// (or the onset) ends.
 fn nearest_event(events: &[crate::storage::Event], f: &mut Finding) {
-    let Some(until) = f.onset_high.or(f.onset) else {
+    // Up to the end of the period the onset (or its interval) ends in: with weekly periods a
+    // change logged on the Monday falls inside the week the onset is placed at.
+    let Some(until) = f
+        .onset_high
+        .or(f.onset)
+        .map(|t| t + (f.last_end - f.last_start))
+    else {
         return;
     };
     let in_scope = |e: &crate::storage::Event| {

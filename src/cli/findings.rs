@@ -30,7 +30,7 @@ pub struct FindingsArgs {
     /// The plant configuration (default: $SAMEWISE_CONFIG, then ./plant.toml).
     #[arg(long, value_name = "FILE", global = true)]
     pub config: Option<PathBuf>,
-    /// Every finding, closed ones too (default: open ones).
+    /// Every finding: on watch (flagged once) and closed ones too (default: open ones).
     #[arg(long)]
     pub all: bool,
     /// Findings flagged on or after this production day (YYYY-MM-DD), open or closed.
@@ -384,7 +384,7 @@ fn print_text(
     let tz = config.plant.time_zone;
     let what = match (args.since, args.all) {
         (Some(d), _) => format!("findings flagged since {d}"),
-        (None, true) => "all findings".to_string(),
+        (None, true) => "all findings (open, on watch, closed)".to_string(),
         (None, false) => "open findings".to_string(),
     };
     if findings.is_empty() {
@@ -418,9 +418,10 @@ pub fn summary_lines(
         .count();
     let reopened = update.changed.len() - closed;
     let mut lines = vec![format!(
-        "findings: {} new, {reopened} reopened, {closed} closed, {} open",
+        "findings: {} new, {reopened} reopened, {closed} closed, {} open, {} on watch (flagged once; confirmed by the next flag)",
         update.new.len(),
-        update.open.len()
+        update.open.len(),
+        update.watch.len()
     )];
     for (what, f) in update
         .new
@@ -448,9 +449,15 @@ pub fn summary_lines(
         .chain(&update.changed)
         .map(|f| f.id)
         .collect();
-    for f in update.open.iter().filter(|f| !listed.contains(&f.id)) {
+    for f in update
+        .open
+        .iter()
+        .chain(&update.watch)
+        .filter(|f| !listed.contains(&f.id))
+    {
         lines.push(format!(
-            "  open #{}: {} by {}: {} since {}, last flagged {}{}",
+            "  {} #{}: {} by {}: {} since {}, last flagged {}{}",
+            f.status.as_str(),
             f.id,
             f.characteristic,
             f.factor,
