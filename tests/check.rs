@@ -919,3 +919,31 @@ fn issue_17_json_and_csv_of_status_history_and_db_check() {
     assert_eq!(db["sound"], true);
     assert_eq!(db["counts"]["measurements"], 3 * 240 * 2);
 }
+
+/// Issue 17: `schedule due --json` writes its log as JSON lines and ends with a summary of every
+/// period's outcome; the exit status is unchanged.
+#[test]
+fn issue_17_schedule_due_log_as_json_lines() {
+    let dir = common::temp_dir("issue-17-schedule-json");
+    common::invented_plant(&dir, 3);
+    let out = common::samewise(
+        &dir,
+        &["schedule", "due", "--now", "2026-12-01T12:00:00Z", "--json"],
+    );
+    assert_eq!(out.status.code(), Some(3), "{}", common::output_text(&out));
+    let stdout = String::from_utf8_lossy(&out.stdout);
+    let lines: Vec<serde_json::Value> = stdout
+        .lines()
+        .map(|l| serde_json::from_str(l).unwrap_or_else(|e| panic!("{l}: {e}")))
+        .collect();
+    assert!(lines.len() >= 4, "{stdout}");
+    assert!(lines[0]["time"].as_str().unwrap().ends_with("+00:00"));
+    let summary = &lines.last().unwrap()["summary"];
+    assert_eq!(summary["periods_run"], 3, "{summary}");
+    let periods = summary["periods"].as_array().unwrap();
+    assert!(
+        periods.iter().all(|p| p["outcome"] == "completed"),
+        "{summary}"
+    );
+    assert_eq!(summary["with_flag"], 1, "{summary}");
+}

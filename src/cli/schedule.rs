@@ -26,6 +26,10 @@ pub struct ScheduleArgs {
     /// Plant configuration (default: $SAMEWISE_CONFIG, then ./plant.toml).
     #[arg(long, global = true)]
     pub config: Option<PathBuf>,
+    /// Write the log as JSON lines on stdout (`{"time", "message"}` per line, then one
+    /// `{"summary": ...}` line with every period's outcome) instead of text on stderr.
+    #[arg(long, global = true)]
+    pub json: bool,
     /// What to do.
     #[command(subcommand)]
     pub action: ScheduleAction,
@@ -107,13 +111,16 @@ pub fn run(args: &ScheduleArgs) -> Result<ExitCode> {
     let mut runner = EngineRunner::new(&config);
     // Log lines carry the plant's local time with its offset, like every time samewise prints.
     let tz = config.plant.time_zone;
+    let json = args.json;
     let mut log = |line: &str| {
-        eprintln!(
-            "{} {line}",
-            Utc::now()
-                .with_timezone(&tz)
-                .to_rfc3339_opts(chrono::SecondsFormat::Secs, false)
-        )
+        let time = Utc::now()
+            .with_timezone(&tz)
+            .to_rfc3339_opts(chrono::SecondsFormat::Secs, false);
+        if json {
+            println!("{}", serde_json::json!({"time": time, "message": line}));
+        } else {
+            eprintln!("{time} {line}")
+        }
     };
     let entries = match &args.action {
         ScheduleAction::Due { now, since } => {
@@ -180,6 +187,28 @@ pub fn run(args: &ScheduleArgs) -> Result<ExitCode> {
     log(&format!(
         "{done} period(s) run, {flagged_runs} with a flag, {failed} failed"
     ));
+    if args.json {
+        let periods: Vec<serde_json::Value> = entries
+            .iter()
+            .map(|e| {
+                let (outcome, run_id, flagged, error) = match &e.outcome {
+                    PeriodOutcome::Completed(id, n) => ("completed", Some(*id), Some(*n), None),
+                    PeriodOutcome::Failed(id, why) => {
+                        ("failed", Some(*id), None, Some(why.clone()))
+                    }
+                    PeriodOutcome::AlreadyDone => ("already_done", None, None, None),
+                    PeriodOutcome::Leased => ("held_by_another_scheduler", None, None, None),
+                };
+                serde_json::json!({"schedule": e.schedule, "period": e.period, "outcome": outcome,
+                                   "run_id": run_id, "tests_flagged": flagged, "error": error})
+            })
+            .collect();
+        println!(
+            "{}",
+            serde_json::json!({"summary": {"periods_run": done, "with_flag": flagged_runs,
+                                           "failed": failed, "periods": periods}})
+        );
+    }
     // A failure outranks a flag: the timer must hear about the run that did not happen.
     Ok(ExitCode::from(if failed > 0 {
         super::EXIT_ERROR
