@@ -68,7 +68,10 @@
 //! timestamp_format = "%d.%m.%Y %H:%M:%S"  # optional chrono format; default ISO 8601
 //! characteristic = "Feature"          # long only; default "characteristic"
 //! value = "Value"                     # long only; default "value"
-//! delimiter = ";"                     # one ASCII character; default ","
+//! delimiter = ";"                     # one ASCII character, or "auto"; default ","
+//! decimal = ","                       # decimal separator: "." (default) or "," (then the
+//!                                     # delimiter must not be ","; default then ";";
+//!                                     # thousands separators are refused)
 //! ignore = ["Comment"]                # columns that are present but not read
 //! part = "Serial"                     # optional part (serial) id column, stored
 //! identity = ["characteristic", "part"]  # optional; default: characteristic, time, every
@@ -321,6 +324,11 @@ pub struct Layout {
     pub ignore: Vec<String>,
     /// Field separator, one ASCII character (default `,`; many European exports use `;`).
     pub delimiter: u8,
+    /// `delimiter = "auto"`: the separator is chosen from the header line of each file (the one
+    /// of `,` `;` tab `|` that splits it into the most fields; `,` left out with a decimal comma).
+    pub delimiter_auto: bool,
+    /// `decimal = ","`: values are written with a decimal comma (`10,0123`).
+    pub decimal_comma: bool,
     /// Column holding a part (serial) id, stored with each measurement (`part = "Serial"`).
     pub part_column: Option<String>,
     /// What identifies one measurement, for telling an overlapping export's rows (duplicates)
@@ -627,6 +635,7 @@ struct RawLayout {
     characteristic: Option<String>,
     value: Option<String>,
     delimiter: Option<String>,
+    decimal: Option<String>,
     part: Option<String>,
     identity: Option<Vec<String>>,
     #[serde(default)]
@@ -1097,8 +1106,28 @@ fn validate_layout(
         }
         other => return Err(format!("kind: \"{other}\" is not \"long\" or \"wide\"")),
     };
+    let decimal_comma = match l.decimal.as_deref() {
+        None | Some(".") => false,
+        Some(",") => true,
+        Some(d) => {
+            return Err(format!(
+                "decimal: \"{}\" is not \".\" or \",\"",
+                d.escape_default()
+            ))
+        }
+    };
+    let delimiter_auto = l.delimiter.as_deref() == Some("auto");
     let delimiter = match l.delimiter.as_deref() {
+        // A decimal comma with no delimiter named: the semicolon such exports use.
+        None if decimal_comma => b';',
         None => b',',
+        Some("auto") => b',',
+        Some(",") if decimal_comma => {
+            return Err(
+                "delimiter and decimal separator are both \",\": a value like 10,5 could not be told from two fields; use delimiter = \";\""
+                    .to_string(),
+            )
+        }
         Some(d) if d.len() == 1 && d.is_ascii() && !matches!(d, "\"" | "\n" | "\r") => {
             d.as_bytes()[0]
         }
@@ -1169,6 +1198,8 @@ fn validate_layout(
         factor_columns,
         ignore,
         delimiter,
+        delimiter_auto,
+        decimal_comma,
         part_column,
         identity,
     };
@@ -1232,6 +1263,8 @@ fn default_layouts(factors: &[FactorConfig]) -> Vec<Layout> {
             factor_columns: factor_columns.clone(),
             ignore: Vec::new(),
             delimiter: b',',
+            delimiter_auto: false,
+            decimal_comma: false,
             part_column: None,
             identity: Identity::full(factors.len(), false),
         },
@@ -1245,6 +1278,8 @@ fn default_layouts(factors: &[FactorConfig]) -> Vec<Layout> {
             factor_columns,
             ignore: Vec::new(),
             delimiter: b',',
+            delimiter_auto: false,
+            decimal_comma: false,
             part_column: None,
             identity: Identity::full(factors.len(), false),
         },

@@ -843,3 +843,115 @@ fn issue_15_identity_without_levels() {
     assert!(t.contains("stored \"42.002\", this row \"42.009\""), "{t}");
     assert_eq!(n_measurements(&dir), 3);
 }
+
+/// A German-locale CMM export (issue 15): semicolons between fields, decimal commas, local times
+/// written day first. With `decimal = ","` every row is stored and the values are exactly those
+/// of the same export written with points; a thousands separator is refused with its reason.
+#[test]
+fn issue_15_decimal_comma_cmm_file() {
+    let dir = temp_dir("issue-15-decimal-comma");
+    let layouts = r#"
+[[layout]]
+name = "cmm-de"
+kind = "long"
+timestamp = "Zeit"
+timestamp_format = "%d.%m.%Y %H:%M:%S"
+characteristic = "Merkmal"
+value = "Messwert"
+delimiter = ";"
+decimal = ","
+[layout.factors]
+machine = "Maschine"
+
+[[layout]]
+name = "cmm-points"
+kind = "long"
+timestamp = "time"
+characteristic = "feature"
+value = "measured"
+[layout.factors]
+machine = "mach"
+"#;
+    std::fs::write(dir.join("plant.toml"), format!("{CONFIG}{layouts}")).unwrap();
+    assert!(run(&dir, &["init"]).status.success());
+    let mut de = String::from("Zeit;Merkmal;Messwert;Maschine\r\n");
+    let mut points = String::from("time,feature,measured,mach\n");
+    for i in 0..240u32 {
+        let (h, m) = (7 + i / 60, i % 60);
+        let v = format!("42,{:04}", 1000 + (i * 37) % 900);
+        let machine = format!("M{}", 1 + i % 3);
+        de.push_str(&format!(
+            "30.11.2026 {h:02}:{m:02}:00;bore_diameter;{v};{machine}\r\n"
+        ));
+        points.push_str(&format!(
+            "2026-11-30T{:02}:{m:02}:00Z,bore_diameter,{},{machine}\n",
+            h,
+            v.replace(',', ".")
+        ));
+    }
+    de.push_str("30.11.2026 12:00:00;bore_diameter;1.042,0005;M1\r\n");
+    std::fs::write(dir.join("de.csv"), &de).unwrap();
+    let o = run(&dir, &["import", "de.csv"]);
+    let t = text(&o);
+    assert!(o.status.success(), "{t}");
+    assert!(t.contains("(layout cmm-de)"), "{t}");
+    assert!(
+        t.contains("241 measurements: 240 stored, 0 already stored (duplicate), 1 rejected"),
+        "{t}"
+    );
+    assert!(t.contains("thousands separators are not accepted"), "{t}");
+    // The same values written with points, in another database: the exact same offsets.
+    let dir2 = temp_dir("issue-15-decimal-points");
+    std::fs::write(dir2.join("plant.toml"), format!("{CONFIG}{layouts}")).unwrap();
+    assert!(run(&dir2, &["init"]).status.success());
+    std::fs::write(dir2.join("p.csv"), &points).unwrap();
+    let o = run(&dir2, &["import", "p.csv"]);
+    assert!(o.status.success(), "{}", text(&o));
+    let values = |d: &Path| -> Vec<f64> {
+        let conn = rusqlite::Connection::open(d.join("plant.db")).unwrap();
+        let mut st = conn
+            .prepare("SELECT value FROM measurement_values ORDER BY ts_ms")
+            .unwrap();
+        st.query_map([], |r| r.get(0))
+            .unwrap()
+            .collect::<Result<_, _>>()
+            .unwrap()
+    };
+    // Local (Europe/Berlin, CET) 07:00 is 06:00 UTC: compare the values in time order.
+    let (a, b) = (values(&dir), values(&dir2));
+    assert_eq!(a.len(), 240);
+    assert_eq!(a, b);
+}
+
+/// A decimal comma with a comma delimiter is refused in the configuration; `delimiter = "auto"`
+/// finds the semicolon of a decimal-comma file (issue 15).
+#[test]
+fn issue_15_delimiter_auto_and_decimal_comma_configuration() {
+    let dir = temp_dir("issue-15-delimiter-auto");
+    std::fs::write(
+        dir.join("plant.toml"),
+        format!("{CONFIG}\n[[layout]]\nname = \"x\"\nkind = \"long\"\ndelimiter = \",\"\ndecimal = \",\"\n"),
+    )
+    .unwrap();
+    let o = run(&dir, &["init"]);
+    assert!(!o.status.success());
+    assert!(
+        text(&o).contains("delimiter and decimal separator are both \",\""),
+        "{}",
+        text(&o)
+    );
+    std::fs::write(
+        dir.join("plant.toml"),
+        format!("{CONFIG}\n[[layout]]\nname = \"x\"\nkind = \"long\"\ndelimiter = \"auto\"\ndecimal = \",\"\n"),
+    )
+    .unwrap();
+    assert!(run(&dir, &["init"]).status.success());
+    std::fs::write(
+        dir.join("a.csv"),
+        "timestamp;characteristic;value;machine\n2026-11-30T07:00:00Z;bore_diameter;42,001;M1\n2026-11-30T07:01:00Z;flatness;0,012;M2\n",
+    )
+    .unwrap();
+    let o = run(&dir, &["import", "a.csv"]);
+    assert!(text(&o).contains("2 stored"), "{}", text(&o));
+    assert_eq!(n_measurements(&dir), 2);
+}

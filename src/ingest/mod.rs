@@ -251,6 +251,15 @@ pub fn read_from<R: Read>(
     let mut plans = Vec::new();
     let mut misfits = Vec::new();
     for layout in &candidates {
+        let sniffed;
+        let layout: &Layout = if layout.delimiter_auto {
+            let mut l = (*layout).clone();
+            l.delimiter = sniff_delimiter(header_text.as_bytes(), l.decimal_comma);
+            sniffed = l;
+            &sniffed
+        } else {
+            layout
+        };
         let mut fields = Vec::new();
         let mut buf = Vec::new();
         let columns: Vec<String> = match split_fields(
@@ -753,6 +762,15 @@ fn read_row<R: Read, S: OutcomeSink>(
 }
 
 impl RowParser {
+    /// A value cell, with the layout's decimal separator.
+    fn parse_cell_value(&self, text: &str) -> std::result::Result<Decimal, String> {
+        if self.plan.layout.decimal_comma {
+            parse_value_decimal_comma(text)
+        } else {
+            parse_value(text)
+        }
+    }
+
     /// `value` when it lies in the characteristic's plausible range (or none is known), else the
     /// reason naming the range and how to change it.
     fn check_plausible(&self, name: &str, value: Decimal) -> std::result::Result<Decimal, String> {
@@ -963,7 +981,7 @@ impl RowParser {
                         match name {
                             Err(r) => Err((characteristic, format!("characteristic name: {r}"))),
                             Ok(name) => match text(value)
-                                .and_then(parse_value)
+                                .and_then(|t| this.parse_cell_value(t))
                                 .and_then(|v| this.check_plausible(name, v))
                             {
                                 Ok(v) => Ok((name, v)),
@@ -1000,10 +1018,10 @@ impl RowParser {
                     } else if !known {
                         check_name(name)
                             .map_err(|r| format!("characteristic name: {r}"))
-                            .and_then(|_| text(*i).and_then(parse_value))
+                            .and_then(|_| text(*i).and_then(|t| this.parse_cell_value(t)))
                     } else {
                         text(*i)
-                            .and_then(parse_value)
+                            .and_then(|t| this.parse_cell_value(t))
                             .and_then(|v| this.check_plausible(name, v))
                     };
                     match outcome {
@@ -1116,6 +1134,40 @@ pub fn parse_value(text: &str) -> std::result::Result<Decimal, String> {
         ));
     }
     Ok(value)
+}
+
+/// The field delimiter of a header line for `delimiter = "auto"`: of `,` `;` tab `|` (the comma
+/// left out with a decimal comma), the one that splits the line (quotes respected) into the most
+/// fields; ties go to the earlier in that list, and a line no candidate splits keeps the first.
+pub fn sniff_delimiter(header: &[u8], decimal_comma: bool) -> u8 {
+    let candidates: &[u8] = if decimal_comma { b";\t|" } else { b",;\t|" };
+    let mut best = (candidates[0], 0usize);
+    let (mut buf, mut fields) = (Vec::new(), Vec::new());
+    for &d in candidates {
+        if split_fields(header, d, &mut buf, &mut fields).is_ok() && fields.len() > best.1 {
+            best = (d, fields.len());
+        }
+    }
+    best.0
+}
+
+/// A value written with a decimal comma (`10,0123`, `-0,5`) as the exact decimal; a point in it
+/// (a thousands separator, `1.234,5`) is refused, since the digits' grouping cannot be checked.
+pub fn parse_value_decimal_comma(text: &str) -> std::result::Result<Decimal, String> {
+    let t = text.trim();
+    if t.contains('.') {
+        return Err(format!(
+            "value \"{}\" has a point in a decimal-comma layout: thousands separators are not accepted (write 1234,5, not 1.234,5)",
+            shorten(t)
+        ));
+    }
+    if t.matches(',').count() > 1 {
+        return Err(format!(
+            "value \"{}\" has more than one decimal comma",
+            shorten(t)
+        ));
+    }
+    parse_value(&t.replacen(',', ".", 1)).map_err(|r| r.replace(&t.replacen(',', ".", 1), t))
 }
 
 /// `x` to 12 significant digits without trailing zeros (7.9, not 7.9000000000000004).

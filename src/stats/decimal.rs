@@ -130,7 +130,7 @@ impl Decimal {
                 b'.' => return Err(fail("has more than one decimal point")),
                 b',' => {
                     return Err(fail(
-                        "is not a number (use '.' as the decimal separator, no thousands separators)",
+                        "is not a number (use '.' as the decimal separator, no thousands separators; a file written with a decimal comma needs decimal = \",\" in its layout)",
                     ))
                 }
                 b'e' | b'E' => break,
