@@ -122,6 +122,7 @@ fn bench_stats(c: &mut Criterion) {
                 black_box(&bytes),
                 "machine",
                 "diameter_mm",
+                samewise::cli::compare::CsvFormat::default(),
             )
             .unwrap();
             black_box(d)

@@ -766,3 +766,84 @@ fn issue_13_constant_groups_are_a_difference() {
     assert_eq!((f(c, &["df_between"]), f(c, &["df_within"])), (2.0, 12.0));
     assert!(lre(f(c, &["grand_mean"]), 2.6) >= 14.0);
 }
+
+/// Issue 15: `compare --delimiter` and `--decimal-comma` read a German-locale export; header
+/// names match ignoring case, as in the import; the same values with points give the same F.
+#[test]
+fn issue_15_compare_reads_decimal_comma_and_other_delimiters() {
+    let dir = std::env::temp_dir().join(format!("samewise-compare-locale-{}", std::process::id()));
+    let _ = std::fs::remove_dir_all(&dir);
+    std::fs::create_dir_all(&dir).unwrap();
+    let mut de = String::from("Maschine;Durchmesser\r\n");
+    let mut pt = String::from("maschine,durchmesser\n");
+    for i in 0..30u32 {
+        let v = format!("{},{:03}", 10 + i % 2, (i * 37) % 1000);
+        de.push_str(&format!("M{};{v}\r\n", 1 + i % 3));
+        pt.push_str(&format!("M{},{}\n", 1 + i % 3, v.replace(',', ".")));
+    }
+    std::fs::write(dir.join("de.csv"), &de).unwrap();
+    std::fs::write(dir.join("pt.csv"), &pt).unwrap();
+    let run = |args: &[&str]| {
+        Command::new(env!("CARGO_BIN_EXE_samewise"))
+            .current_dir(&dir)
+            .args(args)
+            .output()
+            .unwrap()
+    };
+    let a = run(&[
+        "compare",
+        "de.csv",
+        "--by",
+        "MASCHINE",
+        "--measure",
+        "durchmesser",
+        "--decimal-comma",
+        "--json",
+    ]);
+    assert!(a.status.success(), "{}", String::from_utf8_lossy(&a.stderr));
+    let b = run(&[
+        "compare",
+        "pt.csv",
+        "--by",
+        "Maschine",
+        "--measure",
+        "Durchmesser",
+        "--json",
+    ]);
+    assert!(b.status.success(), "{}", String::from_utf8_lossy(&b.stderr));
+    let (a, b): (serde_json::Value, serde_json::Value) = (
+        serde_json::from_slice(&a.stdout).unwrap(),
+        serde_json::from_slice(&b.stdout).unwrap(),
+    );
+    assert_eq!(a["anova"]["f"], b["anova"]["f"]);
+    assert_eq!(a["groups"], b["groups"]);
+    // auto finds the semicolon.
+    let c = run(&[
+        "compare",
+        "de.csv",
+        "--by",
+        "maschine",
+        "--measure",
+        "durchmesser",
+        "--decimal-comma",
+        "--delimiter",
+        "auto",
+        "--json",
+    ]);
+    assert!(c.status.success(), "{}", String::from_utf8_lossy(&c.stderr));
+    // A comma delimiter with a decimal comma is refused.
+    let d = run(&[
+        "compare",
+        "de.csv",
+        "--by",
+        "maschine",
+        "--measure",
+        "durchmesser",
+        "--decimal-comma",
+        "--delimiter",
+        ",",
+    ]);
+    assert!(!d.status.success());
+    assert!(String::from_utf8_lossy(&d.stderr).contains("could not be told from two fields"));
+    let _ = std::fs::remove_dir_all(&dir);
+}

@@ -48,6 +48,62 @@ pub struct CompareArgs {
     /// Print one JSON object instead of the readable report.
     #[arg(long)]
     pub json: bool,
+    /// Field delimiter: one character (`;`, `|`, `\t` for a tab) or `auto` (sniffed from the
+    /// header line, as a layout's `delimiter = "auto"`); default `,`.
+    #[arg(long, value_name = "CHAR")]
+    pub delimiter: Option<String>,
+    /// Values are written with a decimal comma (`10,0123`); the delimiter must then not be `,`
+    /// (default then `;`).
+    #[arg(long)]
+    pub decimal_comma: bool,
+}
+
+/// How a compared file is written: its field delimiter and decimal separator.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct CsvFormat {
+    /// The field delimiter; `None`: sniffed from the header line.
+    pub delimiter: Option<u8>,
+    /// Values with a decimal comma.
+    pub decimal_comma: bool,
+}
+
+impl Default for CsvFormat {
+    fn default() -> Self {
+        CsvFormat {
+            delimiter: Some(b','),
+            decimal_comma: false,
+        }
+    }
+}
+
+impl CsvFormat {
+    /// The format the flags name.
+    pub fn from_flags(delimiter: Option<&str>, decimal_comma: bool) -> Result<CsvFormat> {
+        let delimiter = match delimiter {
+            None if decimal_comma => Some(b';'),
+            None => Some(b','),
+            Some("auto") => None,
+            Some("\\t") | Some("tab") => Some(b'\t'),
+            Some(d) if d.len() == 1 && d.is_ascii() && !matches!(d, "\"" | "\n" | "\r") => {
+                Some(d.as_bytes()[0])
+            }
+            Some(d) => {
+                return Err(Error::Usage(format!(
+                    "--delimiter {d}: give one character (e.g. ';', '|', '\\t') or auto"
+                )))
+            }
+        };
+        if decimal_comma && delimiter == Some(b',') {
+            return Err(Error::Usage(
+                "--decimal-comma with --delimiter ,: a value like 10,5 could not be told from two fields; use --delimiter ';'"
+                    .to_string(),
+            ));
+        }
+        Ok(CsvFormat {
+            delimiter,
+            decimal_comma,
+        })
+    }
 }
 
 /// Measurements of one CSV file, grouped, as offsets from one exact origin.
@@ -76,14 +132,30 @@ fn ingest_error(path: &Path, line: Option<u64>, column: Option<&str>, reason: St
 }
 
 /// Reads and groups a CSV file (see the module docs for what is accepted and rejected).
-pub fn read_grouped(path: &Path, by: &str, measure: &str) -> Result<GroupedData> {
+pub fn read_grouped(
+    path: &Path,
+    by: &str,
+    measure: &str,
+    format: CsvFormat,
+) -> Result<GroupedData> {
     let bytes = std::fs::read(path).map_err(|e| Error::io(path, e))?;
-    parse_grouped(path, &bytes, by, measure)
+    parse_grouped(path, &bytes, by, measure, format)
 }
 
 /// Groups CSV bytes; `path` only names the input in errors.
-pub fn parse_grouped(path: &Path, bytes: &[u8], by: &str, measure: &str) -> Result<GroupedData> {
+pub fn parse_grouped(
+    path: &Path,
+    bytes: &[u8],
+    by: &str,
+    measure: &str,
+    format: CsvFormat,
+) -> Result<GroupedData> {
     let body = bytes.strip_prefix(b"\xEF\xBB\xBF").unwrap_or(bytes);
+    let delimiter = format.delimiter.unwrap_or_else(|| {
+        let header = body.split(|&b| b == b'\n').next().unwrap_or_default();
+        let header = header.strip_suffix(b"\r").unwrap_or(header);
+        crate::ingest::sniff_delimiter(header, format.decimal_comma)
+    });
     if body.iter().all(|b| b.is_ascii_whitespace()) {
         return Err(ingest_error(
             path,
@@ -93,6 +165,7 @@ pub fn parse_grouped(path: &Path, bytes: &[u8], by: &str, measure: &str) -> Resu
         ));
     }
     let mut reader = csv::ReaderBuilder::new()
+        .delimiter(delimiter)
         .has_headers(false)
         .flexible(true)
         .from_reader(body);
@@ -135,7 +208,8 @@ pub fn parse_grouped(path: &Path, bytes: &[u8], by: &str, measure: &str) -> Resu
         let hits: Vec<usize> = header
             .iter()
             .enumerate()
-            .filter(|(_, h)| h.as_str() == name.trim())
+            // Matched as the import matches layout columns: trimmed, ignoring ASCII case.
+            .filter(|(_, h)| h.eq_ignore_ascii_case(name.trim()))
             .map(|(i, _)| i)
             .collect();
         match hits.as_slice() {
@@ -237,8 +311,13 @@ pub fn parse_grouped(path: &Path, bytes: &[u8], by: &str, measure: &str) -> Resu
                     .into(),
             ));
         }
-        let value = Decimal::parse(cell)
-            .map_err(|e| ingest_error(path, Some(line), Some(measure), e.to_string()))?;
+        let value = if format.decimal_comma {
+            crate::ingest::parse_value_decimal_comma(cell)
+                .map_err(|r| ingest_error(path, Some(line), Some(measure), r))?
+        } else {
+            Decimal::parse(cell)
+                .map_err(|e| ingest_error(path, Some(line), Some(measure), e.to_string()))?
+        };
         max_places = max_places.max(value.normalized().scale());
         let group = match index.get(label) {
             Some(&g) => g,
@@ -291,7 +370,8 @@ fn parse_limit(flag: &str, text: &Option<String>, origin: &Decimal) -> Result<Op
 
 /// Runs `samewise compare`.
 pub fn run(args: &CompareArgs) -> Result<std::process::ExitCode> {
-    let data = read_grouped(&args.file, &args.by, &args.measure)?;
+    let format = CsvFormat::from_flags(args.delimiter.as_deref(), args.decimal_comma)?;
+    let data = read_grouped(&args.file, &args.by, &args.measure, format)?;
     if data.names.len() < 2 {
         return Err(Error::NotEnoughData {
             characteristic: args.measure.clone(),
