@@ -60,6 +60,8 @@
 //! [[factor]]
 //! name = "shift"
 //! derived = "shift"                   # computed from the timestamp through the shifts
+//! # case = "upper"                    # optional on a column factor: levels upper- (or "lower"-)
+//!                                     # cased at import, so imm1 and IMM1 are one machine
 //!
 //! [[layout]]
 //! name = "cmm-long"
@@ -286,6 +288,20 @@ pub struct FactorConfig {
     pub name: String,
     /// Where its level comes from.
     pub source: FactorSource,
+    /// How its levels are normalised at import (`case = "upper"`): `imm1` and `IMM1` one machine.
+    pub case: LevelCase,
+}
+
+/// Case normalisation of a factor's levels at import (surrounding blanks are always trimmed).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum LevelCase {
+    /// As written (the default).
+    #[default]
+    Keep,
+    /// Upper case (`imm1` -> `IMM1`).
+    Upper,
+    /// Lower case.
+    Lower,
 }
 
 /// The shape of an import file.
@@ -623,6 +639,7 @@ struct RawFactor {
     name: String,
     column: Option<String>,
     derived: Option<String>,
+    case: Option<String>,
 }
 
 #[derive(Deserialize)]
@@ -879,7 +896,17 @@ fn validate(raw: RawConfig, path: &Path) -> Result<Config> {
                 )))
             }
         };
-        factors.push(FactorConfig { name, source });
+        let case = match f.case.as_deref() {
+            None | Some("keep") => LevelCase::Keep,
+            Some("upper") => LevelCase::Upper,
+            Some("lower") => LevelCase::Lower,
+            Some(other) => {
+                return Err(fail(format!(
+                    "factor \"{name}\": case: \"{other}\" is not \"keep\", \"upper\" or \"lower\""
+                )))
+            }
+        };
+        factors.push(FactorConfig { name, source, case });
     }
 
     // [[layout]]

@@ -955,3 +955,65 @@ fn issue_15_delimiter_auto_and_decimal_comma_configuration() {
     assert!(text(&o).contains("2 stored"), "{}", text(&o));
     assert_eq!(n_measurements(&dir), 2);
 }
+
+/// Level hygiene (issue 15): control characters in a level are rejected with the character
+/// shown escaped; levels that differ only in case are warned about, and `case = "upper"` makes
+/// them one group.
+#[test]
+fn issue_15_level_hygiene() {
+    let dir = setup("issue-15-levels");
+    std::fs::write(
+        dir.join("a.csv"),
+        "timestamp,characteristic,value,machine\n\
+         2026-11-30T07:00:00Z,bore_diameter,42.001,imm1\n\
+         2026-11-30T07:01:00Z,bore_diameter,42.002,IMM1\n\
+         2026-11-30T07:02:00Z,bore_diameter,42.003,M1\u{1b}[31m\n\
+         2026-11-30T07:03:00Z,bore_diameter,42.004,M\u{0}2\n",
+    )
+    .unwrap();
+    let o = run(&dir, &["import", "a.csv"]);
+    let t = text(&o);
+    assert!(
+        t.contains("2 stored, 0 already stored (duplicate), 2 rejected"),
+        "{t}"
+    );
+    assert!(t.contains("holds a control character"), "{t}");
+    assert!(t.contains("\\u{1b}"), "the character shown escaped: {t}");
+    assert!(
+        t.contains(
+            "factor machine has levels that differ only in case or blanks (\"IMM1\", \"imm1\")"
+        ),
+        "{t}"
+    );
+    // With case = "upper" the two spellings are one machine.
+    let dir = temp_dir("issue-15-levels-upper");
+    std::fs::write(
+        dir.join("plant.toml"),
+        CONFIG.replace(
+            "[[factor]]\nname = \"machine\"",
+            "[[factor]]\nname = \"machine\"\ncase = \"upper\"",
+        ),
+    )
+    .unwrap();
+    assert!(run(&dir, &["init"]).status.success());
+    std::fs::write(
+        dir.join("b.csv"),
+        "timestamp,characteristic,value,machine\n\
+         2026-11-30T07:00:00Z,bore_diameter,42.001,imm1\n\
+         2026-11-30T07:01:00Z,bore_diameter,42.002,IMM1\n",
+    )
+    .unwrap();
+    let o = run(&dir, &["import", "b.csv"]);
+    let t = text(&o);
+    assert!(t.contains("2 stored"), "{t}");
+    assert!(!t.contains("differ only in case"), "{t}");
+    let conn = rusqlite::Connection::open(dir.join("plant.db")).unwrap();
+    let machines: Vec<String> = conn
+        .prepare("SELECT DISTINCT machine FROM measurement_values")
+        .unwrap()
+        .query_map([], |r| r.get(0))
+        .unwrap()
+        .collect::<Result<_, _>>()
+        .unwrap();
+    assert_eq!(machines, ["IMM1"]);
+}

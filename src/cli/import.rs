@@ -136,6 +136,13 @@ pub fn run(args: &ImportArgs) -> Result<ExitCode> {
         w.commit()?;
         println!("rejected rows written to {}", path.display());
     }
+    // Levels that differ only in case or blanks are different groups to every check: say so.
+    for (factor, levels) in store.level_case_collisions()? {
+        eprintln!(
+            "warning: factor {factor} has levels that differ only in case or blanks ({}): every check counts them as different groups; set case = \"upper\" under [[factor]] name = \"{factor}\" to make them one (new imports; stored ones stay as they are)",
+            levels.iter().map(|l| format!("\"{l}\"")).collect::<Vec<_>>().join(", ")
+        );
+    }
     if super::stdout_closed() && args.files.len() > 1 {
         // The summary went nowhere: say on stderr what is in the database now.
         eprintln!(

@@ -57,7 +57,7 @@ use chrono::{DateTime, Utc};
 use sha2::{Digest, Sha256};
 
 use crate::calendar::{PlantCalendar, ShiftTable};
-use crate::config::{check_name, Config, Layout, LayoutKind};
+use crate::config::{check_name, Config, Layout, LayoutKind, LevelCase};
 use crate::stats::decimal::Decimal;
 use crate::{Error, Result};
 
@@ -341,6 +341,7 @@ pub fn read_from<R: Read>(
                 .filter_map(|c| c.plausible_range().map(|r| (c.name.clone(), r)))
                 .collect(),
             add_new: options.add_new,
+            level_case: config.factors.iter().map(|f| f.case).collect(),
             has_shift,
             shift_cache: None,
             blank_rows: 0,
@@ -620,6 +621,8 @@ struct RowParser {
     /// Plausible range per configured characteristic (`CharacteristicConfig::plausible_range`).
     plausible: FxMap<String, (f64, f64)>,
     add_new: bool,
+    /// Per factor (configuration order): its case normalisation.
+    level_case: Vec<LevelCase>,
     has_shift: bool,
     shift_cache: Option<ShiftTable>,
     blank_rows: u64,
@@ -901,6 +904,22 @@ impl RowParser {
             0
         };
         let this = &*self;
+        // Levels normalised to upper or lower case are owned for the row.
+        let mut normalised: Vec<String> = Vec::new();
+        if this.level_case.iter().any(|c| *c != LevelCase::Keep) {
+            for (f, factor) in this.plan.factors.iter().enumerate() {
+                let case = this.level_case.get(f).copied().unwrap_or_default();
+                normalised.push(match (factor, case) {
+                    (FactorCell::Column(i), LevelCase::Upper) => {
+                        text(*i).map(str::to_uppercase).unwrap_or_default()
+                    }
+                    (FactorCell::Column(i), LevelCase::Lower) => {
+                        text(*i).map(str::to_lowercase).unwrap_or_default()
+                    }
+                    _ => String::new(),
+                });
+            }
+        }
         // Factor levels, borrowed from the line (or the calendar, for the derived shift).
         let n_factors = this.plan.factors.len();
         let mut inline = [""; INLINE_LEVELS];
@@ -920,7 +939,20 @@ impl RowParser {
                         this.reject_row(sink, line_no, Some(i), reason, line);
                         return;
                     }
-                    Ok(t) => levels[f] = t,
+                    Ok(t) if t.chars().any(char::is_control) => {
+                        let reason = format!(
+                            "the level \"{}\" holds a control character (it would print like another level and break charts); remove it from the export",
+                            t.escape_default()
+                        );
+                        this.reject_row(sink, line_no, Some(i), reason, line);
+                        return;
+                    }
+                    Ok(t) => {
+                        levels[f] = match this.level_case.get(f) {
+                            Some(LevelCase::Upper | LevelCase::Lower) => normalised[f].as_str(),
+                            _ => t,
+                        }
+                    }
                     Err(reason) => {
                         this.reject_row(sink, line_no, Some(i), reason, line);
                         return;
@@ -941,6 +973,14 @@ impl RowParser {
                     return;
                 }
                 Ok("") => None,
+                Ok(t) if t.chars().any(char::is_control) => {
+                    let reason = format!(
+                        "the part id \"{}\" holds a control character; remove it from the export",
+                        t.escape_default()
+                    );
+                    this.reject_row(sink, line_no, Some(i), reason, line);
+                    return;
+                }
                 Ok(t) => Some(t),
                 Err(reason) => {
                     this.reject_row(sink, line_no, Some(i), reason, line);

@@ -468,6 +468,33 @@ pub(crate) fn level_set_key_ids(key: &str) -> impl Iterator<Item = Option<i64>> 
         .map(|part| part.parse().ok())
 }
 
+impl Store {
+    /// Levels of one factor that differ only in case or surrounding blanks (`imm1`, `IMM1`):
+    /// (factor, the levels), for a warning that they are counted as different groups.
+    pub fn level_case_collisions(&self) -> Result<Vec<(String, Vec<String>)>> {
+        let mut stmt = self.conn.prepare(
+            "SELECT f.name, l.name FROM levels l JOIN factors f ON f.id = l.factor_id \
+             ORDER BY f.position, l.name",
+        )?;
+        let rows: Vec<(String, String)> = stmt
+            .query_map([], |r| Ok((r.get(0)?, r.get(1)?)))?
+            .collect::<rusqlite::Result<_>>()?;
+        let mut groups: Vec<((String, String), Vec<String>)> = Vec::new();
+        for (factor, level) in rows {
+            let key = (factor, level.trim().to_lowercase());
+            match groups.iter_mut().find(|(k, _)| *k == key) {
+                Some((_, v)) => v.push(level),
+                None => groups.push((key, vec![level])),
+            }
+        }
+        Ok(groups
+            .into_iter()
+            .filter(|(_, v)| v.len() > 1)
+            .map(|((factor, _), v)| (factor, v))
+            .collect())
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
