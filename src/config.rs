@@ -80,7 +80,8 @@
 //!                                     # factor, and the part when there is a part column
 //! [layout.factors]                    # factor = "Column"; default: the factor's own column
 //! machine = "Machine ID"
-//! [layout.characteristics]            # wide only: characteristic = "Column"
+//! [layout.characteristics]            # wide: characteristic = "Column"; long: characteristic =
+//!                                     # "CODE" (the station's code in the characteristic column)
 //! bore_diameter = "Bore D"
 //!
 //! [[schedule]]
@@ -345,6 +346,9 @@ pub struct Layout {
     pub delimiter_auto: bool,
     /// `decimal = ","`: values are written with a decimal comma (`10,0123`).
     pub decimal_comma: bool,
+    /// Long layouts: the codes a station writes in the characteristic column mapped to the
+    /// configured names (`[layout.characteristics]` name = "CODE"), as (code, name).
+    pub codes: Vec<(String, String)>,
     /// Column holding a part (serial) id, stored with each measurement (`part = "Serial"`).
     pub part_column: Option<String>,
     /// What identifies one measurement, for telling an overlapping export's rows (duplicates)
@@ -1085,14 +1089,31 @@ fn validate_layout(
             }),
         });
     }
+    let mut codes: Vec<(String, String)> = Vec::new();
+    let other_name = |codes: &[(String, String)], code: &str| {
+        codes
+            .iter()
+            .find(|(c, _)| c == code)
+            .map(|(_, n)| n.clone())
+            .unwrap_or_default()
+    };
     let kind = match l.kind.as_str() {
         "long" => {
-            if !l.characteristics.is_empty() {
-                return Err(
-                    "characteristics: a long layout reads the characteristic name from a column; \
-                     [layout.characteristics] is only for wide layouts"
-                        .to_string(),
-                );
+            // [layout.characteristics] maps a station's codes (CH07) to configured names.
+            for (name, code) in &l.characteristics {
+                if !characteristics.iter().any(|c| &c.name == name) {
+                    return Err(format!(
+                        "characteristics: \"{name}\" is not a configured characteristic"
+                    ));
+                }
+                let code = check_label(code).map_err(|r| format!("characteristics.{name}: {r}"))?;
+                if let Some((other, _)) = codes.iter().find(|(c, _)| *c == code) {
+                    return Err(format!(
+                        "characteristics: the code \"{code}\" is given to \"{name}\" and to \"{}\"",
+                        other_name(&codes, other)
+                    ));
+                }
+                codes.push((code, name.clone()));
             }
             LayoutKind::Long {
                 characteristic_column: column(
@@ -1227,6 +1248,7 @@ fn validate_layout(
         delimiter,
         delimiter_auto,
         decimal_comma,
+        codes,
         part_column,
         identity,
     };
@@ -1292,6 +1314,7 @@ fn default_layouts(factors: &[FactorConfig]) -> Vec<Layout> {
             delimiter: b',',
             delimiter_auto: false,
             decimal_comma: false,
+            codes: Vec::new(),
             part_column: None,
             identity: Identity::full(factors.len(), false),
         },
@@ -1307,6 +1330,7 @@ fn default_layouts(factors: &[FactorConfig]) -> Vec<Layout> {
             delimiter: b',',
             delimiter_auto: false,
             decimal_comma: false,
+            codes: Vec::new(),
             part_column: None,
             identity: Identity::full(factors.len(), false),
         },

@@ -1017,3 +1017,38 @@ fn issue_15_level_hygiene() {
         .unwrap();
     assert_eq!(machines, ["IMM1"]);
 }
+
+/// Long layouts map a station's channel codes to characteristic names (issue 15): CH07 is
+/// stored as bore_diameter; an unmapped code that is no configured name is rejected.
+#[test]
+fn issue_15_long_layout_maps_channel_codes() {
+    let dir = temp_dir("issue-15-codes");
+    let layout = "\n[[layout]]\nname = \"station\"\nkind = \"long\"\ncharacteristic = \"channel\"\n[layout.characteristics]\nbore_diameter = \"CH07\"\nflatness = \"CH12\"\n";
+    std::fs::write(dir.join("plant.toml"), format!("{CONFIG}{layout}")).unwrap();
+    assert!(run(&dir, &["init"]).status.success());
+    std::fs::write(
+        dir.join("s.csv"),
+        "timestamp,channel,value,machine\n\
+         2026-11-30T07:00:00Z,CH07,42.001,M1\n\
+         2026-11-30T07:00:00Z,CH12,0.012,M1\n\
+         2026-11-30T07:00:00Z,CH99,1.5,M1\n\
+         2026-11-30T07:01:00Z,bore_diameter,42.002,M1\n",
+    )
+    .unwrap();
+    let o = run(&dir, &["import", "s.csv"]);
+    let t = text(&o);
+    assert!(
+        t.contains("3 stored, 0 already stored (duplicate), 1 rejected"),
+        "{t}"
+    );
+    assert!(t.contains("unknown characteristic \"CH99\""), "{t}");
+    let conn = rusqlite::Connection::open(dir.join("plant.db")).unwrap();
+    let n: i64 = conn
+        .query_row(
+            "SELECT COUNT(*) FROM measurement_values WHERE characteristic = 'bore_diameter'",
+            [],
+            |r| r.get(0),
+        )
+        .unwrap();
+    assert_eq!(n, 2);
+}

@@ -995,7 +995,16 @@ impl RowParser {
             } => {
                 let (characteristic, value) = (*characteristic, *value);
                 let checked;
-                let outcome = match text(characteristic) {
+                // A station's code (CH07) mapped to its configured name.
+                let cell = text(characteristic).map(|t| {
+                    this.plan
+                        .layout
+                        .codes
+                        .iter()
+                        .find(|(code, _)| code == t)
+                        .map_or(t, |(_, name)| name.as_str())
+                });
+                let outcome = match cell {
                     Err(r) => Err((characteristic, r)),
                     Ok("") => Err((characteristic, "empty cell (no characteristic name)".to_string())),
                     Ok(name) if !this.known.contains(name) && !this.add_new => Err((
