@@ -847,3 +847,28 @@ fn issue_15_compare_reads_decimal_comma_and_other_delimiters() {
     assert!(String::from_utf8_lossy(&d.stderr).contains("could not be told from two fields"));
     let _ = std::fs::remove_dir_all(&dir);
 }
+
+/// Issue 15: `compare` reads CSV with the import's reader: the line numbers in its errors are
+/// physical lines, after blank lines and with CRLF line ends, and a quoted line break is an
+/// error as in the import.
+#[test]
+fn issue_15_compare_line_numbers_and_quoting_follow_the_import() {
+    let dir = std::env::temp_dir().join(format!("samewise-compare-lines-{}", std::process::id()));
+    let _ = std::fs::remove_dir_all(&dir);
+    std::fs::create_dir_all(&dir).unwrap();
+    let run = |file: &str, text: &str| {
+        std::fs::write(dir.join(file), text).unwrap();
+        let o = Command::new(env!("CARGO_BIN_EXE_samewise"))
+            .current_dir(&dir)
+            .args(["compare", file, "--by", "m", "--measure", "v"])
+            .output()
+            .unwrap();
+        String::from_utf8_lossy(&o.stderr).into_owned()
+    };
+    // Line 6 (after two blank lines) holds the bad value.
+    let err = run("a.csv", "m,v\r\nA,1.0\r\n\r\n\r\nB,2.0\r\nB,x\r\n");
+    assert!(err.contains("a.csv:6"), "{err}");
+    let err = run("b.csv", "m,v\nA,1.0\nB,\"2.0\n\"\n");
+    assert!(err.contains("b.csv:3"), "{err}");
+    let _ = std::fs::remove_dir_all(&dir);
+}

@@ -164,46 +164,24 @@ pub fn parse_grouped(
             "the file is empty (a header row naming the columns is required)".into(),
         ));
     }
-    let mut reader = csv::ReaderBuilder::new()
-        .delimiter(delimiter)
-        .has_headers(false)
-        .flexible(true)
-        .from_reader(body);
-    let mut record = csv::ByteRecord::new();
-    let read = |reader: &mut csv::Reader<&[u8]>, record: &mut csv::ByteRecord| {
-        reader.read_byte_record(record).map_err(|e| {
-            let line = e.position().map(|p| p.line());
-            ingest_error(path, line, None, format!("cannot read CSV: {e}"))
-        })
+    // The import's own reader: physical line numbers, CRLF, quoting within a line only.
+    let mut records = crate::ingest::Records::new(body, delimiter);
+    let next = |records: &mut crate::ingest::Records<&[u8]>| -> Result<Option<(u64, Vec<String>)>> {
+        match records.next() {
+            None => Ok(None),
+            Some(Err(e)) => Err(Error::io(path, e)),
+            Some(Ok((line, Err(reason)))) => Err(ingest_error(path, Some(line), None, reason)),
+            Some(Ok((line, Ok(fields)))) => Ok(Some((line, fields))),
+        }
     };
-    if !read(&mut reader, &mut record)? {
+    let Some((header_line, header)) = next(&mut records)? else {
         return Err(ingest_error(
             path,
             None,
             None,
             "the file has no header row".into(),
         ));
-    }
-    let header_line = record.position().map_or(1, |p| p.line());
-    let header: Vec<String> = record
-        .iter()
-        .enumerate()
-        .map(|(i, f)| {
-            std::str::from_utf8(f)
-                .map(|s| s.trim().to_string())
-                .map_err(|_| {
-                    ingest_error(
-                        path,
-                        Some(header_line),
-                        None,
-                        format!(
-                            "header field {} is not valid UTF-8 (save the file as UTF-8)",
-                            i + 1
-                        ),
-                    )
-                })
-        })
-        .collect::<Result<_>>()?;
+    };
     let find = |name: &str| -> Result<usize> {
         let hits: Vec<usize> = header
             .iter()
@@ -261,8 +239,7 @@ pub fn parse_grouped(
     };
     let mut max_places = 0i32;
     let mut n_rows = 0u64;
-    while read(&mut reader, &mut record)? {
-        let line = record.position().map_or(0, |p| p.line());
+    while let Some((line, record)) = next(&mut records)? {
         n_rows += 1;
         if record.len() != width {
             return Err(ingest_error(
@@ -275,25 +252,8 @@ pub fn parse_grouped(
                 ),
             ));
         }
-        let label_bytes = record.get(by_idx).unwrap_or_default();
-        let cell_bytes = record.get(measure_idx).unwrap_or_default();
-        let label = std::str::from_utf8(label_bytes).map_err(|_| {
-            ingest_error(
-                path,
-                Some(line),
-                Some(by),
-                "text is not valid UTF-8 (save the file as UTF-8)".into(),
-            )
-        })?;
-        let cell = std::str::from_utf8(cell_bytes).map_err(|_| {
-            ingest_error(
-                path,
-                Some(line),
-                Some(measure),
-                "text is not valid UTF-8 (save the file as UTF-8)".into(),
-            )
-        })?;
-        let label = label.trim();
+        let label = record[by_idx].as_str();
+        let cell = record[measure_idx].as_str();
         if label.is_empty() {
             return Err(ingest_error(
                 path,

@@ -1297,6 +1297,80 @@ impl<R: Read> LineReader<R> {
     }
 }
 
+/// One line of a CSV file read by [`Records`]: its 1-based physical line number and its fields
+/// (trimmed), or why it could not be split.
+pub type Record = (u64, std::result::Result<Vec<String>, String>);
+
+/// The CSV lines of a reader, split by the same rules as an import (physical line numbers, CRLF,
+/// RFC 4180 quoting within a line and no quoted line breaks, the byte-order mark dropped from
+/// the first line), for readers of plain CSV files outside the plant layouts (`compare`).
+/// Blank lines are skipped; their numbers still count.
+pub struct Records<R: Read> {
+    lines: LineReader<R>,
+    delimiter: u8,
+    buf: Vec<u8>,
+    ends: Vec<usize>,
+}
+
+impl<R: Read> Records<R> {
+    /// Records of `reader` separated by `delimiter`.
+    pub fn new(reader: R, delimiter: u8) -> Self {
+        Records {
+            lines: LineReader::new(reader),
+            delimiter,
+            buf: Vec::new(),
+            ends: Vec::new(),
+        }
+    }
+}
+
+impl<R: Read> Iterator for Records<R> {
+    type Item = std::io::Result<Record>;
+
+    fn next(&mut self) -> Option<Self::Item> {
+        loop {
+            let read = match self.lines.next_line() {
+                Ok(Some(r)) => r,
+                Ok(None) => return None,
+                Err(e) => return Some(Err(e)),
+            };
+            let n = self.lines.line_no;
+            if let LineRead::TooLong { len } = read {
+                return Some(Ok((
+                    n,
+                    Err(format!(
+                        "line is {len} bytes long, more than the {MAX_LINE_BYTES} read"
+                    )),
+                )));
+            }
+            let mut line: &[u8] = &self.lines.line;
+            if n == 1 {
+                line = line.strip_prefix(&[0xEF, 0xBB, 0xBF]).unwrap_or(line);
+            }
+            if line.iter().all(|b| matches!(b, b' ' | b'\t')) {
+                continue;
+            }
+            let fields = split_fields(line, self.delimiter, &mut self.buf, &mut self.ends)
+                .and_then(|()| {
+                    field_slices(&self.buf, &self.ends)
+                        .enumerate()
+                        .map(|(i, f)| {
+                            std::str::from_utf8(f)
+                                .map(|t| t.trim().to_string())
+                                .map_err(|_| {
+                                    format!(
+                                        "field {} is not valid UTF-8 (save the file as UTF-8)",
+                                        i + 1
+                                    )
+                                })
+                        })
+                        .collect()
+                });
+            return Some(Ok((n, fields)));
+        }
+    }
+}
+
 /// Splits one line into fields (RFC 4180 quoting within the line). The unquoted contents go to
 /// `buf`, and `ends[i]` is where field `i` ends in `buf`.
 fn split_fields(
