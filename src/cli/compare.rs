@@ -1,8 +1,11 @@
 //! `samewise compare FILE.csv --by COLUMN --measure COLUMN`: the one-way analysis of one CSV file,
 //! without a database.
 //!
-//! Reads any CSV with a header row (quoted fields, commas and non-ASCII text in labels, UTF-8 with
-//! or without a byte-order mark, CRLF or LF line ends). Measure cells are parsed as exact decimals
+//! Reads any CSV with a header row through the import's reader ([`crate::ingest::Records`]:
+//! quoted fields within a line, commas and non-ASCII text in labels, UTF-8 with or without a
+//! byte-order mark, CRLF or LF line ends, blank lines skipped, errors naming the physical line),
+//! with `--delimiter` (or `auto`) and `--decimal-comma`; header names match ignoring case. Measure
+//! cells are parsed as exact decimals
 //! and centred on one exact origin (the median of the first 31 values) before any arithmetic, so gauge readings such
 //! as `1000000000000.4` keep their digits. Rows are grouped by the label column in first-seen
 //! order and handed to [`crate::stats::oneway::analyze`].
