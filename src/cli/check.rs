@@ -172,7 +172,7 @@ pub fn run(args: &CheckArgs) -> Result<ExitCode> {
     let written = if args.json {
         print_json(&mut out, &config, &period, &run, &content, findings_json)
     } else {
-        print_summary(&mut out, &period, &run, &content, None)
+        print_summary(&mut out, &config, &period, &run, &content, None)
     };
     // A closed stdout pipe counts as success.
     if let Err(e) = written {
@@ -233,18 +233,23 @@ pub fn share(t: &TestRow) -> String {
 }
 
 /// The standing-out group in words: `M2 +0.0113 (1.1 SD, 5.6% tol)`.
-pub fn standout(t: &TestRow) -> String {
+pub fn standout(t: &TestRow, unit: &str) -> String {
     let Some(level) = &t.standout_level else {
         return "-".into();
     };
     let mut s = format!(
-        "{level} {}{}",
+        "{level} {}{}{}",
         if t.standout_diff.unwrap_or(0.0) >= 0.0 {
             "+"
         } else {
             ""
         },
-        cell(t.standout_diff)
+        cell(t.standout_diff),
+        if unit.is_empty() || t.standout_diff.is_none() {
+            String::new()
+        } else {
+            format!(" {unit}")
+        }
     );
     if let Some(sd) = t.standout_sd_units {
         s.push_str(&format!(" ({:+.2} SD", sd));
@@ -270,11 +275,18 @@ fn sorted(content: &RunContent) -> Vec<&TestRow> {
 /// of tests without a flag (the rest are counted in one line); `None` prints them all.
 pub fn print_summary(
     out: &mut impl Write,
+    config: &Config,
     period: &Period,
     run: &StoredRun,
     content: &RunContent,
     max_unflagged: Option<usize>,
 ) -> std::io::Result<()> {
+    let unit = |name: &str| {
+        config
+            .characteristic(name)
+            .map(|c| c.unit.clone())
+            .unwrap_or_default()
+    };
     let n_flag = content
         .tests
         .iter()
@@ -316,7 +328,7 @@ pub fn print_summary(
             super::format::p_cell(t.leading_p),
             super::format::p_cell(t.q_value),
             share(t),
-            standout(t),
+            standout(t, &unit(&t.characteristic)),
             if t.is_new { "new" } else { "" }
         )?;
     }

@@ -312,7 +312,9 @@ pub fn run(args: &DemoArgs) -> Result<ExitCode> {
         let content = runs::run_content(store.connection(), run.run_id)?;
         println!("\n4. The latest daily check ({}):\n", period.label);
         let mut out = std::io::stdout().lock();
-        if let Err(e) = check_cli::print_summary(&mut out, &period, &run, &content, Some(5)) {
+        if let Err(e) =
+            check_cli::print_summary(&mut out, &config, &period, &run, &content, Some(5))
+        {
             super::note_stdout_error(e);
         }
     }

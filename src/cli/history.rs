@@ -58,6 +58,10 @@ pub fn run(args: &HistoryArgs) -> Result<ExitCode> {
         let protected = crate::output::Protected::plant(&config.plant.database, &config.path);
         crate::output::refuse_protected(path, "--csv", &protected)?;
     }
+    let unit = config
+        .characteristic(&args.characteristic)
+        .map(|c| c.unit.clone())
+        .unwrap_or_default();
     let store = super::common::open_store(&config)?;
     let points = runs::history(
         store.connection(),
@@ -92,11 +96,16 @@ pub fn run(args: &HistoryArgs) -> Result<ExitCode> {
     let mut body = || -> std::io::Result<()> {
         writeln!(
             out,
-            "{} by {}: last {} {} period(s) with a complete run",
+            "{} by {}: last {} {} period(s) with a complete run{}",
             args.characteristic,
             args.factor,
             points.len(),
-            args.kind
+            args.kind,
+            if unit.is_empty() {
+                String::new()
+            } else {
+                format!(" (differences in {unit})")
+            }
         )?;
         writeln!(
             out,
@@ -119,7 +128,7 @@ pub fn run(args: &HistoryArgs) -> Result<ExitCode> {
                 super::format::p_cell(t.q_value),
                 share(t),
                 state::label(&t.state),
-                standout(t)
+                standout(t, &unit)
             )?;
         }
         writeln!(out)?;
