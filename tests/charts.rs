@@ -645,3 +645,45 @@ fn issue_16_share_ticks_say_their_own_value() {
         assert!((p.y_px(v) - y).abs() <= 1.0, "tick {v} drawn at {y}");
     }
 }
+
+/// Issue 16: a 90-day trend labels its time axis on calendar boundaries (Mondays, or month
+/// starts when Mondays are too dense), never overlapping; a long event label is shown whole.
+#[test]
+fn trend_ticks_fall_on_week_or_month_starts_and_event_labels_are_whole() {
+    use chrono::Datelike;
+    let mut input = inputs::trend("bore diameter", "machine", &LEVELS[..3], 90);
+    // Real calendar labels (the shared input numbers the days of November on past 30).
+    for p in &mut input.periods {
+        p.label = (p.start + chrono::Duration::hours(1))
+            .format("%Y-%m-%d")
+            .to_string();
+    }
+    let long = "new boring-bar insert holder fitted on machine M4 by maintenance";
+    input.events[0].label = long.to_string();
+    let chart = draw_trend(&input, Format::Svg, Size::DEFAULT).unwrap();
+    let svg = parse_svg(&chart.bytes);
+    let mut ticks: Vec<(chrono::NaiveDate, f64)> = svg
+        .texts
+        .iter()
+        .filter_map(|t| {
+            chrono::NaiveDate::parse_from_str(&t.text, "%Y-%m-%d")
+                .ok()
+                .map(|d| (d, t.x))
+        })
+        .collect();
+    ticks.sort_by(|a, b| a.1.total_cmp(&b.1));
+    assert!(ticks.len() >= 3, "{ticks:?}");
+    let mondays = ticks
+        .iter()
+        .all(|(d, _)| d.weekday() == chrono::Weekday::Mon);
+    let months = ticks.iter().all(|(d, _)| d.day() == 1);
+    assert!(mondays || months, "{ticks:?}");
+    for w in ticks.windows(2) {
+        assert!(w[1].1 - w[0].1 > 70.0, "labels too close: {ticks:?}");
+    }
+    assert!(
+        svg.has_text(long),
+        "the event label is cut: {:?}",
+        svg.texts
+    );
+}

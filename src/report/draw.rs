@@ -898,17 +898,59 @@ impl TimeAxis {
             f64::INFINITY
         };
         let every = ((widest + 18.0) / spacing).ceil().max(1.0) as usize;
+        let labelled = self.labelled(every);
         for (i, (_, _, mid, label, state)) in self.periods.iter().enumerate() {
             let x = p.x_px(*mid);
             if state.is_flag() {
                 flag_mark(c, *state, (x, p.bottom + 14.0))?;
             }
-            if i % every == 0 {
+            if labelled[i] {
                 c.line((x, p.bottom), (x, p.bottom + 5.0), INK, 2, None)?;
                 c.text(label, (x, p.bottom + 30.0), opts)?;
             }
         }
         Ok(p.bottom + 30.0 + sizes::TICK)
+    }
+
+    /// Which periods get a label when only every `every`-th fits: for production days
+    /// (`YYYY-MM-DD` labels) the week starts (Mondays), every other Monday, or month starts,
+    /// whichever is the densest that fits, so ticks fall on calendar boundaries; for other
+    /// periods every `every`-th.
+    fn labelled(&self, every: usize) -> Vec<bool> {
+        let n = self.periods.len();
+        if every <= 1 {
+            return vec![true; n];
+        }
+        let days: Option<Vec<chrono::NaiveDate>> = self
+            .periods
+            .iter()
+            .map(|(_, _, _, l, _)| chrono::NaiveDate::parse_from_str(l, "%Y-%m-%d").ok())
+            .collect();
+        let Some(days) = days else {
+            return (0..n).map(|i| i % every == 0).collect();
+        };
+        use chrono::Datelike;
+        let mondays = |step: i64| -> Vec<bool> {
+            days.iter()
+                .map(|d| {
+                    d.weekday() == chrono::Weekday::Mon
+                        && (d.num_days_from_ce() as i64 / 7) % step == 0
+                })
+                .collect()
+        };
+        let months: Vec<bool> = days.iter().map(|d| d.day() == 1).collect();
+        // A choice fits when its labelled days are at least `every` periods apart, and it labels
+        // at least three (else the plain thinning says more).
+        let fits = |marks: &[bool]| {
+            let at: Vec<usize> = (0..n).filter(|&i| marks[i]).collect();
+            at.len() >= 3 && at.windows(2).all(|w| w[1] - w[0] >= every)
+        };
+        for marks in [mondays(1), mondays(2), months] {
+            if fits(&marks) {
+                return marks;
+            }
+        }
+        (0..n).map(|i| i % every == 0).collect()
     }
 }
 
@@ -932,7 +974,7 @@ pub fn draw_events<DB: DrawingBackend>(
         }
         c.line((x, p.top), (x, p.bottom), Palette::BLACK, 2, EVENT_DASH)?;
         if with_labels {
-            let label = c.fit_text(&e.label, opts, 260.0)?;
+            let label = c.fit_text(&e.label, opts, 600.0)?;
             let w = c.text_width(&label, opts)?;
             let row = if row_end[0] < x - 4.0 {
                 0
