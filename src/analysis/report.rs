@@ -685,6 +685,7 @@ pub fn before_after_input(
         })
         .collect();
     Ok(BeforeAfterInput {
+        time_zone: config.plant.time_zone,
         characteristic: c.name.clone(),
         unit: c.unit.clone(),
         factor: factor.to_string(),

@@ -130,8 +130,12 @@ impl Drawable for BeforeAfter<'_> {
         let subtitle = format!(
             "Each {} per group, {} .. {}{}{}",
             b.point_kind,
-            b.window_start.format("%Y-%m-%d %H:%M"),
-            b.window_end.format("%Y-%m-%d %H:%M"),
+            b.window_start
+                .with_timezone(&b.time_zone)
+                .format("%Y-%m-%d %H:%M"),
+            b.window_end
+                .with_timezone(&b.time_zone)
+                .format("%Y-%m-%d %H:%M"),
             if limit_text.is_empty() { "" } else { "; " },
             limit_text.join(", ")
         );
@@ -258,13 +262,16 @@ impl Drawable for BeforeAfter<'_> {
             let x = last.x_px(*t);
             c.line((x, last.bottom), (x, last.bottom + 6.0), INK, 2, None)?;
             c.text(
-                &x_to_time(*t).format(fmt).to_string(),
+                &x_to_time(*t)
+                    .with_timezone(&b.time_zone)
+                    .format(fmt)
+                    .to_string(),
                 (x, last.bottom + 10.0),
                 TextOpts::new(sizes::TICK).align(Align::Center),
             )?;
         }
         c.text(
-            "time (UTC)",
+            &format!("time ({})", b.time_zone.name()),
             ((last.left + last.right) / 2.0, last.bottom + 42.0),
             TextOpts::new(sizes::AXIS).align(Align::Center),
         )?;

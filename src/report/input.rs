@@ -311,6 +311,8 @@ pub struct BeforeAfterInput {
     pub limits: Limits,
     /// The groups, in display order.
     pub groups: Vec<BeforeAfterGroup>,
+    /// The plant's time zone: the time axis and the window are labelled in it.
+    pub time_zone: chrono_tz::Tz,
 }
 
 // ---------------------------------------------------------------------------------------------

@@ -238,6 +238,7 @@ pub fn before_after(levels: &[&str]) -> BeforeAfterInput {
         })
         .collect();
     BeforeAfterInput {
+        time_zone: chrono_tz::UTC,
         characteristic: "bore diameter".to_string(),
         unit: "mm".to_string(),
         factor: "machine".to_string(),
