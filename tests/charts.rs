@@ -687,3 +687,29 @@ fn trend_ticks_fall_on_week_or_month_starts_and_event_labels_are_whole() {
         svg.texts
     );
 }
+
+/// Issue 16: more than 8 groups without a highlight are drawn as small multiples: one panel per
+/// group on shared axes, each named; the size grows with the rows.
+#[test]
+fn trend_of_many_groups_is_drawn_as_small_multiples() {
+    let names: Vec<String> = (1..=12).map(|i| format!("C{i:02}")).collect();
+    let refs: Vec<&str> = names.iter().map(String::as_str).collect();
+    let input = inputs::trend("pin pitch", "cavity", &refs, 20);
+    let size = samewise::report::trend_size(&input);
+    assert!(size.height > Size::DEFAULT.height, "{size:?}");
+    let chart = draw_trend(&input, Format::Svg, size).unwrap();
+    let panels = &chart.layout.panels;
+    assert_eq!(panels.len(), 12);
+    assert!(panels
+        .iter()
+        .all(|p| p.y_min == panels[0].y_min && p.y_max == panels[0].y_max));
+    let svg = parse_svg(&chart.bytes);
+    for n in &names {
+        assert!(svg.has_text(n), "panel {n} named");
+    }
+    std::fs::write(
+        std::env::temp_dir().join("samewise-small-multiples.svg"),
+        &chart.bytes,
+    )
+    .unwrap();
+}

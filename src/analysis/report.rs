@@ -1094,7 +1094,13 @@ pub fn write_story_charts(
             let trend = trend_from_runs(c, trend_f, &history, events.clone());
             let share = share_from_runs(c, trend_f, &history, events);
             let name = format!("{trend_c}_by_{trend_f}");
-            sink.render(&format!("trend_{name}"), &trend, size, report::render_trend)?;
+            let trend_size = report::trend_size(&trend);
+            sink.render(
+                &format!("trend_{name}"),
+                &trend,
+                trend_size,
+                report::render_trend,
+            )?;
             sink.render(&format!("share_{name}"), &share, size, report::render_share)?;
         }
         Err(e) => {

@@ -137,6 +137,11 @@ pub fn render(args: &ChartArgs, config: &Config, store: &crate::storage::Store) 
                 if input.periods.is_empty() {
                     return Err(no_runs(&args.period_kind, &p));
                 }
+                // Small multiples (many groups) need more height than the default.
+                let size = match args.height {
+                    Some(_) => size,
+                    None => Size::new(size.width, crate::report::trend_size(&input).height),
+                };
                 crate::report::render_trend(&input, format, size)
             } else {
                 let input = report::share_input(store, config, c, f, pk, p.start, p.end)?;

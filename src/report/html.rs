@@ -11,8 +11,8 @@ use std::sync::OnceLock;
 
 use super::draw::format_sig;
 use super::{
-    draw_before_after, draw_grid, draw_share, draw_trend, grid_natural_size, FlagState, Format,
-    MethodNote, MonthReport, PairRow, Size,
+    draw_before_after, draw_grid, draw_share, draw_trend, grid_natural_size, trend_size, FlagState,
+    Format, MethodNote, MonthReport, PairRow, Size,
 };
 
 /// Escapes text for HTML element content and attribute values.
@@ -452,7 +452,7 @@ pub fn render_month_report(r: &MonthReport) -> String {
                 &mut body,
                 &format!("trend of {} by {}", f.trend.characteristic, f.trend.factor),
                 "Group mean per period with 95% interval; shaded periods were flagged.",
-                draw_trend(&f.trend, Format::Svg, Size::DEFAULT),
+                draw_trend(&f.trend, Format::Svg, trend_size(&f.trend)),
             );
             figs.figure(
                 &mut body,

@@ -150,6 +150,12 @@ pub fn draw_trend(input: &TrendInput, format: Format, size: Size) -> Result<Char
     draw::render(&trend::Trend(input), format, size)
 }
 
+/// The size a trend chart needs: [`Size::DEFAULT`], or taller when its groups are drawn as
+/// small multiples (more than 8 groups and none highlighted).
+pub fn trend_size(input: &TrendInput) -> Size {
+    trend::trend_size(input)
+}
+
 /// [`draw_trend`], bytes only.
 pub fn render_trend(input: &TrendInput, format: Format, size: Size) -> Result<Vec<u8>> {
     draw_trend(input, format, size).map(|c| c.bytes)

@@ -9,12 +9,156 @@ use super::draw::{
     padded_range, require_room, split_ref_lines, time_to_x, y_axis, Canvas, DrawResult, Drawable,
     Marker, Palette, Swatch, TimeAxis, MUTED,
 };
+use super::draw::{sizes, TextOpts};
 use super::{Layout, Panel, Size, TrendInput};
 
 pub(super) struct Trend<'a>(pub &'a TrendInput);
 
-/// More groups than this, without a highlighted one, are drawn thin and without intervals.
+/// More groups than this, without a highlighted one, are drawn as small multiples: one small
+/// panel per group on shared axes.
 pub(super) const CROWDED_GROUPS: usize = 8;
+
+/// Columns of the small multiples.
+fn multiple_columns(n: usize) -> usize {
+    if n <= 12 {
+        3
+    } else {
+        4
+    }
+}
+
+/// The size a trend needs: the default, or taller for small multiples (about 150 px a row).
+pub fn trend_size(input: &TrendInput) -> Size {
+    let levels = levels_in_order(
+        input
+            .periods
+            .iter()
+            .flat_map(|p| p.groups.iter().map(|g| g.level.as_str())),
+    );
+    if input.highlight.is_none() && levels.len() > CROWDED_GROUPS {
+        let rows = levels.len().div_ceil(multiple_columns(levels.len()));
+        Size::new(Size::DEFAULT.width, (190 + 150 * rows) as u32)
+    } else {
+        Size::DEFAULT
+    }
+}
+
+impl Trend<'_> {
+    /// One small panel per group, shared value and time axes, the group named in its panel;
+    /// limits inside the shared range, flagged-period bands and events in every panel.
+    fn draw_small_multiples<DB: DrawingBackend>(
+        &self,
+        c: &Canvas<DB>,
+        size: Size,
+        levels: &[String],
+    ) -> DrawResult<Layout> {
+        let t = self.0;
+        let (w, h) = (size.width as f64, size.height as f64);
+        let mut legend: Vec<(Swatch, String)> = vec![(
+            Swatch::Series {
+                color: Palette::group(0),
+                marker: Marker::group(0),
+                dash: None,
+                line: true,
+            },
+            "group mean with 95% interval".to_string(),
+        )];
+        legend.extend(limit_legend(&t.limits));
+        legend.extend(flag_event_legend(
+            t.periods.iter().map(|p| p.state),
+            !t.events.is_empty(),
+        ));
+        let title = format!("{} by {}", t.characteristic, t.factor);
+        let subtitle = format!(
+            "Group mean per period with 95% interval, one panel per group ({} groups), {} .. {}",
+            levels.len(),
+            t.periods[0].label,
+            t.periods[t.periods.len() - 1].label
+        );
+        let (_, y) = header_with_event_strip(c, w, &title, &subtitle, &legend, false)?;
+        let (x_min, x_max) = time_range(t.periods.iter().map(|p| (p.start, p.end)), &t.events);
+        let values = t
+            .periods
+            .iter()
+            .flat_map(|p| p.groups.iter())
+            .flat_map(|g| [Some(g.mean), g.ci_low, g.ci_high])
+            .flatten();
+        let (y_min, y_max) = padded_range(values).ok_or("no finite value to draw")?;
+        let (inside, _) = split_ref_lines(limit_lines(&t.limits, 5), y_min, y_max);
+        let cols = multiple_columns(levels.len());
+        let rows = levels.len().div_ceil(cols);
+        let (area_left, area_right) = (40.0, w - 20.0);
+        let (area_top, area_bottom) = (y + 10.0, h - 70.0);
+        let cell_w = (area_right - area_left) / cols as f64;
+        let cell_h = (area_bottom - area_top) / rows as f64;
+        require_room(area_top, area_top + cell_h, size)?;
+        let axis = TimeAxis::from_periods(
+            t.periods
+                .iter()
+                .map(|p| (p.start, p.end, p.label.as_str(), p.state)),
+        );
+        let mut panels = Vec::with_capacity(levels.len());
+        let mut below = area_bottom;
+        for (gi, level) in levels.iter().enumerate() {
+            let (row, col) = (gi / cols, gi % cols);
+            let left = area_left + col as f64 * cell_w + 64.0;
+            let top = area_top + row as f64 * cell_h + 22.0;
+            let panel = Panel {
+                name: "group",
+                left,
+                top,
+                right: area_left + (col + 1) as f64 * cell_w - 12.0,
+                bottom: area_top + (row + 1) as f64 * cell_h - 30.0,
+                x_min,
+                x_max,
+                y_min,
+                y_max,
+            };
+            axis.draw_background(c, &panel)?;
+            y_axis(c, &panel, &format_number, true)?;
+            draw_ref_lines(c, &panel, &inside, false)?;
+            draw_events(c, &panel, &t.events, panel.top, false)?;
+            let color = Palette::group(0);
+            let mut line: Vec<(f64, f64)> = Vec::new();
+            for p in &t.periods {
+                let Some(g) = p.groups.iter().find(|g| &g.level == level) else {
+                    c.polyline(&line, color, 1, None)?;
+                    line.clear();
+                    continue;
+                };
+                let px = panel.x_px((time_to_x(p.start) + time_to_x(p.end)) / 2.0);
+                line.push((px, panel.y_px(g.mean)));
+                if let (Some(lo), Some(hi)) = (g.ci_low, g.ci_high) {
+                    c.interval_bar(px, panel.y_px(lo), panel.y_px(hi), color)?;
+                }
+            }
+            c.polyline(&line, color, 1, None)?;
+            for &(px, py) in &line {
+                c.marker(Marker::group(0), (px, py), 3.0, color)?;
+            }
+            c.text(
+                level,
+                (panel.left, panel.top - 16.0),
+                TextOpts::new(sizes::NOTE).color(Palette::BLACK),
+            )?;
+            frame(c, &panel)?;
+            // Time labels under the bottom panel of each column.
+            if row == rows - 1 || gi + cols >= levels.len() {
+                below = axis.draw_labels(c, &panel)?;
+            }
+            panels.push(panel);
+        }
+        if let Some(last) = panels.last() {
+            axis.draw_title(c, last, below)?;
+        }
+        c.value_axis_title(&t.characteristic, &t.unit, area_top, area_bottom)?;
+        Ok(Layout {
+            width: size.width,
+            height: size.height,
+            panels,
+        })
+    }
+}
 
 /// Levels in order of first appearance.
 pub(super) fn levels_in_order<'a>(names: impl IntoIterator<Item = &'a str>) -> Vec<String> {
@@ -92,6 +236,9 @@ impl Drawable for Trend<'_> {
             .highlight
             .as_deref()
             .filter(|h| levels.iter().any(|l| l == h));
+        if highlight.is_none() && levels.len() > CROWDED_GROUPS {
+            return self.draw_small_multiples(c, size, &levels);
+        }
         let mut legend: Vec<(Swatch, String)> = match highlight {
             Some(h) => vec![
                 (
@@ -190,21 +337,10 @@ impl Drawable for Trend<'_> {
             let level = &levels[gi];
             let is_muted = highlight.is_some_and(|h| h != level);
             let is_highlit = highlight.is_some_and(|h| h == level);
-            // Many groups without a highlight: thin lines and markers without intervals, so
-            // the chart stays readable (and small); the detail chart gives the intervals.
-            let crowded = highlight.is_none() && levels.len() > CROWDED_GROUPS;
             let (color, width, dash, marker, marker_size) = if is_muted {
                 (MUTED, 1, None, Marker::group(0), 3.5)
             } else if is_highlit {
                 (Palette::group(1), 3, None, Marker::group(1), 7.0)
-            } else if crowded {
-                (
-                    Palette::group(gi),
-                    1,
-                    group_dash(gi),
-                    Marker::group(gi),
-                    3.5,
-                )
             } else {
                 (
                     Palette::group(gi),
@@ -232,7 +368,7 @@ impl Drawable for Trend<'_> {
             }
             c.polyline(&line, color, width, dash)?;
             for (px, g) in points {
-                if let (Some(lo), Some(hi), false) = (g.ci_low, g.ci_high, is_muted || crowded) {
+                if let (Some(lo), Some(hi), false) = (g.ci_low, g.ci_high, is_muted) {
                     c.interval_bar(px, panel.y_px(lo), panel.y_px(hi), color)?;
                 }
                 c.marker(marker, (px, panel.y_px(g.mean)), marker_size, color)?;
