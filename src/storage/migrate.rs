@@ -39,6 +39,10 @@ pub const MIGRATIONS: &[Migration] = &[
         name: "0004_stale_periods.sql",
         sql: include_str!("../../migrations/0004_stale_periods.sql"),
     },
+    Migration {
+        name: "0006_event_history.sql",
+        sql: include_str!("../../migrations/0006_event_history.sql"),
+    },
 ];
 
 /// SQLite's `PRAGMA application_id` of a samewise database: "SMWS" in ASCII. Set when a database

@@ -24,7 +24,7 @@ pub mod migrate;
 mod query;
 pub mod runs;
 
-pub use events::{Event, NewEvent};
+pub use events::{Event, EventChange, EventEdit, NewEvent};
 pub use import::{ImportCpu, ImportOptions, ImportReport, PriorImport};
 pub use maintenance::{CharacteristicStatus, IntegrityReport, Status};
 pub use master::{StoredCharacteristic, StoredFactor, SyncReport};
