@@ -149,6 +149,23 @@ fn import_one(
     rejects: Option<&mut AtomicFile>,
 ) -> Result<i64> {
     let (reader, name, is_regular) = open_input(file)?;
+    // A progress line on a terminal only (the plain reader otherwise: nothing added to the path).
+    let bar = super::progress::Bar::for_stderr();
+    let reader: Box<dyn std::io::Read + Send> = if bar.enabled() {
+        let total = if is_regular {
+            std::fs::metadata(file).ok().map(|m| m.len())
+        } else {
+            None
+        };
+        Box::new(super::progress::ProgressReader::new(
+            reader,
+            name.display().to_string(),
+            total,
+            bar,
+        ))
+    } else {
+        reader
+    };
     let stream = ingest::read_from(
         reader,
         &name,

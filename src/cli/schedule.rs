@@ -101,7 +101,20 @@ pub fn run(args: &ScheduleArgs) -> Result<ExitCode> {
         options.pause_after_begin = Some(std::time::Duration::from_millis(ms));
     }
     let mut runner = EngineRunner::new(&config);
-    let mut log = |line: &str| eprintln!("{} {line}", Utc::now().format("%Y-%m-%dT%H:%M:%SZ"));
+    // A catch-up on a terminal shows a progress line below the log lines (cleared before each).
+    let bar = std::cell::RefCell::new(super::progress::Bar::for_stderr());
+    let mut log = |line: &str| {
+        bar.borrow_mut().clear();
+        eprintln!("{} {line}", Utc::now().format("%Y-%m-%dT%H:%M:%SZ"))
+    };
+    let mut progress = |p: schedule::PassProgress<'_>| {
+        let mut bar = bar.borrow_mut();
+        if p.done == p.total {
+            bar.clear();
+        } else {
+            bar.tick(|elapsed| super::progress::periods_line(p.done, p.total, p.current, elapsed));
+        }
+    };
     let entries = match &args.action {
         ScheduleAction::Due { now, since } => {
             options.start = since
@@ -117,7 +130,7 @@ pub fn run(args: &ScheduleArgs) -> Result<ExitCode> {
                 }
                 None => &wall,
             };
-            schedule::run_pass(
+            schedule::run_pass_with_progress(
                 &mut store,
                 &config,
                 clock,
@@ -125,6 +138,7 @@ pub fn run(args: &ScheduleArgs) -> Result<ExitCode> {
                 &options,
                 &stop,
                 &mut log,
+                &mut progress,
             )?
         }
         ScheduleAction::Run { since } => {
