@@ -351,6 +351,9 @@ fn event_by_id(conn: &Connection, id: i64) -> Result<Event> {
     Ok(events.remove(0))
 }
 
+/// An event's characteristic id and `(factor id, level)` pairs.
+type ResolvedScope = (Option<i64>, Vec<(i64, String)>);
+
 /// The characteristic id and `(factor id, level)` pairs of an event's scope. An unknown
 /// characteristic, factor or level (one never stored for that factor) is refused with the
 /// closest known names.
@@ -358,7 +361,7 @@ fn resolve_scope(
     conn: &Connection,
     characteristic: Option<&str>,
     scope: &[(String, String)],
-) -> Result<(Option<i64>, Vec<(i64, String)>)> {
+) -> Result<ResolvedScope> {
     let characteristic_id = match characteristic {
         None => None,
         Some(name) => {
