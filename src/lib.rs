@@ -26,6 +26,7 @@ pub mod config;
 pub mod error;
 pub mod ingest;
 pub mod model;
+pub mod names;
 pub mod output;
 pub mod process;
 pub mod report;

@@ -502,12 +502,18 @@ fn concerns(event: &Event, characteristic: &str, factor: &str, level: &str) -> b
 pub fn investigate(store: &Store, request: &Request) -> Result<Investigation> {
     let (event, start, end, change) = match &request.target {
         Target::Event(id) => {
-            let events = store.events(None, None)?;
+            let events = store.events_including_removed()?;
             let event = events.into_iter().find(|e| e.id == *id).ok_or_else(|| {
                 Error::Usage(format!(
                     "no logged event has id {id} (see `samewise event list`)"
                 ))
             })?;
+            if event.removed.is_some() {
+                return Err(Error::Usage(format!(
+                    "event {id} was removed (see `samewise event history {id}`); investigate \
+                     with --at TIME instead"
+                )));
+            }
             let at = event.at;
             (
                 Some(event),

@@ -331,6 +331,23 @@ fn import_one(
     mut rejects: Option<&mut AtomicFile>,
 ) -> Result<i64> {
     let (reader, name, is_regular) = open_input(file)?;
+    // A progress line on a terminal only (the plain reader otherwise: nothing added to the path).
+    let bar = super::progress::Bar::for_stderr();
+    let reader: Box<dyn std::io::Read + Send> = if bar.enabled() {
+        let total = if is_regular {
+            std::fs::metadata(file).ok().map(|m| m.len())
+        } else {
+            None
+        };
+        Box::new(super::progress::ProgressReader::new(
+            reader,
+            name.display().to_string(),
+            total,
+            bar,
+        ))
+    } else {
+        reader
+    };
     // Every rejection record goes to the --rejects file as it is read (the database keeps the
     // first MAX_KEPT_REJECTIONS); a failed import takes its lines back out.
     let rejects_start = match rejects.as_mut() {

@@ -54,6 +54,7 @@ pub mod history;
 pub mod import;
 pub mod init;
 pub mod investigate;
+pub mod progress;
 pub mod report;
 pub mod schedule;
 pub mod status;

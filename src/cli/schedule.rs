@@ -109,10 +109,13 @@ pub fn run(args: &ScheduleArgs) -> Result<ExitCode> {
         options.pause_after_begin = Some(std::time::Duration::from_millis(ms));
     }
     let mut runner = EngineRunner::new(&config);
-    // Log lines carry the plant's local time with its offset, like every time samewise prints.
+    // Log lines carry the plant's local time with its offset, like every time samewise prints;
+    // a catch-up on a terminal shows a progress line below them (cleared before each).
     let tz = config.plant.time_zone;
     let json = args.json;
+    let bar = std::cell::RefCell::new(super::progress::Bar::for_stderr());
     let mut log = |line: &str| {
+        bar.borrow_mut().clear();
         let time = Utc::now()
             .with_timezone(&tz)
             .to_rfc3339_opts(chrono::SecondsFormat::Secs, false);
@@ -120,6 +123,14 @@ pub fn run(args: &ScheduleArgs) -> Result<ExitCode> {
             println!("{}", serde_json::json!({"time": time, "message": line}));
         } else {
             eprintln!("{time} {line}")
+        }
+    };
+    let mut progress = |p: schedule::PassProgress<'_>| {
+        let mut bar = bar.borrow_mut();
+        if p.done == p.total {
+            bar.clear();
+        } else {
+            bar.tick(|elapsed| super::progress::periods_line(p.done, p.total, p.current, elapsed));
         }
     };
     let entries = match &args.action {
@@ -137,7 +148,7 @@ pub fn run(args: &ScheduleArgs) -> Result<ExitCode> {
                 }
                 None => &wall,
             };
-            let entries = schedule::run_pass(
+            let entries = schedule::run_pass_with_progress(
                 &mut store,
                 &config,
                 clock,
@@ -145,6 +156,7 @@ pub fn run(args: &ScheduleArgs) -> Result<ExitCode> {
                 &options,
                 &stop,
                 &mut log,
+                &mut progress,
             )?;
             after_pass(&mut store, &config, &entries, &mut log);
             entries

@@ -176,6 +176,41 @@ pub fn run_pass(
     stop: &AtomicBool,
     log: &mut dyn FnMut(&str),
 ) -> Result<Vec<PassEntry>> {
+    run_pass_with_progress(
+        store,
+        config,
+        clock,
+        runner,
+        options,
+        stop,
+        log,
+        &mut |_| {},
+    )
+}
+
+/// Where a pass stands, for a progress display: periods done of the total due, and the next one.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct PassProgress<'a> {
+    /// Periods finished (run, skipped or failed).
+    pub done: usize,
+    /// Periods due in this pass.
+    pub total: usize,
+    /// The period about to run (`""` when all are done).
+    pub current: &'a str,
+}
+
+/// [`run_pass`], telling `progress` before each period and after the last.
+#[allow(clippy::too_many_arguments)]
+pub fn run_pass_with_progress(
+    store: &mut Store,
+    config: &Config,
+    clock: &dyn Clock,
+    runner: &mut dyn PeriodRunner,
+    options: &SchedulerOptions,
+    stop: &AtomicBool,
+    log: &mut dyn FnMut(&str),
+    progress: &mut dyn FnMut(PassProgress<'_>),
+) -> Result<Vec<PassEntry>> {
     let calendar = PlantCalendar::new(config);
     let now = clock.now();
     let Some(first) = options.start.or(runner.first_measurement(store)?) else {
@@ -190,11 +225,17 @@ pub fn run_pass(
     }
     due.sort_by_key(|d| (d.0, d.1));
     let mut entries = Vec::new();
-    for (_, idx, period) in due {
+    let total = due.len();
+    for (done, (_, idx, period)) in due.into_iter().enumerate() {
         if stop.load(Ordering::SeqCst) {
             log("stop requested: leaving the remaining periods for the next pass");
             break;
         }
+        progress(PassProgress {
+            done,
+            total,
+            current: &period.label,
+        });
         let schedule = &config.schedules[idx];
         let outcome = run_one(store, clock, runner, options, schedule, &period, log)?;
         entries.push(PassEntry {
@@ -203,6 +244,11 @@ pub fn run_pass(
             outcome,
         });
     }
+    progress(PassProgress {
+        done: entries.len(),
+        total,
+        current: "",
+    });
     Ok(entries)
 }
 

@@ -110,20 +110,43 @@ impl Decimal {
         let mut any_digit = false;
         let mut frac_digits: i64 = 0;
         let mut seen_point = false;
+        // Zeros after the last non-zero digit so far, before and after the point.
+        let mut pending_int_zeros: i64 = 0;
+        let mut pending_frac_zeros: i64 = 0;
         while pos < bytes.len() {
             let b = bytes[pos];
             match b {
                 b'0'..=b'9' => {
                     any_digit = true;
-                    if mantissa != 0 || b != b'0' {
-                        n_digits += 1;
+                    if b == b'0' && mantissa != 0 {
+                        // A zero after a significant digit is significant only if a non-zero
+                        // digit follows: held back, so 1e36-sized integers written out in full
+                        // parse as their exponent form does.
+                        if seen_point {
+                            pending_frac_zeros += 1;
+                        } else {
+                            pending_int_zeros += 1;
+                        }
+                    } else if b == b'0' {
+                        // A leading zero: no significant digit, only a decimal place.
+                        if seen_point {
+                            frac_digits += 1;
+                        }
+                    } else {
+                        let zeros = pending_int_zeros + pending_frac_zeros;
+                        n_digits += zeros as usize + 1;
                         if n_digits > MAX_DIGITS {
                             return Err(fail("has more significant digits than samewise keeps (36)"));
                         }
-                    }
-                    mantissa = mantissa * 10 + i128::from(b - b'0');
-                    if seen_point {
-                        frac_digits += 1;
+                        mantissa = mantissa * pow10(zeros as u32).unwrap_or(i128::MAX / 10)
+                            * 10
+                            + i128::from(b - b'0');
+                        frac_digits += pending_frac_zeros;
+                        if seen_point {
+                            frac_digits += 1;
+                        }
+                        pending_int_zeros = 0;
+                        pending_frac_zeros = 0;
                     }
                 }
                 b'.' if !seen_point => seen_point = true,
@@ -172,8 +195,9 @@ impl Decimal {
         if negative {
             mantissa = -mantissa;
         }
-        // value = mantissa x 10^(exponent - frac_digits)
-        let power = exponent - frac_digits;
+        // value = mantissa x 10^(exponent - frac_digits), with the trailing zeros of the integer
+        // part (held back above) as powers of ten; trailing fractional zeros change nothing.
+        let power = exponent - frac_digits + pending_int_zeros;
         if mantissa == 0 {
             return Ok(Decimal::ZERO);
         }
@@ -363,6 +387,26 @@ mod tests {
         assert_eq!(d("5.").to_string(), "5");
         assert_eq!(d("-0").to_string(), "0");
         assert_eq!(d("1000000000000.4").to_string(), "1000000000000.4");
+    }
+
+    #[test]
+    fn trailing_zeros_are_not_significant_digits() {
+        // Found by tests/fuzz.rs: 36 digits x 10 was accepted in exponent form and refused
+        // written out, so a printed value could not be read back.
+        let e = d("211295914056093639173286363064728744E1");
+        let text = e.to_string();
+        assert_eq!(text, "2112959140560936391732863630647287440");
+        assert_eq!(d(&text), e);
+        assert_eq!(d("1200.00").to_string(), "1200");
+        assert_eq!(d("1200.05").to_string(), "1200.05");
+        assert_eq!(d("-10.0100").to_string(), "-10.01");
+        assert_eq!(d("0.000").to_string(), "0");
+        assert_eq!(d("100e-2").to_string(), "1");
+        let long = format!("1{}", "0".repeat(300));
+        assert_eq!(d(&long).to_string(), long);
+        // 37 significant digits stay refused, zeros inside them counted.
+        assert!(Decimal::parse("1000000000000000000000000000000000001").is_err());
+        assert!(Decimal::parse(&format!("1{}", "0".repeat(400))).is_err());
     }
 
     #[test]

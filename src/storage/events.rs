@@ -3,13 +3,14 @@
 //! factor levels ("machine = M4") it concerns.
 
 use chrono::{DateTime, TimeZone, Utc};
-use rusqlite::params;
+use rusqlite::{params, Connection};
 
 use crate::{Error, Result};
 
 use super::master::{load_characteristics, load_factors};
-use super::query::{closest, unknown_characteristic};
+use super::query::unknown_characteristic;
 use super::Store;
+use crate::names::did_you_mean;
 
 /// An event to record.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -39,6 +40,43 @@ pub struct Event {
     pub scope: Vec<(String, String)>,
     /// When it was recorded.
     pub created: DateTime<Utc>,
+    /// When it was removed (`samewise event remove`); a removed event marks no chart and anchors
+    /// nothing, but the log still lists it.
+    pub removed: Option<DateTime<Utc>>,
+}
+
+/// A correction to a stored event: each field given is replaced.
+#[derive(Debug, Clone, Default, PartialEq, Eq)]
+pub struct EventEdit {
+    /// A new time.
+    pub at: Option<DateTime<Utc>>,
+    /// A new note.
+    pub note: Option<String>,
+    /// A new characteristic (`Some(None)`: the event concerns no single characteristic).
+    pub characteristic: Option<Option<String>>,
+    /// A new scope, replacing the whole old one (`Some(vec![])`: no factor level).
+    pub scope: Option<Vec<(String, String)>>,
+}
+
+/// One recorded correction of an event: an edit of one field, or a removal.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct EventChange {
+    /// The event changed.
+    pub event_id: i64,
+    /// When the change was made.
+    pub changed: DateTime<Utc>,
+    /// Who made it (user and host as the command saw them).
+    pub who: String,
+    /// `edit` or `remove`.
+    pub action: String,
+    /// The field edited (`at`, `note`, `characteristic`, `where`); `None` for a removal.
+    pub field: Option<String>,
+    /// The value before (for a removal: the whole event).
+    pub before: Option<String>,
+    /// The value after (`None` for a removal).
+    pub after: Option<String>,
+    /// The reason given, if any.
+    pub reason: Option<String>,
 }
 
 fn from_ms(ms: i64) -> DateTime<Utc> {
@@ -57,33 +95,8 @@ impl Store {
         let tx = self
             .conn
             .transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)?;
-        let characteristic_id = match &event.characteristic {
-            None => None,
-            Some(name) => {
-                let known = load_characteristics(&tx)?;
-                Some(
-                    known
-                        .iter()
-                        .find(|c| &c.config.name == name)
-                        .map(|c| c.id)
-                        .ok_or_else(|| unknown_characteristic(name, &known))?,
-                )
-            }
-        };
-        let factors = load_factors(&tx)?;
-        let mut scope_ids = Vec::new();
-        for (factor, level) in &event.scope {
-            let f = factors.iter().find(|f| &f.name == factor).ok_or_else(|| {
-                let hint = closest(factor, factors.iter().map(|f| f.name.as_str()))
-                    .map(|c| format!(" (did you mean \"{c}\"?)"))
-                    .unwrap_or_default();
-                Error::Usage(format!("unknown factor \"{factor}\"{hint}"))
-            })?;
-            if scope_ids.iter().any(|(id, _)| *id == f.id) {
-                return Err(Error::Usage(format!("factor \"{factor}\" is given twice")));
-            }
-            scope_ids.push((f.id, level.clone()));
-        }
+        let (characteristic_id, scope_ids) =
+            resolve_scope(&tx, event.characteristic.as_deref(), &event.scope)?;
         tx.execute(
             "INSERT INTO events (ts_ms, note, characteristic_id, created_ms) VALUES (?1, ?2, ?3, ?4)",
             params![
@@ -104,43 +117,323 @@ impl Store {
         Ok(id)
     }
 
-    /// Events with `start <= at < end` (either bound open when `None`), in time order.
+    /// Events not removed with `start <= at < end` (either bound open when `None`), in time order.
     pub fn events(
         &self,
         start: Option<DateTime<Utc>>,
         end: Option<DateTime<Utc>>,
     ) -> Result<Vec<Event>> {
-        let mut stmt = self.conn.prepare_cached(
-            "SELECT e.id, e.ts_ms, e.note, c.name, e.created_ms FROM events e \
-             LEFT JOIN characteristics c ON c.id = e.characteristic_id \
-             WHERE e.ts_ms >= ?1 AND e.ts_ms < ?2 ORDER BY e.ts_ms, e.id",
-        )?;
+        let mut stmt = self.conn.prepare_cached(&format!(
+            "{EVENT_SELECT} WHERE e.removed_ms IS NULL AND e.ts_ms >= ?1 AND e.ts_ms < ?2 \
+             ORDER BY e.ts_ms, e.id"
+        ))?;
         let rows = stmt.query_map(
             params![
                 start.map_or(i64::MIN, |t| t.timestamp_millis()),
                 end.map_or(i64::MAX, |t| t.timestamp_millis())
             ],
-            |r| {
-                Ok(Event {
-                    id: r.get(0)?,
-                    at: from_ms(r.get(1)?),
-                    note: r.get(2)?,
-                    characteristic: r.get(3)?,
-                    scope: Vec::new(),
-                    created: from_ms(r.get(4)?),
-                })
-            },
+            event_row,
         )?;
         let mut events: Vec<Event> = rows.collect::<rusqlite::Result<_>>()?;
-        let mut scope = self.conn.prepare_cached(
-            "SELECT f.name, s.level FROM event_scopes s JOIN factors f ON f.id = s.factor_id \
-             WHERE s.event_id = ?1 ORDER BY f.position, f.name",
-        )?;
-        for e in &mut events {
-            e.scope = scope
-                .query_map([e.id], |r| Ok((r.get(0)?, r.get(1)?)))?
-                .collect::<rusqlite::Result<_>>()?;
-        }
+        fill_scopes(&self.conn, &mut events)?;
         Ok(events)
     }
+
+    /// Every event, removed ones included (marked by `removed`), in time order.
+    pub fn events_including_removed(&self) -> Result<Vec<Event>> {
+        let mut stmt = self
+            .conn
+            .prepare_cached(&format!("{EVENT_SELECT} ORDER BY e.ts_ms, e.id"))?;
+        let rows = stmt.query_map([], event_row)?;
+        let mut events: Vec<Event> = rows.collect::<rusqlite::Result<_>>()?;
+        fill_scopes(&self.conn, &mut events)?;
+        Ok(events)
+    }
+
+    /// Event `id`, removed or not.
+    pub fn event(&self, id: i64) -> Result<Event> {
+        event_by_id(&self.conn, id)
+    }
+
+    /// Corrects event `id`: every field `edit` gives is replaced and recorded in the event's
+    /// history (one entry per field whose value changes). A removed event cannot be edited.
+    /// Returns the event as it is now.
+    pub fn edit_event(
+        &mut self,
+        id: i64,
+        edit: &EventEdit,
+        who: &str,
+        reason: Option<&str>,
+        now: DateTime<Utc>,
+    ) -> Result<Event> {
+        if edit == &EventEdit::default() {
+            return Err(Error::Usage(
+                "nothing to change: give --at, --note, --characteristic/--any-characteristic or \
+                 --where/--no-where"
+                    .to_string(),
+            ));
+        }
+        if let Some(note) = &edit.note {
+            if note.trim().is_empty() {
+                return Err(Error::Usage("the event note is empty".to_string()));
+            }
+        }
+        let tx = self
+            .conn
+            .transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)?;
+        let old = event_by_id(&tx, id)?;
+        if let Some(removed) = old.removed {
+            return Err(Error::Usage(format!(
+                "event #{id} was removed ({}); record a new event instead",
+                removed.format("%Y-%m-%d %H:%M UTC")
+            )));
+        }
+        let characteristic = match &edit.characteristic {
+            Some(c) => c.clone(),
+            None => old.characteristic.clone(),
+        };
+        let scope = edit.scope.clone().unwrap_or_else(|| old.scope.clone());
+        let (characteristic_id, scope_ids) = resolve_scope(&tx, characteristic.as_deref(), &scope)?;
+        let at = edit.at.unwrap_or(old.at);
+        let note = edit.note.clone().unwrap_or_else(|| old.note.clone());
+        tx.execute(
+            "UPDATE events SET ts_ms = ?2, note = ?3, characteristic_id = ?4 WHERE id = ?1",
+            params![id, at.timestamp_millis(), note, characteristic_id],
+        )?;
+        tx.execute("DELETE FROM event_scopes WHERE event_id = ?1", [id])?;
+        for (factor_id, level) in scope_ids {
+            tx.execute(
+                "INSERT INTO event_scopes (event_id, factor_id, level) VALUES (?1, ?2, ?3)",
+                params![id, factor_id, level],
+            )?;
+        }
+        let new = event_by_id(&tx, id)?;
+        let fields = [
+            ("at", time_text(old.at), time_text(new.at)),
+            ("note", old.note.clone(), new.note.clone()),
+            (
+                "characteristic",
+                old.characteristic.clone().unwrap_or_default(),
+                new.characteristic.clone().unwrap_or_default(),
+            ),
+            ("where", scope_text(&old.scope), scope_text(&new.scope)),
+        ];
+        let mut changed = 0;
+        for (field, before, after) in fields {
+            if before != after {
+                changed += 1;
+                tx.execute(
+                    "INSERT INTO event_history \
+                     (event_id, changed_ms, who, action, field, before, after, reason) \
+                     VALUES (?1, ?2, ?3, 'edit', ?4, ?5, ?6, ?7)",
+                    params![
+                        id,
+                        now.timestamp_millis(),
+                        who,
+                        field,
+                        before,
+                        after,
+                        reason
+                    ],
+                )?;
+            }
+        }
+        if changed == 0 {
+            return Err(Error::Usage(format!(
+                "event #{id} already reads so: nothing changed"
+            )));
+        }
+        tx.commit()?;
+        Ok(new)
+    }
+
+    /// Removes event `id`: it no longer marks charts or anchors investigations, the log keeps it
+    /// marked removed, and the removal (with the whole event as it was) enters its history.
+    pub fn remove_event(
+        &mut self,
+        id: i64,
+        who: &str,
+        reason: Option<&str>,
+        now: DateTime<Utc>,
+    ) -> Result<Event> {
+        let tx = self
+            .conn
+            .transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)?;
+        let old = event_by_id(&tx, id)?;
+        if let Some(removed) = old.removed {
+            return Err(Error::Usage(format!(
+                "event #{id} was already removed ({})",
+                removed.format("%Y-%m-%d %H:%M UTC")
+            )));
+        }
+        tx.execute(
+            "UPDATE events SET removed_ms = ?2 WHERE id = ?1",
+            params![id, now.timestamp_millis()],
+        )?;
+        tx.execute(
+            "INSERT INTO event_history (event_id, changed_ms, who, action, before, reason) \
+             VALUES (?1, ?2, ?3, 'remove', ?4, ?5)",
+            params![id, now.timestamp_millis(), who, describe(&old), reason],
+        )?;
+        let new = event_by_id(&tx, id)?;
+        tx.commit()?;
+        Ok(new)
+    }
+
+    /// The recorded corrections, of event `id` or of every event, oldest first.
+    pub fn event_history(&self, id: Option<i64>) -> Result<Vec<EventChange>> {
+        if let Some(id) = id {
+            event_by_id(&self.conn, id)?;
+        }
+        let mut stmt = self.conn.prepare_cached(
+            "SELECT event_id, changed_ms, who, action, field, before, after, reason \
+             FROM event_history WHERE ?1 IS NULL OR event_id = ?1 ORDER BY id",
+        )?;
+        let rows = stmt.query_map([id], |r| {
+            Ok(EventChange {
+                event_id: r.get(0)?,
+                changed: from_ms(r.get(1)?),
+                who: r.get(2)?,
+                action: r.get(3)?,
+                field: r.get(4)?,
+                before: r.get(5)?,
+                after: r.get(6)?,
+                reason: r.get(7)?,
+            })
+        })?;
+        Ok(rows.collect::<rusqlite::Result<_>>()?)
+    }
+}
+
+const EVENT_SELECT: &str = "SELECT e.id, e.ts_ms, e.note, c.name, e.created_ms, e.removed_ms \
+     FROM events e LEFT JOIN characteristics c ON c.id = e.characteristic_id";
+
+fn event_row(r: &rusqlite::Row<'_>) -> rusqlite::Result<Event> {
+    Ok(Event {
+        id: r.get(0)?,
+        at: from_ms(r.get(1)?),
+        note: r.get(2)?,
+        characteristic: r.get(3)?,
+        scope: Vec::new(),
+        created: from_ms(r.get(4)?),
+        removed: r.get::<_, Option<i64>>(5)?.map(from_ms),
+    })
+}
+
+fn fill_scopes(conn: &Connection, events: &mut [Event]) -> Result<()> {
+    let mut scope = conn.prepare_cached(
+        "SELECT f.name, s.level FROM event_scopes s JOIN factors f ON f.id = s.factor_id \
+         WHERE s.event_id = ?1 ORDER BY f.position, f.name",
+    )?;
+    for e in events {
+        e.scope = scope
+            .query_map([e.id], |r| Ok((r.get(0)?, r.get(1)?)))?
+            .collect::<rusqlite::Result<_>>()?;
+    }
+    Ok(())
+}
+
+fn event_by_id(conn: &Connection, id: i64) -> Result<Event> {
+    let mut stmt = conn.prepare_cached(&format!("{EVENT_SELECT} WHERE e.id = ?1"))?;
+    let mut events: Vec<Event> = stmt
+        .query_map([id], event_row)?
+        .collect::<rusqlite::Result<_>>()?;
+    if events.is_empty() {
+        let last: Option<i64> = conn.query_row("SELECT max(id) FROM events", [], |r| r.get(0))?;
+        return Err(Error::Usage(match last {
+            Some(last) => format!(
+                "no event #{id} (events are numbered 1 to {last}; see `samewise event list --all`)"
+            ),
+            None => format!("no event #{id}: no event is recorded"),
+        }));
+    }
+    fill_scopes(conn, &mut events)?;
+    Ok(events.remove(0))
+}
+
+/// An event's characteristic id and `(factor id, level)` pairs.
+type ResolvedScope = (Option<i64>, Vec<(i64, String)>);
+
+/// The characteristic id and `(factor id, level)` pairs of an event's scope. An unknown
+/// characteristic, factor or level (one never stored for that factor) is refused with the
+/// closest known names.
+fn resolve_scope(
+    conn: &Connection,
+    characteristic: Option<&str>,
+    scope: &[(String, String)],
+) -> Result<ResolvedScope> {
+    let characteristic_id = match characteristic {
+        None => None,
+        Some(name) => {
+            let known = load_characteristics(conn)?;
+            Some(
+                known
+                    .iter()
+                    .find(|c| c.config.name == name)
+                    .map(|c| c.id)
+                    .ok_or_else(|| unknown_characteristic(name, &known))?,
+            )
+        }
+    };
+    let factors = load_factors(conn)?;
+    let mut scope_ids: Vec<(i64, String)> = Vec::new();
+    let mut levels =
+        conn.prepare_cached("SELECT name FROM levels WHERE factor_id = ?1 ORDER BY name")?;
+    for (factor, level) in scope {
+        let f = factors.iter().find(|f| &f.name == factor).ok_or_else(|| {
+            let hint = did_you_mean(factor, factors.iter().map(|f| f.name.as_str()));
+            let known: Vec<&str> = factors.iter().map(|f| f.name.as_str()).collect();
+            Error::Usage(format!(
+                "unknown factor \"{factor}\"{hint}; the factors are: {}",
+                known.join(", ")
+            ))
+        })?;
+        if scope_ids.iter().any(|(id, _)| *id == f.id) {
+            return Err(Error::Usage(format!("factor \"{factor}\" is given twice")));
+        }
+        let known: Vec<String> = levels
+            .query_map([f.id], |r| r.get(0))?
+            .collect::<rusqlite::Result<_>>()?;
+        if !known.iter().any(|l| l == level) {
+            let hint = did_you_mean(level, known.iter().map(String::as_str));
+            return Err(Error::Usage(if known.is_empty() {
+                format!(
+                    "unknown level \"{level}\" of factor \"{factor}\": no measurement with a \
+                     {factor} level is stored yet (import the data first)"
+                )
+            } else {
+                format!(
+                    "unknown level \"{level}\" of factor \"{factor}\"{hint} ({} levels \
+                     stored; `samewise status` lists the data)",
+                    known.len()
+                )
+            }));
+        }
+        scope_ids.push((f.id, level.clone()));
+    }
+    Ok((characteristic_id, scope_ids))
+}
+
+fn time_text(t: DateTime<Utc>) -> String {
+    t.format("%Y-%m-%dT%H:%M:%S%.3fZ").to_string()
+}
+
+fn scope_text(scope: &[(String, String)]) -> String {
+    scope
+        .iter()
+        .map(|(f, l)| format!("{f}={l}"))
+        .collect::<Vec<_>>()
+        .join(", ")
+}
+
+/// The whole event in one line, as the history keeps a removed one.
+fn describe(e: &Event) -> String {
+    let mut s = format!("at={}; note={}", time_text(e.at), e.note);
+    if let Some(c) = &e.characteristic {
+        s.push_str(&format!("; characteristic={c}"));
+    }
+    if !e.scope.is_empty() {
+        s.push_str(&format!("; where={}", scope_text(&e.scope)));
+    }
+    s
 }

@@ -51,6 +51,10 @@ pub const MIGRATIONS: &[Migration] = &[
         name: "0007_views.sql",
         sql: include_str!("../../migrations/0007_views.sql"),
     },
+    Migration {
+        name: "0008_event_history.sql",
+        sql: include_str!("../../migrations/0008_event_history.sql"),
+    },
 ];
 
 /// SQLite's `PRAGMA application_id` of a samewise database: "SMWS" in ASCII. Set when a database

@@ -26,7 +26,7 @@ pub mod migrate;
 mod query;
 pub mod runs;
 
-pub use events::{Event, NewEvent};
+pub use events::{Event, EventChange, EventEdit, NewEvent};
 pub use findings::{AlertRecord, FlagHistoryRow};
 pub use import::{ImportCpu, ImportOptions, ImportReport, PriorImport, MAX_KEPT_REJECTIONS};
 pub use imports::{ImportRecord, UndoReport};

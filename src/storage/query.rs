@@ -124,24 +124,7 @@ pub(crate) fn closest<'a>(
     name: &str,
     candidates: impl Iterator<Item = &'a str>,
 ) -> Option<&'a str> {
-    fn distance(a: &str, b: &str) -> usize {
-        let b: Vec<char> = b.chars().collect();
-        let mut prev: Vec<usize> = (0..=b.len()).collect();
-        for (i, ca) in a.chars().enumerate() {
-            let mut cur = vec![i + 1];
-            for (j, cb) in b.iter().enumerate() {
-                let cost = usize::from(!ca.eq_ignore_ascii_case(cb));
-                cur.push((prev[j] + cost).min(prev[j + 1] + 1).min(cur[j] + 1));
-            }
-            prev = cur;
-        }
-        prev[b.len()]
-    }
-    candidates
-        .map(|c| (distance(name, c), c))
-        .filter(|(d, c)| *d <= (c.chars().count() / 2).max(2))
-        .min_by_key(|(d, _)| *d)
-        .map(|(_, c)| c)
+    crate::names::closest_names(name, candidates, 1).pop()
 }
 
 /// An "unknown characteristic" error with the closest known name.
