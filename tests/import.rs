@@ -153,8 +153,9 @@ fn status_event_check_and_backup() {
             "new boring bar",
             "--characteristic",
             "bore_diameter",
+            // A level the store holds: an event scope naming a level never measured is refused.
             "--where",
-            "machine=M4",
+            "machine=M2",
         ],
     );
     assert!(o.status.success(), "{}", text(&o));
@@ -181,7 +182,7 @@ fn status_event_check_and_backup() {
     let out = text(&o);
     assert!(
         out.contains(
-            "2026-11-30 08:15:00 CET  new boring bar  [characteristic=bore_diameter, machine=M4]"
+            "2026-11-30 08:15:00 CET  new boring bar  [characteristic=bore_diameter, machine=M2]"
         ),
         "{out}"
     );
