@@ -200,3 +200,27 @@ fn removed_events_leave_lists_and_investigations_but_stay_in_the_log() {
         &["investigate", "bore", "--by", "machine", "--event", "2"],
     );
 }
+
+/// Issue 15: a note with a control character is refused, naming the character escaped.
+#[test]
+fn notes_with_control_characters_are_refused() {
+    let dir = common::temp_dir("event-control");
+    common::invented_plant(&dir, 1);
+    let o = common::samewise(
+        &dir,
+        &[
+            "event",
+            "add",
+            "--at",
+            "2026-11-28 08:00",
+            "--note",
+            "new tool\u{1b}[31m",
+        ],
+    );
+    assert!(!o.status.success());
+    assert!(
+        common::output_text(&o).contains("control character (\\u{1b})"),
+        "{}",
+        common::output_text(&o)
+    );
+}

@@ -58,6 +58,18 @@ pub struct EventEdit {
     pub scope: Option<Vec<(String, String)>>,
 }
 
+/// Refuses a note holding control characters (an escape sequence, a NUL): they would print as
+/// something else and break the charts' SVG. Tabs are allowed.
+fn check_note(note: &str) -> Result<()> {
+    if let Some(c) = note.chars().find(|c| c.is_control() && *c != '\t') {
+        return Err(Error::Usage(format!(
+            "the event note holds a control character ({}): write it without",
+            c.escape_default()
+        )));
+    }
+    Ok(())
+}
+
 /// One recorded correction of an event: an edit of one field, or a removal.
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub struct EventChange {
@@ -90,6 +102,7 @@ impl Store {
         if event.note.trim().is_empty() {
             return Err(Error::Usage("the event note is empty".to_string()));
         }
+        check_note(&event.note)?;
         // IMMEDIATE: the write lock is taken (waiting with the busy timeout while an import
         // writes) before anything is read; a deferred transaction could not wait for it.
         let tx = self
@@ -166,6 +179,9 @@ impl Store {
         reason: Option<&str>,
         now: DateTime<Utc>,
     ) -> Result<Event> {
+        if let Some(note) = &edit.note {
+            check_note(note)?;
+        }
         if edit == &EventEdit::default() {
             return Err(Error::Usage(
                 "nothing to change: give --at, --note, --characteristic/--any-characteristic or \
