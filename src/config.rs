@@ -78,6 +78,13 @@
 //! part = "Serial"                     # optional part (serial) id column, stored
 //! identity = ["characteristic", "part"]  # optional; default: characteristic, time, every
 //!                                     # factor, and the part when there is a part column
+//! subgroup = "Shot"                   # optional: the column naming measurements taken
+//!                                     # together (shot, sample, batch); a list of columns
+//!                                     # (["Machine", "Shot"]) is joined with "/"; stored
+//! # subgroup_window = "10m"           # no such column: the values of one combination of the
+//! # subgroup_by = ["machine"]         # subgroup_by factors (default: every column factor)
+//!                                     # within one clock window of this length (aligned to
+//!                                     # midnight UTC) form a subgroup
 //! [layout.factors]                    # factor = "Column"; default: the factor's own column
 //! machine = "Machine ID"
 //! [layout.characteristics]            # wide: characteristic = "Column"; long: characteristic =
@@ -351,9 +358,31 @@ pub struct Layout {
     pub codes: Vec<(String, String)>,
     /// Column holding a part (serial) id, stored with each measurement (`part = "Serial"`).
     pub part_column: Option<String>,
+    /// Where each measurement's subgroup (shot, sample, batch) comes from, when the layout
+    /// names one.
+    pub subgroup: Option<SubgroupSource>,
     /// What identifies one measurement, for telling an overlapping export's rows (duplicates)
     /// and changed values (conflicts) from new measurements.
     pub identity: Identity,
+}
+
+/// Where a layout's subgroup ids come from: measurements of one subgroup were taken together
+/// (the parts of one shot, one CMM sample, one batch) and share its deviation.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum SubgroupSource {
+    /// `subgroup = "Shot"` or `["Machine", "Shot"]`: the cells of these columns, joined with
+    /// "/". A row whose cells are all empty has no subgroup.
+    Columns(Vec<String>),
+    /// `subgroup_window = "10m"`: the values of one combination of the `by` factors (indices
+    /// into `Config::factors`) within one clock window of `window_ms` (windows aligned to
+    /// midnight UTC) form a subgroup. A subgroup that straddles a window boundary is split: give
+    /// the export's own subgroup column where it has one.
+    Window {
+        /// Window length in milliseconds.
+        window_ms: i64,
+        /// The factors whose levels are part of the subgroup id.
+        by: Vec<usize>,
+    },
 }
 
 /// What identifies one measurement of a layout (`identity = [...]` in a `[[layout]]`): always
@@ -659,12 +688,23 @@ struct RawLayout {
     decimal: Option<String>,
     part: Option<String>,
     identity: Option<Vec<String>>,
+    subgroup: Option<RawColumns>,
+    subgroup_window: Option<String>,
+    subgroup_by: Option<Vec<String>>,
     #[serde(default)]
     ignore: Vec<String>,
     #[serde(default)]
     factors: BTreeMap<String, String>,
     #[serde(default)]
     characteristics: BTreeMap<String, String>,
+}
+
+/// One column name or a list of them.
+#[derive(Deserialize)]
+#[serde(untagged)]
+enum RawColumns {
+    One(String),
+    Many(Vec<String>),
 }
 
 #[derive(Deserialize)]
@@ -1238,6 +1278,77 @@ fn validate_layout(
             identity
         }
     };
+    let subgroup = match (&l.subgroup, &l.subgroup_window) {
+        (Some(_), Some(_)) => {
+            return Err(
+                "subgroup and subgroup_window: give one (a column names the subgroup; \
+                 a window derives it where the export has no such column)"
+                    .to_string(),
+            )
+        }
+        (Some(columns), None) => {
+            if l.subgroup_by.is_some() {
+                return Err(
+                    "subgroup_by goes with subgroup_window, not with a subgroup column".into(),
+                );
+            }
+            let columns = match columns {
+                RawColumns::One(c) => vec![c.clone()],
+                RawColumns::Many(c) => c.clone(),
+            };
+            if columns.is_empty() {
+                return Err("subgroup: an empty list (name at least one column)".into());
+            }
+            let mut checked = Vec::with_capacity(columns.len());
+            for c in &columns {
+                checked.push(check_label(c).map_err(|r| format!("subgroup: {r}"))?);
+            }
+            Some(SubgroupSource::Columns(checked))
+        }
+        (None, Some(window)) => {
+            let length = parse_duration(window).map_err(|r| format!("subgroup_window: {r}"))?;
+            let window_ms = length.num_milliseconds();
+            if window_ms <= 0 || 86_400_000 % window_ms != 0 {
+                return Err(format!(
+                    "subgroup_window: \"{window}\" must divide a day evenly (e.g. \"5m\", \"10m\", \"1h\"), so windows line up from midnight"
+                ));
+            }
+            let by = match &l.subgroup_by {
+                None => factors
+                    .iter()
+                    .enumerate()
+                    .filter(|(_, f)| matches!(f.source, FactorSource::Column(_)))
+                    .map(|(i, _)| i)
+                    .collect(),
+                Some(names) => {
+                    let mut by = Vec::new();
+                    for n in names {
+                        match factors.iter().position(|f| &f.name == n) {
+                            Some(i) if !by.contains(&i) => by.push(i),
+                            Some(_) => {}
+                            None => {
+                                let known: Vec<&str> =
+                                    factors.iter().map(|f| f.name.as_str()).collect();
+                                return Err(format!(
+                                    "subgroup_by: \"{n}\" is not a configured factor (known: {})",
+                                    known.join(", ")
+                                ));
+                            }
+                        }
+                    }
+                    by.sort_unstable();
+                    by
+                }
+            };
+            Some(SubgroupSource::Window { window_ms, by })
+        }
+        (None, None) => {
+            if l.subgroup_by.is_some() {
+                return Err("subgroup_by goes with subgroup_window".into());
+            }
+            None
+        }
+    };
     let layout = Layout {
         name: name.to_string(),
         kind,
@@ -1250,6 +1361,7 @@ fn validate_layout(
         decimal_comma,
         codes,
         part_column,
+        subgroup,
         identity,
     };
     // One column, one role.
@@ -1316,6 +1428,7 @@ fn default_layouts(factors: &[FactorConfig]) -> Vec<Layout> {
             decimal_comma: false,
             codes: Vec::new(),
             part_column: None,
+            subgroup: None,
             identity: Identity::full(factors.len(), false),
         },
         Layout {
@@ -1332,6 +1445,7 @@ fn default_layouts(factors: &[FactorConfig]) -> Vec<Layout> {
             decimal_comma: false,
             codes: Vec::new(),
             part_column: None,
+            subgroup: None,
             identity: Identity::full(factors.len(), false),
         },
     ]

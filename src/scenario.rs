@@ -229,6 +229,7 @@ impl Cell {
                 origin: Decimal::parse("0").expect("zero is a decimal"),
                 values,
                 level_idx: vec![level_idx],
+                subgroup: Vec::new(),
             }],
         }
     }

@@ -68,6 +68,7 @@ fn invented_day(
                 origin: Decimal::parse("50.000").unwrap(),
                 values,
                 level_idx,
+                subgroup: Vec::new(),
             }
         })
         .collect();

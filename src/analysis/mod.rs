@@ -110,7 +110,13 @@ pub struct FrameCharacteristic {
     pub values: Vec<f64>,
     /// `[factor][row]` index into `FrameFactor::levels`.
     pub level_idx: Vec<Vec<u32>>,
+    /// `[row]`: the measurement's subgroup (shot, sample, batch), numbered from 0 within the
+    /// frame, [`NO_SUBGROUP`] for a measurement without one; empty when no measurement has one.
+    pub subgroup: Vec<u32>,
 }
+
+/// `FrameCharacteristic::subgroup` of a measurement without a subgroup.
+pub const NO_SUBGROUP: u32 = u32::MAX;
 
 /// One period's values, read once (the shape of `storage`'s period frame).
 #[derive(Debug, Clone, Default)]

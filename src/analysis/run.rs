@@ -38,6 +38,7 @@ pub fn frame_from(pf: PeriodFrame) -> Frame {
                 origin: c.origin,
                 values: c.values,
                 level_idx: c.level_idx,
+                subgroup: c.subgroup_idx,
             })
             .collect(),
     }

@@ -57,7 +57,7 @@ use chrono::{DateTime, Utc};
 use sha2::{Digest, Sha256};
 
 use crate::calendar::{PlantCalendar, ShiftTable};
-use crate::config::{check_name, Config, Layout, LayoutKind, LevelCase};
+use crate::config::{check_name, Config, Layout, LayoutKind, LevelCase, SubgroupSource};
 use crate::stats::decimal::Decimal;
 use crate::{Error, Result};
 
@@ -86,6 +86,8 @@ pub struct Measurement {
     pub levels: Vec<String>,
     /// The part (serial) id, when the layout has a part column.
     pub part: Option<String>,
+    /// The subgroup (shot, sample, batch) id, when the layout names or derives one.
+    pub subgroup: Option<String>,
 }
 
 /// One rejected measurement (or a whole rejected row of a long file).
@@ -375,6 +377,15 @@ enum PlanKind {
     },
 }
 
+/// A layout's subgroup applied to one header.
+#[derive(Debug, Clone)]
+enum PlanSubgroup {
+    /// The cells of these columns, joined with "/".
+    Columns(Vec<usize>),
+    /// Levels of these factors (indices into the row's levels) and the clock window.
+    Window { window_ms: i64, by: Vec<usize> },
+}
+
 /// A layout applied to one header.
 #[derive(Debug, Clone)]
 struct Plan {
@@ -384,6 +395,8 @@ struct Plan {
     factors: Vec<FactorCell>,
     /// The part id column, when the layout has one.
     part: Option<usize>,
+    /// Where the subgroup id comes from, when the layout has one.
+    subgroup: Option<PlanSubgroup>,
     kind: PlanKind,
     ignored: Vec<String>,
     /// How much of the header the layout explains (for detection).
@@ -414,6 +427,16 @@ impl Plan {
         };
         let timestamp = need(&layout.timestamp_column, &mut missing);
         let part = layout.part_column.as_deref().map(|c| need(c, &mut missing));
+        let subgroup = match &layout.subgroup {
+            None => None,
+            Some(SubgroupSource::Columns(columns)) => Some(PlanSubgroup::Columns(
+                columns.iter().map(|c| need(c, &mut missing)).collect(),
+            )),
+            Some(SubgroupSource::Window { window_ms, by }) => Some(PlanSubgroup::Window {
+                window_ms: *window_ms,
+                by: by.clone(),
+            }),
+        };
         let mut factors = Vec::new();
         for column in &layout.factor_columns {
             factors.push(match column {
@@ -505,6 +528,7 @@ impl Plan {
             timestamp,
             factors,
             part,
+            subgroup,
             kind,
             ignored,
             score,
@@ -535,6 +559,8 @@ pub struct MeasurementRef<'a> {
     pub levels: &'a [&'a str],
     /// The part (serial) id, when the layout has a part column.
     pub part: Option<&'a str>,
+    /// The subgroup (shot, sample, batch) id, when the layout names or derives one.
+    pub subgroup: Option<&'a str>,
 }
 
 impl MeasurementRef<'_> {
@@ -547,6 +573,7 @@ impl MeasurementRef<'_> {
             value: self.value,
             levels: self.levels.iter().map(|l| l.to_string()).collect(),
             part: self.part.map(str::to_string),
+            subgroup: self.subgroup.map(str::to_string),
         }
     }
 }
@@ -702,6 +729,7 @@ impl<R: Read> ImportStream<R> {
                         value: m.value,
                         levels: &levels,
                         part: m.part.as_deref(),
+                        subgroup: m.subgroup.as_deref(),
                     });
                 }
                 RowOutcome::Rejected(r) => {
@@ -988,6 +1016,50 @@ impl RowParser {
                 }
             },
         };
+        // The subgroup id (owned for the row: joined cells or a derived window).
+        let subgroup_text: Option<String> = match &this.plan.subgroup {
+            None => None,
+            Some(PlanSubgroup::Columns(columns)) => {
+                let mut id = String::new();
+                let mut any = false;
+                for (k, &i) in columns.iter().enumerate() {
+                    match text(i) {
+                        Ok(t) if t.chars().any(char::is_control) => {
+                            let reason = format!(
+                                "the subgroup id \"{}\" holds a control character; remove it from the export",
+                                t.escape_default()
+                            );
+                            this.reject_row(sink, line_no, Some(i), reason, line);
+                            return;
+                        }
+                        Ok(t) => {
+                            if k > 0 {
+                                id.push('/');
+                            }
+                            id.push_str(t);
+                            any |= !t.is_empty();
+                        }
+                        Err(reason) => {
+                            this.reject_row(sink, line_no, Some(i), reason, line);
+                            return;
+                        }
+                    }
+                }
+                any.then_some(id)
+            }
+            Some(PlanSubgroup::Window { window_ms, by }) => {
+                let start_ms = ts.timestamp_millis().div_euclid(*window_ms) * window_ms;
+                let start = DateTime::<Utc>::from_timestamp_millis(start_ms).unwrap_or(ts);
+                let mut id = String::new();
+                for &f in by {
+                    id.push_str(levels[f]);
+                    id.push('/');
+                }
+                id.push_str(&start.format("%Y-%m-%dT%H:%M:%SZ").to_string());
+                Some(id)
+            }
+        };
+        let subgroup = subgroup_text.as_deref();
         match &this.plan.kind {
             PlanKind::Long {
                 characteristic,
@@ -1047,6 +1119,7 @@ impl RowParser {
                         value,
                         levels,
                         part,
+                        subgroup,
                     }),
                     Err((col, reason)) => sink.rejected(Rejection {
                         line: line_no,
@@ -1081,6 +1154,7 @@ impl RowParser {
                             value,
                             levels,
                             part,
+                            subgroup,
                         }),
                         Err(reason) => sink.rejected(Rejection {
                             line: line_no,

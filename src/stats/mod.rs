@@ -25,6 +25,7 @@ pub mod oneway;
 pub mod posthoc;
 pub mod power;
 pub mod ptukey;
+pub mod serial;
 pub mod shift;
 pub mod spread;
 pub mod twoway;

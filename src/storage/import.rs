@@ -179,6 +179,8 @@ struct Row {
     level_set: i64,
     /// Index into `Batch::parts`, or [`NO_PART`].
     part: u32,
+    /// Index into `Batch::subgroups`, or [`NO_PART`].
+    subgroup: u32,
 }
 
 /// `Row::part` of a measurement without a part id.
@@ -195,6 +197,9 @@ struct Batch {
     rejections: Vec<Rejection>,
     /// Part ids of the batch's rows (layouts with a part column).
     parts: Vec<String>,
+    /// Subgroup ids of the batch's rows (layouts with a subgroup); consecutive rows of one
+    /// subgroup share an entry.
+    subgroups: Vec<String>,
 }
 
 impl Batch {
@@ -348,6 +353,16 @@ impl Interner {
             }
             None => NO_PART,
         };
+        let subgroup = match m.subgroup {
+            Some(g) if batch.subgroups.last().is_some_and(|last| last == g) => {
+                (batch.subgroups.len() - 1) as u32
+            }
+            Some(g) => {
+                batch.subgroups.push(g.to_string());
+                (batch.subgroups.len() - 1) as u32
+            }
+            None => NO_PART,
+        };
         batch.rows.push(Row {
             characteristic: idx as i64,
             ts_ms: ms(m.ts),
@@ -355,6 +370,7 @@ impl Interner {
             value,
             level_set: level_set as i64,
             part,
+            subgroup,
         });
         if self.characteristics[idx].pending.len() >= ORIGIN_SAMPLE {
             Self::resolve_origin(&mut self.characteristics[idx], &mut self.batch);
@@ -415,6 +431,7 @@ fn sort_rows(rows: &mut Vec<Row>) {
             value: 0.0,
             level_set: 0,
             part: NO_PART,
+            subgroup: NO_PART,
         };
         rows.len()
     ];
@@ -792,8 +809,8 @@ impl Store {
             });
             let write_result = (|| -> Result<()> {
                 let mut insert_measurement = tx.prepare_cached(
-                    "INSERT INTO measurements (characteristic_id, ts_ms, import_id, line, value, level_set_id, part) \
-                     VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7)",
+                    "INSERT INTO measurements (characteristic_id, ts_ms, import_id, line, value, level_set_id, part, subgroup) \
+                     VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8)",
                 )?;
                 let mut lookup =
                     IdentityLookup::new(&identity, all_factors, level_sets.factor_ids());
@@ -892,6 +909,9 @@ impl Store {
                         insert_measurement.raw_bind_parameter(5, row.value)?;
                         insert_measurement.raw_bind_parameter(6, row.level_set)?;
                         insert_measurement.raw_bind_parameter(7, part)?;
+                        let subgroup = (row.subgroup != NO_PART)
+                            .then(|| batch.subgroups[row.subgroup as usize].as_str());
+                        insert_measurement.raw_bind_parameter(8, subgroup)?;
                         insert_measurement.raw_execute()?;
                         stored_rows += 1;
                         ts_min = ts_min.min(row.ts_ms);
@@ -1047,6 +1067,7 @@ mod tests {
             value: line as f64,
             level_set: 0,
             part: super::NO_PART,
+            subgroup: super::NO_PART,
         };
         let mut rows = vec![
             row(2, 10, 2),

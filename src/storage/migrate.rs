@@ -55,6 +55,10 @@ pub const MIGRATIONS: &[Migration] = &[
         name: "0008_event_history.sql",
         sql: include_str!("../../migrations/0008_event_history.sql"),
     },
+    Migration {
+        name: "0009_subgroups.sql",
+        sql: include_str!("../../migrations/0009_subgroups.sql"),
+    },
 ];
 
 /// SQLite's `PRAGMA application_id` of a samewise database: "SMWS" in ASCII. Set when a database

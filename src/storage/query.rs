@@ -45,7 +45,14 @@ pub struct CharacteristicFrame {
     pub ts_ms: Vec<i64>,
     /// `level_idx[f][row]`: index into `PeriodFrame::factors[f].levels`.
     pub level_idx: Vec<Vec<u32>>,
+    /// `subgroup_idx[row]`: the measurement's subgroup, numbered from 0 in order of first
+    /// appearance in the frame ([`NO_SUBGROUP`] for a measurement without one). Empty when no
+    /// measurement of the frame has a subgroup.
+    pub subgroup_idx: Vec<u32>,
 }
+
+/// `CharacteristicFrame::subgroup_idx` of a measurement without a subgroup.
+pub const NO_SUBGROUP: u32 = u32::MAX;
 
 /// The measurements of a period: the configured factors with their levels, and one frame per
 /// characteristic asked for.
@@ -224,15 +231,22 @@ impl Store {
         };
 
         let mut rows_stmt = self.conn.prepare_cached(
-            "SELECT ts_ms, value, level_set_id FROM measurements \
+            "SELECT ts_ms, value, level_set_id, subgroup FROM measurements \
              WHERE characteristic_id = ?1 AND ts_ms >= ?2 AND ts_ms < ?3",
         )?;
+        // Subgroup ids numbered per frame; the previous row's id is checked first (the parts of
+        // one shot are neighbours in time order).
+        let mut subgroup_ids: FxMap<Box<[u8]>, u32> = FxMap::default();
         let mut frames = Vec::with_capacity(chosen.len());
         let mut sets: Vec<i64> = Vec::new();
         let mut missing: Vec<i64> = Vec::new();
         for c in chosen {
             let mut ts_ms = Vec::new();
             let mut values = Vec::new();
+            let mut subgroup_idx: Vec<u32> = Vec::new();
+            let mut any_subgroup = false;
+            let mut last_subgroup: (Vec<u8>, u32) = (Vec::new(), NO_SUBGROUP);
+            subgroup_ids.clear();
             sets.clear();
             let mut rows = rows_stmt.query(rusqlite::params![
                 c.id,
@@ -243,6 +257,28 @@ impl Store {
                 ts_ms.push(row.get::<_, i64>(0)?);
                 values.push(row.get::<_, f64>(1)?);
                 sets.push(row.get::<_, i64>(2)?);
+                let id = match row.get_ref(3)? {
+                    rusqlite::types::ValueRef::Text(t) => {
+                        if last_subgroup.1 != NO_SUBGROUP && last_subgroup.0 == t {
+                            last_subgroup.1
+                        } else {
+                            let next = subgroup_ids.len() as u32;
+                            let id = *subgroup_ids.entry(t.into()).or_insert(next);
+                            last_subgroup.0.clear();
+                            last_subgroup.0.extend_from_slice(t);
+                            last_subgroup.1 = id;
+                            id
+                        }
+                    }
+                    _ => NO_SUBGROUP,
+                };
+                if id != NO_SUBGROUP && !any_subgroup {
+                    any_subgroup = true;
+                    subgroup_idx.resize(values.len() - 1, NO_SUBGROUP);
+                }
+                if any_subgroup {
+                    subgroup_idx.push(id);
+                }
             }
             drop(rows);
             // Resolve each level set of the frame once: from the cache, or fetched in bulk.
@@ -275,6 +311,7 @@ impl Store {
                 values,
                 ts_ms,
                 level_idx,
+                subgroup_idx,
             });
         }
         // Sort each factor's levels by name and renumber.

@@ -128,6 +128,14 @@ pub struct TestRow {
     pub min_detectable_diff: Option<f64>,
     pub min_detectable_pct_tolerance: Option<f64>,
     pub notes: String,
+    /// `independent`, `nested`, `blocked` or `cell_means` (`None` in runs stored before 0009).
+    pub design: Option<String>,
+    pub n_subgroups: Option<i64>,
+    pub var_subgroups: Option<f64>,
+    pub share_subgroups: Option<f64>,
+    pub serial_r1: Option<f64>,
+    pub serial_z: Option<f64>,
+    pub serial_p: Option<f64>,
 }
 
 /// One group's summary within a test.
@@ -247,11 +255,12 @@ pub fn complete_run(
                 shapiro_p, sd_ratio, n_beyond_3sd, eta_squared, omega_squared, var_between,
                 var_within, share_between, icc, icc_low, icc_high, tolerance, spread_of_means,
                 spread_pct_tolerance, standout_level, standout_diff, standout_sd_units,
-                standout_pct_tolerance, min_detectable_diff, min_detectable_pct_tolerance, notes)
+                standout_pct_tolerance, min_detectable_diff, min_detectable_pct_tolerance, notes,
+                design, n_subgroups, var_subgroups, share_subgroups, serial_r1, serial_z, serial_p)
              VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14, ?15, ?16, ?17,
                 ?18, ?19, ?20, ?21, ?22, ?23, ?24, ?25, ?26, ?27, ?28, ?29, ?30, ?31, ?32, ?33,
                 ?34, ?35, ?36, ?37, ?38, ?39, ?40, ?41, ?42, ?43, ?44, ?45, ?46, ?47, ?48, ?49,
-                ?50, ?51, ?52, ?53, ?54, ?55, ?56, ?57, ?58)",
+                ?50, ?51, ?52, ?53, ?54, ?55, ?56, ?57, ?58, ?59, ?60, ?61, ?62, ?63, ?64, ?65)",
         )?;
         for t in &content.tests {
             ins.execute(rusqlite::params![
@@ -313,6 +322,13 @@ pub fn complete_run(
                 t.min_detectable_diff,
                 t.min_detectable_pct_tolerance,
                 t.notes,
+                t.design,
+                t.n_subgroups,
+                t.var_subgroups,
+                t.share_subgroups,
+                t.serial_r1,
+                t.serial_z,
+                t.serial_p,
             ])?;
         }
         let mut ins = tx.prepare_cached(
@@ -526,7 +542,8 @@ const TEST_COLUMNS: &str = "test_idx, characteristic, factor, state, is_new, n_o
     bartlett_p, shapiro_w, shapiro_p, sd_ratio, n_beyond_3sd, eta_squared, omega_squared, \
     var_between, var_within, share_between, icc, icc_low, icc_high, tolerance, \
     spread_of_means, spread_pct_tolerance, standout_level, standout_diff, standout_sd_units, \
-    standout_pct_tolerance, min_detectable_diff, min_detectable_pct_tolerance, notes";
+    standout_pct_tolerance, min_detectable_diff, min_detectable_pct_tolerance, notes, design, \
+    n_subgroups, var_subgroups, share_subgroups, serial_r1, serial_z, serial_p";
 
 fn test_from_row(r: &Row<'_>, o: usize) -> rusqlite::Result<TestRow> {
     Ok(TestRow {
@@ -587,6 +604,13 @@ fn test_from_row(r: &Row<'_>, o: usize) -> rusqlite::Result<TestRow> {
         min_detectable_diff: r.get(o + 54)?,
         min_detectable_pct_tolerance: r.get(o + 55)?,
         notes: r.get(o + 56)?,
+        design: r.get(o + 57)?,
+        n_subgroups: r.get(o + 58)?,
+        var_subgroups: r.get(o + 59)?,
+        share_subgroups: r.get(o + 60)?,
+        serial_r1: r.get(o + 61)?,
+        serial_z: r.get(o + 62)?,
+        serial_p: r.get(o + 63)?,
     })
 }
 
