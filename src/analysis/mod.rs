@@ -35,6 +35,7 @@
 //! "New" marks a flag that the latest complete run of the previous period of the same kind did
 //! not have (when no previous run exists, every flag is new).
 
+pub mod design;
 pub mod findings;
 pub mod report;
 pub mod run;
@@ -49,9 +50,11 @@ use crate::stats::fdr::{self, FdrMethod};
 use crate::stats::oneway::{self, LeadingMethod, OneWayOptions, Tolerance};
 use crate::stats::posthoc::{self, Pair};
 use crate::stats::power::sensitivity;
+use crate::stats::serial;
 use crate::stats::variance_components::one_way_random;
 use crate::stats::Stat;
 use crate::storage::runs::{GroupRow, PairRow, RunContent, TestRow};
+use design::{DesignKind, NoStructure};
 
 /// State names as stored and printed in JSON.
 pub mod state {
@@ -67,11 +70,17 @@ pub mod state {
     /// (small groups whose spreads look different, or very unequal sizes): no p-value.
     pub const TOO_FEW_TO_COMPARE: &str = "too_few_to_compare";
 
+    /// q <= level, but the values were tested as independent and the serial-dependence check
+    /// shows they are not (parts measured together share a deviation): the p-value is too small
+    /// to trust. Not a flag: no finding, not ranked with sound flags.
+    pub const DIFFERS_DEPENDENT: &str = "differs_dependent";
+
     /// Human wording for terminal output.
     pub fn label(state: &str) -> &'static str {
         match state {
             DIFFERS_MATERIAL => "differs and material",
             DIFFERS => "differs",
+            DIFFERS_DEPENDENT => "differs? not independent",
             NO_EVIDENCE => "no evidence",
             TOO_FEW_TO_COMPARE => "too few values to compare",
             _ => "too little data",
@@ -83,9 +92,10 @@ pub mod state {
         match state {
             DIFFERS_MATERIAL => 0,
             DIFFERS => 1,
-            NO_EVIDENCE => 2,
-            TOO_FEW_TO_COMPARE => 3,
-            _ => 4,
+            DIFFERS_DEPENDENT => 2,
+            NO_EVIDENCE => 3,
+            TOO_FEW_TO_COMPARE => 4,
+            _ => 5,
         }
     }
 }
@@ -210,6 +220,10 @@ struct Partial {
     /// (or the grand mean) to a single limit; with its description.
     material_reference: Option<(f64, &'static str)>,
     confidence: f64,
+    /// The values were tested as independent, the serial-dependence check failed and the
+    /// leading p could be flagged: the design effect of the dependence and the leading p with
+    /// its statistic divided by it (`None` when the leading test has no F scale).
+    dependence: Option<(f64, Option<f64>)>,
 }
 
 /// Worker threads for `options` (0: as many as the machine has cores).
@@ -370,6 +384,41 @@ where
             None => state::NO_EVIDENCE,
         }
         .to_string();
+        if let (Some((deff, p_adjusted)), Some(p), Some(q)) =
+            (partial.dependence, row.leading_p, row.q_value)
+        {
+            if crate::storage::runs::is_flag_state(&row.state) {
+                // The q-value the adjusted p would have in the same family (BH scales p).
+                let q_adjusted = p_adjusted.map(|pa| (q * pa / p.max(f64::MIN_POSITIVE)).min(1.0));
+                let found = format!(
+                    "values not independent: in time order within the groups, neighbouring values are alike (lag-1 serial correlation {:.2}, z = {:.1}, p = {}; design effect {:.1}), as when parts measured together share a deviation or the process drifts within the period",
+                    row.serial_r1.unwrap_or(f64::NAN),
+                    row.serial_z.unwrap_or(f64::NAN),
+                    oneway::short(row.serial_p.unwrap_or(f64::NAN)),
+                    deff
+                );
+                match (p_adjusted, q_adjusted) {
+                    (Some(pa), Some(qa)) if qa <= options.fdr_level => push_note(
+                        &mut row.notes,
+                        &format!(
+                            "{found}; the difference holds with the statistic divided by the design effect (p = {}, q = {})",
+                            oneway::short(pa),
+                            oneway::short(qa)
+                        ),
+                    ),
+                    _ => {
+                        push_note(
+                            &mut row.notes,
+                            &format!(
+                                "{found}; with the statistic divided by the design effect it no longer holds ({}), so the p-value of a test that counts every value as independent is too small to trust. Name the column that identifies measurements taken together (subgroup = \"COLUMN\" in the layout, or subgroup_window) to test on the right unit",
+                                p_adjusted.map_or("no F scale to divide".to_string(), |pa| format!("p = {}", oneway::short(pa)))
+                            ),
+                        );
+                        row.state = state::DIFFERS_DEPENDENT.to_string();
+                    }
+                }
+            }
+        }
         let flagged = crate::storage::runs::is_flag_state(&row.state);
         row.is_new = flagged
             && previous_flags.is_none_or(|prev| {
@@ -592,10 +641,63 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
             fill[k] += 1;
         }
     }
-    let groups: Vec<&[f64]> = (0..used.len())
+    let mut groups: Vec<&[f64]> = (0..used.len())
         .map(|k| &grouped[offsets[k]..offsets[k + 1]])
         .collect();
-    let levels: Vec<String> = used.iter().map(|&l| factor.levels[l].clone()).collect();
+    let mut levels: Vec<String> = used.iter().map(|&l| factor.levels[l].clone()).collect();
+    // The sampling structure: nested and mixed designs test the subgroup (cell) means.
+    let mut design_kind = DesignKind::Independent;
+    let mut n_subgroups = None;
+    let mut units: Vec<Vec<f64>> = Vec::new();
+    let mut arranged = None;
+    match design::arrange(&c.values, &c.subgroup, |row| {
+        let k = slot[idx[row] as usize];
+        (k != usize::MAX).then_some(k as u32)
+    }) {
+        Err(NoStructure::NoSubgroups) => {}
+        Err(NoStructure::Incomplete(reason)) => push_note(&mut notes, &reason),
+        Ok(a) => {
+            design_kind = a.kind;
+            n_subgroups = Some(a.n_subgroups as i64);
+            arranged = Some(a);
+        }
+    }
+    if let Some(a) = arranged
+        .as_ref()
+        .filter(|a| matches!(a.kind, DesignKind::Nested | DesignKind::CellMeans))
+    {
+        let what = if a.kind == DesignKind::Nested {
+            format!(
+                "nested design: {} is constant within each of the {} subgroups, so the subgroup is the unit: tested on the subgroup means (ANOVA on subgroup means), against the variation between subgroups within each level",
+                factor.name, a.n_subgroups
+            )
+        } else {
+            format!(
+                "mixed design: {}; tested on the mean of each level within each subgroup",
+                a.reason.as_deref().unwrap_or("neither nested nor crossed")
+            )
+        };
+        push_note(&mut notes, &what);
+        let means = a.cell_means(used.len());
+        let mut few = Vec::new();
+        let mut kept_levels = Vec::new();
+        for (k, m) in means.into_iter().enumerate() {
+            if m.len() < 2 {
+                few.push(format!("{} ({} subgroup)", levels[k], m.len()));
+            } else {
+                units.push(m);
+                kept_levels.push(levels[k].clone());
+            }
+        }
+        if !few.is_empty() {
+            push_note(
+                &mut notes,
+                &format!("left out, fewer than 2 subgroups: {}", few.join(", ")),
+            );
+        }
+        groups = units.iter().map(Vec::as_slice).collect();
+        levels = kept_levels;
+    }
     let tolerance = tolerance_of(c);
     let tol_width = tolerance.and_then(|t| t.width());
     let mut row = TestRow {
@@ -604,20 +706,38 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
         factor: factor.name.clone(),
         n_obs: c.values.len() as i64,
         n_groups: counts.iter().filter(|&&n| n > 0).count() as i64,
-        n_groups_used: used.len() as i64,
+        n_groups_used: groups.len() as i64,
         tolerance: tol_width,
+        design: Some(design_kind.key().to_string()),
+        n_subgroups,
         ..TestRow::default()
     };
+    if design_kind == DesignKind::Independent && groups.len() >= 2 {
+        // Values treated as independent: are they, in time order within their groups?
+        match serial::serial_dependence(&groups) {
+            Ok(s) => {
+                row.serial_r1 = Some(s.r1);
+                row.serial_z = Some(s.z);
+                row.serial_p = Some(s.p);
+            }
+            Err(e) => push_note(&mut notes, &format!("serial dependence: {}", e.reason)),
+        }
+    }
     let origin = c.origin.to_string();
     let mut summaries: Vec<Summary> = groups.iter().map(|g| Summary::from_slice(g)).collect();
     let mut leading = None;
     let mut declined = false;
     let mut bundle_vc = None;
     let mut bundle_sensitivity = None;
-    if used.len() < 2 {
+    let mut dependence = None;
+    if groups.len() < 2 {
         push_note(
             &mut notes,
-            &format!("fewer than two groups with at least {min_n} values"),
+            &if design_kind == DesignKind::Independent {
+                format!("fewer than two groups with at least {min_n} values")
+            } else {
+                "fewer than two groups with at least 2 subgroups".to_string()
+            },
         );
     } else {
         let oneway_options = OneWayOptions {
@@ -699,6 +819,29 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
                 if let Ok(sw) = &ow.shapiro_wilk {
                     row.shapiro_w = Some(sw.w);
                     row.shapiro_p = Some(sw.p);
+                }
+                if let (Some(stat), Some(p)) = (ow.leading.statistic, ow.leading.p) {
+                    let serial_fails = row.serial_p.is_some_and(|sp| sp < options.alpha);
+                    if serial_fails && p <= options.fdr_level {
+                        // What the leading test gives when the dependence is allowed for.
+                        let deff = serial::design_effect(&groups);
+                        let df = match ow.leading.method {
+                            LeadingMethod::ClassicF => {
+                                ow.anova.as_ref().ok().map(|t| (t.df_between, t.df_within))
+                            }
+                            LeadingMethod::Welch => {
+                                ow.welch.as_ref().ok().and_then(|t| t.df1.zip(t.df2))
+                            }
+                            LeadingMethod::FStar => {
+                                ow.f_star.as_ref().ok().and_then(|t| t.df1.zip(t.df2))
+                            }
+                            LeadingMethod::ExactPermutation => None,
+                        };
+                        let p_adjusted = df.and_then(|(d1, d2)| {
+                            crate::stats::distributions::f_sf(stat / deff, d1, d2).ok()
+                        });
+                        dependence = Some((deff, p_adjusted));
+                    }
                 }
                 bundle_vc = Some(ow.variance_components);
                 bundle_sensitivity = Some(ow.sensitivity);
@@ -784,6 +927,7 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
         declined,
         material_reference,
         confidence: options.confidence,
+        dependence,
     }
 }
 
