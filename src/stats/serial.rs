@@ -102,7 +102,7 @@ pub fn serial_dependence(groups: &[&[f64]]) -> Stat<SerialCheck> {
         e.clear();
         e.extend(g.iter().map(|x| x - mean));
         let s2: f64 = e.iter().map(|x| x * x).sum();
-        if !(s2 > 0.0) {
+        if s2 <= 0.0 || s2.is_nan() {
             continue;
         }
         let scale = (g.len() as f64 / s2).sqrt();
@@ -117,7 +117,7 @@ pub fn serial_dependence(groups: &[&[f64]]) -> Stat<SerialCheck> {
         n_sum += g.len() as u64;
         n_pairs += g.len() as u64 - 1;
     }
-    if !(var_sum > 0.0) {
+    if var_sum <= 0.0 || var_sum.is_nan() {
         return Err(Unavailable::new(
             "no group has three or more values that vary: serial dependence not checked",
         ));
@@ -159,7 +159,7 @@ pub fn design_effect(groups: &[&[f64]]) -> f64 {
         let mean = g.iter().sum::<f64>() / n;
         let mut e: Vec<f64> = g.iter().map(|x| x - mean).collect();
         let s2: f64 = e.iter().map(|x| x * x).sum();
-        if !(s2 > 0.0) {
+        if s2 <= 0.0 || s2.is_nan() {
             continue;
         }
         let scale = (n / s2).sqrt();
