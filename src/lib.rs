@@ -33,6 +33,7 @@ pub mod report;
 pub mod sample;
 pub mod scenario;
 pub mod schedule;
+pub mod shot_plant;
 pub mod stats;
 pub mod storage;
 

@@ -837,7 +837,11 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
                             }
                             LeadingMethod::ExactPermutation => None,
                         };
+                        // The effective number of values is n / deff (Bayley and Hammersley
+                        // 1946): the statistic and the denominator df shrink with it.
+                        let k = groups.len() as f64;
                         let p_adjusted = df.and_then(|(d1, d2)| {
+                            let d2 = ((d2 + k) / deff - k).max(1.0);
                             crate::stats::distributions::f_sf(stat / deff, d1, d2).ok()
                         });
                         dependence = Some((deff, p_adjusted));
