@@ -221,8 +221,21 @@ pub fn leading(t: &TestRow) -> &'static str {
         Some("welch") => "Welch F",
         Some("f_star") => "F*",
         Some("exact_permutation") => "exact",
+        Some("blocked_f") => "F blocked",
         Some(_) => "F",
         None => "-",
+    }
+}
+
+/// The design of a row in a table column: `values` (independent), `nested`, `blocked`,
+/// `cells`, or `-` for runs stored before designs were recorded.
+pub fn design_cell(t: &TestRow) -> &'static str {
+    match t.design.as_deref() {
+        Some("independent") => "values",
+        Some("nested") => "nested",
+        Some("blocked") => "blocked",
+        Some("cell_means") => "cells",
+        _ => "-",
     }
 }
 
@@ -306,8 +319,17 @@ pub fn print_summary(
     )?;
     writeln!(
         out,
-        "{:<22} {:<20} {:<14} {:<10} {:<9} {:>9} {:>9} {:>7}  {:<34} new",
-        "state", "characteristic", "factor", "leading", "F", "p", "q", "between", "stands out"
+        "{:<24} {:<20} {:<14} {:<8} {:<10} {:<9} {:>9} {:>9} {:>7}  {:<34} new",
+        "state",
+        "characteristic",
+        "factor",
+        "design",
+        "leading",
+        "F",
+        "p",
+        "q",
+        "between",
+        "stands out"
     )?;
     let mut unflagged = 0usize;
     for t in sorted(content) {
@@ -319,10 +341,11 @@ pub fn print_summary(
         }
         writeln!(
             out,
-            "{:<22} {:<20} {:<14} {:<10} {:<9} {:>9} {:>9} {:>7}  {:<34} {}",
+            "{:<24} {:<20} {:<14} {:<8} {:<10} {:<9} {:>9} {:>9} {:>7}  {:<34} {}",
             state::label(&t.state),
             t.characteristic,
             t.factor,
+            design_cell(t),
             leading(t),
             cell(t.leading_statistic),
             super::format::p_cell(t.leading_p),
@@ -385,6 +408,7 @@ fn add_null_reasons(v: &mut serde_json::Value, t: &TestRow) {
         ("bartlett", "Bartlett"),
         ("shapiro_wilk", "Shapiro-Wilk"),
         ("variance_components", "variance components"),
+        ("serial_dependence", "serial dependence"),
         ("sensitivity", "sensitivity"),
     ];
     let reason_for = |section: &str, key: &str| -> String {
@@ -402,6 +426,17 @@ fn add_null_reasons(v: &mut serde_json::Value, t: &TestRow) {
             }
             ("leading", _) => t.leading_reason.clone().unwrap_or_else(|| general.clone()),
             ("stands_out", "sd_units") => "the within-group SD is unavailable".into(),
+            ("design", "kind") => "stored before designs were recorded (independent values)".into(),
+            ("design", _) if t.n_subgroups.is_none() => {
+                "no subgroups: the values were tested as independent".into()
+            }
+            ("design", _) => "only a nested design has a between-subgroup component".into(),
+            ("serial_dependence", _)
+                if t.design.as_deref().is_some_and(|d| d != "independent") =>
+            {
+                "checked only when values are tested as independent (this test used its subgroups)"
+                    .into()
+            }
             ("", "sd_ratio") => note_for("SD ratio").unwrap_or_else(|| general.clone()),
             _ => general.clone(),
         }
@@ -443,6 +478,9 @@ fn test_json_values(t: &TestRow) -> serde_json::Value {
     serde_json::json!({
         "characteristic": t.characteristic, "factor": t.factor, "state": t.state, "is_new": t.is_new,
         "n_obs": t.n_obs, "n_groups": t.n_groups, "n_groups_used": t.n_groups_used,
+        "design": {"kind": t.design, "n_subgroups": t.n_subgroups,
+                   "var_subgroups": json_num(t.var_subgroups), "share_subgroups": json_num(t.share_subgroups)},
+        "serial_dependence": {"r1": json_num(t.serial_r1), "z": json_num(t.serial_z), "p": json_num(t.serial_p)},
         "leading": {"method": t.leading_method, "reason": t.leading_reason,
                     "statistic": json_num(t.leading_statistic), "p": json_num(t.leading_p),
                     "recommend_kruskal_wallis": t.recommend_kruskal},

@@ -176,7 +176,9 @@ Which test leads (chosen from the null-rate study in docs/null-rates.md, `cargo 
 - very unequal sizes and every group at Welch's size: Welch's test, without a check of the spreads;
 - about equal sizes at Welch's size: Brown-Forsythe (p < 0.05) and, with at most 5 groups, the SD ratio (> 2) judge the spreads: alike, the classic F leads; different, Welch's test.
 
-States: differs and material (q <= level and the near end of the standing-out group's 95% interval against the rest, Bonferroni over the groups, reaches the material share of the tolerance, or of the distance from the target to a single limit), differs, no evidence, too few values to compare (no p-value, outside the false-discovery family), too little data.";
+Sampling structure (a layout's subgroup = \"Shot\" column, or subgroup_window): parts of one subgroup share its deviation. A factor constant within every subgroup (machine, lot, shift) is tested on the subgroup means (nested); a factor that varies within the subgroups (cavity, spindle) is tested with the subgroups as blocks (additive two-way ANOVA, Type II); anything else on the mean of each level within each subgroup. Without subgroups the values are checked for serial dependence in time order; a flag that does not hold once the design effect of that dependence is allowed for becomes \"differs? not independent\" (not a flag: name the subgroup column).
+
+States: differs and material (q <= level and the near end of the standing-out group's 95% interval against the rest, Bonferroni over the groups, reaches the material share of the tolerance, or of the distance from the target to a single limit), differs, differs? not independent, no evidence, too few values to compare (no p-value, outside the false-discovery family), too little data.";
 
 /// Set once a write to stdout failed: later output is dropped.
 static STDOUT_CLOSED: AtomicBool = AtomicBool::new(false);
