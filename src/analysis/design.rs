@@ -98,6 +98,15 @@ impl Arranged {
         out
     }
 
+    /// Values per subgroup, by dense subgroup number.
+    pub fn block_sizes(&self) -> Vec<usize> {
+        let mut sizes = vec![0usize; self.n_subgroups];
+        for cell in &self.cells {
+            sizes[cell.subgroup as usize] += cell.end - cell.start;
+        }
+        sizes
+    }
+
     /// Per value (in the order of `values`): its level slot and its dense subgroup number.
     pub fn labels(&self) -> (Vec<u32>, Vec<u32>) {
         let mut slots = Vec::with_capacity(self.values.len());

@@ -50,11 +50,14 @@ use crate::stats::fdr::{self, FdrMethod};
 use crate::stats::oneway::{self, LeadingMethod, OneWayOptions, Tolerance};
 use crate::stats::posthoc::{self, Pair};
 use crate::stats::power::sensitivity;
-use crate::stats::serial;
 use crate::stats::variance_components::one_way_random;
 use crate::stats::Stat;
+use crate::stats::{intrablock, serial};
 use crate::storage::runs::{GroupRow, PairRow, RunContent, TestRow};
 use design::{DesignKind, NoStructure};
+
+/// The leading-method key of the blocked design's F (levels adjusted for the subgroups).
+pub const BLOCKED_F: &str = "blocked_f";
 
 /// State names as stored and printed in JSON.
 pub mod state {
@@ -224,6 +227,9 @@ struct Partial {
     /// leading p could be flagged: the design effect of the dependence and the leading p with
     /// its statistic divided by it (`None` when the leading test has no F scale).
     dependence: Option<(f64, Option<f64>)>,
+    /// Pairs computed with the test (a blocked design: on the adjusted means), used instead of
+    /// the one-way pairs when the test is flagged.
+    pairs_ready: Option<Vec<Stat<Pair>>>,
 }
 
 /// Worker threads for `options` (0: as many as the machine has cores).
@@ -431,6 +437,7 @@ where
         .collect();
     let pairs = parallel_map(&flagged, threads, |partial| {
         let pairs = match partial.leading {
+            _ if partial.pairs_ready.is_some() => partial.pairs_ready.clone().unwrap_or_default(),
             Some(LeadingMethod::Welch) => {
                 posthoc::games_howell(&partial.summaries, partial.confidence)
             }
@@ -698,6 +705,46 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
         groups = units.iter().map(Vec::as_slice).collect();
         levels = kept_levels;
     }
+    // Blocked: the factor varies within the subgroups. The test is the additive model's F; the
+    // requirement checks and the group table use the values adjusted for the subgroups
+    // (residual + the level's adjusted mean).
+    let mut blocked = None;
+    if let Some(a) = arranged.as_ref().filter(|a| a.kind == DesignKind::Blocked) {
+        let (slots, blocks) = a.labels();
+        match intrablock::intrablock(&a.values, &slots, &blocks, used.len(), a.n_subgroups) {
+            Err(e) => {
+                push_note(
+                    &mut notes,
+                    &format!(
+                        "blocked design: {}; the values are tested as independent",
+                        e.reason
+                    ),
+                );
+                design_kind = DesignKind::Independent;
+            }
+            Ok(fit) => {
+                push_note(
+                    &mut notes,
+                    &format!(
+                        "blocked design: {} varies within the {} subgroups, so each subgroup's own deviation is taken out: F of the levels adjusted for the subgroups (additive two-way ANOVA, subgroups as blocks, Type II){}",
+                        factor.name,
+                        a.n_subgroups,
+                        if fit.is_connected {
+                            ""
+                        } else {
+                            "; the levels are not all linked through shared subgroups, so the test has fewer df"
+                        }
+                    ),
+                );
+                units = vec![Vec::new(); used.len()];
+                for (i, &slot) in slots.iter().enumerate() {
+                    units[slot as usize].push(fit.residuals[i] + fit.adjusted_means[slot as usize]);
+                }
+                groups = units.iter().map(Vec::as_slice).collect();
+                blocked = Some(fit);
+            }
+        }
+    }
     let tolerance = tolerance_of(c);
     let tol_width = tolerance.and_then(|t| t.width());
     let mut row = TestRow {
@@ -730,6 +777,7 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
     let mut bundle_vc = None;
     let mut bundle_sensitivity = None;
     let mut dependence = None;
+    let mut pairs_ready = None;
     if groups.len() < 2 {
         push_note(
             &mut notes,
@@ -851,12 +899,74 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
                 bundle_sensitivity = Some(ow.sensitivity);
             }
         }
+        if let Some(fit) = &blocked {
+            leading = Some(LeadingMethod::ClassicF);
+            declined = false;
+            row.leading_method = Some(BLOCKED_F.into());
+            row.leading_reason = Some(
+                "the factor varies within the subgroups: F of the levels adjusted for the subgroups (blocks)"
+                    .into(),
+            );
+            row.welch_f = None;
+            row.welch_df1 = None;
+            row.welch_df2 = None;
+            row.welch_p = None;
+            push_note(
+                &mut notes,
+                "Welch: no Welch-type test is used with subgroups as blocks; the spreads are checked on the residuals of the additive model",
+            );
+            match &fit.levels_test {
+                Ok(t) => {
+                    row.leading_statistic = Some(t.statistic);
+                    row.leading_p = Some(t.p);
+                    row.anova_f = Some(t.statistic);
+                    row.anova_p = Some(t.p);
+                }
+                Err(e) => {
+                    row.leading_statistic = None;
+                    row.leading_p = None;
+                    row.anova_f = None;
+                    row.anova_p = None;
+                    push_note(&mut notes, &format!("blocked F: {}", e.reason));
+                }
+            }
+            row.anova_df1 = Some(fit.df_levels);
+            row.anova_df2 = Some(fit.df_resid);
+            row.ss_between = Some(fit.ss_levels);
+            row.ss_within = Some(fit.ss_resid);
+            row.ms_within = Some(fit.ms_resid).filter(|m| m.is_finite());
+            row.resid_sd = row.ms_within.map(f64::sqrt);
+            let total = fit.ss_levels + fit.ss_blocks + fit.ss_resid;
+            row.r_squared = (total > 0.0).then(|| 1.0 - fit.ss_resid / total);
+            // Between-subgroup variance (one-way ANOVA estimator on the subgroup sizes).
+            if let Ok(b) = &fit.blocks_test {
+                let n = fit.n as f64;
+                let sizes = arranged
+                    .as_ref()
+                    .map(|a| a.block_sizes())
+                    .unwrap_or_default();
+                let n0 = (n - sizes.iter().map(|&x| (x * x) as f64).sum::<f64>() / n)
+                    / (fit.n_blocks as f64 - 1.0);
+                let ms_blocks = b.statistic * fit.ms_resid;
+                if n0 > 0.0 {
+                    row.var_subgroups = Some(((ms_blocks - fit.ms_resid) / n0).max(0.0));
+                }
+            }
+            pairs_ready = Some(intrablock::pairs(fit, options.confidence));
+        }
         let vc = bundle_vc.unwrap_or_else(|| one_way_random(&summaries, options.confidence));
         note_unavailable(&mut notes, "variance components", &vc);
         if let Ok(vc) = &vc {
             row.var_between = Some(vc.between);
             row.var_within = Some(vc.within);
             row.share_between = Some(vc.share_between);
+            if let Some(sub) = row.var_subgroups {
+                let total = vc.between + vc.within + sub;
+                if total > 0.0 {
+                    row.share_between = Some(vc.between / total);
+                    row.share_subgroups = Some(sub / total);
+                }
+            }
             row.icc = Some(vc.icc);
             if let Ok(ci) = &vc.icc_ci {
                 row.icc_low = Some(ci.low);
@@ -932,6 +1042,7 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
         material_reference,
         confidence: options.confidence,
         dependence,
+        pairs_ready,
     }
 }
 

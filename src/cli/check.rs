@@ -431,9 +431,7 @@ fn add_null_reasons(v: &mut serde_json::Value, t: &TestRow) {
                 "no subgroups: the values were tested as independent".into()
             }
             ("design", _) => "only a nested design has a between-subgroup component".into(),
-            ("serial_dependence", _)
-                if t.design.as_deref().is_some_and(|d| d != "independent") =>
-            {
+            ("serial_dependence", _) if t.design.as_deref().is_some_and(|d| d != "independent") => {
                 "checked only when values are tested as independent (this test used its subgroups)"
                     .into()
             }

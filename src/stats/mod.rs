@@ -17,6 +17,7 @@ pub mod distributions;
 pub mod effect;
 pub mod fdr;
 pub mod fstar;
+pub mod intrablock;
 pub mod kruskal;
 pub mod materiality;
 pub mod noncentral;

@@ -29,6 +29,9 @@ pub enum PairMethod {
     TukeyKramer,
     /// Games-Howell: each pair's own variances, Welch df.
     GamesHowell,
+    /// Tukey-Kramer on level means adjusted for the subgroups (blocks) of an additive model:
+    /// each pair's variance from the intrablock analysis, residual df.
+    TukeyKramerAdjusted,
 }
 
 impl PairMethod {
@@ -37,6 +40,7 @@ impl PairMethod {
         match self {
             PairMethod::TukeyKramer => "tukey_kramer",
             PairMethod::GamesHowell => "games_howell",
+            PairMethod::TukeyKramerAdjusted => "tukey_kramer_adjusted",
         }
     }
 }
@@ -78,7 +82,7 @@ fn check_confidence(confidence: f64) -> Stat<()> {
 
 /// Fills in p and interval for one pair from its difference, standard error and df.
 #[allow(clippy::too_many_arguments)]
-fn finish(
+pub(crate) fn finish_pair(
     a: usize,
     b: usize,
     diff: f64,
@@ -148,7 +152,7 @@ pub fn tukey_kramer(groups: &[Summary], confidence: f64) -> Vec<Stat<Pair>> {
             out.push(common.clone().and_then(|(ms_within, q_crit)| {
                 let (ga, gb) = (&groups[a], &groups[b]);
                 let se = (ms_within * (1.0 / ga.n as f64 + 1.0 / gb.n as f64)).sqrt();
-                finish(
+                finish_pair(
                     a,
                     b,
                     ga.mean - gb.mean,
@@ -212,7 +216,7 @@ fn games_howell_pair(groups: &[Summary], a: usize, b: usize, confidence: f64) ->
         )));
     }
     let q_crit = qtukey(confidence, groups.len() as f64, df)?;
-    finish(
+    finish_pair(
         a,
         b,
         ga.mean - gb.mean,
