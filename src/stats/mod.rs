@@ -20,6 +20,7 @@ pub mod fstar;
 pub mod intrablock;
 pub mod kruskal;
 pub mod materiality;
+pub mod nested;
 pub mod noncentral;
 pub mod normality;
 pub mod oneway;
