@@ -52,7 +52,7 @@ use crate::stats::posthoc::{self, Pair};
 use crate::stats::power::sensitivity;
 use crate::stats::variance_components::one_way_random;
 use crate::stats::Stat;
-use crate::stats::{intrablock, serial};
+use crate::stats::{intrablock, nested, serial};
 use crate::storage::runs::{GroupRow, PairRow, RunContent, TestRow};
 use design::{DesignKind, NoStructure};
 
@@ -657,6 +657,7 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
     let mut n_subgroups = None;
     let mut units: Vec<Vec<f64>> = Vec::new();
     let mut arranged = None;
+    let mut nested_fit = None;
     match design::arrange(&c.values, &c.subgroup, |row| {
         let k = slot[idx[row] as usize];
         (k != usize::MAX).then_some(k as u32)
@@ -685,6 +686,12 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
             )
         };
         push_note(&mut notes, &what);
+        if a.kind == DesignKind::Nested {
+            match nested::nested_anova(&a.nested_groups(used.len()), options.confidence) {
+                Ok(n) => nested_fit = Some(n),
+                Err(e) => push_note(&mut notes, &format!("nested ANOVA: {}", e.reason)),
+            }
+        }
         let means = a.cell_means(used.len());
         let mut few = Vec::new();
         let mut kept_levels = Vec::new();
@@ -971,6 +978,52 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
             if let Ok(ci) = &vc.icc_ci {
                 row.icc_low = Some(ci.low);
                 row.icc_high = Some(ci.high);
+            }
+        }
+        if let Some(n) = &nested_fit {
+            // The nested ANOVA table beside the test on subgroup means, and the three-level
+            // variance components (levels, subgroups within a level, values within a subgroup).
+            match &n.levels_test {
+                Ok(t) => push_note(
+                    &mut notes,
+                    &format!(
+                        "nested ANOVA: F = MS levels / {} = {} on {} and {} df, p = {} ({})",
+                        if t.method == nested::NestedMethod::Exact {
+                            "MS subgroups"
+                        } else {
+                            "synthesised MS"
+                        },
+                        oneway::short(t.f),
+                        oneway::short(t.df1),
+                        oneway::short(t.df2),
+                        oneway::short(t.p),
+                        t.method.name()
+                    ),
+                ),
+                Err(e) => push_note(&mut notes, &format!("nested ANOVA: {}", e.reason)),
+            }
+            match &n.components {
+                Ok(c) => {
+                    row.var_between = Some(c.levels);
+                    row.var_subgroups = Some(c.subgroups);
+                    row.var_within = Some(c.within);
+                    row.share_between = Some(c.share_levels);
+                    row.share_subgroups = Some(c.share_subgroups);
+                    row.icc = None;
+                    row.icc_low = None;
+                    row.icc_high = None;
+                    push_note(
+                        &mut notes,
+                        &format!(
+                            "variance components: three levels ({}): the ICC of the subgroup means is not given",
+                            c.method
+                        ),
+                    );
+                    for note in &c.notes {
+                        push_note(&mut notes, &format!("three-level components: {note}"));
+                    }
+                }
+                Err(e) => push_note(&mut notes, &format!("three-level components: {}", e.reason)),
             }
         }
         if let Some(sd) = row.resid_sd.filter(|s| *s > 0.0) {

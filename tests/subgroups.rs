@@ -1,0 +1,196 @@
+//! Sampling structure end to end: a moulding plant whose parts come in shots (everything
+//! invented). Simulated days prove the designs keep their flags honest (binomial bounds), and an
+//! export with a shot column goes through import, check and its JSON.
+//!
+//! Binomial bounds below are exact upper-tail quantiles of Bin(n, p) computed in the test
+//! (the binomial distribution; no table).
+
+mod common;
+
+use common::{samewise_ok, temp_dir};
+use samewise::analysis::state;
+use samewise::scenario::study_options;
+use samewise::shot_plant::{run_days, ShotPlant};
+
+/// Smallest `c` with `P(Bin(n, p) > c) <= tail`.
+fn binomial_upper(n: usize, p: f64, tail: f64) -> usize {
+    let mut pmf = (1.0 - p).powi(n as i32);
+    let mut cdf = pmf;
+    let mut c = 0;
+    while 1.0 - cdf > tail {
+        pmf *= (n - c) as f64 / (c + 1) as f64 * p / (1.0 - p);
+        cdf += pmf;
+        c += 1;
+    }
+    c
+}
+
+const PLANT: ShotPlant = ShotPlant {
+    machines: 4,
+    cavities: 8,
+    shots_per_machine: 12,
+    shot_sd: 1.5,
+    cavity_offset: 0.0,
+    machine_offset: 0.0,
+};
+
+#[test]
+fn null_days_with_the_shot_as_subgroup_stay_within_the_false_discovery_level() {
+    // Shot-to-shot SD 1.5 x the part SD, nothing differs. With the shot as the subgroup, the
+    // share of days with any flag (BH at 0.05 over the machine and cavity tests) stays within
+    // what 5 % allows: at most the 0.999 binomial quantile of 300 days at 0.05.
+    let options = study_options();
+    let days = 300;
+    let o = run_days(&PLANT, days, 0x5b_0001, true, &options).unwrap();
+    assert_eq!(o.design["machine"], "nested");
+    assert_eq!(o.design["cavity"], "blocked");
+    let bound = binomial_upper(days, 0.05, 0.001);
+    assert!(
+        o.days_with_flag <= bound,
+        "{} of {days} days flagged (bound {bound}): {o:?}",
+        o.days_with_flag
+    );
+    // Without the column: the dependence check fires on most days, and a flag of the machine
+    // test that rests on the dependence is not a flag.
+    let o = run_days(&PLANT, days, 0x5b_0002, false, &options).unwrap();
+    assert_eq!(o.design["machine"], "independent");
+    let fired = o.serial_fired.get("machine").copied().unwrap_or(0);
+    assert!(
+        fired > days * 9 / 10,
+        "dependence found on {fired} of {days} days"
+    );
+    assert!(
+        o.count("machine", state::DIFFERS_DEPENDENT) > 0,
+        "some days would have flagged machines on shot noise: {o:?}"
+    );
+    assert!(
+        o.flagged("machine") <= bound,
+        "{} machine flags of {days} days: {o:?}",
+        o.flagged("machine")
+    );
+}
+
+#[test]
+fn a_cavity_offset_is_found_every_day_with_blocks_and_rarely_without() {
+    // Power: cavity C1 +1 part SD, shot SD 1.5. Blocked on the shot, the offset is found on
+    // (nearly) every day, so within one day; without the shot column the shot noise hides it on
+    // many days (about half, in this shape).
+    let plant = ShotPlant {
+        cavity_offset: 1.0,
+        ..PLANT
+    };
+    let options = study_options();
+    let days = 100;
+    let with = run_days(&plant, days, 0x5b_0003, true, &options).unwrap();
+    let without = run_days(&plant, days, 0x5b_0003, false, &options).unwrap();
+    assert!(with.flagged("cavity") >= 95, "blocked: {with:?}");
+    assert!(without.flagged("cavity") < 80, "without: {without:?}");
+}
+
+const CONFIG: &str = r#"
+[plant]
+name = "Invented moulding plant"
+time_zone = "Europe/Berlin"
+production_day_start = "06:00"
+database = "plant.db"
+
+[[characteristic]]
+name = "weight"
+unit = "g"
+lsl = 11.80
+usl = 12.20
+target = 12.00
+
+[[factor]]
+name = "machine"
+column = "Machine"
+
+[[factor]]
+name = "cavity"
+column = "Cavity"
+
+[[layout]]
+name = "press"
+kind = "wide"
+timestamp = "Time"
+subgroup = ["Machine", "Shot"]
+[layout.characteristics]
+weight = "Weight"
+"#;
+
+/// An invented day: 3 machines x 10 shots x 4 cavities, shot SD 0.03 g, part SD 0.02 g;
+/// cavity C3 0.05 g heavy. The shot counter restarts on each machine (so the subgroup is the
+/// machine with the shot).
+fn write_day(dir: &std::path::Path) {
+    let mut rng = common::Rng(77);
+    let mut csv = String::from("Time,Machine,Shot,Cavity,Weight\n");
+    for shot in 0..10 {
+        for m in 1..=3 {
+            let dev = 0.03 * rng.normal();
+            for c in 1..=4 {
+                let mut v = 12.0 + dev + 0.02 * rng.normal();
+                if c == 3 {
+                    v += 0.05;
+                }
+                csv.push_str(&format!(
+                    "2026-11-30T{:02}:{:02}:00Z,M{m},{},C{c},{v:.4}\n",
+                    8 + shot / 6,
+                    (shot % 6) * 10 + m,
+                    1000 + shot
+                ));
+            }
+        }
+    }
+    std::fs::write(dir.join("press.csv"), csv).unwrap();
+    std::fs::write(dir.join("plant.toml"), CONFIG).unwrap();
+}
+
+#[test]
+fn a_shot_column_goes_through_import_and_check() {
+    let dir = temp_dir("subgroup-e2e");
+    write_day(&dir);
+    samewise_ok(&dir, &["init"]);
+    samewise_ok(&dir, &["import", "press.csv"]);
+    // Exit status 3: something is flagged (the cavity).
+    let out = common::samewise(&dir, &["check", "--day", "2026-11-30", "--json"]);
+    assert_eq!(out.status.code(), Some(3), "{}", common::output_text(&out));
+    let json = String::from_utf8(out.stdout).unwrap();
+    let doc: serde_json::Value = serde_json::from_str(&json).unwrap();
+    let tests = doc["tests"].as_array().unwrap();
+    let test = |factor: &str| {
+        tests
+            .iter()
+            .find(|t| t["factor"] == factor)
+            .unwrap_or_else(|| panic!("{factor} in {json}"))
+    };
+    let machine = test("machine");
+    assert_eq!(machine["design"]["kind"], "nested");
+    assert_eq!(machine["design"]["n_subgroups"], 30);
+    assert!(machine["design"]["var_subgroups"].as_f64().unwrap() > 0.0);
+    assert_eq!(machine["groups"][0]["n"], 10, "ten shot means per machine");
+    assert!(machine["serial_dependence"]["p"].is_null());
+    assert!(machine["serial_dependence"]["p_reason"]
+        .as_str()
+        .unwrap()
+        .contains("used its subgroups"));
+    let cavity = test("cavity");
+    assert_eq!(cavity["design"]["kind"], "blocked");
+    assert_eq!(cavity["leading"]["method"], "blocked_f");
+    assert!(
+        cavity["state"].as_str().unwrap().starts_with("differs"),
+        "{cavity}"
+    );
+    assert_eq!(cavity["stands_out"]["level"], "C3");
+    assert!(cavity["pairs"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .all(|p| p["method"] == "tukey_kramer_adjusted"));
+    // The text summary names the designs.
+    let out = common::samewise(&dir, &["check", "--day", "2026-11-30", "--stored"]);
+    let text = String::from_utf8(out.stdout).unwrap();
+    assert!(
+        text.contains("blocked") && text.contains("nested"),
+        "{text}"
+    );
+}
