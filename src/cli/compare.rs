@@ -59,6 +59,12 @@ pub struct CompareArgs {
     /// (default then `;`).
     #[arg(long)]
     pub decimal_comma: bool,
+    /// Column naming the measurements taken together (shot, sample, batch): parts of one
+    /// subgroup share its deviation. A `--by` factor constant within every subgroup is tested on
+    /// the subgroup means (nested); one that varies within the subgroups with the subgroups as
+    /// blocks. Without it, the values are checked for serial dependence in file order.
+    #[arg(long, value_name = "COLUMN")]
+    pub subgroup: Option<String>,
 }
 
 /// How a compared file is written: its field delimiter and decimal separator.
@@ -123,6 +129,9 @@ pub struct GroupedData {
     pub max_places: i32,
     /// Number of data rows read.
     pub n_rows: u64,
+    /// With a subgroup column: per group, the subgroup number of each value (parallel to
+    /// `values`; subgroups numbered in first-seen order). Empty without one.
+    pub subgroups: Vec<Vec<u32>>,
 }
 
 fn ingest_error(path: &Path, line: Option<u64>, column: Option<&str>, reason: String) -> Error {
@@ -139,10 +148,11 @@ pub fn read_grouped(
     path: &Path,
     by: &str,
     measure: &str,
+    subgroup: Option<&str>,
     format: CsvFormat,
 ) -> Result<GroupedData> {
     let bytes = std::fs::read(path).map_err(|e| Error::io(path, e))?;
-    parse_grouped(path, &bytes, by, measure, format)
+    parse_grouped_with(path, &bytes, by, measure, subgroup, format)
 }
 
 /// Groups CSV bytes; `path` only names the input in errors.
@@ -151,6 +161,18 @@ pub fn parse_grouped(
     bytes: &[u8],
     by: &str,
     measure: &str,
+    format: CsvFormat,
+) -> Result<GroupedData> {
+    parse_grouped_with(path, bytes, by, measure, None, format)
+}
+
+/// [`parse_grouped`] with the subgroup column `subgroup` read too.
+pub fn parse_grouped_with(
+    path: &Path,
+    bytes: &[u8],
+    by: &str,
+    measure: &str,
+    subgroup: Option<&str>,
     format: CsvFormat,
 ) -> Result<GroupedData> {
     let body = bytes.strip_prefix(b"\xEF\xBB\xBF").unwrap_or(bytes);
@@ -223,6 +245,20 @@ pub fn parse_grouped(
             "--by and --measure name the same column".to_string(),
         ));
     }
+    let subgroup_idx = match subgroup {
+        None => None,
+        Some(name) => {
+            let i = find(name)?;
+            if i == by_idx || i == measure_idx {
+                return Err(Error::Usage(
+                    "--subgroup names the same column as --by or --measure".to_string(),
+                ));
+            }
+            Some(i)
+        }
+    };
+    let mut subgroup_ids: HashMap<String, u32> = HashMap::new();
+    let mut subgroups: Vec<Vec<u32>> = Vec::new();
     let width = header.len();
     let mut index: HashMap<String, usize> = HashMap::new();
     let mut names: Vec<String> = Vec::new();
@@ -288,9 +324,26 @@ pub fn parse_grouped(
                 index.insert(label.to_string(), names.len());
                 names.push(label.to_string());
                 values.push(Vec::new());
+                if subgroup_idx.is_some() {
+                    subgroups.push(Vec::new());
+                }
                 names.len() - 1
             }
         };
+        if let Some(i) = subgroup_idx {
+            let id = record[i].trim();
+            if id.is_empty() {
+                return Err(ingest_error(
+                    path,
+                    Some(line),
+                    subgroup,
+                    "subgroup cell is empty (every row needs its subgroup with --subgroup)".into(),
+                ));
+            }
+            let next = subgroup_ids.len() as u32;
+            let n = *subgroup_ids.entry(id.to_string()).or_insert(next);
+            subgroups[group].push(n);
+        }
         match origin {
             Some(o) => values[group].push(value.offset_from(&o)),
             None => {
@@ -318,6 +371,7 @@ pub fn parse_grouped(
         origin: origin.unwrap_or(Decimal::ZERO),
         max_places,
         n_rows,
+        subgroups,
     })
 }
 
@@ -334,7 +388,13 @@ fn parse_limit(flag: &str, text: &Option<String>, origin: &Decimal) -> Result<Op
 /// Runs `samewise compare`.
 pub fn run(args: &CompareArgs) -> Result<std::process::ExitCode> {
     let format = CsvFormat::from_flags(args.delimiter.as_deref(), args.decimal_comma)?;
-    let data = read_grouped(&args.file, &args.by, &args.measure, format)?;
+    let mut data = read_grouped(
+        &args.file,
+        &args.by,
+        &args.measure,
+        args.subgroup.as_deref(),
+        format,
+    )?;
     if data.names.len() < 2 {
         return Err(Error::NotEnoughData {
             characteristic: args.measure.clone(),
@@ -371,6 +431,7 @@ pub fn run(args: &CompareArgs) -> Result<std::process::ExitCode> {
         tolerance,
         ..OneWayOptions::default()
     };
+    let structure = sampling_structure(args, &mut data);
     let refs: Vec<&[f64]> = data.values.iter().map(Vec::as_slice).collect();
     let result = analyze(&refs, &options).map_err(|e| Error::NotEnoughData {
         characteristic: args.measure.clone(),
@@ -379,6 +440,7 @@ pub fn run(args: &CompareArgs) -> Result<std::process::ExitCode> {
     let mut out = std::io::stdout().lock();
     let written = if args.json {
         let mut value = to_json(args, &data, &result, &options);
+        value["design"] = structure.json;
         super::format::bound_tiny_p(&mut value);
         writeln!(
             out,
@@ -386,7 +448,10 @@ pub fn run(args: &CompareArgs) -> Result<std::process::ExitCode> {
             serde_json::to_string_pretty(&value).unwrap_or_default()
         )
     } else {
-        out.write_all(render_text(args, &data, &result, &options).as_bytes())
+        let text = render_text(args, &data, &result, &options);
+        // The sampling structure goes right after the first (heading) line.
+        let (head, rest) = text.split_once("\n\n").unwrap_or((&text, ""));
+        out.write_all(format!("{head}\n\n{}\n{rest}", structure.text).as_bytes())
     };
     match written.and_then(|_| out.flush()) {
         Ok(()) => Ok(std::process::ExitCode::from(super::EXIT_OK)),
@@ -396,6 +461,176 @@ pub fn run(args: &CompareArgs) -> Result<std::process::ExitCode> {
         }
         Err(e) => Err(Error::io("<stdout>", e)),
     }
+}
+
+/// The sampling structure of a comparison: the text paragraph and the JSON `design` object.
+struct Structure {
+    text: String,
+    json: Value,
+}
+
+/// Decides the design from the subgroup column (see `analysis::design`) and, for a nested or
+/// mixed design, replaces each group's values by its subgroup (cell) means; for a blocked design
+/// by the values adjusted for the subgroups. Without a subgroup column, checks the values for
+/// serial dependence in file order.
+fn sampling_structure(args: &CompareArgs, data: &mut GroupedData) -> Structure {
+    use crate::analysis::design::{arrange, DesignKind};
+    let confidence = 0.95;
+    if data.subgroups.is_empty() {
+        let refs: Vec<&[f64]> = data.values.iter().map(Vec::as_slice).collect();
+        return match crate::stats::serial::serial_dependence(&refs) {
+            Ok(c) => {
+                let alarm = c.p < 0.05;
+                let text = format!(
+                    "Sampling structure: every value a unit (no --subgroup). Serial dependence in file order within the groups: lag-1 serial correlation {:.3}, z = {:.2}, p = {}{}\n",
+                    c.r1,
+                    c.z,
+                    pval(c.p),
+                    if alarm {
+                        format!(
+                            "; neighbouring values are alike (design effect {:.1}), so the p-values below, which count every value as independent, are too small to trust: give the column of measurements taken together with --subgroup",
+                            crate::stats::serial::design_effect(&refs)
+                        )
+                    } else {
+                        "; no sign that neighbouring values are alike".into()
+                    }
+                );
+                Structure {
+                    text,
+                    json: json!({"kind": "independent", "subgroup_column": null,
+                        "subgroup_column_reason": "no --subgroup given",
+                        "serial_dependence": {"r1": json_number(c.r1), "z": json_number(c.z),
+                            "p": json_number(c.p), "fails": alarm}}),
+                }
+            }
+            Err(e) => Structure {
+                text: format!("Sampling structure: every value a unit (no --subgroup); serial dependence: {}\n", e.reason),
+                json: json!({"kind": "independent", "subgroup_column": null,
+                    "subgroup_column_reason": "no --subgroup given",
+                    "serial_dependence": null, "serial_dependence_reason": e.reason}),
+            },
+        };
+    }
+    let column = args.subgroup.clone().unwrap_or_default();
+    // Flat arrays for the arrangement: value, group, subgroup.
+    let mut values = Vec::new();
+    let mut group = Vec::new();
+    let mut subgroup = Vec::new();
+    for (g, (v, sg)) in data.values.iter().zip(&data.subgroups).enumerate() {
+        values.extend_from_slice(v);
+        group.extend(std::iter::repeat_n(g as u32, v.len()));
+        subgroup.extend_from_slice(sg);
+    }
+    let k = data.names.len();
+    let Ok(a) = arrange(&values, &subgroup, |row| Some(group[row])) else {
+        return Structure {
+            text: "Sampling structure: no subgroups found\n".into(),
+            json: json!({"kind": "independent", "subgroup_column": column}),
+        };
+    };
+    let mut json =
+        json!({"kind": a.kind.key(), "subgroup_column": column, "n_subgroups": a.n_subgroups});
+    let text = match a.kind {
+        DesignKind::Nested | DesignKind::CellMeans | DesignKind::Independent => {
+            let mut text = if a.kind == DesignKind::Nested {
+                format!(
+                    "Sampling structure: nested. \"{}\" is constant within each of the {} subgroups of \"{column}\", so the subgroup is the unit: the groups and tests below are on the subgroup means (ANOVA on subgroup means).\n",
+                    args.by, a.n_subgroups
+                )
+            } else {
+                format!(
+                    "Sampling structure: mixed ({}). The groups and tests below are on the mean of each group within each subgroup.\n",
+                    a.reason.as_deref().unwrap_or("neither nested nor crossed")
+                )
+            };
+            if a.kind == DesignKind::Nested {
+                match crate::stats::nested::nested_anova(&a.nested_groups(k), confidence) {
+                    Ok(n) => {
+                        if let Ok(t) = &n.levels_test {
+                            text.push_str(&format!(
+                                "Nested ANOVA: F = {} on {} and {} df, p = {} ({})\n",
+                                sig(t.f, 6),
+                                sig(t.df1, 4),
+                                sig(t.df2, 4),
+                                pval(t.p),
+                                t.method.name()
+                            ));
+                            json["nested_test"] = json!({"f": json_number(t.f), "df1": json_number(t.df1),
+                                "df2": json_number(t.df2), "p": json_number(t.p), "method": t.method.name()});
+                        }
+                        if let Ok(c) = &n.components {
+                            text.push_str(&format!(
+                                "Variance components: between groups {} ({:.1}%), between subgroups within a group {} ({:.1}%), within subgroups {} ({:.1}%)\n",
+                                sig(c.levels, 4),
+                                100.0 * c.share_levels,
+                                sig(c.subgroups, 4),
+                                100.0 * c.share_subgroups,
+                                sig(c.within, 4),
+                                100.0 * c.share_within
+                            ));
+                            json["variance_components"] = json!({
+                                "between": json_number(c.levels), "subgroups": json_number(c.subgroups),
+                                "within": json_number(c.within), "share_between": json_number(c.share_levels),
+                                "share_subgroups": json_number(c.share_subgroups),
+                                "share_within": json_number(c.share_within), "method": c.method});
+                        }
+                    }
+                    Err(e) => text.push_str(&format!("Nested ANOVA: {}\n", e.reason)),
+                }
+            }
+            data.values = a.cell_means(k);
+            text
+        }
+        DesignKind::Blocked => {
+            let (slots, blocks) = a.labels();
+            match crate::stats::intrablock::intrablock(&a.values, &slots, &blocks, k, a.n_subgroups)
+            {
+                Err(e) => format!(
+                    "Sampling structure: blocked, but {}; the values are tested as independent\n",
+                    e.reason
+                ),
+                Ok(fit) => {
+                    let mut text = format!(
+                        "Sampling structure: blocked. \"{}\" varies within the {} subgroups of \"{column}\", so each subgroup's deviation is taken out (additive two-way ANOVA, subgroups as blocks, Type II).\n",
+                        args.by, a.n_subgroups
+                    );
+                    match &fit.levels_test {
+                        Ok(t) => {
+                            text.push_str(&format!(
+                                "Blocked F (groups adjusted for the subgroups) = {} on {} and {} df, p = {}: this is the test of the groups; the one-way tables below describe the values adjusted for the subgroups.\n",
+                                sig(t.statistic, 6),
+                                t.df1.unwrap_or(f64::NAN),
+                                t.df2.unwrap_or(f64::NAN),
+                                pval(t.p)
+                            ));
+                            json["blocked_test"] = json!({"f": json_number(t.statistic),
+                                "df1": t.df1, "df2": t.df2, "p": json_number(t.p),
+                                "ss_groups": json_number(fit.ss_levels), "ss_subgroups": json_number(fit.ss_blocks),
+                                "ss_residual": json_number(fit.ss_resid)});
+                        }
+                        Err(e) => text.push_str(&format!("Blocked F: {}\n", e.reason)),
+                    }
+                    let pairs: Vec<Value> = crate::stats::intrablock::pairs(&fit, confidence)
+                        .into_iter()
+                        .flatten()
+                        .map(|p| json!({"a": data.names[p.a], "b": data.names[p.b], "diff": json_number(p.diff),
+                            "se": json_number(p.se), "statistic": json_number(p.statistic), "df": json_number(p.df),
+                            "p_adj": json_number(p.p_adj), "ci": {"low": json_number(p.ci_low), "high": json_number(p.ci_high)},
+                            "method": p.method.name()}))
+                        .collect();
+                    json["blocked_pairs"] = Value::Array(pairs);
+                    let mut adjusted = vec![Vec::new(); k];
+                    for (i, &slot) in slots.iter().enumerate() {
+                        adjusted[slot as usize]
+                            .push(fit.residuals[i] + fit.adjusted_means[slot as usize]);
+                    }
+                    data.values = adjusted;
+                    text
+                }
+            }
+        }
+    };
+    Structure { text, json }
 }
 
 // ---------------------------------------------------------------------------------------------
