@@ -194,3 +194,45 @@ fn a_shot_column_goes_through_import_and_check() {
         "{text}"
     );
 }
+
+#[test]
+fn investigate_compares_subgroup_means_when_subgroups_are_stored() {
+    // The invented press day: 10 shots from 08:00; before/after 08:30 per machine compares
+    // the shot means (3 of them before, 7 after per machine), not the 40 parts.
+    let dir = temp_dir("subgroup-investigate");
+    write_day(&dir);
+    samewise_ok(&dir, &["init"]);
+    samewise_ok(&dir, &["import", "press.csv"]);
+    let json = samewise_ok(
+        &dir,
+        &[
+            "investigate",
+            "weight",
+            "--by",
+            "machine",
+            "--at",
+            "2026-11-30T08:30:00Z",
+            "--json",
+        ],
+    );
+    let doc: serde_json::Value = serde_json::from_str(&json).unwrap();
+    assert!(
+        doc["units"]
+            .as_str()
+            .unwrap()
+            .starts_with("on 30 subgroup means"),
+        "{json}"
+    );
+    let text = samewise_ok(
+        &dir,
+        &[
+            "investigate",
+            "weight",
+            "--by",
+            "machine",
+            "--at",
+            "2026-11-30T08:30:00Z",
+        ],
+    );
+    assert!(text.contains("compared on 30 subgroup means"), "{text}");
+}

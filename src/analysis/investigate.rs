@@ -480,6 +480,8 @@ pub struct Investigation {
     pub event: Option<Event>,
     /// The results.
     pub outcome: Outcome,
+    /// What the unit of the comparison is when it is not the single value (subgroup means).
+    pub units: Option<String>,
 }
 
 /// Whether an event concerns a group: no characteristic or this one, and no scope on the factor
@@ -556,12 +558,28 @@ pub fn investigate(store: &Store, request: &Request) -> Result<Investigation> {
         ))
     })?;
     let levels = &frame.factors[f].levels;
+    // With subgroups (every value in one), the unit is the mean of each level within each
+    // subgroup, at the subgroup's first instant: parts of one shot share its deviation.
+    let (values, ts_ms, group_idx, units) = match subgroup_means(&cf, f) {
+        Some((v, t, g, n)) => {
+            let note = format!(
+                "on {n} subgroup means (the subgroup is the unit: parts measured together share its deviation)"
+            );
+            (v, t, g, Some(note))
+        }
+        None => (
+            cf.values.clone(),
+            cf.ts_ms.clone(),
+            cf.level_idx[f].clone(),
+            None,
+        ),
+    };
     let series = GroupedSeries {
         characteristic: &request.characteristic,
         factor: &request.factor,
-        values: &cf.values,
-        ts_ms: &cf.ts_ms,
-        group_idx: &cf.level_idx[f],
+        values: &values,
+        ts_ms: &ts_ms,
+        group_idx: &group_idx,
         groups: levels,
     };
     if cf.values.is_empty() {
@@ -614,7 +632,40 @@ pub fn investigate(store: &Store, request: &Request) -> Result<Investigation> {
         end,
         event,
         outcome,
+        units,
     })
+}
+
+/// The means of each level of factor `f` within each subgroup, at the subgroup's first instant,
+/// with their count; `None` when the frame has no subgroups or a value lacks one.
+#[allow(clippy::type_complexity)]
+fn subgroup_means(
+    cf: &crate::storage::CharacteristicFrame,
+    f: usize,
+) -> Option<(Vec<f64>, Vec<i64>, Vec<u32>, usize)> {
+    use crate::storage::NO_SUBGROUP;
+    if cf.subgroup_idx.is_empty() || cf.subgroup_idx.contains(&NO_SUBGROUP) {
+        return None;
+    }
+    let mut cell_of: std::collections::HashMap<(u32, u32), usize> = Default::default();
+    let mut sums: Vec<(f64, u32, i64, u32)> = Vec::new();
+    for (row, (&sg, &level)) in cf.subgroup_idx.iter().zip(&cf.level_idx[f]).enumerate() {
+        let cell = *cell_of.entry((sg, level)).or_insert_with(|| {
+            sums.push((0.0, 0, cf.ts_ms[row], level));
+            sums.len() - 1
+        });
+        let c = &mut sums[cell];
+        c.0 += cf.values[row];
+        c.1 += 1;
+        c.2 = c.2.min(cf.ts_ms[row]);
+    }
+    let n = sums.len();
+    Some((
+        sums.iter().map(|c| c.0 / c.1 as f64).collect(),
+        sums.iter().map(|c| c.2).collect(),
+        sums.iter().map(|c| c.3).collect(),
+        n,
+    ))
 }
 
 #[cfg(test)]

@@ -130,6 +130,7 @@ pub fn run(args: &InvestigateArgs, now: DateTime<Utc>) -> Result<ExitCode> {
         window_start_ms: found.start.timestamp_millis(),
         window_end_ms: found.end.timestamp_millis(),
         tz: config.plant.time_zone,
+        units: found.units.clone(),
     };
     let text = match &found.outcome {
         Outcome::BeforeAfter(c) => {
@@ -196,6 +197,8 @@ pub struct Context {
     pub window_end_ms: i64,
     /// The plant's time zone: every time is printed in it (JSON: RFC 3339 with its offset).
     pub tz: chrono_tz::Tz,
+    /// The unit of the comparison when it is not the single value (subgroup means).
+    pub units: Option<String>,
 }
 
 impl Context {
@@ -361,6 +364,13 @@ fn context_json(ctx: &Context, root: &mut Map<String, Value>) {
             .as_ref()
             .map_or(Value::Null, |(id, note)| json!({"id": id, "note": note})),
     );
+    root.insert(
+        "units".into(),
+        json!(ctx
+            .units
+            .as_deref()
+            .unwrap_or("values (no subgroups stored)")),
+    );
 }
 
 /// The JSON object of `investigate --json` with a change time.
@@ -411,6 +421,9 @@ fn header(ctx: &Context, o: &mut String) {
     ));
     if let Some((id, note)) = &ctx.event {
         o.push_str(&format!("event {id}: {note}\n"));
+    }
+    if let Some(units) = &ctx.units {
+        o.push_str(&format!("compared {units}\n"));
     }
 }
 
@@ -749,6 +762,7 @@ mod tests {
             window_start_ms: 0,
             window_end_ms: 24_000,
             tz: chrono_tz::UTC,
+            units: None,
         }
     }
 

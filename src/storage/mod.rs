@@ -33,7 +33,7 @@ pub use imports::{ImportRecord, UndoReport};
 pub use maintenance::{CharacteristicStatus, IntegrityReport, Status};
 pub use master::{StoredCharacteristic, StoredFactor, SyncReport};
 pub(crate) use query::closest;
-pub use query::{exact_value, CharacteristicFrame, FactorLevels, PeriodFrame};
+pub use query::{exact_value, CharacteristicFrame, FactorLevels, PeriodFrame, NO_SUBGROUP};
 
 use std::path::{Path, PathBuf};
 use std::time::Duration;
