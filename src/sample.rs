@@ -245,9 +245,17 @@ const SPECS: [Spec; 8] = [
     },
 ];
 
-/// Parts measured per machine per shift on the CMM and on the line gauges.
+/// Parts measured per machine per shift on the CMM and on the line gauges: the CMM takes two
+/// samples of two parts from one shot each, the line gauges four shots of three parts.
 const CMM_PARTS: usize = 4;
-const LINE_PARTS: usize = 6;
+const LINE_PARTS: usize = 12;
+/// Parts per CMM sample and per gauged line shot.
+const CMM_SAMPLE: usize = 2;
+const LINE_SHOT: usize = 3;
+/// Of each characteristic's SD, the share of the variance that is shot to shot (the parts of
+/// one shot share it) and the part-to-part rest: 0.36 and 0.64 (SDs 0.6 and 0.8 of the total).
+const SHOT_SD: f64 = 0.6;
+const PART_SD: f64 = 0.8;
 
 /// One generated part with its factor levels and local time.
 struct Part {
@@ -259,6 +267,10 @@ struct Part {
     operator: usize,
     cavity: usize,
     serial: u64,
+    /// The subgroup: the CMM sample number, or the line's shot counter of the machine.
+    subgroup: u64,
+    /// The shot's deviation per characteristic (standard normal, scaled by [`SHOT_SD`] x SD).
+    shot: [f64; 8],
 }
 
 fn value(rng: &mut Rng, spec: &Spec, part: &Part) -> f64 {
@@ -266,12 +278,14 @@ fn value(rng: &mut Rng, spec: &Spec, part: &Part) -> f64 {
     if spec.name == "wall_thickness" && part.shift == 2 {
         sd *= 1.8; // injected: night shift spread
     }
+    let shot = part.shot[SPECS.iter().position(|s| s.name == spec.name).unwrap_or(0)];
     let mut v = if spec.is_skewed {
-        // Lognormal with the given median and a spread of about sd.
+        // Lognormal with the given median and a spread of about sd; the shot shares its part
+        // of the log deviation.
         let sigma = (spec.sd / spec.target).min(0.6);
-        spec.target * (sigma * rng.normal()).exp()
+        spec.target * (sigma * (SHOT_SD * shot + PART_SD * rng.normal())).exp()
     } else {
-        spec.target + sd * rng.normal()
+        spec.target + sd * (SHOT_SD * shot + PART_SD * rng.normal())
     };
     if spec.name == "housing_mass" && part.supplier == 1 {
         v += 5.0; // injected: heavier castings from Castalloy
@@ -295,6 +309,8 @@ pub fn write_exports(dir: &Path) -> io::Result<Vec<PathBuf>> {
     let mut rng = Rng::new(RNG_STATE);
     let mut parts_by_month: Vec<(String, Vec<Part>, Vec<Part>)> = Vec::new();
     let mut serial = 100_000u64;
+    let mut cmm_sample = 0u64;
+    let mut shot_counter = [40_000u64; MACHINES.len()];
     for d in 0..N_DAYS {
         let day = first_day() + Duration::days(d);
         let month = day.format("%Y-%m").to_string();
@@ -308,25 +324,53 @@ pub fn write_exports(dir: &Path) -> io::Result<Vec<PathBuf>> {
             for machine in 0..MACHINES.len() {
                 // Three operators per shift, rotating weekly; each looks after two machines.
                 let operator = ((shift_idx + week) % 3) * 3 + machine / 2;
-                for (gauge_parts, is_cmm) in [(CMM_PARTS, true), (LINE_PARTS, false)] {
+                for (gauge_parts, per_shot, is_cmm) in [
+                    (CMM_PARTS, CMM_SAMPLE, true),
+                    (LINE_PARTS, LINE_SHOT, false),
+                ] {
+                    let mut shot = [0.0f64; 8];
+                    let mut supplier = 0;
+                    let mut local = day.and_time(NaiveTime::MIN);
+                    let mut first_cavity = 0;
                     for k in 0..gauge_parts {
-                        let minutes = (k as i64 * 480) / gauge_parts as i64
-                            + rng.below(50) as i64
-                            + machine as i64 * 7;
-                        let local = day
-                            .and_time(NaiveTime::from_hms_opt(start_hour, 0, 0).unwrap())
-                            + Duration::minutes(minutes)
-                            + Duration::seconds(rng.below(60) as i64);
+                        if k % per_shot == 0 {
+                            // A new shot (a CMM sample is taken from one shot): its time, its
+                            // alloy lot, its deviation; its parts come from different cavities.
+                            let minutes = ((k / per_shot) as i64 * 480)
+                                / (gauge_parts / per_shot) as i64
+                                + rng.below(50) as i64
+                                + machine as i64 * 7;
+                            local = day
+                                .and_time(NaiveTime::from_hms_opt(start_hour, 0, 0).unwrap())
+                                + Duration::minutes(minutes)
+                                + Duration::seconds(rng.below(60) as i64);
+                            supplier = supplier_of_day(&mut rng);
+                            for z in shot.iter_mut() {
+                                *z = rng.normal();
+                            }
+                            first_cavity = rng.below(CAVITIES.len());
+                            if is_cmm {
+                                cmm_sample += 1;
+                            } else {
+                                shot_counter[machine] += 1 + rng.below(40) as u64;
+                            }
+                        }
                         serial += 1;
                         let part = Part {
-                            local,
+                            local: local + Duration::seconds(20 * (k % per_shot) as i64),
                             day,
                             machine,
                             shift: shift_idx,
-                            supplier: supplier_of_day(&mut rng),
+                            supplier,
                             operator,
-                            cavity: rng.below(CAVITIES.len()),
+                            cavity: (first_cavity + k % per_shot) % CAVITIES.len(),
                             serial,
+                            subgroup: if is_cmm {
+                                cmm_sample
+                            } else {
+                                shot_counter[machine]
+                            },
+                            shot,
                         };
                         let month_entry = parts_by_month.last_mut().expect("pushed above");
                         if is_cmm {
@@ -343,8 +387,9 @@ pub fn write_exports(dir: &Path) -> io::Result<Vec<PathBuf>> {
     let mut paths = Vec::new();
     for (month_idx, (month, cmm_parts, line_parts)) in parts_by_month.iter().enumerate() {
         // Long CMM export with explicit UTC offsets.
-        let mut long =
-            String::from("timestamp,part,machine,cavity,supplier,operator,characteristic,value\n");
+        let mut long = String::from(
+            "timestamp,part,sample,machine,cavity,supplier,operator,characteristic,value\n",
+        );
         let mut line_no = 1usize;
         for part in cmm_parts {
             let ts = Berlin
@@ -367,9 +412,10 @@ pub fn write_exports(dir: &Path) -> io::Result<Vec<PathBuf>> {
                 }
                 let _ = writeln!(
                     long,
-                    "{},SN{},{},{},{},OP{:02},{},{}",
+                    "{},SN{},S{:05},{},{},{},OP{:02},{},{}",
                     ts.format("%Y-%m-%dT%H:%M:%S%:z"),
                     part.serial,
+                    part.subgroup,
                     MACHINES[part.machine],
                     CAVITIES[part.cavity],
                     SUPPLIERS[part.supplier],
@@ -386,7 +432,8 @@ pub fn write_exports(dir: &Path) -> io::Result<Vec<PathBuf>> {
         // Wide line export with local times (no zone), CRLF line ends and a BOM, as some
         // line systems write them.
         let line_specs: Vec<&Spec> = SPECS.iter().filter(|s| s.gauge == Gauge::Line).collect();
-        let mut wide = String::from("\u{feff}Time;Serial;Machine;Cavity;Alloy supplier;Operator");
+        let mut wide =
+            String::from("\u{feff}Time;Serial;Machine;Shot;Cavity;Alloy supplier;Operator");
         for spec in &line_specs {
             wide.push(';');
             wide.push_str(spec.column);
@@ -394,10 +441,11 @@ pub fn write_exports(dir: &Path) -> io::Result<Vec<PathBuf>> {
         wide.push_str("\r\n");
         for (i, part) in line_parts.iter().enumerate() {
             let mut row = format!(
-                "{};SN{};{};{};{};OP{:02}",
+                "{};SN{};{};{};{};{};OP{:02}",
                 part.local.format("%d.%m.%Y %H:%M:%S"),
                 part.serial,
                 MACHINES[part.machine],
+                part.subgroup,
                 CAVITIES[part.cavity],
                 SUPPLIERS[part.supplier],
                 part.operator + 1
