@@ -19,6 +19,7 @@ pub mod fdr;
 pub mod fstar;
 pub mod kruskal;
 pub mod materiality;
+pub mod nested;
 pub mod noncentral;
 pub mod normality;
 pub mod oneway;
