@@ -9,6 +9,7 @@
 //! reason, never a NaN and never a panic.
 
 pub mod anova;
+pub mod blocked;
 pub mod changepoint;
 pub mod constant_groups;
 pub mod decimal;
