@@ -30,7 +30,9 @@
 //!   `SS(levels | blocks) = sum (tau_i - tbar_j)^2` over the rows (= `tau' Q`),
 //!   `SS(blocks | levels) = sum (fitted - mean_level)^2` (the fit of the additive model less the
 //!   fit of the levels-only model: the symmetric reduction, equal to `RSS(levels) - RSS(full)`),
-//!   `SS_resid = sum residual^2`. Every sum adds non-negative terms, so nothing cancels;
+//!   `SS_resid = sum residual^2`. Every sum adds non-negative terms, so nothing cancels. A
+//!   residual sum below `1e-24` of the within-block sum of squares is rounding of an exactly
+//!   additive table and is set to zero (the tests are then unavailable, not infinite);
 //! - degrees of freedom: `k - c` for levels, `b - c` for blocks (`b` non-empty blocks),
 //!   `N - (k + b - c)` residual; F tests over the residual mean square, p from
 //!   [`super::distributions::f_sf`];
@@ -46,6 +48,11 @@
 //!   means", JASA 84, 208-213, on its conservativeness for correlated means). Exact for complete
 //!   balanced blocks, approximate (believed conservative) otherwise. A pair in two unconnected
 //!   sets is not estimable and is Unavailable.
+//!
+//! Measured by simulation (tests below): moulding days of 8 cavities with shot-to-shot SD twice
+//! the part-to-part SD and parts missing at random keep the 5 % size of the levels test; a +1 SD
+//! cavity offset over 20 shots is found on about 79 % of days, against under 1 % for the one-way
+//! test that ignores the shots.
 //!
 //! Cost: `O(N)` passes over the rows (plus a counting sort of row indices by block), `O(m_j^2)`
 //! per block for its `m_j` distinct levels, and `O(k^3)` for the factorisation.
@@ -239,6 +246,7 @@ pub fn blocked_anova(
     let mut touched: Vec<usize> = Vec::with_capacity(k);
     let mut parent: Vec<usize> = (0..k).collect();
     let mut b_present = 0u64;
+    let mut ss_centred = 0.0;
     for j in 0..n_blocks {
         let rows = &order[start[j] as usize..start[j + 1] as usize];
         if rows.is_empty() {
@@ -249,7 +257,9 @@ pub fn blocked_anova(
         for &row in rows {
             let row = row as usize;
             let i = level[row] as usize;
-            q[i] += values[row] - m;
+            let e = values[row] - m;
+            q[i] += e;
+            ss_centred += e * e;
             if count[i] == 0 {
                 touched.push(i);
             }
@@ -319,6 +329,11 @@ pub fn blocked_anova(
         ss_levels += adj * adj;
         let between = (block_mean[j] - level_mean[i]) + adj;
         ss_blocks += between * between;
+    }
+    // An exactly additive table leaves residuals of rounding size only (each about 1e-16 of its
+    // centred value): treat a residual sum below 1e-24 of the within-block sum as zero.
+    if ss_resid <= 1e-24 * ss_centred {
+        ss_resid = 0.0;
     }
     let rank_full = k_present as u64 + b_present - components as u64;
     let df_levels = rank_expected as f64;
@@ -915,9 +930,9 @@ mod tests {
             0.95,
         )
         .unwrap();
-        assert!(r.ss_resid < 1e-28);
-        // Not exactly zero in floating point is possible; either way, no NaN and no panic.
-        assert!(r.levels_test.is_err() || r.levels_test.unwrap().statistic > 1e20);
+        assert_eq!(r.ss_resid, 0.0);
+        assert!(r.levels_test.unwrap_err().reason.contains("zero"));
+        assert!(r.pairs[0].as_ref().unwrap_err().reason.contains("zero"));
         // Input errors name the row.
         let e = blocked_anova(&[1.0, 2.0], &[0, 2], &[0, 0], 2, 1, 0.95).unwrap_err();
         assert!(e.reason.contains("row 1"), "{e}");
