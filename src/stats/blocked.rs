@@ -804,7 +804,7 @@ mod tests {
                     7.0,
                 );
             }
-            // The direct sum of squares equals tau'Q, and the residuals sum to zero per block.
+            // The residuals of the additive fit sum to zero in every block.
             let mut sums = vec![0.0; x.b];
             for (e, &j) in r.residuals.iter().zip(&x.block) {
                 sums[j as usize] += e;

@@ -194,6 +194,27 @@ pub struct Nested {
 /// when no subgroup has two values (no within degrees of freedom); the components when any of the
 /// three degrees of freedom is zero or every value is the same.
 pub fn nested_anova(levels: &[Vec<&[f64]>], confidence: f64) -> Stat<Nested> {
+    let mut summaries = Vec::with_capacity(levels.len());
+    for (i, level) in levels.iter().enumerate() {
+        let mut subs = Vec::with_capacity(level.len());
+        for (j, values) in level.iter().enumerate() {
+            if let Some(v) = values.iter().find(|v| !v.is_finite()) {
+                return Err(Unavailable::new(format!(
+                    "level {i}, subgroup {j}: value {v} is not finite"
+                )));
+            }
+            subs.push(Summary::from_slice(values));
+        }
+        summaries.push(subs);
+    }
+    nested_from_summaries(&summaries, confidence)
+}
+
+/// [`nested_anova`] from subgroup summaries (`levels[i][j]` summarises subgroup `j` of level
+/// `i`: n, mean and M2), for callers that keep mergeable summaries rather than values. Empty
+/// summaries are skipped; a summary with a non-finite mean or a negative or non-finite M2 is an
+/// error naming it.
+pub fn nested_from_summaries(levels: &[Vec<Summary>], confidence: f64) -> Stat<Nested> {
     if !(confidence > 0.0 && confidence < 1.0) {
         return Err(Unavailable::new(format!(
             "confidence must lie strictly between 0 and 1 (got {confidence})"
@@ -214,21 +235,21 @@ pub fn nested_anova(levels: &[Vec<&[f64]>], confidence: f64) -> Stat<Nested> {
         let mut acc = Summary::new();
         let mut level_sq = 0.0;
         let mut count = 0usize;
-        for (j, values) in level.iter().enumerate() {
-            if values.is_empty() {
+        for (j, s) in level.iter().enumerate() {
+            if s.n == 0 {
                 continue;
             }
-            if let Some(v) = values.iter().find(|v| !v.is_finite()) {
+            if !(s.mean.is_finite() && s.m2.is_finite() && s.m2 >= 0.0) {
                 return Err(Unavailable::new(format!(
-                    "level {i}, subgroup {j}: value {v} is not finite"
+                    "level {i}, subgroup {j}: summary not finite (mean {}, M2 {})",
+                    s.mean, s.m2
                 )));
             }
-            let s = Summary::from_slice(values);
             ss_within += s.m2;
             // The subgroup enters the level as a point at its mean (M2 0): the level's M2 is
             // then the between-subgroup sum of squares within the level.
-            acc = acc.merge(&Summary { m2: 0.0, ..s });
-            let nij = values.len();
+            acc = acc.merge(&Summary { m2: 0.0, ..*s });
+            let nij = s.n as usize;
             level_sq += (nij as f64).powi(2);
             count += 1;
             match first_size {
@@ -1138,6 +1159,52 @@ mod tests {
             assert!(band.contains(&coverage), "design {x}: coverage {coverage}");
             assert!((0.026..=0.074).contains(&size), "design {x}: size {size}");
         }
+    }
+
+    // The summary entry point gives the same analysis as the values (furnace data, NIST
+    // case study 3.5.1), also when the subgroup summaries were merged from parts.
+    #[test]
+    fn summaries_give_the_same_analysis() {
+        let data = load_csv("furnace.csv", 3);
+        let by_values = run(&data);
+        let summaries: Vec<Vec<Summary>> = data
+            .iter()
+            .map(|l| {
+                l.iter()
+                    .map(|s| Summary::from_slice(&s[..1]).merge(&Summary::from_slice(&s[1..])))
+                    .collect()
+            })
+            .collect();
+        let by_summaries = nested_from_summaries(&summaries, 0.95).unwrap();
+        check("ss lev", by_summaries.ss_levels, by_values.ss_levels, 14.0);
+        check(
+            "ss sub",
+            by_summaries.ss_subgroups,
+            by_values.ss_subgroups,
+            14.0,
+        );
+        check(
+            "ss within",
+            by_summaries.ss_within,
+            by_values.ss_within,
+            14.0,
+        );
+        let (a, b) = (
+            by_summaries.levels_test.as_ref().unwrap(),
+            by_values.levels_test.as_ref().unwrap(),
+        );
+        check("F", a.f, b.f, 14.0);
+        let bad = vec![
+            vec![Summary {
+                m2: -1.0,
+                ..Summary::from_slice(&[1.0, 2.0])
+            }],
+            vec![Summary::from_slice(&[1.0, 2.0])],
+        ];
+        assert!(nested_from_summaries(&bad, 0.95)
+            .unwrap_err()
+            .reason
+            .contains("level 0, subgroup 0"));
     }
 
     /// A small deterministic generator for the simulation tests (64-bit LCG, Knuth's MMIX
