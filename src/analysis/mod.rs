@@ -52,7 +52,7 @@ use crate::stats::posthoc::{self, Pair};
 use crate::stats::power::sensitivity;
 use crate::stats::variance_components::one_way_random;
 use crate::stats::Stat;
-use crate::stats::{intrablock, nested, serial};
+use crate::stats::{blocked as block_design, nested, serial};
 use crate::storage::runs::{GroupRow, PairRow, RunContent, TestRow};
 use design::{DesignKind, NoStructure};
 
@@ -656,6 +656,7 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
     let mut design_kind = DesignKind::Independent;
     let mut n_subgroups = None;
     let mut units: Vec<Vec<f64>> = Vec::new();
+    let mut block_units: Vec<Vec<f64>>;
     let mut arranged = None;
     let mut nested_fit = None;
     match design::arrange(&c.values, &c.subgroup, |row| {
@@ -718,7 +719,14 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
     let mut blocked = None;
     if let Some(a) = arranged.as_ref().filter(|a| a.kind == DesignKind::Blocked) {
         let (slots, blocks) = a.labels();
-        match intrablock::intrablock(&a.values, &slots, &blocks, used.len(), a.n_subgroups) {
+        match block_design::blocked_anova(
+            &a.values,
+            &slots,
+            &blocks,
+            used.len(),
+            a.n_subgroups,
+            options.confidence,
+        ) {
             Err(e) => {
                 push_note(
                     &mut notes,
@@ -743,11 +751,26 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
                         }
                     ),
                 );
-                units = vec![Vec::new(); used.len()];
-                for (i, &slot) in slots.iter().enumerate() {
-                    units[slot as usize].push(fit.residuals[i] + fit.adjusted_means[slot as usize]);
+                for note in &fit.notes {
+                    push_note(&mut notes, &format!("blocked design: {note}"));
                 }
-                groups = units.iter().map(Vec::as_slice).collect();
+                // Each level's values adjusted for the subgroups: its least-squares mean plus
+                // the residuals (its raw mean where the design does not link every level).
+                block_units = vec![Vec::new(); used.len()];
+                for (i, &slot) in slots.iter().enumerate() {
+                    block_units[slot as usize].push(fit.residuals[i]);
+                }
+                for (slot, u) in block_units.iter_mut().enumerate() {
+                    let centre = Some(fit.adjusted_means[slot])
+                        .filter(|m| m.is_finite())
+                        .unwrap_or_else(|| {
+                            groups[slot].iter().sum::<f64>() / groups[slot].len() as f64
+                        });
+                    for v in u.iter_mut() {
+                        *v += centre;
+                    }
+                }
+                groups = block_units.iter().map(Vec::as_slice).collect();
                 blocked = Some(fit);
             }
         }
@@ -959,7 +982,25 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
                     row.var_subgroups = Some(((ms_blocks - fit.ms_resid) / n0).max(0.0));
                 }
             }
-            pairs_ready = Some(intrablock::pairs(fit, options.confidence));
+            pairs_ready = Some(
+                fit.pairs
+                    .iter()
+                    .map(|p| {
+                        p.clone().map(|p| Pair {
+                            a: p.a,
+                            b: p.b,
+                            diff: p.diff,
+                            se: p.se,
+                            statistic: p.statistic,
+                            df: p.df,
+                            p_adj: p.p_adj,
+                            ci_low: p.ci_low,
+                            ci_high: p.ci_high,
+                            method: posthoc::PairMethod::TukeyKramerAdjusted,
+                        })
+                    })
+                    .collect(),
+            );
         }
         let vc = bundle_vc.unwrap_or_else(|| one_way_random(&summaries, options.confidence));
         note_unavailable(&mut notes, "variance components", &vc);

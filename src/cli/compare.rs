@@ -583,8 +583,14 @@ fn sampling_structure(args: &CompareArgs, data: &mut GroupedData) -> Structure {
         }
         DesignKind::Blocked => {
             let (slots, blocks) = a.labels();
-            match crate::stats::intrablock::intrablock(&a.values, &slots, &blocks, k, a.n_subgroups)
-            {
+            match crate::stats::blocked::blocked_anova(
+                &a.values,
+                &slots,
+                &blocks,
+                k,
+                a.n_subgroups,
+                confidence,
+            ) {
                 Err(e) => format!(
                     "Sampling structure: blocked, but {}; the values are tested as independent\n",
                     e.reason
@@ -610,19 +616,30 @@ fn sampling_structure(args: &CompareArgs, data: &mut GroupedData) -> Structure {
                         }
                         Err(e) => text.push_str(&format!("Blocked F: {}\n", e.reason)),
                     }
-                    let pairs: Vec<Value> = crate::stats::intrablock::pairs(&fit, confidence)
-                        .into_iter()
+                    let pairs: Vec<Value> = fit
+                        .pairs
+                        .iter()
                         .flatten()
                         .map(|p| json!({"a": data.names[p.a], "b": data.names[p.b], "diff": json_number(p.diff),
                             "se": json_number(p.se), "statistic": json_number(p.statistic), "df": json_number(p.df),
                             "p_adj": json_number(p.p_adj), "ci": {"low": json_number(p.ci_low), "high": json_number(p.ci_high)},
-                            "method": p.method.name()}))
+                            "method": "tukey_kramer_adjusted"}))
                         .collect();
                     json["blocked_pairs"] = Value::Array(pairs);
+                    // Each group's values adjusted for the subgroups: its least-squares mean
+                    // plus the residuals (its raw mean where the design does not link it).
                     let mut adjusted = vec![Vec::new(); k];
                     for (i, &slot) in slots.iter().enumerate() {
-                        adjusted[slot as usize]
-                            .push(fit.residuals[i] + fit.adjusted_means[slot as usize]);
+                        adjusted[slot as usize].push(fit.residuals[i]);
+                    }
+                    for (slot, u) in adjusted.iter_mut().enumerate() {
+                        let raw = &data.values[slot];
+                        let centre = Some(fit.adjusted_means[slot])
+                            .filter(|m| m.is_finite())
+                            .unwrap_or_else(|| raw.iter().sum::<f64>() / raw.len() as f64);
+                        for v in u.iter_mut() {
+                            *v += centre;
+                        }
                     }
                     data.values = adjusted;
                     text

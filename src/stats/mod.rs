@@ -9,6 +9,7 @@
 //! reason, never a NaN and never a panic.
 
 pub mod anova;
+pub mod blocked;
 pub mod changepoint;
 pub mod constant_groups;
 pub mod decimal;
@@ -17,7 +18,6 @@ pub mod distributions;
 pub mod effect;
 pub mod fdr;
 pub mod fstar;
-pub mod intrablock;
 pub mod kruskal;
 pub mod materiality;
 pub mod nested;

@@ -52,6 +52,11 @@
 //!   exactly independent scaled chi-squares and the intervals are approximate (a note says so).
 //!   A lower end below zero is truncated at zero with a note.
 //!
+//! Measured by simulation (tests below, normal data): balanced designs cover 95 % for all three
+//! intervals and the exact F keeps its size; strongly unbalanced designs (subgroups of 4 beside
+//! subgroups of 1) cover about 93 % for the level interval and the Satterthwaite test rejects
+//! about 5.9 % of null runs at the 5 % level.
+//!
 //! p-values come from [`super::distributions::f_sf`], quantiles from
 //! [`super::distributions::chi_square_quantile`] and [`super::distributions::f_quantile`].
 
@@ -189,6 +194,27 @@ pub struct Nested {
 /// when no subgroup has two values (no within degrees of freedom); the components when any of the
 /// three degrees of freedom is zero or every value is the same.
 pub fn nested_anova(levels: &[Vec<&[f64]>], confidence: f64) -> Stat<Nested> {
+    let mut summaries = Vec::with_capacity(levels.len());
+    for (i, level) in levels.iter().enumerate() {
+        let mut subs = Vec::with_capacity(level.len());
+        for (j, values) in level.iter().enumerate() {
+            if let Some(v) = values.iter().find(|v| !v.is_finite()) {
+                return Err(Unavailable::new(format!(
+                    "level {i}, subgroup {j}: value {v} is not finite"
+                )));
+            }
+            subs.push(Summary::from_slice(values));
+        }
+        summaries.push(subs);
+    }
+    nested_from_summaries(&summaries, confidence)
+}
+
+/// [`nested_anova`] from subgroup summaries (`levels[i][j]` summarises subgroup `j` of level
+/// `i`: n, mean and M2), for callers that keep mergeable summaries rather than values. Empty
+/// summaries are skipped; a summary with a non-finite mean or a negative or non-finite M2 is an
+/// error naming it.
+pub fn nested_from_summaries(levels: &[Vec<Summary>], confidence: f64) -> Stat<Nested> {
     if !(confidence > 0.0 && confidence < 1.0) {
         return Err(Unavailable::new(format!(
             "confidence must lie strictly between 0 and 1 (got {confidence})"
@@ -209,21 +235,21 @@ pub fn nested_anova(levels: &[Vec<&[f64]>], confidence: f64) -> Stat<Nested> {
         let mut acc = Summary::new();
         let mut level_sq = 0.0;
         let mut count = 0usize;
-        for (j, values) in level.iter().enumerate() {
-            if values.is_empty() {
+        for (j, s) in level.iter().enumerate() {
+            if s.n == 0 {
                 continue;
             }
-            if let Some(v) = values.iter().find(|v| !v.is_finite()) {
+            if !(s.mean.is_finite() && s.m2.is_finite() && s.m2 >= 0.0) {
                 return Err(Unavailable::new(format!(
-                    "level {i}, subgroup {j}: value {v} is not finite"
+                    "level {i}, subgroup {j}: summary not finite (mean {}, M2 {})",
+                    s.mean, s.m2
                 )));
             }
-            let s = Summary::from_slice(values);
             ss_within += s.m2;
             // The subgroup enters the level as a point at its mean (M2 0): the level's M2 is
             // then the between-subgroup sum of squares within the level.
-            acc = acc.merge(&Summary { m2: 0.0, ..s });
-            let nij = values.len();
+            acc = acc.merge(&Summary { m2: 0.0, ..*s });
+            let nij = s.n as usize;
             level_sq += (nij as f64).powi(2);
             count += 1;
             match first_size {
@@ -1067,6 +1093,118 @@ mod tests {
         eprintln!("unbalanced null size {size}, naive {naive}");
         assert!((0.033..=0.067).contains(&size), "size {size}");
         assert!(naive > 0.5, "naive {naive}");
+    }
+
+    // The three-term MLS interval for the level component with unequal subgroup sizes, by
+    // simulation (s2_lev = s2_sub = s2 = 1, 2000 runs per design, fixed sizes): one design where
+    // the synthesised denominator subtracts MS_within (k2 < k1: two negative terms, the H* cross
+    // term) and one where it adds it (k2 > k1: two positive terms, the G* cross term). MLS is
+    // approximate for unbalanced data. Measured with 20,000 runs per arm: design 0 (subgroups of
+    // 4 beside subgroups of 1) covers 0.931 and its Satterthwaite test rejects 0.0585 of null
+    // runs; design 1 covers 0.95. Bands for 1000 runs per arm: the measured value +-3.5 binomial
+    // sd (design 0: 0.90..0.96; design 1: 0.93..0.975), size 0.026..0.074.
+    #[test]
+    fn simulated_unbalanced_level_interval() {
+        let designs: [&[&[usize]]; 2] = [
+            &[
+                &[4, 4, 4],
+                &[4, 4, 4],
+                &[4, 5, 4],
+                &[1, 1, 1],
+                &[1, 1, 2],
+                &[1, 1, 1],
+            ],
+            &[
+                &[3, 1, 5],
+                &[2, 2, 4],
+                &[1, 3, 3],
+                &[5, 2, 1],
+                &[4, 1, 2],
+                &[2, 5, 3],
+            ],
+        ];
+        let mut rng = Lcg(0xfeed_0000_1111_2222);
+        for (x, sizes) in designs.iter().enumerate() {
+            let reps = 2000;
+            let (mut cover, mut rejections) = (0u32, 0u32);
+            let mut c2_sign = 0.0;
+            for rep in 0..reps {
+                let with_levels = rep % 2 == 0;
+                let data: Vec<Vec<Vec<f64>>> = sizes
+                    .iter()
+                    .map(|subs| {
+                        let la = if with_levels { rng.normal() } else { 0.0 };
+                        subs.iter()
+                            .map(|&n| {
+                                let lb = la + rng.normal();
+                                (0..n).map(|_| lb + rng.normal()).collect()
+                            })
+                            .collect()
+                    })
+                    .collect();
+                let r = run(&data);
+                c2_sign = 1.0 - r.k2 / r.k1;
+                if with_levels {
+                    let ci = r.components.as_ref().unwrap().levels_ci.clone().unwrap();
+                    cover += (ci.low <= 1.0 && 1.0 <= ci.high) as u32;
+                } else {
+                    rejections += (r.levels_test.as_ref().unwrap().p < 0.05) as u32;
+                }
+            }
+            let coverage = cover as f64 / (reps / 2) as f64;
+            let size = rejections as f64 / (reps / 2) as f64;
+            eprintln!("design {x}: 1 - k2/k1 = {c2_sign:.3}, coverage {coverage}, size {size}");
+            assert_eq!(c2_sign > 0.0, x == 0);
+            let band = if x == 0 { 0.90..=0.96 } else { 0.93..=0.975 };
+            assert!(band.contains(&coverage), "design {x}: coverage {coverage}");
+            assert!((0.026..=0.074).contains(&size), "design {x}: size {size}");
+        }
+    }
+
+    // The summary entry point gives the same analysis as the values (furnace data, NIST
+    // case study 3.5.1), also when the subgroup summaries were merged from parts.
+    #[test]
+    fn summaries_give_the_same_analysis() {
+        let data = load_csv("furnace.csv", 3);
+        let by_values = run(&data);
+        let summaries: Vec<Vec<Summary>> = data
+            .iter()
+            .map(|l| {
+                l.iter()
+                    .map(|s| Summary::from_slice(&s[..1]).merge(&Summary::from_slice(&s[1..])))
+                    .collect()
+            })
+            .collect();
+        let by_summaries = nested_from_summaries(&summaries, 0.95).unwrap();
+        check("ss lev", by_summaries.ss_levels, by_values.ss_levels, 14.0);
+        check(
+            "ss sub",
+            by_summaries.ss_subgroups,
+            by_values.ss_subgroups,
+            14.0,
+        );
+        check(
+            "ss within",
+            by_summaries.ss_within,
+            by_values.ss_within,
+            14.0,
+        );
+        let (a, b) = (
+            by_summaries.levels_test.as_ref().unwrap(),
+            by_values.levels_test.as_ref().unwrap(),
+        );
+        check("F", a.f, b.f, 14.0);
+        let bad = vec![
+            vec![Summary {
+                m2: -1.0,
+                ..Summary::from_slice(&[1.0, 2.0])
+            }],
+            vec![Summary::from_slice(&[1.0, 2.0])],
+        ];
+        assert!(nested_from_summaries(&bad, 0.95)
+            .unwrap_err()
+            .reason
+            .contains("level 0, subgroup 0"));
     }
 
     /// A small deterministic generator for the simulation tests (64-bit LCG, Knuth's MMIX
