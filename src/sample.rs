@@ -321,7 +321,7 @@ pub fn write_exports(dir: &Path) -> io::Result<Vec<PathBuf>> {
         // The supplier mix changes by day, as lots are used up.
         let supplier_of_day = |rng: &mut Rng| rng.below(SUPPLIERS.len());
         for (shift_idx, &(_, start_hour)) in SHIFTS.iter().enumerate() {
-            for machine in 0..MACHINES.len() {
+            for (machine, counter) in shot_counter.iter_mut().enumerate() {
                 // Three operators per shift, rotating weekly; each looks after two machines.
                 let operator = ((shift_idx + week) % 3) * 3 + machine / 2;
                 for (gauge_parts, per_shot, is_cmm) in [
@@ -352,7 +352,7 @@ pub fn write_exports(dir: &Path) -> io::Result<Vec<PathBuf>> {
                             if is_cmm {
                                 cmm_sample += 1;
                             } else {
-                                shot_counter[machine] += 1 + rng.below(40) as u64;
+                                *counter += 1 + rng.below(40) as u64;
                             }
                         }
                         serial += 1;
@@ -368,7 +368,7 @@ pub fn write_exports(dir: &Path) -> io::Result<Vec<PathBuf>> {
                             subgroup: if is_cmm {
                                 cmm_sample
                             } else {
-                                shot_counter[machine]
+                                *counter
                             },
                             shot,
                         };
