@@ -523,8 +523,8 @@ mod tests {
             let counts = stream.counts();
             assert_eq!(counts.accepted + counts.rejected, counts.measurements_read);
         }
-        // 90 days x 3 shifts x 6 machines x (4 CMM parts x 4 + 6 line parts x 4) measurements.
-        assert_eq!(accepted + rejected, 90 * 3 * 6 * (4 * 4 + 6 * 4));
+        // 90 days x 3 shifts x 6 machines x (4 CMM parts x 4 + 12 line parts x 4) measurements.
+        assert_eq!(accepted + rejected, 90 * 3 * 6 * (4 * 4 + 12 * 4));
         assert!(reasons.len() >= 8, "planted bad rows: {reasons:?}");
         assert!(reasons.len() < 200, "too many rejections: {reasons:?}");
         let _ = fs::remove_dir_all(base);
