@@ -365,11 +365,7 @@ pub fn write_exports(dir: &Path) -> io::Result<Vec<PathBuf>> {
                             operator,
                             cavity: (first_cavity + k % per_shot) % CAVITIES.len(),
                             serial,
-                            subgroup: if is_cmm {
-                                cmm_sample
-                            } else {
-                                *counter
-                            },
+                            subgroup: if is_cmm { cmm_sample } else { *counter },
                             shot,
                         };
                         let month_entry = parts_by_month.last_mut().expect("pushed above");

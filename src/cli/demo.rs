@@ -433,6 +433,19 @@ pub fn run(args: &DemoArgs) -> Result<ExitCode> {
     for s in &skipped {
         println!("   chart not drawn: {s}");
     }
+    let without = without_subgroups(&args.dir, &exports, &store)?;
+    println!(
+        "\n7. The same exports read as if they had no shot columns (plant-no-subgroups.toml, the last {} days): \
+         the values look independent to the check, but the dependence check finds neighbouring parts alike in {} of {} tests; \
+         {} tests would have flagged and do not hold once that is allowed for (\"differs? not independent\": name the subgroup column), \
+         {} still flag. With the shots as subgroups the same days have {} flags.",
+        without.days,
+        without.serial_fired,
+        without.tests,
+        without.dependent,
+        without.flags,
+        without.flags_with_subgroups
+    );
     println!(
         "\nTry next (in {}):\n  samewise check --day 2026-11-29 --config plant.toml\n  \
          samewise findings --all --config plant.toml\n  \
@@ -448,4 +461,87 @@ pub fn run(args: &DemoArgs) -> Result<ExitCode> {
         crate::CAUTION
     );
     Ok(ExitCode::from(super::EXIT_OK))
+}
+
+/// What the last days of the sample plant give when its exports are read without the subgroup
+/// columns (step 7 of the demo).
+struct WithoutSubgroups {
+    days: usize,
+    tests: usize,
+    serial_fired: usize,
+    dependent: usize,
+    flags: usize,
+    flags_with_subgroups: usize,
+}
+
+/// Imports the exports again under a configuration without the `subgroup` lines (a database of
+/// its own) and checks the last 14 days there, without storing runs; counts beside the stored
+/// daily runs of the same days.
+fn without_subgroups(dir: &Path, exports: &[PathBuf], store: &Store) -> Result<WithoutSubgroups> {
+    let text: String = SAMPLE_CONFIG
+        .lines()
+        .filter(|l| !l.starts_with("subgroup ="))
+        .map(|l| {
+            if l.starts_with("database =") {
+                "database = \"plant-no-subgroups.db\"".to_string()
+            } else {
+                l.to_string()
+            }
+        })
+        .collect::<Vec<_>>()
+        .join("\n");
+    let path = dir.join("plant-no-subgroups.toml");
+    fs::write(&path, text).map_err(|e| Error::io(&path, e))?;
+    let bare = Config::load(&path)?;
+    for suffix in ["", "-wal", "-shm"] {
+        let mut name = bare.plant.database.clone().into_os_string();
+        name.push(suffix);
+        let p = PathBuf::from(name);
+        if p.exists() {
+            fs::remove_file(&p).map_err(|e| Error::io(&p, e))?;
+        }
+    }
+    let mut bare_store = Store::create(&bare.plant.database, &bare)?;
+    for export in exports {
+        let stream = ingest::read_file(export, &bare, None)?;
+        bare_store.import(
+            stream,
+            &ImportOptions {
+                force: false,
+                started_at: Utc::now(),
+            },
+        )?;
+    }
+    let calendar = PlantCalendar::new(&bare);
+    let options = crate::analysis::CheckOptions::from_config(&bare);
+    let days = 14;
+    let last = sample::first_day() + chrono::Duration::days(sample::N_DAYS - 1);
+    let mut out = WithoutSubgroups {
+        days,
+        tests: 0,
+        serial_fired: 0,
+        dependent: 0,
+        flags: 0,
+        flags_with_subgroups: 0,
+    };
+    for d in 0..days as i64 {
+        let period = calendar.day(last - chrono::Duration::days(d));
+        let frame = bare_store.load_period(period.start, period.end, None)?;
+        let content =
+            crate::analysis::check_frame(&crate::analysis::run::frame_from(frame), &options, None)?;
+        for t in &content.tests {
+            out.tests += 1;
+            out.serial_fired += usize::from(t.serial_p.is_some_and(|p| p < options.alpha));
+            out.dependent += usize::from(t.state == crate::analysis::state::DIFFERS_DEPENDENT);
+            out.flags += usize::from(runs::is_flag_state(&t.state));
+        }
+        if let Some(run) = runs::latest_complete_run(store.connection(), "day", &period.label)? {
+            out.flags_with_subgroups += runs::run_content(store.connection(), run.run_id)?
+                .tests
+                .iter()
+                .filter(|t| runs::is_flag_state(&t.state))
+                .count();
+        }
+    }
+    Ok(out)
 }
