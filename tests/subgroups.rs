@@ -236,3 +236,62 @@ fn investigate_compares_subgroup_means_when_subgroups_are_stored() {
     );
     assert!(text.contains("compared on 30 subgroup means"), "{text}");
 }
+
+#[test]
+fn a_subgroup_window_derives_subgroups_and_bad_settings_are_named() {
+    // The same press day exported without a shot column: shots are derived as the values of
+    // one machine within a 10-minute clock window (the invented shots are 10 minutes apart
+    // per machine and never cross a window boundary).
+    let dir = temp_dir("subgroup-window");
+    write_day(&dir);
+    let csv = std::fs::read_to_string(dir.join("press.csv")).unwrap();
+    let without: String = csv
+        .lines()
+        .map(|l| {
+            let f: Vec<&str> = l.split(',').collect();
+            format!("{},{},{},{}\n", f[0], f[1], f[3], f[4])
+        })
+        .collect();
+    std::fs::write(dir.join("press.csv"), without).unwrap();
+    let config = CONFIG.replace(
+        "subgroup = [\"Machine\", \"Shot\"]",
+        "subgroup_window = \"10m\"\nsubgroup_by = [\"machine\"]",
+    );
+    std::fs::write(dir.join("plant.toml"), &config).unwrap();
+    samewise_ok(&dir, &["init"]);
+    samewise_ok(&dir, &["import", "press.csv"]);
+    let out = common::samewise(&dir, &["check", "--day", "2026-11-30", "--json"]);
+    let doc: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    let machine = doc["tests"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|t| t["factor"] == "machine")
+        .unwrap();
+    assert_eq!(machine["design"]["kind"], "nested", "{machine}");
+    assert_eq!(machine["design"]["n_subgroups"], 30);
+
+    // Configuration errors name the key and what to write.
+    for (bad, expect) in [
+        ("subgroup_window = \"7m\"", "must divide a day evenly"),
+        (
+            "subgroup_window = \"10m\"\nsubgroup_by = [\"press\"]",
+            "\"press\" is not a configured factor",
+        ),
+        ("subgroup = []", "an empty list"),
+    ] {
+        let text = CONFIG.replace("subgroup = [\"Machine\", \"Shot\"]", bad);
+        std::fs::write(dir.join("plant.toml"), &text).unwrap();
+        let out = common::samewise(&dir, &["status"]);
+        assert!(!out.status.success());
+        let err = common::output_text(&out);
+        assert!(err.contains(expect), "{bad}: {err}");
+    }
+    let both = CONFIG.replace(
+        "subgroup = [\"Machine\", \"Shot\"]",
+        "subgroup = \"Shot\"\nsubgroup_window = \"10m\"",
+    );
+    std::fs::write(dir.join("plant.toml"), &both).unwrap();
+    let err = common::output_text(&common::samewise(&dir, &["status"]));
+    assert!(err.contains("give one"), "{err}");
+}

@@ -731,6 +731,7 @@ fn leading_name(t: &TestRow) -> String {
         Some("welch") => "Welch".to_string(),
         Some("f_star") => "Brown-Forsythe F*".to_string(),
         Some("exact_permutation") => "exact permutation".to_string(),
+        Some(crate::analysis::BLOCKED_F) => "F with subgroups as blocks".to_string(),
         Some(_) => "classic F".to_string(),
         None => "none".to_string(),
     }
@@ -972,6 +973,24 @@ pub fn month_report(
 /// Requirement-check notes of one test: the engine's notes plus what the stored checks say.
 fn requirement_texts(t: &TestRow) -> Vec<String> {
     let mut out = Vec::new();
+    match (t.design.as_deref(), t.n_subgroups) {
+        (Some("nested"), Some(n)) => out.push(format!(
+            "nested design: tested on the means of its {n} subgroups (parts measured together share their subgroup's deviation)"
+        )),
+        (Some("blocked"), Some(n)) => out.push(format!(
+            "blocked design: the groups vary within the {n} subgroups, which are taken out as blocks"
+        )),
+        (Some("cell_means"), Some(n)) => out.push(format!(
+            "mixed design: tested on the mean of each group within each of the {n} subgroups"
+        )),
+        _ => {}
+    }
+    if t.state == crate::analysis::state::DIFFERS_DEPENDENT {
+        out.push(
+            "values not independent: the difference does not hold once the serial dependence is allowed for; name the subgroup column"
+                .to_string(),
+        );
+    }
     if let Some(reason) = &t.leading_reason {
         match t.leading_method.as_deref() {
             Some("welch") => out.push(format!("Welch used: {reason}")),

@@ -188,6 +188,17 @@ fn point_json(config: &crate::config::Config, p: &runs::HistoryPoint) -> serde_j
     num("q", t.q_value);
     num("share_between", t.share_between);
     num("within_sd", t.resid_sd);
+    m.insert(
+        "design".into(),
+        json!(t.design.as_deref().unwrap_or("independent")),
+    );
+    m.insert("n_subgroups".into(), json!(t.n_subgroups));
+    if t.n_subgroups.is_none() {
+        m.insert(
+            "n_subgroups_reason".into(),
+            json!("no subgroups: the values were tested as independent"),
+        );
+    }
     m.insert("leading_method".into(), json!(t.leading_method));
     if t.leading_method.is_none() {
         m.insert("leading_method_reason".into(), json!(why));
@@ -229,6 +240,8 @@ fn write_csv(path: &std::path::Path, rows: &[serde_json::Value]) -> Result<()> {
         "state",
         "n_obs",
         "n_groups",
+        "design",
+        "n_subgroups",
         "leading_method",
         "statistic",
         "p",
