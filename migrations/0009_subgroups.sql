@@ -18,3 +18,18 @@ ALTER TABLE run_result ADD COLUMN share_subgroups REAL;
 ALTER TABLE run_result ADD COLUMN serial_r1 REAL;
 ALTER TABLE run_result ADD COLUMN serial_z REAL;
 ALTER TABLE run_result ADD COLUMN serial_p REAL;
+
+-- latest_results (0007) gains the design, the subgroup count and the serial-dependence check.
+DROP VIEW latest_results;
+CREATE VIEW latest_results AS
+SELECT l.run_id, l.period_kind, l.period_label, l.period_start_utc, l.period_end_utc,
+       l.version, t.characteristic, t.factor, t.state,
+       t.state IN ('differs', 'differs_material') AS is_flagged,
+       t.n_obs, t.n_groups_used, t.leading_method, t.leading_statistic, t.leading_p, t.q_value,
+       t.share_between, t.resid_sd AS within_sd, t.tolerance,
+       t.standout_level, t.standout_diff, t.standout_sd_units, t.standout_pct_tolerance,
+       c.unit, c.lsl, c.usl, c.target,
+       t.design, t.n_subgroups, t.share_subgroups, t.serial_r1, t.serial_p
+FROM latest_runs l
+JOIN run_result t ON t.run_id = l.run_id
+LEFT JOIN characteristics c ON c.name = t.characteristic;

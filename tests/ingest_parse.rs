@@ -616,7 +616,7 @@ fn sample_plant_config_and_exports() {
             "line-2026-09.csv",
             502,
             None,
-            "row has 9 fields, the header has 10",
+            "row has 10 fields, the header has 11",
             4,
         ),
         ("cmm-2026-10.csv", 911, Some("value"), "empty cell", 1),
@@ -656,7 +656,7 @@ fn sample_plant_config_and_exports() {
         .collect();
     assert_eq!(extra.len(), 1);
     assert_eq!(extra[0].measurements, 4);
-    assert!(extra[0].reason.contains("row has 11 fields"));
+    assert!(extra[0].reason.contains("row has 12 fields"));
     n_planted += 4;
     // Everything else: local times in the repeated hour of 25 October 2026 (IANA tz database:
     // Europe/Berlin 03:00 CEST -> 02:00 CET), one rejection per characteristic of the part.

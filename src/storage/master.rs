@@ -235,7 +235,7 @@ impl Store {
 /// id, and one column per configured factor holding its level. Column names are the factor
 /// names, quoted (a factor named like a fixed column gets a `factor_` prefix).
 pub(crate) fn create_measurement_view(tx: &Connection) -> Result<()> {
-    const FIXED: [&str; 9] = [
+    const FIXED: [&str; 10] = [
         "ts_utc",
         "ts_ms",
         "characteristic",
@@ -244,6 +244,7 @@ pub(crate) fn create_measurement_view(tx: &Connection) -> Result<()> {
         "import_id",
         "line",
         "part",
+        "subgroup",
         "level_set_id",
     ];
     let factors: Vec<(i64, String)> = tx
@@ -270,7 +271,7 @@ pub(crate) fn create_measurement_view(tx: &Connection) -> Result<()> {
          SELECT strftime('%Y-%m-%dT%H:%M:%fZ', m.ts_ms / 1000.0, 'unixepoch') AS ts_utc,
                 m.ts_ms, c.name AS characteristic, c.unit,
                 CAST(c.origin AS REAL) + m.value AS value,
-                m.import_id, m.line, m.part, m.level_set_id{columns}
+                m.import_id, m.line, m.part, m.subgroup, m.level_set_id{columns}
          FROM measurements m JOIN characteristics c ON c.id = m.characteristic_id;"
     ))?;
     Ok(())
