@@ -170,6 +170,26 @@ fn removed_events_leave_lists_and_investigations_but_stay_in_the_log() {
     let all = samewise_ok(&dir, &["event", "list", "--all"]);
     assert_eq!(all.lines().count(), 2, "{all}");
     assert!(all.lines().next().unwrap().contains("(removed "), "{all}");
+    // The same lists as JSON: times with the plant's offset, a reason beside each null.
+    let json: serde_json::Value =
+        serde_json::from_str(&samewise_ok(&dir, &["event", "list", "--all", "--json"])).unwrap();
+    let events = json["events"].as_array().unwrap();
+    assert_eq!(events.len(), 2, "{json}");
+    // RFC 3339 with the plant's offset (the test plant keeps UTC).
+    assert!(
+        events[0]["removed"].as_str().unwrap().ends_with("+00:00"),
+        "{json}"
+    );
+    assert_eq!(events[0]["scope"][0]["factor"], "machine");
+    assert_eq!(events[1]["removed"], serde_json::Value::Null);
+    assert_eq!(events[1]["removed_reason"], "not removed");
+    assert_eq!(
+        events[1]["characteristic_reason"],
+        "the event concerns every characteristic"
+    );
+    let json: serde_json::Value =
+        serde_json::from_str(&samewise_ok(&dir, &["event", "list", "--json"])).unwrap();
+    assert_eq!(json["events"].as_array().unwrap().len(), 1, "{json}");
     let history = samewise_ok(&dir, &["event", "history"]);
     assert!(
         history.contains("#1 ") && history.contains("removed (at=2026-11-29T"),

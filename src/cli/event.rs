@@ -48,6 +48,9 @@ pub enum EventAction {
         /// Also list removed events (marked "removed").
         #[arg(long)]
         all: bool,
+        /// Print one JSON object (docs/json.md) instead of the list.
+        #[arg(long)]
+        json: bool,
     },
     /// Correct a recorded event: each option given replaces that field (the change is recorded).
     Edit {
@@ -173,12 +176,39 @@ pub fn run(args: &EventArgs) -> Result<ExitCode> {
                 at.with_timezone(&tz).format("%Y-%m-%d %H:%M:%S %Z")
             );
         }
-        EventAction::List { all } => {
+        EventAction::List { all, json } => {
             let events = if *all {
                 store.events_including_removed()?
             } else {
                 store.events(None, None)?
             };
+            if *json {
+                let time = |t: &chrono::DateTime<chrono::Utc>| t.with_timezone(&tz).to_rfc3339();
+                let list: Vec<serde_json::Value> = events
+                    .iter()
+                    .map(|e| {
+                        let mut v = serde_json::json!({
+                            "id": e.id,
+                            "at": time(&e.at),
+                            "note": e.note,
+                            "characteristic": e.characteristic,
+                            "scope": e.scope.iter().map(|(f, l)| serde_json::json!({"factor": f, "level": l})).collect::<Vec<_>>(),
+                            "recorded": time(&e.created),
+                            "removed": e.removed.as_ref().map(time),
+                        });
+                        if e.characteristic.is_none() {
+                            v["characteristic_reason"] = "the event concerns every characteristic".into();
+                        }
+                        if e.removed.is_none() {
+                            v["removed_reason"] = "not removed".into();
+                        }
+                        v
+                    })
+                    .collect();
+                let doc = serde_json::json!({"events": list, "include_removed": all});
+                println!("{}", serde_json::to_string_pretty(&doc).unwrap_or_default());
+                return Ok(ExitCode::from(super::EXIT_OK));
+            }
             if events.is_empty() {
                 println!("no events (record one with `samewise event add`)");
             }
