@@ -37,9 +37,6 @@ pub struct ChartArgs {
     /// Which chart.
     #[arg(value_enum)]
     pub kind: ChartKind,
-    /// Plant configuration (default: $SAMEWISE_CONFIG, then ./plant.toml).
-    #[arg(long)]
-    pub config: Option<PathBuf>,
     /// The characteristic (trend, share, detail, before-after).
     #[arg(long)]
     pub characteristic: Option<String>,
@@ -218,7 +215,7 @@ fn no_runs(kind: &str, p: &Period) -> Error {
 
 /// Runs `samewise chart`.
 pub fn run(args: &ChartArgs) -> Result<ExitCode> {
-    let config = super::common::load_config(args.config.as_deref())?;
+    let config = super::common::load_config(super::common::config_flag())?;
     let protected = crate::output::Protected::plant(&config.plant.database, &config.path);
     crate::output::refuse_protected(&args.out, "--out", &protected)?;
     let store = super::common::open_store(&config)?;

@@ -24,9 +24,6 @@ use crate::{Error, Result};
 /// Flags of `samewise check`.
 #[derive(Debug, Args)]
 pub struct CheckArgs {
-    /// Plant configuration (default: $SAMEWISE_CONFIG, then ./plant.toml).
-    #[arg(long)]
-    pub config: Option<PathBuf>,
     /// A production day, e.g. 2026-11-30.
     #[arg(long, group = "period")]
     pub day: Option<String>,
@@ -89,7 +86,7 @@ pub fn period_from_flags(args: &CheckArgs, calendar: &PlantCalendar) -> Result<P
 
 /// Runs `samewise check`.
 pub fn run(args: &CheckArgs) -> Result<ExitCode> {
-    let config = super::common::load_config(args.config.as_deref())?;
+    let config = super::common::load_config(super::common::config_flag())?;
     if let Some(path) = &args.csv {
         let protected = Protected::plant(&config.plant.database, &config.path);
         refuse_protected(path, "--csv", &protected)?;

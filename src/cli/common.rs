@@ -13,6 +13,19 @@ use crate::{Error, Result};
 /// The environment variable naming the configuration file.
 pub const CONFIG_ENV: &str = "SAMEWISE_CONFIG";
 
+/// The global `--config FILE` of this invocation (set once by `cli::run`).
+static CONFIG_FLAG: std::sync::OnceLock<Option<PathBuf>> = std::sync::OnceLock::new();
+
+/// Records the global `--config` flag (the first call wins; `cli::run` makes it once).
+pub fn set_config_flag(path: Option<PathBuf>) {
+    let _ = CONFIG_FLAG.set(path);
+}
+
+/// The global `--config` flag, when one was given.
+pub fn config_flag() -> Option<&'static Path> {
+    CONFIG_FLAG.get().and_then(|p| p.as_deref())
+}
+
 /// Where the configuration file is: `--config`, then `$SAMEWISE_CONFIG`, then `./plant.toml`.
 pub fn config_path(flag: Option<&Path>) -> Result<PathBuf> {
     if let Some(path) = flag {

@@ -13,9 +13,6 @@ use super::common::{load_config, open_store};
 /// Arguments of `samewise db`.
 #[derive(Debug, Args)]
 pub struct DbArgs {
-    /// The plant configuration (default: $SAMEWISE_CONFIG, then ./plant.toml).
-    #[arg(long, value_name = "FILE", global = true)]
-    pub config: Option<PathBuf>,
     /// What to do.
     #[command(subcommand)]
     pub action: DbAction,
@@ -40,7 +37,7 @@ pub enum DbAction {
 
 /// Runs `samewise db`.
 pub fn run(args: &DbArgs) -> Result<ExitCode> {
-    let config = load_config(args.config.as_deref())?;
+    let config = load_config(super::common::config_flag())?;
     let store = open_store(&config)?;
     match &args.action {
         DbAction::Check { json } => {

@@ -3,7 +3,6 @@
 //! `samewise event history [N]`: process changes that mark charts and anchor investigations, and
 //! the record of every correction made to them.
 
-use std::path::PathBuf;
 use std::process::ExitCode;
 
 use clap::{Args, Subcommand};
@@ -17,9 +16,6 @@ use super::common::{load_config, open_store};
 /// Arguments of `samewise event`.
 #[derive(Debug, Args)]
 pub struct EventArgs {
-    /// The plant configuration (default: $SAMEWISE_CONFIG, then ./plant.toml).
-    #[arg(long, value_name = "FILE", global = true)]
-    pub config: Option<PathBuf>,
     /// What to do.
     #[command(subcommand)]
     pub action: EventAction,
@@ -149,7 +145,7 @@ fn print_event(e: &Event, tz: chrono_tz::Tz) {
 
 /// Runs `samewise event`.
 pub fn run(args: &EventArgs) -> Result<ExitCode> {
-    let config = load_config(args.config.as_deref())?;
+    let config = load_config(super::common::config_flag())?;
     let mut store = open_store(&config)?;
     let tz = config.plant.time_zone;
     match &args.action {

@@ -27,9 +27,6 @@ pub struct FindingsArgs {
     /// `note N TEXT` adds a note to finding N instead of listing.
     #[command(subcommand)]
     pub action: Option<FindingsAction>,
-    /// The plant configuration (default: $SAMEWISE_CONFIG, then ./plant.toml).
-    #[arg(long, value_name = "FILE", global = true)]
-    pub config: Option<PathBuf>,
     /// Every finding: on watch (flagged once) and closed ones too (default: open ones).
     #[arg(long)]
     pub all: bool,
@@ -63,7 +60,7 @@ pub enum FindingsAction {
 
 /// Runs `samewise findings`.
 pub fn run(args: &FindingsArgs, now: DateTime<Utc>) -> Result<ExitCode> {
-    let config = load_config(args.config.as_deref())?;
+    let config = load_config(super::common::config_flag())?;
     if let Some(FindingsAction::Note { id, text }) = &args.action {
         if text.trim().is_empty() || text.chars().any(|c| c.is_control() && c != '\t') {
             return Err(Error::Usage(

@@ -15,9 +15,6 @@ use crate::{Error, Result};
 /// Flags of `samewise history`.
 #[derive(Debug, Args)]
 pub struct HistoryArgs {
-    /// Plant configuration (default: $SAMEWISE_CONFIG, then ./plant.toml).
-    #[arg(long)]
-    pub config: Option<PathBuf>,
     /// The characteristic.
     pub characteristic: String,
     /// The factor whose groups are compared.
@@ -39,7 +36,7 @@ pub struct HistoryArgs {
 
 /// Runs `samewise history`.
 pub fn run(args: &HistoryArgs) -> Result<ExitCode> {
-    let config = super::common::load_config(args.config.as_deref())?;
+    let config = super::common::load_config(super::common::config_flag())?;
     if config.characteristic(&args.characteristic).is_none() {
         return Err(Error::Usage(format!(
             "characteristic \"{}\" is not in {}",

@@ -31,9 +31,6 @@ pub struct ImportArgs {
     /// FIFOs and `<(zcat export.csv.gz)` work too (each input is read once).
     #[arg(required = true, value_name = "FILE")]
     pub files: Vec<PathBuf>,
-    /// The plant configuration (default: $SAMEWISE_CONFIG, then ./plant.toml).
-    #[arg(long, value_name = "FILE", global = true)]
-    pub config: Option<PathBuf>,
     /// Layout name from the configuration (default: detected from the header).
     #[arg(long, value_name = "NAME")]
     pub layout: Option<String>,
@@ -89,7 +86,7 @@ fn csv_field(text: &str) -> String {
 /// stored nothing (every row rejected, or no data rows: such an import keeps its rejections but
 /// does not count as done, so the corrected file imports without `--force`).
 pub fn run(args: &ImportArgs) -> Result<ExitCode> {
-    let config = load_config(args.config.as_deref())?;
+    let config = load_config(super::common::config_flag())?;
     match &args.action {
         Some(ImportAction::List { json }) => return list(&config, *json),
         Some(ImportAction::Undo { id }) => return undo(&config, *id),

@@ -2,7 +2,6 @@
 //! up to date (new migrations; new and changed characteristics and factors). Measurements are
 //! never touched.
 
-use std::path::PathBuf;
 use std::process::ExitCode;
 
 use clap::Args;
@@ -12,17 +11,13 @@ use crate::Result;
 
 use super::common::load_config;
 
-/// Arguments of `samewise init`.
+/// Arguments of `samewise init` (none of its own: the global `--config` names the plant).
 #[derive(Debug, Args)]
-pub struct InitArgs {
-    /// The plant configuration (default: $SAMEWISE_CONFIG, then ./plant.toml).
-    #[arg(long, value_name = "FILE")]
-    pub config: Option<PathBuf>,
-}
+pub struct InitArgs {}
 
 /// Runs `samewise init`.
-pub fn run(args: &InitArgs) -> Result<ExitCode> {
-    let config = load_config(args.config.as_deref())?;
+pub fn run(_args: &InitArgs) -> Result<ExitCode> {
+    let config = load_config(super::common::config_flag())?;
     let db = &config.plant.database;
     super::common::note_database(db);
     // A 0-byte or table-less file holds nothing: the database is created in it. Another

@@ -51,9 +51,6 @@ pub struct InvestigateArgs {
     /// Scan mode only: end of the scan window (default: now).
     #[arg(long, value_name = "TIME", conflicts_with_all = ["event", "at"])]
     pub to: Option<String>,
-    /// The plant configuration (default: $SAMEWISE_CONFIG, then ./plant.toml).
-    #[arg(long, value_name = "FILE")]
-    pub config: Option<PathBuf>,
     /// Print one JSON object instead of the readable report.
     #[arg(long)]
     pub json: bool,
@@ -71,7 +68,7 @@ fn duration_flag(flag: &str, text: &str) -> Result<chrono::Duration> {
 
 /// Runs `samewise investigate`; `now` is the wall clock (scan window end by default).
 pub fn run(args: &InvestigateArgs, now: DateTime<Utc>) -> Result<ExitCode> {
-    let config = load_config(args.config.as_deref())?;
+    let config = load_config(super::common::config_flag())?;
     let store = open_store(&config)?;
     let parser = TimestampParser::new(None, config.plant.time_zone).map_err(Error::Usage)?;
     let before = duration_flag("--before", &args.before)?;

@@ -78,6 +78,10 @@ a stdout that cannot be written otherwise (a full device) gives 1.";
 #[derive(Debug, Parser)]
 #[command(name = "samewise", version, about, long_about = None, after_help = EXITS_ALL)]
 pub struct Args {
+    /// The plant configuration, for every command that reads one (default: $SAMEWISE_CONFIG,
+    /// then ./plant.toml); it may stand before or after the command.
+    #[arg(long, value_name = "FILE", global = true)]
+    pub config: Option<std::path::PathBuf>,
     /// What to do.
     #[command(subcommand)]
     pub command: Command,
@@ -237,6 +241,7 @@ pub fn run(args: Args) -> crate::Result<ExitCode> {
 }
 
 fn run_command(args: Args) -> crate::Result<ExitCode> {
+    common::set_config_flag(args.config.clone());
     match args.command {
         Command::Demo(a) => demo::run(&a),
         Command::Compare(compare_args) => compare::run(&compare_args),

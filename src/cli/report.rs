@@ -16,9 +16,6 @@ use crate::{Error, Result};
 /// Flags of `samewise report`.
 #[derive(Debug, Args)]
 pub struct ReportArgs {
-    /// Plant configuration (default: $SAMEWISE_CONFIG, then ./plant.toml).
-    #[arg(long)]
-    pub config: Option<PathBuf>,
     /// The month, as YYYY-MM.
     #[arg(long)]
     pub month: String,
@@ -45,7 +42,7 @@ pub fn parse_month(calendar: &PlantCalendar, label: &str) -> Result<crate::model
 
 /// Runs `samewise report` (`now` is the time shown as the report's date).
 pub fn run(args: &ReportArgs, now: chrono::DateTime<chrono::Utc>) -> Result<ExitCode> {
-    let config = super::common::load_config(args.config.as_deref())?;
+    let config = super::common::load_config(super::common::config_flag())?;
     let protected = crate::output::Protected::plant(&config.plant.database, &config.path);
     crate::output::refuse_protected(&args.out, "--out", &protected)?;
     crate::output::require_extension(&args.out, "--out", &["html", "htm"])?;

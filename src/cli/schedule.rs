@@ -4,7 +4,6 @@
 //! SIGINT/SIGTERM set a stop flag: the current run is finished and written (one transaction),
 //! then the process exits; nothing is left half written. The wall clock is read only here.
 
-use std::path::PathBuf;
 use std::process::ExitCode;
 use std::sync::atomic::{AtomicBool, Ordering};
 use std::sync::Arc;
@@ -23,9 +22,6 @@ use crate::{Error, Result};
 /// Flags of `samewise schedule`.
 #[derive(Debug, Args)]
 pub struct ScheduleArgs {
-    /// Plant configuration (default: $SAMEWISE_CONFIG, then ./plant.toml).
-    #[arg(long, global = true)]
-    pub config: Option<PathBuf>,
     /// Write the log as JSON lines on stdout (`{"time", "message"}` per line, then one
     /// `{"summary": ...}` line with every period's outcome) instead of text on stderr.
     #[arg(long, global = true)]
@@ -93,7 +89,7 @@ pub fn holder_name() -> String {
 
 /// Runs `samewise schedule`.
 pub fn run(args: &ScheduleArgs) -> Result<ExitCode> {
-    let config = super::common::load_config(args.config.as_deref())?;
+    let config = super::common::load_config(super::common::config_flag())?;
     let mut store = super::common::open_store(&config)?;
     let stop = Arc::new(AtomicBool::new(false));
     for sig in [signal_hook::consts::SIGINT, signal_hook::consts::SIGTERM] {

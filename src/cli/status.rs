@@ -1,7 +1,6 @@
 //! `samewise status`: what the database holds (rows per characteristic, date range, last import,
 //! rejected rows, schema version).
 
-use std::path::PathBuf;
 use std::process::ExitCode;
 
 use clap::Args;
@@ -13,9 +12,6 @@ use super::common::{load_config, open_store};
 /// Arguments of `samewise status`.
 #[derive(Debug, Args)]
 pub struct StatusArgs {
-    /// The plant configuration (default: $SAMEWISE_CONFIG, then ./plant.toml).
-    #[arg(long, value_name = "FILE")]
-    pub config: Option<PathBuf>,
     /// Print one JSON object (times RFC 3339 in the plant's zone).
     #[arg(long)]
     pub json: bool,
@@ -23,7 +19,7 @@ pub struct StatusArgs {
 
 /// Runs `samewise status`.
 pub fn run(args: &StatusArgs) -> Result<ExitCode> {
-    let config = load_config(args.config.as_deref())?;
+    let config = load_config(super::common::config_flag())?;
     let store = open_store(&config)?;
     let status = store.status()?;
     if args.json {
