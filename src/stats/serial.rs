@@ -53,8 +53,8 @@ pub struct SerialCheck {
 
 /// Exact permutation mean and variance of the lag-1 product sum of `e` (any values) over
 /// every order of them.
+#[cfg(test)]
 fn permutation_moments(e: &[f64]) -> (f64, f64) {
-    let n = e.len() as f64;
     let (mut s1, mut s2, mut s3, mut s4) = (0.0, 0.0, 0.0, 0.0);
     for &x in e {
         let x2 = x * x;
@@ -63,6 +63,13 @@ fn permutation_moments(e: &[f64]) -> (f64, f64) {
         s3 += x2 * x;
         s4 += x2 * x2;
     }
+    moments_from_power_sums(e.len() as f64, [s1, s2, s3, s4])
+}
+
+/// The permutation mean and variance of the lag-1 product sum of `n` values with power sums
+/// `s = [S1, S2, S3, S4]` (see the module docs).
+fn moments_from_power_sums(n: f64, s: [f64; 4]) -> (f64, f64) {
+    let [s1, s2, s3, s4] = s;
     let m = n - 1.0;
     let n2 = n * (n - 1.0);
     let n3 = n2 * (n - 2.0);
@@ -90,7 +97,6 @@ fn permutation_moments(e: &[f64]) -> (f64, f64) {
 pub fn serial_dependence(groups: &[&[f64]]) -> Stat<SerialCheck> {
     let (mut t_sum, mut mean_sum, mut var_sum) = (0.0, 0.0, 0.0);
     let (mut n_sum, mut n_pairs) = (0u64, 0u64);
-    let mut e = Vec::new();
     for g in groups {
         if g.len() < 3 {
             continue;
@@ -98,20 +104,32 @@ pub fn serial_dependence(groups: &[&[f64]]) -> Stat<SerialCheck> {
         if g.iter().any(|x| !x.is_finite()) {
             return Err(Unavailable::new("a value is not finite"));
         }
-        let mean = g.iter().sum::<f64>() / g.len() as f64;
-        e.clear();
-        e.extend(g.iter().map(|x| x - mean));
-        let s2: f64 = e.iter().map(|x| x * x).sum();
+        let n = g.len() as f64;
+        let mean = g.iter().sum::<f64>() / n;
+        // One pass over the residuals: power sums and the lag-1 product sum. Scaling the
+        // residuals to S2 = n (c = sqrt(n / S2)) multiplies S_k by c^k and T by c^2.
+        let (mut s1, mut s2, mut s3, mut s4, mut t) = (0.0, 0.0, 0.0, 0.0, 0.0);
+        let mut previous = g[0] - mean;
+        for (i, &x) in g.iter().enumerate() {
+            let e = x - mean;
+            let e2 = e * e;
+            s1 += e;
+            s2 += e2;
+            s3 += e2 * e;
+            s4 += e2 * e2;
+            if i > 0 {
+                t += previous * e;
+            }
+            previous = e;
+        }
         if s2 <= 0.0 || s2.is_nan() {
             continue;
         }
-        let scale = (g.len() as f64 / s2).sqrt();
-        for x in e.iter_mut() {
-            *x *= scale;
-        }
-        let t: f64 = e.windows(2).map(|w| w[0] * w[1]).sum();
-        let (mean_t, var_t) = permutation_moments(&e);
-        t_sum += t;
+        let c2 = n / s2;
+        let c = c2.sqrt();
+        let (mean_t, var_t) =
+            moments_from_power_sums(n, [s1 * c, s2 * c2, s3 * c2 * c, s4 * c2 * c2]);
+        t_sum += t * c2;
         mean_sum += mean_t;
         var_sum += var_t;
         n_sum += g.len() as u64;
