@@ -101,6 +101,7 @@ pub fn flag_state(stored: &str) -> FlagState {
         state::DIFFERS_MATERIAL => FlagState::DiffersMaterial,
         state::DIFFERS => FlagState::Differs,
         state::NO_EVIDENCE => FlagState::NoEvidence,
+        state::DIFFERS_DEPENDENT => FlagState::NotIndependent,
         _ => FlagState::TooLittleData,
     }
 }

@@ -68,6 +68,18 @@ pub(super) fn draw_cell<DB: DrawingBackend>(
                 1,
             )
         }
+        FlagState::NotIndependent => {
+            // The "differs" triangle, open, on a pale ground: a difference the data's
+            // dependence does not let stand.
+            c.fill_rect((x, y), (x1, y1), RGBColor(250, 236, 204), 1.0)?;
+            let tri = [(cx, cy - r), (cx + r, cy + r * 0.8), (cx - r, cy + r * 0.8)];
+            c.polyline(
+                &[tri[0], tri[1], tri[2], tri[0]],
+                RGBColor(120, 80, 0),
+                2,
+                None,
+            )
+        }
         FlagState::TooLittleData => {
             c.fill_rect((x, y), (x1, y1), RGBColor(222, 222, 222), 1.0)?;
             // Diagonal hatching.

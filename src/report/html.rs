@@ -117,6 +117,8 @@ tbody tr:nth-child(even) { background: var(--band); }
 .state.differs::before { content: "\25B2  "; }
 .state.no-evidence { background: #c4e8dc; }
 .state.no-evidence::before { content: "\2022  "; }
+.state.not-independent { background: #faeccc; border-style: dashed; }
+.state.not-independent::before { content: "\25B3  "; }
 .state.too-little-data { background: repeating-linear-gradient(45deg, #dedede 0 5px, #fff 5px 8px); }
 .state.not-run { background: #fff; border-color: #bbb; }
 figure { margin: 10px 0 22px; }

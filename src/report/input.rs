@@ -25,6 +25,9 @@ pub enum FlagState {
     Differs,
     /// The check ran and found no evidence that the groups differ.
     NoEvidence,
+    /// The values were tested as independent, and the difference does not hold once their
+    /// serial dependence is allowed for (name the subgroup column): not a flag.
+    NotIndependent,
     /// The check could not run properly: too few values or too few groups in the period.
     TooLittleData,
     /// No check was run for this cell (no data, not scheduled, or not yet due).
@@ -33,9 +36,10 @@ pub enum FlagState {
 
 impl FlagState {
     /// Every state, strongest first.
-    pub const ALL: [FlagState; 5] = [
+    pub const ALL: [FlagState; 6] = [
         FlagState::DiffersMaterial,
         FlagState::Differs,
+        FlagState::NotIndependent,
         FlagState::NoEvidence,
         FlagState::TooLittleData,
         FlagState::NotRun,
@@ -47,6 +51,7 @@ impl FlagState {
             FlagState::DiffersMaterial => "differs, material",
             FlagState::Differs => "differs",
             FlagState::NoEvidence => "no evidence of a difference",
+            FlagState::NotIndependent => "differs? values not independent",
             FlagState::TooLittleData => "too little data",
             FlagState::NotRun => "not run",
         }
@@ -58,6 +63,7 @@ impl FlagState {
             FlagState::DiffersMaterial => "differs-material",
             FlagState::Differs => "differs",
             FlagState::NoEvidence => "no-evidence",
+            FlagState::NotIndependent => "not-independent",
             FlagState::TooLittleData => "too-little-data",
             FlagState::NotRun => "not-run",
         }
@@ -327,6 +333,8 @@ pub struct StateCounts {
     pub differs: u64,
     /// Checks with no evidence of a difference.
     pub no_evidence: u64,
+    /// Checks whose difference rests on values that are not independent.
+    pub not_independent: u64,
     /// Checks with too little data.
     pub too_little_data: u64,
     /// Cells with no check run.
@@ -340,6 +348,7 @@ impl StateCounts {
             FlagState::DiffersMaterial => self.differs_material,
             FlagState::Differs => self.differs,
             FlagState::NoEvidence => self.no_evidence,
+            FlagState::NotIndependent => self.not_independent,
             FlagState::TooLittleData => self.too_little_data,
             FlagState::NotRun => self.not_run,
         }
@@ -351,6 +360,7 @@ impl StateCounts {
             FlagState::DiffersMaterial => self.differs_material += 1,
             FlagState::Differs => self.differs += 1,
             FlagState::NoEvidence => self.no_evidence += 1,
+            FlagState::NotIndependent => self.not_independent += 1,
             FlagState::TooLittleData => self.too_little_data += 1,
             FlagState::NotRun => self.not_run += 1,
         }
@@ -358,7 +368,11 @@ impl StateCounts {
 
     /// Checks that ran (every state except "not run").
     pub fn tests_run(&self) -> u64 {
-        self.differs_material + self.differs + self.no_evidence + self.too_little_data
+        self.differs_material
+            + self.differs
+            + self.not_independent
+            + self.no_evidence
+            + self.too_little_data
     }
 }
 

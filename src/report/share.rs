@@ -73,7 +73,12 @@ impl Drawable for Share<'_> {
                 dash: None,
                 line: true,
             },
-            format!("between-group share, {:.0}% interval", s.confidence * 100.0),
+            if s.periods.iter().any(|p| p.ci_low.is_some()) {
+                format!("between-group share, {:.0}% interval", s.confidence * 100.0)
+            } else {
+                // Nested designs give three-level components, without an interval of the share.
+                "between-group share".to_string()
+            },
         )];
         if s.material_share.is_some() {
             legend.push((
