@@ -166,11 +166,7 @@ fn stages(config: &Config, label: &str, with_pairs: bool) {
         );
         assert_eq!(streamed, content);
     }
-    let n_flagged = content
-        .tests
-        .iter()
-        .filter(|t| runs::is_flag_state(&t.state))
-        .count();
+    let n_flagged = content.tests.iter().filter(|t| t.state.is_flag()).count();
     eprintln!("    ({} tests, {n_flagged} flagged)", content.tests.len());
     // Level 0.999999: every test with a p-value is flagged, so every one computes its pairs
     // (Tukey-Kramer or Games-Howell, studentized range in stats::ptukey). Only the machine tests
@@ -198,9 +194,9 @@ fn stages(config: &Config, label: &str, with_pairs: bool) {
                  {} pairs in {:.3} s, {:.2} ms per pair",
                 flagged_s,
                 none_s,
-                all.pairs.len(),
+                all.n_pairs(),
                 flagged_s - none_s,
-                1e3 * (flagged_s - none_s) / all.pairs.len().max(1) as f64
+                1e3 * (flagged_s - none_s) / all.n_pairs().max(1) as f64
             );
         }
     }
@@ -210,8 +206,8 @@ fn stages(config: &Config, label: &str, with_pairs: bool) {
         &format!(
             "write the run ({} results, {} groups, {} pairs)",
             content.tests.len(),
-            content.groups.len(),
-            content.pairs.len()
+            content.n_groups(),
+            content.n_pairs()
         ),
         || runs::complete_run(store.connection_mut(), run.run_id, 1, &content).unwrap(),
     );

@@ -8,7 +8,7 @@
 //! cargo run --release --example subgroup_rates 400
 //! ```
 
-use samewise::analysis::state;
+use samewise::results::TestState;
 use samewise::scenario::study_options;
 use samewise::shot_plant::{run_days, ShotPlant};
 
@@ -44,7 +44,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
                     rate(o.days_with_flag),
                     o.design.get("machine").map_or("-", String::as_str),
                     rate(o.flagged("machine")),
-                    rate(o.count("machine", state::DIFFERS_DEPENDENT)),
+                    rate(o.count("machine", TestState::DiffersDependent)),
                     rate(o.serial_fired.get("machine").copied().unwrap_or(0)),
                     o.design.get("cavity").map_or("-", String::as_str),
                     rate(o.flagged("cavity")),
@@ -79,7 +79,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
                         "| {machines} x {cavities} x {shots} | {shot_sd} | {what} | {} | {:.3} | {:.3} |",
                         if with { "shot" } else { "none" },
                         o.flagged(factor) as f64 / days as f64,
-                        o.count(factor, state::DIFFERS_DEPENDENT) as f64 / days as f64,
+                        o.count(factor, TestState::DiffersDependent) as f64 / days as f64,
                     );
                 }
             }

@@ -30,6 +30,7 @@ pub mod names;
 pub mod output;
 pub mod process;
 pub mod report;
+pub mod results;
 pub mod sample;
 pub mod scenario;
 pub mod schedule;

@@ -287,8 +287,13 @@ pub fn rate(
         let groups = cell.groups(&mut rng);
         let content = check_frame(&cell.frame(&groups), options, None)?;
         let test = &content.tests[0];
-        *out.states.entry(test.state.clone()).or_default() += 1;
-        let method = test.leading_method.clone().unwrap_or_else(|| "none".into());
+        *out.states
+            .entry(test.state.as_str().to_string())
+            .or_default() += 1;
+        let method = test
+            .leading
+            .method
+            .map_or("none".to_string(), |m| m.as_str().to_string());
         *out.leading.entry(method).or_default() += 1;
     }
     Ok(out)

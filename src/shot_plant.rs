@@ -15,6 +15,7 @@
 //! `examples/subgroup_rates.rs` prints the null rates and the power written into
 //! docs/null-rates.md; `tests/subgroups.rs` keeps them with binomial bounds.
 
+use crate::results::TestState;
 use std::collections::BTreeMap;
 
 use crate::analysis::{check_frame, CheckOptions, Frame, FrameCharacteristic, FrameFactor};
@@ -119,19 +120,22 @@ pub struct DaysOutcome {
 
 impl DaysOutcome {
     /// Days on which `factor`'s test was in `state`.
-    pub fn count(&self, factor: &str, state: &str) -> usize {
+    pub fn count(&self, factor: &str, state: TestState) -> usize {
         self.states
             .get(factor)
-            .and_then(|s| s.get(state))
+            .and_then(|s| s.get(state.as_str()))
             .copied()
             .unwrap_or(0)
     }
 
     /// Days on which `factor`'s test was flagged.
     pub fn flagged(&self, factor: &str) -> usize {
-        self.count(factor, crate::analysis::state::DIFFERS)
-            + self.count(factor, crate::analysis::state::DIFFERS_MATERIAL)
+        self.count(factor, TestState::Differs) + self.count(factor, TestState::DiffersMaterial)
     }
+}
+
+fn design_name(kind: Option<crate::results::DesignKind>) -> &'static str {
+    kind.map_or("", |d| d.as_str())
 }
 
 /// Runs `days` simulated days of `plant` from the random state `state`.
@@ -152,17 +156,17 @@ pub fn run_days(
         let content = check_frame(&frame, options, None)?;
         let mut any = false;
         for t in &content.tests {
-            any |= crate::storage::runs::is_flag_state(&t.state);
+            any |= t.state.is_flag();
             *out.states
                 .entry(t.factor.clone())
                 .or_default()
-                .entry(t.state.clone())
+                .entry(t.state.as_str().to_string())
                 .or_default() += 1;
-            if t.serial_p.is_some_and(|p| p < options.alpha) {
+            if t.serial_dependence.p.is_some_and(|p| p < options.alpha) {
                 *out.serial_fired.entry(t.factor.clone()).or_default() += 1;
             }
             out.design
-                .insert(t.factor.clone(), t.design.clone().unwrap_or_default());
+                .insert(t.factor.clone(), design_name(t.design.kind).to_string());
         }
         out.days_with_flag += usize::from(any);
     }

@@ -433,7 +433,7 @@ fn issue_13_wild_first_values_do_not_spoil_later_days() {
             "{label}: {ss_w}"
         );
         for g in test["groups"].as_array().unwrap() {
-            let k: usize = g["level"].as_str().unwrap()[1..].parse::<usize>().unwrap() - 1;
+            let k: usize = g["name"].as_str().unwrap()[1..].parse::<usize>().unwrap() - 1;
             let mean_offset = g["mean_offset"].as_f64().unwrap();
             let origin: f64 = g["origin"].as_str().unwrap().parse().unwrap();
             // The origin is the middle of the limits (42), not the typo.

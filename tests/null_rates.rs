@@ -5,6 +5,7 @@
 //! 31, 144-152) with exact binomial bounds, and the power against a real shift checked.
 //! Deterministic: every cell starts from a fixed random state.
 
+use samewise::results::LeadingTest;
 use samewise::scenario::{cell_state, rate, study_options, Cell, Shape, Sizes, Spread};
 
 /// The smallest count c with P(X <= c) >= 1 - tail for X ~ Binomial(n, p) (exact, by the pmf
@@ -173,9 +174,9 @@ fn constant_groups_that_differ_are_flagged() {
     let groups = vec![vec![2.5; 5], vec![2.6; 5], vec![2.7; 5]];
     let content = check_frame(&cell.frame(&groups), &study_options(), None).unwrap();
     let t = &content.tests[0];
-    assert_eq!(t.leading_method.as_deref(), Some("exact_permutation"));
-    assert!(t.state.starts_with("differs"), "{t:?}");
-    assert!((t.leading_p.unwrap() - 6.0 / 756_756.0).abs() < 1e-18);
-    assert_eq!(t.ss_within, Some(0.0));
-    assert!(t.ss_between.unwrap() > 0.0);
+    assert_eq!(t.leading.method, Some(LeadingTest::ExactPermutation));
+    assert!(t.state.is_flag(), "{t:?}");
+    assert!((t.leading.p.unwrap() - 6.0 / 756_756.0).abs() < 1e-18);
+    assert_eq!(t.anova.ss_within, Some(0.0));
+    assert!(t.anova.ss_between.unwrap() > 0.0);
 }

@@ -14,8 +14,9 @@ use chrono::{DateTime, Duration, NaiveDate, TimeZone, Utc};
 
 use samewise::config::{Config, ScheduleConfig};
 use samewise::model::Period;
+use samewise::results::{TestResult, TestState};
 use samewise::schedule::{self, Clock, PeriodOutcome, PeriodRunner, SchedulerOptions};
-use samewise::storage::runs::{self, RunContent, RunHeader, TestRow};
+use samewise::storage::runs::{self, RunContent, RunHeader};
 use samewise::storage::Store;
 
 const CONFIG: &str = r#"
@@ -120,14 +121,13 @@ impl PeriodRunner for Recorder {
             )));
         }
         Ok(RunContent {
-            tests: vec![TestRow {
+            tests: vec![TestResult {
                 characteristic: "bore".into(),
                 factor: "machine".into(),
-                state: "no_evidence".into(),
+                state: TestState::NoEvidence,
                 notes: period.label.clone(),
-                ..TestRow::default()
+                ..TestResult::default()
             }],
-            ..RunContent::default()
         })
     }
 }

@@ -8,7 +8,7 @@
 mod common;
 
 use common::{samewise_ok, temp_dir};
-use samewise::analysis::state;
+use samewise::results::TestState;
 use samewise::scenario::study_options;
 use samewise::shot_plant::{run_days, ShotPlant};
 
@@ -60,7 +60,7 @@ fn null_days_with_the_shot_as_subgroup_stay_within_the_false_discovery_level() {
         "dependence found on {fired} of {days} days"
     );
     assert!(
-        o.count("machine", state::DIFFERS_DEPENDENT) > 0,
+        o.count("machine", TestState::DiffersDependent) > 0,
         "some days would have flagged machines on shot noise: {o:?}"
     );
     assert!(

@@ -17,30 +17,7 @@
 
 use super::NO_SUBGROUP;
 
-/// The design a test uses.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum DesignKind {
-    /// Every value a unit.
-    Independent,
-    /// Subgroups nested in the factor's levels: subgroup means are the units.
-    Nested,
-    /// The factor crossed with subgroups: subgroups are blocks.
-    Blocked,
-    /// Mixed: the mean of each level within each subgroup is a unit.
-    CellMeans,
-}
-
-impl DesignKind {
-    /// The stable name stored and printed in JSON.
-    pub fn key(self) -> &'static str {
-        match self {
-            DesignKind::Independent => "independent",
-            DesignKind::Nested => "nested",
-            DesignKind::Blocked => "blocked",
-            DesignKind::CellMeans => "cell_means",
-        }
-    }
-}
+pub use crate::results::DesignKind;
 
 /// One (subgroup, level) cell: its values are `Arranged::values[start..end]`.
 #[derive(Debug, Clone, Copy)]

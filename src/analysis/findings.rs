@@ -38,7 +38,7 @@ use crate::stats::changepoint::{scan, step_rss, trend_onset, ScanOptions};
 use crate::storage::{FlagHistoryRow, Store};
 use crate::Result;
 
-use super::state;
+use crate::results::TestState;
 
 /// Periods before an episode's first flag that the onset scan looks at.
 pub const ONSET_WINDOW: usize = 60;
@@ -69,10 +69,10 @@ struct Walk {
     closed: bool,
 }
 
-fn is_verdict(state_name: &str) -> bool {
+fn is_verdict(state: TestState) -> bool {
     matches!(
-        state_name,
-        state::DIFFERS_MATERIAL | state::DIFFERS | state::NO_EVIDENCE
+        state,
+        TestState::DiffersMaterial | TestState::Differs | TestState::NoEvidence
     )
 }
 
@@ -104,17 +104,18 @@ pub fn update_findings(
     {
         let mut walks: Vec<(String, Walk)> = Vec::new();
         for (i, row) in test.iter().enumerate() {
-            if !is_verdict(&row.state) {
+            if !is_verdict(row.state) {
                 continue;
             }
             let flagged_level = row
-                .standout_level
+                .stands_out
+                .level
                 .as_deref()
-                .filter(|_| crate::storage::runs::is_flag_state(&row.state));
+                .filter(|_| row.state.is_flag());
             for (level, w) in walks.iter_mut() {
                 // Quiet: the group is not flagged, and not even the standing-out one (a period
                 // where it still stands out, unconfirmed, neither counts nor breaks the finding).
-                let still_stands_out = row.standout_level.as_deref() == Some(level.as_str());
+                let still_stands_out = row.stands_out.level.as_deref() == Some(level.as_str());
                 if Some(level.as_str()) != flagged_level && !still_stands_out && !w.closed {
                     w.quiet += 1;
                     if w.quiet >= close_after {
@@ -237,11 +238,8 @@ fn finding_of(
     // The peak: the largest effect of the episode's flags of this level.
     let peak = test[w.episode..=w.last]
         .iter()
-        .filter(|r| {
-            crate::storage::runs::is_flag_state(&r.state)
-                && r.standout_level.as_deref() == Some(level)
-        })
-        .filter_map(|r| r.standout_diff.map(|d| (d, r)))
+        .filter(|r| r.state.is_flag() && r.stands_out.level.as_deref() == Some(level))
+        .filter_map(|r| r.stands_out.diff.map(|d| (d, r)))
         .max_by(|a, b| a.0.abs().total_cmp(&b.0.abs()));
     let unit = config
         .characteristic(&first.characteristic)
@@ -272,12 +270,12 @@ fn finding_of(
         n_weak: w.n_weak,
         quiet_periods: w.quiet,
         unit,
-        effect_now: last.standout_diff,
-        effect_now_sd: last.standout_sd_units,
-        effect_now_pct: last.standout_pct_tolerance,
+        effect_now: last.stands_out.diff,
+        effect_now_sd: last.stands_out.sd_units,
+        effect_now_pct: last.stands_out.pct_tolerance,
         within_sd: last.resid_sd,
         peak_effect: peak.map(|p| p.0),
-        peak_pct: peak.and_then(|p| p.1.standout_pct_tolerance),
+        peak_pct: peak.and_then(|p| p.1.stands_out.pct_tolerance),
         peak_label: peak.map(|p| p.1.label.clone()),
         onset: None,
         onset_low: None,
@@ -313,7 +311,7 @@ fn onset_of(
     // (period index, offset of the level's mean from the n-weighted mean of the other groups)
     let mut series: Vec<(usize, f64)> = Vec::new();
     for (i, row) in test.iter().enumerate().take(w.last + 1).skip(from) {
-        if !is_verdict(&row.state) {
+        if !is_verdict(row.state) {
             continue;
         }
         let groups = store.group_means(row.run_id, row.test_idx)?;

@@ -44,6 +44,7 @@ use std::collections::HashSet;
 use std::sync::atomic::{AtomicUsize, Ordering};
 
 use crate::config::CharacteristicConfig;
+use crate::results::{GroupResult, Interval, LeadingTest, PairResult, TestResult, TestState};
 use crate::stats::decimal::Decimal;
 use crate::stats::describe::Summary;
 use crate::stats::fdr::{self, FdrMethod};
@@ -53,55 +54,8 @@ use crate::stats::power::sensitivity;
 use crate::stats::variance_components::one_way_random;
 use crate::stats::Stat;
 use crate::stats::{blocked as block_design, nested, serial};
-use crate::storage::runs::{GroupRow, PairRow, RunContent, TestRow};
+use crate::storage::runs::RunContent;
 use design::{DesignKind, NoStructure};
-
-/// The leading-method key of the blocked design's F (levels adjusted for the subgroups).
-pub const BLOCKED_F: &str = "blocked_f";
-
-/// State names as stored and printed in JSON.
-pub mod state {
-    /// q <= level and the spread of group means >= the material share of the tolerance.
-    pub const DIFFERS_MATERIAL: &str = "differs_material";
-    /// q <= level.
-    pub const DIFFERS: &str = "differs";
-    /// q > level (or no p-value although the groups were large enough).
-    pub const NO_EVIDENCE: &str = "no_evidence";
-    /// Fewer than two groups with enough values.
-    pub const TOO_LITTLE_DATA: &str = "too_little_data";
-    /// Groups to compare, but too few values per group for any available test to hold its level
-    /// (small groups whose spreads look different, or very unequal sizes): no p-value.
-    pub const TOO_FEW_TO_COMPARE: &str = "too_few_to_compare";
-
-    /// q <= level, but the values were tested as independent and the serial-dependence check
-    /// shows they are not (parts measured together share a deviation): the p-value is too small
-    /// to trust. Not a flag: no finding, not ranked with sound flags.
-    pub const DIFFERS_DEPENDENT: &str = "differs_dependent";
-
-    /// Human wording for terminal output.
-    pub fn label(state: &str) -> &'static str {
-        match state {
-            DIFFERS_MATERIAL => "differs and material",
-            DIFFERS => "differs",
-            DIFFERS_DEPENDENT => "differs? not independent",
-            NO_EVIDENCE => "no evidence",
-            TOO_FEW_TO_COMPARE => "too few values to compare",
-            _ => "too little data",
-        }
-    }
-
-    /// Sort rank: differs and material first.
-    pub fn rank(state: &str) -> u8 {
-        match state {
-            DIFFERS_MATERIAL => 0,
-            DIFFERS => 1,
-            DIFFERS_DEPENDENT => 2,
-            NO_EVIDENCE => 3,
-            TOO_FEW_TO_COMPARE => 4,
-            _ => 5,
-        }
-    }
-}
 
 /// One grouping factor of a frame: its name and level names (indexed by `level_idx`).
 #[derive(Debug, Clone)]
@@ -212,8 +166,7 @@ struct Job<F> {
 
 /// Per-test work before the run-level FDR: everything but q, state, is_new and pairs.
 struct Partial {
-    row: TestRow,
-    groups: Vec<GroupRow>,
+    row: TestResult,
     summaries: Vec<Summary>,
     levels: Vec<String>,
     leading: Option<LeadingMethod>,
@@ -359,7 +312,7 @@ where
     }
     partials.sort_unstable_by_key(|(i, _)| *i);
     let mut partials: Vec<Partial> = partials.into_iter().map(|(_, p)| p).collect();
-    let p: Vec<Option<f64>> = partials.iter().map(|t| t.row.leading_p).collect();
+    let p: Vec<Option<f64>> = partials.iter().map(|t| t.row.leading.p).collect();
     let q = run_q_values(&p, options.fdr_method)?;
     for (partial, q) in partials.iter_mut().zip(q) {
         let material = match q {
@@ -373,34 +326,33 @@ where
                 Some(Ok((is_material, note))) => {
                     push_note(&mut row.notes, &note);
                     if is_material {
-                        state::DIFFERS_MATERIAL
+                        TestState::DiffersMaterial
                     } else {
-                        state::DIFFERS
+                        TestState::Differs
                     }
                 }
                 Some(Err(reason)) => {
                     push_note(&mut row.notes, &reason);
-                    state::DIFFERS
+                    TestState::Differs
                 }
-                None => state::DIFFERS,
+                None => TestState::Differs,
             },
-            Some(_) => state::NO_EVIDENCE,
-            None if row.n_groups_used < 2 => state::TOO_LITTLE_DATA,
-            None if partial.declined => state::TOO_FEW_TO_COMPARE,
-            None => state::NO_EVIDENCE,
-        }
-        .to_string();
+            Some(_) => TestState::NoEvidence,
+            None if row.n_groups_used < 2 => TestState::TooLittleData,
+            None if partial.declined => TestState::TooFewToCompare,
+            None => TestState::NoEvidence,
+        };
         if let (Some((deff, p_adjusted)), Some(p), Some(q)) =
-            (partial.dependence, row.leading_p, row.q_value)
+            (partial.dependence, row.leading.p, row.q_value)
         {
-            if crate::storage::runs::is_flag_state(&row.state) {
+            if row.state.is_flag() {
                 // The q-value the adjusted p would have in the same family (BH scales p).
                 let q_adjusted = p_adjusted.map(|pa| (q * pa / p.max(f64::MIN_POSITIVE)).min(1.0));
                 let found = format!(
                     "values not independent: in time order within the groups, neighbouring values are alike (lag-1 serial correlation {:.2}, z = {:.1}, p = {}; design effect {:.1}), as when parts measured together share a deviation or the process drifts within the period",
-                    row.serial_r1.unwrap_or(f64::NAN),
-                    row.serial_z.unwrap_or(f64::NAN),
-                    oneway::short(row.serial_p.unwrap_or(f64::NAN)),
+                    row.serial_dependence.r1.unwrap_or(f64::NAN),
+                    row.serial_dependence.z.unwrap_or(f64::NAN),
+                    oneway::short(row.serial_dependence.p.unwrap_or(f64::NAN)),
                     deff
                 );
                 match (p_adjusted, q_adjusted) {
@@ -420,21 +372,18 @@ where
                                 p_adjusted.map_or("no F scale to divide".to_string(), |pa| format!("p = {}", oneway::short(pa)))
                             ),
                         );
-                        row.state = state::DIFFERS_DEPENDENT.to_string();
+                        row.state = TestState::DiffersDependent;
                     }
                 }
             }
         }
-        let flagged = crate::storage::runs::is_flag_state(&row.state);
+        let flagged = row.state.is_flag();
         row.is_new = flagged
             && previous_flags.is_none_or(|prev| {
                 !prev.contains(&(row.characteristic.clone(), row.factor.clone()))
             });
     }
-    let flagged: Vec<&Partial> = partials
-        .iter()
-        .filter(|p| crate::storage::runs::is_flag_state(&p.row.state))
-        .collect();
+    let flagged: Vec<&Partial> = partials.iter().filter(|p| p.row.state.is_flag()).collect();
     let pairs = parallel_map(&flagged, threads, |partial| {
         let pairs = match partial.leading {
             _ if partial.pairs_ready.is_some() => partial.pairs_ready.clone().unwrap_or_default(),
@@ -446,15 +395,15 @@ where
         pairs
             .into_iter()
             .flatten()
-            .map(|pair| pair_row(partial.row.test_idx, &partial.levels, &pair))
+            .map(|pair| pair_result(&partial.levels, &pair))
             .collect::<Vec<_>>()
     });
-    let mut content = RunContent {
-        pairs: pairs.into_iter().flatten().collect(),
-        ..RunContent::default()
-    };
-    for partial in partials {
-        content.groups.extend(partial.groups);
+    let mut pairs = pairs.into_iter();
+    let mut content = RunContent::default();
+    for mut partial in partials {
+        if partial.row.state.is_flag() {
+            partial.row.pairs = pairs.next().unwrap_or_default();
+        }
         content.tests.push(partial.row);
     }
     Ok(content)
@@ -506,7 +455,7 @@ fn materiality(partial: &Partial, options: &CheckOptions) -> Result<(bool, Strin
     let Some((reference, what)) = partial.material_reference else {
         return Err("no specification limit configured: materiality not judged".into());
     };
-    let Some(level) = &partial.row.standout_level else {
+    let Some(level) = &partial.row.stands_out.level else {
         return Err("no standing-out group: materiality not judged".into());
     };
     let standout = partial
@@ -514,7 +463,7 @@ fn materiality(partial: &Partial, options: &CheckOptions) -> Result<(bool, Strin
         .iter()
         .position(|l| l == level)
         .ok_or_else(|| "standing-out group not found: materiality not judged".to_string())?;
-    let pooled = partial.row.resid_sd.zip(partial.row.anova_df2);
+    let pooled = partial.row.anova.resid_sd.zip(partial.row.anova.df_within);
     let supported = if partial.leading == Some(LeadingMethod::ExactPermutation) {
         // Constant groups: the difference is known exactly as far as the gauge resolves.
         let g = &partial.summaries[standout];
@@ -549,19 +498,20 @@ fn materiality(partial: &Partial, options: &CheckOptions) -> Result<(bool, Strin
     ))
 }
 
-fn pair_row(test_idx: i64, levels: &[String], pair: &Pair) -> PairRow {
-    PairRow {
-        test_idx,
-        level_a: levels[pair.a].clone(),
-        level_b: levels[pair.b].clone(),
+fn pair_result(levels: &[String], pair: &Pair) -> PairResult {
+    PairResult {
+        a: levels[pair.a].clone(),
+        b: levels[pair.b].clone(),
         method: pair.method.name().to_string(),
         diff: pair.diff,
         se: pair.se,
         statistic: pair.statistic,
         df: pair.df,
         p_adj: pair.p_adj,
-        ci_low: pair.ci_low,
-        ci_high: pair.ci_high,
+        ci: Interval {
+            low: pair.ci_low,
+            high: pair.ci_high,
+        },
     }
 }
 
@@ -667,7 +617,7 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
         Err(NoStructure::Incomplete(reason)) => push_note(&mut notes, &reason),
         Ok(a) => {
             design_kind = a.kind;
-            n_subgroups = Some(a.n_subgroups as i64);
+            n_subgroups = Some(a.n_subgroups as u64);
             arranged = Some(a);
         }
     }
@@ -777,25 +727,30 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
     }
     let tolerance = tolerance_of(c);
     let tol_width = tolerance.and_then(|t| t.width());
-    let mut row = TestRow {
-        test_idx: task.test_idx as i64,
+    let mut row = TestResult {
+        index: task.test_idx as u32,
         characteristic: c.characteristic.name.clone(),
         factor: factor.name.clone(),
-        n_obs: c.values.len() as i64,
-        n_groups: counts.iter().filter(|&&n| n > 0).count() as i64,
-        n_groups_used: groups.len() as i64,
+        n_obs: c.values.len() as u64,
+        n_groups: counts.iter().filter(|&&n| n > 0).count() as u64,
+        n_groups_used: groups.len() as u64,
         tolerance: tol_width,
-        design: Some(design_kind.key().to_string()),
-        n_subgroups,
-        ..TestRow::default()
+        design: crate::results::DesignResult {
+            kind: Some(design_kind),
+            n_subgroups,
+            ..Default::default()
+        },
+        ..TestResult::default()
     };
     if design_kind == DesignKind::Independent && groups.len() >= 2 {
         // Values treated as independent: are they, in time order within their groups?
         match serial::serial_dependence(&groups) {
             Ok(s) => {
-                row.serial_r1 = Some(s.r1);
-                row.serial_z = Some(s.z);
-                row.serial_p = Some(s.p);
+                row.serial_dependence = crate::results::SerialResult {
+                    r1: Some(s.r1),
+                    z: Some(s.z),
+                    p: Some(s.p),
+                };
             }
             Err(e) => push_note(&mut notes, &format!("serial dependence: {}", e.reason)),
         }
@@ -832,60 +787,71 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
             Ok(ow) => {
                 summaries = ow.summaries.clone();
                 leading = Some(ow.leading.method);
-                row.leading_method = Some(ow.leading.method.key().into());
                 declined = ow.leading.declined.is_some();
-                row.leading_reason = Some(ow.leading.reason.clone());
-                row.recommend_kruskal = Some(ow.leading.recommend_kruskal_wallis);
-                row.leading_statistic = ow.leading.statistic;
-                row.leading_p = ow.leading.p;
+                row.leading = crate::results::LeadingResult {
+                    method: Some(ow.leading.method.into()),
+                    reason: Some(ow.leading.reason.clone()),
+                    statistic: ow.leading.statistic,
+                    p: ow.leading.p,
+                    recommend_kruskal_wallis: Some(ow.leading.recommend_kruskal_wallis),
+                };
                 if ow.leading.p.is_none() && !declined {
                     push_note(&mut notes, "the leading test has no p-value");
                 }
                 if let Ok(c) = &ow.constant_groups {
                     // F is infinite; the table's defined parts are still given.
-                    row.ss_between = Some(c.ss_between);
-                    row.ss_within = Some(0.0);
-                    row.anova_df1 = Some(c.df_between);
-                    row.anova_df2 = Some(c.df_within);
-                    row.ms_within = Some(0.0);
-                    row.r_squared = Some(1.0);
-                    row.eta_squared = Some(1.0);
+                    row.anova.ss_between = Some(c.ss_between);
+                    row.anova.ss_within = Some(0.0);
+                    row.anova.df_between = Some(c.df_between);
+                    row.anova.df_within = Some(c.df_within);
+                    row.anova.ms_within = Some(0.0);
+                    row.anova.r_squared = Some(1.0);
+                    row.effect.eta_squared = Some(1.0);
                 }
                 note_unavailable(&mut notes, "ANOVA", &ow.anova);
                 if let Ok(t) = &ow.anova {
-                    row.anova_f = Some(t.f);
-                    row.anova_df1 = Some(t.df_between);
-                    row.anova_df2 = Some(t.df_within);
-                    row.anova_p = Some(t.p);
-                    row.ss_between = Some(t.ss_between);
-                    row.ss_within = Some(t.ss_within);
-                    row.ms_within = Some(t.ms_within);
-                    row.r_squared = Some(t.r_squared);
-                    row.resid_sd = Some(t.resid_sd);
+                    row.anova = crate::results::AnovaResult {
+                        f: Some(t.f),
+                        df_between: Some(t.df_between),
+                        df_within: Some(t.df_within),
+                        p: Some(t.p),
+                        ss_between: Some(t.ss_between),
+                        ss_within: Some(t.ss_within),
+                        ms_within: Some(t.ms_within),
+                        r_squared: Some(t.r_squared),
+                        resid_sd: Some(t.resid_sd),
+                    };
                 }
                 note_unavailable(&mut notes, "Welch", &ow.welch);
                 if let Ok(w) = &ow.welch {
-                    row.welch_f = Some(w.statistic);
-                    row.welch_df1 = w.df1;
-                    row.welch_df2 = w.df2;
-                    row.welch_p = Some(w.p);
+                    row.welch = crate::results::WelchResult {
+                        f: Some(w.statistic),
+                        df1: w.df1,
+                        df2: w.df2,
+                        p: Some(w.p),
+                    };
                 }
-                let pick = |t: &Stat<crate::stats::TestResult>| {
-                    t.as_ref().ok().map(|t| (t.statistic, t.p))
+                let pick = |t: &Stat<crate::stats::TestResult>| crate::results::StatP {
+                    statistic: t.as_ref().ok().map(|t| t.statistic),
+                    p: t.as_ref().ok().map(|t| t.p),
                 };
                 note_unavailable(&mut notes, "Kruskal-Wallis", &ow.kruskal_wallis);
-                (row.kruskal_h, row.kruskal_p) = pick(&ow.kruskal_wallis).unzip();
+                let kw = pick(&ow.kruskal_wallis);
+                row.kruskal_wallis = crate::results::KruskalResult {
+                    h: kw.statistic,
+                    p: kw.p,
+                };
                 note_unavailable(&mut notes, "Levene", &ow.levene);
-                (row.levene_stat, row.levene_p) = pick(&ow.levene).unzip();
+                row.levene = pick(&ow.levene);
                 note_unavailable(&mut notes, "Brown-Forsythe", &ow.brown_forsythe);
-                (row.brown_forsythe_stat, row.brown_forsythe_p) = pick(&ow.brown_forsythe).unzip();
+                row.brown_forsythe = pick(&ow.brown_forsythe);
                 note_unavailable(&mut notes, "Bartlett", &ow.bartlett);
-                (row.bartlett_stat, row.bartlett_p) = pick(&ow.bartlett).unzip();
+                row.bartlett = pick(&ow.bartlett);
                 row.sd_ratio = ok(&ow.sd_ratio);
-                row.n_beyond_3sd = ok(&ow.n_beyond_3sd).map(|n| n as i64);
+                row.n_beyond_3sd = ok(&ow.n_beyond_3sd).map(|n| n as u64);
                 if let Ok(e) = &ow.effect {
-                    row.eta_squared = Some(e.eta_squared);
-                    row.omega_squared = Some(e.omega_squared);
+                    row.effect.eta_squared = Some(e.eta_squared);
+                    row.effect.omega_squared = Some(e.omega_squared);
                 }
                 // Shapiro-Wilk on the residuals (value - group mean), as the bundle computed it.
                 match (&ow.shapiro_wilk, &ow.dagostino_pearson) {
@@ -895,11 +861,11 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
                     _ => note_unavailable(&mut notes, "Shapiro-Wilk", &ow.shapiro_wilk),
                 }
                 if let Ok(sw) = &ow.shapiro_wilk {
-                    row.shapiro_w = Some(sw.w);
-                    row.shapiro_p = Some(sw.p);
+                    row.shapiro_wilk.w = Some(sw.w);
+                    row.shapiro_wilk.p = Some(sw.p);
                 }
                 if let (Some(stat), Some(p)) = (ow.leading.statistic, ow.leading.p) {
-                    let serial_fails = row.serial_p.is_some_and(|sp| sp < options.alpha);
+                    let serial_fails = row.serial_dependence.p.is_some_and(|sp| sp < options.alpha);
                     if serial_fails && p <= options.fdr_level {
                         // What the leading test gives when the dependence is allowed for.
                         let deff = serial::design_effect(&groups);
@@ -932,42 +898,39 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
         if let Some(fit) = &blocked {
             leading = Some(LeadingMethod::ClassicF);
             declined = false;
-            row.leading_method = Some(BLOCKED_F.into());
-            row.leading_reason = Some(
+            row.leading.method = Some(LeadingTest::BlockedF);
+            row.leading.reason = Some(
                 "the factor varies within the subgroups: F of the levels adjusted for the subgroups (blocks)"
                     .into(),
             );
-            row.welch_f = None;
-            row.welch_df1 = None;
-            row.welch_df2 = None;
-            row.welch_p = None;
+            row.welch = crate::results::WelchResult::default();
             push_note(
                 &mut notes,
                 "Welch: no Welch-type test is used with subgroups as blocks; the spreads are checked on the residuals of the additive model",
             );
             match &fit.levels_test {
                 Ok(t) => {
-                    row.leading_statistic = Some(t.statistic);
-                    row.leading_p = Some(t.p);
-                    row.anova_f = Some(t.statistic);
-                    row.anova_p = Some(t.p);
+                    row.leading.statistic = Some(t.statistic);
+                    row.leading.p = Some(t.p);
+                    row.anova.f = Some(t.statistic);
+                    row.anova.p = Some(t.p);
                 }
                 Err(e) => {
-                    row.leading_statistic = None;
-                    row.leading_p = None;
-                    row.anova_f = None;
-                    row.anova_p = None;
+                    row.leading.statistic = None;
+                    row.leading.p = None;
+                    row.anova.f = None;
+                    row.anova.p = None;
                     push_note(&mut notes, &format!("blocked F: {}", e.reason));
                 }
             }
-            row.anova_df1 = Some(fit.df_levels);
-            row.anova_df2 = Some(fit.df_resid);
-            row.ss_between = Some(fit.ss_levels);
-            row.ss_within = Some(fit.ss_resid);
-            row.ms_within = Some(fit.ms_resid).filter(|m| m.is_finite());
-            row.resid_sd = row.ms_within.map(f64::sqrt);
+            row.anova.df_between = Some(fit.df_levels);
+            row.anova.df_within = Some(fit.df_resid);
+            row.anova.ss_between = Some(fit.ss_levels);
+            row.anova.ss_within = Some(fit.ss_resid);
+            row.anova.ms_within = Some(fit.ms_resid).filter(|m| m.is_finite());
+            row.anova.resid_sd = row.anova.ms_within.map(f64::sqrt);
             let total = fit.ss_levels + fit.ss_blocks + fit.ss_resid;
-            row.r_squared = (total > 0.0).then(|| 1.0 - fit.ss_resid / total);
+            row.anova.r_squared = (total > 0.0).then(|| 1.0 - fit.ss_resid / total);
             // Between-subgroup variance (one-way ANOVA estimator on the subgroup sizes).
             if let Ok(b) = &fit.blocks_test {
                 let n = fit.n as f64;
@@ -979,7 +942,7 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
                     / (fit.n_blocks as f64 - 1.0);
                 let ms_blocks = b.statistic * fit.ms_resid;
                 if n0 > 0.0 {
-                    row.var_subgroups = Some(((ms_blocks - fit.ms_resid) / n0).max(0.0));
+                    row.design.var_subgroups = Some(((ms_blocks - fit.ms_resid) / n0).max(0.0));
                 }
             }
             pairs_ready = Some(
@@ -1005,20 +968,23 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
         let vc = bundle_vc.unwrap_or_else(|| one_way_random(&summaries, options.confidence));
         note_unavailable(&mut notes, "variance components", &vc);
         if let Ok(vc) = &vc {
-            row.var_between = Some(vc.between);
-            row.var_within = Some(vc.within);
-            row.share_between = Some(vc.share_between);
-            if let Some(sub) = row.var_subgroups {
+            let out = &mut row.variance_components;
+            out.between = Some(vc.between);
+            out.within = Some(vc.within);
+            out.share_between = Some(vc.share_between);
+            if let Some(sub) = row.design.var_subgroups {
                 let total = vc.between + vc.within + sub;
                 if total > 0.0 {
-                    row.share_between = Some(vc.between / total);
-                    row.share_subgroups = Some(sub / total);
+                    out.share_between = Some(vc.between / total);
+                    row.design.share_subgroups = Some(sub / total);
                 }
             }
-            row.icc = Some(vc.icc);
+            out.icc = Some(vc.icc);
             if let Ok(ci) = &vc.icc_ci {
-                row.icc_low = Some(ci.low);
-                row.icc_high = Some(ci.high);
+                out.icc_ci = crate::results::OptInterval {
+                    low: Some(ci.low),
+                    high: Some(ci.high),
+                };
             }
         }
         if let Some(n) = &nested_fit {
@@ -1045,14 +1011,14 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
             }
             match &n.components {
                 Ok(c) => {
-                    row.var_between = Some(c.levels);
-                    row.var_subgroups = Some(c.subgroups);
-                    row.var_within = Some(c.within);
-                    row.share_between = Some(c.share_levels);
-                    row.share_subgroups = Some(c.share_subgroups);
-                    row.icc = None;
-                    row.icc_low = None;
-                    row.icc_high = None;
+                    row.variance_components = crate::results::ComponentsResult {
+                        between: Some(c.levels),
+                        within: Some(c.within),
+                        share_between: Some(c.share_levels),
+                        ..Default::default()
+                    };
+                    row.design.var_subgroups = Some(c.subgroups);
+                    row.design.share_subgroups = Some(c.share_subgroups);
                     push_note(
                         &mut notes,
                         &format!(
@@ -1067,7 +1033,7 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
                 Err(e) => push_note(&mut notes, &format!("three-level components: {}", e.reason)),
             }
         }
-        if let Some(sd) = row.resid_sd.filter(|s| *s > 0.0) {
+        if let Some(sd) = row.anova.resid_sd.filter(|s| *s > 0.0) {
             let sens = bundle_sensitivity.unwrap_or_else(|| {
                 sensitivity(
                     &summaries,
@@ -1080,32 +1046,33 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
             });
             note_unavailable(&mut notes, "sensitivity", &sens);
             if let Ok(s) = sens {
-                row.min_detectable_diff = ok(&s.min_detectable_diff);
-                row.min_detectable_pct_tolerance = s.min_detectable_pct_tolerance;
+                row.sensitivity.min_detectable_diff = ok(&s.min_detectable_diff);
+                row.sensitivity.min_detectable_pct_tolerance = s.min_detectable_pct_tolerance;
             }
         }
     }
     if let Some(r) = c.characteristic.resolution {
-        push_resolution_notes(&mut notes, r, tol_width, row.resid_sd, &groups);
+        push_resolution_notes(&mut notes, r, tol_width, row.anova.resid_sd, &groups);
     }
     // Group table, spread of means and the group that stands out.
-    let effects = posthoc::group_effects(&summaries, row.resid_sd, tol_width);
-    let mut group_rows = Vec::with_capacity(summaries.len());
-    for (k, s) in summaries.iter().enumerate() {
-        let effect = effects.iter().find(|e| e.group_idx == k);
-        group_rows.push(GroupRow {
-            test_idx: row.test_idx,
-            group_idx: k as i64,
-            level: levels[k].clone(),
-            n: s.n as i64,
-            mean: s.mean,
-            sd: s.sd(),
-            min: s.min,
-            max: s.max,
-            origin: origin.clone(),
-            diff_from_grand: effect.map(|e| e.diff_from_grand),
-        });
-    }
+    let effects = posthoc::group_effects(&summaries, row.anova.resid_sd, tol_width);
+    row.groups = summaries
+        .iter()
+        .enumerate()
+        .map(|(k, s)| {
+            let effect = effects.iter().find(|e| e.group_idx == k);
+            GroupResult::from_offsets(
+                levels[k].clone(),
+                s.n,
+                origin.clone(),
+                s.mean,
+                s.sd(),
+                s.min,
+                s.max,
+                effect.map(|e| e.diff_from_grand),
+            )
+        })
+        .collect();
     if summaries.len() >= 2 {
         let (lo, hi) = summaries
             .iter()
@@ -1118,17 +1085,18 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
             .iter()
             .max_by(|a, b| a.diff_from_grand.abs().total_cmp(&b.diff_from_grand.abs()))
         {
-            row.standout_level = Some(levels[e.group_idx].clone());
-            row.standout_diff = Some(e.diff_from_grand);
-            row.standout_sd_units = ok(&e.diff_sd_units);
-            row.standout_pct_tolerance = e.diff_pct_tolerance;
+            row.stands_out = crate::results::StandsOut {
+                level: Some(levels[e.group_idx].clone()),
+                diff: Some(e.diff_from_grand),
+                sd_units: ok(&e.diff_sd_units),
+                pct_tolerance: e.diff_pct_tolerance,
+            };
         }
     }
     row.notes = notes;
     let material_reference = material_reference(c, &summaries);
     Partial {
         row,
-        groups: group_rows,
         summaries,
         levels,
         leading,
@@ -1268,7 +1236,7 @@ mod tests {
         frame.characteristics[0].characteristic.lsl = None;
         let content = check_frame(&frame, &study_options(), None).unwrap();
         let t = &content.tests[0];
-        assert_eq!(t.state, state::DIFFERS_MATERIAL, "{}", t.notes);
+        assert_eq!(t.state, TestState::DiffersMaterial, "{}", t.notes);
         assert!(
             t.notes.contains("the distance from the target to the USL"),
             "{}",
@@ -1291,7 +1259,7 @@ mod tests {
         let frame = cell.frame(&cell.groups(&mut rng));
         let content = check_frame(&frame, &study_options(), None).unwrap();
         let t = &content.tests[0];
-        assert_eq!(t.state, state::DIFFERS, "{}", t.notes);
+        assert_eq!(t.state, TestState::Differs, "{}", t.notes);
         assert!(t.notes.contains("materiality:"), "{}", t.notes);
     }
 

@@ -16,7 +16,6 @@ use std::path::{Path, PathBuf};
 use chrono::{DateTime, Duration, NaiveDate, Utc};
 use statrs::distribution::{ContinuousCDF, StudentsT};
 
-use crate::analysis::state;
 use crate::calendar::PlantCalendar;
 use crate::config::{CharacteristicConfig, Config};
 use crate::model::{Period, PeriodKind};
@@ -26,8 +25,10 @@ use crate::report::{
     GroupPoint, Limits, MonthReport, RequirementNote, ShareInput, SharePeriod, Size, StateCounts,
     TimedValue, TrendInput, TrendPeriod,
 };
+use crate::results::TestState;
+use crate::results::{PairResult, TestResult};
 use crate::stats::decimal::Decimal;
-use crate::storage::runs::{self, RunContent, StoredRun, TestRow};
+use crate::storage::runs::{self, RunContent, StoredRun};
 use crate::storage::Store;
 use crate::{Error, Result};
 
@@ -47,7 +48,7 @@ pub struct LoadedRun {
 }
 
 impl LoadedRun {
-    fn test(&self, characteristic: &str, factor: &str) -> Option<&TestRow> {
+    fn test(&self, characteristic: &str, factor: &str) -> Option<&TestResult> {
         self.content
             .tests
             .iter()
@@ -95,13 +96,13 @@ pub fn load_runs(
     .collect()
 }
 
-/// The stored state name as the report's [`FlagState`].
-pub fn flag_state(stored: &str) -> FlagState {
-    match stored {
-        state::DIFFERS_MATERIAL => FlagState::DiffersMaterial,
-        state::DIFFERS => FlagState::Differs,
-        state::NO_EVIDENCE => FlagState::NoEvidence,
-        state::DIFFERS_DEPENDENT => FlagState::NotIndependent,
+/// A test's state as the report's [`FlagState`].
+pub fn flag_state(state: TestState) -> FlagState {
+    match state {
+        TestState::DiffersMaterial => FlagState::DiffersMaterial,
+        TestState::Differs => FlagState::Differs,
+        TestState::NoEvidence => FlagState::NoEvidence,
+        TestState::DiffersDependent => FlagState::NotIndependent,
         _ => FlagState::TooLittleData,
     }
 }
@@ -163,17 +164,15 @@ fn origin_value(text: &str) -> f64 {
     Decimal::parse(text).map_or(0.0, |d| d.to_f64())
 }
 
-fn group_points(content: &RunContent, test_idx: i64) -> Vec<GroupPoint> {
-    content
-        .groups
+fn group_points(t: &TestResult) -> Vec<GroupPoint> {
+    t.groups
         .iter()
-        .filter(|g| g.test_idx == test_idx)
         .map(|g| {
-            let mean = origin_value(&g.origin) + g.mean;
-            let (ci_low, ci_high) = interval(g.n as u64, mean, g.sd);
+            let mean = origin_value(&g.origin) + g.mean_offset;
+            let (ci_low, ci_high) = interval(g.n, mean, g.sd);
             GroupPoint {
-                level: g.level.clone(),
-                n: g.n as u64,
+                level: g.name.clone(),
+                n: g.n,
                 mean,
                 ci_low,
                 ci_high,
@@ -294,25 +293,15 @@ fn finding_items(
         // The pairs of the last day of the month that flagged it with this group standing out.
         let last_flag = loaded.iter().rev().find_map(|r| {
             r.test(&f.characteristic, &f.factor)
-                .filter(|t| {
-                    runs::is_flag_state(&t.state) && t.standout_level.as_deref() == Some(&f.level)
-                })
+                .filter(|t| t.state.is_flag() && t.stands_out.level.as_deref() == Some(&f.level))
                 .map(|t| (r, t))
         });
         let (mut pairs, mut pairs_not_shown, mut pairs_period) = (Vec::new(), 0, String::new());
         if let Some((r, t)) = last_flag {
             pairs_period = r.run.header.period_label.clone();
-            for p in r.content.pairs.iter().filter(|p| p.test_idx == t.test_idx) {
-                if p.ci_low > 0.0 || p.ci_high < 0.0 {
-                    pairs.push(crate::report::PairRow {
-                        a: p.level_a.clone(),
-                        b: p.level_b.clone(),
-                        diff: p.diff,
-                        ci_low: p.ci_low,
-                        ci_high: p.ci_high,
-                        p_adj: p.p_adj,
-                        method: pair_method_name(&p.method),
-                    });
+            for p in &t.pairs {
+                if p.ci.low > 0.0 || p.ci.high < 0.0 {
+                    pairs.push(pair_row(p));
                 } else {
                     pairs_not_shown += 1;
                 }
@@ -366,8 +355,8 @@ fn trend_from_runs(
                 label: r.run.header.period_label.clone(),
                 start: r.start(),
                 end: r.end(),
-                state: test.map_or(FlagState::NotRun, |t| flag_state(&t.state)),
-                groups: test.map_or(Vec::new(), |t| group_points(&r.content, t.test_idx)),
+                state: test.map_or(FlagState::NotRun, |t| flag_state(t.state)),
+                groups: test.map_or(Vec::new(), group_points),
             }
         })
         .collect();
@@ -396,12 +385,16 @@ fn share_from_runs(
                 label: r.run.header.period_label.clone(),
                 start: r.start(),
                 end: r.end(),
-                state: test.map_or(FlagState::NotRun, |t| flag_state(&t.state)),
-                share: test.and_then(|t| t.share_between),
+                state: test.map_or(FlagState::NotRun, |t| flag_state(t.state)),
+                share: test.and_then(|t| t.variance_components.share_between),
                 // The stored interval is that of the ICC, which in the one-way random model is
                 // the between-group share of the total variance.
-                ci_low: test.and_then(|t| t.icc_low).map(|v| v.clamp(0.0, 1.0)),
-                ci_high: test.and_then(|t| t.icc_high).map(|v| v.clamp(0.0, 1.0)),
+                ci_low: test
+                    .and_then(|t| t.variance_components.icc_ci.low)
+                    .map(|v| v.clamp(0.0, 1.0)),
+                ci_high: test
+                    .and_then(|t| t.variance_components.icc_ci.high)
+                    .map(|v| v.clamp(0.0, 1.0)),
             }
         })
         .collect();
@@ -515,7 +508,7 @@ fn grid_from_runs(
                     by_label
                         .get(l.as_str())
                         .and_then(|r| r.test(&c.name, &f.name))
-                        .map_or(FlagState::NotRun, |t| flag_state(&t.state))
+                        .map_or(FlagState::NotRun, |t| flag_state(t.state))
                 })
                 .collect();
             rows.push(GridRow {
@@ -727,18 +720,32 @@ fn day_means(calendar: &PlantCalendar, tv: &[(i64, f64)], at_ms: i64) -> Vec<Tim
         .collect()
 }
 
-fn leading_name(t: &TestRow) -> String {
-    match t.leading_method.as_deref() {
-        Some("welch") => "Welch".to_string(),
-        Some("f_star") => "Brown-Forsythe F*".to_string(),
-        Some("exact_permutation") => "exact permutation".to_string(),
-        Some(crate::analysis::BLOCKED_F) => "F with subgroups as blocks".to_string(),
-        Some(_) => "classic F".to_string(),
+fn leading_name(t: &TestResult) -> String {
+    use crate::results::LeadingTest;
+    match t.leading.method {
+        Some(LeadingTest::Welch) => "Welch".to_string(),
+        Some(LeadingTest::FStar) => "Brown-Forsythe F*".to_string(),
+        Some(LeadingTest::ExactPermutation) => "exact permutation".to_string(),
+        Some(LeadingTest::BlockedF) => "F with subgroups as blocks".to_string(),
+        Some(LeadingTest::ClassicF) => "classic F".to_string(),
         None => "none".to_string(),
     }
 }
 
-fn flagged_item(c: &CharacteristicConfig, r: &LoadedRun, t: &TestRow) -> FlaggedItem {
+/// A stored pair as a row of the report's pair tables.
+fn pair_row(p: &PairResult) -> report::PairRow {
+    report::PairRow {
+        a: p.a.clone(),
+        b: p.b.clone(),
+        diff: p.diff,
+        ci_low: p.ci.low,
+        ci_high: p.ci.high,
+        p_adj: p.p_adj,
+        method: pair_method_name(&p.method),
+    }
+}
+
+fn flagged_item(c: &CharacteristicConfig, r: &LoadedRun, t: &TestResult) -> FlaggedItem {
     FlaggedItem {
         characteristic: t.characteristic.clone(),
         factor: t.factor.clone(),
@@ -748,29 +755,19 @@ fn flagged_item(c: &CharacteristicConfig, r: &LoadedRun, t: &TestRow) -> Flagged
         } else {
             r.run.header.period_label.clone()
         },
-        state: flag_state(&t.state),
+        state: flag_state(t.state),
         test: leading_name(t),
-        p_value: t.leading_p.unwrap_or(f64::NAN),
+        p_value: t.leading.p.unwrap_or(f64::NAN),
         q_value: t.q_value.unwrap_or(f64::NAN),
-        share_between: t.share_between,
-        standing_out: t.standout_level.clone().unwrap_or_else(|| "-".to_string()),
-        diff_units: t.standout_diff.unwrap_or(f64::NAN),
-        diff_pct_tolerance: t.standout_pct_tolerance,
-        pairs: r
-            .content
-            .pairs
-            .iter()
-            .filter(|p| p.test_idx == t.test_idx)
-            .map(|p| report::PairRow {
-                a: p.level_a.clone(),
-                b: p.level_b.clone(),
-                diff: p.diff,
-                ci_low: p.ci_low,
-                ci_high: p.ci_high,
-                p_adj: p.p_adj,
-                method: pair_method_name(&p.method),
-            })
-            .collect(),
+        share_between: t.variance_components.share_between,
+        standing_out: t
+            .stands_out
+            .level
+            .clone()
+            .unwrap_or_else(|| "-".to_string()),
+        diff_units: t.stands_out.diff.unwrap_or(f64::NAN),
+        diff_pct_tolerance: t.stands_out.pct_tolerance,
+        pairs: t.pairs.iter().map(pair_row).collect(),
     }
 }
 
@@ -779,6 +776,7 @@ fn pair_method_name(key: &str) -> String {
     match key {
         "games_howell" => "Games-Howell".to_string(),
         "tukey_kramer" => "Tukey-Kramer".to_string(),
+        "tukey_kramer_adjusted" => "Tukey-Kramer on means adjusted for the subgroups".to_string(),
         other => other.to_string(),
     }
 }
@@ -787,12 +785,7 @@ fn pair_method_name(key: &str) -> String {
 fn flag_counts(loaded: &[LoadedRun]) -> BTreeMap<(String, String), usize> {
     let mut out = BTreeMap::new();
     for r in loaded {
-        for t in r
-            .content
-            .tests
-            .iter()
-            .filter(|t| runs::is_flag_state(&t.state))
-        {
+        for t in r.content.tests.iter().filter(|t| t.state.is_flag()) {
             *out.entry((t.characteristic.clone(), t.factor.clone()))
                 .or_insert(0) += 1;
         }
@@ -858,7 +851,7 @@ pub fn month_report(
     let n_new_flags: usize = loaded
         .iter()
         .flat_map(|r| r.content.tests.iter())
-        .filter(|t| t.is_new && runs::is_flag_state(&t.state))
+        .filter(|t| t.is_new && t.state.is_flag())
         .count();
     if n_new_flags > 0 {
         new_this_month.push(format!(
@@ -870,12 +863,7 @@ pub fn month_report(
     let mut flagged = Vec::new();
     let mut requirement_notes = Vec::new();
     for r in &loaded {
-        for t in r
-            .content
-            .tests
-            .iter()
-            .filter(|t| runs::is_flag_state(&t.state))
-        {
+        for t in r.content.tests.iter().filter(|t| t.state.is_flag()) {
             let Some(c) = config.characteristic(&t.characteristic) else {
                 continue;
             };
@@ -972,42 +960,43 @@ pub fn month_report(
 }
 
 /// Requirement-check notes of one test: the engine's notes plus what the stored checks say.
-fn requirement_texts(t: &TestRow) -> Vec<String> {
+fn requirement_texts(t: &TestResult) -> Vec<String> {
     let mut out = Vec::new();
-    match (t.design.as_deref(), t.n_subgroups) {
-        (Some("nested"), Some(n)) => out.push(format!(
+    use crate::results::{DesignKind, LeadingTest};
+    match (t.design.kind, t.design.n_subgroups) {
+        (Some(DesignKind::Nested), Some(n)) => out.push(format!(
             "nested design: tested on the means of its {n} subgroups (parts measured together share their subgroup's deviation)"
         )),
-        (Some("blocked"), Some(n)) => out.push(format!(
+        (Some(DesignKind::Blocked), Some(n)) => out.push(format!(
             "blocked design: the groups vary within the {n} subgroups, which are taken out as blocks"
         )),
-        (Some("cell_means"), Some(n)) => out.push(format!(
+        (Some(DesignKind::CellMeans), Some(n)) => out.push(format!(
             "mixed design: tested on the mean of each group within each of the {n} subgroups"
         )),
         _ => {}
     }
-    if t.state == crate::analysis::state::DIFFERS_DEPENDENT {
+    if t.state == TestState::DiffersDependent {
         out.push(
             "values not independent: the difference does not hold once the serial dependence is allowed for; name the subgroup column"
                 .to_string(),
         );
     }
-    if let Some(reason) = &t.leading_reason {
-        match t.leading_method.as_deref() {
-            Some("welch") => out.push(format!("Welch used: {reason}")),
-            Some("f_star") => out.push(format!("Brown-Forsythe F* used: {reason}")),
+    if let Some(reason) = &t.leading.reason {
+        match t.leading.method {
+            Some(LeadingTest::Welch) => out.push(format!("Welch used: {reason}")),
+            Some(LeadingTest::FStar) => out.push(format!("Brown-Forsythe F* used: {reason}")),
             _ => {}
         }
     }
-    if t.recommend_kruskal == Some(true) {
+    if t.leading.recommend_kruskal_wallis == Some(true) {
         out.push(format!(
             "residuals far from normal (Shapiro-Wilk p = {}): read the Kruskal-Wallis result (p = {}) beside it",
-            fmt(t.shapiro_p),
-            fmt(t.kruskal_p)
+            fmt(t.shapiro_wilk.p),
+            fmt(t.kruskal_wallis.p)
         ));
     }
     if let Some(n) = t.n_beyond_3sd.filter(|&n| n > 0) {
-        let c = crate::stats::spread::outlier_excess(n as usize, t.n_obs.max(0) as usize);
+        let c = crate::stats::spread::outlier_excess(n as usize, t.n_obs as usize);
         // Normal residuals put 0.27 % beyond 3 SD: only a count well above that is a sign.
         if c.p < 0.05 {
             out.push(format!(
@@ -1141,7 +1130,7 @@ pub fn write_story_charts(
         .iter()
         .find(|r| {
             r.test(detail_c, detail_f)
-                .is_some_and(|t| runs::is_flag_state(&t.state))
+                .is_some_and(|t| t.state.is_flag())
         })
         .or_else(|| month_runs.first())
         .map(|r| r.run.header.period_label.clone());

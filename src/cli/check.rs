@@ -12,13 +12,14 @@ use chrono::{NaiveDate, Utc};
 use clap::Args;
 
 use crate::analysis::run::check_and_record;
-use crate::analysis::{state, CheckOptions};
+use crate::analysis::CheckOptions;
 use crate::calendar::PlantCalendar;
 use crate::config::Config;
 use crate::model::Period;
 use crate::output::{refuse_protected, AtomicFile, Protected};
+use crate::results::TestResult;
 use crate::stats::fdr::FdrMethod;
-use crate::storage::runs::{is_flag_state, RunContent, StoredRun, TestRow};
+use crate::storage::runs::{RunContent, StoredRun};
 use crate::{Error, Result};
 
 /// Flags of `samewise check`.
@@ -177,7 +178,7 @@ pub fn run(args: &CheckArgs) -> Result<ExitCode> {
             return Err(Error::io("<stdout>", e));
         }
     }
-    let flagged = content.tests.iter().any(|t| is_flag_state(&t.state));
+    let flagged = content.tests.iter().any(|t| t.is_flag());
     let no_data = content.tests.iter().all(|t| t.n_obs == 0);
     if no_data {
         eprintln!(
@@ -210,72 +211,61 @@ pub fn cell(x: Option<f64>) -> String {
 
 /// The leading test of a row in a table column: `Welch F`, `F`, `exact` (the permutation test
 /// of constant groups), or `-` when none ran or the rule declined to judge.
-pub fn leading(t: &TestRow) -> &'static str {
-    if t.state == crate::analysis::state::TOO_FEW_TO_COMPARE {
+pub fn leading(t: &TestResult) -> &'static str {
+    if t.state == crate::results::TestState::TooFewToCompare {
         return "-";
     }
-    match t.leading_method.as_deref() {
-        Some("welch") => "Welch F",
-        Some("f_star") => "F*",
-        Some("exact_permutation") => "exact",
-        Some("blocked_f") => "F blocked",
-        Some(_) => "F",
-        None => "-",
-    }
+    t.leading.method.map_or("-", |m| m.short())
 }
 
 /// The design of a row in a table column: `values` (independent), `nested`, `blocked`,
 /// `cells`, or `-` for runs stored before designs were recorded.
-pub fn design_cell(t: &TestRow) -> &'static str {
-    match t.design.as_deref() {
-        Some("independent") => "values",
-        Some("nested") => "nested",
-        Some("blocked") => "blocked",
-        Some("cell_means") => "cells",
-        _ => "-",
-    }
+pub fn design_cell(t: &TestResult) -> &'static str {
+    t.design.kind.map_or("-", |d| d.short())
 }
 
 /// The between-group share of a row as a percentage with one decimal, or `-`.
-pub fn share(t: &TestRow) -> String {
-    t.share_between
+pub fn share(t: &TestResult) -> String {
+    t.variance_components
+        .share_between
         .map_or("-".to_string(), |s| format!("{:.1}%", 100.0 * s))
 }
 
 /// The standing-out group in words: `M2 +0.0113 (1.1 SD, 5.6% tol)`.
-pub fn standout(t: &TestRow, unit: &str) -> String {
-    let Some(level) = &t.standout_level else {
+pub fn standout(t: &TestResult, unit: &str) -> String {
+    let s = &t.stands_out;
+    let Some(level) = &s.level else {
         return "-".into();
     };
-    let mut s = format!(
+    let mut text = format!(
         "{level} {}{}{}",
-        if t.standout_diff.unwrap_or(0.0) >= 0.0 {
+        if s.diff.unwrap_or(0.0) >= 0.0 {
             "+"
         } else {
             ""
         },
-        cell(t.standout_diff),
-        if unit.is_empty() || t.standout_diff.is_none() {
+        cell(s.diff),
+        if unit.is_empty() || s.diff.is_none() {
             String::new()
         } else {
             format!(" {unit}")
         }
     );
-    if let Some(sd) = t.standout_sd_units {
-        s.push_str(&format!(" ({:+.2} SD", sd));
-        if let Some(pct) = t.standout_pct_tolerance {
-            s.push_str(&format!(", {pct:+.1}% tol"));
+    if let Some(sd) = s.sd_units {
+        text.push_str(&format!(" ({:+.2} SD", sd));
+        if let Some(pct) = s.pct_tolerance {
+            text.push_str(&format!(", {pct:+.1}% tol"));
         }
-        s.push(')');
+        text.push(')');
     }
-    s
+    text
 }
 
-fn sorted(content: &RunContent) -> Vec<&TestRow> {
-    let mut tests: Vec<&TestRow> = content.tests.iter().collect();
+fn sorted(content: &RunContent) -> Vec<&TestResult> {
+    let mut tests: Vec<&TestResult> = content.tests.iter().collect();
     tests.sort_by(|a, b| {
-        (state::rank(&a.state), a.q_value.unwrap_or(2.0), a.test_idx)
-            .partial_cmp(&(state::rank(&b.state), b.q_value.unwrap_or(2.0), b.test_idx))
+        (a.state.rank(), a.q_value.unwrap_or(2.0), a.index)
+            .partial_cmp(&(b.state.rank(), b.q_value.unwrap_or(2.0), b.index))
             .unwrap_or(std::cmp::Ordering::Equal)
     });
     tests
@@ -297,11 +287,7 @@ pub fn print_summary(
             .map(|c| c.unit.clone())
             .unwrap_or_default()
     };
-    let n_flag = content
-        .tests
-        .iter()
-        .filter(|t| is_flag_state(&t.state))
-        .count();
+    let n_flag = content.tests.iter().filter(|t| t.is_flag()).count();
     writeln!(
         out,
         "check {} ({}), run {} version {}: {} tests, {} flagged at {} q <= {}",
@@ -330,7 +316,7 @@ pub fn print_summary(
     )?;
     let mut unflagged = 0usize;
     for t in sorted(content) {
-        if !is_flag_state(&t.state) {
+        if !t.is_flag() {
             unflagged += 1;
             if max_unflagged.is_some_and(|m| unflagged > m) {
                 continue;
@@ -339,13 +325,13 @@ pub fn print_summary(
         writeln!(
             out,
             "{:<24} {:<20} {:<14} {:<8} {:<10} {:<9} {:>9} {:>9} {:>7}  {:<34} {}",
-            state::label(&t.state),
+            t.state.label(),
             t.characteristic,
             t.factor,
             design_cell(t),
             leading(t),
-            cell(t.leading_statistic),
-            super::format::p_cell(t.leading_p),
+            cell(t.leading.statistic),
+            super::format::p_cell(t.leading.p),
             super::format::p_cell(t.q_value),
             share(t),
             standout(t, &unit(&t.characteristic)),
@@ -363,145 +349,24 @@ pub fn print_summary(
     writeln!(out, "{}", crate::CAUTION)
 }
 
-fn json_num(x: Option<f64>) -> serde_json::Value {
-    x.filter(|v| v.is_finite())
-        .map_or(serde_json::Value::Null, serde_json::Value::from)
-}
-
-/// Gives every `null` of a test's JSON a sibling `<key>_reason` (the JSON convention of
-/// docs/json.md): the reason the analysis noted for that statistic when there is one (its notes
-/// hold `Welch: ...`, `ANOVA: ...`), "no specification limits" for the tolerance-based fields,
-/// and otherwise what the state says (too little data, declined, no p-value).
-fn add_null_reasons(v: &mut serde_json::Value, t: &TestRow) {
-    use crate::analysis::state;
-    let note_for = |label: &str| {
-        t.notes
-            .split("; ")
-            .find_map(|n| n.strip_prefix(&format!("{label}: ")).map(str::to_string))
-    };
-    let general = match t.state.as_str() {
-        state::TOO_LITTLE_DATA => format!(
-            "too little data: {}",
-            if t.notes.is_empty() {
-                "fewer than two groups with values"
-            } else {
-                &t.notes
-            }
-        ),
-        state::TOO_FEW_TO_COMPARE => t
-            .leading_reason
-            .clone()
-            .unwrap_or_else(|| "too few values per group to compare".into()),
-        _ => "not computed for this test (see notes)".into(),
-    };
-    let no_limits = "no specification limits (LSL and USL) configured for this characteristic";
-    let sections = [
-        ("anova", "ANOVA"),
-        ("effect", "ANOVA"),
-        ("welch", "Welch"),
-        ("kruskal_wallis", "Kruskal-Wallis"),
-        ("levene", "Levene"),
-        ("brown_forsythe", "Brown-Forsythe"),
-        ("bartlett", "Bartlett"),
-        ("shapiro_wilk", "Shapiro-Wilk"),
-        ("variance_components", "variance components"),
-        ("serial_dependence", "serial dependence"),
-        ("sensitivity", "sensitivity"),
-    ];
-    let reason_for = |section: &str, key: &str| -> String {
-        if key.contains("tolerance") && t.tolerance.is_none() {
-            return no_limits.into();
-        }
-        if let Some((_, label)) = sections.iter().find(|(s, _)| *s == section) {
-            if let Some(r) = note_for(label) {
-                return r;
-            }
-        }
-        match (section, key) {
-            ("", "q_value") => {
-                "no p-value, so the test is outside the false-discovery family".into()
-            }
-            ("leading", _) => t.leading_reason.clone().unwrap_or_else(|| general.clone()),
-            ("stands_out", "sd_units") => "the within-group SD is unavailable".into(),
-            ("design", "kind") => "stored before designs were recorded (independent values)".into(),
-            ("design", _) if t.n_subgroups.is_none() => {
-                "no subgroups: the values were tested as independent".into()
-            }
-            ("design", _) => "only a nested design has a between-subgroup component".into(),
-            ("serial_dependence", _) if t.design.as_deref().is_some_and(|d| d != "independent") => {
-                "checked only when values are tested as independent (this test used its subgroups)"
-                    .into()
-            }
-            ("", "sd_ratio") => note_for("SD ratio").unwrap_or_else(|| general.clone()),
-            _ => general.clone(),
-        }
-    };
-    fn walk(v: &mut serde_json::Value, section: &str, reason_for: &dyn Fn(&str, &str) -> String) {
-        if let serde_json::Value::Object(map) = v {
-            let nulls: Vec<String> = map
-                .iter()
-                .filter(|(k, v)| v.is_null() && !map.contains_key(&format!("{k}_reason")))
-                .map(|(k, _)| k.clone())
-                .collect();
-            for key in nulls {
-                let reason = reason_for(section, &key);
-                map.insert(format!("{key}_reason"), serde_json::Value::String(reason));
-            }
-            for (key, child) in map.iter_mut() {
-                if child.is_object() {
-                    let next = if section.is_empty() {
-                        key.as_str()
-                    } else {
-                        section
-                    };
-                    walk(child, next, reason_for);
-                }
-            }
+/// One test as a JSON object (every `null` with a reason), with its characteristic's unit and
+/// limits from the configuration.
+pub fn test_json(config: &Config, t: &TestResult) -> serde_json::Value {
+    let mut v = t.to_json();
+    let c = config.characteristic(&t.characteristic);
+    let none = "no such limit configured for this characteristic";
+    v["unit"] = c.map(|c| c.unit.clone()).unwrap_or_default().into();
+    for (key, value) in [
+        ("lsl", c.and_then(|c| c.lsl)),
+        ("usl", c.and_then(|c| c.usl)),
+        ("target", c.and_then(|c| c.target)),
+    ] {
+        v[key] = value.into();
+        if value.is_none() {
+            v[format!("{key}_reason")] = none.into();
         }
     }
-    walk(v, "", &reason_for);
-}
-
-/// One test as a JSON object (field names as the stored columns; every `null` with a reason).
-pub fn test_json(t: &TestRow) -> serde_json::Value {
-    let mut v = test_json_values(t);
-    add_null_reasons(&mut v, t);
     v
-}
-
-fn test_json_values(t: &TestRow) -> serde_json::Value {
-    serde_json::json!({
-        "characteristic": t.characteristic, "factor": t.factor, "state": t.state, "is_new": t.is_new,
-        "n_obs": t.n_obs, "n_groups": t.n_groups, "n_groups_used": t.n_groups_used,
-        "design": {"kind": t.design, "n_subgroups": t.n_subgroups,
-                   "var_subgroups": json_num(t.var_subgroups), "share_subgroups": json_num(t.share_subgroups)},
-        "serial_dependence": {"r1": json_num(t.serial_r1), "z": json_num(t.serial_z), "p": json_num(t.serial_p)},
-        "leading": {"method": t.leading_method, "reason": t.leading_reason,
-                    "statistic": json_num(t.leading_statistic), "p": json_num(t.leading_p),
-                    "recommend_kruskal_wallis": t.recommend_kruskal},
-        "q_value": json_num(t.q_value),
-        "anova": {"f": json_num(t.anova_f), "df_between": json_num(t.anova_df1), "df_within": json_num(t.anova_df2),
-                  "p": json_num(t.anova_p), "ss_between": json_num(t.ss_between), "ss_within": json_num(t.ss_within),
-                  "ms_within": json_num(t.ms_within), "r_squared": json_num(t.r_squared), "resid_sd": json_num(t.resid_sd)},
-        "welch": {"f": json_num(t.welch_f), "df1": json_num(t.welch_df1), "df2": json_num(t.welch_df2), "p": json_num(t.welch_p)},
-        "kruskal_wallis": {"h": json_num(t.kruskal_h), "p": json_num(t.kruskal_p)},
-        "levene": {"statistic": json_num(t.levene_stat), "p": json_num(t.levene_p)},
-        "brown_forsythe": {"statistic": json_num(t.brown_forsythe_stat), "p": json_num(t.brown_forsythe_p)},
-        "bartlett": {"statistic": json_num(t.bartlett_stat), "p": json_num(t.bartlett_p)},
-        "shapiro_wilk": {"w": json_num(t.shapiro_w), "p": json_num(t.shapiro_p)},
-        "sd_ratio": json_num(t.sd_ratio), "n_beyond_3sd": t.n_beyond_3sd,
-        "effect": {"eta_squared": json_num(t.eta_squared), "omega_squared": json_num(t.omega_squared)},
-        "variance_components": {"between": json_num(t.var_between), "within": json_num(t.var_within),
-                                "share_between": json_num(t.share_between), "icc": json_num(t.icc),
-                                "icc_ci": {"low": json_num(t.icc_low), "high": json_num(t.icc_high)}},
-        "tolerance": json_num(t.tolerance), "spread_of_means": json_num(t.spread_of_means),
-        "spread_pct_tolerance": json_num(t.spread_pct_tolerance),
-        "stands_out": {"level": t.standout_level, "diff": json_num(t.standout_diff),
-                       "sd_units": json_num(t.standout_sd_units), "pct_tolerance": json_num(t.standout_pct_tolerance)},
-        "sensitivity": {"min_detectable_diff": json_num(t.min_detectable_diff),
-                        "min_detectable_pct_tolerance": json_num(t.min_detectable_pct_tolerance)},
-        "notes": t.notes,
-    })
 }
 
 fn print_json(
@@ -514,37 +379,7 @@ fn print_json(
 ) -> std::io::Result<()> {
     let tests: Vec<serde_json::Value> = sorted(content)
         .into_iter()
-        .map(|t| {
-            let mut v = test_json(t);
-            let groups: Vec<serde_json::Value> = content
-                .groups
-                .iter()
-                .filter(|g| g.test_idx == t.test_idx)
-                .map(|g| {
-                    let mut v = serde_json::json!({"level": g.level, "n": g.n, "mean_offset": g.mean,
-                        "sd": json_num(g.sd), "min_offset": g.min, "max_offset": g.max, "origin": g.origin,
-                        "diff_from_grand": json_num(g.diff_from_grand)});
-                    if g.sd.is_none() {
-                        v["sd_reason"] = "a group of one value has no SD".into();
-                    }
-                    if g.diff_from_grand.is_none() {
-                        v["diff_from_grand_reason"] = "the group was left out of the test".into();
-                    }
-                    v
-                })
-                .collect();
-            let pairs: Vec<serde_json::Value> = content
-                .pairs
-                .iter()
-                .filter(|p| p.test_idx == t.test_idx)
-                .map(|p| serde_json::json!({"a": p.level_a, "b": p.level_b, "method": p.method,
-                    "diff": p.diff, "se": p.se, "statistic": p.statistic, "df": p.df,
-                    "p_adj": p.p_adj, "ci_low": p.ci_low, "ci_high": p.ci_high}))
-                .collect();
-            v["groups"] = groups.into();
-            v["pairs"] = pairs.into();
-            v
-        })
+        .map(|t| test_json(config, t))
         .collect();
     let tz = config.plant.time_zone;
     let findings_reason = findings
@@ -560,7 +395,7 @@ fn print_json(
                 "tool_version": run.header.tool_version, "fdr_method": run.header.fdr_method,
                 "fdr_level": run.header.fdr_level},
         "n_tests": content.tests.len(),
-        "n_flagged": content.tests.iter().filter(|t| is_flag_state(&t.state)).count(),
+        "n_flagged": content.tests.iter().filter(|t| t.is_flag()).count(),
         "tests": tests,
         "caution": crate::CAUTION,
     });
@@ -633,14 +468,10 @@ fn write_csv(
         .to_rfc3339();
     for t in sorted(content) {
         let c = config.characteristic(&t.characteristic);
-        let means: Vec<String> = content
+        let means: Vec<String> = t
             .groups
             .iter()
-            .filter(|g| g.test_idx == t.test_idx)
-            .map(|g| {
-                let origin: f64 = g.origin.parse().unwrap_or(0.0);
-                format!("{}={:?}", g.level, origin + g.mean)
-            })
+            .map(|g| format!("{}={:?}", g.name, g.mean))
             .collect();
         w.write_record([
             period.kind.as_str().to_string(),
@@ -654,29 +485,31 @@ fn write_csv(
             f(c.and_then(|c| c.lsl)),
             f(c.and_then(|c| c.usl)),
             f(c.and_then(|c| c.target)),
-            t.state.clone(),
+            t.state.as_str().to_string(),
             t.is_new.to_string(),
             t.n_obs.to_string(),
             t.n_groups_used.to_string(),
-            t.leading_method.clone().unwrap_or_default(),
-            f(t.leading_statistic),
-            f(t.leading_p),
+            t.leading
+                .method
+                .map_or(String::new(), |m| m.as_str().to_string()),
+            f(t.leading.statistic),
+            f(t.leading.p),
             f(t.q_value),
-            f(t.anova_f),
-            f(t.anova_p),
-            f(t.welch_f),
-            f(t.welch_p),
-            f(t.kruskal_h),
-            f(t.kruskal_p),
-            f(t.brown_forsythe_p),
-            f(t.shapiro_p),
-            f(t.share_between),
+            f(t.anova.f),
+            f(t.anova.p),
+            f(t.welch.f),
+            f(t.welch.p),
+            f(t.kruskal_wallis.h),
+            f(t.kruskal_wallis.p),
+            f(t.brown_forsythe.p),
+            f(t.shapiro_wilk.p),
+            f(t.variance_components.share_between),
             f(t.spread_of_means),
             f(t.spread_pct_tolerance),
-            t.standout_level.clone().unwrap_or_default(),
-            f(t.standout_diff),
-            f(t.standout_sd_units),
-            f(t.standout_pct_tolerance),
+            t.stands_out.level.clone().unwrap_or_default(),
+            f(t.stands_out.diff),
+            f(t.stands_out.sd_units),
+            f(t.stands_out.pct_tolerance),
             means.join(";"),
             t.notes.clone(),
         ])

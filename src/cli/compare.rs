@@ -529,7 +529,7 @@ fn sampling_structure(args: &CompareArgs, data: &mut GroupedData) -> Structure {
         };
     };
     let mut json =
-        json!({"kind": a.kind.key(), "subgroup_column": column, "n_subgroups": a.n_subgroups});
+        json!({"kind": a.kind.as_str(), "subgroup_column": column, "n_subgroups": a.n_subgroups});
     let text = match a.kind {
         DesignKind::Nested | DesignKind::CellMeans | DesignKind::Independent => {
             let mut text = if a.kind == DesignKind::Nested {

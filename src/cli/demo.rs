@@ -233,15 +233,15 @@ pub fn finding(store: &Store, characteristic: &str, factor: &str) -> Result<Find
         days_spread_differs: 0,
     };
     for p in &points {
-        if p.test.brown_forsythe_p.is_some_and(|p| p < 0.05) {
+        if p.test.brown_forsythe.p.is_some_and(|p| p < 0.05) {
             f.days_spread_differs += 1;
         }
-        if runs::is_flag_state(&p.test.state) {
+        if p.test.state.is_flag() {
             f.days_flagged += 1;
             if f.first_flagged.is_none() {
                 f.first_flagged = Some(p.run.header.period_label.clone());
             }
-            if let Some(level) = &p.test.standout_level {
+            if let Some(level) = &p.test.stands_out.level {
                 *levels.entry(level.clone()).or_default() += 1;
             }
         }
@@ -339,12 +339,12 @@ pub fn run(args: &DemoArgs) -> Result<ExitCode> {
     )?;
     let before = points
         .iter()
-        .filter(|p| p.run.header.period_label < change && runs::is_flag_state(&p.test.state))
+        .filter(|p| p.run.header.period_label < change && p.test.state.is_flag())
         .count();
     let first_after = points.iter().find(|p| {
         p.run.header.period_label >= change
-            && runs::is_flag_state(&p.test.state)
-            && p.test.standout_level.as_deref() == Some("M4")
+            && p.test.state.is_flag()
+            && p.test.stands_out.level.as_deref() == Some("M4")
     });
     println!(
         "   - bore_diameter by machine: flagged on {} of {} days ({} before the tooling change of {change}); \
@@ -531,15 +531,16 @@ fn without_subgroups(dir: &Path, exports: &[PathBuf], store: &Store) -> Result<W
             crate::analysis::check_frame(&crate::analysis::run::frame_from(frame), &options, None)?;
         for t in &content.tests {
             out.tests += 1;
-            out.serial_fired += usize::from(t.serial_p.is_some_and(|p| p < options.alpha));
-            out.dependent += usize::from(t.state == crate::analysis::state::DIFFERS_DEPENDENT);
-            out.flags += usize::from(runs::is_flag_state(&t.state));
+            out.serial_fired +=
+                usize::from(t.serial_dependence.p.is_some_and(|p| p < options.alpha));
+            out.dependent += usize::from(t.state == crate::results::TestState::DiffersDependent);
+            out.flags += usize::from(t.state.is_flag());
         }
         if let Some(run) = runs::latest_complete_run(store.connection(), "day", &period.label)? {
             out.flags_with_subgroups += runs::run_content(store.connection(), run.run_id)?
                 .tests
                 .iter()
-                .filter(|t| runs::is_flag_state(&t.state))
+                .filter(|t| t.state.is_flag())
                 .count();
         }
     }

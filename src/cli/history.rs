@@ -8,7 +8,7 @@ use std::process::ExitCode;
 use clap::Args;
 
 use super::check::{cell, leading, share, standout};
-use crate::analysis::state;
+use crate::results::TestState;
 use crate::storage::runs;
 use crate::{Error, Result};
 
@@ -120,11 +120,11 @@ pub fn run(args: &HistoryArgs) -> Result<ExitCode> {
                     p.run.header.period_label.clone()
                 },
                 leading(t),
-                cell(t.leading_statistic),
-                super::format::p_cell(t.leading_p),
+                cell(t.leading.statistic),
+                super::format::p_cell(t.leading.p),
                 super::format::p_cell(t.q_value),
                 share(t),
-                state::label(&t.state),
+                t.state.label(),
                 standout(t, &unit)
             )?;
         }
@@ -165,8 +165,8 @@ fn point_json(config: &crate::config::Config, p: &runs::HistoryPoint) -> serde_j
     m.insert("state".into(), json!(t.state));
     m.insert("n_obs".into(), json!(t.n_obs));
     m.insert("n_groups".into(), json!(t.n_groups_used));
-    let why = if t.state == state::TOO_FEW_TO_COMPARE || t.state == state::TOO_LITTLE_DATA {
-        format!("{}: no test was run", state::label(&t.state))
+    let why = if t.state == TestState::TooFewToCompare || t.state == TestState::TooLittleData {
+        format!("{}: no test was run", t.state.label())
     } else {
         "not available for this test (see notes)".to_string()
     };
@@ -180,32 +180,35 @@ fn point_json(config: &crate::config::Config, p: &runs::HistoryPoint) -> serde_j
             m.insert(format!("{key}_reason"), json!(why));
         }
     };
-    num("statistic", t.leading_statistic);
-    num("p", t.leading_p);
+    num("statistic", t.leading.statistic);
+    num("p", t.leading.p);
     num("q", t.q_value);
-    num("share_between", t.share_between);
-    num("within_sd", t.resid_sd);
+    num("share_between", t.variance_components.share_between);
+    num("within_sd", t.anova.resid_sd);
     m.insert(
         "design".into(),
-        json!(t.design.as_deref().unwrap_or("independent")),
+        json!(t
+            .design
+            .kind
+            .unwrap_or(crate::results::DesignKind::Independent)),
     );
-    m.insert("n_subgroups".into(), json!(t.n_subgroups));
-    if t.n_subgroups.is_none() {
+    m.insert("n_subgroups".into(), json!(t.design.n_subgroups));
+    if t.design.n_subgroups.is_none() {
         m.insert(
             "n_subgroups_reason".into(),
             json!("no subgroups: the values were tested as independent"),
         );
     }
-    m.insert("leading_method".into(), json!(t.leading_method));
-    if t.leading_method.is_none() {
+    m.insert("leading_method".into(), json!(t.leading.method));
+    if t.leading.method.is_none() {
         m.insert("leading_method_reason".into(), json!(why));
     }
-    match &t.standout_level {
+    match &t.stands_out.level {
         Some(level) => {
             m.insert(
                 "standout".into(),
-                json!({"group": level, "diff": t.standout_diff, "sd_units": t.standout_sd_units,
-                       "pct_tolerance": t.standout_pct_tolerance}),
+                json!({"group": level, "diff": t.stands_out.diff, "sd_units": t.stands_out.sd_units,
+                       "pct_tolerance": t.stands_out.pct_tolerance}),
             );
         }
         None => {

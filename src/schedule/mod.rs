@@ -332,11 +332,7 @@ fn run_one(
         Ok(content) => {
             match runs::complete_run(&mut store.conn, run.run_id, ms(clock.now()), &content) {
                 Ok(()) => {
-                    let flagged = content
-                        .tests
-                        .iter()
-                        .filter(|t| runs::is_flag_state(&t.state))
-                        .count();
+                    let flagged = content.tests.iter().filter(|t| t.state.is_flag()).count();
                     log(&format!(
                         "{} {}: run {} complete, {} tests, {} flagged",
                         schedule.name,

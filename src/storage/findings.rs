@@ -26,16 +26,10 @@ pub struct FlagHistoryRow {
     pub characteristic: String,
     /// The factor.
     pub factor: String,
-    /// The stored flag state.
-    pub state: String,
+    /// The stored state.
+    pub state: crate::results::TestState,
     /// The standing-out level and its distance from the grand mean (units, SDs, % tolerance).
-    pub standout_level: Option<String>,
-    /// See `standout_level`.
-    pub standout_diff: Option<f64>,
-    /// See `standout_level`.
-    pub standout_sd_units: Option<f64>,
-    /// See `standout_level`.
-    pub standout_pct_tolerance: Option<f64>,
+    pub stands_out: crate::results::StandsOut,
     /// The within-group SD.
     pub resid_sd: Option<f64>,
     /// Kruskal-Wallis recommended (clearly non-normal residuals in small groups).
@@ -138,11 +132,14 @@ impl Store {
                 test_idx: r.get(4)?,
                 characteristic: r.get(5)?,
                 factor: r.get(6)?,
-                state: r.get(7)?,
-                standout_level: r.get(8)?,
-                standout_diff: r.get(9)?,
-                standout_sd_units: r.get(10)?,
-                standout_pct_tolerance: r.get(11)?,
+                state: super::runs::named(r, 7, "state", crate::results::TestState::parse)?
+                    .unwrap_or_default(),
+                stands_out: crate::results::StandsOut {
+                    level: r.get(8)?,
+                    diff: r.get(9)?,
+                    sd_units: r.get(10)?,
+                    pct_tolerance: r.get(11)?,
+                },
                 resid_sd: r.get(12)?,
                 recommend_kruskal: r.get::<_, Option<bool>>(13)?.unwrap_or(false),
             })

@@ -18,6 +18,11 @@
 
 use rusqlite::{params, Connection, OptionalExtension, Row, ToSql, TransactionBehavior};
 
+use crate::results::{
+    AnovaResult, ComponentsResult, DesignKind, DesignResult, EffectResult, GroupResult, Interval,
+    KruskalResult, LeadingResult, LeadingTest, OptInterval, PairResult, Sensitivity, SerialResult,
+    ShapiroResult, StandsOut, StatP, TestResult, TestState, WelchResult,
+};
 use crate::Result;
 
 /// The identity and settings of one run, written when it starts.
@@ -66,129 +71,7 @@ pub struct StoredRun {
     pub n_flagged: Option<i64>,
 }
 
-/// One test's stored result. `None` = not available (reason in `notes`).
-#[allow(missing_docs)]
-#[derive(Debug, Clone, Default, PartialEq)]
-pub struct TestRow {
-    pub test_idx: i64,
-    pub characteristic: String,
-    pub factor: String,
-    /// `differs_material`, `differs`, `no_evidence` or `too_little_data`.
-    pub state: String,
-    pub is_new: bool,
-    pub n_obs: i64,
-    pub n_groups: i64,
-    pub n_groups_used: i64,
-    pub leading_method: Option<String>,
-    pub leading_reason: Option<String>,
-    pub recommend_kruskal: Option<bool>,
-    pub leading_statistic: Option<f64>,
-    pub leading_p: Option<f64>,
-    pub q_value: Option<f64>,
-    pub anova_f: Option<f64>,
-    pub anova_df1: Option<f64>,
-    pub anova_df2: Option<f64>,
-    pub anova_p: Option<f64>,
-    pub ss_between: Option<f64>,
-    pub ss_within: Option<f64>,
-    pub ms_within: Option<f64>,
-    pub r_squared: Option<f64>,
-    pub resid_sd: Option<f64>,
-    pub welch_f: Option<f64>,
-    pub welch_df1: Option<f64>,
-    pub welch_df2: Option<f64>,
-    pub welch_p: Option<f64>,
-    pub kruskal_h: Option<f64>,
-    pub kruskal_p: Option<f64>,
-    pub levene_stat: Option<f64>,
-    pub levene_p: Option<f64>,
-    pub brown_forsythe_stat: Option<f64>,
-    pub brown_forsythe_p: Option<f64>,
-    pub bartlett_stat: Option<f64>,
-    pub bartlett_p: Option<f64>,
-    pub shapiro_w: Option<f64>,
-    pub shapiro_p: Option<f64>,
-    pub sd_ratio: Option<f64>,
-    pub n_beyond_3sd: Option<i64>,
-    pub eta_squared: Option<f64>,
-    pub omega_squared: Option<f64>,
-    pub var_between: Option<f64>,
-    pub var_within: Option<f64>,
-    pub share_between: Option<f64>,
-    pub icc: Option<f64>,
-    pub icc_low: Option<f64>,
-    pub icc_high: Option<f64>,
-    pub tolerance: Option<f64>,
-    pub spread_of_means: Option<f64>,
-    pub spread_pct_tolerance: Option<f64>,
-    pub standout_level: Option<String>,
-    pub standout_diff: Option<f64>,
-    pub standout_sd_units: Option<f64>,
-    pub standout_pct_tolerance: Option<f64>,
-    pub min_detectable_diff: Option<f64>,
-    pub min_detectable_pct_tolerance: Option<f64>,
-    pub notes: String,
-    /// `independent`, `nested`, `blocked` or `cell_means` (`None` in runs stored before 0009).
-    pub design: Option<String>,
-    pub n_subgroups: Option<i64>,
-    pub var_subgroups: Option<f64>,
-    pub share_subgroups: Option<f64>,
-    pub serial_r1: Option<f64>,
-    pub serial_z: Option<f64>,
-    pub serial_p: Option<f64>,
-}
-
-/// One group's summary within a test.
-#[allow(missing_docs)]
-#[derive(Debug, Clone, PartialEq)]
-pub struct GroupRow {
-    pub test_idx: i64,
-    pub group_idx: i64,
-    pub level: String,
-    pub n: i64,
-    /// Offset from `origin`.
-    pub mean: f64,
-    pub sd: Option<f64>,
-    pub min: f64,
-    pub max: f64,
-    /// Exact decimal text of the characteristic's origin.
-    pub origin: String,
-    pub diff_from_grand: Option<f64>,
-}
-
-/// One pairwise comparison of a flagged test.
-#[allow(missing_docs)]
-#[derive(Debug, Clone, PartialEq)]
-pub struct PairRow {
-    pub test_idx: i64,
-    pub level_a: String,
-    pub level_b: String,
-    /// `tukey_kramer` or `games_howell`.
-    pub method: String,
-    pub diff: f64,
-    pub se: f64,
-    pub statistic: f64,
-    pub df: f64,
-    pub p_adj: f64,
-    pub ci_low: f64,
-    pub ci_high: f64,
-}
-
-/// The full content of a finished run.
-#[derive(Debug, Clone, Default, PartialEq)]
-pub struct RunContent {
-    /// One row per test.
-    pub tests: Vec<TestRow>,
-    /// Group summaries of every test.
-    pub groups: Vec<GroupRow>,
-    /// Pairs of the flagged tests.
-    pub pairs: Vec<PairRow>,
-}
-
-/// Whether a state counts as a flag.
-pub fn is_flag_state(state: &str) -> bool {
-    state == "differs_material" || state == "differs"
-}
+pub use crate::results::RunContent;
 
 /// Inserts a `running` row with the next version of its period and commits it; returns the run.
 pub fn begin_run(conn: &mut Connection, header: &RunHeader, started_ms: i64) -> Result<StoredRun> {
@@ -263,120 +146,128 @@ pub fn complete_run(
                 ?50, ?51, ?52, ?53, ?54, ?55, ?56, ?57, ?58, ?59, ?60, ?61, ?62, ?63, ?64, ?65)",
         )?;
         for t in &content.tests {
+            let (a, w, k, c, vc, so) = (
+                &t.anova,
+                &t.welch,
+                &t.kruskal_wallis,
+                &t.design,
+                &t.variance_components,
+                &t.stands_out,
+            );
             ins.execute(rusqlite::params![
                 run_id,
-                t.test_idx,
+                t.index,
                 t.characteristic,
                 t.factor,
-                t.state,
+                t.state.as_str(),
                 t.is_new,
-                t.n_obs,
-                t.n_groups,
-                t.n_groups_used,
-                t.leading_method,
-                t.leading_reason,
-                t.recommend_kruskal,
-                t.leading_statistic,
-                t.leading_p,
+                t.n_obs as i64,
+                t.n_groups as i64,
+                t.n_groups_used as i64,
+                t.leading.method.map(LeadingTest::as_str),
+                t.leading.reason,
+                t.leading.recommend_kruskal_wallis,
+                t.leading.statistic,
+                t.leading.p,
                 t.q_value,
-                t.anova_f,
-                t.anova_df1,
-                t.anova_df2,
-                t.anova_p,
-                t.ss_between,
-                t.ss_within,
-                t.ms_within,
-                t.r_squared,
-                t.resid_sd,
-                t.welch_f,
-                t.welch_df1,
-                t.welch_df2,
-                t.welch_p,
-                t.kruskal_h,
-                t.kruskal_p,
-                t.levene_stat,
-                t.levene_p,
-                t.brown_forsythe_stat,
-                t.brown_forsythe_p,
-                t.bartlett_stat,
-                t.bartlett_p,
-                t.shapiro_w,
-                t.shapiro_p,
+                a.f,
+                a.df_between,
+                a.df_within,
+                a.p,
+                a.ss_between,
+                a.ss_within,
+                a.ms_within,
+                a.r_squared,
+                a.resid_sd,
+                w.f,
+                w.df1,
+                w.df2,
+                w.p,
+                k.h,
+                k.p,
+                t.levene.statistic,
+                t.levene.p,
+                t.brown_forsythe.statistic,
+                t.brown_forsythe.p,
+                t.bartlett.statistic,
+                t.bartlett.p,
+                t.shapiro_wilk.w,
+                t.shapiro_wilk.p,
                 t.sd_ratio,
-                t.n_beyond_3sd,
-                t.eta_squared,
-                t.omega_squared,
-                t.var_between,
-                t.var_within,
-                t.share_between,
-                t.icc,
-                t.icc_low,
-                t.icc_high,
+                t.n_beyond_3sd.map(|n| n as i64),
+                t.effect.eta_squared,
+                t.effect.omega_squared,
+                vc.between,
+                vc.within,
+                vc.share_between,
+                vc.icc,
+                vc.icc_ci.low,
+                vc.icc_ci.high,
                 t.tolerance,
                 t.spread_of_means,
                 t.spread_pct_tolerance,
-                t.standout_level,
-                t.standout_diff,
-                t.standout_sd_units,
-                t.standout_pct_tolerance,
-                t.min_detectable_diff,
-                t.min_detectable_pct_tolerance,
+                so.level,
+                so.diff,
+                so.sd_units,
+                so.pct_tolerance,
+                t.sensitivity.min_detectable_diff,
+                t.sensitivity.min_detectable_pct_tolerance,
                 t.notes,
-                t.design,
-                t.n_subgroups,
-                t.var_subgroups,
-                t.share_subgroups,
-                t.serial_r1,
-                t.serial_z,
-                t.serial_p,
+                c.kind.map(DesignKind::as_str),
+                c.n_subgroups.map(|n| n as i64),
+                c.var_subgroups,
+                c.share_subgroups,
+                t.serial_dependence.r1,
+                t.serial_dependence.z,
+                t.serial_dependence.p,
             ])?;
         }
         let mut ins = tx.prepare_cached(
             "INSERT INTO run_group (run_id, test_idx, group_idx, level, n, mean, sd, min, max,
                 origin, diff_from_grand) VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11)",
         )?;
-        for g in &content.groups {
-            ins.execute(params![
-                run_id,
-                g.test_idx,
-                g.group_idx,
-                g.level,
-                g.n,
-                g.mean,
-                g.sd,
-                g.min,
-                g.max,
-                g.origin,
-                g.diff_from_grand
-            ])?;
+        for t in &content.tests {
+            for (group_idx, g) in t.groups.iter().enumerate() {
+                ins.execute(params![
+                    run_id,
+                    t.index,
+                    group_idx as i64,
+                    g.name,
+                    g.n as i64,
+                    g.mean_offset,
+                    g.sd,
+                    g.min_offset,
+                    g.max_offset,
+                    g.origin,
+                    g.diff_from_grand
+                ])?;
+            }
         }
         let mut ins = tx.prepare_cached(
             "INSERT INTO run_pair (run_id, test_idx, level_a, level_b, method, diff, se,
                 statistic, df, p_adj, ci_low, ci_high)
              VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12)",
         )?;
-        for p in &content.pairs {
-            ins.execute(params![
-                run_id,
-                p.test_idx,
-                p.level_a,
-                p.level_b,
-                p.method,
-                p.diff,
-                p.se,
-                p.statistic,
-                p.df,
-                p.p_adj,
-                p.ci_low,
-                p.ci_high
-            ])?;
+        for t in &content.tests {
+            for p in &t.pairs {
+                ins.execute(params![
+                    run_id,
+                    t.index,
+                    p.a,
+                    p.b,
+                    p.method,
+                    p.diff,
+                    p.se,
+                    p.statistic,
+                    p.df,
+                    p.p_adj,
+                    p.ci.low,
+                    p.ci.high
+                ])?;
+            }
         }
     }
-    let n_flagged = content
-        .tests
-        .iter()
-        .filter(|t| is_flag_state(&t.state))
-        .count() as i64;
+    let n_flagged = content.tests.iter().filter(|t| t.is_flag()).count() as i64;
     let changed = tx.execute(
         "UPDATE run SET status = 'complete', finished_ms = ?2, n_tests = ?3, n_flagged = ?4
          WHERE run_id = ?1 AND status = 'running'",
@@ -545,72 +436,130 @@ const TEST_COLUMNS: &str = "test_idx, characteristic, factor, state, is_new, n_o
     standout_pct_tolerance, min_detectable_diff, min_detectable_pct_tolerance, notes, design, \
     n_subgroups, var_subgroups, share_subgroups, serial_r1, serial_z, serial_p";
 
-fn test_from_row(r: &Row<'_>, o: usize) -> rusqlite::Result<TestRow> {
-    Ok(TestRow {
-        test_idx: r.get(o)?,
+/// A text column read through `parse` (a stored state, method or design name); an unknown
+/// name is a conversion error naming the column's value.
+pub(super) fn named<T>(
+    r: &Row<'_>,
+    idx: usize,
+    what: &'static str,
+    parse: fn(&str) -> Option<T>,
+) -> rusqlite::Result<Option<T>> {
+    let Some(text) = r.get::<_, Option<String>>(idx)? else {
+        return Ok(None);
+    };
+    parse(&text).map(Some).ok_or_else(|| {
+        rusqlite::Error::FromSqlConversionFailure(
+            idx,
+            rusqlite::types::Type::Text,
+            format!("unknown {what} {text:?} in run_result (a newer samewise wrote it?)").into(),
+        )
+    })
+}
+
+/// A count column as `u64` (they are never negative).
+fn count(r: &Row<'_>, idx: usize) -> rusqlite::Result<u64> {
+    Ok(r.get::<_, i64>(idx)?.max(0) as u64)
+}
+
+fn test_from_row(r: &Row<'_>, o: usize) -> rusqlite::Result<TestResult> {
+    let g = |i: usize| r.get::<_, Option<f64>>(o + i);
+    Ok(TestResult {
+        index: r.get(o)?,
         characteristic: r.get(o + 1)?,
         factor: r.get(o + 2)?,
-        state: r.get(o + 3)?,
+        state: named(r, o + 3, "state", TestState::parse)?.unwrap_or_default(),
         is_new: r.get(o + 4)?,
-        n_obs: r.get(o + 5)?,
-        n_groups: r.get(o + 6)?,
-        n_groups_used: r.get(o + 7)?,
-        leading_method: r.get(o + 8)?,
-        leading_reason: r.get(o + 9)?,
-        recommend_kruskal: r.get(o + 10)?,
-        leading_statistic: r.get(o + 11)?,
-        leading_p: r.get(o + 12)?,
-        q_value: r.get(o + 13)?,
-        anova_f: r.get(o + 14)?,
-        anova_df1: r.get(o + 15)?,
-        anova_df2: r.get(o + 16)?,
-        anova_p: r.get(o + 17)?,
-        ss_between: r.get(o + 18)?,
-        ss_within: r.get(o + 19)?,
-        ms_within: r.get(o + 20)?,
-        r_squared: r.get(o + 21)?,
-        resid_sd: r.get(o + 22)?,
-        welch_f: r.get(o + 23)?,
-        welch_df1: r.get(o + 24)?,
-        welch_df2: r.get(o + 25)?,
-        welch_p: r.get(o + 26)?,
-        kruskal_h: r.get(o + 27)?,
-        kruskal_p: r.get(o + 28)?,
-        levene_stat: r.get(o + 29)?,
-        levene_p: r.get(o + 30)?,
-        brown_forsythe_stat: r.get(o + 31)?,
-        brown_forsythe_p: r.get(o + 32)?,
-        bartlett_stat: r.get(o + 33)?,
-        bartlett_p: r.get(o + 34)?,
-        shapiro_w: r.get(o + 35)?,
-        shapiro_p: r.get(o + 36)?,
-        sd_ratio: r.get(o + 37)?,
-        n_beyond_3sd: r.get(o + 38)?,
-        eta_squared: r.get(o + 39)?,
-        omega_squared: r.get(o + 40)?,
-        var_between: r.get(o + 41)?,
-        var_within: r.get(o + 42)?,
-        share_between: r.get(o + 43)?,
-        icc: r.get(o + 44)?,
-        icc_low: r.get(o + 45)?,
-        icc_high: r.get(o + 46)?,
-        tolerance: r.get(o + 47)?,
-        spread_of_means: r.get(o + 48)?,
-        spread_pct_tolerance: r.get(o + 49)?,
-        standout_level: r.get(o + 50)?,
-        standout_diff: r.get(o + 51)?,
-        standout_sd_units: r.get(o + 52)?,
-        standout_pct_tolerance: r.get(o + 53)?,
-        min_detectable_diff: r.get(o + 54)?,
-        min_detectable_pct_tolerance: r.get(o + 55)?,
+        n_obs: count(r, o + 5)?,
+        n_groups: count(r, o + 6)?,
+        n_groups_used: count(r, o + 7)?,
+        leading: LeadingResult {
+            method: named(r, o + 8, "leading method", LeadingTest::parse)?,
+            reason: r.get(o + 9)?,
+            recommend_kruskal_wallis: r.get(o + 10)?,
+            statistic: g(11)?,
+            p: g(12)?,
+        },
+        q_value: g(13)?,
+        anova: AnovaResult {
+            f: g(14)?,
+            df_between: g(15)?,
+            df_within: g(16)?,
+            p: g(17)?,
+            ss_between: g(18)?,
+            ss_within: g(19)?,
+            ms_within: g(20)?,
+            r_squared: g(21)?,
+            resid_sd: g(22)?,
+        },
+        welch: WelchResult {
+            f: g(23)?,
+            df1: g(24)?,
+            df2: g(25)?,
+            p: g(26)?,
+        },
+        kruskal_wallis: KruskalResult {
+            h: g(27)?,
+            p: g(28)?,
+        },
+        levene: StatP {
+            statistic: g(29)?,
+            p: g(30)?,
+        },
+        brown_forsythe: StatP {
+            statistic: g(31)?,
+            p: g(32)?,
+        },
+        bartlett: StatP {
+            statistic: g(33)?,
+            p: g(34)?,
+        },
+        shapiro_wilk: ShapiroResult {
+            w: g(35)?,
+            p: g(36)?,
+        },
+        sd_ratio: g(37)?,
+        n_beyond_3sd: r.get::<_, Option<i64>>(o + 38)?.map(|n| n.max(0) as u64),
+        effect: EffectResult {
+            eta_squared: g(39)?,
+            omega_squared: g(40)?,
+        },
+        variance_components: ComponentsResult {
+            between: g(41)?,
+            within: g(42)?,
+            share_between: g(43)?,
+            icc: g(44)?,
+            icc_ci: OptInterval {
+                low: g(45)?,
+                high: g(46)?,
+            },
+        },
+        tolerance: g(47)?,
+        spread_of_means: g(48)?,
+        spread_pct_tolerance: g(49)?,
+        stands_out: StandsOut {
+            level: r.get(o + 50)?,
+            diff: g(51)?,
+            sd_units: g(52)?,
+            pct_tolerance: g(53)?,
+        },
+        sensitivity: Sensitivity {
+            min_detectable_diff: g(54)?,
+            min_detectable_pct_tolerance: g(55)?,
+        },
         notes: r.get(o + 56)?,
-        design: r.get(o + 57)?,
-        n_subgroups: r.get(o + 58)?,
-        var_subgroups: r.get(o + 59)?,
-        share_subgroups: r.get(o + 60)?,
-        serial_r1: r.get(o + 61)?,
-        serial_z: r.get(o + 62)?,
-        serial_p: r.get(o + 63)?,
+        design: DesignResult {
+            kind: named(r, o + 57, "design", DesignKind::parse)?,
+            n_subgroups: r.get::<_, Option<i64>>(o + 58)?.map(|n| n.max(0) as u64),
+            var_subgroups: g(59)?,
+            share_subgroups: g(60)?,
+        },
+        serial_dependence: SerialResult {
+            r1: g(61)?,
+            z: g(62)?,
+            p: g(63)?,
+        },
+        groups: Vec::new(),
+        pairs: Vec::new(),
     })
 }
 
@@ -631,53 +580,70 @@ fn rows_of_run<T>(
 /// Reads the full content of one run.
 pub fn run_content(conn: &Connection, run_id: i64) -> Result<RunContent> {
     let sql = format!("SELECT {TEST_COLUMNS} FROM run_result WHERE run_id = ?1 ORDER BY test_idx");
-    let tests = rows_of_run(conn, &sql, run_id, |r| test_from_row(r, 0))?;
+    let mut tests = rows_of_run(conn, &sql, run_id, |r| test_from_row(r, 0))?;
+    // Tests are numbered 0.. in order; a position lookup tolerates gaps all the same.
+    let position: std::collections::HashMap<u32, usize> = tests
+        .iter()
+        .enumerate()
+        .map(|(i, t)| (t.index, i))
+        .collect();
     let groups = rows_of_run(
         conn,
-        "SELECT test_idx, group_idx, level, n, mean, sd, min, max, origin, diff_from_grand
+        "SELECT test_idx, level, n, mean, sd, min, max, origin, diff_from_grand
          FROM run_group WHERE run_id = ?1 ORDER BY test_idx, group_idx",
         run_id,
         |r| {
-            Ok(GroupRow {
-                test_idx: r.get(0)?,
-                group_idx: r.get(1)?,
-                level: r.get(2)?,
-                n: r.get(3)?,
-                mean: r.get(4)?,
-                sd: r.get(5)?,
-                min: r.get(6)?,
-                max: r.get(7)?,
-                origin: r.get(8)?,
-                diff_from_grand: r.get(9)?,
-            })
+            Ok((
+                r.get::<_, u32>(0)?,
+                GroupResult::from_offsets(
+                    r.get(1)?,
+                    count(r, 2)?,
+                    r.get(7)?,
+                    r.get(3)?,
+                    r.get(4)?,
+                    r.get(5)?,
+                    r.get(6)?,
+                    r.get(8)?,
+                ),
+            ))
         },
     )?;
+    for (test_idx, g) in groups {
+        if let Some(&i) = position.get(&test_idx) {
+            tests[i].groups.push(g);
+        }
+    }
     let pairs = rows_of_run(
         conn,
         "SELECT test_idx, level_a, level_b, method, diff, se, statistic, df, p_adj, ci_low, ci_high
          FROM run_pair WHERE run_id = ?1 ORDER BY test_idx, rowid",
         run_id,
         |r| {
-            Ok(PairRow {
-                test_idx: r.get(0)?,
-                level_a: r.get(1)?,
-                level_b: r.get(2)?,
-                method: r.get(3)?,
-                diff: r.get(4)?,
-                se: r.get(5)?,
-                statistic: r.get(6)?,
-                df: r.get(7)?,
-                p_adj: r.get(8)?,
-                ci_low: r.get(9)?,
-                ci_high: r.get(10)?,
-            })
+            Ok((
+                r.get::<_, u32>(0)?,
+                PairResult {
+                    a: r.get(1)?,
+                    b: r.get(2)?,
+                    method: r.get(3)?,
+                    diff: r.get(4)?,
+                    se: r.get(5)?,
+                    statistic: r.get(6)?,
+                    df: r.get(7)?,
+                    p_adj: r.get(8)?,
+                    ci: Interval {
+                        low: r.get(9)?,
+                        high: r.get(10)?,
+                    },
+                },
+            ))
         },
     )?;
-    Ok(RunContent {
-        tests,
-        groups,
-        pairs,
-    })
+    for (test_idx, p) in pairs {
+        if let Some(&i) = position.get(&test_idx) {
+            tests[i].pairs.push(p);
+        }
+    }
+    Ok(RunContent { tests })
 }
 
 /// One period of a characteristic x factor history.
@@ -685,8 +651,8 @@ pub fn run_content(conn: &Connection, run_id: i64) -> Result<RunContent> {
 pub struct HistoryPoint {
     /// The run the result comes from (the latest complete version of its period).
     pub run: StoredRun,
-    /// The stored result.
-    pub test: TestRow,
+    /// The stored result (without its groups and pairs).
+    pub test: TestResult,
     /// Complete versions of the period's run (more than one: the period was checked again).
     pub complete_versions: i64,
 }
@@ -941,46 +907,51 @@ mod tests {
         }
     }
 
-    fn content(state: &str) -> RunContent {
+    fn content(state: TestState) -> RunContent {
         RunContent {
-            tests: vec![TestRow {
-                test_idx: 0,
+            tests: vec![TestResult {
+                index: 0,
                 characteristic: "bore".into(),
                 factor: "machine".into(),
-                state: state.into(),
+                state,
                 n_obs: 10,
                 n_groups: 2,
                 n_groups_used: 2,
-                anova_f: Some(3.5),
+                anova: AnovaResult {
+                    f: Some(3.5),
+                    ..AnovaResult::default()
+                },
                 q_value: Some(0.01),
-                standout_level: Some("M2".into()),
+                stands_out: StandsOut {
+                    level: Some("M2".into()),
+                    ..StandsOut::default()
+                },
                 notes: String::new(),
-                ..TestRow::default()
-            }],
-            groups: vec![GroupRow {
-                test_idx: 0,
-                group_idx: 0,
-                level: "M1".into(),
-                n: 5,
-                mean: 0.25,
-                sd: Some(0.1),
-                min: 0.0,
-                max: 0.5,
-                origin: "10".into(),
-                diff_from_grand: Some(-0.1),
-            }],
-            pairs: vec![PairRow {
-                test_idx: 0,
-                level_a: "M1".into(),
-                level_b: "M2".into(),
-                method: "tukey_kramer".into(),
-                diff: -0.2,
-                se: 0.05,
-                statistic: 4.0,
-                df: 8.0,
-                p_adj: 0.01,
-                ci_low: -0.3,
-                ci_high: -0.1,
+                groups: vec![GroupResult::from_offsets(
+                    "M1".into(),
+                    5,
+                    "10".into(),
+                    0.25,
+                    Some(0.1),
+                    0.0,
+                    0.5,
+                    Some(-0.1),
+                )],
+                pairs: vec![PairResult {
+                    a: "M1".into(),
+                    b: "M2".into(),
+                    method: "tukey_kramer".into(),
+                    diff: -0.2,
+                    se: 0.05,
+                    statistic: 4.0,
+                    df: 8.0,
+                    p_adj: 0.01,
+                    ci: Interval {
+                        low: -0.3,
+                        high: -0.1,
+                    },
+                }],
+                ..TestResult::default()
             }],
         }
     }
@@ -989,7 +960,7 @@ mod tests {
     fn rerun_makes_new_version_and_readers_take_latest_complete() {
         let mut c = conn();
         let r1 = begin_run(&mut c, &header("2026-11-30"), 10).unwrap();
-        complete_run(&mut c, r1.run_id, 20, &content("differs")).unwrap();
+        complete_run(&mut c, r1.run_id, 20, &content(TestState::Differs)).unwrap();
         let r2 = begin_run(&mut c, &header("2026-11-30"), 30).unwrap();
         assert_eq!((r1.version, r2.version), (1, 2));
         // Version 2 is still running: readers keep version 1.
@@ -997,7 +968,7 @@ mod tests {
             .unwrap()
             .unwrap();
         assert_eq!(latest.run_id, r1.run_id);
-        complete_run(&mut c, r2.run_id, 40, &content("no_evidence")).unwrap();
+        complete_run(&mut c, r2.run_id, 40, &content(TestState::NoEvidence)).unwrap();
         let latest = latest_complete_run(&c, "day", "2026-11-30")
             .unwrap()
             .unwrap();
@@ -1005,7 +976,7 @@ mod tests {
         assert_eq!(latest.n_flagged, Some(0));
         // The old version is kept with its content.
         let old = run_content(&c, r1.run_id).unwrap();
-        assert_eq!(old, content("differs"));
+        assert_eq!(old, content(TestState::Differs));
         assert_eq!(runs_of_period(&c, "day", "2026-11-30").unwrap().len(), 2);
         let flagged = flagged_tests(&c, "day", "2026-11-30").unwrap().unwrap();
         assert!(flagged.is_empty());
@@ -1023,7 +994,7 @@ mod tests {
         assert_eq!(all[0].status, "failed");
         assert_eq!(all[0].error.as_deref(), Some("database is locked"));
         // A failed run cannot be completed afterwards, and nothing is written.
-        assert!(complete_run(&mut c, r.run_id, 12, &content("differs")).is_err());
+        assert!(complete_run(&mut c, r.run_id, 12, &content(TestState::Differs)).is_err());
         assert!(run_content(&c, r.run_id).unwrap().tests.is_empty());
     }
 
@@ -1067,7 +1038,7 @@ mod tests {
         assert_eq!(all[0].status, "failed");
         assert!(all[0].error.as_deref().unwrap().starts_with("abandoned"));
         // The slow original process cannot write afterwards.
-        assert!(complete_run(&mut c, r.run_id, 1300, &content("differs")).is_err());
+        assert!(complete_run(&mut c, r.run_id, 1300, &content(TestState::Differs)).is_err());
     }
 
     #[test]
@@ -1080,19 +1051,19 @@ mod tests {
             let mut h = header(label);
             h.period_start_ms = 1000 * i as i64;
             let r = begin_run(&mut c, &h, 1).unwrap();
-            complete_run(&mut c, r.run_id, 2, &content("no_evidence")).unwrap();
+            complete_run(&mut c, r.run_id, 2, &content(TestState::NoEvidence)).unwrap();
         }
         let mut h = header("2026-11-29");
         h.period_start_ms = 1000;
         let r = begin_run(&mut c, &h, 3).unwrap();
-        complete_run(&mut c, r.run_id, 4, &content("differs")).unwrap();
+        complete_run(&mut c, r.run_id, 4, &content(TestState::Differs)).unwrap();
         let hist = history(&c, "bore", "machine", "day", 30).unwrap();
         let labels: Vec<_> = hist
             .iter()
             .map(|p| p.run.header.period_label.as_str())
             .collect();
         assert_eq!(labels, ["2026-11-28", "2026-11-29", "2026-11-30"]);
-        assert_eq!(hist[1].test.state, "differs");
+        assert_eq!(hist[1].test.state, TestState::Differs);
         assert_eq!(hist[1].run.version, 2);
         let last2 = history(&c, "bore", "machine", "day", 2).unwrap();
         assert_eq!(last2.len(), 2);
