@@ -92,11 +92,11 @@ fn event_before_after_shows_the_moved_machine() {
     let v: serde_json::Value = serde_json::from_str(&json).unwrap();
     let groups = v["groups"].as_array().unwrap();
     assert_eq!(groups.len(), 3);
-    let m3 = groups.iter().find(|g| g["group"] == "M3").unwrap();
+    let m3 = groups.iter().find(|g| g["name"] == "M3").unwrap();
     let s = &m3["mean_shift"];
     assert!((s["shift"].as_f64().unwrap() - 0.004).abs() < 0.0005, "{s}");
-    assert!(s["ci_low"].as_f64().unwrap() < 0.004 && 0.004 < s["ci_high"].as_f64().unwrap());
-    let m1 = groups.iter().find(|g| g["group"] == "M1").unwrap();
+    assert!(s["ci"]["low"].as_f64().unwrap() < 0.004 && 0.004 < s["ci"]["high"].as_f64().unwrap());
+    let m1 = groups.iter().find(|g| g["name"] == "M1").unwrap();
     assert!(m1["mean_shift"]["p"].as_f64().unwrap() > 0.001);
     // Issue 16: per-group p-values adjusted across the groups (Benjamini-Hochberg over 3 groups:
     // the adjusted p of each is at least its raw p and at most 3 times it), shifts in SD units.
@@ -139,7 +139,7 @@ fn scan_without_event_finds_the_change_and_the_event() {
         .as_array()
         .unwrap()
         .iter()
-        .find(|g| g["group"] == "M3")
+        .find(|g| g["name"] == "M3")
         .unwrap();
     let cps = m3["change_points"].as_array().unwrap();
     assert!(!cps.is_empty(), "{m3}");

@@ -806,14 +806,27 @@ pub fn to_json(
         .pairs
         .iter()
         .map(|p| match p {
-            Ok(p) => json!({
-                "a": p.a, "b": p.b,
-                "a_name": data.names[p.a], "b_name": data.names[p.b],
-                "diff": json_number(p.diff), "se": json_number(p.se), "statistic": json_number(p.statistic),
-                "df": json_number(p.df), "p_adj": json_number(p.p_adj),
-                "ci_low": json_number(p.ci_low), "ci_high": json_number(p.ci_high),
-                "method": p.method.name(),
-            }),
+            Ok(p) => {
+                // The shared pair vocabulary (names, `ci {low, high}`), plus the group indices.
+                let mut v = serde_json::to_value(crate::results::PairResult {
+                    a: data.names[p.a].clone(),
+                    b: data.names[p.b].clone(),
+                    diff: p.diff,
+                    se: p.se,
+                    statistic: p.statistic,
+                    df: p.df,
+                    p_adj: p.p_adj,
+                    ci: crate::results::Interval {
+                        low: p.ci_low,
+                        high: p.ci_high,
+                    },
+                    method: p.method.name().to_string(),
+                })
+                .unwrap_or(Value::Null);
+                v["a_index"] = json!(p.a);
+                v["b_index"] = json!(p.b);
+                v
+            }
             Err(e) => json!({"pair": Value::Null, "pair_reason": e.reason}),
         })
         .collect();

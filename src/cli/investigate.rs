@@ -240,7 +240,7 @@ use super::format::{json_number, put, pval, sig};
 
 fn group_json(g: &GroupChange, origin: f64) -> Value {
     let mut m = Map::new();
-    m.insert("group".into(), json!(g.group));
+    m.insert("name".into(), json!(g.group));
     m.insert("n_before".into(), json!(g.before.n));
     m.insert("n_after".into(), json!(g.after.n));
     m.insert("mean_before".into(), json_number(origin + g.before.mean));
@@ -255,7 +255,7 @@ fn group_json(g: &GroupChange, origin: f64) -> Value {
     );
     put(&mut m, "mean_shift", &g.mean_shift, |s| {
         json!({"shift": json_number(s.shift), "se": json_number(s.se), "df": json_number(s.df), "t": json_number(s.t), "p": json_number(s.p),
-               "ci_low": json_number(s.ci_low), "ci_high": json_number(s.ci_high), "confidence": json_number(s.confidence),
+               "ci": {"low": json_number(s.ci_low), "high": json_number(s.ci_high)}, "confidence": json_number(s.confidence),
                "method": "Welch two-sample t"})
     });
     if let Some(Value::Object(shift)) = m.get_mut("mean_shift") {
@@ -288,7 +288,7 @@ fn group_json(g: &GroupChange, origin: f64) -> Value {
         }
     }
     put(&mut m, "sd_ratio", &g.sd_ratio, |r| {
-        json!({"ratio": json_number(r.ratio), "ci_low": json_number(r.ci_low), "ci_high": json_number(r.ci_high), "f": json_number(r.f),
+        json!({"ratio": json_number(r.ratio), "ci": {"low": json_number(r.ci_low), "high": json_number(r.ci_high)}, "f": json_number(r.f),
                "df1": json_number(r.df1), "df2": json_number(r.df2), "p": json_number(r.p), "confidence": json_number(r.confidence),
                "method": "F interval for the variance ratio (after / before)"})
     });
@@ -301,7 +301,7 @@ fn group_json(g: &GroupChange, origin: f64) -> Value {
 
 fn share_json(v: &VarianceComponents) -> Value {
     json!({"share_between": json_number(v.share_between), "between": json_number(v.between), "within": json_number(v.within),
-           "is_truncated": v.is_truncated, "icc_ci": v.icc_ci.as_ref().ok().map(|i| json!([json_number(i.low), json_number(i.high)])),
+           "is_truncated": v.is_truncated, "icc_ci": v.icc_ci.as_ref().ok().map(|i| json!({"low": json_number(i.low), "high": json_number(i.high)})),
            "method": v.method})
 }
 
@@ -389,7 +389,7 @@ pub fn compare_json(ctx: &Context, c: &Comparison) -> Value {
         Value::Array(
             c.left_out
                 .iter()
-                .map(|l| json!({"group": l.group, "n_before": l.n_before, "n_after": l.n_after}))
+                .map(|l| json!({"name": l.group, "n_before": l.n_before, "n_after": l.n_after}))
                 .collect(),
         ),
     );
@@ -600,7 +600,7 @@ pub fn scan_json(ctx: &Context, scans: &[GroupScan], nearest: &[Vec<Vec<NearEven
         .enumerate()
         .map(|(gi, g)| {
             let mut m = Map::new();
-            m.insert("group".into(), json!(g.group));
+            m.insert("name".into(), json!(g.group));
             m.insert("n".into(), json!(g.n));
             put(&mut m, "change_points", &g.scan, |s| {
                 Value::Array(
@@ -619,9 +619,9 @@ pub fn scan_json(ctx: &Context, scans: &[GroupScan], nearest: &[Vec<Vec<NearEven
                                 .unwrap_or_default();
                             json!({
                                 "at": ctx.rfc3339(g.change_ms[ci]), "at_ms": g.change_ms[ci],
-                                "at_range": [ctx.rfc3339(g.change_range_ms[ci].0), ctx.rfc3339(g.change_range_ms[ci].1)],
+                                "at_range": {"low": ctx.rfc3339(g.change_range_ms[ci].0), "high": ctx.rfc3339(g.change_range_ms[ci].1)},
                                 "index": c.index, "shift": json_number(c.shift), "se": json_number(c.se),
-                                "shift_ci": [json_number(c.shift_low), json_number(c.shift_high)],
+                                "shift_ci": {"low": json_number(c.shift_low), "high": json_number(c.shift_high)},
                                 "mean_before": json_number(ctx.origin + c.before.mean), "mean_after": json_number(ctx.origin + c.after.mean),
                                 "n_before": c.before.n, "n_after": c.after.n,
                                 "p": json_number(c.p), "share_explained": json_number(c.share_explained),
