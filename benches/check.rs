@@ -27,8 +27,7 @@ use samewise::analysis::run::{check_and_record, frame_from, header, previous_fla
 use samewise::analysis::{check_frame, check_frames, CheckOptions};
 use samewise::calendar::PlantCalendar;
 use samewise::config::Config;
-use samewise::model::Period;
-use samewise::storage::runs;
+use samewise::storage::RunStore;
 use samewise::storage::Store;
 
 /// A production day inside the data (2026-11-02 06:00 UTC .. 2026-12-02 06:00 UTC).
@@ -107,7 +106,7 @@ fn timed<T>(what: &str, f: impl FnOnce() -> T) -> T {
 /// Each stage once, on its own.
 fn stages(config: &Config, label: &str, with_pairs: bool) {
     let calendar = PlantCalendar::new(config);
-    let period = Period::parse_label(label, &calendar).unwrap();
+    let period = calendar.parse_period(label).unwrap();
     let mut store = Store::open(&config.plant.database).unwrap();
     let options = CheckOptions::from_config(config);
     eprintln!("stages of the check of {label}:");
@@ -201,7 +200,7 @@ fn stages(config: &Config, label: &str, with_pairs: bool) {
         }
     }
     let head = header(config, &period, None, &options);
-    let run = runs::begin_run(store.connection_mut(), &head, 0).unwrap();
+    let run = store.begin_run(&head, 0).unwrap();
     timed(
         &format!(
             "write the run ({} results, {} groups, {} pairs)",
@@ -209,7 +208,7 @@ fn stages(config: &Config, label: &str, with_pairs: bool) {
             content.n_groups(),
             content.n_pairs()
         ),
-        || runs::complete_run(store.connection_mut(), run.run_id, 1, &content).unwrap(),
+        || store.complete_run(run.run_id, 1, &content).unwrap(),
     );
 }
 
@@ -263,7 +262,7 @@ fn checks(c: &mut Criterion) {
     let mut group = c.benchmark_group("check");
     group.sample_size(10);
     for (name, label, seconds) in [("day", DAY, 10), ("month", MONTH, 60)] {
-        let period = Period::parse_label(label, &calendar).unwrap();
+        let period = calendar.parse_period(label).unwrap();
         group.measurement_time(Duration::from_secs(seconds));
         group.bench_function(format!("{name} {label} (check_and_record)"), |b| {
             b.iter(|| {

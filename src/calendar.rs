@@ -499,7 +499,7 @@ mod tests {
         assert_eq!(night.start, utc("2026-03-28T21:00:00Z"));
         assert_eq!(night.end - night.start, Duration::hours(7));
         // 29 March is an ordinary 24 h day in CEST.
-        let next = day.next(&cal);
+        let next = cal.next_period(&day);
         assert_eq!(next.label, "2026-03-29");
         assert_eq!(next.end - next.start, Duration::hours(24));
     }
@@ -554,7 +554,7 @@ mod tests {
         // Consecutive days tile time.
         let mut period = cal.day(date("2026-03-27"));
         for _ in 0..250 {
-            let next = period.next(&cal);
+            let next = cal.next_period(&period);
             assert_eq!(period.end, next.start, "{}", period.label);
             assert!(next.end > next.start);
             period = next;
@@ -589,14 +589,20 @@ mod tests {
         // ISO 8601: week 48 of 2026 runs Monday 23 November to Sunday 29 November.
         assert_eq!(week.start, cal.day_start_utc(date("2026-11-23")));
         assert_eq!(week.end, cal.day_start_utc(date("2026-11-30")));
-        assert_eq!(week.next(&cal).label, "2026-W49");
+        assert_eq!(cal.next_period(&week).label, "2026-W49");
         assert_eq!(
-            cal.parse_period("2026-W01").unwrap().previous(&cal).label,
+            cal.parse_period("2026-W01")
+                .map(|p| cal.previous_period(&p))
+                .unwrap()
+                .label,
             "2025-W52"
         );
         // 2026 has 53 ISO weeks (it starts on a Thursday).
         assert_eq!(
-            cal.parse_period("2026-W53").unwrap().next(&cal).label,
+            cal.parse_period("2026-W53")
+                .map(|p| cal.next_period(&p))
+                .unwrap()
+                .label,
             "2027-W01"
         );
         assert!(cal.parse_period("2025-W53").is_err());
@@ -605,9 +611,12 @@ mod tests {
         assert_eq!(month.kind, PeriodKind::Month);
         assert_eq!(month.start, utc("2026-10-01T04:00:00Z"));
         assert_eq!(month.end, utc("2026-11-01T05:00:00Z"));
-        assert_eq!(month.next(&cal).label, "2026-11");
+        assert_eq!(cal.next_period(&month).label, "2026-11");
         assert_eq!(
-            cal.parse_period("2026-01").unwrap().previous(&cal).label,
+            cal.parse_period("2026-01")
+                .map(|p| cal.previous_period(&p))
+                .unwrap()
+                .label,
             "2025-12"
         );
 
@@ -615,8 +624,8 @@ mod tests {
         assert_eq!(range.kind, PeriodKind::Range);
         assert_eq!(range.start, utc("2026-11-01T05:00:00Z"));
         assert_eq!(range.end, utc("2026-11-16T05:00:00Z"));
-        assert_eq!(range.next(&cal).label, "2026-11-16..2026-11-30");
-        assert_eq!(range.previous(&cal).label, "2026-10-17..2026-10-31");
+        assert_eq!(cal.next_period(&range).label, "2026-11-16..2026-11-30");
+        assert_eq!(cal.previous_period(&range).label, "2026-10-17..2026-10-31");
         assert_eq!(cal.period_bounds(&range), (range.start, range.end));
         // The same label in a calendar with another day start gets that calendar's bounds.
         let at_seven = PlantCalendar::from_parts(
@@ -645,12 +654,10 @@ mod tests {
     fn shifts_step_across_days() {
         let cal = berlin();
         let night = cal.parse_period("2026-11-30/night").unwrap();
-        assert_eq!(night.next(&cal).label, "2026-12-01/early");
-        assert_eq!(night.previous(&cal).label, "2026-11-30/late");
+        assert_eq!(cal.next_period(&night).label, "2026-12-01/early");
+        assert_eq!(cal.previous_period(&night).label, "2026-11-30/late");
         assert_eq!(
-            cal.parse_period("2026-12-01/early")
-                .unwrap()
-                .previous(&cal)
+            cal.previous_period(&cal.parse_period("2026-12-01/early").unwrap())
                 .label,
             "2026-11-30/night"
         );
@@ -660,7 +667,7 @@ mod tests {
             let mut p = cal.shift_period(date(day), 0);
             assert_eq!(p.start, d.start);
             for _ in 0..2 {
-                let n = p.next(&cal);
+                let n = cal.next_period(&p);
                 assert_eq!(p.end, n.start);
                 p = n;
             }

@@ -4,13 +4,11 @@
 //! engineer types: `2026-11-30` (production day), `2026-11-30/night` (shift), `2026-W48` (ISO
 //! week of production days), `2026-11` (month of production days) or `2026-11-01..2026-11-15`
 //! (a range of production days, both ends included). The bounds always come from
-//! [`crate::calendar::PlantCalendar`], which knows the plant's time zone, production-day start and
-//! shifts; this module holds no calendar arithmetic of its own.
+//! `calendar::PlantCalendar` (`parse_period`, `next_period`, `previous_period`), which knows the
+//! plant's time zone, production-day start and shifts; this module holds no calendar arithmetic
+//! and imports no other module of samewise.
 
 use chrono::{DateTime, Utc};
-
-use crate::calendar::PlantCalendar;
-use crate::Result;
 
 /// The kind of a [`Period`].
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord)]
@@ -73,23 +71,6 @@ pub struct Period {
 }
 
 impl Period {
-    /// Parses a period label (see the module docs) and computes its bounds in the plant's
-    /// calendar. The kind is recognised from the label's shape.
-    pub fn parse_label(label: &str, calendar: &PlantCalendar) -> Result<Period> {
-        calendar.parse_period(label)
-    }
-
-    /// The period of the same kind that follows this one (the next shift, day, week or month;
-    /// for a range, the equally long run of days right after it).
-    pub fn next(&self, calendar: &PlantCalendar) -> Period {
-        calendar.next_period(self)
-    }
-
-    /// The period of the same kind right before this one.
-    pub fn previous(&self, calendar: &PlantCalendar) -> Period {
-        calendar.previous_period(self)
-    }
-
     /// Whether `ts` lies inside `[start, end)`.
     pub fn contains(&self, ts: DateTime<Utc>) -> bool {
         self.start <= ts && ts < self.end

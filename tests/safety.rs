@@ -9,6 +9,7 @@ use std::path::{Path, PathBuf};
 use std::process::{Command, Output, Stdio};
 
 use chrono::{Duration, TimeZone, Utc};
+use samewise::storage::RunStore;
 use samewise::storage::Store;
 
 mod common;
@@ -593,14 +594,9 @@ fn issue_15_the_lease_of_a_check_whose_process_is_gone_is_taken_over() {
     let now_ms = Utc::now().timestamp_millis();
     {
         let store = Store::open(dir.join("plant.db")).unwrap();
-        let taken = samewise::storage::runs::take_lease(
-            store.connection(),
-            &key,
-            &format!("{host}:{dead_pid}:1"),
-            now_ms,
-            600_000,
-        )
-        .unwrap();
+        let taken = store
+            .take_lease(&key, &format!("{host}:{dead_pid}:1"), now_ms, 600_000)
+            .unwrap();
         assert!(taken);
     }
     let o = run(&dir, &["check", "--day", "2026-11-28"]);
@@ -609,14 +605,9 @@ fn issue_15_the_lease_of_a_check_whose_process_is_gone_is_taken_over() {
     let me = format!("{host}:{}:2", std::process::id());
     {
         let store = Store::open(dir.join("plant.db")).unwrap();
-        assert!(samewise::storage::runs::take_lease(
-            store.connection(),
-            &key,
-            &me,
-            Utc::now().timestamp_millis(),
-            600_000
-        )
-        .unwrap());
+        assert!(store
+            .take_lease(&key, &me, Utc::now().timestamp_millis(), 600_000)
+            .unwrap());
     }
     let o = run(&dir, &["check", "--day", "2026-11-28"]);
     assert_eq!(o.status.code(), Some(1), "{}", text(&o));
@@ -629,14 +620,14 @@ fn issue_15_the_lease_of_a_check_whose_process_is_gone_is_taken_over() {
             period_kind: "day".into(),
             period_label: "2026-11-29".into(),
         };
-        assert!(samewise::storage::runs::take_lease(
-            store.connection(),
-            &key,
-            &format!("{host}:{dead_pid}:3"),
-            Utc::now().timestamp_millis(),
-            600_000
-        )
-        .unwrap());
+        assert!(store
+            .take_lease(
+                &key,
+                &format!("{host}:{dead_pid}:3"),
+                Utc::now().timestamp_millis(),
+                600_000
+            )
+            .unwrap());
     }
     let o = run(&dir, &["schedule", "due", "--now", "2026-11-30T12:00:00Z"]);
     assert!(o.status.success(), "{}", text(&o));

@@ -16,7 +16,8 @@ use samewise::config::{Config, ScheduleConfig};
 use samewise::model::Period;
 use samewise::results::{TestResult, TestState};
 use samewise::schedule::{self, Clock, PeriodOutcome, PeriodRunner, SchedulerOptions};
-use samewise::storage::runs::{self, RunContent, RunHeader};
+use samewise::storage::runs::{RunContent, RunHeader};
+use samewise::storage::RunStore;
 use samewise::storage::Store;
 
 const CONFIG: &str = r#"
@@ -73,7 +74,7 @@ fn open(path: &std::path::Path) -> Store {
 
 fn count_leases(store: &Store) -> usize {
     // Leases are released after each run; a leftover lease would block the period until expiry.
-    runs::lease_count(store.connection()).unwrap()
+    store.lease_count().unwrap()
 }
 
 /// A stand-in for the engine: records what it was asked to run, can fail chosen periods once,
@@ -189,7 +190,7 @@ fn three_weeks_with_outage_every_period_once_in_order_across_dst() {
         .collect();
     assert_eq!(failed.len(), 1);
     assert_eq!(failed[0].period, "2026-10-20");
-    let all = runs::all_runs(conn.connection()).unwrap();
+    let all = conn.all_runs().unwrap();
     let f = all.iter().find(|r| r.status == "failed").unwrap();
     assert_eq!(f.header.period_label, "2026-10-20");
     assert_eq!(f.error.as_deref(), Some("injected failure for 2026-10-20"));
@@ -212,7 +213,7 @@ fn three_weeks_with_outage_every_period_once_in_order_across_dst() {
         .unwrap(),
     );
 
-    let all = runs::all_runs(conn.connection()).unwrap();
+    let all = conn.all_runs().unwrap();
     let complete: Vec<_> = all.iter().filter(|r| r.status == "complete").collect();
     // Daily: production days 2026-10-12 .. 2026-11-01 (day 11-01 ends 11-02 06:00, due 08:00).
     let daily: Vec<String> = complete
@@ -308,7 +309,7 @@ fn shift_schedule_across_dst_spring_forward() {
         &mut |_: &str| {},
     )
     .unwrap();
-    let all = runs::all_runs(conn.connection()).unwrap();
+    let all = conn.all_runs().unwrap();
     let labels: Vec<_> = all.iter().map(|r| r.header.period_label.as_str()).collect();
     assert_eq!(
         labels,
@@ -367,7 +368,7 @@ fn two_schedulers_at_once_run_each_period_once() {
         .collect();
     let results: Vec<_> = handles.into_iter().map(|h| h.join().unwrap()).collect();
     let conn = open(&path);
-    let all = runs::all_runs(conn.connection()).unwrap();
+    let all = conn.all_runs().unwrap();
     // 14 days (11-02 .. 11-15) and 2 weeks (W45, W46): each run exactly once, by one of the two.
     assert_eq!(all.len(), 16, "{all:#?}");
     assert!(all.iter().all(|r| r.status == "complete" && r.version == 1));
@@ -430,7 +431,7 @@ fn killed_scheduler_leaves_no_partial_run_and_next_start_redoes_it() {
     let started = std::time::Instant::now();
     loop {
         let store = Store::open(&db).unwrap();
-        let all = runs::all_runs(store.connection()).unwrap();
+        let all = store.all_runs().unwrap();
         if all.iter().any(|r| r.status == "running") {
             break;
         }
@@ -440,13 +441,10 @@ fn killed_scheduler_leaves_no_partial_run_and_next_start_redoes_it() {
     child.kill().unwrap(); // SIGKILL
     child.wait().unwrap();
     let store = Store::open(&db).unwrap();
-    let all = runs::all_runs(store.connection()).unwrap();
+    let all = store.all_runs().unwrap();
     assert_eq!(all.len(), 1);
     assert_eq!(all[0].status, "running");
-    assert!(runs::run_content(store.connection(), all[0].run_id)
-        .unwrap()
-        .tests
-        .is_empty());
+    assert!(store.run_content(all[0].run_id).unwrap().tests.is_empty());
     drop(store);
     let out = common::samewise(&dir, &["schedule", "due", "--now", "2026-11-30T12:00:00Z"]);
     assert_eq!(
@@ -456,7 +454,7 @@ fn killed_scheduler_leaves_no_partial_run_and_next_start_redoes_it() {
         String::from_utf8_lossy(&out.stderr)
     );
     let store = Store::open(&db).unwrap();
-    let all = runs::all_runs(store.connection()).unwrap();
+    let all = store.all_runs().unwrap();
     let killed = &all[0];
     assert_eq!(killed.status, "failed");
     assert!(killed.error.as_deref().unwrap().starts_with("abandoned"));
@@ -468,17 +466,11 @@ fn killed_scheduler_leaves_no_partial_run_and_next_start_redoes_it() {
     assert_eq!(labels, ["2026-11-28", "2026-11-29"]);
     assert_eq!(complete[0].version, 2);
     for r in complete {
-        assert_eq!(
-            runs::run_content(store.connection(), r.run_id)
-                .unwrap()
-                .tests
-                .len(),
-            4
-        );
+        assert_eq!(store.run_content(r.run_id).unwrap().tests.len(), 4);
     }
     // Nothing due any more: a third start runs nothing.
     let out = common::samewise(&dir, &["schedule", "due", "--now", "2026-11-30T12:00:00Z"]);
     assert_eq!(out.status.code(), Some(0));
     let store = Store::open(&db).unwrap();
-    assert_eq!(runs::all_runs(store.connection()).unwrap().len(), 3);
+    assert_eq!(store.all_runs().unwrap().len(), 3);
 }

@@ -28,7 +28,8 @@ use crate::report::{
 use crate::results::TestState;
 use crate::results::{PairResult, TestResult};
 use crate::stats::decimal::Decimal;
-use crate::storage::runs::{self, RunContent, StoredRun};
+use crate::storage::runs::{RunContent, StoredRun};
+use crate::storage::RunStore;
 use crate::storage::Store;
 use crate::{Error, Result};
 
@@ -75,25 +76,24 @@ pub fn load_runs(
     from: DateTime<Utc>,
     to: DateTime<Utc>,
 ) -> Result<Vec<LoadedRun>> {
-    let conn = store.connection();
-    runs::latest_complete_runs_between(
-        conn,
-        kind.as_str(),
-        from.timestamp_millis(),
-        to.timestamp_millis(),
-    )?
-    .into_iter()
-    .map(|run| {
-        let content = runs::run_content(conn, run.run_id)?;
-        let revised =
-            runs::complete_versions(conn, &run.header.period_kind, &run.header.period_label)? > 1;
-        Ok(LoadedRun {
-            run,
-            content,
-            revised,
+    store
+        .latest_complete_runs_between(
+            kind.as_str(),
+            from.timestamp_millis(),
+            to.timestamp_millis(),
+        )?
+        .into_iter()
+        .map(|run| {
+            let content = store.run_content(run.run_id)?;
+            let revised =
+                store.complete_versions(&run.header.period_kind, &run.header.period_label)? > 1;
+            Ok(LoadedRun {
+                run,
+                content,
+                revised,
+            })
         })
-    })
-    .collect()
+        .collect()
 }
 
 /// A test's state as the report's [`FlagState`].

@@ -13,9 +13,11 @@ use super::{check_frames, worker_count, CheckOptions, Frame, FrameCharacteristic
 use crate::calendar::PlantCalendar;
 use crate::config::{Config, ScheduleConfig};
 use crate::model::{Period, PeriodKind};
+use crate::schedule::lifecycle::{self, Acquired, Finished, Lease};
 use crate::schedule::PeriodRunner;
 use crate::storage::runs::{self, RunContent, RunHeader, StoredRun};
 use crate::storage::PeriodFrame;
+use crate::storage::RunStore;
 use crate::storage::Store;
 use crate::Result;
 
@@ -69,11 +71,10 @@ pub fn previous_flags(
     if period.kind == PeriodKind::Range {
         return Ok(None);
     }
-    let prev = period.previous(calendar);
-    Ok(
-        runs::flagged_tests(&store.conn, prev.kind.as_str(), &prev.label)?
-            .map(|v| v.into_iter().collect()),
-    )
+    let prev = calendar.previous_period(period);
+    Ok(store
+        .flagged_tests(prev.kind.as_str(), &prev.label)?
+        .map(|v| v.into_iter().collect()))
 }
 
 /// Characteristics per `load_period` call of [`run_check`]: each call rebuilds the level-set
@@ -197,26 +198,12 @@ pub fn check_and_record(
         period_label: head.period_label.clone(),
     };
     let holder = crate::schedule::holder_name(now().timestamp_millis());
-    let ttl = crate::schedule::DEFAULT_LEASE_TTL.num_milliseconds();
-    let mut taken = runs::take_lease(&store.conn, &key, &holder, now().timestamp_millis(), ttl)?;
-    if !taken {
-        // A holder on this host whose process is gone (a check killed outright) cannot finish:
-        // its lease is taken over at once, as the scheduler does.
-        if let Some(old) = runs::lease_holder(&store.conn, &key)? {
-            if crate::schedule::holder_is_dead_local(&old, &holder) {
-                taken = runs::take_over_lease(
-                    &store.conn,
-                    &key,
-                    &old,
-                    &holder,
-                    now().timestamp_millis(),
-                    ttl,
-                )?;
-            }
-        }
-    }
-    if !taken {
-        let who = runs::lease_holder(&store.conn, &key)?.unwrap_or_default();
+    let lease = Lease {
+        key,
+        holder: &holder,
+        ttl_ms: crate::schedule::DEFAULT_LEASE_TTL.num_milliseconds(),
+    };
+    if let Acquired::Held(who) = lifecycle::acquire(&*store, &lease, now().timestamp_millis())? {
         return Err(crate::Error::Usage(format!(
             "another check of {} is running (lease holder {who}; its lease expires within {} \
              minutes unless renewed)",
@@ -224,47 +211,16 @@ pub fn check_and_record(
             crate::schedule::DEFAULT_LEASE_TTL.num_minutes()
         )));
     }
-    runs::abandon_running(&store.conn, &key, now().timestamp_millis())?;
-    let result = check_holding_lease(store, config, period, options, now, &head);
-    runs::release_lease(&store.conn, &key, &holder)?;
-    result
-}
-
-fn check_holding_lease(
-    store: &mut Store,
-    config: &Config,
-    period: &Period,
-    options: &CheckOptions,
-    now: &dyn Fn() -> DateTime<Utc>,
-    head: &RunHeader,
-) -> Result<(StoredRun, RunContent)> {
-    let run = runs::begin_run(&mut store.conn, head, now().timestamp_millis())?;
-    // A failed check and a result that could not be written both leave the run failed.
-    let completed = run_check(store, config, period, options).and_then(|content| {
-        runs::complete_run(
-            &mut store.conn,
-            run.run_id,
-            now().timestamp_millis(),
-            &content,
-        )?;
-        Ok(content)
+    let clock = || now().timestamp_millis();
+    let finished = store.abandon_running(&lease.key, clock()).and_then(|_| {
+        lifecycle::run_period(store, &lease, &head, &clock, &mut |_| {}, |store| {
+            run_check(store, config, period, options)
+        })
     });
-    match completed {
-        Ok(content) => {
-            let stored =
-                runs::latest_complete_run(&store.conn, &head.period_kind, &head.period_label)?
-                    .unwrap_or(run);
-            Ok((stored, content))
-        }
-        Err(e) => {
-            runs::fail_run(
-                &store.conn,
-                run.run_id,
-                now().timestamp_millis(),
-                &e.to_string(),
-            )?;
-            Err(e)
-        }
+    store.release_lease(&lease.key, lease.holder)?;
+    match finished? {
+        Finished::Completed(run, content) => Ok((run, content)),
+        Finished::Failed(_, e) => Err(e),
     }
 }
 
@@ -298,7 +254,9 @@ impl<'a> EngineRunner<'a> {
 
 impl PeriodRunner for EngineRunner<'_> {
     fn first_measurement(&mut self, store: &Store) -> Result<Option<DateTime<Utc>>> {
-        Ok(runs::first_measurement_ms(&store.conn)?.and_then(DateTime::from_timestamp_millis))
+        Ok(store
+            .first_measurement_ms()?
+            .and_then(DateTime::from_timestamp_millis))
     }
 
     fn header(&self, schedule: &ScheduleConfig, period: &Period) -> RunHeader {

@@ -20,6 +20,7 @@ use crate::output::{refuse_protected, AtomicFile, Protected};
 use crate::results::TestResult;
 use crate::stats::fdr::FdrMethod;
 use crate::storage::runs::{RunContent, StoredRun};
+use crate::storage::RunStore;
 use crate::{Error, Result};
 
 /// Flags of `samewise check`.
@@ -82,7 +83,7 @@ pub fn period_from_flags(args: &CheckArgs, calendar: &PlantCalendar) -> Result<P
             "say which period: --day D, --shift D/NAME, --week 2026-W48, --month 2026-11 or --from A --to B".into(),
         ));
     };
-    Period::parse_label(&label, calendar)
+    calendar.parse_period(&label)
 }
 
 /// Runs `samewise check`.

@@ -26,8 +26,8 @@ use crate::config::Config;
 use crate::ingest;
 use crate::sample;
 use crate::schedule::{self, PeriodOutcome, SchedulerOptions, SimulatedClock};
-use crate::storage::runs;
 use crate::storage::ImportOptions;
+use crate::storage::RunStore;
 use crate::storage::{NewEvent, Store};
 use crate::{Error, Result};
 
@@ -221,7 +221,7 @@ pub struct Finding {
 
 /// Summarises the daily history of one characteristic x factor.
 pub fn finding(store: &Store, characteristic: &str, factor: &str) -> Result<Finding> {
-    let points = runs::history(store.connection(), characteristic, factor, "day", 10_000)?;
+    let points = store.history(characteristic, factor, "day", 10_000)?;
     let mut levels: BTreeMap<String, usize> = BTreeMap::new();
     let mut f = Finding {
         characteristic: characteristic.into(),
@@ -308,8 +308,8 @@ pub fn run(args: &DemoArgs) -> Result<ExitCode> {
     let calendar = PlantCalendar::new(&config);
     let last_day = sample::first_day() + chrono::Duration::days(sample::N_DAYS - 1);
     let period = calendar.day(last_day);
-    if let Some(run) = runs::latest_complete_run(store.connection(), "day", &period.label)? {
-        let content = runs::run_content(store.connection(), run.run_id)?;
+    if let Some(run) = store.latest_complete_run("day", &period.label)? {
+        let content = store.run_content(run.run_id)?;
         println!("\n4. The latest daily check ({}):\n", period.label);
         let mut out = std::io::stdout().lock();
         if let Err(e) =
@@ -330,13 +330,7 @@ pub fn run(args: &DemoArgs) -> Result<ExitCode> {
     );
     let bore = finding(&store, "bore_diameter", "machine")?;
     let change = sample::tooling_change_day().format("%Y-%m-%d").to_string();
-    let points = runs::history(
-        store.connection(),
-        "bore_diameter",
-        "machine",
-        "day",
-        10_000,
-    )?;
+    let points = store.history("bore_diameter", "machine", "day", 10_000)?;
     let before = points
         .iter()
         .filter(|p| p.run.header.period_label < change && p.test.state.is_flag())
@@ -536,8 +530,9 @@ fn without_subgroups(dir: &Path, exports: &[PathBuf], store: &Store) -> Result<W
             out.dependent += usize::from(t.state == crate::results::TestState::DiffersDependent);
             out.flags += usize::from(t.state.is_flag());
         }
-        if let Some(run) = runs::latest_complete_run(store.connection(), "day", &period.label)? {
-            out.flags_with_subgroups += runs::run_content(store.connection(), run.run_id)?
+        if let Some(run) = store.latest_complete_run("day", &period.label)? {
+            out.flags_with_subgroups += store
+                .run_content(run.run_id)?
                 .tests
                 .iter()
                 .filter(|t| t.state.is_flag())

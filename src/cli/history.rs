@@ -10,6 +10,7 @@ use clap::Args;
 use super::check::{cell, leading, share, standout};
 use crate::results::TestState;
 use crate::storage::runs;
+use crate::storage::RunStore;
 use crate::{Error, Result};
 
 /// Flags of `samewise history`.
@@ -60,13 +61,7 @@ pub fn run(args: &HistoryArgs) -> Result<ExitCode> {
         .map(|c| c.unit.clone())
         .unwrap_or_default();
     let store = super::common::open_store(&config)?;
-    let points = runs::history(
-        store.connection(),
-        &args.characteristic,
-        &args.factor,
-        &args.kind,
-        args.last,
-    )?;
+    let points = store.history(&args.characteristic, &args.factor, &args.kind, args.last)?;
     if args.json || args.csv.is_some() {
         let rows: Vec<serde_json::Value> = points.iter().map(|p| point_json(&config, p)).collect();
         let c = config.characteristic(&args.characteristic);

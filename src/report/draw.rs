@@ -11,7 +11,7 @@ use plotters::prelude::*;
 use plotters::style::text_anchor::{HPos, Pos, VPos};
 use plotters::style::FontTransform;
 
-use super::{Chart, Format, Layout, Panel, Size};
+use super::{Chart, FlagState, Format, Layout, Panel, Size};
 use crate::error::{Error, Result};
 
 /// Font family name under which the embedded DejaVu Sans is registered with plotters.
@@ -733,7 +733,7 @@ pub fn draw_swatch<DB: DrawingBackend>(c: &Canvas<DB>, s: &Swatch, at: (f64, f64
             c.fill_rect((x, y - 11.0), (x + 34.0, y + 11.0), color, alpha)?;
             flag_mark(c, *state, (x + 17.0, y + 2.0))
         }
-        Swatch::Cell { state } => super::grid::draw_cell(c, *state, (x + 4.0, y - 12.0), 24.0),
+        Swatch::Cell { state } => draw_cell(c, *state, (x + 4.0, y - 12.0), 24.0),
     }
 }
 
@@ -1186,4 +1186,76 @@ pub fn check_finite<'v>(
         }
     }
     Ok(())
+}
+
+/// Draws one cell with its top-left corner at `at` and side `side`.
+pub(super) fn draw_cell<DB: DrawingBackend>(
+    c: &Canvas<DB>,
+    state: FlagState,
+    at: (f64, f64),
+    side: f64,
+) -> DrawResult {
+    let (x, y) = at;
+    let (x1, y1) = (x + side, y + side);
+    let (cx, cy) = (x + side / 2.0, y + side / 2.0);
+    let r = side * 0.3;
+    match state {
+        FlagState::DiffersMaterial => {
+            c.fill_rect((x, y), (x1, y1), Palette::VERMILLION, 1.0)?;
+            c.polygon(
+                &[(cx, cy - r), (cx + r, cy), (cx, cy + r), (cx - r, cy)],
+                Palette::BLACK,
+                1.0,
+            )
+        }
+        FlagState::Differs => {
+            c.fill_rect((x, y), (x1, y1), Palette::ORANGE, 1.0)?;
+            c.polygon(
+                &[(cx, cy - r), (cx + r, cy + r * 0.8), (cx - r, cy + r * 0.8)],
+                Palette::BLACK,
+                1.0,
+            )
+        }
+        FlagState::NoEvidence => {
+            c.fill_rect((x, y), (x1, y1), RGBColor(196, 232, 220), 1.0)?;
+            c.circle(
+                (cx, cy),
+                (side * 0.1).max(1.5),
+                RGBColor(0, 100, 72),
+                true,
+                1,
+            )
+        }
+        FlagState::NotIndependent => {
+            // The "differs" triangle, open, on a pale ground: a difference the data's
+            // dependence does not let stand.
+            c.fill_rect((x, y), (x1, y1), RGBColor(250, 236, 204), 1.0)?;
+            let tri = [(cx, cy - r), (cx + r, cy + r * 0.8), (cx - r, cy + r * 0.8)];
+            c.polyline(
+                &[tri[0], tri[1], tri[2], tri[0]],
+                RGBColor(120, 80, 0),
+                2,
+                None,
+            )
+        }
+        FlagState::TooLittleData => {
+            c.fill_rect((x, y), (x1, y1), RGBColor(222, 222, 222), 1.0)?;
+            // Diagonal hatching.
+            let steps = 3;
+            for i in 1..=steps {
+                let f = i as f64 / (steps as f64 + 1.0) * 2.0;
+                let (a, b) = if f <= 1.0 {
+                    ((x, y + side * f), (x + side * f, y))
+                } else {
+                    ((x + side * (f - 1.0), y1), (x1, y + side * (f - 1.0)))
+                };
+                c.line(a, b, RGBColor(110, 110, 110), 1, None)?;
+            }
+            Ok(())
+        }
+        FlagState::NotRun => {
+            c.fill_rect((x, y), (x1, y1), RGBColor(255, 255, 255), 1.0)?;
+            c.stroke_rect((x, y), (x1, y1), RGBColor(200, 200, 200), 1)
+        }
+    }
 }

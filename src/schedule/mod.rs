@@ -20,6 +20,7 @@
 //! Start reading at [`run_pass`].
 
 pub mod clock;
+pub mod lifecycle;
 
 use std::sync::atomic::{AtomicBool, Ordering};
 
@@ -30,7 +31,8 @@ pub use clock::{Clock, SimulatedClock};
 use crate::calendar::PlantCalendar;
 use crate::config::{Config, ScheduleConfig};
 use crate::model::{Period, PeriodKind};
-use crate::storage::runs::{self, LeaseKey, RunContent, RunHeader};
+use crate::storage::runs::{LeaseKey, RunContent, RunHeader};
+use crate::storage::RunStore;
 use crate::storage::Store;
 use crate::{Error, Result};
 
@@ -99,7 +101,7 @@ pub fn periods_until(
     let mut out = Vec::new();
     let mut p = calendar.period_containing(kind, first)?;
     while p.end + delay <= now {
-        let next = p.next(calendar);
+        let next = calendar.next_period(&p);
         out.push(p);
         p = next;
     }
@@ -117,7 +119,7 @@ pub fn next_due_time(
     let start = if first > now { first } else { now - delay };
     let mut p = calendar.period_containing(kind, start)?;
     while p.end + delay <= now {
-        p = p.next(calendar);
+        p = calendar.next_period(&p);
     }
     Ok(p.end + delay)
 }
@@ -130,7 +132,7 @@ pub fn due_periods(
     first: DateTime<Utc>,
     now: DateTime<Utc>,
 ) -> Result<Vec<Period>> {
-    let done = runs::completed_labels(&store.conn, Some(&schedule.name), schedule.period.as_str())?;
+    let done = store.completed_labels(Some(&schedule.name), schedule.period.as_str())?;
     let done: std::collections::HashSet<String> = done.into_iter().collect();
     Ok(
         periods_until(calendar, schedule.period, schedule.delay, first, now)?
@@ -270,89 +272,70 @@ fn run_one(
         period_kind: period.kind.as_str().to_string(),
         period_label: period.label.clone(),
     };
-    let ttl = options.lease_ttl.num_milliseconds();
-    let mut taken = runs::take_lease(&store.conn, &key, &options.holder, ms(clock.now()), ttl)?;
-    if !taken {
-        // A holder on this host whose process is gone cannot finish: take its lease over.
-        if let Some(old) = runs::lease_holder(&store.conn, &key)? {
-            if holder_is_dead_local(&old, &options.holder) {
-                taken = runs::take_over_lease(
-                    &store.conn,
-                    &key,
-                    &old,
-                    &options.holder,
-                    ms(clock.now()),
-                    ttl,
-                )?;
-                if taken {
-                    log(&format!(
-                        "{} {}: took over the lease of {old} (its process is gone)",
-                        schedule.name, period.label
-                    ));
-                }
-            }
+    let lease = lifecycle::Lease {
+        key,
+        holder: &options.holder,
+        ttl_ms: options.lease_ttl.num_milliseconds(),
+    };
+    match lifecycle::acquire(&*store, &lease, ms(clock.now()))? {
+        lifecycle::Acquired::Taken => {}
+        lifecycle::Acquired::TookOver(old) => log(&format!(
+            "{} {}: took over the lease of {old} (its process is gone)",
+            schedule.name, period.label
+        )),
+        lifecycle::Acquired::Held(_) => {
+            log(&format!(
+                "{} {}: another scheduler holds the lease, skipped",
+                schedule.name, period.label
+            ));
+            return Ok(PeriodOutcome::Leased);
         }
     }
-    if !taken {
-        log(&format!(
-            "{} {}: another scheduler holds the lease, skipped",
-            schedule.name, period.label
-        ));
-        return Ok(PeriodOutcome::Leased);
-    }
-    let recovered = runs::recover_abandoned(&store.conn, ms(clock.now()))?
-        + runs::abandon_running(&store.conn, &key, ms(clock.now()))?;
+    let recovered = store.recover_abandoned(ms(clock.now()))?
+        + store.abandon_running(&lease.key, ms(clock.now()))?;
     if recovered > 0 {
         log(&format!(
             "marked {recovered} abandoned run(s) as failed (their process stopped mid-run)"
         ));
     }
-    let done = runs::completed_labels(&store.conn, Some(&schedule.name), period.kind.as_str())?;
+    let done = store.completed_labels(Some(&schedule.name), period.kind.as_str())?;
     if done.contains(&period.label) {
-        runs::release_lease(&store.conn, &key, &options.holder)?;
+        store.release_lease(&lease.key, lease.holder)?;
         return Ok(PeriodOutcome::AlreadyDone);
     }
     let header = runner.header(schedule, period);
-    let run = runs::begin_run(&mut store.conn, &header, ms(clock.now()))?;
-    log(&format!(
-        "{} {}: run {} (version {}) started",
-        schedule.name, period.label, run.run_id, run.version
-    ));
-    if let Some(pause) = options.pause_after_begin {
-        std::thread::sleep(pause);
-    }
-    let computed = runner.compute(store, schedule, period);
-    let still_ours = runs::heartbeat(&store.conn, &key, &options.holder, ms(clock.now()), ttl)?;
-    let outcome = match computed {
-        Ok(_) if !still_ours => {
-            let error = "the lease expired during the run; another scheduler may redo it";
-            runs::fail_run(&store.conn, run.run_id, ms(clock.now()), error)?;
-            PeriodOutcome::Failed(run.run_id, error.to_string())
-        }
-        Ok(content) => {
-            match runs::complete_run(&mut store.conn, run.run_id, ms(clock.now()), &content) {
-                Ok(()) => {
-                    let flagged = content.tests.iter().filter(|t| t.state.is_flag()).count();
-                    log(&format!(
-                        "{} {}: run {} complete, {} tests, {} flagged",
-                        schedule.name,
-                        period.label,
-                        run.run_id,
-                        content.tests.len(),
-                        flagged
-                    ));
-                    PeriodOutcome::Completed(run.run_id, flagged)
-                }
-                Err(e) => {
-                    let error = e.to_string();
-                    runs::fail_run(&store.conn, run.run_id, ms(clock.now()), &error)?;
-                    PeriodOutcome::Failed(run.run_id, error)
-                }
+    let now = || ms(clock.now());
+    let finished = lifecycle::run_period(
+        store,
+        &lease,
+        &header,
+        &now,
+        &mut |run| {
+            log(&format!(
+                "{} {}: run {} (version {}) started",
+                schedule.name, period.label, run.run_id, run.version
+            ));
+            if let Some(pause) = options.pause_after_begin {
+                std::thread::sleep(pause);
             }
+        },
+        |store| runner.compute(store, schedule, period),
+    )?;
+    let outcome = match finished {
+        lifecycle::Finished::Completed(run, content) => {
+            let flagged = content.n_flagged();
+            log(&format!(
+                "{} {}: run {} complete, {} tests, {} flagged",
+                schedule.name,
+                period.label,
+                run.run_id,
+                content.tests.len(),
+                flagged
+            ));
+            PeriodOutcome::Completed(run.run_id, flagged)
         }
-        Err(e) => {
+        lifecycle::Finished::Failed(run, e) => {
             let error = e.to_string();
-            runs::fail_run(&store.conn, run.run_id, ms(clock.now()), &error)?;
             log(&format!(
                 "{} {}: run {} failed: {error} (retried on the next pass)",
                 schedule.name, period.label, run.run_id
@@ -360,7 +343,7 @@ fn run_one(
             PeriodOutcome::Failed(run.run_id, error)
         }
     };
-    runs::release_lease(&store.conn, &key, &options.holder)?;
+    store.release_lease(&lease.key, lease.holder)?;
     Ok(outcome)
 }
 

@@ -34,6 +34,7 @@ pub use maintenance::{CharacteristicStatus, IntegrityReport, Status};
 pub use master::{StoredCharacteristic, StoredFactor, SyncReport};
 pub(crate) use query::closest;
 pub use query::{exact_value, CharacteristicFrame, FactorLevels, PeriodFrame, NO_SUBGROUP};
+pub use runs::RunStore;
 
 use std::path::{Path, PathBuf};
 use std::time::Duration;
@@ -179,7 +180,7 @@ const CACHE_KIB: i64 = 64 * 1024;
 /// same time: WAL mode lets readers proceed while an import writes, and a busy timeout makes a
 /// second writer wait rather than fail.
 pub struct Store {
-    pub(crate) conn: Connection,
+    conn: Connection,
     path: Option<PathBuf>,
     /// Level set id -> level index per configured factor, filled lazily by `load_period`.
     pub(crate) level_cache: std::cell::RefCell<query::LevelCache>,
@@ -309,20 +310,6 @@ impl Store {
     /// The schema version of the database (`PRAGMA user_version`).
     pub fn schema_version(&self) -> Result<u32> {
         migrate::schema_version(&self.conn)
-    }
-
-    /// The latest complete run of a period (kind and label as stored) with its content, or
-    /// `None` when the period was never checked to the end. Reads only.
-    pub fn latest_run(
-        &self,
-        period_kind: &str,
-        period_label: &str,
-    ) -> Result<Option<(runs::StoredRun, runs::RunContent)>> {
-        let Some(run) = runs::latest_complete_run(&self.conn, period_kind, period_label)? else {
-            return Ok(None);
-        };
-        let content = runs::run_content(&self.conn, run.run_id)?;
-        Ok(Some((run, content)))
     }
 }
 

@@ -74,7 +74,11 @@ pub struct StoredRun {
 pub use crate::results::RunContent;
 
 /// Inserts a `running` row with the next version of its period and commits it; returns the run.
-pub fn begin_run(conn: &mut Connection, header: &RunHeader, started_ms: i64) -> Result<StoredRun> {
+pub(super) fn begin_run(
+    conn: &mut Connection,
+    header: &RunHeader,
+    started_ms: i64,
+) -> Result<StoredRun> {
     let tx = conn.transaction_with_behavior(TransactionBehavior::Immediate)?;
     let version: i64 = tx.query_row(
         "SELECT COALESCE(MAX(version), 0) + 1 FROM run WHERE period_kind = ?1 AND period_label = ?2",
@@ -120,7 +124,7 @@ pub fn begin_run(conn: &mut Connection, header: &RunHeader, started_ms: i64) -> 
 ///
 /// Fails (and writes nothing) when the run is no longer `running` (for example because a
 /// recovery marked it abandoned).
-pub fn complete_run(
+pub(super) fn complete_run(
     conn: &mut Connection,
     run_id: i64,
     finished_ms: i64,
@@ -284,7 +288,12 @@ pub fn complete_run(
 }
 
 /// Marks a run `failed` and keeps the error text.
-pub fn fail_run(conn: &Connection, run_id: i64, finished_ms: i64, error: &str) -> Result<()> {
+pub(super) fn fail_run(
+    conn: &Connection,
+    run_id: i64,
+    finished_ms: i64,
+    error: &str,
+) -> Result<()> {
     conn.execute(
         "UPDATE run SET status = 'failed', finished_ms = ?2, error = ?3
          WHERE run_id = ?1 AND status = 'running'",
@@ -295,7 +304,7 @@ pub fn fail_run(conn: &Connection, run_id: i64, finished_ms: i64, error: &str) -
 
 /// Marks as failed every `running` run whose lease (schedule, or `''` for a run by hand, and
 /// period) is missing or expired at `now_ms`. Returns how many were recovered.
-pub fn recover_abandoned(conn: &Connection, now_ms: i64) -> Result<usize> {
+pub(super) fn recover_abandoned(conn: &Connection, now_ms: i64) -> Result<usize> {
     let n = conn.execute(
         "UPDATE run SET status = 'failed', finished_ms = ?1,
             error = 'abandoned: the process stopped before the run was written; no results were kept'
@@ -310,7 +319,7 @@ pub fn recover_abandoned(conn: &Connection, now_ms: i64) -> Result<usize> {
 
 /// Marks as failed ("abandoned") the `running` runs of one schedule and period. Called by the
 /// holder of that period's lease: while it holds the lease, no other process can be running it.
-pub fn abandon_running(conn: &Connection, key: &LeaseKey, now_ms: i64) -> Result<usize> {
+pub(super) fn abandon_running(conn: &Connection, key: &LeaseKey, now_ms: i64) -> Result<usize> {
     let n = execute_for_lease(
         conn,
         "UPDATE run SET status = 'failed', finished_ms = ?4,
@@ -353,7 +362,11 @@ fn run_from_row(r: &Row<'_>) -> rusqlite::Result<StoredRun> {
 
 /// How many complete versions a period's run has: more than one means the period was checked
 /// again (late or undone data made it stale, or it was rerun) and is shown as revised.
-pub fn complete_versions(conn: &Connection, period_kind: &str, period_label: &str) -> Result<i64> {
+pub(super) fn complete_versions(
+    conn: &Connection,
+    period_kind: &str,
+    period_label: &str,
+) -> Result<i64> {
     Ok(conn
         .prepare_cached(
             "SELECT COUNT(*) FROM run WHERE period_kind = ?1 AND period_label = ?2 \
@@ -363,7 +376,7 @@ pub fn complete_versions(conn: &Connection, period_kind: &str, period_label: &st
 }
 
 /// The latest complete version of a period's run, if any.
-pub fn latest_complete_run(
+pub(super) fn latest_complete_run(
     conn: &Connection,
     period_kind: &str,
     period_label: &str,
@@ -378,7 +391,7 @@ pub fn latest_complete_run(
 }
 
 /// Every run of a period (all versions and statuses), oldest first.
-pub fn runs_of_period(
+pub(super) fn runs_of_period(
     conn: &Connection,
     period_kind: &str,
     period_label: &str,
@@ -393,7 +406,7 @@ pub fn runs_of_period(
 }
 
 /// Every run, oldest first (for status displays and tests).
-pub fn all_runs(conn: &Connection) -> Result<Vec<StoredRun>> {
+pub(super) fn all_runs(conn: &Connection) -> Result<Vec<StoredRun>> {
     let sql = format!("SELECT {RUN_COLUMNS} FROM run ORDER BY run_id");
     let mut st = conn.prepare(&sql)?;
     let rows = st.query_map([], run_from_row)?;
@@ -403,7 +416,7 @@ pub fn all_runs(conn: &Connection) -> Result<Vec<StoredRun>> {
 /// Labels of the periods of `period_kind` (and `schedule`) that are done: checked to the end,
 /// and not stale (no import stored measurements inside them, and no undo removed any, after
 /// their latest complete run began).
-pub fn completed_labels(
+pub(super) fn completed_labels(
     conn: &Connection,
     schedule: Option<&str>,
     period_kind: &str,
@@ -578,7 +591,7 @@ fn rows_of_run<T>(
 }
 
 /// Reads the full content of one run.
-pub fn run_content(conn: &Connection, run_id: i64) -> Result<RunContent> {
+pub(super) fn run_content(conn: &Connection, run_id: i64) -> Result<RunContent> {
     let sql = format!("SELECT {TEST_COLUMNS} FROM run_result WHERE run_id = ?1 ORDER BY test_idx");
     let mut tests = rows_of_run(conn, &sql, run_id, |r| test_from_row(r, 0))?;
     // Tests are numbered 0.. in order; a position lookup tolerates gaps all the same.
@@ -668,7 +681,7 @@ fn qualified(alias: &str, columns: &str) -> String {
 
 /// The latest complete result of `characteristic` x `factor` for each of the last `last` periods
 /// of `period_kind`, oldest first.
-pub fn history(
+pub(super) fn history(
     conn: &Connection,
     characteristic: &str,
     factor: &str,
@@ -708,7 +721,7 @@ pub fn history(
 
 /// The latest complete run of every `period_kind` period whose start lies in
 /// `[start_ms, end_ms)`, in time order (the month report and the chart command read these).
-pub fn latest_complete_runs_between(
+pub(super) fn latest_complete_runs_between(
     conn: &Connection,
     period_kind: &str,
     start_ms: i64,
@@ -729,7 +742,7 @@ pub fn latest_complete_runs_between(
 }
 
 /// Flagged (characteristic, factor) pairs of the latest complete run of a period.
-pub fn flagged_tests(
+pub(super) fn flagged_tests(
     conn: &Connection,
     period_kind: &str,
     period_label: &str,
@@ -748,12 +761,12 @@ pub fn flagged_tests(
 }
 
 /// The earliest measurement instant in the store (ms since the epoch), `None` when empty.
-pub fn first_measurement_ms(conn: &Connection) -> Result<Option<i64>> {
+pub(super) fn first_measurement_ms(conn: &Connection) -> Result<Option<i64>> {
     Ok(conn.query_row("SELECT MIN(ts_ms) FROM measurements", [], |r| r.get(0))?)
 }
 
 /// Number of lease rows (taken and not released).
-pub fn lease_count(conn: &Connection) -> Result<usize> {
+pub(super) fn lease_count(conn: &Connection) -> Result<usize> {
     let n: i64 = conn.query_row("SELECT COUNT(*) FROM run_lease", [], |r| r.get(0))?;
     Ok(n as usize)
 }
@@ -784,7 +797,7 @@ fn execute_for_lease(
 
 /// Takes the lease atomically: succeeds when no lease exists, when the existing one has expired
 /// at `now_ms`, or when `holder` already holds it. Returns whether `holder` now holds it.
-pub fn take_lease(
+pub(super) fn take_lease(
     conn: &Connection,
     key: &LeaseKey,
     holder: &str,
@@ -806,7 +819,7 @@ pub fn take_lease(
 }
 
 /// Extends the lease held by `holder`; returns false when it is no longer held by it.
-pub fn heartbeat(
+pub(super) fn heartbeat(
     conn: &Connection,
     key: &LeaseKey,
     holder: &str,
@@ -824,7 +837,7 @@ pub fn heartbeat(
 }
 
 /// The current holder of a lease, if any.
-pub fn lease_holder(conn: &Connection, key: &LeaseKey) -> Result<Option<String>> {
+pub(super) fn lease_holder(conn: &Connection, key: &LeaseKey) -> Result<Option<String>> {
     Ok(conn
         .query_row(
             "SELECT holder FROM run_lease WHERE schedule = ?1 AND period_kind = ?2
@@ -836,7 +849,7 @@ pub fn lease_holder(conn: &Connection, key: &LeaseKey) -> Result<Option<String>>
 }
 
 /// Takes a lease over from `old` (known to be dead); atomic: fails if someone else got it first.
-pub fn take_over_lease(
+pub(super) fn take_over_lease(
     conn: &Connection,
     key: &LeaseKey,
     old: &str,
@@ -855,7 +868,7 @@ pub fn take_over_lease(
 }
 
 /// Gives the lease up (only when `holder` holds it).
-pub fn release_lease(conn: &Connection, key: &LeaseKey, holder: &str) -> Result<()> {
+pub(super) fn release_lease(conn: &Connection, key: &LeaseKey, holder: &str) -> Result<()> {
     execute_for_lease(
         conn,
         "DELETE FROM run_lease WHERE schedule = ?1 AND period_kind = ?2 AND period_label = ?3
@@ -866,16 +879,182 @@ pub fn release_lease(conn: &Connection, key: &LeaseKey, holder: &str) -> Result<
     Ok(())
 }
 
-impl crate::storage::Store {
-    /// The connection, for the run-history functions of this module.
-    pub fn connection(&self) -> &Connection {
-        &self.conn
+/// The run history and its leases, as the rest of samewise sees them: what a second backend
+/// implements. Times are milliseconds since the Unix epoch, UTC. The lifecycle these serve is in
+/// `schedule::lifecycle` (one for `check` and the scheduler alike).
+pub trait RunStore {
+    /// Commits a `running` row with the next version of its period.
+    fn begin_run(&mut self, header: &RunHeader, started_ms: i64) -> Result<StoredRun>;
+    /// Writes every result of the run and marks it `complete`, all or nothing; fails when the
+    /// run is no longer `running`.
+    fn complete_run(&mut self, run_id: i64, finished_ms: i64, content: &RunContent) -> Result<()>;
+    /// Marks a running run `failed`, keeping the error text.
+    fn fail_run(&self, run_id: i64, finished_ms: i64, error: &str) -> Result<()>;
+    /// Marks `failed` every running run whose lease is gone or expired; returns how many.
+    fn recover_abandoned(&self, now_ms: i64) -> Result<usize>;
+    /// Marks `failed` the running runs of the lease's period (the caller holds its lease).
+    fn abandon_running(&self, key: &LeaseKey, now_ms: i64) -> Result<usize>;
+    /// Complete versions of a period's run.
+    fn complete_versions(&self, period_kind: &str, period_label: &str) -> Result<i64>;
+    /// The highest complete version of a period's run.
+    fn latest_complete_run(
+        &self,
+        period_kind: &str,
+        period_label: &str,
+    ) -> Result<Option<StoredRun>>;
+    /// Every run of a period, oldest version first.
+    fn runs_of_period(&self, period_kind: &str, period_label: &str) -> Result<Vec<StoredRun>>;
+    /// Every run.
+    fn all_runs(&self) -> Result<Vec<StoredRun>>;
+    /// Labels of the periods of a kind (and schedule) that are done: complete and not stale.
+    fn completed_labels(&self, schedule: Option<&str>, period_kind: &str) -> Result<Vec<String>>;
+    /// The full content of a run.
+    fn run_content(&self, run_id: i64) -> Result<RunContent>;
+    /// The latest complete result of a characteristic x factor over the last `last` periods.
+    fn history(
+        &self,
+        characteristic: &str,
+        factor: &str,
+        period_kind: &str,
+        last: usize,
+    ) -> Result<Vec<HistoryPoint>>;
+    /// The latest complete runs of the periods of a kind starting in `[start_ms, end_ms)`.
+    fn latest_complete_runs_between(
+        &self,
+        period_kind: &str,
+        start_ms: i64,
+        end_ms: i64,
+    ) -> Result<Vec<StoredRun>>;
+    /// Flagged (characteristic, factor) pairs of a period's latest complete run.
+    fn flagged_tests(
+        &self,
+        period_kind: &str,
+        period_label: &str,
+    ) -> Result<Option<Vec<(String, String)>>>;
+    /// The latest complete run of a period with its content. Reads only.
+    fn latest_run(
+        &self,
+        period_kind: &str,
+        period_label: &str,
+    ) -> Result<Option<(StoredRun, RunContent)>> {
+        let Some(run) = self.latest_complete_run(period_kind, period_label)? else {
+            return Ok(None);
+        };
+        let content = self.run_content(run.run_id)?;
+        Ok(Some((run, content)))
     }
+    /// The earliest measurement instant, `None` when there is none.
+    fn first_measurement_ms(&self) -> Result<Option<i64>>;
+    /// Leases taken and not released.
+    fn lease_count(&self) -> Result<usize>;
+    /// Takes a free or expired lease; `false` when someone else holds it.
+    fn take_lease(&self, key: &LeaseKey, holder: &str, now_ms: i64, ttl_ms: i64) -> Result<bool>;
+    /// Renews a lease this holder still holds; `false` when it lost it.
+    fn heartbeat(&self, key: &LeaseKey, holder: &str, now_ms: i64, ttl_ms: i64) -> Result<bool>;
+    /// The holder of a lease, if any.
+    fn lease_holder(&self, key: &LeaseKey) -> Result<Option<String>>;
+    /// Takes over a lease from `old` (whose process is known to be gone).
+    fn take_over_lease(
+        &self,
+        key: &LeaseKey,
+        old: &str,
+        holder: &str,
+        now_ms: i64,
+        ttl_ms: i64,
+    ) -> Result<bool>;
+    /// Releases a lease this holder holds.
+    fn release_lease(&self, key: &LeaseKey, holder: &str) -> Result<()>;
+}
 
-    /// The connection, mutable, for the functions of this module that open a transaction
-    /// ([`begin_run`], [`complete_run`]).
-    pub fn connection_mut(&mut self) -> &mut Connection {
-        &mut self.conn
+impl RunStore for crate::storage::Store {
+    fn begin_run(&mut self, header: &RunHeader, started_ms: i64) -> Result<StoredRun> {
+        begin_run(&mut self.conn, header, started_ms)
+    }
+    fn complete_run(&mut self, run_id: i64, finished_ms: i64, content: &RunContent) -> Result<()> {
+        complete_run(&mut self.conn, run_id, finished_ms, content)
+    }
+    fn fail_run(&self, run_id: i64, finished_ms: i64, error: &str) -> Result<()> {
+        fail_run(&self.conn, run_id, finished_ms, error)
+    }
+    fn recover_abandoned(&self, now_ms: i64) -> Result<usize> {
+        recover_abandoned(&self.conn, now_ms)
+    }
+    fn abandon_running(&self, key: &LeaseKey, now_ms: i64) -> Result<usize> {
+        abandon_running(&self.conn, key, now_ms)
+    }
+    fn complete_versions(&self, period_kind: &str, period_label: &str) -> Result<i64> {
+        complete_versions(&self.conn, period_kind, period_label)
+    }
+    fn latest_complete_run(
+        &self,
+        period_kind: &str,
+        period_label: &str,
+    ) -> Result<Option<StoredRun>> {
+        latest_complete_run(&self.conn, period_kind, period_label)
+    }
+    fn runs_of_period(&self, period_kind: &str, period_label: &str) -> Result<Vec<StoredRun>> {
+        runs_of_period(&self.conn, period_kind, period_label)
+    }
+    fn all_runs(&self) -> Result<Vec<StoredRun>> {
+        all_runs(&self.conn)
+    }
+    fn completed_labels(&self, schedule: Option<&str>, period_kind: &str) -> Result<Vec<String>> {
+        completed_labels(&self.conn, schedule, period_kind)
+    }
+    fn run_content(&self, run_id: i64) -> Result<RunContent> {
+        run_content(&self.conn, run_id)
+    }
+    fn history(
+        &self,
+        characteristic: &str,
+        factor: &str,
+        period_kind: &str,
+        last: usize,
+    ) -> Result<Vec<HistoryPoint>> {
+        history(&self.conn, characteristic, factor, period_kind, last)
+    }
+    fn latest_complete_runs_between(
+        &self,
+        period_kind: &str,
+        start_ms: i64,
+        end_ms: i64,
+    ) -> Result<Vec<StoredRun>> {
+        latest_complete_runs_between(&self.conn, period_kind, start_ms, end_ms)
+    }
+    fn flagged_tests(
+        &self,
+        period_kind: &str,
+        period_label: &str,
+    ) -> Result<Option<Vec<(String, String)>>> {
+        flagged_tests(&self.conn, period_kind, period_label)
+    }
+    fn first_measurement_ms(&self) -> Result<Option<i64>> {
+        first_measurement_ms(&self.conn)
+    }
+    fn lease_count(&self) -> Result<usize> {
+        lease_count(&self.conn)
+    }
+    fn take_lease(&self, key: &LeaseKey, holder: &str, now_ms: i64, ttl_ms: i64) -> Result<bool> {
+        take_lease(&self.conn, key, holder, now_ms, ttl_ms)
+    }
+    fn heartbeat(&self, key: &LeaseKey, holder: &str, now_ms: i64, ttl_ms: i64) -> Result<bool> {
+        heartbeat(&self.conn, key, holder, now_ms, ttl_ms)
+    }
+    fn lease_holder(&self, key: &LeaseKey) -> Result<Option<String>> {
+        lease_holder(&self.conn, key)
+    }
+    fn take_over_lease(
+        &self,
+        key: &LeaseKey,
+        old: &str,
+        holder: &str,
+        now_ms: i64,
+        ttl_ms: i64,
+    ) -> Result<bool> {
+        take_over_lease(&self.conn, key, old, holder, now_ms, ttl_ms)
+    }
+    fn release_lease(&self, key: &LeaseKey, holder: &str) -> Result<()> {
+        release_lease(&self.conn, key, holder)
     }
 }
 

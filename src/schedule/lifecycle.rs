@@ -1,0 +1,231 @@
+//! One run lifecycle, the same for a check by hand (`samewise check`) and for the scheduler:
+//! take the period's lease (or take it over from a holder on this host whose process is gone),
+//! mark runs left behind as failed, begin the run, compute it, check that the lease is still
+//! ours, then write every result in one transaction or record the failure, and release the
+//! lease. The store is anything that implements [`RunStore`]; times come from the caller's
+//! clock (milliseconds since the epoch, UTC), so nothing here reads the wall clock.
+
+use crate::results::RunContent;
+use crate::storage::runs::{LeaseKey, RunHeader, StoredRun};
+use crate::storage::RunStore;
+use crate::Result;
+
+/// Whose lease, for how long.
+#[derive(Debug, Clone)]
+pub struct Lease<'a> {
+    /// Schedule (`""` for a check by hand) and period.
+    pub key: LeaseKey,
+    /// This process (`host:pid:random`).
+    pub holder: &'a str,
+    /// Lifetime without a heartbeat, milliseconds.
+    pub ttl_ms: i64,
+}
+
+/// The outcome of asking for a lease.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum Acquired {
+    /// The lease was free or expired, and is ours now.
+    Taken,
+    /// The lease was held by a process of this host that no longer exists; it is ours now.
+    TookOver(String),
+    /// Someone else holds the lease (their holder name).
+    Held(String),
+}
+
+impl Acquired {
+    /// Whether the lease is ours.
+    pub fn is_ours(&self) -> bool {
+        !matches!(self, Acquired::Held(_))
+    }
+}
+
+/// Takes the lease, or takes it over from a holder on this host whose process is gone (any
+/// doubt counts as alive: the lease then expires by itself).
+pub fn acquire<S: RunStore + ?Sized>(
+    store: &S,
+    lease: &Lease<'_>,
+    now_ms: i64,
+) -> Result<Acquired> {
+    if store.take_lease(&lease.key, lease.holder, now_ms, lease.ttl_ms)? {
+        return Ok(Acquired::Taken);
+    }
+    let Some(old) = store.lease_holder(&lease.key)? else {
+        // Released between the two statements: try once more.
+        return Ok(
+            if store.take_lease(&lease.key, lease.holder, now_ms, lease.ttl_ms)? {
+                Acquired::Taken
+            } else {
+                Acquired::Held(store.lease_holder(&lease.key)?.unwrap_or_default())
+            },
+        );
+    };
+    if super::holder_is_dead_local(&old, lease.holder)
+        && store.take_over_lease(&lease.key, &old, lease.holder, now_ms, lease.ttl_ms)?
+    {
+        return Ok(Acquired::TookOver(old));
+    }
+    Ok(Acquired::Held(old))
+}
+
+/// How a run ended.
+#[derive(Debug)]
+pub enum Finished {
+    /// Every result was written; the run as stored (with its counts) and its content.
+    Completed(StoredRun, RunContent),
+    /// The computation failed, the lease was lost during it, or the results could not be
+    /// written: the run is stored as failed with this error.
+    Failed(StoredRun, crate::Error),
+}
+
+/// Runs one period while holding its lease: begins the run (`on_begin` sees it), computes it,
+/// renews the lease, then completes the run, or records why it failed. `now` is the caller's
+/// clock. The lease is not released here (the caller releases it, whatever the outcome).
+pub fn run_period<S: RunStore>(
+    store: &mut S,
+    lease: &Lease<'_>,
+    header: &RunHeader,
+    now: &dyn Fn() -> i64,
+    on_begin: &mut dyn FnMut(&StoredRun),
+    compute: impl FnOnce(&S) -> Result<RunContent>,
+) -> Result<Finished> {
+    let run = store.begin_run(header, now())?;
+    on_begin(&run);
+    let computed = compute(store);
+    let still_ours = store.heartbeat(&lease.key, lease.holder, now(), lease.ttl_ms)?;
+    let error = match computed {
+        Ok(_) if !still_ours => crate::Error::Database(
+            "the lease expired during the run; another scheduler may redo it".to_string(),
+        ),
+        Ok(content) => match store.complete_run(run.run_id, now(), &content) {
+            Ok(()) => {
+                let stored = store
+                    .latest_complete_run(&header.period_kind, &header.period_label)?
+                    .filter(|r| r.run_id == run.run_id)
+                    .unwrap_or(run);
+                return Ok(Finished::Completed(stored, content));
+            }
+            Err(e) => e,
+        },
+        Err(e) => e,
+    };
+    store.fail_run(run.run_id, now(), &error.to_string())?;
+    Ok(Finished::Failed(run, error))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::results::{TestResult, TestState};
+    use crate::storage::Store;
+
+    fn header() -> RunHeader {
+        RunHeader {
+            period_kind: "day".into(),
+            period_label: "2026-11-30".into(),
+            period_start_ms: 0,
+            period_end_ms: 1,
+            schedule: None,
+            config_hash: "h".into(),
+            tool_version: "t".into(),
+            fdr_method: "bh".into(),
+            fdr_level: 0.05,
+        }
+    }
+
+    fn lease(holder: &str) -> Lease<'_> {
+        Lease {
+            key: LeaseKey {
+                schedule: String::new(),
+                period_kind: "day".into(),
+                period_label: "2026-11-30".into(),
+            },
+            holder,
+            ttl_ms: 1000,
+        }
+    }
+
+    fn one_test() -> RunContent {
+        RunContent {
+            tests: vec![TestResult {
+                characteristic: "bore".into(),
+                factor: "machine".into(),
+                state: TestState::Differs,
+                ..TestResult::default()
+            }],
+        }
+    }
+
+    #[test]
+    fn a_held_lease_is_not_taken_until_it_expires() {
+        let store = Store::open_in_memory().unwrap();
+        assert_eq!(
+            acquire(&store, &lease("a:1:x"), 0).unwrap(),
+            Acquired::Taken
+        );
+        // Another host's holder: never taken over, only after expiry.
+        assert_eq!(
+            acquire(&store, &lease("b:2:y"), 10).unwrap(),
+            Acquired::Held("a:1:x".into())
+        );
+        assert_eq!(
+            acquire(&store, &lease("b:2:y"), 2000).unwrap(),
+            Acquired::Taken
+        );
+    }
+
+    #[test]
+    fn completed_failed_and_lost_lease_runs_are_recorded() {
+        let mut store = Store::open_in_memory().unwrap();
+        let l = lease("a:1:x");
+        assert!(acquire(&store, &l, 0).unwrap().is_ours());
+        let now = || 5;
+        let mut begun = Vec::new();
+        let done = run_period(
+            &mut store,
+            &l,
+            &header(),
+            &now,
+            &mut |r| begun.push(r.run_id),
+            |_| Ok(one_test()),
+        )
+        .unwrap();
+        let Finished::Completed(run, content) = done else {
+            panic!("{done:?}")
+        };
+        assert_eq!((run.status.as_str(), run.n_flagged), ("complete", Some(1)));
+        assert_eq!(content.tests.len(), 1);
+        assert_eq!(begun, [run.run_id]);
+        // A failing computation: the run is failed with its error, nothing else is written.
+        let done = run_period(&mut store, &l, &header(), &now, &mut |_| {}, |_| {
+            Err(crate::Error::Usage("no values".into()))
+        })
+        .unwrap();
+        let Finished::Failed(run, e) = done else {
+            panic!("{done:?}")
+        };
+        assert!(e.to_string().contains("no values"));
+        let stored = store.runs_of_period("day", "2026-11-30").unwrap();
+        assert_eq!(stored[1].run_id, run.run_id);
+        assert_eq!(stored[1].status, "failed");
+        // The lease lost during the run (expired and taken by another holder): not completed.
+        let other = lease("b:2:y");
+        let late = || 5000;
+        let done = run_period(&mut store, &l, &header(), &late, &mut |_| {}, |s| {
+            assert!(acquire(s, &other, 5000).unwrap().is_ours());
+            Ok(one_test())
+        })
+        .unwrap();
+        assert!(
+            matches!(&done, Finished::Failed(_, e) if e.to_string().contains("lease expired")),
+            "{done:?}"
+        );
+        assert_eq!(
+            store
+                .latest_complete_run("day", "2026-11-30")
+                .unwrap()
+                .unwrap()
+                .version,
+            1
+        );
+    }
+}
