@@ -471,10 +471,13 @@ fn check_command_flags_stores_versions_and_history() {
     assert_eq!(lines.len(), 2, "{text}");
     assert!(lines[0].starts_with("2026-11-28") && lines[0].contains("no evidence"));
     assert!(lines[1].starts_with("2026-11-30") && lines[1].contains("differs and material"));
-    // A bad flag is a usage error (exit 1) naming the flag.
+    // A day of the wrong shape is refused by the command-line parser (exit 2), naming the flag,
+    // the value and the accepted form (the one day grammar of every command, cli::when).
     let out = common::samewise(&dir, &["check", "--day", "30.11.2026"]);
-    assert_eq!(out.status.code(), Some(1));
-    assert!(String::from_utf8_lossy(&out.stderr).contains("--day 30.11.2026"));
+    assert_eq!(out.status.code(), Some(2));
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(err.contains("'30.11.2026' for '--day <DAY>'"), "{err}");
+    assert!(err.contains("YYYY-MM-DD"), "{err}");
 }
 
 /// The alert hook: `schedule due` exits 3 when a run it made has a flag (the README and the

@@ -9,6 +9,8 @@ use std::process::ExitCode;
 use chrono::{Duration, NaiveDate};
 use clap::{Args, ValueEnum};
 
+use super::vocab::{self, Kind};
+use super::when;
 use crate::analysis::report;
 use crate::calendar::PlantCalendar;
 use crate::config::Config;
@@ -35,28 +37,28 @@ pub enum ChartKind {
 #[derive(Debug, Args)]
 pub struct ChartArgs {
     /// Which chart.
-    #[arg(value_enum)]
-    pub kind: ChartKind,
+    #[arg(value_enum, value_name = "CHART")]
+    pub chart: ChartKind,
     /// The characteristic (trend, share, detail, before-after).
-    #[arg(long)]
+    #[arg(long, value_name = "NAME")]
     pub characteristic: Option<String>,
     /// The factor whose groups are compared (trend, share, detail, before-after).
-    #[arg(long = "by")]
+    #[arg(long = "by", value_name = "FACTOR")]
     pub factor: Option<String>,
     /// A month, YYYY-MM (grid; or the range of trend and share).
     #[arg(long)]
     pub month: Option<String>,
     /// First production day of the range (trend, share), YYYY-MM-DD.
-    #[arg(long)]
+    #[arg(long, value_name = "DAY", value_parser = when::day)]
     pub from: Option<NaiveDate>,
-    /// Last production day of the range, included (trend, share).
-    #[arg(long)]
+    /// Last production day of the range, YYYY-MM-DD, included (trend, share; default: --from).
+    #[arg(long, value_name = "DAY", value_parser = when::day, requires = "from")]
     pub to: Option<NaiveDate>,
-    /// Period kind of the runs drawn (trend, share).
-    #[arg(long = "period-kind", default_value = "day", value_parser = ["shift", "day", "week", "month"])]
-    pub period_kind: String,
+    /// Period kind of the runs drawn (trend, share; `--period-kind` is accepted too).
+    #[arg(long, value_enum, default_value_t = Kind::Day, alias = "period-kind")]
+    pub kind: Kind,
     /// Production day of the detail chart, YYYY-MM-DD.
-    #[arg(long)]
+    #[arg(long, value_name = "DAY", value_parser = when::day)]
     pub day: Option<NaiveDate>,
     /// Any period label for the detail chart ("2026-11-30/night", "2026-W48", "2026-11").
     #[arg(long)]
@@ -89,6 +91,16 @@ fn need<'a>(value: &'a Option<String>, flag: &str, kind: ChartKind) -> Result<&'
     })
 }
 
+/// `--characteristic` and `--by`, both required here, checked against the configuration (an
+/// unknown name is answered with the closest ones).
+fn subject<'a>(args: &'a ChartArgs, config: &Config) -> Result<(&'a str, &'a str)> {
+    let c = need(&args.characteristic, "--characteristic", args.chart)?;
+    let f = need(&args.factor, "--by", args.chart)?;
+    vocab::characteristic(config, c)?;
+    vocab::factor(config, f)?;
+    Ok((c, f))
+}
+
 fn range(args: &ChartArgs, calendar: &PlantCalendar) -> Result<Period> {
     match (&args.month, args.from, args.to) {
         (Some(m), None, None) => super::report::parse_month(calendar, m),
@@ -97,15 +109,6 @@ fn range(args: &ChartArgs, calendar: &PlantCalendar) -> Result<Period> {
         _ => Err(Error::Usage(
             "give the range as --month YYYY-MM or --from YYYY-MM-DD [--to YYYY-MM-DD]".into(),
         )),
-    }
-}
-
-fn period_kind(text: &str) -> PeriodKind {
-    match text {
-        "shift" => PeriodKind::Shift,
-        "week" => PeriodKind::Week,
-        "month" => PeriodKind::Month,
-        _ => PeriodKind::Day,
     }
 }
 
@@ -122,17 +125,16 @@ pub fn render(args: &ChartArgs, config: &Config, store: &crate::storage::Store) 
         args.height.unwrap_or(Size::DEFAULT.height),
     );
     let calendar = PlantCalendar::new(config);
-    let kind = args.kind;
+    let kind = args.chart;
     match kind {
         ChartKind::Trend | ChartKind::Share => {
-            let c = need(&args.characteristic, "--characteristic", kind)?;
-            let f = need(&args.factor, "--by", kind)?;
+            let (c, f) = subject(args, config)?;
             let p = range(args, &calendar)?;
-            let pk = period_kind(&args.period_kind);
+            let pk = PeriodKind::from(args.kind);
             if kind == ChartKind::Trend {
                 let input = report::trend_input(store, config, c, f, pk, p.start, p.end)?;
                 if input.periods.is_empty() {
-                    return Err(no_runs(&args.period_kind, &p));
+                    return Err(no_runs(pk.as_str(), &p));
                 }
                 // Small multiples (many groups) need more height than the default.
                 let size = match args.height {
@@ -143,14 +145,13 @@ pub fn render(args: &ChartArgs, config: &Config, store: &crate::storage::Store) 
             } else {
                 let input = report::share_input(store, config, c, f, pk, p.start, p.end)?;
                 if input.periods.is_empty() {
-                    return Err(no_runs(&args.period_kind, &p));
+                    return Err(no_runs(pk.as_str(), &p));
                 }
                 crate::report::render_share(&input, format, size)
             }
         }
         ChartKind::Detail => {
-            let c = need(&args.characteristic, "--characteristic", kind)?;
-            let f = need(&args.factor, "--by", kind)?;
+            let (c, f) = subject(args, config)?;
             let period = match (&args.day, &args.period) {
                 (Some(d), None) => calendar.day(*d),
                 (None, Some(label)) => calendar.parse_period(label)?,
@@ -175,8 +176,7 @@ pub fn render(args: &ChartArgs, config: &Config, store: &crate::storage::Store) 
             crate::report::render_grid(&input, format, size)
         }
         ChartKind::BeforeAfter => {
-            let c = need(&args.characteristic, "--characteristic", kind)?;
-            let f = need(&args.factor, "--by", kind)?;
+            let (c, f) = subject(args, config)?;
             let id = args
                 .event
                 .ok_or_else(|| Error::Usage("chart before-after: --event ID is required".into()))?;

@@ -11,6 +11,8 @@ use std::process::ExitCode;
 use chrono::{NaiveDate, Utc};
 use clap::Args;
 
+use super::vocab::Fdr;
+use super::when;
 use crate::analysis::run::check_and_record;
 use crate::analysis::CheckOptions;
 use crate::calendar::PlantCalendar;
@@ -26,9 +28,9 @@ use crate::{Error, Result};
 /// Flags of `samewise check`.
 #[derive(Debug, Args)]
 pub struct CheckArgs {
-    /// A production day, e.g. 2026-11-30.
-    #[arg(long, group = "period")]
-    pub day: Option<String>,
+    /// A production day, YYYY-MM-DD, e.g. 2026-11-30.
+    #[arg(long, group = "period", value_name = "DAY", value_parser = when::day)]
+    pub day: Option<NaiveDate>,
     /// A shift, e.g. 2026-11-30/night.
     #[arg(long, group = "period")]
     pub shift: Option<String>,
@@ -38,12 +40,12 @@ pub struct CheckArgs {
     /// A month of production days, e.g. 2026-11.
     #[arg(long, group = "period")]
     pub month: Option<String>,
-    /// First production day of a range (with --to).
-    #[arg(long, group = "period", requires = "to")]
-    pub from: Option<String>,
-    /// Last production day of a range (included).
-    #[arg(long, requires = "from")]
-    pub to: Option<String>,
+    /// First production day of a range, YYYY-MM-DD (with --to).
+    #[arg(long, group = "period", requires = "to", value_name = "DAY", value_parser = when::day)]
+    pub from: Option<NaiveDate>,
+    /// Last production day of a range, YYYY-MM-DD, included.
+    #[arg(long, requires = "from", value_name = "DAY", value_parser = when::day)]
+    pub to: Option<NaiveDate>,
     /// Print one JSON object instead of the summary.
     #[arg(long)]
     pub json: bool,
@@ -51,9 +53,9 @@ pub struct CheckArgs {
     /// written whole or not at all).
     #[arg(long, value_name = "FILE")]
     pub csv: Option<PathBuf>,
-    /// False-discovery procedure: bh (Benjamini-Hochberg) or by (Benjamini-Yekutieli).
-    #[arg(long, value_parser = ["bh", "by"])]
-    pub fdr: Option<String>,
+    /// False-discovery procedure (default from the configuration).
+    #[arg(long, value_enum)]
+    pub fdr: Option<Fdr>,
     /// False-discovery level q (default from the configuration, 0.05).
     #[arg(long, conflicts_with = "stored")]
     pub level: Option<f64>,
@@ -66,9 +68,7 @@ pub struct CheckArgs {
 /// The period named by the flags.
 pub fn period_from_flags(args: &CheckArgs, calendar: &PlantCalendar) -> Result<Period> {
     let label = if let Some(d) = &args.day {
-        NaiveDate::parse_from_str(d, "%Y-%m-%d")
-            .map_err(|_| Error::Usage(format!("--day {d}: not a date (write 2026-11-30)")))?;
-        d.clone()
+        d.format("%Y-%m-%d").to_string()
     } else if let Some(s) = args
         .shift
         .as_ref()
@@ -96,12 +96,8 @@ pub fn run(args: &CheckArgs) -> Result<ExitCode> {
     let calendar = PlantCalendar::new(&config);
     let period = period_from_flags(args, &calendar)?;
     let mut options = CheckOptions::from_config(&config);
-    if let Some(f) = &args.fdr {
-        options.fdr_method = if f == "by" {
-            FdrMethod::BenjaminiYekutieli
-        } else {
-            FdrMethod::BenjaminiHochberg
-        };
+    if let Some(f) = args.fdr {
+        options.fdr_method = FdrMethod::from(f);
     }
     if let Some(level) = args.level {
         if !(level > 0.0 && level < 1.0) {

@@ -33,8 +33,9 @@ pub struct CompareArgs {
     /// Column whose values name the groups (machine, line, supplier, ...).
     #[arg(long, value_name = "COLUMN")]
     pub by: String,
-    /// Column holding the measured values.
-    #[arg(long, value_name = "COLUMN")]
+    /// Column holding the measured values (`--characteristic COLUMN` is accepted too, the
+    /// name the plant commands use).
+    #[arg(long, value_name = "COLUMN", visible_alias = "characteristic")]
     pub measure: String,
     /// Lower specification limit, in measurement units.
     #[arg(long, value_name = "X", allow_hyphen_values = true)]
@@ -222,7 +223,8 @@ pub fn parse_grouped_with(
                 Some(header_line),
                 None,
                 format!(
-                    "column \"{name}\" not found; the header has: {}",
+                    "column \"{name}\" not found{}; the header has: {}",
+                    crate::names::did_you_mean(name.trim(), header.iter().map(|h| h.as_str())),
                     header
                         .iter()
                         .map(|h| format!("\"{h}\""))

@@ -443,8 +443,8 @@ pub fn run(args: &DemoArgs) -> Result<ExitCode> {
     println!(
         "\nTry next (in {}):\n  samewise check --day 2026-11-29 --config plant.toml\n  \
          samewise findings --all --config plant.toml\n  \
-         samewise history bore_diameter --by machine --last 30 --config plant.toml\n  \
-         samewise investigate bore_diameter --by machine --event 3 --config plant.toml\n  \
+         samewise history --characteristic bore_diameter --by machine --last 30 --config plant.toml\n  \
+         samewise investigate --characteristic bore_diameter --by machine --event 3 --config plant.toml\n  \
          samewise report --month 2026-11 --out review.html --config plant.toml",
         args.dir.display()
     );

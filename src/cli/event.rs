@@ -7,7 +7,7 @@ use std::process::ExitCode;
 
 use clap::{Args, Subcommand};
 
-use crate::ingest::timestamp::TimestampParser;
+use super::when::{self, When};
 use crate::storage::{Event, EventEdit, NewEvent};
 use crate::{Error, Result};
 
@@ -26,9 +26,10 @@ pub struct EventArgs {
 pub enum EventAction {
     /// Record a process change.
     Add {
-        /// When it happened: ISO 8601, with a zone or in the plant's zone ("2026-11-30 14:05").
-        #[arg(long, value_name = "TIME")]
-        at: String,
+        /// When it happened: plant-local 2026-11-30 14:05 or 2026-11-30T14:05[:SS], or RFC 3339
+        /// with an offset or Z (2026-11-30T13:05:00Z).
+        #[arg(long, value_name = "TIME", value_parser = when::instant)]
+        at: When,
         /// What changed.
         #[arg(long, value_name = "TEXT")]
         note: String,
@@ -52,9 +53,9 @@ pub enum EventAction {
     Edit {
         /// The event number (`samewise event list`).
         id: i64,
-        /// A new time: ISO 8601, with a zone or in the plant's zone.
-        #[arg(long, value_name = "TIME")]
-        at: Option<String>,
+        /// A new time, written as for `event add --at`.
+        #[arg(long, value_name = "TIME", value_parser = when::instant)]
+        at: Option<When>,
         /// A new note.
         #[arg(long, value_name = "TEXT")]
         note: Option<String>,
@@ -155,10 +156,7 @@ pub fn run(args: &EventArgs) -> Result<ExitCode> {
             characteristic,
             scope,
         } => {
-            let parser = TimestampParser::new(None, tz).map_err(Error::Usage)?;
-            let at = parser
-                .parse(at)
-                .map_err(|r| Error::Usage(format!("--at {at}: {r}")))?;
+            let at = at.resolve("--at", tz)?;
             let scope = parse_scope(scope)?;
             let event = NewEvent {
                 at,
@@ -222,17 +220,7 @@ pub fn run(args: &EventArgs) -> Result<ExitCode> {
             no_where,
             reason,
         } => {
-            let at = match at {
-                None => None,
-                Some(text) => {
-                    let parser = TimestampParser::new(None, tz).map_err(Error::Usage)?;
-                    Some(
-                        parser
-                            .parse(text)
-                            .map_err(|r| Error::Usage(format!("--at {text}: {r}")))?,
-                    )
-                }
-            };
+            let at = at.as_ref().map(|w| w.resolve("--at", tz)).transpose()?;
             let edit = EventEdit {
                 at,
                 note: note.clone(),

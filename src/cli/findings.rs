@@ -1,4 +1,5 @@
-//! `samewise findings [--all] [--since DATE] [--kind KIND] [--json | --csv FILE]` and
+//! `samewise findings [--all] [--since DAY] [--kind KIND] [--characteristic C] [--by FACTOR]
+//! [--json | --csv FILE]` and
 //! `samewise findings note N TEXT`: the flags of the run history joined into findings (see
 //! `analysis::findings`), with an engineer's notes.
 
@@ -19,6 +20,8 @@ use crate::storage::Store;
 use crate::{Error, Result};
 
 use super::common::{load_config, open_store};
+use super::vocab::{self, Kind};
+use super::when;
 
 /// Arguments of `samewise findings`.
 #[derive(Debug, Args)]
@@ -30,12 +33,18 @@ pub struct FindingsArgs {
     /// Every finding: on watch (flagged once) and closed ones too (default: open ones).
     #[arg(long)]
     pub all: bool,
-    /// Findings flagged on or after this production day (YYYY-MM-DD), open or closed.
-    #[arg(long, value_name = "DATE")]
+    /// Findings flagged on or after this production day (YYYY-MM-DD, included), open or closed.
+    #[arg(long, value_name = "DAY", value_parser = when::day)]
     pub since: Option<NaiveDate>,
-    /// Only findings of this period kind.
-    #[arg(long, value_name = "KIND", value_parser = ["shift", "day", "week", "month"])]
-    pub kind: Option<String>,
+    /// Only findings of this period kind (`--period-kind` is accepted too).
+    #[arg(long, value_enum, alias = "period-kind")]
+    pub kind: Option<Kind>,
+    /// Only findings of this characteristic.
+    #[arg(long, value_name = "NAME")]
+    pub characteristic: Option<String>,
+    /// Only findings of this grouping factor.
+    #[arg(long = "by", value_name = "FACTOR")]
+    pub factor: Option<String>,
     /// Print JSON (an array of findings; times RFC 3339 in the plant's zone).
     #[arg(long, conflicts_with = "csv")]
     pub json: bool,
@@ -77,16 +86,23 @@ pub fn run(args: &FindingsArgs, now: DateTime<Utc>) -> Result<ExitCode> {
         refuse_protected(path, "--csv", &protected)?;
     }
     let store = open_store(&config)?;
-    let kind = args.kind.as_deref().and_then(PeriodKind::parse);
+    let kind = args.kind.map(PeriodKind::from);
     let calendar = PlantCalendar::new(&config);
     let since = args.since.map(|d| calendar.day_start_utc(d));
-    let findings: Vec<Finding> = store
-        .findings(kind)?
+    let stored = store.findings(kind)?;
+    check_names(&config, &stored, args)?;
+    let findings: Vec<Finding> = stored
         .into_iter()
         .filter(|f| match since {
             Some(t) => f.last_end > t,
             None => args.all || f.status == FindingStatus::Open,
         })
+        .filter(|f| {
+            args.characteristic
+                .as_ref()
+                .is_none_or(|c| *c == f.characteristic)
+        })
+        .filter(|f| args.factor.as_ref().is_none_or(|b| *b == f.factor))
         .collect();
     let tz = config.plant.time_zone;
     if args.json {
@@ -109,6 +125,43 @@ pub fn run(args: &FindingsArgs, now: DateTime<Utc>) -> Result<ExitCode> {
     }
     print_text(&store, &config, &findings, args)?;
     Ok(ExitCode::from(super::EXIT_OK))
+}
+
+/// `--characteristic` and `--by` must name a configured characteristic and factor, or one a
+/// stored finding names (one since removed from the configuration); a typo is answered with the
+/// closest names.
+fn check_names(config: &Config, stored: &[Finding], args: &FindingsArgs) -> Result<()> {
+    let source = config.path.display().to_string();
+    let check = |what: &str, name: &str, configured: Vec<&str>, of: fn(&Finding) -> &str| {
+        if configured.contains(&name) || stored.iter().any(|f| of(f) == name) {
+            return Ok(());
+        }
+        let mut known = configured;
+        for f in stored {
+            if !known.contains(&of(f)) {
+                known.push(of(f));
+            }
+        }
+        Err(vocab::unknown_name(
+            what,
+            name,
+            known.iter().copied(),
+            &source,
+        ))
+    };
+    if let Some(name) = &args.characteristic {
+        let configured = config
+            .characteristics
+            .iter()
+            .map(|c| c.name.as_str())
+            .collect();
+        check("characteristic", name, configured, |f| &f.characteristic)?;
+    }
+    if let Some(name) = &args.factor {
+        let configured = config.factors.iter().map(|f| f.name.as_str()).collect();
+        check("factor", name, configured, |f| &f.factor)?;
+    }
+    Ok(())
 }
 
 fn local(t: DateTime<Utc>, tz: Tz) -> String {
@@ -379,11 +432,17 @@ fn print_text(
     args: &FindingsArgs,
 ) -> Result<()> {
     let tz = config.plant.time_zone;
-    let what = match (args.since, args.all) {
+    let mut what = match (args.since, args.all) {
         (Some(d), _) => format!("findings flagged since {d}"),
         (None, true) => "all findings (open, on watch, closed)".to_string(),
         (None, false) => "open findings".to_string(),
     };
+    if let Some(c) = &args.characteristic {
+        what.push_str(&format!(" of {c}"));
+    }
+    if let Some(b) = &args.factor {
+        what.push_str(&format!(" by {b}"));
+    }
     if findings.is_empty() {
         println!("{what}: none");
     } else {

@@ -1,5 +1,6 @@
-//! `samewise history CHARACTERISTIC --by FACTOR [--last 30] [--kind day]`: the comparison's own
-//! trend, one line per period from the latest complete run of each period.
+//! `samewise history --characteristic C --by FACTOR [--last 30] [--kind day]`: the comparison's
+//! own trend, one line per period from the latest complete run of each period. The characteristic
+//! may still stand first (`samewise history C --by FACTOR`), as in earlier versions.
 
 use std::io::Write;
 use std::path::PathBuf;
@@ -8,6 +9,7 @@ use std::process::ExitCode;
 use clap::Args;
 
 use super::check::{cell, leading, share, standout};
+use super::vocab::{self, RunKind};
 use crate::results::TestState;
 use crate::storage::runs;
 use crate::storage::RunStore;
@@ -15,18 +17,23 @@ use crate::{Error, Result};
 
 /// Flags of `samewise history`.
 #[derive(Debug, Args)]
+#[command(group(clap::ArgGroup::new("which").required(true).args(["characteristic", "characteristic_first"])))]
 pub struct HistoryArgs {
-    /// The characteristic.
-    pub characteristic: String,
+    /// The characteristic (it may also stand first, without the flag, as in earlier versions).
+    #[arg(long, value_name = "NAME")]
+    pub characteristic: Option<String>,
+    /// The characteristic given first, without `--characteristic` (kept for existing scripts).
+    #[arg(value_name = "CHARACTERISTIC", hide = true)]
+    pub characteristic_first: Option<String>,
     /// The factor whose groups are compared.
-    #[arg(long = "by")]
+    #[arg(long = "by", value_name = "FACTOR")]
     pub factor: String,
     /// How many periods, newest last.
     #[arg(long, default_value_t = 30)]
     pub last: usize,
-    /// Period kind: shift, day, week, month or range.
-    #[arg(long, default_value = "day", value_parser = ["shift", "day", "week", "month", "range"])]
-    pub kind: String,
+    /// Period kind of the runs shown (`--period-kind` is accepted too).
+    #[arg(long, value_enum, default_value_t = RunKind::Day, alias = "period-kind")]
+    pub kind: RunKind,
     /// Print one JSON object (the periods oldest first; times RFC 3339 in the plant's zone).
     #[arg(long, conflicts_with = "csv")]
     pub json: bool,
@@ -38,45 +45,36 @@ pub struct HistoryArgs {
 /// Runs `samewise history`.
 pub fn run(args: &HistoryArgs) -> Result<ExitCode> {
     let config = super::common::load_config(super::common::config_flag())?;
-    if config.characteristic(&args.characteristic).is_none() {
-        return Err(Error::Usage(format!(
-            "characteristic \"{}\" is not in {}",
-            args.characteristic,
-            config.path.display()
-        )));
-    }
-    if config.factor_index(&args.factor).is_none() {
-        return Err(Error::Usage(format!(
-            "--by {}: no such factor in {}",
-            args.factor,
-            config.path.display()
-        )));
-    }
+    let characteristic =
+        vocab::characteristic_arg(&args.characteristic, &args.characteristic_first)?;
+    vocab::characteristic(&config, characteristic)?;
+    vocab::factor(&config, &args.factor)?;
+    let kind = crate::model::PeriodKind::from(args.kind).as_str();
     if let Some(path) = &args.csv {
         let protected = crate::output::Protected::plant(&config.plant.database, &config.path);
         crate::output::refuse_protected(path, "--csv", &protected)?;
     }
     let unit = config
-        .characteristic(&args.characteristic)
+        .characteristic(characteristic)
         .map(|c| c.unit.clone())
         .unwrap_or_default();
     let store = super::common::open_store(&config)?;
-    let points = store.history(&args.characteristic, &args.factor, &args.kind, args.last)?;
+    let points = store.history(characteristic, &args.factor, kind, args.last)?;
     if args.json || args.csv.is_some() {
         let rows: Vec<serde_json::Value> = points.iter().map(|p| point_json(&config, p)).collect();
-        let c = config.characteristic(&args.characteristic);
+        let c = config.characteristic(characteristic);
         if let Some(path) = &args.csv {
             write_csv(path, &rows)?;
             println!("{} periods written to {}", rows.len(), path.display());
         } else {
             let doc = serde_json::json!({
-                "characteristic": args.characteristic,
+                "characteristic": characteristic,
                 "factor": args.factor,
                 "unit": c.map(|c| c.unit.clone()),
                 "lsl": c.and_then(|c| c.lsl),
                 "usl": c.and_then(|c| c.usl),
                 "target": c.and_then(|c| c.target),
-                "period_kind": args.kind,
+                "period_kind": kind,
                 "periods": rows,
                 "caution": crate::CAUTION,
             });
@@ -89,10 +87,10 @@ pub fn run(args: &HistoryArgs) -> Result<ExitCode> {
         writeln!(
             out,
             "{} by {}: last {} {} period(s) with a complete run{}",
-            args.characteristic,
+            characteristic,
             args.factor,
             points.len(),
-            args.kind,
+            kind,
             if unit.is_empty() {
                 String::new()
             } else {

@@ -1,8 +1,9 @@
-//! `samewise investigate CHARACTERISTIC --by FACTOR (--event ID | --at TIME) [--before 14d]
+//! `samewise investigate --characteristic C --by FACTOR (--event ID | --at TIME) [--before 14d]
 //! [--after 14d] [--json]`: before vs after a process change, per group and pooled, with the
 //! two-way ANOVA group x before/after; without `--event`/`--at`, a change-point scan per group
-//! over the window `[--to - --before, --to)` (default: the last 28 days) and the nearest logged
-//! events.
+//! over the window `[--to - --before, --to)` (default: the 14 days up to now) and the nearest
+//! logged events. The characteristic may still stand first, as in earlier versions; times follow
+//! the command line's one grammar ([`super::when`]).
 //!
 //! The statistics come from [`crate::analysis::investigate`]; this file turns flags into a
 //! request, and prints the terminal view or one JSON object.
@@ -19,38 +20,47 @@ use crate::analysis::investigate::{
     Target,
 };
 use crate::config::parse_duration;
-use crate::ingest::timestamp::TimestampParser;
 use crate::stats::changepoint::ScanOptions;
 use crate::{Error, Result};
 
 use super::common::{load_config, open_store};
+use super::vocab;
+use super::when::{self, When};
 use crate::stats::twoway::{Table, TermRow, TwoWay};
 use crate::stats::variance_components::VarianceComponents;
 use crate::stats::{Stat, TestResult};
 
 /// Flags of `samewise investigate`.
 #[derive(Debug, clap::Args)]
+#[command(group(clap::ArgGroup::new("which").required(true).args(["characteristic", "characteristic_first"])))]
 pub struct InvestigateArgs {
-    /// The characteristic to investigate.
-    pub characteristic: String,
+    /// The characteristic to investigate (it may also stand first, without the flag, as in
+    /// earlier versions).
+    #[arg(long, value_name = "NAME")]
+    pub characteristic: Option<String>,
+    /// The characteristic given first, without `--characteristic` (kept for existing scripts).
+    #[arg(value_name = "CHARACTERISTIC", hide = true)]
+    pub characteristic_first: Option<String>,
     /// The grouping factor (machine, line, supplier, ...).
     #[arg(long, value_name = "FACTOR")]
     pub by: String,
     /// A logged event (see `samewise event list`): its time is the change.
     #[arg(long, value_name = "ID", conflicts_with = "at")]
     pub event: Option<i64>,
-    /// The change time: ISO 8601, with a zone or in the plant's zone ("2026-11-30 14:05").
-    #[arg(long, value_name = "TIME")]
-    pub at: Option<String>,
+    /// The change time: plant-local 2026-11-30 14:05 or 2026-11-30T14:05[:SS], or RFC 3339
+    /// with an offset or Z (2026-11-30T13:05:00Z).
+    #[arg(long, value_name = "TIME", value_parser = when::instant)]
+    pub at: Option<When>,
     /// Window before the change (with no change: the scan window's length back from --to).
     #[arg(long, value_name = "DURATION", default_value = "14d")]
     pub before: String,
     /// Window after the change.
     #[arg(long, value_name = "DURATION", default_value = "14d")]
     pub after: String,
-    /// Scan mode only: end of the scan window (default: now).
-    #[arg(long, value_name = "TIME", conflicts_with_all = ["event", "at"])]
-    pub to: Option<String>,
+    /// Scan mode only: end of the scan window, an instant (excluded; default: now), written as
+    /// --at is.
+    #[arg(long, value_name = "TIME", value_parser = when::instant, conflicts_with_all = ["event", "at"])]
+    pub to: Option<When>,
     /// Print one JSON object instead of the readable report.
     #[arg(long)]
     pub json: bool,
@@ -69,22 +79,21 @@ fn duration_flag(flag: &str, text: &str) -> Result<chrono::Duration> {
 /// Runs `samewise investigate`; `now` is the wall clock (scan window end by default).
 pub fn run(args: &InvestigateArgs, now: DateTime<Utc>) -> Result<ExitCode> {
     let config = load_config(super::common::config_flag())?;
+    let characteristic =
+        vocab::characteristic_arg(&args.characteristic, &args.characteristic_first)?;
+    // The factor is checked here; the characteristic by the store, which also knows one that
+    // has left the configuration (both answer a typo with the closest names).
+    vocab::factor(&config, &args.by)?;
+    let tz = config.plant.time_zone;
     let store = open_store(&config)?;
-    let parser = TimestampParser::new(None, config.plant.time_zone).map_err(Error::Usage)?;
     let before = duration_flag("--before", &args.before)?;
     let after = duration_flag("--after", &args.after)?;
     let target = match (&args.event, &args.at) {
         (Some(id), _) => Target::Event(*id),
-        (None, Some(at)) => Target::At(
-            parser
-                .parse(at)
-                .map_err(|r| Error::Usage(format!("--at {at}: {r}")))?,
-        ),
+        (None, Some(at)) => Target::At(at.resolve("--at", tz)?),
         (None, None) => {
             let end = match &args.to {
-                Some(to) => parser
-                    .parse(to)
-                    .map_err(|r| Error::Usage(format!("--to {to}: {r}")))?,
+                Some(to) => to.resolve("--to", tz)?,
                 None => now,
             };
             Target::Scan {
@@ -94,7 +103,7 @@ pub fn run(args: &InvestigateArgs, now: DateTime<Utc>) -> Result<ExitCode> {
         }
     };
     let request = Request {
-        characteristic: args.characteristic.clone(),
+        characteristic: characteristic.to_string(),
         factor: args.by.clone(),
         target,
         before,
@@ -102,7 +111,7 @@ pub fn run(args: &InvestigateArgs, now: DateTime<Utc>) -> Result<ExitCode> {
         compare: CompareOptions {
             alpha: config.check.alpha,
             // Shifts in % of the tolerance, or of the distance from the target to a single limit.
-            tolerance: config.characteristic(&args.characteristic).and_then(|c| {
+            tolerance: config.characteristic(characteristic).and_then(|c| {
                 match (c.lsl, c.usl, c.target) {
                     (Some(l), Some(u), _) => Some(u - l),
                     (Some(l), None, Some(t)) => Some(t - l),

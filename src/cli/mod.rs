@@ -58,6 +58,8 @@ pub mod progress;
 pub mod report;
 pub mod schedule;
 pub mod status;
+pub mod vocab;
+pub mod when;
 
 /// Exit code: finished, nothing flagged.
 pub const EXIT_OK: u8 = 0;

@@ -11,6 +11,7 @@ use std::sync::Arc;
 use chrono::{DateTime, Utc};
 use clap::{Args, Subcommand};
 
+use super::when::{self, When};
 use crate::analysis::findings::{update_findings, FindingsUpdate};
 use crate::analysis::run::EngineRunner;
 use crate::config::Config;
@@ -36,18 +37,21 @@ pub struct ScheduleArgs {
 pub enum ScheduleAction {
     /// Run every due and missed period once, oldest first, then exit (for cron or a timer).
     Due {
-        /// Treat this instant as now (RFC 3339, e.g. 2026-12-01T08:00:00Z).
-        #[arg(long)]
-        now: Option<String>,
-        /// Count periods from this instant instead of the first measurement (RFC 3339).
-        #[arg(long)]
-        since: Option<String>,
+        /// Treat this instant as now: plant-local 2026-12-01 08:00 or 2026-12-01T08:00[:SS], or
+        /// RFC 3339 with an offset or Z (2026-12-01T08:00:00Z).
+        #[arg(long, value_name = "TIME", value_parser = when::instant)]
+        now: Option<When>,
+        /// Count periods from this instant instead of the first measurement (written as --now
+        /// is).
+        #[arg(long, value_name = "TIME", value_parser = when::instant)]
+        since: Option<When>,
     },
     /// Stay in the foreground: run what is due, sleep until the next due time, repeat.
     Run {
-        /// Count periods from this instant instead of the first measurement (RFC 3339).
-        #[arg(long)]
-        since: Option<String>,
+        /// Count periods from this instant instead of the first measurement: plant-local
+        /// 2026-12-01 08:00 or 2026-12-01T08:00[:SS], or RFC 3339 with an offset or Z.
+        #[arg(long, value_name = "TIME", value_parser = when::instant)]
+        since: Option<When>,
     },
 }
 
@@ -70,16 +74,6 @@ impl Clock for WallClock {
             std::thread::sleep(step.to_std().unwrap_or_default());
         }
     }
-}
-
-fn parse_instant(flag: &str, text: &str) -> Result<DateTime<Utc>> {
-    DateTime::parse_from_rfc3339(text)
-        .map(|t| t.with_timezone(&Utc))
-        .map_err(|e| {
-            Error::Usage(format!(
-                "{flag} {text}: {e} (write an RFC 3339 instant, e.g. 2026-12-01T08:00:00Z)"
-            ))
-        })
 }
 
 /// `host:pid:start-nanos`, naming this process in leases.
@@ -132,14 +126,14 @@ pub fn run(args: &ScheduleArgs) -> Result<ExitCode> {
     let entries = match &args.action {
         ScheduleAction::Due { now, since } => {
             options.start = since
-                .as_deref()
-                .map(|s| parse_instant("--since", s))
+                .as_ref()
+                .map(|s| s.resolve("--since", tz))
                 .transpose()?;
             let wall = WallClock { stop: stop.clone() };
             let fixed;
             let clock: &dyn Clock = match now {
                 Some(n) => {
-                    fixed = SimulatedClock::new(parse_instant("--now", n)?);
+                    fixed = SimulatedClock::new(n.resolve("--now", tz)?);
                     &fixed
                 }
                 None => &wall,
@@ -159,8 +153,8 @@ pub fn run(args: &ScheduleArgs) -> Result<ExitCode> {
         }
         ScheduleAction::Run { since } => {
             options.start = since
-                .as_deref()
-                .map(|s| parse_instant("--since", s))
+                .as_ref()
+                .map(|s| s.resolve("--since", tz))
                 .transpose()?;
             let clock = WallClock { stop: stop.clone() };
             let mut after =

@@ -124,8 +124,9 @@ pub(crate) fn shorten(text: &str) -> String {
     }
 }
 
-/// Hand-written ISO 8601 reader: local date-time and, when present, the offset in seconds.
-fn parse_iso(text: &str) -> Option<(NaiveDateTime, Option<i32>)> {
+/// Hand-written ISO 8601 reader: local date-time and, when present, the offset in seconds (also
+/// the grammar of the command line's time flags, `cli::when`).
+pub(crate) fn parse_iso(text: &str) -> Option<(NaiveDateTime, Option<i32>)> {
     let b = text.as_bytes();
     let digits = |from: usize, len: usize| -> Option<u32> {
         let part = b.get(from..from + len)?;

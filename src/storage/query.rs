@@ -134,12 +134,9 @@ pub(crate) fn closest<'a>(
     crate::names::closest_names(name, candidates, 1).pop()
 }
 
-/// An "unknown characteristic" error with the closest known name.
+/// An "unknown characteristic" error with the closest known names.
 pub(crate) fn unknown_characteristic(name: &str, known: &[StoredCharacteristic]) -> Error {
-    let hint = match closest(name, known.iter().map(|c| c.config.name.as_str())) {
-        Some(c) => format!(" (did you mean \"{c}\"?)"),
-        None => String::new(),
-    };
+    let hint = crate::names::did_you_mean(name, known.iter().map(|c| c.config.name.as_str()));
     Error::Usage(format!("unknown characteristic \"{name}\"{hint}"))
 }
 

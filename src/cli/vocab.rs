@@ -1,0 +1,175 @@
+//! The words every command shares: the period kind (`--kind`), the false-discovery method
+//! (`--fdr`), and the characteristic (`--characteristic NAME`) and factor (`--by FACTOR`) checked
+//! against the plant configuration, an unknown name answered with the closest known ones
+//! ([`crate::names::did_you_mean`]).
+
+use clap::ValueEnum;
+
+use crate::config::{CharacteristicConfig, Config, FactorConfig};
+use crate::model::PeriodKind;
+use crate::names::did_you_mean;
+use crate::stats::fdr::FdrMethod;
+use crate::{Error, Result};
+
+/// The period kind of the regular checks (`--kind` of `chart` and `findings`).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum Kind {
+    /// One shift of one production day.
+    Shift,
+    /// One production day.
+    Day,
+    /// One ISO week of production days.
+    Week,
+    /// One month of production days.
+    Month,
+}
+
+impl From<Kind> for PeriodKind {
+    fn from(k: Kind) -> PeriodKind {
+        match k {
+            Kind::Shift => PeriodKind::Shift,
+            Kind::Day => PeriodKind::Day,
+            Kind::Week => PeriodKind::Week,
+            Kind::Month => PeriodKind::Month,
+        }
+    }
+}
+
+/// The period kind of any stored run, ranges included (`history --kind`).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum RunKind {
+    /// One shift of one production day.
+    Shift,
+    /// One production day.
+    Day,
+    /// One ISO week of production days.
+    Week,
+    /// One month of production days.
+    Month,
+    /// A range of production days (`check --from A --to B`).
+    Range,
+}
+
+impl From<RunKind> for PeriodKind {
+    fn from(k: RunKind) -> PeriodKind {
+        match k {
+            RunKind::Shift => PeriodKind::Shift,
+            RunKind::Day => PeriodKind::Day,
+            RunKind::Week => PeriodKind::Week,
+            RunKind::Month => PeriodKind::Month,
+            RunKind::Range => PeriodKind::Range,
+        }
+    }
+}
+
+/// The false-discovery procedure (`check --fdr`).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum Fdr {
+    /// Benjamini-Hochberg (independent or positively dependent tests).
+    Bh,
+    /// Benjamini-Yekutieli (any dependence; more conservative).
+    By,
+}
+
+impl From<Fdr> for FdrMethod {
+    fn from(f: Fdr) -> FdrMethod {
+        match f {
+            Fdr::Bh => FdrMethod::BenjaminiHochberg,
+            Fdr::By => FdrMethod::BenjaminiYekutieli,
+        }
+    }
+}
+
+/// The characteristic of a command that takes it as `--characteristic NAME` and, from earlier
+/// versions, as its first argument: whichever was given (clap refuses both).
+pub fn characteristic_arg<'a>(
+    flag: &'a Option<String>,
+    positional: &'a Option<String>,
+) -> Result<&'a str> {
+    flag.as_deref()
+        .or(positional.as_deref())
+        .ok_or_else(|| Error::Usage("say which characteristic: --characteristic NAME".to_string()))
+}
+
+/// An "unknown ..." error: the name, the closest known names, and the known ones (up to 12).
+pub fn unknown_name<'a>(
+    what: &str,
+    name: &str,
+    known: impl IntoIterator<Item = &'a str> + Clone,
+    source: &str,
+) -> Error {
+    let hint = did_you_mean(name, known.clone());
+    let all: Vec<&str> = known.into_iter().collect();
+    let listed = match all.len() {
+        0 => format!("none is known in {source}"),
+        n if n <= 12 => format!("known in {source}: {}", all.join(", ")),
+        n => format!(
+            "{n} known in {source}, among them {}, ...",
+            all[..12].join(", ")
+        ),
+    };
+    Error::Usage(format!("unknown {what} \"{name}\"{hint}; {listed}"))
+}
+
+/// The configured characteristic `name`, or an error with the closest configured names.
+pub fn characteristic<'a>(config: &'a Config, name: &str) -> Result<&'a CharacteristicConfig> {
+    config.characteristic(name).ok_or_else(|| {
+        unknown_name(
+            "characteristic",
+            name,
+            config.characteristics.iter().map(|c| c.name.as_str()),
+            &config.path.display().to_string(),
+        )
+    })
+}
+
+/// The configured factor `name`, or an error with the closest configured names.
+pub fn factor<'a>(config: &'a Config, name: &str) -> Result<&'a FactorConfig> {
+    config
+        .factor_index(name)
+        .map(|i| &config.factors[i])
+        .ok_or_else(|| {
+            unknown_name(
+                "factor",
+                name,
+                config.factors.iter().map(|f| f.name.as_str()),
+                &config.path.display().to_string(),
+            )
+        })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn unknown_names_list_the_closest_and_the_known() {
+        let known = ["bore_diameter", "width", "flange_flatness"];
+        let e = unknown_name("characteristic", "bore_diamter", known, "plant.toml").to_string();
+        assert_eq!(
+            e,
+            "unknown characteristic \"bore_diamter\" (did you mean \"bore_diameter\"?); \
+             known in plant.toml: bore_diameter, width, flange_flatness"
+        );
+        let many: Vec<String> = (1..=20).map(|i| format!("M{i}")).collect();
+        let e =
+            unknown_name("level", "X9", many.iter().map(String::as_str), "the store").to_string();
+        assert!(e.contains("20 known in the store, among them M1,"), "{e}");
+        assert!(!e.contains("M13"), "{e}");
+    }
+
+    #[test]
+    fn kinds_map_to_the_model() {
+        assert_eq!(PeriodKind::from(Kind::Week), PeriodKind::Week);
+        assert_eq!(PeriodKind::from(RunKind::Range), PeriodKind::Range);
+        for k in RunKind::value_variants() {
+            let name = k.to_possible_value().unwrap().get_name().to_string();
+            assert_eq!(PeriodKind::from(*k).as_str(), name);
+        }
+        for k in Kind::value_variants() {
+            let name = k.to_possible_value().unwrap().get_name().to_string();
+            assert_eq!(PeriodKind::from(*k).as_str(), name);
+        }
+        assert_eq!(FdrMethod::from(Fdr::By), FdrMethod::BenjaminiYekutieli);
+    }
+}
