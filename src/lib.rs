@@ -34,6 +34,7 @@ pub mod results;
 pub mod sample;
 pub mod scenario;
 pub mod schedule;
+pub mod schema;
 pub mod shot_plant;
 pub mod stats;
 pub mod storage;

@@ -7,10 +7,11 @@
 
 use std::fmt;
 
+use schemars::JsonSchema;
 use serde::Serialize;
 
 /// The verdict of one test, strongest first.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Default, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Default, Serialize, JsonSchema)]
 #[serde(rename_all = "snake_case")]
 pub enum TestState {
     /// q <= level and the standing-out group's difference is material against the tolerance.
@@ -89,7 +90,7 @@ impl fmt::Display for TestState {
 }
 
 /// The test that decides a flag.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Serialize, JsonSchema)]
 #[serde(rename_all = "snake_case")]
 pub enum LeadingTest {
     /// The classic one-way F test.
@@ -166,7 +167,7 @@ impl From<crate::stats::oneway::LeadingMethod> for LeadingTest {
 }
 
 /// The sampling design a test used (see `analysis::design`).
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Serialize, JsonSchema)]
 #[serde(rename_all = "snake_case")]
 pub enum DesignKind {
     /// Every value counted as independent (no subgroups; the serial-dependence check applies).
@@ -215,7 +216,7 @@ impl DesignKind {
 }
 
 /// An interval `{low, high}`.
-#[derive(Debug, Clone, Copy, PartialEq, Default, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Default, Serialize, JsonSchema)]
 pub struct Interval {
     /// Lower end.
     pub low: f64,
@@ -224,7 +225,7 @@ pub struct Interval {
 }
 
 /// An interval whose ends may be unavailable (each `null` then has its reason in JSON).
-#[derive(Debug, Clone, Copy, PartialEq, Default, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Default, Serialize, JsonSchema)]
 pub struct OptInterval {
     /// Lower end.
     pub low: Option<f64>,
@@ -233,7 +234,7 @@ pub struct OptInterval {
 }
 
 /// A test with a statistic and its p-value (the requirement checks).
-#[derive(Debug, Clone, Copy, PartialEq, Default, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Default, Serialize, JsonSchema)]
 pub struct StatP {
     /// The test statistic.
     pub statistic: Option<f64>,
@@ -242,7 +243,7 @@ pub struct StatP {
 }
 
 /// The sampling design of a test and its subgroup counts.
-#[derive(Debug, Clone, Copy, PartialEq, Default, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Default, Serialize, JsonSchema)]
 pub struct DesignResult {
     /// The design (`None` for runs stored before designs were recorded).
     pub kind: Option<DesignKind>,
@@ -255,7 +256,7 @@ pub struct DesignResult {
 }
 
 /// The serial-dependence check of values tested as independent.
-#[derive(Debug, Clone, Copy, PartialEq, Default, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Default, Serialize, JsonSchema)]
 pub struct SerialResult {
     /// Pooled lag-1 serial correlation of the residuals within groups, in time order.
     pub r1: Option<f64>,
@@ -266,7 +267,7 @@ pub struct SerialResult {
 }
 
 /// The leading test: which, why, and what it gave.
-#[derive(Debug, Clone, PartialEq, Default, Serialize)]
+#[derive(Debug, Clone, PartialEq, Default, Serialize, JsonSchema)]
 pub struct LeadingResult {
     /// The test (`None` when none could run).
     pub method: Option<LeadingTest>,
@@ -281,7 +282,7 @@ pub struct LeadingResult {
 }
 
 /// The classic ANOVA table.
-#[derive(Debug, Clone, Copy, PartialEq, Default, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Default, Serialize, JsonSchema)]
 pub struct AnovaResult {
     /// F statistic.
     pub f: Option<f64>,
@@ -304,7 +305,7 @@ pub struct AnovaResult {
 }
 
 /// Welch's ANOVA.
-#[derive(Debug, Clone, Copy, PartialEq, Default, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Default, Serialize, JsonSchema)]
 pub struct WelchResult {
     /// Welch's F.
     pub f: Option<f64>,
@@ -317,7 +318,7 @@ pub struct WelchResult {
 }
 
 /// Kruskal-Wallis H with tie correction.
-#[derive(Debug, Clone, Copy, PartialEq, Default, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Default, Serialize, JsonSchema)]
 pub struct KruskalResult {
     /// H.
     pub h: Option<f64>,
@@ -326,7 +327,7 @@ pub struct KruskalResult {
 }
 
 /// Shapiro-Wilk on the residuals.
-#[derive(Debug, Clone, Copy, PartialEq, Default, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Default, Serialize, JsonSchema)]
 pub struct ShapiroResult {
     /// W.
     pub w: Option<f64>,
@@ -335,7 +336,7 @@ pub struct ShapiroResult {
 }
 
 /// Effect sizes.
-#[derive(Debug, Clone, Copy, PartialEq, Default, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Default, Serialize, JsonSchema)]
 pub struct EffectResult {
     /// eta².
     pub eta_squared: Option<f64>,
@@ -344,7 +345,7 @@ pub struct EffectResult {
 }
 
 /// Variance components of the random-effects model.
-#[derive(Debug, Clone, Copy, PartialEq, Default, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Default, Serialize, JsonSchema)]
 pub struct ComponentsResult {
     /// Between-group component.
     pub between: Option<f64>,
@@ -359,7 +360,7 @@ pub struct ComponentsResult {
 }
 
 /// The group that stands out most from the grand mean.
-#[derive(Debug, Clone, PartialEq, Default, Serialize)]
+#[derive(Debug, Clone, PartialEq, Default, Serialize, JsonSchema)]
 pub struct StandsOut {
     /// Its name.
     pub level: Option<String>,
@@ -372,7 +373,7 @@ pub struct StandsOut {
 }
 
 /// The smallest difference the test would find.
-#[derive(Debug, Clone, Copy, PartialEq, Default, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Default, Serialize, JsonSchema)]
 pub struct Sensitivity {
     /// The smallest shift of one group detectable with 80 % power, in units.
     pub min_detectable_diff: Option<f64>,
@@ -381,7 +382,7 @@ pub struct Sensitivity {
 }
 
 /// One group of a test, in measurement units; the exact-decimal detail as extra fields.
-#[derive(Debug, Clone, PartialEq, Serialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, JsonSchema)]
 pub struct GroupResult {
     /// The level's name.
     pub name: String,
@@ -438,7 +439,7 @@ impl GroupResult {
 }
 
 /// One pairwise comparison of a flagged test, `a` minus `b`.
-#[derive(Debug, Clone, PartialEq, Serialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, JsonSchema)]
 pub struct PairResult {
     /// First group's name.
     pub a: String,
@@ -462,7 +463,7 @@ pub struct PairResult {
 
 /// What one test (one characteristic x one factor in one period) found. `None` = not available;
 /// the reason is in `notes` and, in JSON, beside the `null` ([`TestResult::to_json`]).
-#[derive(Debug, Clone, PartialEq, Default, Serialize)]
+#[derive(Debug, Clone, PartialEq, Default, Serialize, JsonSchema)]
 pub struct TestResult {
     /// Position in the run (the order tests were made in).
     #[serde(skip)]
@@ -552,7 +553,9 @@ impl TestResult {
         v
     }
 
-    fn add_null_reasons(&self, v: &mut serde_json::Value) {
+    /// Puts a `<key>_reason` beside every `null` of `v`, a serialized form of this test (or of
+    /// a type that flattens it, such as [`CheckedTest`]).
+    pub fn add_null_reasons(&self, v: &mut serde_json::Value) {
         let general = match self.state {
             TestState::TooLittleData => format!(
                 "too little data: {}",
@@ -614,6 +617,9 @@ impl TestResult {
                         .into()
                 }
                 ("", "sd_ratio") => self.note("SD ratio").unwrap_or_else(|| general.clone()),
+                ("", "lsl" | "usl" | "target") => {
+                    "no such limit configured for this characteristic".into()
+                }
                 ("groups", "sd") => "a group of one value has no SD".into(),
                 ("groups", "diff_from_grand") => "the group was left out of the test".into(),
                 _ => general.clone(),
@@ -656,6 +662,84 @@ impl TestResult {
         }
         walk(v, "", &reason_for);
     }
+}
+
+/// One test as `check --json` prints it: the result with its characteristic's unit and limits
+/// (from the configuration the output was made with).
+#[derive(Debug, Clone, PartialEq, Serialize, JsonSchema)]
+pub struct CheckedTest {
+    /// The result.
+    #[serde(flatten)]
+    pub result: TestResult,
+    /// The characteristic's unit (empty when none is configured).
+    pub unit: String,
+    /// Lower specification limit.
+    pub lsl: Option<f64>,
+    /// Upper specification limit.
+    pub usl: Option<f64>,
+    /// Target.
+    pub target: Option<f64>,
+}
+
+impl CheckedTest {
+    /// As JSON, every `null` with its reason.
+    pub fn to_json(&self) -> serde_json::Value {
+        let mut v = serde_json::to_value(self).unwrap_or(serde_json::Value::Null);
+        self.result.add_null_reasons(&mut v);
+        v
+    }
+}
+
+/// The checked period of a `check --json` document.
+#[derive(Debug, Clone, PartialEq, Serialize, JsonSchema)]
+pub struct CheckedPeriod {
+    /// `shift`, `day`, `week`, `month` or `range`.
+    pub kind: String,
+    /// Its label (`2026-11-30`, `2026-W48`, ...).
+    pub label: String,
+    /// First instant, RFC 3339 with the plant's offset.
+    pub start: String,
+    /// First instant after it (exclusive), RFC 3339 with the plant's offset.
+    pub end: String,
+}
+
+/// The stored run of a `check --json` document.
+#[derive(Debug, Clone, PartialEq, Serialize, JsonSchema)]
+pub struct CheckedRun {
+    /// Run id.
+    pub run_id: i64,
+    /// Version within its period.
+    pub version: i64,
+    /// Hash of the configuration that produced it.
+    pub config_hash: String,
+    /// samewise version.
+    pub tool_version: String,
+    /// `bh` or `by`.
+    pub fdr_method: String,
+    /// The false-discovery level.
+    pub fdr_level: f64,
+}
+
+/// The document `samewise check --json` prints (docs/json.md; schema in docs/schema/check.json).
+#[derive(Debug, Clone, PartialEq, Serialize, JsonSchema)]
+pub struct CheckDocument {
+    /// The plant's name.
+    pub plant: String,
+    /// The checked period.
+    pub period: CheckedPeriod,
+    /// Findings made new, changed or still open by this check (`null` for `--stored` and
+    /// ranges; see `findings_reason`).
+    pub findings: Option<serde_json::Value>,
+    /// The stored run.
+    pub run: CheckedRun,
+    /// Tests in the run.
+    pub n_tests: usize,
+    /// Flagged tests.
+    pub n_flagged: usize,
+    /// The tests, flagged first.
+    pub tests: Vec<CheckedTest>,
+    /// The caution every output carries.
+    pub caution: String,
 }
 
 /// The full content of a finished run: one result per test, in test order, each with its

@@ -346,24 +346,62 @@ pub fn print_summary(
     writeln!(out, "{}", crate::CAUTION)
 }
 
-/// One test as a JSON object (every `null` with a reason), with its characteristic's unit and
-/// limits from the configuration.
-pub fn test_json(config: &Config, t: &TestResult) -> serde_json::Value {
-    let mut v = t.to_json();
+/// One test with its characteristic's unit and limits from the configuration.
+pub fn checked_test(config: &Config, t: &TestResult) -> crate::results::CheckedTest {
     let c = config.characteristic(&t.characteristic);
-    let none = "no such limit configured for this characteristic";
-    v["unit"] = c.map(|c| c.unit.clone()).unwrap_or_default().into();
-    for (key, value) in [
-        ("lsl", c.and_then(|c| c.lsl)),
-        ("usl", c.and_then(|c| c.usl)),
-        ("target", c.and_then(|c| c.target)),
-    ] {
-        v[key] = value.into();
-        if value.is_none() {
-            v[format!("{key}_reason")] = none.into();
-        }
+    crate::results::CheckedTest {
+        result: t.clone(),
+        unit: c.map(|c| c.unit.clone()).unwrap_or_default(),
+        lsl: c.and_then(|c| c.lsl),
+        usl: c.and_then(|c| c.usl),
+        target: c.and_then(|c| c.target),
     }
-    v
+}
+
+/// The `check --json` document as JSON: [`crate::results::CheckDocument`] serialized, every
+/// `null` with its reason, p-values below the floor as bounds.
+pub fn check_document(
+    config: &Config,
+    period: &Period,
+    run: &StoredRun,
+    content: &RunContent,
+    findings: serde_json::Value,
+) -> serde_json::Value {
+    use crate::results::{CheckDocument, CheckedPeriod, CheckedRun};
+    let tz = config.plant.time_zone;
+    let tests: Vec<_> = sorted(content)
+        .into_iter()
+        .map(|t| checked_test(config, t))
+        .collect();
+    let document = CheckDocument {
+        plant: config.plant.name.clone(),
+        period: CheckedPeriod {
+            kind: period.kind.as_str().to_string(),
+            label: period.label.clone(),
+            start: period.start.with_timezone(&tz).to_rfc3339(),
+            end: period.end.with_timezone(&tz).to_rfc3339(),
+        },
+        findings: Some(findings).filter(|f| !f.is_null()),
+        run: CheckedRun {
+            run_id: run.run_id,
+            version: run.version,
+            config_hash: run.header.config_hash.clone(),
+            tool_version: run.header.tool_version.clone(),
+            fdr_method: run.header.fdr_method.clone(),
+            fdr_level: run.header.fdr_level,
+        },
+        n_tests: content.tests.len(),
+        n_flagged: content.n_flagged(),
+        tests: Vec::new(),
+        caution: crate::CAUTION.to_string(),
+    };
+    let mut doc = serde_json::to_value(&document).unwrap_or(serde_json::Value::Null);
+    doc["tests"] = tests.iter().map(|t| t.to_json()).collect();
+    if document.findings.is_none() {
+        doc["findings_reason"] = "findings are kept for shift, day, week and month checks, not read back with --stored or for ranges".into();
+    }
+    super::format::bound_tiny_p(&mut doc);
+    doc
 }
 
 fn print_json(
@@ -374,33 +412,7 @@ fn print_json(
     content: &RunContent,
     findings: serde_json::Value,
 ) -> std::io::Result<()> {
-    let tests: Vec<serde_json::Value> = sorted(content)
-        .into_iter()
-        .map(|t| test_json(config, t))
-        .collect();
-    let tz = config.plant.time_zone;
-    let findings_reason = findings
-        .is_null()
-        .then_some("findings are kept for shift, day, week and month checks, not read back with --stored or for ranges");
-    let doc = serde_json::json!({
-        "plant": config.plant.name,
-        "period": {"kind": period.kind.as_str(), "label": period.label,
-                   "start": period.start.with_timezone(&tz).to_rfc3339(),
-                   "end": period.end.with_timezone(&tz).to_rfc3339()},
-        "findings": findings,
-        "run": {"run_id": run.run_id, "version": run.version, "config_hash": run.header.config_hash,
-                "tool_version": run.header.tool_version, "fdr_method": run.header.fdr_method,
-                "fdr_level": run.header.fdr_level},
-        "n_tests": content.tests.len(),
-        "n_flagged": content.tests.iter().filter(|t| t.is_flag()).count(),
-        "tests": tests,
-        "caution": crate::CAUTION,
-    });
-    let mut doc = doc;
-    if let Some(reason) = findings_reason {
-        doc["findings_reason"] = reason.into();
-    }
-    super::format::bound_tiny_p(&mut doc);
+    let doc = check_document(config, period, run, content, findings);
     serde_json::to_writer_pretty(&mut *out, &doc)?;
     writeln!(out)
 }

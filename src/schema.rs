@@ -1,0 +1,125 @@
+//! JSON Schemas of the documents samewise prints, generated from the result types
+//! (`schemars`) and made strict: the conventions of docs/json.md are written into them (a string
+//! `<key>_reason` beside every property that can be `null`, a `<key>_is_bound: true` beside every
+//! p-value that can be a bound), and every object then refuses properties the types do not
+//! declare, so an output that drifts from its type fails validation. The committed copies live
+//! in docs/schema/; tests/schema.rs checks they are current and validates real outputs.
+
+use serde_json::{Map, Value};
+
+/// The schema of `samewise check --json` ([`crate::results::CheckDocument`]).
+pub fn check_document() -> Value {
+    strict(
+        serde_json::to_value(schemars::schema_for!(crate::results::CheckDocument))
+            .unwrap_or(Value::Null),
+    )
+}
+
+/// Every named schema, as `(file name, schema)`, for docs/schema/.
+pub fn all() -> Vec<(&'static str, Value)> {
+    vec![("check.json", check_document())]
+}
+
+/// The schema with the JSON conventions added and unknown properties refused.
+fn strict(mut schema: Value) -> Value {
+    let defs = schema.get("$defs").cloned().unwrap_or(Value::Null);
+    tighten(&mut schema, &defs);
+    schema
+}
+
+/// Whether `schema` (resolving one local `$ref`) accepts `null`.
+fn accepts_null(schema: &Value, defs: &Value) -> bool {
+    match schema {
+        Value::Bool(b) => *b,
+        Value::Object(m) => {
+            if let Some(r) = m.get("$ref").and_then(Value::as_str) {
+                let name = r.trim_start_matches("#/$defs/");
+                return defs.get(name).is_some_and(|d| accepts_null(d, defs));
+            }
+            match m.get("type") {
+                Some(Value::String(t)) => t == "null",
+                Some(Value::Array(ts)) => ts.iter().any(|t| t == "null"),
+                None => {
+                    let any = |key: &str| {
+                        m.get(key)
+                            .and_then(Value::as_array)
+                            .is_some_and(|alts| alts.iter().any(|a| accepts_null(a, defs)))
+                    };
+                    // No type and no alternatives: anything, null included.
+                    any("anyOf")
+                        || any("oneOf")
+                        || !(m.contains_key("anyOf")
+                            || m.contains_key("oneOf")
+                            || m.contains_key("allOf")
+                            || m.contains_key("enum")
+                            || m.contains_key("const"))
+                }
+                _ => false,
+            }
+        }
+        _ => false,
+    }
+}
+
+/// Whether a property name holds a p-value (the rule of `cli::format::bound_tiny_p`).
+fn is_p_name(name: &str) -> bool {
+    name == "p" || name.ends_with("_p") || name.starts_with("p_")
+}
+
+fn tighten(schema: &mut Value, defs: &Value) {
+    match schema {
+        Value::Object(m) => {
+            if let Some(Value::Object(props)) = m.get("properties") {
+                let mut extra = Map::new();
+                for (name, sub) in props {
+                    if accepts_null(sub, defs) {
+                        extra.insert(
+                            format!("{name}_reason"),
+                            serde_json::json!({"type": "string",
+                                "description": format!("Why `{name}` is null (present exactly when it is).")}),
+                        );
+                    }
+                    if is_p_name(name) {
+                        extra.insert(
+                            format!("{name}_is_bound"),
+                            serde_json::json!({"const": true,
+                                "description": format!("`{name}` is a bound: the p-value is below it.")}),
+                        );
+                    }
+                }
+                if let Some(Value::Object(props)) = m.get_mut("properties") {
+                    for (k, v) in extra {
+                        props.entry(k).or_insert(v);
+                    }
+                }
+                m.insert("additionalProperties".into(), Value::Bool(false));
+            }
+            for (_, child) in m.iter_mut() {
+                tighten(child, defs);
+            }
+        }
+        Value::Array(items) => items.iter_mut().for_each(|i| tighten(i, defs)),
+        _ => {}
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn nullable_properties_get_a_reason_and_objects_are_closed() {
+        let s = check_document();
+        let test = &s["$defs"]["CheckedTest"];
+        assert_eq!(test["additionalProperties"], false);
+        assert_eq!(test["properties"]["lsl_reason"]["type"], "string");
+        assert_eq!(test["properties"]["q_value_reason"]["type"], "string");
+        // A property that is never null has no reason; `state` is always there.
+        assert!(test["properties"].get("state_reason").is_none());
+        assert_eq!(
+            s["$defs"]["LeadingResult"]["properties"]["p_is_bound"]["const"],
+            true
+        );
+        assert_eq!(s["properties"]["findings_reason"]["type"], "string");
+    }
+}
