@@ -141,6 +141,9 @@ pub struct Config {
     pub findings: FindingsSettings,
     /// The command run when findings are new or change, if any.
     pub alert: Option<AlertConfig>,
+    /// SHA-256 of the text that was parsed, first 16 hex digits: the configuration hash every
+    /// run records (the file is not read again to make it, so a later edit cannot slip in).
+    pub source_hash: String,
 }
 
 /// The `[findings]` table.
@@ -445,7 +448,9 @@ impl Config {
             path: path.to_path_buf(),
             reason: one_line(&e.to_string()),
         })?;
-        validate(raw, path)
+        let mut config = validate(raw, path)?;
+        config.source_hash = source_hash(text);
+        Ok(config)
     }
 
     /// The characteristic called `name`.
@@ -1088,7 +1093,18 @@ fn validate(raw: RawConfig, path: &Path) -> Result<Config> {
         schedules,
         findings,
         alert,
+        source_hash: String::new(),
     })
+}
+
+/// SHA-256 of configuration text, first 16 hex digits.
+fn source_hash(text: &str) -> String {
+    use sha2::{Digest, Sha256};
+    Sha256::digest(text.as_bytes())
+        .iter()
+        .take(8)
+        .map(|b| format!("{b:02x}"))
+        .collect()
 }
 
 fn validate_layout(
@@ -1525,6 +1541,23 @@ derived = "shift"
         Config::from_toml_str(text, "plant.toml")
             .expect_err("configuration should be refused")
             .to_string()
+    }
+
+    #[test]
+    fn the_hash_is_of_the_text_parsed_not_of_the_file_later() {
+        let dir = std::env::temp_dir().join(format!("samewise-config-hash-{}", std::process::id()));
+        std::fs::create_dir_all(&dir).unwrap();
+        let path = dir.join("plant.toml");
+        std::fs::write(&path, MINIMAL).unwrap();
+        let loaded = Config::load(&path).unwrap();
+        // SHA-256 of the same bytes (the sha2 crate's digest, first 8 bytes as hex).
+        assert_eq!(loaded.source_hash, source_hash(MINIMAL));
+        assert_eq!(loaded.source_hash.len(), 16);
+        // An edit after loading does not change what the loaded configuration reports.
+        std::fs::write(&path, format!("{MINIMAL}\n# edited\n")).unwrap();
+        assert_eq!(loaded.source_hash, source_hash(MINIMAL));
+        assert_ne!(Config::load(&path).unwrap().source_hash, loaded.source_hash);
+        let _ = std::fs::remove_dir_all(&dir);
     }
 
     #[test]

@@ -7,7 +7,6 @@ use std::collections::HashSet;
 use std::sync::Arc;
 
 use chrono::{DateTime, Utc};
-use sha2::{Digest, Sha256};
 
 use super::{check_frames, worker_count, CheckOptions, Frame, FrameCharacteristic, FrameFactor};
 use crate::calendar::PlantCalendar;
@@ -46,19 +45,10 @@ pub fn frame_from(pf: PeriodFrame) -> Frame {
     }
 }
 
-/// Hash of the configuration that produced a run: SHA-256 of the configuration file's bytes
-/// (or of its parsed form when the file cannot be read), first 16 hex digits.
+/// Hash of the configuration that produced a run: SHA-256 of the configuration text that was
+/// parsed (`Config::source_hash`), first 16 hex digits.
 pub fn config_hash(config: &Config) -> String {
-    let mut h = Sha256::new();
-    match std::fs::read(&config.path) {
-        Ok(bytes) => h.update(&bytes),
-        Err(_) => h.update(format!("{config:?}").as_bytes()),
-    }
-    h.finalize()
-        .iter()
-        .take(8)
-        .map(|b| format!("{b:02x}"))
-        .collect()
+    config.source_hash.clone()
 }
 
 /// Flagged (characteristic, factor) pairs of the latest complete run of the period before
