@@ -892,7 +892,7 @@ fn issue_17_json_and_csv_of_status_history_and_db_check() {
     let periods = history["periods"].as_array().unwrap();
     assert_eq!(periods.len(), 2);
     assert_eq!(periods[1]["period"], "2026-11-30");
-    assert_eq!(periods[1]["standout"]["group"], "M2");
+    assert_eq!(periods[1]["stands_out"]["level"], "M2");
     assert_eq!(history["unit"], "mm");
     let mut bare = Vec::new();
     for p in periods {

@@ -199,14 +199,14 @@ fn point_json(config: &crate::config::Config, p: &runs::HistoryPoint) -> serde_j
     match &t.stands_out.level {
         Some(level) => {
             m.insert(
-                "standout".into(),
-                json!({"group": level, "diff": t.stands_out.diff, "sd_units": t.stands_out.sd_units,
+                "stands_out".into(),
+                json!({"level": level, "diff": t.stands_out.diff, "sd_units": t.stands_out.sd_units,
                        "pct_tolerance": t.stands_out.pct_tolerance}),
             );
         }
         None => {
-            m.insert("standout".into(), Value::Null);
-            m.insert("standout_reason".into(), json!(why));
+            m.insert("stands_out".into(), Value::Null);
+            m.insert("stands_out_reason".into(), json!(why));
         }
     }
     m.insert("notes".into(), json!(t.notes));
@@ -243,13 +243,13 @@ fn write_csv(path: &std::path::Path, rows: &[serde_json::Value]) -> Result<()> {
         "within_sd",
     ];
     let mut text = format!(
-        "{},standout_group,standout_diff,standout_sd_units,standout_pct_tolerance\n",
+        "{},stands_out_level,stands_out_diff,stands_out_sd_units,stands_out_pct_tolerance\n",
         columns.join(",")
     );
     for r in rows {
         let mut line: Vec<String> = columns.iter().map(|c| cell(&r[*c])).collect();
-        for k in ["group", "diff", "sd_units", "pct_tolerance"] {
-            line.push(cell(&r["standout"][k]));
+        for k in ["level", "diff", "sd_units", "pct_tolerance"] {
+            line.push(cell(&r["stands_out"][k]));
         }
         text.push_str(&line.join(","));
         text.push('\n');
