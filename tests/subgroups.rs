@@ -295,3 +295,75 @@ fn a_subgroup_window_derives_subgroups_and_bad_settings_are_named() {
     let err = common::output_text(&common::samewise(&dir, &["status"]));
     assert!(err.contains("give one"), "{err}");
 }
+
+#[test]
+fn the_detail_chart_interval_of_a_nested_group_rests_on_its_subgroup_means() {
+    // The invented press day: machine is nested in the shots, so each machine's interval comes
+    // from its 10 shot means (t with 9 df), not from its 40 parts; cavity varies within the
+    // shots (blocked) and keeps the interval of its values.
+    let dir = temp_dir("subgroup-detail");
+    write_day(&dir);
+    samewise_ok(&dir, &["init"]);
+    samewise_ok(&dir, &["import", "press.csv"]);
+    let config = samewise::config::Config::load(dir.join("plant.toml")).unwrap();
+    let store = samewise::storage::Store::open(dir.join("plant.db")).unwrap();
+    let period = samewise::calendar::PlantCalendar::new(&config)
+        .parse_period("2026-11-30")
+        .unwrap();
+    let detail =
+        samewise::analysis::report::detail_input(&store, &config, "weight", "machine", &period)
+            .unwrap();
+    // The shot means of M1 straight from the file.
+    let csv = std::fs::read_to_string(dir.join("press.csv")).unwrap();
+    let mut shots: std::collections::BTreeMap<String, Vec<f64>> = Default::default();
+    for line in csv.lines().skip(1) {
+        let f: Vec<&str> = line.split(',').collect();
+        if f[1] == "M1" {
+            shots
+                .entry(f[2].to_string())
+                .or_default()
+                .push(f[4].parse().unwrap());
+        }
+    }
+    let means: Vec<f64> = shots
+        .values()
+        .map(|v| v.iter().sum::<f64>() / v.len() as f64)
+        .collect();
+    let n = means.len() as f64;
+    let m = means.iter().sum::<f64>() / n;
+    let sd = (means.iter().map(|x| (x - m).powi(2)).sum::<f64>() / (n - 1.0)).sqrt();
+    // t quantile from statrs, a general-purpose statistics library.
+    use statrs::distribution::{ContinuousCDF, StudentsT};
+    let t = StudentsT::new(0.0, 1.0, n - 1.0)
+        .unwrap()
+        .inverse_cdf(0.975);
+    let half = t * sd / n.sqrt();
+    let m1 = detail.groups.iter().find(|g| g.level == "M1").unwrap();
+    let got = (m1.ci_high.unwrap() - m1.ci_low.unwrap()) / 2.0;
+    assert!(
+        (got - half).abs() <= 1e-9 * half,
+        "half width {got} vs {half} from the shot means"
+    );
+    // Wider than the interval of the 40 parts taken as independent.
+    let (pm, psd) = {
+        let v = &m1.values;
+        let k = v.len() as f64;
+        let mean = v.iter().sum::<f64>() / k;
+        (
+            k,
+            (v.iter().map(|x| (x - mean).powi(2)).sum::<f64>() / (k - 1.0)).sqrt(),
+        )
+    };
+    let naive = StudentsT::new(0.0, 1.0, pm - 1.0)
+        .unwrap()
+        .inverse_cdf(0.975)
+        * psd
+        / pm.sqrt();
+    assert!(got > naive, "{got} <= {naive}");
+    let cavity =
+        samewise::analysis::report::detail_input(&store, &config, "weight", "cavity", &period)
+            .unwrap();
+    let c3 = cavity.groups.iter().find(|g| g.level == "C3").unwrap();
+    assert_eq!(c3.values.len(), 30);
+    assert!(c3.ci_low.is_some());
+}

@@ -570,6 +570,46 @@ fn values_by_level(
     Ok(out)
 }
 
+/// The subgroup (cell) means of each level, keyed by level name, when the period's values of
+/// `characteristic` have subgroups and `factor` is nested in them or mixed with them (the design
+/// the check tests them with, `analysis::design`): the unit of replication is then the subgroup,
+/// and a group mean's interval must come from its subgroup means. `None` for independent values
+/// and for blocked designs (the factor varies within the subgroups; the values' own interval
+/// then includes the subgroups' deviations and errs on the wide side).
+fn subgroup_means_by_level(
+    store: &Store,
+    characteristic: &str,
+    factor: &str,
+    start: DateTime<Utc>,
+    end: DateTime<Utc>,
+) -> Result<Option<BTreeMap<String, Vec<f64>>>> {
+    use crate::analysis::design::{arrange, DesignKind};
+    let frame = store.load_period(start, end, Some(&[characteristic.to_string()]))?;
+    let (Some(f_idx), Some(c)) = (
+        frame.factors.iter().position(|f| f.name == factor),
+        frame.characteristics.first(),
+    ) else {
+        return Ok(None);
+    };
+    let levels = &frame.factors[f_idx].levels;
+    let idx = &c.level_idx[f_idx];
+    let Ok(a) = arrange(&c.values, &c.subgroup_idx, |row| Some(idx[row])) else {
+        return Ok(None);
+    };
+    if !matches!(a.kind, DesignKind::Nested | DesignKind::CellMeans) {
+        return Ok(None);
+    }
+    let origin = c.origin.to_f64();
+    Ok(Some(
+        a.cell_means(levels.len())
+            .into_iter()
+            .enumerate()
+            .filter(|(_, m)| !m.is_empty())
+            .map(|(l, m)| (levels[l].clone(), m.iter().map(|v| origin + v).collect()))
+            .collect(),
+    ))
+}
+
 fn mean_sd(values: &[f64]) -> (f64, Option<f64>) {
     let s = crate::stats::describe::Summary::from_slice(values);
     (s.mean, s.sd())
@@ -593,6 +633,7 @@ pub fn detail_input(
             period.label
         )));
     }
+    let units = subgroup_means_by_level(store, characteristic, factor, period.start, period.end)?;
     let mut all = Vec::new();
     let mut residuals = Vec::new();
     let groups = by_level
@@ -600,7 +641,20 @@ pub fn detail_input(
         .map(|(level, tv)| {
             let values: Vec<f64> = tv.into_iter().map(|(_, v)| v).collect();
             let (mean, sd) = mean_sd(&values);
-            let (ci_low, ci_high) = interval(values.len() as u64, mean, sd);
+            // Parts measured together share their subgroup's deviation: the interval of a
+            // nested group's mean rests on its subgroup means, not on every value.
+            let (ci_low, ci_high) = match units.as_ref().and_then(|u| u.get(&level)) {
+                Some(means) => {
+                    // Centred on the plotted mean of the values, as wide as the subgroup
+                    // means' interval.
+                    let (m, sd) = mean_sd(means);
+                    match interval(means.len() as u64, m, sd) {
+                        (Some(_), Some(hi)) => (Some(mean - (hi - m)), Some(mean + (hi - m))),
+                        _ => (None, None),
+                    }
+                }
+                None => interval(values.len() as u64, mean, sd),
+            };
             all.extend_from_slice(&values);
             residuals.extend(values.iter().map(|v| v - mean));
             DetailGroup {
