@@ -610,6 +610,53 @@ mod tests {
     use crate::stats::lre;
     use serde_json::Value;
 
+    /// A randomized complete block design worked example: egg production of 5 feeds (levels) in
+    /// 4 breeds of hen (blocks), one value per cell. Source: University of Washington, course 482
+    /// (fall 2002), lab 16 (faculty.washington.edu/conquest/482fall02/Labs/lab16.htm), which
+    /// prints SS(feeds) 17.7 (df 4), SS(breeds) 12.4 (df 3), SS(residual) 12.7, MS 4.42,
+    /// F 4.18, 0.01 < P < 0.025. The page's table prints feed III in breed d as 4.40, but its
+    /// own feed III mean (3.56), breed d mean (3.55), sums of squares and F all come from 4.50
+    /// (with 4.40 none of them does), so 4.50 is used. Exact values by rational arithmetic
+    /// (Python fractions): SS 17.675, 12.425, 12.7; F = 4.419 / 1.0583 = 4.175196850393701;
+    /// p = 0.0239939794161317 (mpmath 1.3.0, regularized incomplete beta).
+    #[test]
+    fn egg_production_worked_example() {
+        let table: [[f64; 4]; 5] = [
+            [5.00, 3.25, 3.00, 4.00],
+            [7.00, 2.00, 4.00, 2.50],
+            [4.00, 2.50, 3.25, 4.50],
+            [6.50, 6.00, 6.50, 4.75],
+            [4.50, 3.25, 3.50, 2.00],
+        ];
+        let (mut values, mut levels, mut blocks) = (Vec::new(), Vec::new(), Vec::new());
+        for (feed, row) in table.iter().enumerate() {
+            for (breed, &v) in row.iter().enumerate() {
+                values.push(v);
+                levels.push(feed as u32);
+                blocks.push(breed as u32);
+            }
+        }
+        let fit = blocked_anova(&values, &levels, &blocks, 5, 4, 0.95).unwrap();
+        // The printed table, at its printed precision.
+        assert_eq!(format!("{:.1}", fit.ss_levels), "17.7");
+        assert_eq!(format!("{:.1}", fit.ss_blocks), "12.4");
+        assert_eq!(format!("{:.1}", fit.ss_resid), "12.7");
+        assert_eq!((fit.df_levels, fit.df_resid), (4.0, 12.0));
+        let t = fit.levels_test.as_ref().unwrap();
+        assert_eq!(format!("{:.2}", t.statistic), "4.18");
+        assert!(0.01 < t.p && t.p < 0.025);
+        // The exact values.
+        assert!(lre(fit.ss_levels, 17.675) >= 12.0, "{}", fit.ss_levels);
+        assert!(lre(fit.ss_blocks, 12.425) >= 12.0, "{}", fit.ss_blocks);
+        assert!(lre(fit.ss_resid, 12.7) >= 12.0, "{}", fit.ss_resid);
+        assert!(
+            lre(t.statistic, 4.175_196_850_393_701) >= 12.0,
+            "{}",
+            t.statistic
+        );
+        assert!(lre(t.p, 0.023_993_979_416_131_7) >= 10.0, "{}", t.p);
+    }
+
     fn fixture() -> Value {
         serde_json::from_str(include_str!("../../tests/data/reference/blocked.json")).unwrap()
     }
