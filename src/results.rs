@@ -253,6 +253,9 @@ pub struct DesignResult {
     pub var_subgroups: Option<f64>,
     /// Its share of the total variance.
     pub share_subgroups: Option<f64>,
+    /// Interval of `var_subgroups` (nested designs: modified large-sample, Graybill and Wang
+    /// 1980).
+    pub var_subgroups_ci: OptInterval,
 }
 
 /// The serial-dependence check of values tested as independent.
@@ -357,6 +360,10 @@ pub struct ComponentsResult {
     pub icc: Option<f64>,
     /// Its confidence interval.
     pub icc_ci: OptInterval,
+    /// Interval of `between` (modified large-sample; for a nested design over its levels).
+    pub between_ci: OptInterval,
+    /// Interval of `within` (chi-square).
+    pub within_ci: OptInterval,
 }
 
 /// The group that stands out most from the grand mean.
@@ -608,6 +615,14 @@ impl TestResult {
                 ("design", "kind") => {
                     "stored before designs were recorded (independent values)".into()
                 }
+                ("design", "low" | "high")
+                    if self.design.kind == Some(DesignKind::Blocked) =>
+                {
+                    "no interval for a blocked design's between-subgroup variance (it is estimated from the blocks' mean square)".into()
+                }
+                ("design", "low" | "high") if self.design.kind == Some(DesignKind::Nested) => self
+                    .note("three-level components")
+                    .unwrap_or_else(|| general.clone()),
                 ("design", _) if self.design.n_subgroups.is_none() => {
                     "no subgroups: the values were tested as independent".into()
                 }

@@ -168,6 +168,17 @@ fn a_shot_column_goes_through_import_and_check() {
     assert_eq!(machine["design"]["n_subgroups"], 30);
     assert!(machine["design"]["var_subgroups"].as_f64().unwrap() > 0.0);
     assert_eq!(machine["groups"][0]["n"], 10, "ten shot means per machine");
+    // Three-level components with their intervals (stats::nested: chi-square for within,
+    // modified large-sample for the subgroups and the levels).
+    let sub = machine["design"]["var_subgroups"].as_f64().unwrap();
+    let ci = &machine["design"]["var_subgroups_ci"];
+    assert!(
+        ci["low"].as_f64().unwrap() <= sub && sub <= ci["high"].as_f64().unwrap(),
+        "{machine}"
+    );
+    let within = machine["variance_components"]["within"].as_f64().unwrap();
+    let wci = &machine["variance_components"]["within_ci"];
+    assert!(wci["low"].as_f64().unwrap() < within && within < wci["high"].as_f64().unwrap());
     assert!(machine["serial_dependence"]["p"].is_null());
     assert!(machine["serial_dependence"]["p_reason"]
         .as_str()
@@ -176,6 +187,11 @@ fn a_shot_column_goes_through_import_and_check() {
     let cavity = test("cavity");
     assert_eq!(cavity["design"]["kind"], "blocked");
     assert_eq!(cavity["leading"]["method"], "blocked_f");
+    assert!(cavity["design"]["var_subgroups_ci"]["low"].is_null());
+    assert!(cavity["design"]["var_subgroups_ci"]["low_reason"]
+        .as_str()
+        .unwrap()
+        .contains("blocked design"));
     assert!(
         cavity["state"].as_str().unwrap().starts_with("differs"),
         "{cavity}"

@@ -522,6 +522,17 @@ fn push_note(notes: &mut String, note: &str) {
     notes.push_str(note);
 }
 
+/// An interval of the statistics core as an interval of the results (`None` ends when it
+/// could not be computed).
+fn opt_interval(
+    ci: &Stat<crate::stats::variance_components::Interval>,
+) -> crate::results::OptInterval {
+    crate::results::OptInterval {
+        low: ci.as_ref().ok().map(|c| c.low),
+        high: ci.as_ref().ok().map(|c| c.high),
+    }
+}
+
 fn ok<T: Copy>(s: &Stat<T>) -> Option<T> {
     s.as_ref().ok().copied()
 }
@@ -980,11 +991,17 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
                 }
             }
             out.icc = Some(vc.icc);
-            if let Ok(ci) = &vc.icc_ci {
-                out.icc_ci = crate::results::OptInterval {
-                    low: Some(ci.low),
-                    high: Some(ci.high),
-                };
+            out.icc_ci = opt_interval(&vc.icc_ci);
+            out.between_ci = opt_interval(&vc.between_ci);
+            out.within_ci = opt_interval(&Ok(vc.within_ci));
+            if let Err(e) = &vc.between_ci {
+                push_note(
+                    &mut notes,
+                    &format!(
+                        "variance components: no between-group interval: {}",
+                        e.reason
+                    ),
+                );
             }
         }
         if let Some(n) = &nested_fit {
@@ -1015,10 +1032,27 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
                         between: Some(c.levels),
                         within: Some(c.within),
                         share_between: Some(c.share_levels),
+                        between_ci: opt_interval(&c.levels_ci),
+                        within_ci: opt_interval(&Ok(c.within_ci)),
                         ..Default::default()
                     };
                     row.design.var_subgroups = Some(c.subgroups);
                     row.design.share_subgroups = Some(c.share_subgroups);
+                    row.design.var_subgroups_ci = opt_interval(&c.subgroups_ci);
+                    for (what, ci) in [
+                        ("between-level", &c.levels_ci),
+                        ("between-subgroup", &c.subgroups_ci),
+                    ] {
+                        if let Err(e) = ci {
+                            push_note(
+                                &mut notes,
+                                &format!(
+                                    "three-level components: no {what} interval: {}",
+                                    e.reason
+                                ),
+                            );
+                        }
+                    }
                     push_note(
                         &mut notes,
                         &format!(

@@ -59,6 +59,10 @@ pub const MIGRATIONS: &[Migration] = &[
         name: "0009_subgroups.sql",
         sql: include_str!("../../migrations/0009_subgroups.sql"),
     },
+    Migration {
+        name: "0010_component_intervals.sql",
+        sql: include_str!("../../migrations/0010_component_intervals.sql"),
+    },
 ];
 
 /// SQLite's `PRAGMA application_id` of a samewise database: "SMWS" in ASCII. Set when a database

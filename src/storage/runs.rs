@@ -143,11 +143,14 @@ pub(super) fn complete_run(
                 var_within, share_between, icc, icc_low, icc_high, tolerance, spread_of_means,
                 spread_pct_tolerance, standout_level, standout_diff, standout_sd_units,
                 standout_pct_tolerance, min_detectable_diff, min_detectable_pct_tolerance, notes,
-                design, n_subgroups, var_subgroups, share_subgroups, serial_r1, serial_z, serial_p)
+                design, n_subgroups, var_subgroups, share_subgroups, serial_r1, serial_z, serial_p,
+                var_between_low, var_between_high, var_within_low, var_within_high,
+                var_subgroups_low, var_subgroups_high)
              VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14, ?15, ?16, ?17,
                 ?18, ?19, ?20, ?21, ?22, ?23, ?24, ?25, ?26, ?27, ?28, ?29, ?30, ?31, ?32, ?33,
                 ?34, ?35, ?36, ?37, ?38, ?39, ?40, ?41, ?42, ?43, ?44, ?45, ?46, ?47, ?48, ?49,
-                ?50, ?51, ?52, ?53, ?54, ?55, ?56, ?57, ?58, ?59, ?60, ?61, ?62, ?63, ?64, ?65)",
+                ?50, ?51, ?52, ?53, ?54, ?55, ?56, ?57, ?58, ?59, ?60, ?61, ?62, ?63, ?64, ?65,
+                ?66, ?67, ?68, ?69, ?70, ?71)",
         )?;
         for t in &content.tests {
             let (a, w, k, c, vc, so) = (
@@ -224,6 +227,12 @@ pub(super) fn complete_run(
                 t.serial_dependence.r1,
                 t.serial_dependence.z,
                 t.serial_dependence.p,
+                vc.between_ci.low,
+                vc.between_ci.high,
+                vc.within_ci.low,
+                vc.within_ci.high,
+                c.var_subgroups_ci.low,
+                c.var_subgroups_ci.high,
             ])?;
         }
         let mut ins = tx.prepare_cached(
@@ -447,7 +456,9 @@ const TEST_COLUMNS: &str = "test_idx, characteristic, factor, state, is_new, n_o
     var_between, var_within, share_between, icc, icc_low, icc_high, tolerance, \
     spread_of_means, spread_pct_tolerance, standout_level, standout_diff, standout_sd_units, \
     standout_pct_tolerance, min_detectable_diff, min_detectable_pct_tolerance, notes, design, \
-    n_subgroups, var_subgroups, share_subgroups, serial_r1, serial_z, serial_p";
+    n_subgroups, var_subgroups, share_subgroups, serial_r1, serial_z, serial_p, \
+    var_between_low, var_between_high, var_within_low, var_within_high, var_subgroups_low, \
+    var_subgroups_high";
 
 /// A text column read through `parse` (a stored state, method or design name); an unknown
 /// name is a conversion error naming the column's value.
@@ -545,6 +556,14 @@ fn test_from_row(r: &Row<'_>, o: usize) -> rusqlite::Result<TestResult> {
                 low: g(45)?,
                 high: g(46)?,
             },
+            between_ci: OptInterval {
+                low: g(64)?,
+                high: g(65)?,
+            },
+            within_ci: OptInterval {
+                low: g(66)?,
+                high: g(67)?,
+            },
         },
         tolerance: g(47)?,
         spread_of_means: g(48)?,
@@ -565,6 +584,10 @@ fn test_from_row(r: &Row<'_>, o: usize) -> rusqlite::Result<TestResult> {
             n_subgroups: r.get::<_, Option<i64>>(o + 58)?.map(|n| n.max(0) as u64),
             var_subgroups: g(59)?,
             share_subgroups: g(60)?,
+            var_subgroups_ci: OptInterval {
+                low: g(68)?,
+                high: g(69)?,
+            },
         },
         serial_dependence: SerialResult {
             r1: g(61)?,
