@@ -76,6 +76,9 @@ impl<T> PlantStore for T where
 {
 }
 
+/// An opened plant database, whatever its backend.
+pub type BoxedStore = Box<dyn PlantStore>;
+
 /// Opens the existing plant database of `config`, applying pending migrations: the backend for
 /// the configuration (today always SQLite at `plant.database`, see [`Store::open`]). A missing
 /// database is an error that suggests `samewise init`.
@@ -93,6 +96,12 @@ pub fn open_or_create(config: &Config) -> Result<Box<dyn PlantStore>> {
 /// migrations and brings characteristics and factors in step with the configuration.
 pub fn create(config: &Config) -> Result<Box<dyn PlantStore>> {
     Ok(Box::new(Store::create(&config.plant.database, config)?))
+}
+
+/// A fresh, empty store in memory with every migration applied (for tests and dry runs); it
+/// has no second reader ([`MeasurementStore::reader_opener`] is `None`).
+pub fn open_in_memory() -> Result<Box<dyn PlantStore>> {
+    Ok(Box::new(Store::open_in_memory()?))
 }
 
 /// Whether the plant database of `config` exists and holds data (`false` for a missing place or
