@@ -116,6 +116,46 @@ fn store_reached_only_through_its_traits() {
     }
 }
 
+/// No SQLite type in a public signature of `storage` either (a `pub` item, not `pub(crate)` or
+/// `pub(super)`): the traits and the types they carry are all that leaves the module.
+#[test]
+fn no_sqlite_type_in_public_storage_signatures() {
+    let root = Path::new(env!("CARGO_MANIFEST_DIR"));
+    let mut files = Vec::new();
+    sources(&root.join("src/storage"), &mut files);
+    assert!(files.len() >= 5, "storage sources not found");
+    let sqlite = [
+        "rusqlite",
+        "Connection",
+        "Transaction",
+        "Row<",
+        "&Row",
+        "Statement",
+    ];
+    let mut found = Vec::new();
+    for f in &files {
+        let mut signature = false;
+        for (n, line) in code_lines(f) {
+            let t = line.trim_start();
+            // A public item's signature runs from its `pub` line to its opening brace or `;`.
+            if t.starts_with("pub ") {
+                signature = true;
+            }
+            if signature && sqlite.iter().any(|s| t.contains(s)) {
+                found.push(format!("{}:{n}: {}", f.display(), t));
+            }
+            if signature && (t.ends_with('{') || t.ends_with(';') || t.ends_with(',')) {
+                signature = false;
+            }
+        }
+    }
+    assert!(
+        found.is_empty(),
+        "SQLite types in public signatures of src/storage:\n{}",
+        found.join("\n")
+    );
+}
+
 #[test]
 fn identifier_match_is_whole_word() {
     assert!(names_identifier("use crate::storage::Store;", "Store"));
