@@ -242,7 +242,12 @@ pub const PAGE_SIZE: i64 = 16 * 1024;
 /// Page cache per connection, in KiB (SQLite's negative `cache_size`).
 const CACHE_KIB: i64 = 64 * 1024;
 
-/// The plant database.
+/// The SQLite backend: the plant database in one file (or in memory).
+///
+/// It implements every trait of [`PlantStore`]; its inherent methods are what those
+/// implementations call (and what the tests of this backend call). Code outside `storage` never
+/// names it: it holds a `dyn PlantStore` from [`open`] and its siblings
+/// (`tests/architecture.rs` checks this).
 ///
 /// One `Store` is one SQLite connection. Several processes may use the same database file at the
 /// same time: WAL mode lets readers proceed while an import writes, and a busy timeout makes a
