@@ -1,7 +1,7 @@
 //! ARCHITECTURE.md's invariants, checked on the sources (issue 17): SQL and SQLite types only in
-//! `storage`, clap only in `cli`, wall-clock reads only in `cli`, and a statistics core without
-//! I/O, printing, SQL or clocks. Test modules (`#[cfg(test)]` to the end of a file) are not
-//! checked; comment lines are not code.
+//! `storage`, the store reached only through its traits, clap only in `cli`, wall-clock reads
+//! only in `cli`, and a statistics core without I/O, printing, SQL or clocks. Test modules
+//! (`#[cfg(test)]` to the end of a file) are not checked; comment lines are not code.
 
 use std::path::{Path, PathBuf};
 
@@ -32,6 +32,26 @@ fn code_lines(path: &Path) -> Vec<(usize, String)> {
 
 /// Every use of one of `needles` outside the modules whose path starts with one of `allowed`.
 fn offenders(needles: &[&str], allowed: &[&str]) -> Vec<String> {
+    offenders_where(
+        |line| needles.iter().any(|needle| line.contains(needle)),
+        allowed,
+    )
+}
+
+/// Whether `line` names the identifier `ident` as a whole word (so `Store` is found in
+/// `storage::Store` and `Store::open`, not in `RunStore` or `StoredRun`).
+fn names_identifier(line: &str, ident: &str) -> bool {
+    let is_ident = |c: char| c.is_alphanumeric() || c == '_';
+    line.match_indices(ident).any(|(at, _)| {
+        let before = line[..at].chars().next_back();
+        let after = line[at + ident.len()..].chars().next();
+        !before.is_some_and(is_ident) && !after.is_some_and(is_ident)
+    })
+}
+
+/// Every code line for which `hit` holds, outside the modules whose path starts with one of
+/// `allowed`.
+fn offenders_where(hit: impl Fn(&str) -> bool, allowed: &[&str]) -> Vec<String> {
     let root = Path::new(env!("CARGO_MANIFEST_DIR"));
     let mut files = Vec::new();
     sources(&root.join("src"), &mut files);
@@ -46,7 +66,7 @@ fn offenders(needles: &[&str], allowed: &[&str]) -> Vec<String> {
             continue;
         }
         for (n, line) in code_lines(&f) {
-            if needles.iter().any(|needle| line.contains(needle)) {
+            if hit(&line) {
                 out.push(format!("{rel}:{n}: {}", line.trim()));
             }
         }
@@ -71,6 +91,79 @@ fn sqlite_only_in_storage() {
         "SQLite or SQL outside src/storage:\n{}",
         found.join("\n")
     );
+}
+
+/// The SQLite implementation (`storage::Store`) is named only inside `storage`: cli, analysis,
+/// schedule, report and every other module reach the database through the store's traits
+/// (`storage::PlantStore` and its parts) and open it with `storage::open` and its siblings, so a
+/// second backend is a change inside `storage` only.
+#[test]
+fn store_reached_only_through_its_traits() {
+    let found = offenders_where(|line| names_identifier(line, "Store"), &["src/storage/"]);
+    assert!(
+        found.is_empty(),
+        "the SQLite store named outside src/storage (use the traits of storage::PlantStore and \
+         storage::open):\n{}",
+        found.join("\n")
+    );
+    // Not vacuous: the modules that use the store do reach it, through the traits.
+    let users = offenders(&["PlantStore"], &["src/storage/"]);
+    for dir in ["src/cli/", "src/analysis/", "src/schedule/"] {
+        assert!(
+            users.iter().any(|u| u.starts_with(dir)),
+            "no use of storage::PlantStore found in {dir}: is the scan reading the sources?"
+        );
+    }
+}
+
+/// No SQLite type in a public signature of `storage` either (a `pub` item, not `pub(crate)` or
+/// `pub(super)`): the traits and the types they carry are all that leaves the module.
+#[test]
+fn no_sqlite_type_in_public_storage_signatures() {
+    let root = Path::new(env!("CARGO_MANIFEST_DIR"));
+    let mut files = Vec::new();
+    sources(&root.join("src/storage"), &mut files);
+    assert!(files.len() >= 5, "storage sources not found");
+    let sqlite = [
+        "rusqlite",
+        "Connection",
+        "Transaction",
+        "Row<",
+        "&Row",
+        "Statement",
+    ];
+    let mut found = Vec::new();
+    for f in &files {
+        let mut signature = false;
+        for (n, line) in code_lines(f) {
+            let t = line.trim_start();
+            // A public item's signature runs from its `pub` line to its opening brace or `;`.
+            if t.starts_with("pub ") {
+                signature = true;
+            }
+            if signature && sqlite.iter().any(|s| t.contains(s)) {
+                found.push(format!("{}:{n}: {}", f.display(), t));
+            }
+            if signature && (t.ends_with('{') || t.ends_with(';') || t.ends_with(',')) {
+                signature = false;
+            }
+        }
+    }
+    assert!(
+        found.is_empty(),
+        "SQLite types in public signatures of src/storage:\n{}",
+        found.join("\n")
+    );
+}
+
+#[test]
+fn identifier_match_is_whole_word() {
+    assert!(names_identifier("use crate::storage::Store;", "Store"));
+    assert!(names_identifier("let s = Store::open(path)?;", "Store"));
+    assert!(names_identifier("fn f(s: &Store) {}", "Store"));
+    assert!(!names_identifier("fn f(s: &dyn PlantStore) {}", "Store"));
+    assert!(!names_identifier("use crate::storage::RunStore;", "Store"));
+    assert!(!names_identifier("let run: StoredRun = x;", "Store"));
 }
 
 #[test]

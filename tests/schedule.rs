@@ -18,7 +18,7 @@ use samewise::results::{TestResult, TestState};
 use samewise::schedule::{self, Clock, PeriodOutcome, PeriodRunner, SchedulerOptions};
 use samewise::storage::runs::{RunContent, RunHeader};
 use samewise::storage::RunStore;
-use samewise::storage::Store;
+use samewise::storage::{PlantStore, Store};
 
 const CONFIG: &str = r#"
 [plant]
@@ -87,7 +87,10 @@ struct Recorder {
 }
 
 impl PeriodRunner for Recorder {
-    fn first_measurement(&mut self, _store: &Store) -> samewise::Result<Option<DateTime<Utc>>> {
+    fn first_measurement(
+        &mut self,
+        _store: &dyn PlantStore,
+    ) -> samewise::Result<Option<DateTime<Utc>>> {
         Ok(Some(self.first))
     }
     fn header(&self, schedule: &ScheduleConfig, period: &Period) -> RunHeader {
@@ -105,7 +108,7 @@ impl PeriodRunner for Recorder {
     }
     fn compute(
         &mut self,
-        _store: &Store,
+        _store: &dyn PlantStore,
         schedule: &ScheduleConfig,
         period: &Period,
     ) -> samewise::Result<RunContent> {

@@ -35,7 +35,8 @@ use chrono::{DateTime, Utc};
 use crate::config::Config;
 use crate::model::{Finding, FindingStatus, PeriodKind};
 use crate::stats::changepoint::{scan, step_rss, trend_onset, ScanOptions};
-use crate::storage::{FlagHistoryRow, Store};
+use crate::storage::FlagHistoryRow;
+use crate::storage::PlantStore;
 use crate::Result;
 
 use crate::results::TestState;
@@ -79,7 +80,7 @@ fn is_verdict(state: TestState) -> bool {
 /// Rebuilds the findings of `kind` from the stored run history and saves the new and changed
 /// ones; `now` stamps them.
 pub fn update_findings(
-    store: &mut Store,
+    store: &mut dyn PlantStore,
     config: &Config,
     kind: PeriodKind,
     now: DateTime<Utc>,
@@ -301,7 +302,7 @@ fn finding_of(
 
 /// The onset of the episode: a change-point scan of the group's offset from the other groups.
 fn onset_of(
-    store: &Store,
+    store: &dyn PlantStore,
     test: &[FlagHistoryRow],
     level: &str,
     w: &Walk,

@@ -22,7 +22,8 @@ use crate::stats::spread::brown_forsythe;
 use crate::stats::twoway::{two_way_values, TwoWay};
 use crate::stats::variance_components::{one_way_random, VarianceComponents};
 use crate::stats::{Stat, TestResult, Unavailable};
-use crate::storage::{Event, Store};
+use crate::storage::Event;
+use crate::storage::PlantStore;
 use crate::{Error, Result};
 
 /// One characteristic's values in a window: time order is not required.
@@ -501,7 +502,7 @@ fn concerns(event: &Event, characteristic: &str, factor: &str, level: &str) -> b
 /// Errors: unknown characteristic or factor (with the known names), unknown event id, an empty
 /// window, and every case [`compare`] rejects (the change outside the data, too little data on one
 /// side).
-pub fn investigate(store: &Store, request: &Request) -> Result<Investigation> {
+pub fn investigate(store: &dyn PlantStore, request: &Request) -> Result<Investigation> {
     let (event, start, end, change) = match &request.target {
         Target::Event(id) => {
             let events = store.events_including_removed()?;

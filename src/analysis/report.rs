@@ -29,8 +29,7 @@ use crate::results::TestState;
 use crate::results::{PairResult, TestResult};
 use crate::stats::decimal::Decimal;
 use crate::storage::runs::{RunContent, StoredRun};
-use crate::storage::RunStore;
-use crate::storage::Store;
+use crate::storage::PlantStore;
 use crate::{Error, Result};
 
 /// Confidence of the intervals of group means drawn in the charts.
@@ -71,7 +70,7 @@ fn ms(v: i64) -> DateTime<Utc> {
 
 /// The latest complete run (with content) of every `kind` period starting in `[from, to)`.
 pub fn load_runs(
-    store: &Store,
+    store: &dyn PlantStore,
     kind: PeriodKind,
     from: DateTime<Utc>,
     to: DateTime<Utc>,
@@ -183,7 +182,7 @@ fn group_points(t: &TestResult) -> Vec<GroupPoint> {
 
 /// Events in `[from, to)` that concern `characteristic` (or no characteristic in particular).
 pub fn event_markers(
-    store: &Store,
+    store: &dyn PlantStore,
     characteristic: Option<&str>,
     from: DateTime<Utc>,
     to: DateTime<Utc>,
@@ -206,7 +205,7 @@ pub fn event_markers(
 /// against the tolerance first, each with its month trend (the group highlighted) and the pairs
 /// of its last flagged day in the month whose interval excludes 0.
 fn finding_items(
-    store: &Store,
+    store: &dyn PlantStore,
     config: &Config,
     month: &Period,
     loaded: &[LoadedRun],
@@ -414,7 +413,7 @@ fn share_from_runs(
 /// latest complete run of each `kind` period starting in `[from, to)`, and the events of that
 /// range that concern the characteristic.
 fn chart_runs<'c>(
-    store: &Store,
+    store: &dyn PlantStore,
     config: &'c Config,
     characteristic: &str,
     factor: &str,
@@ -442,7 +441,7 @@ fn chart_names<'c>(
 /// The group trend of `characteristic` by `factor` over the `kind` periods starting in
 /// `[from, to)`, from the latest complete run of each, with the events of that range.
 pub fn trend_input(
-    store: &Store,
+    store: &dyn PlantStore,
     config: &Config,
     characteristic: &str,
     factor: &str,
@@ -457,7 +456,7 @@ pub fn trend_input(
 /// The between-group share of `characteristic` by `factor` over the `kind` periods starting in
 /// `[from, to)`.
 pub fn share_input(
-    store: &Store,
+    store: &dyn PlantStore,
     config: &Config,
     characteristic: &str,
     factor: &str,
@@ -527,7 +526,7 @@ fn grid_from_runs(
 
 /// The month grid: one row per active characteristic x factor, one column per production day of
 /// the month, each cell the state of the latest complete daily run ("not run" where none).
-pub fn grid_input(store: &Store, config: &Config, month: &Period) -> Result<GridInput> {
+pub fn grid_input(store: &dyn PlantStore, config: &Config, month: &Period) -> Result<GridInput> {
     let loaded = load_runs(store, PeriodKind::Day, month.start, month.end)?;
     Ok(month_grid(config, month, &loaded))
 }
@@ -543,7 +542,7 @@ fn month_grid(config: &Config, month: &Period, loaded: &[LoadedRun]) -> GridInpu
 type LevelValues = Vec<(String, Vec<(i64, f64)>)>;
 
 fn values_by_level(
-    store: &Store,
+    store: &dyn PlantStore,
     characteristic: &str,
     factor: &str,
     start: DateTime<Utc>,
@@ -618,7 +617,7 @@ fn mean_sd(values: &[f64]) -> (f64, Option<f64>) {
 /// The period detail of `characteristic` by `factor`: every value of the period per group with
 /// the group mean and its 95% interval, the grand mean, and the residuals (value minus group mean).
 pub fn detail_input(
-    store: &Store,
+    store: &dyn PlantStore,
     config: &Config,
     characteristic: &str,
     factor: &str,
@@ -685,7 +684,7 @@ const MAX_POINTS_PER_GROUP: usize = 400;
 /// `event_id`, per group, with the group's mean before and after the event. Groups with many
 /// values are shown as production-day means (the means before/after are always of the values).
 pub fn before_after_input(
-    store: &Store,
+    store: &dyn PlantStore,
     config: &Config,
     characteristic: &str,
     factor: &str,
@@ -854,7 +853,7 @@ pub const EVENT_WINDOW_DAYS: i64 = 7;
 /// plant calendar). The checks counted are the month's daily runs (latest complete version of
 /// each day); `generated` is the text shown as the report's date (the caller reads the clock).
 pub fn month_report(
-    store: &Store,
+    store: &dyn PlantStore,
     config: &Config,
     month: &Period,
     generated: &str,
@@ -1070,7 +1069,7 @@ fn fmt(v: Option<f64>) -> String {
 }
 
 fn coverage(
-    store: &Store,
+    store: &dyn PlantStore,
     calendar: &PlantCalendar,
     month: &Period,
     days: &[NaiveDate],
@@ -1100,7 +1099,7 @@ fn coverage(
 
 /// Builds the month report and writes it as one self-contained HTML file.
 pub fn write_month_report(
-    store: &Store,
+    store: &dyn PlantStore,
     config: &Config,
     month: &Period,
     generated: &str,
@@ -1130,7 +1129,7 @@ pub struct ChartStory<'a> {
 /// day and the before/after of `story.before_after` around the first event naming its
 /// characteristic. A chart whose data is missing is skipped and named in the second list.
 pub fn write_story_charts(
-    store: &Store,
+    store: &dyn PlantStore,
     config: &Config,
     month: &Period,
     story: &ChartStory<'_>,

@@ -16,8 +16,7 @@ use crate::schedule::lifecycle::{self, Acquired, Finished, Lease};
 use crate::schedule::PeriodRunner;
 use crate::storage::runs::{self, RunContent, RunHeader, StoredRun};
 use crate::storage::PeriodFrame;
-use crate::storage::RunStore;
-use crate::storage::Store;
+use crate::storage::{MeasurementStore, PlantStore};
 use crate::Result;
 
 /// A frame from the store's period frame (moves the columns, no copy).
@@ -54,7 +53,7 @@ pub fn config_hash(config: &Config) -> String {
 /// Flagged (characteristic, factor) pairs of the latest complete run of the period before
 /// `period` (`None` when it has no complete run). Ranges have no previous period of the same kind.
 pub fn previous_flags(
-    store: &Store,
+    store: &dyn PlantStore,
     calendar: &PlantCalendar,
     period: &Period,
 ) -> Result<Option<HashSet<(String, String)>>> {
@@ -77,12 +76,12 @@ pub const CHARACTERISTICS_PER_PART: usize = 5;
 /// Runs the check of one period (nothing is written).
 ///
 /// The period is loaded in parts of [`CHARACTERISTICS_PER_PART`] characteristics
-/// ([`Store::load_period`] of their names) on the calling thread while worker threads analyse
+/// ([`MeasurementStore::load_period`] of their names) on the calling thread while worker threads analyse
 /// the parts already loaded ([`check_frames`]): loading and statistics overlap, and memory holds
 /// only the parts in flight instead of the whole period. The result is the same as checking one
 /// frame of every characteristic (each test uses only the levels present in its values).
 pub fn run_check(
-    store: &Store,
+    store: &dyn PlantStore,
     config: &Config,
     period: &Period,
     options: &CheckOptions,
@@ -99,26 +98,25 @@ pub fn run_check(
     };
     let prev = previous_flags(store, &calendar, period)?;
     let chunks: Vec<&[String]> = names.chunks(CHARACTERISTICS_PER_PART).collect();
-    let load = |s: &Store, chunk: &[String]| {
-        s.load_period(period.start, period.end, Some(chunk))
-            .map(|pf| Arc::new(frame_from(pf)))
+    // A second reader only where it can help (two workers, two parts) and the backend has one.
+    let opener = if worker_count(options) >= 2 && chunks.len() >= 2 {
+        store.reader_opener()
+    } else {
+        None
     };
-    let second_path = store
-        .path()
-        .filter(|_| worker_count(options) >= 2 && chunks.len() >= 2);
-    let Some(path) = second_path else {
-        let parts = chunks.iter().map(|chunk| load(store, chunk));
+    let Some(opener) = opener else {
+        let parts = chunks.iter().map(|chunk| load_part(store, period, chunk));
         return check_frames(parts, options, prev.as_ref());
     };
-    // Loading is the longest stage (one core's worth of SQLite reads and level look-ups), so a
-    // second connection loads the odd-numbered parts on its own thread while this one loads the
+    // Loading is the longest stage (one core's worth of database reads and level look-ups), so
+    // a second reader (opened on that thread) loads the odd-numbered parts on its own thread while this one loads the
     // even ones; the parts reach the workers in their order either way, so the run is the same.
     // Each part is one read of the database, as with a single loader.
     std::thread::scope(|scope| {
         let (tx, rx) = std::sync::mpsc::sync_channel(1);
         let odd: Vec<&[String]> = chunks.iter().skip(1).step_by(2).copied().collect();
         scope.spawn(move || {
-            let second = match Store::open(path) {
+            let second = match opener() {
                 Ok(s) => s,
                 Err(e) => {
                     let _ = tx.send(Err(e));
@@ -127,14 +125,14 @@ pub fn run_check(
             };
             for chunk in odd {
                 // A closed channel means the check stopped early (an error elsewhere).
-                if tx.send(load(&second, chunk)).is_err() {
+                if tx.send(load_part(&*second, period, chunk)).is_err() {
                     return;
                 }
             }
         });
         let parts = chunks.iter().enumerate().map(|(i, chunk)| {
             if i % 2 == 0 {
-                load(store, chunk)
+                load_part(store, period, chunk)
             } else {
                 rx.recv().unwrap_or_else(|_| {
                     Err(crate::Error::Database(
@@ -147,6 +145,19 @@ pub fn run_check(
         drop(rx);
         result
     })
+}
+
+/// One part of a period, loaded and turned into a frame. Generic rather than over
+/// `&dyn MeasurementStore`, so that a `&dyn PlantStore` needs no trait upcasting (Rust 1.86;
+/// `rust-version` is 1.85).
+fn load_part<S: MeasurementStore + ?Sized>(
+    store: &S,
+    period: &Period,
+    chunk: &[String],
+) -> Result<Arc<Frame>> {
+    store
+        .load_period(period.start, period.end, Some(chunk))
+        .map(|pf| Arc::new(frame_from(pf)))
 }
 
 /// The run row for a period.
@@ -173,7 +184,7 @@ pub fn header(
 /// results in one transaction; on failure the run is marked failed with the error, and the error
 /// is returned. `now` gives the start and end instants.
 pub fn check_and_record(
-    store: &mut Store,
+    store: &mut dyn PlantStore,
     config: &Config,
     period: &Period,
     options: &CheckOptions,
@@ -243,7 +254,7 @@ impl<'a> EngineRunner<'a> {
 }
 
 impl PeriodRunner for EngineRunner<'_> {
-    fn first_measurement(&mut self, store: &Store) -> Result<Option<DateTime<Utc>>> {
+    fn first_measurement(&mut self, store: &dyn PlantStore) -> Result<Option<DateTime<Utc>>> {
         Ok(store
             .first_measurement_ms()?
             .and_then(DateTime::from_timestamp_millis))
@@ -260,7 +271,7 @@ impl PeriodRunner for EngineRunner<'_> {
 
     fn compute(
         &mut self,
-        store: &Store,
+        store: &dyn PlantStore,
         schedule: &ScheduleConfig,
         period: &Period,
     ) -> Result<RunContent> {

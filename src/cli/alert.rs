@@ -11,7 +11,8 @@ use chrono::{DateTime, Utc};
 use serde_json::Value;
 
 use crate::config::AlertConfig;
-use crate::storage::{AlertRecord, Store};
+use crate::storage::AlertRecord;
+use crate::storage::PlantStore;
 
 /// Most bytes of the command's stderr kept in the log.
 const STDERR_KEPT: usize = 2000;
@@ -19,7 +20,7 @@ const STDERR_KEPT: usize = 2000;
 /// Runs the alert command with `document` on its stdin; records and describes the outcome.
 /// `now` reads the wall clock (start and end are recorded).
 pub fn run_alert(
-    store: &Store,
+    store: &dyn PlantStore,
     alert: &AlertConfig,
     document: &Value,
     n_findings: u32,

@@ -113,7 +113,11 @@ fn range(args: &ChartArgs, calendar: &PlantCalendar) -> Result<Period> {
 }
 
 /// Renders the chart the flags ask for.
-pub fn render(args: &ChartArgs, config: &Config, store: &crate::storage::Store) -> Result<Vec<u8>> {
+pub fn render(
+    args: &ChartArgs,
+    config: &Config,
+    store: &dyn crate::storage::PlantStore,
+) -> Result<Vec<u8>> {
     let format = Format::from_path(&args.out).ok_or_else(|| {
         Error::Usage(format!(
             "--out {}: the file name must end in .svg or .png",
@@ -219,7 +223,7 @@ pub fn run(args: &ChartArgs) -> Result<ExitCode> {
     let protected = crate::output::Protected::plant(&config.plant.database, &config.path);
     crate::output::refuse_protected(&args.out, "--out", &protected)?;
     let store = super::common::open_store(&config)?;
-    let bytes = render(args, &config, &store)?;
+    let bytes = render(args, &config, &*store)?;
     crate::report::write_chart(&args.out, &bytes)?;
     let mut out = std::io::stdout().lock();
     if let Err(e) = writeln!(out, "wrote {} ({} bytes)", args.out.display(), bytes.len()) {

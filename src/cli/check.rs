@@ -22,7 +22,6 @@ use crate::output::{refuse_protected, AtomicFile, Protected};
 use crate::results::TestResult;
 use crate::stats::fdr::FdrMethod;
 use crate::storage::runs::{RunContent, StoredRun};
-use crate::storage::RunStore;
 use crate::{Error, Result};
 
 /// Flags of `samewise check`.
@@ -118,7 +117,7 @@ pub fn run(args: &CheckArgs) -> Result<ExitCode> {
                 ))
             })?
     } else {
-        check_and_record(&mut store, &config, &period, &options, &Utc::now)?
+        check_and_record(&mut *store, &config, &period, &options, &Utc::now)?
     };
     if let Some(path) = &args.csv {
         write_csv(path, &config, &period, &run, &content)?;
@@ -129,7 +128,7 @@ pub fn run(args: &CheckArgs) -> Result<ExitCode> {
         (None, serde_json::Value::Null)
     } else {
         let update = crate::analysis::findings::update_findings(
-            &mut store,
+            &mut *store,
             &config,
             period.kind,
             Utc::now(),
@@ -137,7 +136,7 @@ pub fn run(args: &CheckArgs) -> Result<ExitCode> {
         let tz = config.plant.time_zone;
         let list = |v: &[crate::model::Finding]| -> Result<Vec<serde_json::Value>> {
             v.iter()
-                .map(|f| super::findings::finding_json(&store, f, tz))
+                .map(|f| super::findings::finding_json(&*store, f, tz))
                 .collect()
         };
         let doc = serde_json::json!({
@@ -146,7 +145,7 @@ pub fn run(args: &CheckArgs) -> Result<ExitCode> {
             "open": update.open.iter().map(|f| f.id).collect::<Vec<_>>(),
         });
         (
-            Some(super::findings::summary_lines(&store, tz, &update)?),
+            Some(super::findings::summary_lines(&*store, tz, &update)?),
             doc,
         )
     };

@@ -7,7 +7,7 @@
 use std::path::{Path, PathBuf};
 
 use crate::config::Config;
-use crate::storage::Store;
+use crate::storage::PlantStore;
 use crate::{Error, Result};
 
 /// The environment variable naming the configuration file.
@@ -71,7 +71,7 @@ pub fn database_in_use() -> Option<PathBuf> {
 
 /// Opens the configuration's existing database (an error suggesting `samewise init` if there is
 /// none yet).
-pub fn open_store(config: &Config) -> Result<Store> {
+pub fn open_store(config: &Config) -> Result<Box<dyn PlantStore>> {
     note_database(&config.plant.database);
-    Store::open(&config.plant.database)
+    crate::storage::open(config)
 }

@@ -27,8 +27,8 @@ use crate::ingest;
 use crate::sample;
 use crate::schedule::{self, PeriodOutcome, SchedulerOptions, SimulatedClock};
 use crate::storage::ImportOptions;
-use crate::storage::RunStore;
-use crate::storage::{NewEvent, Store};
+use crate::storage::NewEvent;
+use crate::storage::{BoxedStore, PlantStore};
 use crate::{Error, Result};
 
 /// The sample configuration, as committed in `sample-plant/plant.toml`.
@@ -77,7 +77,10 @@ fn bar(len: u64, quiet: bool, what: &str) -> ProgressBar {
 }
 
 /// Writes the configuration and exports, creates the database and imports everything.
-pub fn prepare(dir: &Path, quiet: bool) -> Result<(Config, Store, Vec<PathBuf>, ImportTotals)> {
+pub fn prepare(
+    dir: &Path,
+    quiet: bool,
+) -> Result<(Config, BoxedStore, Vec<PathBuf>, ImportTotals)> {
     fs::create_dir_all(dir).map_err(|e| Error::io(dir, e))?;
     let config_path = dir.join("plant.toml");
     fs::write(&config_path, SAMPLE_CONFIG).map_err(|e| Error::io(&config_path, e))?;
@@ -92,7 +95,7 @@ pub fn prepare(dir: &Path, quiet: bool) -> Result<(Config, Store, Vec<PathBuf>, 
     }
     let exports_dir = dir.join("exports");
     let exports = sample::write_exports(&exports_dir).map_err(|e| Error::io(&exports_dir, e))?;
-    let mut store = Store::create(&config.plant.database, &config)?;
+    let mut store = crate::storage::create(&config)?;
 
     let mut totals = ImportTotals::default();
     let pb = bar(exports.len() as u64, quiet, "importing exports");
@@ -156,7 +159,11 @@ pub fn demo_now() -> chrono::DateTime<Utc> {
 }
 
 /// Runs the scheduler's catch-up over every due period; returns (completed, failed).
-pub fn catch_up(store: &mut Store, config: &Config, quiet: bool) -> Result<(usize, usize)> {
+pub fn catch_up(
+    store: &mut dyn PlantStore,
+    config: &Config,
+    quiet: bool,
+) -> Result<(usize, usize)> {
     let clock = SimulatedClock::new(demo_now());
     let mut runner = EngineRunner::new(config);
     let options = SchedulerOptions::new(schedule_cli::holder_name());
@@ -220,7 +227,7 @@ pub struct Finding {
 }
 
 /// Summarises the daily history of one characteristic x factor.
-pub fn finding(store: &Store, characteristic: &str, factor: &str) -> Result<Finding> {
+pub fn finding(store: &dyn PlantStore, characteristic: &str, factor: &str) -> Result<Finding> {
     let points = store.history(characteristic, factor, "day", 10_000)?;
     let mut levels: BTreeMap<String, usize> = BTreeMap::new();
     let mut f = Finding {
@@ -281,7 +288,7 @@ pub fn run(args: &DemoArgs) -> Result<ExitCode> {
         sample::events().len()
     );
 
-    let (completed, failed) = catch_up(&mut store, &config, args.quiet)?;
+    let (completed, failed) = catch_up(&mut *store, &config, args.quiet)?;
     println!(
         "\n3. Scheduler catch-up at {}: {completed} periods checked ({} schedules: {}), {failed} failed.",
         demo_now().format("%Y-%m-%d %H:%M UTC"),
@@ -302,7 +309,7 @@ pub fn run(args: &DemoArgs) -> Result<ExitCode> {
         }
     }
     for kind in kinds {
-        crate::analysis::findings::update_findings(&mut store, &config, kind, demo_now())?;
+        crate::analysis::findings::update_findings(&mut *store, &config, kind, demo_now())?;
     }
 
     let calendar = PlantCalendar::new(&config);
@@ -320,7 +327,7 @@ pub fn run(args: &DemoArgs) -> Result<ExitCode> {
     }
 
     println!("\n5. What the 90 days show (the sample plant's injected effects are listed in sample-plant/README.md):");
-    let mass = finding(&store, "housing_mass", "supplier")?;
+    let mass = finding(&*store, "housing_mass", "supplier")?;
     println!(
         "   - housing_mass by supplier: flagged on {} of {} days; {} stands out most often ({} days).",
         mass.days_flagged,
@@ -328,7 +335,7 @@ pub fn run(args: &DemoArgs) -> Result<ExitCode> {
         mass.top_level.as_ref().map_or("no supplier", |l| l.0.as_str()),
         mass.top_level.as_ref().map_or(0, |l| l.1)
     );
-    let bore = finding(&store, "bore_diameter", "machine")?;
+    let bore = finding(&*store, "bore_diameter", "machine")?;
     let change = sample::tooling_change_day().format("%Y-%m-%d").to_string();
     let points = store.history("bore_diameter", "machine", "day", 10_000)?;
     let before = points
@@ -352,7 +359,7 @@ pub fn run(args: &DemoArgs) -> Result<ExitCode> {
             .filter(|l| l.0 == "M4")
             .map_or(0, |l| l.1)
     );
-    let wall = finding(&store, "wall_thickness", "shift")?;
+    let wall = finding(&*store, "wall_thickness", "shift")?;
     println!(
         "   - wall_thickness by shift: the spread differs (Brown-Forsythe p < 0.05) on {} of {} days; \
          the means differ on {} (a spread difference, not an offset: see the group SDs with samewise check).",
@@ -370,7 +377,7 @@ pub fn run(args: &DemoArgs) -> Result<ExitCode> {
             if injected.contains(&(c.name.as_str(), f.name.as_str())) {
                 continue;
             }
-            let n = finding(&store, &c.name, &f.name)?;
+            let n = finding(&*store, &c.name, &f.name)?;
             null_tests += n.days;
             null_flags += n.days_flagged;
         }
@@ -407,7 +414,7 @@ pub fn run(args: &DemoArgs) -> Result<ExitCode> {
     let month = calendar.month(2026, 11)?;
     let report_path = args.dir.join(format!("review-{}.html", month.label));
     let generated = format!("samewise {} demo", env!("CARGO_PKG_VERSION"));
-    report_analysis::write_month_report(&store, &config, &month, &generated, &report_path)?;
+    report_analysis::write_month_report(&*store, &config, &month, &generated, &report_path)?;
     let charts_dir = args.dir.join("charts");
     fs::create_dir_all(&charts_dir).map_err(|e| Error::io(&charts_dir, e))?;
     // The sample plant's story: the machine 4 bore drift, the supplier mass offset.
@@ -417,7 +424,7 @@ pub fn run(args: &DemoArgs) -> Result<ExitCode> {
         before_after: ("bore_diameter", "machine"),
     };
     let (charts, skipped) =
-        report_analysis::write_story_charts(&store, &config, &month, &story, &charts_dir)?;
+        report_analysis::write_story_charts(&*store, &config, &month, &story, &charts_dir)?;
     println!(
         "\n6. The monthly review report: {}\n   charts ({}): {}",
         report_path.display(),
@@ -427,7 +434,7 @@ pub fn run(args: &DemoArgs) -> Result<ExitCode> {
     for s in &skipped {
         println!("   chart not drawn: {s}");
     }
-    let without = without_subgroups(&args.dir, &exports, &store)?;
+    let without = without_subgroups(&args.dir, &exports, &*store)?;
     println!(
         "\n7. The same exports read as if they had no shot columns (plant-no-subgroups.toml, the last {} days): \
          the values look independent to the check, but the dependence check finds neighbouring parts alike in {} of {} tests; \
@@ -471,7 +478,11 @@ struct WithoutSubgroups {
 /// Imports the exports again under a configuration without the `subgroup` lines (a database of
 /// its own) and checks the last 14 days there, without storing runs; counts beside the stored
 /// daily runs of the same days.
-fn without_subgroups(dir: &Path, exports: &[PathBuf], store: &Store) -> Result<WithoutSubgroups> {
+fn without_subgroups(
+    dir: &Path,
+    exports: &[PathBuf],
+    store: &dyn PlantStore,
+) -> Result<WithoutSubgroups> {
     let text: String = SAMPLE_CONFIG
         .lines()
         .filter(|l| !l.starts_with("subgroup ="))
@@ -495,7 +506,7 @@ fn without_subgroups(dir: &Path, exports: &[PathBuf], store: &Store) -> Result<W
             fs::remove_file(&p).map_err(|e| Error::io(&p, e))?;
         }
     }
-    let mut bare_store = Store::create(&bare.plant.database, &bare)?;
+    let mut bare_store = crate::storage::create(&bare)?;
     for export in exports {
         let stream = ingest::read_file(export, &bare, None)?;
         bare_store.import(

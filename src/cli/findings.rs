@@ -16,7 +16,7 @@ use crate::calendar::PlantCalendar;
 use crate::config::Config;
 use crate::model::{Finding, FindingStatus, PeriodKind};
 use crate::output::{refuse_protected, AtomicFile, Protected};
-use crate::storage::Store;
+use crate::storage::PlantStore;
 use crate::{Error, Result};
 
 use super::common::{load_config, open_store};
@@ -108,7 +108,7 @@ pub fn run(args: &FindingsArgs, now: DateTime<Utc>) -> Result<ExitCode> {
     if args.json {
         let rows = findings
             .iter()
-            .map(|f| finding_json(&store, f, tz))
+            .map(|f| finding_json(&*store, f, tz))
             .collect::<Result<Vec<_>>>()?;
         println!(
             "{}",
@@ -123,7 +123,7 @@ pub fn run(args: &FindingsArgs, now: DateTime<Utc>) -> Result<ExitCode> {
         println!("{} findings written to {}", findings.len(), path.display());
         return Ok(ExitCode::from(super::EXIT_OK));
     }
-    print_text(&store, &config, &findings, args)?;
+    print_text(&*store, &config, &findings, args)?;
     Ok(ExitCode::from(super::EXIT_OK))
 }
 
@@ -182,7 +182,7 @@ fn opt_num(map: &mut Map<String, Value>, key: &str, v: Option<f64>, reason: &str
 
 /// One finding as JSON: every field, times RFC 3339 with the plant's offset, every `null` with a
 /// sibling `<name>_reason`.
-pub fn finding_json(store: &Store, f: &Finding, tz: Tz) -> Result<Value> {
+pub fn finding_json(store: &dyn PlantStore, f: &Finding, tz: Tz) -> Result<Value> {
     let mut m = Map::new();
     m.insert("id".into(), json!(f.id));
     m.insert("status".into(), json!(f.status.as_str()));
@@ -426,7 +426,7 @@ pub fn finding_lines(f: &Finding, tz: Tz, notes: &[(DateTime<Utc>, String)]) -> 
 }
 
 fn print_text(
-    store: &Store,
+    store: &dyn PlantStore,
     config: &Config,
     findings: &[Finding],
     args: &FindingsArgs,
@@ -463,7 +463,7 @@ fn print_text(
 /// The daily summary's opening block: the findings a check or a scheduler pass made new or
 /// closed or reopened, then the open ones in a line each.
 pub fn summary_lines(
-    store: &Store,
+    store: &dyn PlantStore,
     tz: Tz,
     update: &crate::analysis::findings::FindingsUpdate,
 ) -> Result<Vec<String>> {
@@ -529,7 +529,7 @@ pub fn summary_lines(
 
 /// The alert command's input: the new and changed findings as one JSON document.
 pub fn alert_document(
-    store: &Store,
+    store: &dyn PlantStore,
     config: &Config,
     update: &crate::analysis::findings::FindingsUpdate,
     now: DateTime<Utc>,

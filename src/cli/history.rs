@@ -12,7 +12,6 @@ use super::check::{cell, leading, share, standout};
 use super::vocab::{self, RunKind};
 use crate::results::TestState;
 use crate::storage::runs;
-use crate::storage::RunStore;
 use crate::{Error, Result};
 
 /// Flags of `samewise history`.

@@ -14,7 +14,8 @@ use clap::{Args, Subcommand};
 
 use crate::ingest::{self, ReadOptions};
 use crate::output::{refuse_protected, AtomicFile, Protected};
-use crate::storage::{ImportOptions, Store};
+use crate::storage::ImportOptions;
+use crate::storage::PlantStore;
 use crate::{Error, Result};
 
 use super::common::load_config;
@@ -113,7 +114,7 @@ pub fn run(args: &ImportArgs) -> Result<ExitCode> {
     let mut failures = 0;
     let mut stored = Vec::new();
     for file in &args.files {
-        match import_one(&mut store, &config, args, file, rejects.as_mut()) {
+        match import_one(&mut *store, &config, args, file, rejects.as_mut()) {
             Ok(import_id) => {
                 let name = if file.as_os_str() == "-" {
                     STDIN_NAME.to_string()
@@ -321,7 +322,7 @@ fn open_input(file: &Path) -> Result<(Box<dyn std::io::Read + Send>, PathBuf, bo
 }
 
 fn import_one(
-    store: &mut Store,
+    store: &mut dyn PlantStore,
     config: &crate::config::Config,
     args: &ImportArgs,
     file: &Path,

@@ -6,7 +6,7 @@ use std::process::ExitCode;
 
 use clap::Args;
 
-use crate::storage::{migrate, Store};
+use crate::storage::{self, migrate};
 use crate::Result;
 
 use super::common::load_config;
@@ -21,14 +21,14 @@ pub fn run(_args: &InitArgs) -> Result<ExitCode> {
     let db = &config.plant.database;
     super::common::note_database(db);
     // A 0-byte or table-less file holds nothing: the database is created in it. Another
-    // program's database is refused (by `Store::open_or_create`).
-    let existed = db.exists() && !Store::is_empty_file(db)?;
+    // program's database is refused (by `storage::open_or_create`).
+    let existed = storage::exists(&config)?;
     let before = if existed {
-        Some(Store::open(db)?.schema_version()?)
+        Some(storage::open(&config)?.schema_version()?)
     } else {
         None
     };
-    let mut store = Store::open_or_create(db)?;
+    let mut store = storage::open_or_create(&config)?;
     let report = store.sync_config(&config)?;
     let version = store.schema_version()?;
     match before {

@@ -126,7 +126,7 @@ pub fn run(args: &InvestigateArgs, now: DateTime<Utc>) -> Result<ExitCode> {
             ..ScanOptions::default()
         },
     };
-    let found = investigate(&store, &request)?;
+    let found = investigate(&*store, &request)?;
     let ctx = Context {
         characteristic: found.characteristic.name.clone(),
         unit: found.characteristic.unit.clone(),

@@ -50,7 +50,7 @@ pub fn run(args: &ReportArgs, now: chrono::DateTime<chrono::Utc>) -> Result<Exit
     let month = parse_month(&calendar, &args.month)?;
     let store = super::common::open_store(&config)?;
     let generated = now.format("%Y-%m-%d %H:%M UTC").to_string();
-    let r = report::write_month_report(&store, &config, &month, &generated, &args.out)?;
+    let r = report::write_month_report(&*store, &config, &month, &generated, &args.out)?;
     let mut out = std::io::stdout().lock();
     let body = writeln!(
         out,

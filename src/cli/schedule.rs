@@ -17,7 +17,7 @@ use crate::analysis::run::EngineRunner;
 use crate::config::Config;
 use crate::model::PeriodKind;
 use crate::schedule::{self, Clock, PassEntry, PeriodOutcome, SchedulerOptions, SimulatedClock};
-use crate::storage::Store;
+use crate::storage::PlantStore;
 use crate::{Error, Result};
 
 /// Flags of `samewise schedule`.
@@ -139,7 +139,7 @@ pub fn run(args: &ScheduleArgs) -> Result<ExitCode> {
                 None => &wall,
             };
             let entries = schedule::run_pass_with_progress(
-                &mut store,
+                &mut *store,
                 &config,
                 clock,
                 &mut runner,
@@ -148,7 +148,7 @@ pub fn run(args: &ScheduleArgs) -> Result<ExitCode> {
                 &mut log,
                 &mut progress,
             )?;
-            after_pass(&mut store, &config, &entries, &mut log);
+            after_pass(&mut *store, &config, &entries, &mut log);
             entries
         }
         ScheduleAction::Run { since } => {
@@ -158,11 +158,11 @@ pub fn run(args: &ScheduleArgs) -> Result<ExitCode> {
                 .transpose()?;
             let clock = WallClock { stop: stop.clone() };
             let mut after =
-                |store: &mut Store, entries: &[PassEntry], log: &mut dyn FnMut(&str)| {
+                |store: &mut dyn PlantStore, entries: &[PassEntry], log: &mut dyn FnMut(&str)| {
                     after_pass(store, &config, entries, log)
                 };
             schedule::run_forever_with(
-                &mut store,
+                &mut *store,
                 &config,
                 &clock,
                 &mut runner,
@@ -225,7 +225,7 @@ pub fn run(args: &ScheduleArgs) -> Result<ExitCode> {
 /// up to date and logged, and the `[alert]` command gets the new, closed and reopened ones.
 /// Nothing here fails the pass: a problem is logged.
 fn after_pass(
-    store: &mut Store,
+    store: &mut dyn PlantStore,
     config: &Config,
     entries: &[PassEntry],
     log: &mut dyn FnMut(&str),

@@ -23,7 +23,7 @@ pub fn run(args: &StatusArgs) -> Result<ExitCode> {
     let store = open_store(&config)?;
     let status = store.status()?;
     if args.json {
-        return print_json(&store, &config, &status);
+        return print_json(&*store, &config, &status);
     }
     println!("database: {}", config.plant.database.display());
     println!("schema version: {}", status.schema_version);
@@ -143,7 +143,7 @@ pub fn stale_summary(stale: &[(String, String, String)]) -> String {
 
 /// `samewise status --json`.
 fn print_json(
-    store: &crate::storage::Store,
+    store: &dyn crate::storage::PlantStore,
     config: &crate::config::Config,
     status: &crate::storage::Status,
 ) -> Result<ExitCode> {

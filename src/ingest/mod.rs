@@ -164,7 +164,7 @@ pub fn read_file(
     path: impl AsRef<Path>,
     config: &Config,
     layout: Option<&str>,
-) -> Result<ImportStream<File>> {
+) -> Result<ImportStream<Box<dyn Read + Send>>> {
     read_file_with(
         path,
         config,
@@ -180,10 +180,12 @@ pub fn read_file_with(
     path: impl AsRef<Path>,
     config: &Config,
     options: &ReadOptions,
-) -> Result<ImportStream<File>> {
+) -> Result<ImportStream<Box<dyn Read + Send>>> {
     let path = path.as_ref();
     let file = File::open(path).map_err(|e| Error::io(path, e))?;
-    read_from(file, path, config, options)
+    // Boxed, so the stream goes to any store backend (`storage::ImportStore`); the stream reads
+    // 64 KiB at a time, so the indirection costs nothing measurable.
+    read_from(Box::new(file), path, config, options)
 }
 
 /// Reads CSV from any reader; `path` names it in messages. Fails as a whole only when the header

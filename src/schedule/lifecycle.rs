@@ -80,7 +80,7 @@ pub enum Finished {
 /// Runs one period while holding its lease: begins the run (`on_begin` sees it), computes it,
 /// renews the lease, then completes the run, or records why it failed. `now` is the caller's
 /// clock. The lease is not released here (the caller releases it, whatever the outcome).
-pub fn run_period<S: RunStore>(
+pub fn run_period<S: RunStore + ?Sized>(
     store: &mut S,
     lease: &Lease<'_>,
     header: &RunHeader,
@@ -116,7 +116,6 @@ pub fn run_period<S: RunStore>(
 mod tests {
     use super::*;
     use crate::results::{TestResult, TestState};
-    use crate::storage::Store;
 
     fn header() -> RunHeader {
         RunHeader {
@@ -157,31 +156,31 @@ mod tests {
 
     #[test]
     fn a_held_lease_is_not_taken_until_it_expires() {
-        let store = Store::open_in_memory().unwrap();
+        let store = crate::storage::open_in_memory().unwrap();
         assert_eq!(
-            acquire(&store, &lease("a:1:x"), 0).unwrap(),
+            acquire(&*store, &lease("a:1:x"), 0).unwrap(),
             Acquired::Taken
         );
         // Another host's holder: never taken over, only after expiry.
         assert_eq!(
-            acquire(&store, &lease("b:2:y"), 10).unwrap(),
+            acquire(&*store, &lease("b:2:y"), 10).unwrap(),
             Acquired::Held("a:1:x".into())
         );
         assert_eq!(
-            acquire(&store, &lease("b:2:y"), 2000).unwrap(),
+            acquire(&*store, &lease("b:2:y"), 2000).unwrap(),
             Acquired::Taken
         );
     }
 
     #[test]
     fn completed_failed_and_lost_lease_runs_are_recorded() {
-        let mut store = Store::open_in_memory().unwrap();
+        let mut store = crate::storage::open_in_memory().unwrap();
         let l = lease("a:1:x");
-        assert!(acquire(&store, &l, 0).unwrap().is_ours());
+        assert!(acquire(&*store, &l, 0).unwrap().is_ours());
         let now = || 5;
         let mut begun = Vec::new();
         let done = run_period(
-            &mut store,
+            &mut *store,
             &l,
             &header(),
             &now,
@@ -196,7 +195,7 @@ mod tests {
         assert_eq!(content.tests.len(), 1);
         assert_eq!(begun, [run.run_id]);
         // A failing computation: the run is failed with its error, nothing else is written.
-        let done = run_period(&mut store, &l, &header(), &now, &mut |_| {}, |_| {
+        let done = run_period(&mut *store, &l, &header(), &now, &mut |_| {}, |_| {
             Err(crate::Error::Usage("no values".into()))
         })
         .unwrap();
@@ -210,7 +209,7 @@ mod tests {
         // The lease lost during the run (expired and taken by another holder): not completed.
         let other = lease("b:2:y");
         let late = || 5000;
-        let done = run_period(&mut store, &l, &header(), &late, &mut |_| {}, |s| {
+        let done = run_period(&mut *store, &l, &header(), &late, &mut |_| {}, |s| {
             assert!(acquire(s, &other, 5000).unwrap().is_ours());
             Ok(one_test())
         })

@@ -32,8 +32,7 @@ use crate::calendar::PlantCalendar;
 use crate::config::{Config, ScheduleConfig};
 use crate::model::{Period, PeriodKind};
 use crate::storage::runs::{LeaseKey, RunContent, RunHeader};
-use crate::storage::RunStore;
-use crate::storage::Store;
+use crate::storage::PlantStore;
 use crate::{Error, Result};
 
 /// How long a lease lives without a heartbeat (the scheduler renews it before and after the
@@ -46,13 +45,13 @@ pub const RETRY_AFTER: Duration = Duration::minutes(15);
 /// What a scheduler needs to run one period: the engine, or a stand-in in tests.
 pub trait PeriodRunner {
     /// The first measurement's instant (where a schedule's periods start), `None` if no data.
-    fn first_measurement(&mut self, store: &Store) -> Result<Option<DateTime<Utc>>>;
+    fn first_measurement(&mut self, store: &dyn PlantStore) -> Result<Option<DateTime<Utc>>>;
     /// The run row to write for `period` under `schedule`.
     fn header(&self, schedule: &ScheduleConfig, period: &Period) -> RunHeader;
     /// Computes the run's content (nothing is written by the runner).
     fn compute(
         &mut self,
-        store: &Store,
+        store: &dyn PlantStore,
         schedule: &ScheduleConfig,
         period: &Period,
     ) -> Result<RunContent>;
@@ -126,7 +125,7 @@ pub fn next_due_time(
 
 /// One schedule's due periods at `now` (ended + delay, without a complete run of the schedule).
 pub fn due_periods(
-    store: &Store,
+    store: &dyn PlantStore,
     calendar: &PlantCalendar,
     schedule: &ScheduleConfig,
     first: DateTime<Utc>,
@@ -170,7 +169,7 @@ pub struct PassEntry {
 ///
 /// Stops early (after finishing the current period) when `stop` becomes true.
 pub fn run_pass(
-    store: &mut Store,
+    store: &mut dyn PlantStore,
     config: &Config,
     clock: &dyn Clock,
     runner: &mut dyn PeriodRunner,
@@ -204,7 +203,7 @@ pub struct PassProgress<'a> {
 /// [`run_pass`], telling `progress` before each period and after the last.
 #[allow(clippy::too_many_arguments)]
 pub fn run_pass_with_progress(
-    store: &mut Store,
+    store: &mut dyn PlantStore,
     config: &Config,
     clock: &dyn Clock,
     runner: &mut dyn PeriodRunner,
@@ -259,7 +258,7 @@ fn ms(t: DateTime<Utc>) -> i64 {
 }
 
 fn run_one(
-    store: &mut Store,
+    store: &mut dyn PlantStore,
     clock: &dyn Clock,
     runner: &mut dyn PeriodRunner,
     options: &SchedulerOptions,
@@ -377,7 +376,7 @@ pub fn holder_name(tag: i64) -> String {
 /// The instant the scheduler should wake up next: the earliest next due time over all
 /// schedules, or sooner when a run failed (to retry it).
 pub fn next_wake(
-    store: &mut Store,
+    store: &mut dyn PlantStore,
     config: &Config,
     now: DateTime<Utc>,
     runner: &mut dyn PeriodRunner,
@@ -406,7 +405,7 @@ pub fn next_wake(
 /// is set or the clock reaches `until` (simulations). Returns every pass entry.
 #[allow(clippy::too_many_arguments)]
 pub fn run_forever(
-    store: &mut Store,
+    store: &mut dyn PlantStore,
     config: &Config,
     clock: &dyn Clock,
     runner: &mut dyn PeriodRunner,
@@ -415,7 +414,7 @@ pub fn run_forever(
     until: Option<DateTime<Utc>>,
     log: &mut dyn FnMut(&str),
 ) -> Result<Vec<PassEntry>> {
-    let mut nothing = |_: &mut Store, _: &[PassEntry], _: &mut dyn FnMut(&str)| {};
+    let mut nothing = |_: &mut dyn PlantStore, _: &[PassEntry], _: &mut dyn FnMut(&str)| {};
     run_forever_with(
         store,
         config,
@@ -430,12 +429,12 @@ pub fn run_forever(
 }
 
 /// What runs after each pass of [`run_forever_with`] (findings and alerts, in the CLI).
-pub type AfterPass<'a> = &'a mut dyn FnMut(&mut Store, &[PassEntry], &mut dyn FnMut(&str));
+pub type AfterPass<'a> = &'a mut dyn FnMut(&mut dyn PlantStore, &[PassEntry], &mut dyn FnMut(&str));
 
 /// [`run_forever`], calling `after_pass` with each pass's entries.
 #[allow(clippy::too_many_arguments)]
 pub fn run_forever_with(
-    store: &mut Store,
+    store: &mut dyn PlantStore,
     config: &Config,
     clock: &dyn Clock,
     runner: &mut dyn PeriodRunner,

@@ -453,3 +453,85 @@ fn describe(e: &Event) -> String {
     }
     s
 }
+
+/// Process changes (events) and their audit trail: what a second backend implements. Each
+/// writing method is one transaction: the event and its history entries are written together or
+/// not at all. Removed events are kept (marked removed), never deleted.
+pub trait EventStore {
+    /// Records a new event; returns its id (ids increase). An unknown characteristic, factor or
+    /// level is a usage error naming the closest known one, and nothing is written.
+    fn add_event(&mut self, event: &NewEvent, now: DateTime<Utc>) -> Result<i64>;
+    /// Events not removed with `start <= at < end` (either bound open when `None`), in time
+    /// order then id; empty when there are none.
+    fn events(
+        &self,
+        start: Option<DateTime<Utc>>,
+        end: Option<DateTime<Utc>>,
+    ) -> Result<Vec<Event>>;
+    /// Every event, removed ones included (marked by `removed`), in time order then id.
+    fn events_including_removed(&self) -> Result<Vec<Event>>;
+    /// Event `id`, removed or not; an unknown id is an error naming it.
+    fn event(&self, id: i64) -> Result<Event>;
+    /// Corrects event `id`: every field `edit` gives is replaced and recorded in the event's
+    /// history (one entry per field whose value changes), all in one transaction. A removed
+    /// event cannot be edited. Returns the event as it is now.
+    fn edit_event(
+        &mut self,
+        id: i64,
+        edit: &EventEdit,
+        who: &str,
+        reason: Option<&str>,
+        now: DateTime<Utc>,
+    ) -> Result<Event>;
+    /// Marks event `id` removed (kept for the audit trail) with who and why; returns it.
+    fn remove_event(
+        &mut self,
+        id: i64,
+        who: &str,
+        reason: Option<&str>,
+        now: DateTime<Utc>,
+    ) -> Result<Event>;
+    /// The recorded changes of event `id` (of every event when `None`), oldest first.
+    fn event_history(&self, id: Option<i64>) -> Result<Vec<EventChange>>;
+}
+
+impl EventStore for Store {
+    fn add_event(&mut self, event: &NewEvent, now: DateTime<Utc>) -> Result<i64> {
+        Store::add_event(self, event, now)
+    }
+    fn events(
+        &self,
+        start: Option<DateTime<Utc>>,
+        end: Option<DateTime<Utc>>,
+    ) -> Result<Vec<Event>> {
+        Store::events(self, start, end)
+    }
+    fn events_including_removed(&self) -> Result<Vec<Event>> {
+        Store::events_including_removed(self)
+    }
+    fn event(&self, id: i64) -> Result<Event> {
+        Store::event(self, id)
+    }
+    fn edit_event(
+        &mut self,
+        id: i64,
+        edit: &EventEdit,
+        who: &str,
+        reason: Option<&str>,
+        now: DateTime<Utc>,
+    ) -> Result<Event> {
+        Store::edit_event(self, id, edit, who, reason, now)
+    }
+    fn remove_event(
+        &mut self,
+        id: i64,
+        who: &str,
+        reason: Option<&str>,
+        now: DateTime<Utc>,
+    ) -> Result<Event> {
+        Store::remove_event(self, id, who, reason, now)
+    }
+    fn event_history(&self, id: Option<i64>) -> Result<Vec<EventChange>> {
+        Store::event_history(self, id)
+    }
+}

@@ -320,3 +320,60 @@ impl Store {
             .optional()?)
     }
 }
+
+/// Findings (flags that persist over periods), their notes, the flag history they are built
+/// from and the alert log: what a second backend implements. Writing methods are atomic.
+pub trait FindingStore {
+    /// Every test of the latest complete version of every `kind` period, ordered by
+    /// characteristic, factor and period start; empty when no period of that kind is complete.
+    fn flag_history(&self, kind: PeriodKind) -> Result<Vec<FlagHistoryRow>>;
+    /// The groups of one stored test: (level, n, mean offset from the characteristic's origin),
+    /// in group order; empty for an unknown run or test.
+    fn group_means(&self, run_id: i64, test_idx: i64) -> Result<Vec<(String, u64, f64)>>;
+    /// The stored findings of `kind` (every kind when `None`), most recently flagged first, then
+    /// by id.
+    fn findings(&self, kind: Option<PeriodKind>) -> Result<Vec<Finding>>;
+    /// One finding by its number; `None` when there is no such finding.
+    fn finding(&self, id: i64) -> Result<Option<Finding>>;
+    /// Writes findings in one transaction (all or none): a finding with id 0 is inserted and its
+    /// id set, others are updated in place.
+    fn save_findings(&mut self, findings: &mut [Finding]) -> Result<()>;
+    /// Adds a dated note to finding `id`; an unknown id is an error and nothing is written.
+    fn add_finding_note(&mut self, id: i64, text: &str, now: DateTime<Utc>) -> Result<()>;
+    /// The notes of finding `id`, oldest first; empty when it has none.
+    fn finding_notes(&self, id: i64) -> Result<Vec<(DateTime<Utc>, String)>>;
+    /// Records one run of the alert command.
+    fn log_alert(&self, record: &AlertRecord) -> Result<()>;
+    /// The latest recorded run of the alert command; `None` before the first.
+    fn last_alert(&self) -> Result<Option<AlertRecord>>;
+}
+
+impl FindingStore for Store {
+    fn flag_history(&self, kind: PeriodKind) -> Result<Vec<FlagHistoryRow>> {
+        Store::flag_history(self, kind)
+    }
+    fn group_means(&self, run_id: i64, test_idx: i64) -> Result<Vec<(String, u64, f64)>> {
+        Store::group_means(self, run_id, test_idx)
+    }
+    fn findings(&self, kind: Option<PeriodKind>) -> Result<Vec<Finding>> {
+        Store::findings(self, kind)
+    }
+    fn finding(&self, id: i64) -> Result<Option<Finding>> {
+        Store::finding(self, id)
+    }
+    fn save_findings(&mut self, findings: &mut [Finding]) -> Result<()> {
+        Store::save_findings(self, findings)
+    }
+    fn add_finding_note(&mut self, id: i64, text: &str, now: DateTime<Utc>) -> Result<()> {
+        Store::add_finding_note(self, id, text, now)
+    }
+    fn finding_notes(&self, id: i64) -> Result<Vec<(DateTime<Utc>, String)>> {
+        Store::finding_notes(self, id)
+    }
+    fn log_alert(&self, record: &AlertRecord) -> Result<()> {
+        Store::log_alert(self, record)
+    }
+    fn last_alert(&self) -> Result<Option<AlertRecord>> {
+        Store::last_alert(self)
+    }
+}

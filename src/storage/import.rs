@@ -24,6 +24,7 @@ use crate::ingest::{ImportStream, MeasurementRef, OutcomeSink, Rejection};
 use crate::stats::decimal::Decimal;
 use crate::{Error, Result};
 
+use super::imports::{ImportRecord, UndoReport};
 use super::master::{load_characteristics, LevelSetWriter};
 use super::Store;
 
@@ -1049,6 +1050,76 @@ impl Store {
                 early_hash: early_hash_cpu,
             },
         })
+    }
+}
+
+/// A file read into the store ([`ImportStream`] over any reader, boxed so that the
+/// trait serves as a trait object; the stream buffers 64 KiB per read, so the indirection costs
+/// nothing measurable).
+pub type BoxedStream<'r> = ImportStream<Box<dyn Read + Send + 'r>>;
+
+/// Imports: writing one, finding an earlier one by content, the record of every import and
+/// undoing one. What a second backend implements; its contract:
+/// - an import is one transaction: every measurement of the stream is stored, counted as a
+///   duplicate of one already stored (same characteristic, instant and levels), or recorded as
+///   rejected (file line, column, reason, raw text), and the counts add up; on any error, or a
+///   file whose content was imported before (by SHA-256) without `force`, nothing is written;
+/// - ids of imports increase; an undo is an import record of its own;
+/// - readers never see half an import.
+pub trait ImportStore {
+    /// Imports one file (see the contract above).
+    fn import(&mut self, stream: BoxedStream<'_>, options: &ImportOptions) -> Result<ImportReport>;
+    /// [`ImportStore::import`], and unless `options.force` is set, `file` (the file the stream
+    /// reads) may be hashed on the side so that a duplicate is refused long before the end of
+    /// a large file (rolled back as one found at the end would be). `on_rejection` receives
+    /// every rejection in file order as it is recorded; an error from it ends the import with
+    /// nothing written.
+    fn import_checking_early(
+        &mut self,
+        stream: BoxedStream<'_>,
+        options: &ImportOptions,
+        file: Option<&Path>,
+        on_rejection: Option<RejectionSink<'_>>,
+    ) -> Result<ImportReport>;
+    /// The earliest import not undone of content with this SHA-256 (64 lowercase hex digits),
+    /// if any.
+    fn find_import_by_sha256(&self, sha256: &str) -> Result<Option<PriorImport>>;
+    /// The rejected rows kept for one import (at most [`MAX_KEPT_REJECTIONS`]), in file order;
+    /// empty for an import without rejections or an unknown id.
+    fn rejected_rows(&self, import_id: i64) -> Result<Vec<Rejection>>;
+    /// Every import in id order, undos included; empty for a new database.
+    fn import_records(&self) -> Result<Vec<ImportRecord>>;
+    /// Removes import `id`'s measurements and rejection records in one transaction and records
+    /// the undo, so that every checked period it touched becomes stale; the undone import keeps
+    /// its record. An unknown id, an undo, or an import undone already is refused with nothing
+    /// changed.
+    fn undo_import(&mut self, id: i64, now: DateTime<Utc>) -> Result<UndoReport>;
+}
+
+impl ImportStore for Store {
+    fn import(&mut self, stream: BoxedStream<'_>, options: &ImportOptions) -> Result<ImportReport> {
+        Store::import(self, stream, options)
+    }
+    fn import_checking_early(
+        &mut self,
+        stream: BoxedStream<'_>,
+        options: &ImportOptions,
+        file: Option<&Path>,
+        on_rejection: Option<RejectionSink<'_>>,
+    ) -> Result<ImportReport> {
+        Store::import_checking_early(self, stream, options, file, on_rejection)
+    }
+    fn find_import_by_sha256(&self, sha256: &str) -> Result<Option<PriorImport>> {
+        Store::find_import_by_sha256(self, sha256)
+    }
+    fn rejected_rows(&self, import_id: i64) -> Result<Vec<Rejection>> {
+        Store::rejected_rows(self, import_id)
+    }
+    fn import_records(&self) -> Result<Vec<ImportRecord>> {
+        Store::import_records(self)
+    }
+    fn undo_import(&mut self, id: i64, now: DateTime<Utc>) -> Result<UndoReport> {
+        Store::undo_import(self, id, now)
     }
 }
 

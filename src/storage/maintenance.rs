@@ -10,7 +10,9 @@ use rusqlite::Connection;
 use crate::{Error, Result};
 
 use super::import::PriorImport;
-use super::Store;
+use super::master::SyncReport;
+use super::{Store, WriterNote};
+use crate::config::Config;
 
 /// Stored rows of one characteristic.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -285,5 +287,61 @@ impl Store {
             let _ = std::fs::remove_file(journal);
         }
         result
+    }
+}
+
+/// Status, staleness, integrity, backup, schema and the plant configuration's master data:
+/// what a second backend implements.
+pub trait MaintenanceStore {
+    /// Row counts and time range per characteristic, last import, rejected rows, schema
+    /// version; zeros and empty ranges for a new database.
+    fn status(&self) -> Result<Status>;
+    /// Periods whose latest complete run began before an import that stored measurements inside
+    /// them or an undo that removed some: (schedule or "by hand", period kind, label), oldest
+    /// period first; empty when none is stale.
+    fn stale_periods(&self) -> Result<Vec<(String, String, String)>>;
+    /// A full consistency check (storage structure, references, counts against the import
+    /// records); reads only.
+    fn integrity_check(&self) -> Result<IntegrityReport>;
+    /// A consistent copy (one snapshot) of the whole database at `dest`, safe while others read
+    /// and write; `dest` must not exist.
+    fn backup(&self, dest: &Path) -> Result<()>;
+    /// The schema version of the database.
+    fn schema_version(&self) -> Result<u32>;
+    /// Brings characteristics, factors and levels in step with `config` in one transaction
+    /// (adds, updates, deactivates; never deletes stored data); reports what changed.
+    fn sync_config(&mut self, config: &Config) -> Result<SyncReport>;
+    /// The database file, when the backend is a local file (`None` in memory or on a server):
+    /// shown to the user and used for the writer note.
+    fn path(&self) -> Option<&Path>;
+    /// Marks a long write (an import) so that a writer that gives up waiting can name it; the
+    /// mark lasts until the returned note is dropped. `None` when the backend needs none.
+    fn note_writer(&self, what: &str, started: DateTime<Utc>) -> Option<WriterNote>;
+}
+
+impl MaintenanceStore for Store {
+    fn status(&self) -> Result<Status> {
+        Store::status(self)
+    }
+    fn stale_periods(&self) -> Result<Vec<(String, String, String)>> {
+        Store::stale_periods(self)
+    }
+    fn integrity_check(&self) -> Result<IntegrityReport> {
+        Store::integrity_check(self)
+    }
+    fn backup(&self, dest: &Path) -> Result<()> {
+        Store::backup(self, dest)
+    }
+    fn schema_version(&self) -> Result<u32> {
+        Store::schema_version(self)
+    }
+    fn sync_config(&mut self, config: &Config) -> Result<SyncReport> {
+        Store::sync_config(self, config)
+    }
+    fn path(&self) -> Option<&Path> {
+        Store::path(self)
+    }
+    fn note_writer(&self, what: &str, started: DateTime<Utc>) -> Option<WriterNote> {
+        Store::note_writer(self, what, started)
     }
 }

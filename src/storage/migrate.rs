@@ -82,7 +82,7 @@ pub enum FileKind {
 }
 
 /// Tells a samewise database from an empty or another program's SQLite file (reads only).
-pub fn file_kind(conn: &Connection) -> Result<FileKind> {
+pub(super) fn file_kind(conn: &Connection) -> Result<FileKind> {
     let app_id: i32 = conn.query_row("PRAGMA application_id", [], |r| r.get(0))?;
     if app_id == APPLICATION_ID {
         return Ok(FileKind::Samewise);
@@ -110,7 +110,7 @@ pub fn file_kind(conn: &Connection) -> Result<FileKind> {
 
 /// Sets the samewise application id where it is not set yet (a new database, or one made before
 /// the id existed). Call only on a file [`file_kind`] found to be samewise or empty.
-pub fn mark_samewise(conn: &Connection) -> Result<()> {
+pub(super) fn mark_samewise(conn: &Connection) -> Result<()> {
     let app_id: i32 = conn.query_row("PRAGMA application_id", [], |r| r.get(0))?;
     if app_id != APPLICATION_ID {
         conn.pragma_update(None, "application_id", APPLICATION_ID)?;
@@ -124,7 +124,7 @@ pub fn latest_version() -> u32 {
 }
 
 /// Reads `PRAGMA user_version`.
-pub fn schema_version(conn: &Connection) -> Result<u32> {
+pub(super) fn schema_version(conn: &Connection) -> Result<u32> {
     let version: i64 = conn.query_row("PRAGMA user_version", [], |row| row.get(0))?;
     Ok(version.max(0) as u32)
 }
@@ -132,7 +132,7 @@ pub fn schema_version(conn: &Connection) -> Result<u32> {
 /// Applies every pending migration in one transaction; returns how many were applied.
 ///
 /// `what` names the database in messages (its path, or "in-memory database").
-pub fn migrate(conn: &mut Connection, what: &str) -> Result<usize> {
+pub(super) fn migrate(conn: &mut Connection, what: &str) -> Result<usize> {
     refuse_newer(schema_version(conn)?, what)?;
     if schema_version(conn)? == latest_version() {
         return Ok(0);

@@ -1,15 +1,22 @@
-//! All SQLite code: opening, migrations, typed queries and the mapping between rows and `model`
-//! types. No other module contains SQL, so a server database can later stand behind the same
-//! [`Store`] interface.
+//! The plant database behind traits, and its SQLite implementation.
 //!
-//! Start at [`Store`]. Its parts:
-//! - [`migrate`]: the numbered files of `migrations/`, embedded and applied in order;
-//! - `master`: characteristics, factors, levels and level sets, kept in step with the plant
-//!   configuration by [`Store::sync_config`];
-//! - `import`: [`Store::import`], one transaction per file, every row stored or rejected;
-//! - `query`: [`Store::load_period`], the analysis read path, columnar and in one pass;
-//! - `events`: process changes ([`Store::add_event`], [`Store::events`]);
-//! - `maintenance`: status, integrity check and online backup.
+//! The rest of samewise reaches the store only through the traits of its areas, gathered in
+//! [`PlantStore`], and opens it with [`open`], [`create`] or [`open_or_create`] (the backend
+//! for a configuration; today always SQLite). A second backend (a server database) implements
+//! these traits; nothing outside this module names a backend:
+//! - [`MeasurementStore`] (`query`): characteristics, factors, counts and the analysis read path
+//!   ([`MeasurementStore::load_period`], columnar and in one pass), a second reader;
+//! - [`RunStore`] (`runs`): run history, versions and leases;
+//! - [`ImportStore`] (`import`): one transaction per file, every row stored or rejected; the
+//!   import records and undo;
+//! - [`EventStore`] (`events`): process changes and their audit trail;
+//! - [`FindingStore`] (`findings`): findings, their notes, the flag history, the alert log;
+//! - [`MaintenanceStore`] (`maintenance`, `master`): status, staleness, integrity check,
+//!   backup, schema version, and the master data kept in step with the plant configuration.
+//!
+//! [`Store`] is the SQLite implementation: all SQL of samewise is in this module, and no SQLite
+//! type appears in a public signature. [`migrate`] holds the numbered files of `migrations/`,
+//! embedded and applied in order.
 //!
 //! Values are stored as `f64` offsets from an exact decimal origin per characteristic (its
 //! target or the middle of its limits when configured, else the median of its first 31 imported
@@ -26,14 +33,20 @@ pub mod migrate;
 mod query;
 pub mod runs;
 
-pub use events::{Event, EventChange, EventEdit, NewEvent};
-pub use findings::{AlertRecord, FlagHistoryRow};
-pub use import::{ImportCpu, ImportOptions, ImportReport, PriorImport, MAX_KEPT_REJECTIONS};
+pub use events::{Event, EventChange, EventEdit, EventStore, NewEvent};
+pub use findings::{AlertRecord, FindingStore, FlagHistoryRow};
+pub use import::{
+    BoxedStream, ImportCpu, ImportOptions, ImportReport, ImportStore, PriorImport, RejectionSink,
+    MAX_KEPT_REJECTIONS,
+};
 pub use imports::{ImportRecord, UndoReport};
-pub use maintenance::{CharacteristicStatus, IntegrityReport, Status};
+pub use maintenance::{CharacteristicStatus, IntegrityReport, MaintenanceStore, Status};
 pub use master::{StoredCharacteristic, StoredFactor, SyncReport};
 pub(crate) use query::closest;
-pub use query::{exact_value, CharacteristicFrame, FactorLevels, PeriodFrame, NO_SUBGROUP};
+pub use query::{
+    exact_value, CharacteristicFrame, FactorLevels, MeasurementStore, PeriodFrame, ReaderOpener,
+    NO_SUBGROUP,
+};
 pub use runs::RunStore;
 
 use std::path::{Path, PathBuf};
@@ -41,7 +54,62 @@ use std::time::Duration;
 
 use rusqlite::{Connection, OpenFlags};
 
+use crate::config::Config;
 use crate::{Error, Result};
+
+/// The whole plant database as samewise uses it: every area's trait. A backend implements the
+/// six traits and is a `PlantStore` by the blanket implementation below. `Send` so that a
+/// command may hand its store to another thread (one thread at a time uses it).
+pub trait PlantStore:
+    MeasurementStore + RunStore + ImportStore + EventStore + FindingStore + MaintenanceStore + Send
+{
+}
+
+impl<T> PlantStore for T where
+    T: MeasurementStore
+        + RunStore
+        + ImportStore
+        + EventStore
+        + FindingStore
+        + MaintenanceStore
+        + Send
+{
+}
+
+/// An opened plant database, whatever its backend.
+pub type BoxedStore = Box<dyn PlantStore>;
+
+/// Opens the existing plant database of `config`, applying pending migrations: the backend for
+/// the configuration (today always SQLite at `plant.database`, see [`Store::open`]). A missing
+/// database is an error that suggests `samewise init`.
+pub fn open(config: &Config) -> Result<Box<dyn PlantStore>> {
+    Ok(Box::new(Store::open(&config.plant.database)?))
+}
+
+/// Opens the plant database of `config`, creating it if it does not exist, and applies pending
+/// migrations; the master data is not touched (see [`create`]).
+pub fn open_or_create(config: &Config) -> Result<Box<dyn PlantStore>> {
+    Ok(Box::new(Store::open_or_create(&config.plant.database)?))
+}
+
+/// Creates the plant database of `config` (or opens it if it exists), applies pending
+/// migrations and brings characteristics and factors in step with the configuration.
+pub fn create(config: &Config) -> Result<Box<dyn PlantStore>> {
+    Ok(Box::new(Store::create(&config.plant.database, config)?))
+}
+
+/// A fresh, empty store in memory with every migration applied (for tests and dry runs); it
+/// has no second reader ([`MeasurementStore::reader_opener`] is `None`).
+pub fn open_in_memory() -> Result<Box<dyn PlantStore>> {
+    Ok(Box::new(Store::open_in_memory()?))
+}
+
+/// Whether the plant database of `config` exists and holds data (`false` for a missing place or
+/// an empty file, where `samewise init` creates the database).
+pub fn exists(config: &Config) -> Result<bool> {
+    let db = &config.plant.database;
+    Ok(db.exists() && !Store::is_empty_file(db)?)
+}
 
 /// How long a connection waits for another process's lock before giving up (unless
 /// `SAMEWISE_BUSY_TIMEOUT` says otherwise, see [`busy_timeout`]).
@@ -174,7 +242,12 @@ pub const PAGE_SIZE: i64 = 16 * 1024;
 /// Page cache per connection, in KiB (SQLite's negative `cache_size`).
 const CACHE_KIB: i64 = 64 * 1024;
 
-/// The plant database.
+/// The SQLite backend: the plant database in one file (or in memory).
+///
+/// It implements every trait of [`PlantStore`]; its inherent methods are what those
+/// implementations call (and what the tests of this backend call). Code outside `storage` never
+/// names it: it holds a `dyn PlantStore` from [`open`] and its siblings
+/// (`tests/architecture.rs` checks this).
 ///
 /// One `Store` is one SQLite connection. Several processes may use the same database file at the
 /// same time: WAL mode lets readers proceed while an import writes, and a busy timeout makes a

@@ -15,7 +15,9 @@ use crate::config::CharacteristicConfig;
 use crate::stats::decimal::Decimal;
 use crate::{Error, Result};
 
-use super::master::{level_set_key_ids, load_characteristics, load_factors, StoredCharacteristic};
+use super::master::{
+    level_set_key_ids, load_characteristics, load_factors, StoredCharacteristic, StoredFactor,
+};
 use super::Store;
 
 /// The level shown for a factor a measurement has no level of (it was imported before the factor
@@ -503,6 +505,85 @@ fn bad_key(set: i64, key: &str) -> Error {
         "level set {set} has the key {key:?}, which does not list known level ids; \
          run `samewise db check`"
     ))
+}
+
+/// The measurements and their master data (characteristics, factors, levels), as the analysis
+/// reads them: what a second backend implements. Every method reads only and sees one
+/// consistent state of the data (one read transaction or snapshot per call). Instants are UTC;
+/// a period is `[start, end)`.
+pub trait MeasurementStore {
+    /// Every stored characteristic (active or not) with its exact origin, in id order (the order
+    /// they were first configured or imported); empty for a new database.
+    fn characteristics(&self) -> Result<Vec<StoredCharacteristic>>;
+    /// Every stored factor with its levels, in id order; empty when none is configured.
+    fn factors(&self) -> Result<Vec<StoredFactor>>;
+    /// Measurements per stored characteristic in `[start, end)`, one entry per characteristic
+    /// in the order of [`MeasurementStore::characteristics`], `0` for one without any.
+    fn count_between(&self, start: DateTime<Utc>, end: DateTime<Utc>)
+        -> Result<Vec<(String, u64)>>;
+    /// Whether any measurement of any characteristic lies in `[start, end)`.
+    fn has_data_between(&self, start: DateTime<Utc>, end: DateTime<Utc>) -> Result<bool>;
+    /// The measurements in `[start, end)` of the characteristics named (all stored ones when
+    /// `None`), columnar, each characteristic's values in time order (ties in storage order),
+    /// with every value's exact decimal origin and its level per configured factor.
+    ///
+    /// An unknown name is a usage error that suggests the closest known one; a characteristic
+    /// without measurements in the period gives an empty frame (never an error). This is the
+    /// hot path of every check: one pass per characteristic, no per-row allocation.
+    fn load_period(
+        &self,
+        start: DateTime<Utc>,
+        end: DateTime<Utc>,
+        characteristics: Option<&[String]>,
+    ) -> Result<PeriodFrame>;
+    /// Levels of a factor that differ only in letter case ("A7" and "a7"), per factor; empty
+    /// when there are none.
+    fn level_case_collisions(&self) -> Result<Vec<(String, Vec<String>)>>;
+    /// A way to open a second, independent reader of the same data, to be called on another
+    /// thread (the check loads parts of a period on two threads); `None` when the backend
+    /// cannot (an in-memory database), and then the caller loads everything itself. The second
+    /// reader may see later commits than this one; a check reads only periods that are
+    /// already imported.
+    fn reader_opener(&self) -> Option<ReaderOpener>;
+}
+
+/// Opens a second reader of a store (see [`MeasurementStore::reader_opener`]).
+pub type ReaderOpener = Box<dyn FnOnce() -> Result<Box<dyn MeasurementStore + Send>> + Send>;
+
+impl MeasurementStore for Store {
+    fn characteristics(&self) -> Result<Vec<StoredCharacteristic>> {
+        Store::characteristics(self)
+    }
+    fn factors(&self) -> Result<Vec<StoredFactor>> {
+        Store::factors(self)
+    }
+    fn count_between(
+        &self,
+        start: DateTime<Utc>,
+        end: DateTime<Utc>,
+    ) -> Result<Vec<(String, u64)>> {
+        Store::count_between(self, start, end)
+    }
+    fn has_data_between(&self, start: DateTime<Utc>, end: DateTime<Utc>) -> Result<bool> {
+        Store::has_data_between(self, start, end)
+    }
+    fn load_period(
+        &self,
+        start: DateTime<Utc>,
+        end: DateTime<Utc>,
+        characteristics: Option<&[String]>,
+    ) -> Result<PeriodFrame> {
+        Store::load_period(self, start, end, characteristics)
+    }
+    fn level_case_collisions(&self) -> Result<Vec<(String, Vec<String>)>> {
+        Store::level_case_collisions(self)
+    }
+    fn reader_opener(&self) -> Option<ReaderOpener> {
+        let path = self.path()?.to_path_buf();
+        Some(Box::new(move || {
+            Store::open(path).map(|s| Box::new(s) as Box<dyn MeasurementStore + Send>)
+        }))
+    }
 }
 
 #[cfg(test)]
