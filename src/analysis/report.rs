@@ -576,7 +576,7 @@ fn values_by_level(
 /// and for blocked designs (the factor varies within the subgroups; the values' own interval
 /// then includes the subgroups' deviations and errs on the wide side).
 fn subgroup_means_by_level(
-    store: &Store,
+    store: &dyn PlantStore,
     characteristic: &str,
     factor: &str,
     start: DateTime<Utc>,
