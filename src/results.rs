@@ -142,13 +142,13 @@ impl LeadingTest {
         }
     }
 
-    /// The method's name in words.
+    /// The method's name in words (the report's tables).
     pub fn label(self) -> &'static str {
         match self {
             LeadingTest::ClassicF => "classic F",
-            LeadingTest::Welch => "Welch ANOVA",
-            LeadingTest::ExactPermutation => "exact permutation test (constant groups)",
-            LeadingTest::FStar => "Brown-Forsythe F* test of means",
+            LeadingTest::Welch => "Welch",
+            LeadingTest::ExactPermutation => "exact permutation",
+            LeadingTest::FStar => "Brown-Forsythe F*",
             LeadingTest::BlockedF => "F with subgroups as blocks",
         }
     }
@@ -428,7 +428,7 @@ impl GroupResult {
         max_offset: f64,
         diff_from_grand: Option<f64>,
     ) -> GroupResult {
-        let base: f64 = origin.parse().unwrap_or(0.0);
+        let base = crate::stats::decimal::Decimal::parse(&origin).map_or(0.0, |d| d.to_f64());
         GroupResult {
             name,
             n,

@@ -27,7 +27,6 @@ use crate::report::{
 };
 use crate::results::TestState;
 use crate::results::{PairResult, TestResult};
-use crate::stats::decimal::Decimal;
 use crate::storage::runs::{RunContent, StoredRun};
 use crate::storage::PlantStore;
 use crate::{Error, Result};
@@ -159,20 +158,15 @@ fn interval(n: u64, mean: f64, sd: Option<f64>) -> (Option<f64>, Option<f64>) {
     }
 }
 
-fn origin_value(text: &str) -> f64 {
-    Decimal::parse(text).map_or(0.0, |d| d.to_f64())
-}
-
 fn group_points(t: &TestResult) -> Vec<GroupPoint> {
     t.groups
         .iter()
         .map(|g| {
-            let mean = origin_value(&g.origin) + g.mean_offset;
-            let (ci_low, ci_high) = interval(g.n, mean, g.sd);
+            let (ci_low, ci_high) = interval(g.n, g.mean, g.sd);
             GroupPoint {
                 level: g.name.clone(),
                 n: g.n,
-                mean,
+                mean: g.mean,
                 ci_low,
                 ci_high,
             }
@@ -541,19 +535,25 @@ fn month_grid(config: &Config, month: &Period, loaded: &[LoadedRun]) -> GridInpu
 /// `(level, Vec<(ts_ms, value in the unit)>)`, levels in the store's order.
 type LevelValues = Vec<(String, Vec<(i64, f64)>)>;
 
-fn values_by_level(
+/// One characteristic's values in `[start, end)`, with the position of `factor` among the
+/// frame's factors.
+fn load_one(
     store: &dyn PlantStore,
     characteristic: &str,
     factor: &str,
     start: DateTime<Utc>,
     end: DateTime<Utc>,
-) -> Result<LevelValues> {
+) -> Result<(crate::storage::PeriodFrame, usize)> {
     let frame = store.load_period(start, end, Some(&[characteristic.to_string()]))?;
     let Some(f_idx) = frame.factors.iter().position(|f| f.name == factor) else {
         return Err(Error::Usage(format!(
             "factor \"{factor}\" is not in the database (run `samewise init` after changing the configuration)"
         )));
     };
+    Ok((frame, f_idx))
+}
+
+fn values_by_level(frame: &crate::storage::PeriodFrame, f_idx: usize) -> LevelValues {
     let levels = &frame.factors[f_idx].levels;
     let mut out: LevelValues = levels.iter().map(|l| (l.clone(), Vec::new())).collect();
     if let Some(c) = frame.characteristics.first() {
@@ -566,7 +566,7 @@ fn values_by_level(
         }
     }
     out.retain(|(_, v)| !v.is_empty());
-    Ok(out)
+    out
 }
 
 /// The subgroup (cell) means of each level, keyed by level name, when the period's values of
@@ -576,37 +576,26 @@ fn values_by_level(
 /// and for blocked designs (the factor varies within the subgroups; the values' own interval
 /// then includes the subgroups' deviations and errs on the wide side).
 fn subgroup_means_by_level(
-    store: &dyn PlantStore,
-    characteristic: &str,
-    factor: &str,
-    start: DateTime<Utc>,
-    end: DateTime<Utc>,
-) -> Result<Option<BTreeMap<String, Vec<f64>>>> {
+    frame: &crate::storage::PeriodFrame,
+    f_idx: usize,
+) -> Option<BTreeMap<String, Vec<f64>>> {
     use crate::analysis::design::{arrange, DesignKind};
-    let frame = store.load_period(start, end, Some(&[characteristic.to_string()]))?;
-    let (Some(f_idx), Some(c)) = (
-        frame.factors.iter().position(|f| f.name == factor),
-        frame.characteristics.first(),
-    ) else {
-        return Ok(None);
-    };
+    let c = frame.characteristics.first()?;
     let levels = &frame.factors[f_idx].levels;
     let idx = &c.level_idx[f_idx];
-    let Ok(a) = arrange(&c.values, &c.subgroup_idx, |row| Some(idx[row])) else {
-        return Ok(None);
-    };
+    let a = arrange(&c.values, &c.subgroup_idx, |row| Some(idx[row])).ok()?;
     if !matches!(a.kind, DesignKind::Nested | DesignKind::CellMeans) {
-        return Ok(None);
+        return None;
     }
     let origin = c.origin.to_f64();
-    Ok(Some(
+    Some(
         a.cell_means(levels.len())
             .into_iter()
             .enumerate()
             .filter(|(_, m)| !m.is_empty())
             .map(|(l, m)| (levels[l].clone(), m.iter().map(|v| origin + v).collect()))
             .collect(),
-    ))
+    )
 }
 
 fn mean_sd(values: &[f64]) -> (f64, Option<f64>) {
@@ -625,14 +614,15 @@ pub fn detail_input(
 ) -> Result<DetailInput> {
     let c = find_characteristic(config, characteristic)?;
     find_factor(config, factor)?;
-    let by_level = values_by_level(store, characteristic, factor, period.start, period.end)?;
+    let (frame, f_idx) = load_one(store, characteristic, factor, period.start, period.end)?;
+    let by_level = values_by_level(&frame, f_idx);
     if by_level.is_empty() {
         return Err(Error::Usage(format!(
             "no values of \"{characteristic}\" in {}",
             period.label
         )));
     }
-    let units = subgroup_means_by_level(store, characteristic, factor, period.start, period.end)?;
+    let units = subgroup_means_by_level(&frame, f_idx);
     let mut all = Vec::new();
     let mut residuals = Vec::new();
     let groups = by_level
@@ -707,7 +697,8 @@ pub fn before_after_input(
     };
     let start = event.at - window;
     let end = event.at + window;
-    let by_level = values_by_level(store, characteristic, factor, start, end)?;
+    let (frame, f_idx) = load_one(store, characteristic, factor, start, end)?;
+    let by_level = values_by_level(&frame, f_idx);
     let calendar = PlantCalendar::new(config);
     let at_ms = event.at.timestamp_millis();
     let is_aggregated = by_level.iter().any(|(_, v)| v.len() > MAX_POINTS_PER_GROUP);
@@ -773,18 +764,6 @@ fn day_means(calendar: &PlantCalendar, tv: &[(i64, f64)], at_ms: i64) -> Vec<Tim
         .collect()
 }
 
-fn leading_name(t: &TestResult) -> String {
-    use crate::results::LeadingTest;
-    match t.leading.method {
-        Some(LeadingTest::Welch) => "Welch".to_string(),
-        Some(LeadingTest::FStar) => "Brown-Forsythe F*".to_string(),
-        Some(LeadingTest::ExactPermutation) => "exact permutation".to_string(),
-        Some(LeadingTest::BlockedF) => "F with subgroups as blocks".to_string(),
-        Some(LeadingTest::ClassicF) => "classic F".to_string(),
-        None => "none".to_string(),
-    }
-}
-
 /// A stored pair as a row of the report's pair tables.
 fn pair_row(p: &PairResult) -> report::PairRow {
     report::PairRow {
@@ -809,7 +788,7 @@ fn flagged_item(c: &CharacteristicConfig, r: &LoadedRun, t: &TestResult) -> Flag
             r.run.header.period_label.clone()
         },
         state: flag_state(t.state),
-        test: leading_name(t),
+        test: t.leading.method.map_or("none", |m| m.label()).to_string(),
         p_value: t.leading.p.unwrap_or(f64::NAN),
         q_value: t.q_value.unwrap_or(f64::NAN),
         share_between: t.variance_components.share_between,

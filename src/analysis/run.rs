@@ -44,12 +44,6 @@ pub fn frame_from(pf: PeriodFrame) -> Frame {
     }
 }
 
-/// Hash of the configuration that produced a run: SHA-256 of the configuration text that was
-/// parsed (`Config::source_hash`), first 16 hex digits.
-pub fn config_hash(config: &Config) -> String {
-    config.source_hash.clone()
-}
-
 /// Flagged (characteristic, factor) pairs of the latest complete run of the period before
 /// `period` (`None` when it has no complete run). Ranges have no previous period of the same kind.
 pub fn previous_flags(
@@ -173,7 +167,7 @@ pub fn header(
         period_start_ms: period.start.timestamp_millis(),
         period_end_ms: period.end.timestamp_millis(),
         schedule: schedule.map(str::to_string),
-        config_hash: config_hash(config),
+        config_hash: config.source_hash.clone(),
         tool_version: env!("CARGO_PKG_VERSION").to_string(),
         fdr_method: options.fdr_method.key().to_string(),
         fdr_level: options.fdr_level,

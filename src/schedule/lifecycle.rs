@@ -96,16 +96,23 @@ pub fn run_period<S: RunStore + ?Sized>(
         Ok(_) if !still_ours => crate::Error::Database(
             "the lease expired during the run; another scheduler may redo it".to_string(),
         ),
-        Ok(content) => match store.complete_run(run.run_id, now(), &content) {
-            Ok(()) => {
-                let stored = store
-                    .latest_complete_run(&header.period_kind, &header.period_label)?
-                    .filter(|r| r.run_id == run.run_id)
-                    .unwrap_or(run);
-                return Ok(Finished::Completed(stored, content));
+        Ok(content) => {
+            let finished_ms = now();
+            match store.complete_run(run.run_id, finished_ms, &content) {
+                Ok(()) => {
+                    // The run as it now stands in the store, without reading it back.
+                    let stored = StoredRun {
+                        status: "complete".to_string(),
+                        finished_ms: Some(finished_ms),
+                        n_tests: Some(content.tests.len() as i64),
+                        n_flagged: Some(content.n_flagged() as i64),
+                        ..run
+                    };
+                    return Ok(Finished::Completed(stored, content));
+                }
+                Err(e) => e,
             }
-            Err(e) => e,
-        },
+        }
         Err(e) => e,
     };
     store.fail_run(run.run_id, now(), &error.to_string())?;
@@ -192,6 +199,11 @@ mod tests {
             panic!("{done:?}")
         };
         assert_eq!((run.status.as_str(), run.n_flagged), ("complete", Some(1)));
+        assert_eq!(
+            Some(&run),
+            store.runs_of_period("day", "2026-11-30").unwrap().first(),
+            "the returned run is the stored one"
+        );
         assert_eq!(content.tests.len(), 1);
         assert_eq!(begun, [run.run_id]);
         // A failing computation: the run is failed with its error, nothing else is written.
