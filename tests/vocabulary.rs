@@ -276,11 +276,22 @@ fn time_and_day_flags_of_the_wrong_shape_show_the_forms() {
     assert!(err.contains("without a time"), "{err}");
     let err = refused(&dir, &["findings", "--since", "yesterday"], 2);
     assert!(err.contains("YYYY-MM-DD"), "{err}");
-    // The help says whether a --to is included.
-    let help = samewise_ok(&dir, &["check", "--help"]);
-    assert!(help.contains("included"), "{help}");
-    let help = samewise_ok(&dir, &["investigate", "--help"]);
-    assert!(help.contains("excluded"), "{help}");
+    // A day --to is included: the range ends where the day after it starts (UTC plant,
+    // production day from 06:00).
+    let out = samewise(
+        &dir,
+        &[
+            "check",
+            "--from",
+            "2026-11-28",
+            "--to",
+            "2026-11-29",
+            "--json",
+        ],
+    );
+    let doc: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    assert_eq!(doc["period"]["start"], "2026-11-28T06:00:00+00:00", "{doc}");
+    assert_eq!(doc["period"]["end"], "2026-11-30T06:00:00+00:00", "{doc}");
 }
 
 #[test]
@@ -512,6 +523,12 @@ fn kind_names_the_period_kind_on_chart_history_and_findings() {
     let all = all.as_array().unwrap();
     assert!(!all.is_empty(), "the M2 shift of bore makes a finding");
     assert!(all.iter().all(|f| f["period_kind"] == "day"));
+    // The filter removes something: the plant checks days only, so no finding is weekly.
+    let weekly = json(&samewise_ok(
+        &dir,
+        &["findings", "--all", "--kind", "week", "--json"],
+    ));
+    assert_eq!(weekly.as_array().map(Vec::len), Some(0), "{weekly}");
     let bore = json(&samewise_ok(
         &dir,
         &[

@@ -64,25 +64,26 @@ pub struct CheckArgs {
     pub stored: bool,
 }
 
-/// The period named by the flags.
+/// The period named by the flags (days are dates already; only the shift, week and month
+/// labels are parsed).
 pub fn period_from_flags(args: &CheckArgs, calendar: &PlantCalendar) -> Result<Period> {
-    let label = if let Some(d) = &args.day {
-        d.format("%Y-%m-%d").to_string()
-    } else if let Some(s) = args
+    if let Some(d) = args.day {
+        return Ok(calendar.day(d));
+    }
+    if let (Some(a), Some(b)) = (args.from, args.to) {
+        return calendar.range(a, b);
+    }
+    match args
         .shift
         .as_ref()
         .or(args.week.as_ref())
         .or(args.month.as_ref())
     {
-        s.clone()
-    } else if let (Some(a), Some(b)) = (&args.from, &args.to) {
-        format!("{a}..{b}")
-    } else {
-        return Err(Error::Usage(
+        Some(label) => calendar.parse_period(label),
+        None => Err(Error::Usage(
             "say which period: --day D, --shift D/NAME, --week 2026-W48, --month 2026-11 or --from A --to B".into(),
-        ));
-    };
-    calendar.parse_period(&label)
+        )),
+    }
 }
 
 /// Runs `samewise check`.

@@ -46,22 +46,18 @@ pub fn run(args: &HistoryArgs) -> Result<ExitCode> {
     let config = super::common::load_config(super::common::config_flag())?;
     let characteristic =
         vocab::characteristic_arg(&args.characteristic, &args.characteristic_first)?;
-    vocab::characteristic(&config, characteristic)?;
+    let c = vocab::characteristic(&config, characteristic)?;
     vocab::factor(&config, &args.factor)?;
     let kind = crate::model::PeriodKind::from(args.kind).as_str();
     if let Some(path) = &args.csv {
         let protected = crate::output::Protected::plant(&config.plant.database, &config.path);
         crate::output::refuse_protected(path, "--csv", &protected)?;
     }
-    let unit = config
-        .characteristic(characteristic)
-        .map(|c| c.unit.clone())
-        .unwrap_or_default();
+    let unit = c.unit.clone();
     let store = super::common::open_store(&config)?;
     let points = store.history(characteristic, &args.factor, kind, args.last)?;
     if args.json || args.csv.is_some() {
         let rows: Vec<serde_json::Value> = points.iter().map(|p| point_json(&config, p)).collect();
-        let c = config.characteristic(characteristic);
         if let Some(path) = &args.csv {
             write_csv(path, &rows)?;
             println!("{} periods written to {}", rows.len(), path.display());
@@ -69,10 +65,10 @@ pub fn run(args: &HistoryArgs) -> Result<ExitCode> {
             let doc = serde_json::json!({
                 "characteristic": characteristic,
                 "factor": args.factor,
-                "unit": c.map(|c| c.unit.clone()),
-                "lsl": c.and_then(|c| c.lsl),
-                "usl": c.and_then(|c| c.usl),
-                "target": c.and_then(|c| c.target),
+                "unit": c.unit,
+                "lsl": c.lsl,
+                "usl": c.usl,
+                "target": c.target,
                 "period_kind": kind,
                 "periods": rows,
                 "caution": crate::CAUTION,
