@@ -207,13 +207,13 @@ pub fn check_and_record(
         )));
     }
     let clock = || now().timestamp_millis();
-    let finished = store.abandon_running(&lease.key, clock()).and_then(|_| {
+    let finished = lifecycle::holding(store, &lease, |store| {
+        store.abandon_running(&lease.key, clock())?;
         lifecycle::run_period(store, &lease, &head, &clock, &mut |_| {}, |store| {
             run_check(store, config, period, options)
         })
-    });
-    store.release_lease(&lease.key, lease.holder)?;
-    match finished? {
+    })?;
+    match finished {
         Finished::Completed(run, content) => Ok((run, content)),
         Finished::Failed(_, e) => Err(e),
     }

@@ -1,8 +1,8 @@
 //! One run lifecycle, the same for a check by hand (`samewise check`) and for the scheduler:
-//! take the period's lease (or take it over from a holder on this host whose process is gone),
-//! mark runs left behind as failed, begin the run, compute it, check that the lease is still
-//! ours, then write every result in one transaction or record the failure, and release the
-//! lease. The store is anything that implements [`RunStore`]; times come from the caller's
+//! take the period's lease ([`acquire`]: or take it over from a holder on this host whose process
+//! is gone); while holding it ([`holding`], which releases it on every path) the caller marks
+//! runs left behind as failed, then [`run_period`] begins the run, computes it, checks that the
+//! lease is still ours, and writes every result in one transaction or records the failure. The store is anything that implements [`RunStore`]; times come from the caller's
 //! clock (milliseconds since the epoch, UTC), so nothing here reads the wall clock.
 
 use crate::results::RunContent;
@@ -67,6 +67,21 @@ pub fn acquire<S: RunStore + ?Sized>(
     Ok(Acquired::Held(old))
 }
 
+/// Runs `body` while the lease is held, then releases the lease on every path (an error of
+/// `body` wins over an error of the release, which would otherwise leave the period blocked
+/// until the lease expires).
+pub fn holding<S: RunStore + ?Sized, T>(
+    store: &mut S,
+    lease: &Lease<'_>,
+    body: impl FnOnce(&mut S) -> Result<T>,
+) -> Result<T> {
+    let result = body(store);
+    let released = store.release_lease(&lease.key, lease.holder);
+    let value = result?;
+    released?;
+    Ok(value)
+}
+
 /// How a run ended.
 #[derive(Debug)]
 pub enum Finished {
@@ -115,8 +130,15 @@ pub fn run_period<S: RunStore + ?Sized>(
         }
         Err(e) => e,
     };
-    store.fail_run(run.run_id, now(), &error.to_string())?;
-    Ok(Finished::Failed(run, error))
+    let finished_ms = now();
+    store.fail_run(run.run_id, finished_ms, &error.to_string())?;
+    let failed = StoredRun {
+        status: "failed".to_string(),
+        finished_ms: Some(finished_ms),
+        error: Some(error.to_string()),
+        ..run
+    };
+    Ok(Finished::Failed(failed, error))
 }
 
 #[cfg(test)]
@@ -180,6 +202,21 @@ mod tests {
     }
 
     #[test]
+    fn the_lease_is_released_when_the_work_fails() {
+        let mut store = crate::storage::open_in_memory().unwrap();
+        let l = lease("a:1:x");
+        assert!(acquire(&*store, &l, 0).unwrap().is_ours());
+        let r: Result<()> = holding(&mut *store, &l, |_| Err(crate::Error::Usage("boom".into())));
+        assert!(r.unwrap_err().to_string().contains("boom"));
+        assert_eq!(store.lease_holder(&l.key).unwrap(), None);
+        // Another holder can take it at once.
+        assert_eq!(
+            acquire(&*store, &lease("b:2:y"), 1).unwrap(),
+            Acquired::Taken
+        );
+    }
+
+    #[test]
     fn completed_failed_and_lost_lease_runs_are_recorded() {
         let mut store = crate::storage::open_in_memory().unwrap();
         let l = lease("a:1:x");
@@ -216,8 +253,9 @@ mod tests {
         };
         assert!(e.to_string().contains("no values"));
         let stored = store.runs_of_period("day", "2026-11-30").unwrap();
-        assert_eq!(stored[1].run_id, run.run_id);
+        assert_eq!(stored[1], run, "the returned run is the stored one");
         assert_eq!(stored[1].status, "failed");
+        assert!(store.run_content(run.run_id).unwrap().tests.is_empty());
         // The lease lost during the run (expired and taken by another holder): not completed.
         let other = lease("b:2:y");
         let late = || 5000;

@@ -8,8 +8,8 @@
 //! - A period is *due* when the schedule has no complete run of it. Due periods of all schedules
 //!   run in order of `end + delay` (then schedule order), so a catch-up after downtime replays
 //!   the missed periods oldest first.
-//! - Before running a period the scheduler takes its lease (`storage::runs::take_lease`, one
-//!   atomic statement). A period whose lease is held by someone else is skipped for this pass.
+//! - Before running a period the scheduler takes its lease (`RunStore::take_lease`, one
+//!   atomic statement; `lifecycle` holds and releases it). A period whose lease is held by someone else is skipped for this pass.
 //!   With the lease held it recovers abandoned runs, re-checks that the period is still due
 //!   (another scheduler may have just finished it) and runs it.
 //! - A run is written in one transaction at its end (see `storage::runs`); a failure is stored
@@ -290,6 +290,23 @@ fn run_one(
             return Ok(PeriodOutcome::Leased);
         }
     }
+    lifecycle::holding(store, &lease, |store| {
+        run_held(store, clock, runner, options, schedule, period, &lease, log)
+    })
+}
+
+/// [`run_one`] once the lease is held: recovery, the due check, the run.
+#[allow(clippy::too_many_arguments)]
+fn run_held(
+    store: &mut dyn PlantStore,
+    clock: &dyn Clock,
+    runner: &mut dyn PeriodRunner,
+    options: &SchedulerOptions,
+    schedule: &ScheduleConfig,
+    period: &Period,
+    lease: &lifecycle::Lease<'_>,
+    log: &mut dyn FnMut(&str),
+) -> Result<PeriodOutcome> {
     let recovered = store.recover_abandoned(ms(clock.now()))?
         + store.abandon_running(&lease.key, ms(clock.now()))?;
     if recovered > 0 {
@@ -299,14 +316,13 @@ fn run_one(
     }
     let done = store.completed_labels(Some(&schedule.name), period.kind.as_str())?;
     if done.contains(&period.label) {
-        store.release_lease(&lease.key, lease.holder)?;
         return Ok(PeriodOutcome::AlreadyDone);
     }
     let header = runner.header(schedule, period);
     let now = || ms(clock.now());
     let finished = lifecycle::run_period(
         store,
-        &lease,
+        lease,
         &header,
         &now,
         &mut |run| {
@@ -342,7 +358,6 @@ fn run_one(
             PeriodOutcome::Failed(run.run_id, error)
         }
     };
-    store.release_lease(&lease.key, lease.holder)?;
     Ok(outcome)
 }
 

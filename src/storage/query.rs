@@ -508,9 +508,13 @@ fn bad_key(set: i64, key: &str) -> Error {
 }
 
 /// The measurements and their master data (characteristics, factors, levels), as the analysis
-/// reads them: what a second backend implements. Every method reads only and sees one
-/// consistent state of the data (one read transaction or snapshot per call). Instants are UTC;
-/// a period is `[start, end)`.
+/// reads them: what a second backend implements. Every method reads only. Instants are UTC;
+/// a period is `[start, end)`. Consistency across one call: imports commit whole files, so a
+/// file is seen completely or not at all by each statement; the SQLite implementation runs a
+/// call's statements (master data, then rows) without one enclosing read transaction, so an
+/// import that commits between them can add rows whose new levels the call's master data lack
+/// (such rows read as "(none)"); one read transaction per call is the stronger contract a
+/// backend should aim for (not yet kept here).
 pub trait MeasurementStore {
     /// Every stored characteristic (active or not) with its exact origin, in id order (the order
     /// they were first configured or imported); empty for a new database.

@@ -645,9 +645,12 @@ pub(super) fn run_content(conn: &Connection, run_id: i64) -> Result<RunContent> 
         },
     )?;
     for (test_idx, g) in groups {
-        if let Some(&i) = position.get(&test_idx) {
-            tests[i].groups.push(g);
-        }
+        let Some(&i) = position.get(&test_idx) else {
+            return Err(crate::Error::Database(format!(
+                "run {run_id}: a stored group row belongs to test {test_idx}, which the run does not hold; run `samewise db check`"
+            )));
+        };
+        tests[i].groups.push(g);
     }
     let pairs = rows_of_run(
         conn,
@@ -675,9 +678,12 @@ pub(super) fn run_content(conn: &Connection, run_id: i64) -> Result<RunContent> 
         },
     )?;
     for (test_idx, p) in pairs {
-        if let Some(&i) = position.get(&test_idx) {
-            tests[i].pairs.push(p);
-        }
+        let Some(&i) = position.get(&test_idx) else {
+            return Err(crate::Error::Database(format!(
+                "run {run_id}: a stored pair row belongs to test {test_idx}, which the run does not hold; run `samewise db check`"
+            )));
+        };
+        tests[i].pairs.push(p);
     }
     Ok(RunContent { tests })
 }
