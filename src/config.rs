@@ -185,8 +185,86 @@ pub struct Plant {
     pub time_zone: chrono_tz::Tz,
     /// Local wall-clock time at which a production day starts.
     pub day_start: NaiveTime,
-    /// The SQLite database, resolved relative to the configuration file's directory.
+    /// The SQLite database, resolved relative to the configuration file's directory (unused
+    /// when `server` names a PostgreSQL database).
     pub database: PathBuf,
+    /// The site this configuration is (`[plant] site`): one plant of a company's group, whose
+    /// data lives in its own schema of a shared PostgreSQL database. `None`: a single plant.
+    pub site: Option<String>,
+    /// A PostgreSQL database (`database = "postgresql://..."` or a `[database]` table), or
+    /// `None` for the embedded SQLite file at `database`.
+    pub server: Option<ServerDatabase>,
+}
+
+/// A PostgreSQL database holding this plant's data in one schema.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct ServerDatabase {
+    /// The connection URL as configured (`postgresql://user@host:port/dbname?options`); a
+    /// password belongs in the environment variable `password_env`, not here.
+    pub url: String,
+    /// The schema that holds this site's tables: `[database] schema`, else the site name, else
+    /// `samewise`. Lower-case letters, digits and `_`.
+    pub schema: String,
+    /// The environment variable the password is read from, if any.
+    pub password_env: Option<String>,
+}
+
+impl ServerDatabase {
+    /// The URL without any password, for messages.
+    pub fn display_url(&self) -> String {
+        redact_url(&self.url)
+    }
+}
+
+/// `url` with a password (`user:secret@`) replaced by `***`.
+pub fn redact_url(url: &str) -> String {
+    let Some(scheme_end) = url.find("://") else {
+        return url.to_string();
+    };
+    let rest = &url[scheme_end + 3..];
+    let authority_end = rest.find(['/', '?']).unwrap_or(rest.len());
+    let authority = &rest[..authority_end];
+    match (authority.rfind('@'), authority.find(':')) {
+        (Some(at), Some(colon)) if colon < at => format!(
+            "{}{}:***{}",
+            &url[..scheme_end + 3],
+            &authority[..colon],
+            &rest[at..]
+        ),
+        _ => url.to_string(),
+    }
+}
+
+/// Whether a `database` setting names a PostgreSQL server rather than an SQLite file.
+pub fn is_server_url(text: &str) -> bool {
+    let t = text.trim_start();
+    t.starts_with("postgresql://") || t.starts_with("postgres://")
+}
+
+/// Checks a schema or site name usable as a PostgreSQL schema: 1-63 characters, lower-case
+/// ASCII letters, digits and `_`, not starting with a digit, not `pg_...` or
+/// `information_schema`.
+pub fn check_schema_name(name: &str) -> std::result::Result<(), String> {
+    let ok_chars = name
+        .chars()
+        .all(|c| c.is_ascii_lowercase() || c.is_ascii_digit() || c == '_');
+    if name.is_empty() || name.len() > 63 || !ok_chars {
+        return Err(format!(
+            "\"{name}\" is not usable as a database schema name: use 1 to 63 lower-case letters, \
+             digits and _"
+        ));
+    }
+    if name.starts_with(|c: char| c.is_ascii_digit()) {
+        return Err(format!(
+            "\"{name}\" starts with a digit; a schema name cannot"
+        ));
+    }
+    if name.starts_with("pg_") || name == "information_schema" || name == "public" {
+        return Err(format!(
+            "\"{name}\" is reserved by PostgreSQL; choose another name"
+        ));
+    }
+    Ok(())
 }
 
 /// One `[[shift]]`: it runs from its start until the next shift's start (the last shift of the
@@ -614,6 +692,15 @@ struct RawConfig {
     schedule: Vec<RawSchedule>,
     findings: Option<RawFindings>,
     alert: Option<RawAlert>,
+    database: Option<RawDatabase>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawDatabase {
+    url: String,
+    schema: Option<String>,
+    password_env: Option<String>,
 }
 
 #[derive(Deserialize)]
@@ -637,6 +724,7 @@ struct RawPlant {
     time_zone: String,
     production_day_start: Option<String>,
     database: Option<String>,
+    site: Option<String>,
 }
 
 #[derive(Deserialize)]
@@ -763,11 +851,56 @@ fn validate(raw: RawConfig, path: &Path) -> Result<Config> {
                 .unwrap_or_else(|| db.clone())
         }
     };
+    let site = match &raw.plant.site {
+        Some(site) => {
+            check_schema_name(site).map_err(|r| fail(format!("plant.site: {r}")))?;
+            Some(site.clone())
+        }
+        None => None,
+    };
+    let server = match (&raw.database, raw.plant.database.as_deref()) {
+        (Some(_), Some(_)) => {
+            return Err(fail(
+                "plant.database and a [database] table are both given: keep one (a file path \
+                 for SQLite, or the [database] table for PostgreSQL)"
+                    .to_string(),
+            ))
+        }
+        (Some(table), None) => {
+            if !is_server_url(&table.url) {
+                return Err(fail(format!(
+                    "database.url: \"{}\" is not a PostgreSQL URL (postgresql://user@host:port/dbname)",
+                    redact_url(&table.url)
+                )));
+            }
+            let schema = match &table.schema {
+                Some(s) => s.clone(),
+                None => site.clone().unwrap_or_else(|| "samewise".to_string()),
+            };
+            check_schema_name(&schema).map_err(|r| fail(format!("database.schema: {r}")))?;
+            Some(ServerDatabase {
+                url: table.url.trim().to_string(),
+                schema,
+                password_env: table.password_env.clone(),
+            })
+        }
+        (None, Some(text)) if is_server_url(text) => {
+            let schema = site.clone().unwrap_or_else(|| "samewise".to_string());
+            Some(ServerDatabase {
+                url: text.trim().to_string(),
+                schema,
+                password_env: None,
+            })
+        }
+        (None, _) => None,
+    };
     let plant = Plant {
         name: plant_name,
         time_zone,
         day_start,
         database,
+        site,
+        server,
     };
 
     // [[shift]]

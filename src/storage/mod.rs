@@ -30,6 +30,7 @@ mod imports;
 mod maintenance;
 mod master;
 pub mod migrate;
+pub mod postgres;
 mod query;
 pub mod runs;
 
@@ -42,6 +43,7 @@ pub use import::{
 pub use imports::{ImportRecord, UndoReport};
 pub use maintenance::{CharacteristicStatus, IntegrityReport, MaintenanceStore, Status};
 pub use master::{StoredCharacteristic, StoredFactor, SyncReport};
+pub use postgres::PgStore;
 pub(crate) use query::closest;
 pub use query::{
     exact_value, CharacteristicFrame, FactorLevels, MeasurementStore, PeriodFrame, ReaderOpener,
@@ -383,6 +385,19 @@ impl Store {
     /// The schema version of the database (`PRAGMA user_version`).
     pub fn schema_version(&self) -> Result<u32> {
         migrate::schema_version(&self.conn)
+    }
+
+    /// The names of the tables (views aside), sorted: the schema compared across backends.
+    #[cfg(test)]
+    pub(crate) fn table_names(&self) -> Result<Vec<String>> {
+        let mut stmt = self.conn.prepare(
+            "SELECT name FROM sqlite_schema WHERE type = 'table' AND name NOT LIKE 'sqlite_%' \
+             ORDER BY name",
+        )?;
+        let names = stmt
+            .query_map([], |r| r.get(0))?
+            .collect::<rusqlite::Result<Vec<String>>>()?;
+        Ok(names)
     }
 }
 
