@@ -11,7 +11,7 @@ use std::collections::HashMap;
 
 use rusqlite::{params, Connection, OptionalExtension, TransactionBehavior};
 
-use crate::config::{CharacteristicConfig, Config, FactorConfig, FactorSource};
+use crate::config::{CharacteristicConfig, Config, FactorSource};
 use crate::stats::decimal::Decimal;
 use crate::{Error, Result};
 
@@ -71,7 +71,7 @@ pub struct StoredFactor {
     pub is_configured: bool,
 }
 
-fn source_parts(source: &FactorSource) -> (&'static str, Option<&str>) {
+pub(crate) fn source_parts(source: &FactorSource) -> (&'static str, Option<&str>) {
     match source {
         FactorSource::Column(column) => ("column", Some(column.as_str())),
         FactorSource::DerivedShift => ("shift", None),
@@ -161,62 +161,80 @@ impl Store {
     /// Never deletes and never touches measurements or origins; running it twice with the same
     /// configuration changes nothing the second time.
     pub fn sync_config(&mut self, config: &Config) -> Result<SyncReport> {
-        let mut report = SyncReport::default();
         let tx = self
             .conn
             .transaction_with_behavior(TransactionBehavior::Immediate)?;
-        {
-            let stored = load_characteristics(&tx)?;
-            let by_name: HashMap<&str, &StoredCharacteristic> =
-                stored.iter().map(|c| (c.config.name.as_str(), c)).collect();
-            for c in &config.characteristics {
-                match by_name.get(c.name.as_str()) {
-                    None => {
-                        tx.execute(
-                            "INSERT INTO characteristics (name, unit, lsl, usl, target, resolution, is_active, is_configured) \
-                             VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, 1)",
-                            params![c.name, c.unit, c.lsl, c.usl, c.target, c.resolution, c.is_active],
-                        )?;
-                        report.characteristics_added.push(c.name.clone());
-                    }
-                    // `plausible` is not stored (only the import reads it from the file).
-                    Some(s)
-                        if s.config
-                            != (CharacteristicConfig {
-                                plausible: None,
-                                ..c.clone()
-                            })
-                            || !s.is_configured =>
-                    {
-                        tx.execute(
-                            "UPDATE characteristics SET unit = ?2, lsl = ?3, usl = ?4, target = ?5, \
-                             resolution = ?6, is_active = ?7, is_configured = 1 WHERE id = ?1",
-                            params![s.id, c.unit, c.lsl, c.usl, c.target, c.resolution, c.is_active],
-                        )?;
-                        report.characteristics_updated.push(c.name.clone());
-                    }
-                    Some(_) => {}
+        let plan = plan_sync(
+            &load_characteristics(&tx)?,
+            &load_stored_factors(&tx)?,
+            config,
+        );
+        for action in &plan.actions {
+            match action {
+                SyncAction::AddCharacteristic(c) => {
+                    tx.execute(
+                        "INSERT INTO characteristics (name, unit, lsl, usl, target, resolution, is_active, is_configured) \
+                         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, 1)",
+                        params![c.name, c.unit, c.lsl, c.usl, c.target, c.resolution, c.is_active],
+                    )?;
+                }
+                SyncAction::UpdateCharacteristic(id, c) => {
+                    tx.execute(
+                        "UPDATE characteristics SET unit = ?2, lsl = ?3, usl = ?4, target = ?5, \
+                         resolution = ?6, is_active = ?7, is_configured = 1 WHERE id = ?1",
+                        params![
+                            id,
+                            c.unit,
+                            c.lsl,
+                            c.usl,
+                            c.target,
+                            c.resolution,
+                            c.is_active
+                        ],
+                    )?;
+                }
+                SyncAction::UnconfigureCharacteristic(id) => {
+                    tx.execute(
+                        "UPDATE characteristics SET is_configured = 0 WHERE id = ?1",
+                        [id],
+                    )?;
+                }
+                SyncAction::AddFactor {
+                    name,
+                    position,
+                    source,
+                    column,
+                } => {
+                    tx.execute(
+                        "INSERT INTO factors (name, position, source, source_column, is_configured) \
+                         VALUES (?1, ?2, ?3, ?4, 1)",
+                        params![name, position, source, column],
+                    )?;
+                }
+                SyncAction::UpdateFactor {
+                    id,
+                    position,
+                    source,
+                    column,
+                } => {
+                    tx.execute(
+                        "UPDATE factors SET position = ?2, source = ?3, source_column = ?4, \
+                         is_configured = 1 WHERE id = ?1",
+                        params![id, position, source, column],
+                    )?;
+                }
+                SyncAction::UnconfigureFactor(id) => {
+                    tx.execute(
+                        "UPDATE factors SET is_configured = 0, position = -1 WHERE id = ?1",
+                        [id],
+                    )?;
                 }
             }
-            for s in &stored {
-                if config.characteristic(&s.config.name).is_none() {
-                    if s.is_configured {
-                        tx.execute(
-                            "UPDATE characteristics SET is_configured = 0 WHERE id = ?1",
-                            [s.id],
-                        )?;
-                    }
-                    report
-                        .characteristics_not_configured
-                        .push(s.config.name.clone());
-                }
-            }
-            sync_factors(&tx, &config.factors, &mut report)?;
-            create_measurement_view(&tx)?;
         }
+        create_measurement_view(&tx)?;
         tx.commit()?;
         self.level_cache.borrow_mut().clear();
-        Ok(report)
+        Ok(plan.report)
     }
 
     /// Every stored characteristic (configured or not), in the order they were added.
@@ -235,36 +253,11 @@ impl Store {
 /// id, and one column per configured factor holding its level. Column names are the factor
 /// names, quoted (a factor named like a fixed column gets a `factor_` prefix).
 pub(crate) fn create_measurement_view(tx: &Connection) -> Result<()> {
-    const FIXED: [&str; 10] = [
-        "ts_utc",
-        "ts_ms",
-        "characteristic",
-        "unit",
-        "value",
-        "import_id",
-        "line",
-        "part",
-        "subgroup",
-        "level_set_id",
-    ];
     let factors: Vec<(i64, String)> = tx
         .prepare("SELECT id, name FROM factors WHERE is_configured = 1 ORDER BY position")?
         .query_map([], |r| Ok((r.get(0)?, r.get(1)?)))?
         .collect::<rusqlite::Result<_>>()?;
-    let quote = |name: &str| format!("\"{}\"", name.replace('"', "\"\""));
-    let mut columns = String::new();
-    for (id, name) in &factors {
-        let column = if FIXED.contains(&name.as_str()) {
-            format!("factor_{name}")
-        } else {
-            name.clone()
-        };
-        columns.push_str(&format!(
-            ",\n       (SELECT l.name FROM level_set_members s JOIN levels l ON l.id = s.level_id \
-             WHERE s.level_set_id = m.level_set_id AND s.factor_id = {id}) AS {}",
-            quote(&column)
-        ));
-    }
+    let columns = measurement_view_factor_columns(&factors);
     tx.execute_batch(&format!(
         "DROP VIEW IF EXISTS measurement_values;
          CREATE VIEW measurement_values AS
@@ -277,70 +270,202 @@ pub(crate) fn create_measurement_view(tx: &Connection) -> Result<()> {
     Ok(())
 }
 
-fn sync_factors(tx: &Connection, factors: &[FactorConfig], report: &mut SyncReport) -> Result<()> {
-    struct Row {
-        id: i64,
+/// A factor row as stored, for [`plan_sync`].
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub(crate) struct FactorRow {
+    pub(crate) id: i64,
+    pub(crate) name: String,
+    pub(crate) position: i64,
+    pub(crate) source: String,
+    pub(crate) source_column: Option<String>,
+    pub(crate) is_configured: bool,
+}
+
+fn load_stored_factors(tx: &Connection) -> Result<Vec<FactorRow>> {
+    let mut stmt =
+        tx.prepare("SELECT id, name, position, source, source_column, is_configured FROM factors")?;
+    let rows = stmt.query_map([], |r| {
+        Ok(FactorRow {
+            id: r.get(0)?,
+            name: r.get(1)?,
+            position: r.get(2)?,
+            source: r.get(3)?,
+            source_column: r.get(4)?,
+            is_configured: r.get(5)?,
+        })
+    })?;
+    Ok(rows.collect::<rusqlite::Result<_>>()?)
+}
+
+/// One change that brings the master data in step with the configuration; every backend
+/// carries out the same list ([`plan_sync`]) in one transaction.
+#[derive(Debug, Clone, PartialEq)]
+pub(crate) enum SyncAction {
+    /// A configured characteristic new to the database.
+    AddCharacteristic(CharacteristicConfig),
+    /// A stored characteristic (id) whose unit, limits, target, resolution or active flag
+    /// changed, or that is configured again.
+    UpdateCharacteristic(i64, CharacteristicConfig),
+    /// A stored characteristic (id) the configuration no longer lists.
+    UnconfigureCharacteristic(i64),
+    /// A configured factor new to the database.
+    AddFactor {
         name: String,
         position: i64,
-        source: String,
-        source_column: Option<String>,
-        is_configured: bool,
-    }
-    let stored: Vec<Row> = {
-        let mut stmt = tx.prepare(
-            "SELECT id, name, position, source, source_column, is_configured FROM factors",
-        )?;
-        let rows = stmt.query_map([], |r| {
-            Ok(Row {
-                id: r.get(0)?,
-                name: r.get(1)?,
-                position: r.get(2)?,
-                source: r.get(3)?,
-                source_column: r.get(4)?,
-                is_configured: r.get(5)?,
-            })
-        })?;
-        rows.collect::<rusqlite::Result<_>>()?
-    };
-    for (position, f) in factors.iter().enumerate() {
-        let (source, column) = source_parts(&f.source);
-        match stored.iter().find(|s| s.name == f.name) {
+        source: &'static str,
+        column: Option<String>,
+    },
+    /// A stored factor (id) whose position or source changed, or that is configured again.
+    UpdateFactor {
+        id: i64,
+        position: i64,
+        source: &'static str,
+        column: Option<String>,
+    },
+    /// A stored factor (id) the configuration no longer lists (position -1).
+    UnconfigureFactor(i64),
+}
+
+/// What `sync_config` does, decided once for every backend: the actions in order and the report.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub(crate) struct SyncPlan {
+    pub(crate) actions: Vec<SyncAction>,
+    pub(crate) report: SyncReport,
+}
+
+/// Compares the stored master data with the configuration: adds and updates, never deletes (a
+/// characteristic or factor that left the configuration is marked not configured).
+pub(crate) fn plan_sync(
+    stored: &[StoredCharacteristic],
+    stored_factors: &[FactorRow],
+    config: &Config,
+) -> SyncPlan {
+    let mut plan = SyncPlan::default();
+    let by_name: HashMap<&str, &StoredCharacteristic> =
+        stored.iter().map(|c| (c.config.name.as_str(), c)).collect();
+    for c in &config.characteristics {
+        // `plausible` is not stored (only the import reads it from the file).
+        let as_stored = CharacteristicConfig {
+            plausible: None,
+            ..c.clone()
+        };
+        match by_name.get(c.name.as_str()) {
             None => {
-                tx.execute(
-                    "INSERT INTO factors (name, position, source, source_column, is_configured) \
-                     VALUES (?1, ?2, ?3, ?4, 1)",
-                    params![f.name, position as i64, source, column],
-                )?;
-                report.factors_added.push(f.name.clone());
+                plan.actions.push(SyncAction::AddCharacteristic(as_stored));
+                plan.report.characteristics_added.push(c.name.clone());
+            }
+            Some(s) if s.config != as_stored || !s.is_configured => {
+                plan.actions
+                    .push(SyncAction::UpdateCharacteristic(s.id, as_stored));
+                plan.report.characteristics_updated.push(c.name.clone());
+            }
+            Some(_) => {}
+        }
+    }
+    for s in stored {
+        if config.characteristic(&s.config.name).is_none() {
+            if s.is_configured {
+                plan.actions
+                    .push(SyncAction::UnconfigureCharacteristic(s.id));
+            }
+            plan.report
+                .characteristics_not_configured
+                .push(s.config.name.clone());
+        }
+    }
+    for (position, f) in config.factors.iter().enumerate() {
+        let (source, column) = source_parts(&f.source);
+        let position = position as i64;
+        match stored_factors.iter().find(|s| s.name == f.name) {
+            None => {
+                plan.actions.push(SyncAction::AddFactor {
+                    name: f.name.clone(),
+                    position,
+                    source,
+                    column: column.map(str::to_string),
+                });
+                plan.report.factors_added.push(f.name.clone());
             }
             Some(s) => {
-                let is_same = s.position == position as i64
+                let is_same = s.position == position
                     && s.source == source
                     && s.source_column.as_deref() == column
                     && s.is_configured;
                 if !is_same {
-                    tx.execute(
-                        "UPDATE factors SET position = ?2, source = ?3, source_column = ?4, \
-                         is_configured = 1 WHERE id = ?1",
-                        params![s.id, position as i64, source, column],
-                    )?;
-                    report.factors_updated.push(f.name.clone());
+                    plan.actions.push(SyncAction::UpdateFactor {
+                        id: s.id,
+                        position,
+                        source,
+                        column: column.map(str::to_string),
+                    });
+                    plan.report.factors_updated.push(f.name.clone());
                 }
             }
         }
     }
-    for s in &stored {
-        if !factors.iter().any(|f| f.name == s.name) {
+    for s in stored_factors {
+        if !config.factors.iter().any(|f| f.name == s.name) {
             if s.is_configured {
-                tx.execute(
-                    "UPDATE factors SET is_configured = 0, position = -1 WHERE id = ?1",
-                    [s.id],
-                )?;
+                plan.actions.push(SyncAction::UnconfigureFactor(s.id));
             }
-            report.factors_not_configured.push(s.name.clone());
+            plan.report.factors_not_configured.push(s.name.clone());
         }
     }
-    Ok(())
+    plan
+}
+
+/// The columns of `measurement_values` besides the factors; a factor named like one of them
+/// gets a `factor_` prefix.
+pub(crate) const MEASUREMENT_VIEW_FIXED: [&str; 10] = [
+    "ts_utc",
+    "ts_ms",
+    "characteristic",
+    "unit",
+    "value",
+    "import_id",
+    "line",
+    "part",
+    "subgroup",
+    "level_set_id",
+];
+
+/// The factor columns of `measurement_values` for the configured factors (id, name) in order:
+/// one correlated look-up of the level per factor, the column named after the factor (quoted).
+/// The same SQL on both backends.
+pub(crate) fn measurement_view_factor_columns(factors: &[(i64, String)]) -> String {
+    let quote = |name: &str| format!("\"{}\"", name.replace('"', "\"\""));
+    let mut columns = String::new();
+    for (id, name) in factors {
+        let column = if MEASUREMENT_VIEW_FIXED.contains(&name.as_str()) {
+            format!("factor_{name}")
+        } else {
+            name.clone()
+        };
+        columns.push_str(&format!(
+            ",\n       (SELECT l.name FROM level_set_members s JOIN levels l ON l.id = s.level_id \
+             WHERE s.level_set_id = m.level_set_id AND s.factor_id = {id}) AS {}",
+            quote(&column)
+        ));
+    }
+    columns
+}
+
+/// Levels of one factor that differ only in case or surrounding blanks, from (factor, level)
+/// rows in factor order: (factor, the levels), for a warning that they count as different groups.
+pub(crate) fn case_collisions(rows: Vec<(String, String)>) -> Vec<(String, Vec<String>)> {
+    let mut groups: Vec<((String, String), Vec<String>)> = Vec::new();
+    for (factor, level) in rows {
+        let key = (factor, level.trim().to_lowercase());
+        match groups.iter_mut().find(|(k, _)| *k == key) {
+            Some((_, v)) => v.push(level),
+            None => groups.push((key, vec![level])),
+        }
+    }
+    groups
+        .into_iter()
+        .filter(|(_, v)| v.len() > 1)
+        .map(|((factor, _), v)| (factor, v))
+        .collect()
 }
 
 /// Finds or creates level sets during an import (one write transaction).
@@ -480,19 +605,7 @@ impl Store {
         let rows: Vec<(String, String)> = stmt
             .query_map([], |r| Ok((r.get(0)?, r.get(1)?)))?
             .collect::<rusqlite::Result<_>>()?;
-        let mut groups: Vec<((String, String), Vec<String>)> = Vec::new();
-        for (factor, level) in rows {
-            let key = (factor, level.trim().to_lowercase());
-            match groups.iter_mut().find(|(k, _)| *k == key) {
-                Some((_, v)) => v.push(level),
-                None => groups.push((key, vec![level])),
-            }
-        }
-        Ok(groups
-            .into_iter()
-            .filter(|(_, v)| v.len() > 1)
-            .map(|((factor, _), v)| (factor, v))
-            .collect())
+        Ok(case_collisions(rows))
     }
 }
 

@@ -215,107 +215,200 @@ impl Store {
             .filter(|f| f.is_configured)
             .collect();
         let mut cache = self.level_cache.borrow_mut();
-        let factor_ids: Vec<i64> = factors.iter().map(|f| f.id).collect();
-        if cache.factor_ids != factor_ids {
-            cache.clear();
-            cache.factor_ids = factor_ids;
-        }
-        let n_factors = factors.len();
-        let mut frame_levels = FrameLevels {
-            n_factors,
-            level_index: vec![IdIndex::default(); n_factors],
-            level_order: vec![Vec::new(); n_factors],
-            set_slot: IdIndex::default(),
-            set_levels: Vec::new(),
-        };
-
+        let mut builder = FrameBuilder::new(&factors, &mut cache);
         let mut rows_stmt = self.conn.prepare_cached(
             "SELECT ts_ms, value, level_set_id, subgroup FROM measurements \
              WHERE characteristic_id = ?1 AND ts_ms >= ?2 AND ts_ms < ?3",
         )?;
-        // Subgroup ids numbered per frame; the previous row's id is checked first (the parts of
-        // one shot are neighbours in time order).
-        let mut subgroup_ids: FxMap<Box<[u8]>, u32> = FxMap::default();
-        let mut frames = Vec::with_capacity(chosen.len());
-        let mut sets: Vec<i64> = Vec::new();
-        let mut missing: Vec<i64> = Vec::new();
+        let mut set_stmt = self.conn.prepare_cached(&format!(
+            "SELECT id, key FROM level_sets WHERE id IN ({})",
+            vec!["?"; SET_CHUNK].join(", ")
+        ))?;
         for c in chosen {
-            let mut ts_ms = Vec::new();
-            let mut values = Vec::new();
-            let mut subgroup_idx: Vec<u32> = Vec::new();
-            let mut any_subgroup = false;
-            let mut last_subgroup: (Vec<u8>, u32) = (Vec::new(), NO_SUBGROUP);
-            subgroup_ids.clear();
-            sets.clear();
+            builder.begin_characteristic();
             let mut rows = rows_stmt.query(rusqlite::params![
                 c.id,
                 start.timestamp_millis(),
                 end.timestamp_millis()
             ])?;
             while let Some(row) = rows.next()? {
-                ts_ms.push(row.get::<_, i64>(0)?);
-                values.push(row.get::<_, f64>(1)?);
-                sets.push(row.get::<_, i64>(2)?);
-                let id = match row.get_ref(3)? {
-                    rusqlite::types::ValueRef::Text(t) => {
-                        if last_subgroup.1 != NO_SUBGROUP && last_subgroup.0 == t {
-                            last_subgroup.1
-                        } else {
-                            let next = subgroup_ids.len() as u32;
-                            let id = *subgroup_ids.entry(t.into()).or_insert(next);
-                            last_subgroup.0.clear();
-                            last_subgroup.0.extend_from_slice(t);
-                            last_subgroup.1 = id;
-                            id
-                        }
-                    }
-                    _ => NO_SUBGROUP,
+                let subgroup = match row.get_ref(3)? {
+                    rusqlite::types::ValueRef::Text(t) => Some(t),
+                    _ => None,
                 };
-                if id != NO_SUBGROUP && !any_subgroup {
-                    any_subgroup = true;
-                    subgroup_idx.resize(values.len() - 1, NO_SUBGROUP);
-                }
-                if any_subgroup {
-                    subgroup_idx.push(id);
-                }
+                builder.push(row.get(0)?, row.get(1)?, row.get(2)?, subgroup);
             }
             drop(rows);
-            // Resolve each level set of the frame once: from the cache, or fetched in bulk.
-            missing.clear();
-            for &set in &sets {
-                if frame_levels.set_slot.get(set).is_none() {
-                    match cache.sets.get(set) {
-                        Some(start) => frame_levels.resolve(set, start, &cache),
-                        None => missing.push(set),
+            builder.finish_characteristic(
+                c,
+                |chunk, out| {
+                    // A short last chunk repeats its last id (IN ignores repeats).
+                    let ids = (0..SET_CHUNK).map(|i| chunk[i.min(chunk.len() - 1)]);
+                    let mut rows = set_stmt.query(rusqlite::params_from_iter(ids))?;
+                    while let Some(row) = rows.next()? {
+                        let set: i64 = row.get(0)?;
+                        let key = row
+                            .get_ref(1)?
+                            .as_str()
+                            .map_err(|_| bad_key(set, "(not text)"))?;
+                        out.push((set, key.to_string()));
                     }
-                }
-            }
-            missing.sort_unstable();
-            missing.dedup();
-            fetch_level_sets(&self.conn, &mut cache, &missing)?;
-            for &set in &missing {
-                let start = cache.sets.get(set).expect("fetched above");
-                frame_levels.resolve(set, start, &cache);
-            }
-            let mut level_idx: Vec<Vec<u32>> = vec![Vec::with_capacity(sets.len()); n_factors];
-            for set in &sets {
-                let levels = frame_levels.levels_of(*set);
-                for (column, &level) in level_idx.iter_mut().zip(levels) {
-                    column.push(level);
-                }
-            }
-            frames.push(CharacteristicFrame {
-                characteristic: c.config.clone(),
-                origin: c.origin.unwrap_or(Decimal::ZERO),
-                values,
-                ts_ms,
-                level_idx,
-                subgroup_idx,
-            });
+                    Ok(())
+                },
+                |levels| read_levels(&self.conn, levels),
+            )?;
         }
-        // Sort each factor's levels by name and renumber.
-        let mut factor_levels = Vec::with_capacity(n_factors);
-        for (f, factor) in factors.iter().enumerate() {
+        Ok(builder.finish())
+    }
+}
+
+/// Builds a [`PeriodFrame`] from the rows of each characteristic, whatever the backend: the
+/// per-row work is a push per column and, for a subgroup, one comparison with the previous
+/// row's; level sets are resolved once per frame through the store's [`LevelCache`], fetched in
+/// chunks of [`SET_CHUNK`] by the backend's `fetch_sets` when not cached.
+pub(crate) struct FrameBuilder<'c> {
+    factors: Vec<String>,
+    cache: &'c mut LevelCache,
+    frame_levels: FrameLevels,
+    frames: Vec<CharacteristicFrame>,
+    /// Subgroup ids numbered per frame; the previous row's id is checked first (the parts of
+    /// one shot are neighbours in time order).
+    subgroup_ids: FxMap<Box<[u8]>, u32>,
+    last_subgroup: (Vec<u8>, u32),
+    any_subgroup: bool,
+    ts_ms: Vec<i64>,
+    values: Vec<f64>,
+    subgroup_idx: Vec<u32>,
+    sets: Vec<i64>,
+    missing: Vec<i64>,
+}
+
+impl<'c> FrameBuilder<'c> {
+    /// A builder for the configured `factors` (in configuration order); `cache` is the store's,
+    /// reset when the configured factors changed since it was filled.
+    pub(crate) fn new(factors: &[StoredFactor], cache: &'c mut LevelCache) -> FrameBuilder<'c> {
+        let factor_ids: Vec<i64> = factors.iter().map(|f| f.id).collect();
+        if cache.factor_ids != factor_ids {
+            cache.clear();
+            cache.factor_ids = factor_ids;
+        }
+        let n_factors = factors.len();
+        FrameBuilder {
+            factors: factors.iter().map(|f| f.name.clone()).collect(),
+            cache,
+            frame_levels: FrameLevels {
+                n_factors,
+                level_index: vec![IdIndex::default(); n_factors],
+                level_order: vec![Vec::new(); n_factors],
+                set_slot: IdIndex::default(),
+                set_levels: Vec::new(),
+            },
+            frames: Vec::new(),
+            subgroup_ids: FxMap::default(),
+            last_subgroup: (Vec::new(), NO_SUBGROUP),
+            any_subgroup: false,
+            ts_ms: Vec::new(),
+            values: Vec::new(),
+            subgroup_idx: Vec::new(),
+            sets: Vec::new(),
+            missing: Vec::new(),
+        }
+    }
+
+    /// Starts the next characteristic's frame.
+    pub(crate) fn begin_characteristic(&mut self) {
+        self.subgroup_ids.clear();
+        self.last_subgroup = (Vec::new(), NO_SUBGROUP);
+        self.any_subgroup = false;
+        self.sets.clear();
+    }
+
+    /// One measurement, in time order: instant (ms), offset, level set id, subgroup id.
+    #[inline]
+    pub(crate) fn push(&mut self, ts_ms: i64, value: f64, set: i64, subgroup: Option<&[u8]>) {
+        self.ts_ms.push(ts_ms);
+        self.values.push(value);
+        self.sets.push(set);
+        let id = match subgroup {
+            Some(t) => {
+                if self.last_subgroup.1 != NO_SUBGROUP && self.last_subgroup.0 == t {
+                    self.last_subgroup.1
+                } else {
+                    let next = self.subgroup_ids.len() as u32;
+                    let id = *self.subgroup_ids.entry(t.into()).or_insert(next);
+                    self.last_subgroup.0.clear();
+                    self.last_subgroup.0.extend_from_slice(t);
+                    self.last_subgroup.1 = id;
+                    id
+                }
+            }
+            None => NO_SUBGROUP,
+        };
+        if id != NO_SUBGROUP && !self.any_subgroup {
+            self.any_subgroup = true;
+            self.subgroup_idx.resize(self.values.len() - 1, NO_SUBGROUP);
+        }
+        if self.any_subgroup {
+            self.subgroup_idx.push(id);
+        }
+    }
+
+    /// Ends the frame of `c`: resolves its level sets (from the cache, or fetched: `fetch_sets`
+    /// appends the (id, key) rows of a chunk of at most [`SET_CHUNK`] level set ids;
+    /// `read_levels` fills in every level with its factor and name).
+    pub(crate) fn finish_characteristic(
+        &mut self,
+        c: &StoredCharacteristic,
+        mut fetch_sets: impl FnMut(&[i64], &mut Vec<(i64, String)>) -> Result<()>,
+        mut read_levels: impl FnMut(&mut FxMap<i64, (i64, String)>) -> Result<()>,
+    ) -> Result<()> {
+        let cache = &mut *self.cache;
+        self.missing.clear();
+        for &set in &self.sets {
+            if self.frame_levels.set_slot.get(set).is_none() {
+                match cache.sets.get(set) {
+                    Some(start) => self.frame_levels.resolve(set, start, cache),
+                    None => self.missing.push(set),
+                }
+            }
+        }
+        self.missing.sort_unstable();
+        self.missing.dedup();
+        fetch_level_sets(cache, &self.missing, &mut fetch_sets, &mut read_levels)?;
+        for &set in &self.missing {
+            let start = cache.sets.get(set).expect("fetched above");
+            self.frame_levels.resolve(set, start, cache);
+        }
+        let n_factors = self.factors.len();
+        let mut level_idx: Vec<Vec<u32>> = vec![Vec::with_capacity(self.sets.len()); n_factors];
+        for set in &self.sets {
+            let levels = self.frame_levels.levels_of(*set);
+            for (column, &level) in level_idx.iter_mut().zip(levels) {
+                column.push(level);
+            }
+        }
+        self.frames.push(CharacteristicFrame {
+            characteristic: c.config.clone(),
+            origin: c.origin.unwrap_or(Decimal::ZERO),
+            values: std::mem::take(&mut self.values),
+            ts_ms: std::mem::take(&mut self.ts_ms),
+            level_idx,
+            subgroup_idx: std::mem::take(&mut self.subgroup_idx),
+        });
+        Ok(())
+    }
+
+    /// The period's frame: each factor's levels sorted by name and the frames renumbered.
+    pub(crate) fn finish(self) -> PeriodFrame {
+        let FrameBuilder {
+            factors,
+            cache,
+            frame_levels,
+            mut frames,
+            ..
+        } = self;
+        let mut factor_levels = Vec::with_capacity(factors.len());
+        for (f, factor) in factors.into_iter().enumerate() {
             let names: Vec<String> = frame_levels.level_order[f]
                 .iter()
                 .map(|&id| match cache.levels.get(&id) {
@@ -335,14 +428,14 @@ impl Store {
                 }
             }
             factor_levels.push(FactorLevels {
-                name: factor.name.clone(),
+                name: factor,
                 levels: order.iter().map(|&i| names[i].clone()).collect(),
             });
         }
-        Ok(PeriodFrame {
+        PeriodFrame {
             factors: factor_levels,
             characteristics: frames,
-        })
+        }
     }
 }
 
@@ -442,40 +535,33 @@ impl FrameLevels {
 /// as its `level_set_members` rows (both are written together by the import, and `samewise db
 /// check` verifies that they agree), and each level belongs to one factor. One row per set
 /// instead of one per member makes a cold read of a characteristic-day several times cheaper.
-fn fetch_level_sets(
-    conn: &rusqlite::Connection,
+pub(crate) fn fetch_level_sets(
     cache: &mut LevelCache,
     missing: &[i64],
+    fetch_sets: &mut impl FnMut(&[i64], &mut Vec<(i64, String)>) -> Result<()>,
+    read_levels: &mut impl FnMut(&mut FxMap<i64, (i64, String)>) -> Result<()>,
 ) -> Result<()> {
     if missing.is_empty() {
         return Ok(());
     }
-    let placeholders = vec!["?"; SET_CHUNK].join(", ");
-    let mut stmt = conn.prepare_cached(&format!(
-        "SELECT id, key FROM level_sets WHERE id IN ({placeholders})"
-    ))?;
     let n_factors = cache.factor_ids.len();
     let mut levels_read = false;
+    let mut rows: Vec<(i64, String)> = Vec::with_capacity(SET_CHUNK);
     for chunk in missing.chunks(SET_CHUNK) {
-        // A short last chunk repeats its last id (IN ignores repeats).
-        let ids = (0..SET_CHUNK).map(|i| chunk[i.min(chunk.len() - 1)]);
-        let mut rows = stmt.query(rusqlite::params_from_iter(ids))?;
         // Every set of the chunk gets an entry, even one without members of configured factors.
         for &set in chunk {
             cache.sets.insert(set, cache.members.len());
             cache.members.resize(cache.members.len() + n_factors, 0);
         }
-        while let Some(row) = rows.next()? {
-            let set: i64 = row.get(0)?;
-            let key = row
-                .get_ref(1)?
-                .as_str()
-                .map_err(|_| bad_key(set, "(not text)"))?;
-            let start = cache.sets.get(set).expect("inserted above");
+        rows.clear();
+        fetch_sets(chunk, &mut rows)?;
+        for (set, key) in &rows {
+            let (set, key) = (*set, key.as_str());
+            let start = cache.sets.get(set).ok_or_else(|| bad_key(set, key))?;
             for level_id in level_set_key_ids(key) {
                 let level_id = level_id.ok_or_else(|| bad_key(set, key))?;
                 if !cache.levels.contains_key(&level_id) && !levels_read {
-                    read_levels(conn, &mut cache.levels)?;
+                    read_levels(&mut cache.levels)?;
                     levels_read = true;
                 }
                 let Some(&(factor_id, _)) = cache.levels.get(&level_id) else {
