@@ -72,7 +72,62 @@ impl IntegrityReport {
     }
 }
 
-fn from_ms(ms: i64) -> DateTime<Utc> {
+/// Periods whose latest complete run began before a later data change inside them (the same
+/// SQL on both backends).
+pub(crate) const STALE_PERIODS_SQL: &str =
+    "SELECT COALESCE(g.schedule, 'by hand'), g.kind, g.label FROM (
+         SELECT schedule, period_kind AS kind, period_label AS label,
+                MAX(max_import_id) AS seen, MIN(period_start_ms) AS start_ms,
+                MAX(period_end_ms) AS end_ms
+         FROM run WHERE status = 'complete'
+         GROUP BY schedule, period_kind, period_label) g
+     WHERE EXISTS (SELECT 1 FROM imports i
+         WHERE i.id > g.seen AND (i.accepted > i.duplicates OR i.undoes IS NOT NULL)
+           AND i.ts_min_ms < g.end_ms AND i.ts_max_ms >= g.start_ms)
+     ORDER BY g.start_ms, g.kind";
+
+/// Per import: id, file, measurements and rejections it recorded as stored (0 once undone),
+/// and what is stored of it (the same SQL on both backends).
+pub(crate) const IMPORT_COUNTS_SQL: &str = "SELECT i.id, i.file_name, \
+   CASE WHEN EXISTS (SELECT 1 FROM imports u WHERE u.undoes = i.id) THEN 0 \
+        ELSE i.accepted - i.duplicates END, \
+   CASE WHEN EXISTS (SELECT 1 FROM imports u WHERE u.undoes = i.id) THEN 0 \
+        ELSE i.rejected - i.rejected_not_kept END, \
+   (SELECT count(*) FROM measurements m WHERE m.import_id = i.id), \
+   (SELECT CAST(COALESCE(SUM(r.measurements), 0) AS BIGINT) FROM rejected_rows r \
+    WHERE r.import_id = i.id) \
+ FROM imports i ORDER BY i.id";
+
+/// The problem an import's row of [`IMPORT_COUNTS_SQL`] shows, if any.
+pub(crate) fn import_count_problem(
+    (id, file, accepted, rejected, stored, stored_rejected): (i64, String, i64, i64, i64, i64),
+) -> Option<String> {
+    (accepted != stored || rejected != stored_rejected).then(|| {
+        format!(
+            "import #{id} ({file}) recorded {accepted} stored and {rejected} rejected, \
+             but {stored} measurements and {stored_rejected} rejected rows are stored"
+        )
+    })
+}
+
+/// The tables `db check` counts, in order.
+pub(crate) const COUNTED_TABLES: [&str; 8] = [
+    "characteristics",
+    "factors",
+    "levels",
+    "level_sets",
+    "imports",
+    "measurements",
+    "rejected_rows",
+    "events",
+];
+
+/// Level sets without members while factors exist (the same SQL on both backends).
+pub(crate) const EMPTY_SETS_SQL: &str =
+    "SELECT count(*) FROM level_sets s WHERE (SELECT count(*) FROM factors) > 0 \
+     AND NOT EXISTS (SELECT 1 FROM level_set_members m WHERE m.level_set_id = s.id)";
+
+pub(crate) fn from_ms(ms: i64) -> DateTime<Utc> {
     Utc.timestamp_millis_opt(ms).single().unwrap_or_default()
 }
 
@@ -132,18 +187,7 @@ impl Store {
     /// them or an undo that removed some (the rule of `runs::completed_labels`, from the other
     /// side).
     pub fn stale_periods(&self) -> Result<Vec<(String, String, String)>> {
-        let mut stmt = self.conn.prepare(
-            "SELECT COALESCE(g.schedule, 'by hand'), g.kind, g.label FROM (
-                 SELECT schedule, period_kind AS kind, period_label AS label,
-                        MAX(max_import_id) AS seen, MIN(period_start_ms) AS start_ms,
-                        MAX(period_end_ms) AS end_ms
-                 FROM run WHERE status = 'complete'
-                 GROUP BY schedule, period_kind, period_label) g
-             WHERE EXISTS (SELECT 1 FROM imports i
-                 WHERE i.id > g.seen AND (i.accepted > i.duplicates OR i.undoes IS NOT NULL)
-                   AND i.ts_min_ms < g.end_ms AND i.ts_max_ms >= g.start_ms)
-             ORDER BY g.start_ms, g.kind",
-        )?;
+        let mut stmt = self.conn.prepare(STALE_PERIODS_SQL)?;
         let rows = stmt.query_map([], |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?)))?;
         Ok(rows.collect::<rusqlite::Result<_>>()?)
     }
@@ -169,16 +213,7 @@ impl Store {
             })?
             .collect::<rusqlite::Result<_>>()?;
         let mut problems = Vec::new();
-        let mut stmt = self.conn.prepare(
-            "SELECT i.id, i.file_name, \
-               CASE WHEN EXISTS (SELECT 1 FROM imports u WHERE u.undoes = i.id) THEN 0 \
-                    ELSE i.accepted - i.duplicates END, \
-               CASE WHEN EXISTS (SELECT 1 FROM imports u WHERE u.undoes = i.id) THEN 0 \
-                    ELSE i.rejected - i.rejected_not_kept END, \
-               (SELECT count(*) FROM measurements m WHERE m.import_id = i.id), \
-               (SELECT COALESCE(SUM(r.measurements), 0) FROM rejected_rows r WHERE r.import_id = i.id) \
-             FROM imports i ORDER BY i.id",
-        )?;
+        let mut stmt = self.conn.prepare(IMPORT_COUNTS_SQL)?;
         let rows = stmt.query_map([], |r| {
             Ok((
                 r.get::<_, i64>(0)?,
@@ -190,19 +225,9 @@ impl Store {
             ))
         })?;
         for row in rows {
-            let (id, file, accepted, rejected, stored, stored_rejected) = row?;
-            if accepted != stored || rejected != stored_rejected {
-                problems.push(format!(
-                    "import #{id} ({file}) recorded {accepted} stored and {rejected} rejected, \
-                     but {stored} measurements and {stored_rejected} rejected rows are stored"
-                ));
-            }
+            problems.extend(import_count_problem(row?));
         }
-        let empty_sets = count(
-            &self.conn,
-            "SELECT count(*) FROM level_sets s WHERE (SELECT count(*) FROM factors) > 0 \
-             AND NOT EXISTS (SELECT 1 FROM level_set_members m WHERE m.level_set_id = s.id)",
-        )?;
+        let empty_sets = count(&self.conn, EMPTY_SETS_SQL)?;
         if empty_sets > 0 {
             problems.push(format!("{empty_sets} level sets have no members"));
         }
@@ -220,16 +245,7 @@ impl Store {
             ));
         }
         let mut counts = Vec::new();
-        for table in [
-            "characteristics",
-            "factors",
-            "levels",
-            "level_sets",
-            "imports",
-            "measurements",
-            "rejected_rows",
-            "events",
-        ] {
+        for table in COUNTED_TABLES {
             counts.push((
                 table.to_string(),
                 count(&self.conn, &format!("SELECT count(*) FROM {table}"))?,

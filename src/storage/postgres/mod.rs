@@ -12,7 +12,10 @@
 //! where SQLite would take its single write lock (the import's master data, the run versions);
 //! different sites never wait for each other.
 
+mod maintenance;
+mod master;
 mod migrate;
+mod query;
 
 use std::cell::{RefCell, RefMut};
 
@@ -26,6 +29,8 @@ use crate::{Error, Result};
 pub struct PgStore {
     client: RefCell<Client>,
     target: ServerDatabase,
+    /// Level set id -> level per configured factor, filled lazily by `load_period`.
+    pub(crate) level_cache: RefCell<crate::storage::query::LevelCache>,
 }
 
 impl std::fmt::Debug for PgStore {
@@ -48,6 +53,22 @@ impl PgStore {
         Ok(PgStore {
             client: RefCell::new(client),
             target: target.clone(),
+            level_cache: Default::default(),
+        })
+    }
+
+    /// A second connection to the same site for reading only: no migration, the site's schema
+    /// on the search path, every transaction read-only by default.
+    pub fn open_reader(target: &ServerDatabase) -> Result<PgStore> {
+        let mut client = connect(target)?;
+        client.batch_execute(&format!(
+            "SET search_path TO {}; SET default_transaction_read_only = on",
+            quote_ident(&target.schema)
+        ))?;
+        Ok(PgStore {
+            client: RefCell::new(client),
+            target: target.clone(),
+            level_cache: Default::default(),
         })
     }
 

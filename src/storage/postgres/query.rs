@@ -1,0 +1,325 @@
+//! The analysis read path on PostgreSQL: [`MeasurementStore`] for [`PgStore`].
+//!
+//! A call reads in one REPEATABLE READ, READ ONLY transaction: master data and rows come from
+//! one snapshot, so an import that commits meanwhile is seen completely or not at all. The rows
+//! of each characteristic stream from the primary-key range (characteristic, time) into the
+//! backend-neutral [`FrameBuilder`], which the SQLite backend uses too.
+
+use chrono::{DateTime, Utc};
+use postgres::fallible_iterator::FallibleIterator;
+use postgres::types::ToSql;
+use postgres::IsolationLevel;
+#[cfg(test)]
+use std::path::Path;
+
+use super::master::{load_characteristics, load_factors};
+use super::PgStore;
+use crate::storage::master::{StoredCharacteristic, StoredFactor};
+use crate::storage::query::{
+    unknown_characteristic, FrameBuilder, MeasurementStore, PeriodFrame, ReaderOpener,
+};
+use crate::Result;
+
+impl MeasurementStore for PgStore {
+    fn characteristics(&self) -> Result<Vec<StoredCharacteristic>> {
+        load_characteristics(&mut *self.conn())
+    }
+
+    fn factors(&self) -> Result<Vec<StoredFactor>> {
+        load_factors(&mut *self.conn())
+    }
+
+    fn count_between(
+        &self,
+        start: DateTime<Utc>,
+        end: DateTime<Utc>,
+    ) -> Result<Vec<(String, u64)>> {
+        let rows = self.conn().query(
+            "SELECT c.name, (SELECT COUNT(*) FROM measurements m WHERE m.characteristic_id = c.id \
+             AND m.ts_ms >= $1 AND m.ts_ms < $2) FROM characteristics c ORDER BY c.id",
+            &[&start.timestamp_millis(), &end.timestamp_millis()],
+        )?;
+        Ok(rows
+            .iter()
+            .map(|r| (r.get(0), r.get::<_, i64>(1) as u64))
+            .collect())
+    }
+
+    fn has_data_between(&self, start: DateTime<Utc>, end: DateTime<Utc>) -> Result<bool> {
+        Ok(self
+            .conn()
+            .query_one(
+                "SELECT EXISTS (SELECT 1 FROM characteristics c WHERE EXISTS (SELECT 1 FROM \
+                 measurements m WHERE m.characteristic_id = c.id AND m.ts_ms >= $1 \
+                 AND m.ts_ms < $2))",
+                &[&start.timestamp_millis(), &end.timestamp_millis()],
+            )?
+            .get(0))
+    }
+
+    fn load_period(
+        &self,
+        start: DateTime<Utc>,
+        end: DateTime<Utc>,
+        characteristics: Option<&[String]>,
+    ) -> Result<PeriodFrame> {
+        let mut conn = self.conn();
+        let mut tx = conn
+            .build_transaction()
+            .isolation_level(IsolationLevel::RepeatableRead)
+            .read_only(true)
+            .start()?;
+        let stored = load_characteristics(&mut tx)?;
+        let chosen: Vec<&StoredCharacteristic> = match characteristics {
+            None => stored.iter().collect(),
+            Some(names) => names
+                .iter()
+                .map(|n| {
+                    stored
+                        .iter()
+                        .find(|c| &c.config.name == n)
+                        .ok_or_else(|| unknown_characteristic(n, &stored))
+                })
+                .collect::<Result<_>>()?,
+        };
+        let factors: Vec<StoredFactor> = load_factors(&mut tx)?
+            .into_iter()
+            .filter(|f| f.is_configured)
+            .collect();
+        let mut cache = self.level_cache.borrow_mut();
+        let mut builder = FrameBuilder::new(&factors, &mut cache);
+        let rows_stmt = tx.prepare(
+            "SELECT ts_ms, value, level_set_id, subgroup FROM measurements \
+             WHERE characteristic_id = $1 AND ts_ms >= $2 AND ts_ms < $3 \
+             ORDER BY ts_ms, import_id, line",
+        )?;
+        let sets_stmt = tx.prepare("SELECT id, key FROM level_sets WHERE id = ANY($1)")?;
+        let (start_ms, end_ms) = (start.timestamp_millis(), end.timestamp_millis());
+        for c in chosen {
+            builder.begin_characteristic();
+            let params: [&(dyn ToSql + Sync); 3] = [&c.id, &start_ms, &end_ms];
+            let mut rows = tx.query_raw(&rows_stmt, params)?;
+            while let Some(row) = rows.next()? {
+                let subgroup: Option<&str> = row.get(3);
+                builder.push(
+                    row.get(0),
+                    row.get(1),
+                    row.get(2),
+                    subgroup.map(str::as_bytes),
+                );
+            }
+            drop(rows);
+            let tx = &mut tx;
+            let sets_stmt = &sets_stmt;
+            // Two closures need the transaction in turn; a cell hands it to whichever runs.
+            let tx = std::cell::RefCell::new(tx);
+            builder.finish_characteristic(
+                c,
+                |chunk, out| {
+                    let ids: Vec<i64> = chunk.to_vec();
+                    for r in tx.borrow_mut().query(sets_stmt, &[&ids])? {
+                        out.push((r.get(0), r.get(1)));
+                    }
+                    Ok(())
+                },
+                |levels| {
+                    for r in tx
+                        .borrow_mut()
+                        .query("SELECT id, factor_id, name FROM levels", &[])?
+                    {
+                        levels.insert(r.get(0), (r.get(1), r.get(2)));
+                    }
+                    Ok(())
+                },
+            )?;
+        }
+        let frame = builder.finish();
+        tx.commit()?;
+        Ok(frame)
+    }
+
+    fn level_case_collisions(&self) -> Result<Vec<(String, Vec<String>)>> {
+        self.level_case_collisions_pg()
+    }
+
+    fn reader_opener(&self) -> Option<ReaderOpener> {
+        let target = self.target.clone();
+        Some(Box::new(move || {
+            let reader = PgStore::open_reader(&target)?;
+            Ok(Box::new(reader) as Box<dyn MeasurementStore + Send>)
+        }))
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::storage::maintenance::MaintenanceStore;
+    use crate::storage::postgres::testing;
+    use crate::storage::Store;
+
+    const CONFIG: &str = r#"
+[plant]
+name = "Invented test plant"
+time_zone = "Europe/Berlin"
+
+[[characteristic]]
+name = "bore"
+unit = "mm"
+lsl = 10.0
+usl = 10.2
+
+[[characteristic]]
+name = "pitch"
+unit = "mm"
+
+[[factor]]
+name = "machine"
+[[factor]]
+name = "cavity"
+"#;
+
+    /// The same measurements written by hand into both backends (ids given, so both agree),
+    /// in SQL that both accept: two machines, two cavities, shots as subgroups, a level set
+    /// whose cavity level differs only in case, and one row outside the period.
+    const ROWS: &str = "
+        INSERT INTO imports (id, file_name, path, sha256, layout, started_ms, finished_ms,
+            rows_read, accepted, rejected) VALUES (1, 'a.csv', 'a.csv', 'x', 'long', 0, 0, 7, 7, 0);
+        INSERT INTO levels (id, factor_id, name) VALUES (1, 1, 'M10'), (2, 1, 'M2'),
+            (3, 2, 'c1'), (4, 2, 'C1 ');
+        INSERT INTO level_sets (id, key) VALUES (1, '1,3'), (2, '2,3'), (3, '2,4');
+        INSERT INTO level_set_members (level_set_id, factor_id, level_id) VALUES
+            (1, 1, 1), (1, 2, 3), (2, 1, 2), (2, 2, 3), (3, 1, 2), (3, 2, 4);
+        UPDATE characteristics SET origin = '10.1', decimals = 3 WHERE name = 'bore';
+        INSERT INTO measurements (characteristic_id, ts_ms, import_id, line, value, level_set_id,
+            part, subgroup) VALUES
+            (1, 1000, 1, 2, 0.001, 1, NULL, 's1'), (1, 1000, 1, 3, -0.002, 2, NULL, 's1'),
+            (1, 2000, 1, 4, 0.0125, 3, NULL, 's2'), (1, 3000, 1, 5, 1e-300, 1, 'p9', NULL),
+            (1, 90000000, 1, 6, 0.5, 1, NULL, NULL),
+            (2, 1500, 1, 7, 3.25, 2, NULL, NULL), (2, 500, 1, 8, -1.5, 1, NULL, NULL);
+    ";
+
+    #[test]
+    fn the_same_rows_read_the_same_on_both_backends() {
+        let Some(mut pg) = testing::store() else {
+            return;
+        };
+        let config = crate::config::Config::from_toml_str(CONFIG, "plant.toml").unwrap();
+        let mut sqlite = Store::open_in_memory().unwrap();
+        let report_sqlite = MaintenanceStore::sync_config(&mut sqlite, &config).unwrap();
+        let report_pg = MaintenanceStore::sync_config(&mut *pg, &config).unwrap();
+        assert_eq!(report_pg, report_sqlite);
+        assert_eq!(report_pg.characteristics_added, ["bore", "pitch"]);
+        // A second sync changes nothing on either.
+        assert!(MaintenanceStore::sync_config(&mut *pg, &config)
+            .unwrap()
+            .is_unchanged());
+        sqlite.conn.execute_batch(ROWS).unwrap();
+        pg.conn().batch_execute(ROWS).unwrap();
+        assert_eq!(
+            pg.characteristics().unwrap(),
+            sqlite.characteristics().unwrap()
+        );
+        assert_eq!(
+            pg.factors().unwrap(),
+            MeasurementStore::factors(&sqlite).unwrap()
+        );
+        let t0 = DateTime::from_timestamp_millis(0).unwrap();
+        let t1 = DateTime::from_timestamp_millis(86_400_000).unwrap();
+        for names in [None, Some(vec!["pitch".to_string(), "bore".to_string()])] {
+            let a = MeasurementStore::load_period(&sqlite, t0, t1, names.as_deref()).unwrap();
+            let b = pg.load_period(t0, t1, names.as_deref()).unwrap();
+            assert_eq!(a, b);
+            // Read twice (the second from the level cache), the same.
+            assert_eq!(pg.load_period(t0, t1, names.as_deref()).unwrap(), b);
+        }
+        let frame = pg.load_period(t0, t1, None).unwrap();
+        assert_eq!(frame.factors[0].levels, ["M2", "M10"]);
+        assert_eq!(frame.characteristics[0].values.len(), 4);
+        assert_eq!(
+            frame.characteristics[0].values[3].to_bits(),
+            1e-300f64.to_bits()
+        );
+        assert_eq!(
+            pg.count_between(t0, t1).unwrap(),
+            MeasurementStore::count_between(&sqlite, t0, t1).unwrap()
+        );
+        assert!(pg.has_data_between(t0, t1).unwrap());
+        let t2 = DateTime::from_timestamp_millis(100_000_000).unwrap();
+        assert!(!pg
+            .has_data_between(
+                t1 + chrono::Duration::days(1),
+                t2 + chrono::Duration::days(1)
+            )
+            .unwrap());
+        assert_eq!(
+            pg.level_case_collisions().unwrap(),
+            MeasurementStore::level_case_collisions(&sqlite).unwrap()
+        );
+        assert_eq!(pg.level_case_collisions().unwrap().len(), 1);
+        let (sa, sb) = (
+            MaintenanceStore::status(&sqlite).unwrap(),
+            pg.status().unwrap(),
+        );
+        assert_eq!(sa.characteristics, sb.characteristics);
+        assert_eq!(sa.schema_version, sb.schema_version);
+        let (ia, ib) = (
+            MaintenanceStore::integrity_check(&sqlite).unwrap(),
+            pg.integrity_check().unwrap(),
+        );
+        assert!(ib.is_ok(), "{ib:?}");
+        assert_eq!(ia.counts, ib.counts);
+        // A second reader sees the same.
+        let reader = (pg.reader_opener().unwrap())().unwrap();
+        assert_eq!(reader.load_period(t0, t1, None).unwrap(), frame);
+        // The measurement view reads values in units on both.
+        let v: f64 = pg
+            .conn()
+            .query_one(
+                "SELECT value FROM measurement_values WHERE line = 4 AND machine = 'M2'",
+                &[],
+            )
+            .unwrap()
+            .get(0);
+        assert_eq!(v, 10.1 + 0.0125);
+    }
+
+    #[test]
+    fn db_check_finds_an_import_whose_counts_disagree() {
+        let Some(mut pg) = testing::store() else {
+            return;
+        };
+        let config = crate::config::Config::from_toml_str(CONFIG, "plant.toml").unwrap();
+        MaintenanceStore::sync_config(&mut *pg, &config).unwrap();
+        pg.conn().batch_execute(ROWS).unwrap();
+        pg.conn()
+            .batch_execute("UPDATE imports SET accepted = 8, rows_read = 8 WHERE id = 1")
+            .unwrap();
+        let report = pg.integrity_check().unwrap();
+        assert!(!report.is_ok());
+        assert!(
+            report.problems[0].contains("recorded 8 stored"),
+            "{:?}",
+            report.problems
+        );
+        let err = pg.backup(Path::new("/tmp/x.dump")).unwrap_err().to_string();
+        assert!(err.contains("pg_dump --schema="), "{err}");
+    }
+
+    #[test]
+    fn an_empty_site_reads_empty_and_names_an_unknown_characteristic() {
+        let Some(store) = testing::store() else {
+            return;
+        };
+        let t0 = DateTime::from_timestamp_millis(0).unwrap();
+        let t1 = DateTime::from_timestamp_millis(86_400_000).unwrap();
+        assert!(store.characteristics().unwrap().is_empty());
+        assert!(!store.has_data_between(t0, t1).unwrap());
+        let frame = store.load_period(t0, t1, None).unwrap();
+        assert!(frame.characteristics.is_empty());
+        let err = store
+            .load_period(t0, t1, Some(&["bore".to_string()]))
+            .unwrap_err();
+        assert!(err.to_string().contains("unknown characteristic"), "{err}");
+    }
+}
