@@ -25,7 +25,10 @@ use crate::stats::decimal::Decimal;
 use crate::{Error, Result};
 
 use super::imports::{ImportRecord, UndoReport};
-use super::master::{load_characteristics, LevelSetWriter};
+use super::master::{
+    load_characteristics, load_factors, LevelSetStore, LevelSetWriter, StoredCharacteristic,
+    StoredFactor,
+};
 use super::Store;
 
 /// Accepted rows per batch handed from the reading thread to the writing one. Each batch is
@@ -172,12 +175,12 @@ const ORIGIN_SAMPLE: usize = 31;
 /// One accepted measurement on its way to the writer. `characteristic` and `level_set` are the
 /// reading thread's indices until the writer replaces them with database ids.
 #[derive(Debug, Clone, Copy)]
-struct Row {
-    characteristic: i64,
-    ts_ms: i64,
-    line: i64,
-    value: f64,
-    level_set: i64,
+pub(crate) struct Row {
+    pub(crate) characteristic: i64,
+    pub(crate) ts_ms: i64,
+    pub(crate) line: i64,
+    pub(crate) value: f64,
+    pub(crate) level_set: i64,
     /// Index into `Batch::parts`, or [`NO_PART`].
     part: u32,
     /// Index into `Batch::subgroups`, or [`NO_PART`].
@@ -517,21 +520,15 @@ impl IdentityLookup {
         }
     }
 
-    fn load_members(&mut self, conn: &Connection, set: i64) -> Result<()> {
+    fn load_members(&mut self, w: &mut impl ImportWriter, set: i64) -> Result<()> {
         if let std::collections::hash_map::Entry::Vacant(e) = self.members.entry(set) {
-            let rows: Vec<(i64, i64)> = conn
-                .prepare_cached(
-                    "SELECT factor_id, level_id FROM level_set_members WHERE level_set_id = ?1",
-                )?
-                .query_map([set], |r| Ok((r.get(0)?, r.get(1)?)))?
-                .collect::<rusqlite::Result<_>>()?;
-            e.insert(rows);
+            e.insert(w.level_set_members(set)?);
         }
         Ok(())
     }
 
     /// Whether two level sets agree on every identity factor.
-    fn same_levels(&mut self, conn: &Connection, a: i64, b: i64) -> Result<bool> {
+    fn same_levels(&mut self, w: &mut impl ImportWriter, a: i64, b: i64) -> Result<bool> {
         if a == b {
             return Ok(true);
         }
@@ -539,8 +536,8 @@ impl IdentityLookup {
             // A level set is one combination of every factor: another id, other levels.
             return Ok(false);
         }
-        self.load_members(conn, a)?;
-        self.load_members(conn, b)?;
+        self.load_members(w, a)?;
+        self.load_members(w, b)?;
         let (a_members, b_members) = (&self.members[&a], &self.members[&b]);
         Ok(self.factor_ids.iter().all(|f| {
             let level = |m: &[(i64, i64)]| m.iter().find(|x| x.0 == *f).map(|x| x.1);
@@ -552,47 +549,37 @@ impl IdentityLookup {
     /// them has it (a duplicate), else the first one's (a conflict); `None` when none is stored.
     fn stored_value(
         &mut self,
-        conn: &Connection,
+        w: &mut impl ImportWriter,
         row: &Row,
         part: Option<&str>,
     ) -> Result<Option<f64>> {
         if self.part && part.is_none() {
             return Ok(None);
         }
-        let candidates: Vec<(f64, i64, Option<String>)> = if self.time && self.all_factors {
-            conn.prepare_cached(
-                "SELECT value, level_set_id, part FROM measurements \
-                 WHERE characteristic_id = ?1 AND ts_ms = ?2 AND level_set_id = ?3",
-            )?
-            .query_map(params![row.characteristic, row.ts_ms, row.level_set], |r| {
-                Ok((r.get(0)?, r.get(1)?, r.get(2)?))
-            })?
-            .collect::<rusqlite::Result<_>>()?
+        let by = if self.time && self.all_factors {
+            Candidates::TimeAndLevels {
+                characteristic: row.characteristic,
+                ts_ms: row.ts_ms,
+                level_set: row.level_set,
+            }
         } else if self.time {
-            conn.prepare_cached(
-                "SELECT value, level_set_id, part FROM measurements \
-                 WHERE characteristic_id = ?1 AND ts_ms = ?2",
-            )?
-            .query_map(params![row.characteristic, row.ts_ms], |r| {
-                Ok((r.get(0)?, r.get(1)?, r.get(2)?))
-            })?
-            .collect::<rusqlite::Result<_>>()?
+            Candidates::Time {
+                characteristic: row.characteristic,
+                ts_ms: row.ts_ms,
+            }
         } else {
-            conn.prepare_cached(
-                "SELECT value, level_set_id, part FROM measurements \
-                 WHERE characteristic_id = ?1 AND part = ?2",
-            )?
-            .query_map(params![row.characteristic, part], |r| {
-                Ok((r.get(0)?, r.get(1)?, r.get(2)?))
-            })?
-            .collect::<rusqlite::Result<_>>()?
+            Candidates::Part {
+                characteristic: row.characteristic,
+                part: part.unwrap_or_default(),
+            }
         };
+        let candidates = w.candidates(&by)?;
         let mut first = None;
         for (value, set, stored_part) in candidates {
             if self.part && stored_part.as_deref() != part {
                 continue;
             }
-            if !self.same_levels(conn, set, row.level_set)? {
+            if !self.same_levels(w, set, row.level_set)? {
                 continue;
             }
             if value == row.value {
@@ -704,329 +691,428 @@ impl Store {
         stream: ImportStream<R>,
         options: &ImportOptions,
         early_file: Option<&Path>,
-        mut on_rejection: Option<RejectionSink<'_>>,
+        on_rejection: Option<RejectionSink<'_>>,
     ) -> Result<ImportReport> {
         let clock = Instant::now();
         let writer_start = thread_cpu();
-        let path = stream.path().to_path_buf();
-        let identity = stream.layout().identity.clone();
-        let all_factors = identity.factors.len() == stream.layout().factor_columns.len();
-        let layout = stream.layout().name.clone();
-        let file_name = path
-            .file_name()
-            .map(|n| n.to_string_lossy().into_owned())
-            .unwrap_or_else(|| path.display().to_string());
         let tx = self
             .conn
             .transaction_with_behavior(TransactionBehavior::Immediate)?;
-        tx.execute(
-            "INSERT INTO imports (file_name, path, sha256, layout, started_ms, finished_ms, rows_read, \
-             accepted, rejected, is_forced) VALUES (?1, ?2, '', ?3, ?4, ?4, 0, 0, 0, ?5)",
-            params![
-                file_name,
-                path.display().to_string(),
-                layout,
-                ms(options.started_at),
-                options.force
-            ],
-        )?;
-        let import_id = tx.last_insert_rowid();
-        // While this transaction holds the write lock, other writers can tell who holds it.
-        let _writer_note = super::WriterNote::write(
-            self.path.as_deref(),
-            &format!("import #{import_id} of {file_name}"),
-            options.started_at,
-        );
-
-        let characteristics: Vec<CharacteristicState> = load_characteristics(&tx)?
-            .into_iter()
-            .map(|c| {
-                // No origin yet (no value stored): the configuration's target or the middle of
-                // its limits, so the first value, a typo perhaps, does not fix it for good.
-                let configured = c.origin.is_none().then(|| c.config.configured_origin());
-                let configured = configured.flatten();
-                CharacteristicState {
-                    id: c.id,
-                    name: c.config.name,
-                    origin: c.origin.or(configured),
-                    decimals: c.decimals,
-                    is_changed: configured.is_some(),
-                    pending: Vec::new(),
-                }
-            })
-            .collect();
-        let mut level_sets = LevelSetWriter::load(&tx)?;
-        // Database id per characteristic index and level set id per combination index, in the
-        // order the reading thread numbered them.
-        let mut characteristic_ids: Vec<i64> = characteristics.iter().map(|c| c.id).collect();
-        let mut level_set_ids: Vec<i64> = Vec::new();
-        let mut new_characteristics = Vec::new();
-        // Stored origins by characteristic id, to name both values of a conflict in units.
-        let origins: HashMap<i64, Decimal> = characteristics
-            .iter()
-            .filter_map(|c| c.origin.map(|o| (c.id, o)))
-            .collect();
-        let mut stored_rows = 0u64;
-        // The time range of what this import stores: a checked period it falls in is stale.
-        let (mut ts_min, mut ts_max) = (i64::MAX, i64::MIN);
-        let mut duplicates = 0u64;
-        let mut n_conflicts = 0u64;
-        let mut rejected = 0u64;
-        let mut records = 0u64;
-        let mut not_kept = 0u64;
-        let mut reasons: HashMap<String, u64> = HashMap::new();
-        let mut first_rejections = Vec::new();
-
-        let (sender, receiver) = mpsc::sync_channel::<Batch>(IN_FLIGHT);
-        let mut early_hash_cpu = None;
-        let (reader_result, write_result) = std::thread::scope(|scope| {
-            let mut early = early_file.map(|file| {
-                scope.spawn(move || {
-                    let sha256 = crate::ingest::file_sha256(file);
-                    (sha256, thread_cpu())
-                })
-            });
-            let reader = scope.spawn(move || {
-                let mut interner = Interner::new(characteristics);
-                let mut stream = stream;
-                while stream.read_into(&mut interner) {
-                    if interner.batch.is_full() {
-                        interner.resolve_pending();
-                        let mut full = std::mem::take(&mut interner.batch);
-                        sort_rows(&mut full.rows);
-                        if sender.send(full).is_err() {
-                            // The writer stopped on an error; stop reading.
-                            return (stream, interner.characteristics, thread_cpu());
-                        }
-                    }
-                }
-                interner.resolve_pending();
-                if !interner.batch.is_empty() {
-                    let mut last = std::mem::take(&mut interner.batch);
-                    sort_rows(&mut last.rows);
-                    let _ = sender.send(last);
-                }
-                (stream, interner.characteristics, thread_cpu())
-            });
-            let write_result = (|| -> Result<()> {
-                let mut insert_measurement = tx.prepare_cached(
+        let database = self.path.clone();
+        let mut note = None;
+        let (mut report, early_hash) = {
+            let mut w = SqliteImport {
+                conn: &tx,
+                insert_measurement: tx.prepare_cached(
                     "INSERT INTO measurements (characteristic_id, ts_ms, import_id, line, value, level_set_id, part, subgroup) \
                      VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8)",
-                )?;
-                let mut lookup =
-                    IdentityLookup::new(&identity, all_factors, level_sets.factor_ids());
-                let mut latest_stmt = tx.prepare_cached(
+                )?,
+                latest: tx.prepare_cached(
                     "SELECT MAX(ts_ms) FROM measurements WHERE characteristic_id = ?1",
-                )?;
-                let mut latest_stored: HashMap<i64, Option<i64>> = HashMap::new();
-                let mut conflicts: Vec<Rejection> = Vec::new();
-                let mut insert_rejection = tx.prepare_cached(
+                )?,
+                insert_rejection: tx.prepare_cached(
                     "INSERT INTO rejected_rows (import_id, line, column_name, reason, raw, measurements) \
                      VALUES (?1, ?2, ?3, ?4, ?5, ?6)",
-                )?;
-                for mut batch in receiver.iter() {
-                    if early.as_ref().is_some_and(|h| h.is_finished()) {
-                        let hashed = early.take().map(|h| h.join());
-                        if let Some(Ok((sha256, cpu))) = hashed {
-                            early_hash_cpu = cpu;
-                            // A file that cannot be read up front fails the stream as well;
-                            // that error is the one reported.
-                            if let Ok(sha256) = sha256 {
-                                if let Some(prior) = imports_with_sha256(&tx, &sha256)? {
-                                    return Err(Error::AlreadyImported {
-                                        path: path.clone(),
-                                        earlier: prior.to_string(),
-                                    });
-                                }
+                )?,
+                bound_import: None,
+            };
+            drive_import(
+                &mut w,
+                stream,
+                options,
+                early_file,
+                on_rejection,
+                |import_id, file_name| {
+                    // While this transaction holds the write lock, other writers can tell who
+                    // holds it.
+                    note = super::WriterNote::write(
+                        database.as_deref(),
+                        &format!("import #{import_id} of {file_name}"),
+                        options.started_at,
+                    );
+                },
+            )?
+        };
+        let commit_start = thread_cpu();
+        tx.commit()?;
+        drop(note);
+        let writer_end = thread_cpu();
+        report.cpu.writer = cpu_between(writer_start, writer_end);
+        report.cpu.commit = cpu_between(commit_start, writer_end);
+        report.cpu.early_hash = early_hash;
+        report.elapsed = clock.elapsed();
+        Ok(report)
+    }
+}
+
+/// Where [`ImportWriter::candidates`] looks for stored measurements with a row's identity.
+#[derive(Debug, Clone, Copy)]
+pub(crate) enum Candidates<'a> {
+    /// Same characteristic, instant and level set (the identity is time and every factor).
+    TimeAndLevels {
+        characteristic: i64,
+        ts_ms: i64,
+        level_set: i64,
+    },
+    /// Same characteristic and instant (some factors, or none, belong to the identity).
+    Time { characteristic: i64, ts_ms: i64 },
+    /// Same characteristic and part id (the identity has no time).
+    Part { characteristic: i64, part: &'a str },
+}
+
+/// What an import writes at its end into its own import row.
+#[derive(Debug, Clone)]
+pub(crate) struct FinishedImport<'a> {
+    pub(crate) sha256: &'a str,
+    pub(crate) finished_ms: i64,
+    pub(crate) rows_read: i64,
+    pub(crate) accepted: i64,
+    pub(crate) rejected: i64,
+    pub(crate) duplicates: i64,
+    pub(crate) ts_min_ms: Option<i64>,
+    pub(crate) ts_max_ms: Option<i64>,
+    pub(crate) rejected_not_kept: i64,
+}
+
+/// The database side of one import, inside the import's one transaction: what the import
+/// ([`drive_import`], shared by every backend) asks of a backend. The backend opens the
+/// transaction, hands a writer to `drive_import`, and commits when it returns `Ok`.
+pub(crate) trait ImportWriter: LevelSetStore {
+    /// Writes the import row (counts zero, hash empty until [`ImportWriter::finish_import`]);
+    /// its id.
+    fn begin(
+        &mut self,
+        file_name: &str,
+        path: &str,
+        layout: &str,
+        started_ms: i64,
+        force: bool,
+    ) -> Result<i64>;
+    /// Every stored characteristic, in id order.
+    fn characteristics(&mut self) -> Result<Vec<StoredCharacteristic>>;
+    /// The earliest import with this content hash that stored something and was not undone
+    /// ([`imports_with_sha256`]'s rule).
+    fn prior_import(&mut self, sha256: &str) -> Result<Option<PriorImport>>;
+    /// Stores a characteristic first seen in this file (`--add-new`); its id.
+    fn insert_characteristic(&mut self, name: &str) -> Result<i64>;
+    /// The latest instant stored for a characteristic.
+    fn latest_ts(&mut self, characteristic: i64) -> Result<Option<i64>>;
+    /// The stored measurements (value, level set, part) with an identity, in primary-key order
+    /// (instant, import, line). Sees the rows this import wrote with `visible` set.
+    fn candidates(&mut self, by: &Candidates<'_>) -> Result<Vec<(f64, i64, Option<String>)>>;
+    /// The (factor id, level id) members of a level set.
+    fn level_set_members(&mut self, set: i64) -> Result<Vec<(i64, i64)>>;
+    /// Stores one measurement of import `import_id`. `visible`: a later row of this import may
+    /// look it up as a candidate, so it must be written before the next call to
+    /// [`ImportWriter::candidates`]; other rows may be buffered until [`ImportWriter::flush`].
+    fn write_measurement(
+        &mut self,
+        import_id: i64,
+        row: &Row,
+        part: Option<&str>,
+        subgroup: Option<&str>,
+        visible: bool,
+    ) -> Result<()>;
+    /// Writes what `write_measurement` buffered (at the end of each batch).
+    fn flush(&mut self) -> Result<()>;
+    /// Stores one rejection record of import `import_id`.
+    fn write_rejection(&mut self, import_id: i64, r: &Rejection) -> Result<()>;
+    /// Records a characteristic's origin and decimals.
+    fn set_origin(&mut self, id: i64, origin: Option<String>, decimals: u32) -> Result<()>;
+    /// Completes the import row.
+    fn finish_import(&mut self, import_id: i64, f: &FinishedImport<'_>) -> Result<()>;
+}
+
+/// The file name of an import's path (its display form when it has none, e.g. `-`).
+fn file_name_of(path: &Path) -> String {
+    path.file_name()
+        .map(|n| n.to_string_lossy().into_owned())
+        .unwrap_or_else(|| path.display().to_string())
+}
+
+/// One import through `w`, inside the backend's transaction: every measurement of the stream is
+/// stored, counted as a duplicate or recorded as rejected, and the counts add up; the file is
+/// read on a thread of its own (and, with `early_file`, hashed on a third so a duplicate is
+/// refused early). The backend commits when this returns `Ok`, and rolls back otherwise.
+/// `writer_note` is called with the import's id once its row exists (SQLite's writer note).
+pub(crate) fn drive_import<R: Read + Send, W: ImportWriter>(
+    w: &mut W,
+    stream: ImportStream<R>,
+    options: &ImportOptions,
+    early_file: Option<&Path>,
+    mut on_rejection: Option<RejectionSink<'_>>,
+    writer_note: impl FnOnce(i64, &str),
+) -> Result<(ImportReport, Option<Duration>)> {
+    let clock = Instant::now();
+    let path = stream.path().to_path_buf();
+    let identity = stream.layout().identity.clone();
+    let all_factors = identity.factors.len() == stream.layout().factor_columns.len();
+    let layout = stream.layout().name.clone();
+    let file_name = file_name_of(&path);
+    let import_id = w.begin(
+        &file_name,
+        &path.display().to_string(),
+        &layout,
+        ms(options.started_at),
+        options.force,
+    )?;
+    writer_note(import_id, &file_name);
+
+    let characteristics: Vec<CharacteristicState> = w
+        .characteristics()?
+        .into_iter()
+        .map(|c| {
+            // No origin yet (no value stored): the configuration's target or the middle of
+            // its limits, so the first value, a typo perhaps, does not fix it for good.
+            let configured = c.origin.is_none().then(|| c.config.configured_origin());
+            let configured = configured.flatten();
+            CharacteristicState {
+                id: c.id,
+                name: c.config.name,
+                origin: c.origin.or(configured),
+                decimals: c.decimals,
+                is_changed: configured.is_some(),
+                pending: Vec::new(),
+            }
+        })
+        .collect();
+    let mut level_sets = LevelSetWriter::load(w)?;
+    // Database id per characteristic index and level set id per combination index, in the
+    // order the reading thread numbered them.
+    let mut characteristic_ids: Vec<i64> = characteristics.iter().map(|c| c.id).collect();
+    let mut level_set_ids: Vec<i64> = Vec::new();
+    let mut new_characteristics = Vec::new();
+    // Stored origins by characteristic id, to name both values of a conflict in units.
+    let origins: HashMap<i64, Decimal> = characteristics
+        .iter()
+        .filter_map(|c| c.origin.map(|o| (c.id, o)))
+        .collect();
+    let mut stored_rows = 0u64;
+    // The time range of what this import stores: a checked period it falls in is stale.
+    let (mut ts_min, mut ts_max) = (i64::MAX, i64::MIN);
+    let mut duplicates = 0u64;
+    let mut n_conflicts = 0u64;
+    let mut rejected = 0u64;
+    let mut records = 0u64;
+    let mut not_kept = 0u64;
+    let mut reasons: HashMap<String, u64> = HashMap::new();
+    let mut first_rejections = Vec::new();
+
+    let (sender, receiver) = mpsc::sync_channel::<Batch>(IN_FLIGHT);
+    let mut early_hash_cpu = None;
+    let (reader_result, write_result) = std::thread::scope(|scope| {
+        let mut early = early_file.map(|file| {
+            scope.spawn(move || {
+                let sha256 = crate::ingest::file_sha256(file);
+                (sha256, thread_cpu())
+            })
+        });
+        let reader = scope.spawn(move || {
+            let mut interner = Interner::new(characteristics);
+            let mut stream = stream;
+            while stream.read_into(&mut interner) {
+                if interner.batch.is_full() {
+                    interner.resolve_pending();
+                    let mut full = std::mem::take(&mut interner.batch);
+                    sort_rows(&mut full.rows);
+                    if sender.send(full).is_err() {
+                        // The writer stopped on an error; stop reading.
+                        return (stream, interner.characteristics, thread_cpu());
+                    }
+                }
+            }
+            interner.resolve_pending();
+            if !interner.batch.is_empty() {
+                let mut last = std::mem::take(&mut interner.batch);
+                sort_rows(&mut last.rows);
+                let _ = sender.send(last);
+            }
+            (stream, interner.characteristics, thread_cpu())
+        });
+        let write_result = (|| -> Result<()> {
+            let mut lookup = IdentityLookup::new(&identity, all_factors, level_sets.factor_ids());
+            let mut latest_stored: HashMap<i64, Option<i64>> = HashMap::new();
+            let mut conflicts: Vec<Rejection> = Vec::new();
+            for mut batch in receiver.iter() {
+                if early.as_ref().is_some_and(|h| h.is_finished()) {
+                    let hashed = early.take().map(|h| h.join());
+                    if let Some(Ok((sha256, cpu))) = hashed {
+                        early_hash_cpu = cpu;
+                        // A file that cannot be read up front fails the stream as well;
+                        // that error is the one reported.
+                        if let Ok(sha256) = sha256 {
+                            if let Some(prior) = w.prior_import(&sha256)? {
+                                return Err(Error::AlreadyImported {
+                                    path: path.clone(),
+                                    earlier: prior.to_string(),
+                                });
                             }
-                        }
-                    }
-                    for name in batch.new_characteristics.drain(..) {
-                        tx.execute(
-                            "INSERT INTO characteristics (name, is_configured) VALUES (?1, 0)",
-                            [&name],
-                        )?;
-                        characteristic_ids.push(tx.last_insert_rowid());
-                        new_characteristics.push(name);
-                    }
-                    for names in &batch.new_level_sets {
-                        level_set_ids.push(level_sets.id_for(&tx, names)?);
-                    }
-                    for row in &mut batch.rows {
-                        row.characteristic = characteristic_ids[row.characteristic as usize];
-                        row.level_set = level_set_ids[row.level_set as usize];
-                    }
-                    insert_measurement.raw_bind_parameter(3, import_id)?;
-                    for row in &batch.rows {
-                        let part =
-                            (row.part != NO_PART).then(|| batch.parts[row.part as usize].as_str());
-                        // With the time in the identity, only a row at or before the latest
-                        // instant stored for its characteristic (read before this import wrote
-                        // any) may repeat a stored measurement: an export that overlaps the
-                        // previous one. Identified by its part alone, any row may.
-                        let may_repeat = if identity.time {
-                            let latest = match latest_stored.get(&row.characteristic) {
-                                Some(&t) => t,
-                                None => {
-                                    let t: Option<i64> = latest_stmt
-                                        .query_row([row.characteristic], |r| r.get(0))?;
-                                    latest_stored.insert(row.characteristic, t);
-                                    t
-                                }
-                            };
-                            latest.is_some_and(|t| row.ts_ms <= t)
-                        } else {
-                            part.is_some()
-                        };
-                        if may_repeat {
-                            if let Some(value) = lookup.stored_value(&tx, row, part)? {
-                                if value == row.value {
-                                    duplicates += 1;
-                                } else {
-                                    let origin = origins.get(&row.characteristic);
-                                    let units = |v: f64| {
-                                        origin.map_or(format!("{v} (offset)"), |o| {
-                                            format!("{}", o.plus_offset(v))
-                                        })
-                                    };
-                                    conflicts.push(Rejection {
-                                        line: row.line as u64,
-                                        column: Some("value".to_string()),
-                                        reason: format!(
-                                            "conflicts with a stored measurement of the same characteristic, time and levels: stored \"{}\", this row \"{}\"",
-                                            units(value),
-                                            units(row.value)
-                                        ),
-                                        raw: String::new(),
-                                        measurements: 1,
-                                    });
-                                }
-                                continue;
-                            }
-                        }
-                        insert_measurement.raw_bind_parameter(1, row.characteristic)?;
-                        insert_measurement.raw_bind_parameter(2, row.ts_ms)?;
-                        insert_measurement.raw_bind_parameter(4, row.line)?;
-                        insert_measurement.raw_bind_parameter(5, row.value)?;
-                        insert_measurement.raw_bind_parameter(6, row.level_set)?;
-                        insert_measurement.raw_bind_parameter(7, part)?;
-                        let subgroup = (row.subgroup != NO_PART)
-                            .then(|| batch.subgroups[row.subgroup as usize].as_str());
-                        insert_measurement.raw_bind_parameter(8, subgroup)?;
-                        insert_measurement.raw_execute()?;
-                        stored_rows += 1;
-                        ts_min = ts_min.min(row.ts_ms);
-                        ts_max = ts_max.max(row.ts_ms);
-                    }
-                    n_conflicts += conflicts.len() as u64;
-                    batch.rejections.append(&mut conflicts);
-                    for r in batch.rejections {
-                        if let Some(f) = on_rejection.as_mut() {
-                            f(&r)?;
-                        }
-                        if records < MAX_KEPT_REJECTIONS {
-                            insert_rejection.execute(params![
-                                import_id,
-                                r.line as i64,
-                                r.column,
-                                r.reason,
-                                r.raw,
-                                r.measurements as i64
-                            ])?;
-                        } else {
-                            not_kept += r.measurements;
-                        }
-                        records += 1;
-                        *reasons.entry(reason_kind(&r.reason)).or_insert(0) += r.measurements;
-                        rejected += r.measurements;
-                        if first_rejections.len() < FIRST_REJECTIONS {
-                            first_rejections.push(r);
                         }
                     }
                 }
-                Ok(())
-            })();
-            // Dropping the receiver unblocks a reader still sending after a write error.
-            drop(receiver);
-            let reader_result = reader.join().expect("the import reading thread panicked");
-            if let Some(Ok((_, cpu))) = early.map(|h| h.join()) {
-                early_hash_cpu = cpu;
+                for name in batch.new_characteristics.drain(..) {
+                    characteristic_ids.push(w.insert_characteristic(&name)?);
+                    new_characteristics.push(name);
+                }
+                for names in &batch.new_level_sets {
+                    level_set_ids.push(level_sets.id_for(w, names)?);
+                }
+                for row in &mut batch.rows {
+                    row.characteristic = characteristic_ids[row.characteristic as usize];
+                    row.level_set = level_set_ids[row.level_set as usize];
+                }
+                for row in &batch.rows {
+                    let part =
+                        (row.part != NO_PART).then(|| batch.parts[row.part as usize].as_str());
+                    // With the time in the identity, only a row at or before the latest
+                    // instant stored for its characteristic (read before this import wrote
+                    // any) may repeat a stored measurement: an export that overlaps the
+                    // previous one. Identified by its part alone, any row may.
+                    let may_repeat = if identity.time {
+                        let latest = match latest_stored.get(&row.characteristic) {
+                            Some(&t) => t,
+                            None => {
+                                let t = w.latest_ts(row.characteristic)?;
+                                latest_stored.insert(row.characteristic, t);
+                                t
+                            }
+                        };
+                        latest.is_some_and(|t| row.ts_ms <= t)
+                    } else {
+                        part.is_some()
+                    };
+                    if may_repeat {
+                        if let Some(value) = lookup.stored_value(w, row, part)? {
+                            if value == row.value {
+                                duplicates += 1;
+                            } else {
+                                let origin = origins.get(&row.characteristic);
+                                let units = |v: f64| {
+                                    origin.map_or(format!("{v} (offset)"), |o| {
+                                        format!("{}", o.plus_offset(v))
+                                    })
+                                };
+                                conflicts.push(Rejection {
+                                    line: row.line as u64,
+                                    column: Some("value".to_string()),
+                                    reason: format!(
+                                        "conflicts with a stored measurement of the same characteristic, time and levels: stored \"{}\", this row \"{}\"",
+                                        units(value),
+                                        units(row.value)
+                                    ),
+                                    raw: String::new(),
+                                    measurements: 1,
+                                });
+                            }
+                            continue;
+                        }
+                    }
+                    let subgroup = (row.subgroup != NO_PART)
+                        .then(|| batch.subgroups[row.subgroup as usize].as_str());
+                    // A row that a later row of this file may look up: one in the overlap
+                    // (at or before the latest stored instant), or any row with a part id
+                    // when the identity is the part.
+                    w.write_measurement(import_id, row, part, subgroup, may_repeat)?;
+                    stored_rows += 1;
+                    ts_min = ts_min.min(row.ts_ms);
+                    ts_max = ts_max.max(row.ts_ms);
+                }
+                w.flush()?;
+                n_conflicts += conflicts.len() as u64;
+                batch.rejections.append(&mut conflicts);
+                for r in batch.rejections {
+                    if let Some(f) = on_rejection.as_mut() {
+                        f(&r)?;
+                    }
+                    if records < MAX_KEPT_REJECTIONS {
+                        w.write_rejection(import_id, &r)?;
+                    } else {
+                        not_kept += r.measurements;
+                    }
+                    records += 1;
+                    *reasons.entry(reason_kind(&r.reason)).or_insert(0) += r.measurements;
+                    rejected += r.measurements;
+                    if first_rejections.len() < FIRST_REJECTIONS {
+                        first_rejections.push(r);
+                    }
+                }
             }
-            (reader_result, write_result)
-        });
-        let (stream, characteristics, reader_cpu) = reader_result;
-        let mut stream = stream;
-        write_result?;
-        if let Some(error) = stream.take_error() {
-            return Err(error);
+            Ok(())
+        })();
+        // Dropping the receiver unblocks a reader still sending after a write error.
+        drop(receiver);
+        let reader_result = reader.join().expect("the import reading thread panicked");
+        if let Some(Ok((_, cpu))) = early.map(|h| h.join()) {
+            early_hash_cpu = cpu;
         }
-        let counts = stream.counts();
-        let sha256 = stream
-            .file_sha256()
-            .ok_or_else(|| Error::Ingest {
-                path: path.clone(),
-                line: None,
-                column: None,
-                reason: "the file was not read to the end".to_string(),
-            })?
-            .to_string();
-        // What the reader accepted was stored, found stored already, or conflicts (rejected here).
-        let accepted = stored_rows + duplicates;
-        if accepted + n_conflicts != counts.accepted || rejected != counts.rejected + n_conflicts {
-            return Err(Error::Database(format!(
-                "{}: counts do not add up (stored {stored_rows} + duplicate {duplicates} + rejected {rejected}, read {} + {}); nothing was imported",
-                path.display(),
-                counts.accepted,
-                counts.rejected
-            )));
+        (reader_result, write_result)
+    });
+    let (stream, characteristics, reader_cpu) = reader_result;
+    let mut stream = stream;
+    write_result?;
+    if let Some(error) = stream.take_error() {
+        return Err(error);
+    }
+    let counts = stream.counts();
+    let sha256 = stream
+        .file_sha256()
+        .ok_or_else(|| Error::Ingest {
+            path: path.clone(),
+            line: None,
+            column: None,
+            reason: "the file was not read to the end".to_string(),
+        })?
+        .to_string();
+    // What the reader accepted was stored, found stored already, or conflicts (rejected here).
+    let accepted = stored_rows + duplicates;
+    if accepted + n_conflicts != counts.accepted || rejected != counts.rejected + n_conflicts {
+        return Err(Error::Database(format!(
+            "{}: counts do not add up (stored {stored_rows} + duplicate {duplicates} + rejected {rejected}, read {} + {}); nothing was imported",
+            path.display(),
+            counts.accepted,
+            counts.rejected
+        )));
+    }
+    let prior = w.prior_import(&sha256)?;
+    if let Some(prior) = &prior {
+        if !options.force {
+            return Err(Error::AlreadyImported {
+                path,
+                earlier: prior.to_string(),
+            });
         }
-        let prior = imports_with_sha256(&tx, &sha256)?;
-        if let Some(prior) = &prior {
-            if !options.force {
-                return Err(Error::AlreadyImported {
-                    path,
-                    earlier: prior.to_string(),
-                });
-            }
-        }
-        for (i, c) in characteristics
-            .iter()
-            .enumerate()
-            .filter(|(_, c)| c.is_changed)
-        {
-            tx.execute(
-                "UPDATE characteristics SET origin = ?2, decimals = ?3 WHERE id = ?1",
-                params![
-                    characteristic_ids[i],
-                    c.origin.map(|o| o.to_string()),
-                    c.decimals
-                ],
-            )?;
-        }
-        let elapsed = clock.elapsed();
-        let finished = options.started_at + chrono::Duration::from_std(elapsed).unwrap_or_default();
-        tx.execute(
-            "UPDATE imports SET sha256 = ?2, finished_ms = ?3, rows_read = ?4, accepted = ?5, rejected = ?6, \
-             duplicates = ?7, ts_min_ms = ?8, ts_max_ms = ?9, rejected_not_kept = ?10 WHERE id = ?1",
-            params![
-                import_id,
-                sha256,
-                ms(finished),
-                (accepted + rejected) as i64,
-                accepted as i64,
-                rejected as i64,
-                duplicates as i64,
-                (stored_rows > 0).then_some(ts_min),
-                (stored_rows > 0).then_some(ts_max),
-                not_kept as i64
-            ],
+    }
+    for (i, c) in characteristics
+        .iter()
+        .enumerate()
+        .filter(|(_, c)| c.is_changed)
+    {
+        w.set_origin(
+            characteristic_ids[i],
+            c.origin.map(|o| o.to_string()),
+            c.decimals,
         )?;
-        let commit_start = thread_cpu();
-        tx.commit()?;
-        let writer_end = thread_cpu();
-        let mut reasons: Vec<(String, u64)> = reasons.into_iter().collect();
-        reasons.sort_by(|a, b| b.1.cmp(&a.1).then_with(|| a.0.cmp(&b.0)));
-        Ok(ImportReport {
+    }
+    let elapsed = clock.elapsed();
+    let finished = options.started_at + chrono::Duration::from_std(elapsed).unwrap_or_default();
+    w.finish_import(
+        import_id,
+        &FinishedImport {
+            sha256: &sha256,
+            finished_ms: ms(finished),
+            rows_read: (accepted + rejected) as i64,
+            accepted: accepted as i64,
+            rejected: rejected as i64,
+            duplicates: duplicates as i64,
+            ts_min_ms: (stored_rows > 0).then_some(ts_min),
+            ts_max_ms: (stored_rows > 0).then_some(ts_max),
+            rejected_not_kept: not_kept as i64,
+        },
+    )?;
+    let mut reasons: Vec<(String, u64)> = reasons.into_iter().collect();
+    reasons.sort_by(|a, b| b.1.cmp(&a.1).then_with(|| a.0.cmp(&b.0)));
+    Ok((
+        ImportReport {
             import_id,
             path,
             sha256,
@@ -1045,11 +1131,217 @@ impl Store {
             elapsed: clock.elapsed(),
             cpu: ImportCpu {
                 reader: reader_cpu,
-                writer: cpu_between(writer_start, writer_end),
-                commit: cpu_between(commit_start, writer_end),
-                early_hash: early_hash_cpu,
+                writer: None,
+                commit: None,
+                early_hash: None,
             },
-        })
+        },
+        early_hash_cpu,
+    ))
+}
+
+/// SQLite's side of an import: statements prepared once on the import's transaction; every
+/// measurement is written at once (SQLite's own writes are visible to its reads), so `visible`
+/// and `flush` need nothing.
+struct SqliteImport<'c> {
+    conn: &'c Connection,
+    insert_measurement: rusqlite::CachedStatement<'c>,
+    latest: rusqlite::CachedStatement<'c>,
+    insert_rejection: rusqlite::CachedStatement<'c>,
+    bound_import: Option<i64>,
+}
+
+impl LevelSetStore for SqliteImport<'_> {
+    fn stored_factors(&mut self) -> Result<Vec<StoredFactor>> {
+        load_factors(self.conn)
+    }
+    fn levels_of(&mut self, factor_id: i64) -> Result<Vec<(String, i64)>> {
+        let mut stmt = self
+            .conn
+            .prepare_cached("SELECT name, id FROM levels WHERE factor_id = ?1")?;
+        let rows = stmt.query_map([factor_id], |r| Ok((r.get(0)?, r.get(1)?)))?;
+        Ok(rows.collect::<rusqlite::Result<_>>()?)
+    }
+    fn has_level_sets(&mut self) -> Result<bool> {
+        Ok(self
+            .conn
+            .query_row("SELECT EXISTS (SELECT 1 FROM level_sets)", [], |r| r.get(0))?)
+    }
+    fn insert_level(&mut self, factor_id: i64, name: &str) -> Result<i64> {
+        self.conn
+            .prepare_cached("INSERT INTO levels (factor_id, name) VALUES (?1, ?2)")?
+            .execute(params![factor_id, name])?;
+        Ok(self.conn.last_insert_rowid())
+    }
+    fn find_level_set(&mut self, key: &str) -> Result<Option<i64>> {
+        Ok(self
+            .conn
+            .prepare_cached("SELECT id FROM level_sets WHERE key = ?1")?
+            .query_row([key], |r| r.get(0))
+            .optional()?)
+    }
+    fn insert_level_set(&mut self, key: &str, members: &[(i64, i64)]) -> Result<i64> {
+        self.conn
+            .prepare_cached("INSERT INTO level_sets (key) VALUES (?1)")?
+            .execute([key])?;
+        let id = self.conn.last_insert_rowid();
+        let mut insert = self.conn.prepare_cached(
+            "INSERT INTO level_set_members (level_set_id, factor_id, level_id) VALUES (?1, ?2, ?3)",
+        )?;
+        insert.raw_bind_parameter(1, id)?;
+        for (factor_id, level_id) in members {
+            insert.raw_bind_parameter(2, factor_id)?;
+            insert.raw_bind_parameter(3, level_id)?;
+            insert.raw_execute()?;
+        }
+        Ok(id)
+    }
+}
+
+impl ImportWriter for SqliteImport<'_> {
+    fn begin(
+        &mut self,
+        file_name: &str,
+        path: &str,
+        layout: &str,
+        started_ms: i64,
+        force: bool,
+    ) -> Result<i64> {
+        self.conn.execute(
+            "INSERT INTO imports (file_name, path, sha256, layout, started_ms, finished_ms, rows_read, \
+             accepted, rejected, is_forced) VALUES (?1, ?2, '', ?3, ?4, ?4, 0, 0, 0, ?5)",
+            params![file_name, path, layout, started_ms, force],
+        )?;
+        Ok(self.conn.last_insert_rowid())
+    }
+    fn characteristics(&mut self) -> Result<Vec<StoredCharacteristic>> {
+        load_characteristics(self.conn)
+    }
+    fn prior_import(&mut self, sha256: &str) -> Result<Option<PriorImport>> {
+        imports_with_sha256(self.conn, sha256)
+    }
+    fn insert_characteristic(&mut self, name: &str) -> Result<i64> {
+        self.conn.execute(
+            "INSERT INTO characteristics (name, is_configured) VALUES (?1, 0)",
+            [name],
+        )?;
+        Ok(self.conn.last_insert_rowid())
+    }
+    fn latest_ts(&mut self, characteristic: i64) -> Result<Option<i64>> {
+        Ok(self.latest.query_row([characteristic], |r| r.get(0))?)
+    }
+    fn candidates(&mut self, by: &Candidates<'_>) -> Result<Vec<(f64, i64, Option<String>)>> {
+        let get = |r: &rusqlite::Row<'_>| Ok((r.get(0)?, r.get(1)?, r.get(2)?));
+        let rows = match *by {
+            Candidates::TimeAndLevels {
+                characteristic,
+                ts_ms,
+                level_set,
+            } => self
+                .conn
+                .prepare_cached(
+                    "SELECT value, level_set_id, part FROM measurements \
+                     WHERE characteristic_id = ?1 AND ts_ms = ?2 AND level_set_id = ?3",
+                )?
+                .query_map(params![characteristic, ts_ms, level_set], get)?
+                .collect::<rusqlite::Result<_>>()?,
+            Candidates::Time {
+                characteristic,
+                ts_ms,
+            } => self
+                .conn
+                .prepare_cached(
+                    "SELECT value, level_set_id, part FROM measurements \
+                     WHERE characteristic_id = ?1 AND ts_ms = ?2",
+                )?
+                .query_map(params![characteristic, ts_ms], get)?
+                .collect::<rusqlite::Result<_>>()?,
+            Candidates::Part {
+                characteristic,
+                part,
+            } => self
+                .conn
+                .prepare_cached(
+                    "SELECT value, level_set_id, part FROM measurements \
+                     WHERE characteristic_id = ?1 AND part = ?2",
+                )?
+                .query_map(params![characteristic, part], get)?
+                .collect::<rusqlite::Result<_>>()?,
+        };
+        Ok(rows)
+    }
+    fn level_set_members(&mut self, set: i64) -> Result<Vec<(i64, i64)>> {
+        Ok(self
+            .conn
+            .prepare_cached(
+                "SELECT factor_id, level_id FROM level_set_members WHERE level_set_id = ?1",
+            )?
+            .query_map([set], |r| Ok((r.get(0)?, r.get(1)?)))?
+            .collect::<rusqlite::Result<_>>()?)
+    }
+    #[inline]
+    fn write_measurement(
+        &mut self,
+        import_id: i64,
+        row: &Row,
+        part: Option<&str>,
+        subgroup: Option<&str>,
+        _visible: bool,
+    ) -> Result<()> {
+        let stmt = &mut self.insert_measurement;
+        if self.bound_import != Some(import_id) {
+            stmt.raw_bind_parameter(3, import_id)?;
+            self.bound_import = Some(import_id);
+        }
+        stmt.raw_bind_parameter(1, row.characteristic)?;
+        stmt.raw_bind_parameter(2, row.ts_ms)?;
+        stmt.raw_bind_parameter(4, row.line)?;
+        stmt.raw_bind_parameter(5, row.value)?;
+        stmt.raw_bind_parameter(6, row.level_set)?;
+        stmt.raw_bind_parameter(7, part)?;
+        stmt.raw_bind_parameter(8, subgroup)?;
+        stmt.raw_execute()?;
+        Ok(())
+    }
+    fn flush(&mut self) -> Result<()> {
+        Ok(())
+    }
+    fn write_rejection(&mut self, import_id: i64, r: &Rejection) -> Result<()> {
+        self.insert_rejection.execute(params![
+            import_id,
+            r.line as i64,
+            r.column,
+            r.reason,
+            r.raw,
+            r.measurements as i64
+        ])?;
+        Ok(())
+    }
+    fn set_origin(&mut self, id: i64, origin: Option<String>, decimals: u32) -> Result<()> {
+        self.conn.execute(
+            "UPDATE characteristics SET origin = ?2, decimals = ?3 WHERE id = ?1",
+            params![id, origin, decimals],
+        )?;
+        Ok(())
+    }
+    fn finish_import(&mut self, import_id: i64, f: &FinishedImport<'_>) -> Result<()> {
+        self.conn.execute(
+            "UPDATE imports SET sha256 = ?2, finished_ms = ?3, rows_read = ?4, accepted = ?5, rejected = ?6, \
+             duplicates = ?7, ts_min_ms = ?8, ts_max_ms = ?9, rejected_not_kept = ?10 WHERE id = ?1",
+            params![
+                import_id,
+                f.sha256,
+                f.finished_ms,
+                f.rows_read,
+                f.accepted,
+                f.rejected,
+                f.duplicates,
+                f.ts_min_ms,
+                f.ts_max_ms,
+                f.rejected_not_kept
+            ],
+        )?;
+        Ok(())
     }
 }
 

@@ -9,7 +9,7 @@
 
 use std::collections::HashMap;
 
-use rusqlite::{params, Connection, OptionalExtension, TransactionBehavior};
+use rusqlite::{params, Connection, TransactionBehavior};
 
 use crate::config::{CharacteristicConfig, Config, FactorSource};
 use crate::stats::decimal::Decimal;
@@ -487,25 +487,22 @@ pub(crate) struct LevelSetWriter {
 }
 
 impl LevelSetWriter {
-    pub(crate) fn load(conn: &Connection) -> Result<LevelSetWriter> {
-        let factors: Vec<StoredFactor> = load_factors(conn)?
+    /// Reads the configured factors and their levels through the import's writer.
+    pub(crate) fn load(w: &mut impl LevelSetStore) -> Result<LevelSetWriter> {
+        let factors: Vec<StoredFactor> = w
+            .stored_factors()?
             .into_iter()
             .filter(|f| f.is_configured)
             .collect();
         let mut levels = Vec::with_capacity(factors.len());
-        let mut stmt = conn.prepare_cached("SELECT name, id FROM levels WHERE factor_id = ?1")?;
         for f in &factors {
-            let rows = stmt.query_map([f.id], |r| {
-                Ok((r.get::<_, String>(0)?, r.get::<_, i64>(1)?))
-            })?;
-            levels.push(rows.collect::<rusqlite::Result<HashMap<_, _>>>()?);
+            levels.push(w.levels_of(f.id)?.into_iter().collect::<HashMap<_, _>>());
         }
         Ok(LevelSetWriter {
             factor_ids: factors.iter().map(|f| f.id).collect(),
             levels,
             created: 0,
-            had_sets: conn
-                .query_row("SELECT EXISTS (SELECT 1 FROM level_sets)", [], |r| r.get(0))?,
+            had_sets: w.has_level_sets()?,
             new_levels: Default::default(),
         })
     }
@@ -518,11 +515,7 @@ impl LevelSetWriter {
     /// The level set id of a combination of levels (in configuration order), creating it if new.
     /// The caller asks once per distinct combination (the import interns them), so nothing is
     /// cached here: a second call with the same names in one import could create it twice.
-    pub(crate) fn id_for(&mut self, conn: &Connection, names: &[String]) -> Result<i64> {
-        self.resolve(conn, names)
-    }
-
-    fn resolve(&mut self, conn: &Connection, names: &[String]) -> Result<i64> {
+    pub(crate) fn id_for(&mut self, w: &mut impl LevelSetStore, names: &[String]) -> Result<i64> {
         if names.len() != self.factor_ids.len() {
             return Err(Error::Database(format!(
                 "a measurement has {} factor levels but the database has {} configured factors; \
@@ -536,9 +529,7 @@ impl LevelSetWriter {
             let level_id = match self.levels[f].get(name) {
                 Some(&id) => id,
                 None => {
-                    conn.prepare_cached("INSERT INTO levels (factor_id, name) VALUES (?1, ?2)")?
-                        .execute(params![self.factor_ids[f], name])?;
-                    let id = conn.last_insert_rowid();
+                    let id = w.insert_level(self.factor_ids[f], name)?;
                     self.levels[f].insert(name.clone(), id);
                     self.new_levels.insert(id);
                     id
@@ -549,34 +540,36 @@ impl LevelSetWriter {
         members.sort_unstable();
         let key = level_set_key(&members);
         let may_exist = self.had_sets && !members.iter().any(|(_, l)| self.new_levels.contains(l));
-        let existing: Option<i64> = if may_exist {
-            conn.prepare_cached("SELECT id FROM level_sets WHERE key = ?1")?
-                .query_row([&key], |r| r.get(0))
-                .optional()?
+        let existing = if may_exist {
+            w.find_level_set(&key)?
         } else {
             None
         };
-        let id = match existing {
-            Some(id) => id,
+        match existing {
+            Some(id) => Ok(id),
             None => {
-                conn.prepare_cached("INSERT INTO level_sets (key) VALUES (?1)")?
-                    .execute([&key])?;
-                let id = conn.last_insert_rowid();
-                let mut insert = conn.prepare_cached(
-                    "INSERT INTO level_set_members (level_set_id, factor_id, level_id) VALUES (?1, ?2, ?3)",
-                )?;
-                insert.raw_bind_parameter(1, id)?;
-                for (factor_id, level_id) in &members {
-                    insert.raw_bind_parameter(2, factor_id)?;
-                    insert.raw_bind_parameter(3, level_id)?;
-                    insert.raw_execute()?;
-                }
                 self.created += 1;
-                id
+                w.insert_level_set(&key, &members)
             }
-        };
-        Ok(id)
+        }
     }
+}
+
+/// What [`LevelSetWriter`] reads and writes, inside an import's transaction (each backend's
+/// import writer implements it).
+pub(crate) trait LevelSetStore {
+    /// Every stored factor ([`MeasurementStore::factors`](super::MeasurementStore::factors) order).
+    fn stored_factors(&mut self) -> Result<Vec<StoredFactor>>;
+    /// The levels of one factor: (name, id).
+    fn levels_of(&mut self, factor_id: i64) -> Result<Vec<(String, i64)>>;
+    /// Whether any level set is stored.
+    fn has_level_sets(&mut self) -> Result<bool>;
+    /// Stores a new level of a factor; its id.
+    fn insert_level(&mut self, factor_id: i64, name: &str) -> Result<i64>;
+    /// The level set with this key, if stored.
+    fn find_level_set(&mut self, key: &str) -> Result<Option<i64>>;
+    /// Stores a new level set with its (factor id, level id) members; its id.
+    fn insert_level_set(&mut self, key: &str, members: &[(i64, i64)]) -> Result<i64>;
 }
 
 /// The `level_sets.key` of a combination: member level ids in factor-id order, comma-separated.
