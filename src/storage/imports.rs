@@ -64,6 +64,55 @@ pub struct UndoReport {
     pub rejections_removed: u64,
 }
 
+/// Every import in id order, undos included (the same SQL on both backends).
+pub(crate) const IMPORT_RECORDS_SQL: &str =
+    "SELECT i.id, i.file_name, i.path, i.sha256, i.layout, i.started_ms, i.finished_ms, \
+            i.rows_read, i.accepted - i.duplicates, i.duplicates, i.rejected, \
+            i.rejected_not_kept, i.is_forced, i.ts_min_ms, i.ts_max_ms, i.undoes, \
+            (SELECT u.id FROM imports u WHERE u.undoes = i.id) \
+     FROM imports i ORDER BY i.id";
+
+/// Why an undo was refused (nothing changed).
+#[derive(Debug, Clone)]
+pub(crate) enum UndoRefusal {
+    /// No import has the id; the last one has `last`.
+    Unknown { last: i64 },
+    /// The id records an undo itself.
+    IsAnUndo { undoes: i64 },
+    /// The import was undone already.
+    UndoneAlready { file_name: String, by: i64 },
+    /// The stored measurements do not match the import's record.
+    CountsDisagree {
+        file_name: String,
+        stored: i64,
+        removed: u64,
+    },
+}
+
+/// The error for an undo of import `id` that was refused (the same words on every backend).
+pub(crate) fn undo_refusal(id: i64, why: UndoRefusal) -> Error {
+    match why {
+        UndoRefusal::Unknown { last } => Error::Usage(format!(
+            "there is no import #{id} (the last is #{last}; `samewise import list` shows them)"
+        )),
+        UndoRefusal::IsAnUndo { undoes } => Error::Usage(format!(
+            "import #{id} records the undo of import #{undoes}; an undo cannot be undone \
+             (import the file again)"
+        )),
+        UndoRefusal::UndoneAlready { file_name, by } => Error::Usage(format!(
+            "import #{id} ({file_name}) was undone already, by #{by}"
+        )),
+        UndoRefusal::CountsDisagree {
+            file_name,
+            stored,
+            removed,
+        } => Error::Database(format!(
+            "import #{id} ({file_name}) recorded {stored} stored measurements but {removed} \
+             were found in its time range; nothing was undone (run `samewise db check`)"
+        )),
+    }
+}
+
 fn instant(ms: i64) -> DateTime<Utc> {
     Utc.timestamp_millis_opt(ms).single().unwrap_or_default()
 }
@@ -71,13 +120,7 @@ fn instant(ms: i64) -> DateTime<Utc> {
 impl Store {
     /// Every import in id order, undos included.
     pub fn import_records(&self) -> Result<Vec<ImportRecord>> {
-        let mut stmt = self.conn.prepare(
-            "SELECT i.id, i.file_name, i.path, i.sha256, i.layout, i.started_ms, i.finished_ms, \
-                    i.rows_read, i.accepted - i.duplicates, i.duplicates, i.rejected, \
-                    i.rejected_not_kept, i.is_forced, i.ts_min_ms, i.ts_max_ms, i.undoes, \
-                    (SELECT u.id FROM imports u WHERE u.undoes = i.id) \
-             FROM imports i ORDER BY i.id",
-        )?;
+        let mut stmt = self.conn.prepare(IMPORT_RECORDS_SQL)?;
         let rows = stmt.query_map([], |r| {
             Ok(ImportRecord {
                 id: r.get(0)?,
@@ -135,15 +178,10 @@ impl Store {
         let Some((file_name, path, layout, stored, undoes, mut ts_min, mut ts_max)) = found else {
             let last: i64 =
                 tx.query_row("SELECT COALESCE(MAX(id), 0) FROM imports", [], |r| r.get(0))?;
-            return Err(Error::Usage(format!(
-                "there is no import #{id} (the last is #{last}; `samewise import list` shows them)"
-            )));
+            return Err(undo_refusal(id, UndoRefusal::Unknown { last }));
         };
         if undoes != 0 {
-            return Err(Error::Usage(format!(
-                "import #{id} records the undo of import #{undoes}; an undo cannot be undone \
-                 (import the file again)"
-            )));
+            return Err(undo_refusal(id, UndoRefusal::IsAnUndo { undoes }));
         }
         let undone_by: Option<i64> = tx
             .query_row("SELECT id FROM imports WHERE undoes = ?1", [id], |r| {
@@ -151,9 +189,10 @@ impl Store {
             })
             .optional()?;
         if let Some(by) = undone_by {
-            return Err(Error::Usage(format!(
-                "import #{id} ({file_name}) was undone already, by #{by}"
-            )));
+            return Err(undo_refusal(
+                id,
+                UndoRefusal::UndoneAlready { file_name, by },
+            ));
         }
         // An import made before its time range was recorded (migration 0004): find it once.
         if ts_min.is_none() && stored > 0 {
@@ -180,10 +219,14 @@ impl Store {
             }
         }
         if removed != stored as u64 {
-            return Err(Error::Database(format!(
-                "import #{id} ({file_name}) recorded {stored} stored measurements but {removed} \
-                 were found in its time range; nothing was undone (run `samewise db check`)"
-            )));
+            return Err(undo_refusal(
+                id,
+                UndoRefusal::CountsDisagree {
+                    file_name,
+                    stored,
+                    removed,
+                },
+            ));
         }
         let rejections = tx.execute("DELETE FROM rejected_rows WHERE import_id = ?1", [id])? as u64;
         let now_ms = now.timestamp_millis();

@@ -12,6 +12,7 @@
 //! where SQLite would take its single write lock (the import's master data, the run versions);
 //! different sites never wait for each other.
 
+mod import;
 mod maintenance;
 mod master;
 mod migrate;
