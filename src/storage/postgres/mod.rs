@@ -13,6 +13,7 @@
 //! different sites never wait for each other.
 
 mod migrate;
+mod runs;
 
 use std::cell::{RefCell, RefMut};
 
