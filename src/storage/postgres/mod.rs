@@ -12,6 +12,8 @@
 //! where SQLite would take its single write lock (the import's master data, the run versions);
 //! different sites never wait for each other.
 
+mod events;
+mod findings;
 mod migrate;
 mod runs;
 
