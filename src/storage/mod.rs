@@ -27,6 +27,8 @@
 //! 1000000000000.3 keep every digit; see `migrations/0001_initial.sql`.
 
 mod columns;
+#[cfg(test)]
+mod contract;
 mod events;
 mod findings;
 mod import;
