@@ -85,15 +85,25 @@ impl From<Option<bool>> for Value<'_> {
     }
 }
 
+/// A double as both backends store it: -0 as 0 (SQLite keeps an integral REAL as an integer, so
+/// it reads -0 back as 0; PostgreSQL would keep the sign), every other value bit for bit.
+fn as_stored(v: f64) -> f64 {
+    if v == 0.0 {
+        0.0
+    } else {
+        v
+    }
+}
+
 impl From<f64> for Value<'_> {
     fn from(v: f64) -> Self {
-        Value::Real(Some(v))
+        Value::Real(Some(as_stored(v)))
     }
 }
 
 impl From<Option<f64>> for Value<'_> {
     fn from(v: Option<f64>) -> Self {
-        Value::Real(v)
+        Value::Real(v.map(as_stored))
     }
 }
 

@@ -432,6 +432,22 @@ fn run_round_trip_contract(store: &mut dyn Runs) {
     test.pairs.clear();
     assert_same_bits(&hist[0].test, &test);
     assert_same_bits(&hist[0].run, &stored);
+
+    // -0 reads back as 0 on every backend (SQLite cannot keep the sign), so the backends agree.
+    let mut signed = small_content(TestState::NoEvidence);
+    signed.tests[0].anova.f = Some(-0.0);
+    signed.tests[0].groups[0].diff_from_grand = Some(-0.0);
+    signed.tests[0].pairs[0].diff = -0.0;
+    let run = store
+        .begin_run(&header("month", "2026-12", 2_000, None), 7)
+        .unwrap();
+    store.complete_run(run.run_id, 8, &signed).unwrap();
+    let back = store.run_content(run.run_id).unwrap();
+    let t = &back.tests[0];
+    let positive_zero = |v: f64| v == 0.0 && v.is_sign_positive();
+    assert!(positive_zero(t.anova.f.unwrap()));
+    assert!(positive_zero(t.groups[0].diff_from_grand.unwrap()));
+    assert!(positive_zero(t.pairs[0].diff));
 }
 
 /// A run larger than one batch of rows of any table (PostgreSQL writes several hundred rows
