@@ -789,11 +789,9 @@ struct SqlitePair {
 
 impl SqlitePair {
     fn open(name: &str) -> (SqlitePair, Pair) {
-        let dir = std::env::temp_dir().join(format!(
-            "samewise-contract-{name}-{}-{}",
-            std::process::id(),
-            Utc::now().timestamp_nanos_opt().unwrap_or_default()
-        ));
+        let dir =
+            std::env::temp_dir().join(format!("samewise-contract-{name}-{}", std::process::id()));
+        let _ = std::fs::remove_dir_all(&dir);
         std::fs::create_dir_all(&dir).unwrap();
         let path = dir.join("plant.sqlite");
         let a = Store::open_or_create(&path).unwrap();
