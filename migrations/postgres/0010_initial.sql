@@ -230,7 +230,10 @@ CREATE TABLE run_group (
     PRIMARY KEY (run_id, test_idx, group_idx)
 );
 
+-- pair_id stands for SQLite's rowid: the order the pairs of a test were written in, which is the
+-- order they are read back in (PostgreSQL's physical order promises nothing).
 CREATE TABLE run_pair (
+    pair_id   BIGINT GENERATED ALWAYS AS IDENTITY PRIMARY KEY,
     run_id    BIGINT NOT NULL REFERENCES run (run_id) ON DELETE CASCADE,
     test_idx  BIGINT NOT NULL,
     level_a   TEXT   NOT NULL,

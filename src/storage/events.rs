@@ -2,13 +2,17 @@
 //! and anchor drift investigations. An event may name one characteristic and any number of
 //! factor levels ("machine = M4") it concerns.
 
-use chrono::{DateTime, TimeZone, Utc};
+use chrono::{DateTime, Utc};
 use rusqlite::{params, Connection};
 
 use crate::{Error, Result};
 
+use super::columns::{
+    event_change_from, event_from, sqlite_row, sqlite_rows, ColumnRow, EVENT_CHANGE_COLUMNS,
+    EVENT_SELECT,
+};
 use super::master::{load_characteristics, load_factors};
-use super::query::unknown_characteristic;
+use super::query::unknown_characteristic_among;
 use super::Store;
 use crate::names::did_you_mean;
 
@@ -60,7 +64,7 @@ pub struct EventEdit {
 
 /// Refuses a note holding control characters (an escape sequence, a NUL): they would print as
 /// something else and break the charts' SVG. Tabs are allowed.
-fn check_note(note: &str) -> Result<()> {
+pub(super) fn check_note(note: &str) -> Result<()> {
     if let Some(c) = note.chars().find(|c| c.is_control() && *c != '\t') {
         return Err(Error::Usage(format!(
             "the event note holds a control character ({}): write it without",
@@ -91,25 +95,21 @@ pub struct EventChange {
     pub reason: Option<String>,
 }
 
-fn from_ms(ms: i64) -> DateTime<Utc> {
-    Utc.timestamp_millis_opt(ms).single().unwrap_or_default()
-}
-
 impl Store {
     /// Records an event; `now` is when it is recorded. The characteristic and factors must exist
     /// (an unknown name is an error suggesting the closest one).
     pub fn add_event(&mut self, event: &NewEvent, now: DateTime<Utc>) -> Result<i64> {
-        if event.note.trim().is_empty() {
-            return Err(Error::Usage("the event note is empty".to_string()));
-        }
-        check_note(&event.note)?;
+        check_new_event(event)?;
         // IMMEDIATE: the write lock is taken (waiting with the busy timeout while an import
         // writes) before anything is read; a deferred transaction could not wait for it.
         let tx = self
             .conn
             .transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)?;
-        let (characteristic_id, scope_ids) =
-            resolve_scope(&tx, event.characteristic.as_deref(), &event.scope)?;
+        let (characteristic_id, scope_ids) = resolve_scope(
+            &mut SqliteNames(&tx),
+            event.characteristic.as_deref(),
+            &event.scope,
+        )?;
         tx.execute(
             "INSERT INTO events (ts_ms, note, characteristic_id, created_ms) VALUES (?1, ?2, ?3, ?4)",
             params![
@@ -136,29 +136,30 @@ impl Store {
         start: Option<DateTime<Utc>>,
         end: Option<DateTime<Utc>>,
     ) -> Result<Vec<Event>> {
-        let mut stmt = self.conn.prepare_cached(&format!(
-            "{EVENT_SELECT} WHERE e.removed_ms IS NULL AND e.ts_ms >= ?1 AND e.ts_ms < ?2 \
-             ORDER BY e.ts_ms, e.id"
-        ))?;
-        let rows = stmt.query_map(
+        let mut events = sqlite_rows(
+            &self.conn,
+            &format!(
+                "{EVENT_SELECT} WHERE e.removed_ms IS NULL AND e.ts_ms >= ?1 AND e.ts_ms < ?2 \
+                 ORDER BY e.ts_ms, e.id"
+            ),
             params![
                 start.map_or(i64::MIN, |t| t.timestamp_millis()),
                 end.map_or(i64::MAX, |t| t.timestamp_millis())
             ],
-            event_row,
+            |r| event_from(r),
         )?;
-        let mut events: Vec<Event> = rows.collect::<rusqlite::Result<_>>()?;
         fill_scopes(&self.conn, &mut events)?;
         Ok(events)
     }
 
     /// Every event, removed ones included (marked by `removed`), in time order.
     pub fn events_including_removed(&self) -> Result<Vec<Event>> {
-        let mut stmt = self
-            .conn
-            .prepare_cached(&format!("{EVENT_SELECT} ORDER BY e.ts_ms, e.id"))?;
-        let rows = stmt.query_map([], event_row)?;
-        let mut events: Vec<Event> = rows.collect::<rusqlite::Result<_>>()?;
+        let mut events = sqlite_rows(
+            &self.conn,
+            &format!("{EVENT_SELECT} ORDER BY e.ts_ms, e.id"),
+            [],
+            |r| event_from(r),
+        )?;
         fill_scopes(&self.conn, &mut events)?;
         Ok(events)
     }
@@ -179,39 +180,19 @@ impl Store {
         reason: Option<&str>,
         now: DateTime<Utc>,
     ) -> Result<Event> {
-        if let Some(note) = &edit.note {
-            check_note(note)?;
-        }
-        if edit == &EventEdit::default() {
-            return Err(Error::Usage(
-                "nothing to change: give --at, --note, --characteristic/--any-characteristic or \
-                 --where/--no-where"
-                    .to_string(),
-            ));
-        }
-        if let Some(note) = &edit.note {
-            if note.trim().is_empty() {
-                return Err(Error::Usage("the event note is empty".to_string()));
-            }
-        }
+        check_edit(edit)?;
         let tx = self
             .conn
             .transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)?;
         let old = event_by_id(&tx, id)?;
-        if let Some(removed) = old.removed {
-            return Err(Error::Usage(format!(
-                "event #{id} was removed ({}); record a new event instead",
-                removed.format("%Y-%m-%d %H:%M UTC")
-            )));
-        }
-        let characteristic = match &edit.characteristic {
-            Some(c) => c.clone(),
-            None => old.characteristic.clone(),
-        };
-        let scope = edit.scope.clone().unwrap_or_else(|| old.scope.clone());
-        let (characteristic_id, scope_ids) = resolve_scope(&tx, characteristic.as_deref(), &scope)?;
-        let at = edit.at.unwrap_or(old.at);
-        let note = edit.note.clone().unwrap_or_else(|| old.note.clone());
+        check_editable(&old)?;
+        let edited = apply_edit(&old, edit);
+        let (characteristic_id, scope_ids) = resolve_scope(
+            &mut SqliteNames(&tx),
+            edited.characteristic.as_deref(),
+            &edited.scope,
+        )?;
+        let (at, note) = (edited.at, &edited.note);
         tx.execute(
             "UPDATE events SET ts_ms = ?2, note = ?3, characteristic_id = ?4 WHERE id = ?1",
             params![id, at.timestamp_millis(), note, characteristic_id],
@@ -224,40 +205,25 @@ impl Store {
             )?;
         }
         let new = event_by_id(&tx, id)?;
-        let fields = [
-            ("at", time_text(old.at), time_text(new.at)),
-            ("note", old.note.clone(), new.note.clone()),
-            (
-                "characteristic",
-                old.characteristic.clone().unwrap_or_default(),
-                new.characteristic.clone().unwrap_or_default(),
-            ),
-            ("where", scope_text(&old.scope), scope_text(&new.scope)),
-        ];
-        let mut changed = 0;
-        for (field, before, after) in fields {
-            if before != after {
-                changed += 1;
-                tx.execute(
-                    "INSERT INTO event_history \
-                     (event_id, changed_ms, who, action, field, before, after, reason) \
-                     VALUES (?1, ?2, ?3, 'edit', ?4, ?5, ?6, ?7)",
-                    params![
-                        id,
-                        now.timestamp_millis(),
-                        who,
-                        field,
-                        before,
-                        after,
-                        reason
-                    ],
-                )?;
-            }
+        let changes = changed_fields(&old, &new);
+        if changes.is_empty() {
+            return Err(nothing_changed(id));
         }
-        if changed == 0 {
-            return Err(Error::Usage(format!(
-                "event #{id} already reads so: nothing changed"
-            )));
+        for (field, before, after) in changes {
+            tx.execute(
+                "INSERT INTO event_history \
+                 (event_id, changed_ms, who, action, field, before, after, reason) \
+                 VALUES (?1, ?2, ?3, 'edit', ?4, ?5, ?6, ?7)",
+                params![
+                    id,
+                    now.timestamp_millis(),
+                    who,
+                    field,
+                    before,
+                    after,
+                    reason
+                ],
+            )?;
         }
         tx.commit()?;
         Ok(new)
@@ -276,12 +242,7 @@ impl Store {
             .conn
             .transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)?;
         let old = event_by_id(&tx, id)?;
-        if let Some(removed) = old.removed {
-            return Err(Error::Usage(format!(
-                "event #{id} was already removed ({})",
-                removed.format("%Y-%m-%d %H:%M UTC")
-            )));
-        }
+        check_removable(&old)?;
         tx.execute(
             "UPDATE events SET removed_ms = ?2 WHERE id = ?1",
             params![id, now.timestamp_millis()],
@@ -301,39 +262,16 @@ impl Store {
         if let Some(id) = id {
             event_by_id(&self.conn, id)?;
         }
-        let mut stmt = self.conn.prepare_cached(
-            "SELECT event_id, changed_ms, who, action, field, before, after, reason \
-             FROM event_history WHERE ?1 IS NULL OR event_id = ?1 ORDER BY id",
-        )?;
-        let rows = stmt.query_map([id], |r| {
-            Ok(EventChange {
-                event_id: r.get(0)?,
-                changed: from_ms(r.get(1)?),
-                who: r.get(2)?,
-                action: r.get(3)?,
-                field: r.get(4)?,
-                before: r.get(5)?,
-                after: r.get(6)?,
-                reason: r.get(7)?,
-            })
-        })?;
-        Ok(rows.collect::<rusqlite::Result<_>>()?)
+        sqlite_rows(
+            &self.conn,
+            &format!(
+                "SELECT {EVENT_CHANGE_COLUMNS} FROM event_history \
+                 WHERE ?1 IS NULL OR event_id = ?1 ORDER BY id"
+            ),
+            [id],
+            |r| event_change_from(r),
+        )
     }
-}
-
-const EVENT_SELECT: &str = "SELECT e.id, e.ts_ms, e.note, c.name, e.created_ms, e.removed_ms \
-     FROM events e LEFT JOIN characteristics c ON c.id = e.characteristic_id";
-
-fn event_row(r: &rusqlite::Row<'_>) -> rusqlite::Result<Event> {
-    Ok(Event {
-        id: r.get(0)?,
-        at: from_ms(r.get(1)?),
-        note: r.get(2)?,
-        characteristic: r.get(3)?,
-        scope: Vec::new(),
-        created: from_ms(r.get(4)?),
-        removed: r.get::<_, Option<i64>>(5)?.map(from_ms),
-    })
 }
 
 fn fill_scopes(conn: &Connection, events: &mut [Event]) -> Result<()> {
@@ -342,74 +280,118 @@ fn fill_scopes(conn: &Connection, events: &mut [Event]) -> Result<()> {
          WHERE s.event_id = ?1 ORDER BY f.position, f.name",
     )?;
     for e in events {
-        e.scope = scope
-            .query_map([e.id], |r| Ok((r.get(0)?, r.get(1)?)))?
-            .collect::<rusqlite::Result<_>>()?;
+        let mut rows = scope.query([e.id])?;
+        while let Some(r) = rows.next()? {
+            e.scope.push((r.text(0)?, r.text(1)?));
+        }
     }
     Ok(())
 }
 
 fn event_by_id(conn: &Connection, id: i64) -> Result<Event> {
-    let mut stmt = conn.prepare_cached(&format!("{EVENT_SELECT} WHERE e.id = ?1"))?;
-    let mut events: Vec<Event> = stmt
-        .query_map([id], event_row)?
-        .collect::<rusqlite::Result<_>>()?;
-    if events.is_empty() {
+    let event = sqlite_row(
+        conn,
+        &format!("{EVENT_SELECT} WHERE e.id = ?1"),
+        [id],
+        |r| event_from(r),
+    )?;
+    let Some(mut event) = event else {
         let last: Option<i64> = conn.query_row("SELECT max(id) FROM events", [], |r| r.get(0))?;
-        return Err(Error::Usage(match last {
-            Some(last) => format!(
-                "no event #{id} (events are numbered 1 to {last}; see `samewise event list --all`)"
-            ),
-            None => format!("no event #{id}: no event is recorded"),
-        }));
-    }
-    fill_scopes(conn, &mut events)?;
-    Ok(events.remove(0))
+        return Err(unknown_event(id, last));
+    };
+    fill_scopes(conn, std::slice::from_mut(&mut event))?;
+    Ok(event)
+}
+
+/// The error for event `id`, which does not exist; `last` is the highest id stored.
+pub(super) fn unknown_event(id: i64, last: Option<i64>) -> Error {
+    Error::Usage(match last {
+        Some(last) => format!(
+            "no event #{id} (events are numbered 1 to {last}; see `samewise event list --all`)"
+        ),
+        None => format!("no event #{id}: no event is recorded"),
+    })
 }
 
 /// An event's characteristic id and `(factor id, level)` pairs.
-type ResolvedScope = (Option<i64>, Vec<(i64, String)>);
+pub(super) type ResolvedScope = (Option<i64>, Vec<(i64, String)>);
+
+/// What the names of an event's scope are checked against; each backend reads them in its own
+/// SQL.
+pub(super) trait ScopeNames {
+    /// Every stored characteristic: (id, name), in id order.
+    fn characteristics(&mut self) -> Result<Vec<(i64, String)>>;
+    /// Every stored factor: (id, name), configured ones in configuration order, then the others
+    /// by name.
+    fn factors(&mut self) -> Result<Vec<(i64, String)>>;
+    /// The levels stored for a factor, by name.
+    fn levels(&mut self, factor_id: i64) -> Result<Vec<String>>;
+}
+
+/// [`ScopeNames`] read through an SQLite connection.
+struct SqliteNames<'c>(&'c Connection);
+
+impl ScopeNames for SqliteNames<'_> {
+    fn characteristics(&mut self) -> Result<Vec<(i64, String)>> {
+        Ok(load_characteristics(self.0)?
+            .into_iter()
+            .map(|c| (c.id, c.config.name))
+            .collect())
+    }
+    fn factors(&mut self) -> Result<Vec<(i64, String)>> {
+        Ok(load_factors(self.0)?
+            .into_iter()
+            .map(|f| (f.id, f.name))
+            .collect())
+    }
+    fn levels(&mut self, factor_id: i64) -> Result<Vec<String>> {
+        sqlite_rows(
+            self.0,
+            "SELECT name FROM levels WHERE factor_id = ?1 ORDER BY name",
+            [factor_id],
+            |r| r.text(0),
+        )
+    }
+}
 
 /// The characteristic id and `(factor id, level)` pairs of an event's scope. An unknown
 /// characteristic, factor or level (one never stored for that factor) is refused with the
 /// closest known names.
-fn resolve_scope(
-    conn: &Connection,
+pub(super) fn resolve_scope(
+    names: &mut dyn ScopeNames,
     characteristic: Option<&str>,
     scope: &[(String, String)],
 ) -> Result<ResolvedScope> {
     let characteristic_id = match characteristic {
         None => None,
         Some(name) => {
-            let known = load_characteristics(conn)?;
+            let known = names.characteristics()?;
             Some(
                 known
                     .iter()
-                    .find(|c| c.config.name == name)
-                    .map(|c| c.id)
-                    .ok_or_else(|| unknown_characteristic(name, &known))?,
+                    .find(|(_, n)| n == name)
+                    .map(|(id, _)| *id)
+                    .ok_or_else(|| {
+                        unknown_characteristic_among(name, known.iter().map(|(_, n)| n.as_str()))
+                    })?,
             )
         }
     };
-    let factors = load_factors(conn)?;
+    let factors = names.factors()?;
     let mut scope_ids: Vec<(i64, String)> = Vec::new();
-    let mut levels =
-        conn.prepare_cached("SELECT name FROM levels WHERE factor_id = ?1 ORDER BY name")?;
     for (factor, level) in scope {
-        let f = factors.iter().find(|f| &f.name == factor).ok_or_else(|| {
-            let hint = did_you_mean(factor, factors.iter().map(|f| f.name.as_str()));
-            let known: Vec<&str> = factors.iter().map(|f| f.name.as_str()).collect();
+        let (factor_id, _) = factors.iter().find(|(_, n)| n == factor).ok_or_else(|| {
+            let hint = did_you_mean(factor, factors.iter().map(|(_, n)| n.as_str()));
+            let known: Vec<&str> = factors.iter().map(|(_, n)| n.as_str()).collect();
             Error::Usage(format!(
                 "unknown factor \"{factor}\"{hint}; the factors are: {}",
                 known.join(", ")
             ))
         })?;
-        if scope_ids.iter().any(|(id, _)| *id == f.id) {
+        if scope_ids.iter().any(|(id, _)| id == factor_id) {
             return Err(Error::Usage(format!("factor \"{factor}\" is given twice")));
         }
-        let known: Vec<String> = levels
-            .query_map([f.id], |r| r.get(0))?
-            .collect::<rusqlite::Result<_>>()?;
+        let known = names.levels(*factor_id)?;
         if !known.iter().any(|l| l == level) {
             let hint = did_you_mean(level, known.iter().map(String::as_str));
             return Err(Error::Usage(if known.is_empty() {
@@ -425,9 +407,99 @@ fn resolve_scope(
                 )
             }));
         }
-        scope_ids.push((f.id, level.clone()));
+        scope_ids.push((*factor_id, level.clone()));
     }
     Ok((characteristic_id, scope_ids))
+}
+
+/// Refuses an event with an empty note or one holding control characters.
+pub(super) fn check_new_event(event: &NewEvent) -> Result<()> {
+    if event.note.trim().is_empty() {
+        return Err(Error::Usage("the event note is empty".to_string()));
+    }
+    check_note(&event.note)
+}
+
+/// Refuses an edit that changes nothing or gives an empty or unprintable note.
+pub(super) fn check_edit(edit: &EventEdit) -> Result<()> {
+    if let Some(note) = &edit.note {
+        check_note(note)?;
+    }
+    if edit == &EventEdit::default() {
+        return Err(Error::Usage(
+            "nothing to change: give --at, --note, --characteristic/--any-characteristic or \
+             --where/--no-where"
+                .to_string(),
+        ));
+    }
+    if let Some(note) = &edit.note {
+        if note.trim().is_empty() {
+            return Err(Error::Usage("the event note is empty".to_string()));
+        }
+    }
+    Ok(())
+}
+
+/// Refuses to edit a removed event.
+pub(super) fn check_editable(old: &Event) -> Result<()> {
+    match old.removed {
+        Some(removed) => Err(Error::Usage(format!(
+            "event #{} was removed ({}); record a new event instead",
+            old.id,
+            removed.format("%Y-%m-%d %H:%M UTC")
+        ))),
+        None => Ok(()),
+    }
+}
+
+/// Refuses to remove an event twice.
+pub(super) fn check_removable(old: &Event) -> Result<()> {
+    match old.removed {
+        Some(removed) => Err(Error::Usage(format!(
+            "event #{} was already removed ({})",
+            old.id,
+            removed.format("%Y-%m-%d %H:%M UTC")
+        ))),
+        None => Ok(()),
+    }
+}
+
+/// The event as `edit` would leave it (names not yet checked).
+pub(super) fn apply_edit(old: &Event, edit: &EventEdit) -> Event {
+    Event {
+        at: edit.at.unwrap_or(old.at),
+        note: edit.note.clone().unwrap_or_else(|| old.note.clone()),
+        characteristic: match &edit.characteristic {
+            Some(c) => c.clone(),
+            None => old.characteristic.clone(),
+        },
+        scope: edit.scope.clone().unwrap_or_else(|| old.scope.clone()),
+        ..old.clone()
+    }
+}
+
+/// The fields whose text differs between `old` and `new`: (field, before, after), one history
+/// entry each.
+pub(super) fn changed_fields(old: &Event, new: &Event) -> Vec<(&'static str, String, String)> {
+    let fields = [
+        ("at", time_text(old.at), time_text(new.at)),
+        ("note", old.note.clone(), new.note.clone()),
+        (
+            "characteristic",
+            old.characteristic.clone().unwrap_or_default(),
+            new.characteristic.clone().unwrap_or_default(),
+        ),
+        ("where", scope_text(&old.scope), scope_text(&new.scope)),
+    ];
+    fields
+        .into_iter()
+        .filter(|(_, before, after)| before != after)
+        .collect()
+}
+
+/// The error for an edit that leaves the event as it was.
+pub(super) fn nothing_changed(id: i64) -> Error {
+    Error::Usage(format!("event #{id} already reads so: nothing changed"))
 }
 
 fn time_text(t: DateTime<Utc>) -> String {
@@ -443,7 +515,7 @@ fn scope_text(scope: &[(String, String)]) -> String {
 }
 
 /// The whole event in one line, as the history keeps a removed one.
-fn describe(e: &Event) -> String {
+pub(super) fn describe(e: &Event) -> String {
     let mut s = format!("at={}; note={}", time_text(e.at), e.note);
     if let Some(c) = &e.characteristic {
         s.push_str(&format!("; characteristic={c}"));

@@ -1,12 +1,17 @@
 //! Findings, their notes and the alert log (migration 0006): what `analysis::findings` reads of
 //! the run history and writes back.
 
-use chrono::{DateTime, TimeZone, Utc};
-use rusqlite::{params, OptionalExtension, Row};
+use chrono::{DateTime, Utc};
+use rusqlite::params;
 
-use crate::model::{Finding, FindingStatus, PeriodKind};
+use crate::model::{Finding, PeriodKind};
 use crate::{Error, Result};
 
+use super::columns::{
+    alert_from, alert_values, finding_columns_without_id, finding_from, finding_values,
+    flag_history_from, placeholders, sqlite_row, sqlite_rows, ColumnRow, ALERT_COLUMNS,
+    FINDING_COLUMNS, FLAG_HISTORY_COLUMNS,
+};
 use super::Store;
 
 /// One test of the latest complete run of one period, as findings need it.
@@ -53,59 +58,13 @@ pub struct AlertRecord {
     pub error: Option<String>,
 }
 
-fn instant(ms: i64) -> DateTime<Utc> {
-    Utc.timestamp_millis_opt(ms).single().unwrap_or_default()
-}
-
-fn opt_instant(ms: Option<i64>) -> Option<DateTime<Utc>> {
-    ms.map(instant)
-}
-
-const FINDING_COLUMNS: &str = "finding_id, period_kind, characteristic, factor, level, status, \
-    times_reopened, first_label, first_start_ms, episode_label, episode_start_ms, last_label, \
-    last_start_ms, last_end_ms, n_flagged, n_weak, quiet_periods, unit, effect_now, \
-    effect_now_sd, effect_now_pct, within_sd, peak_effect, peak_pct, peak_label, onset_ms, \
-    onset_low_ms, onset_high_ms, onset_method, event_id, event_ms, event_note, created_ms, \
-    updated_ms";
-
-fn finding_from_row(r: &Row<'_>) -> rusqlite::Result<Finding> {
-    let kind: String = r.get(1)?;
-    let status: String = r.get(5)?;
-    Ok(Finding {
-        id: r.get(0)?,
-        period_kind: PeriodKind::parse(&kind).unwrap_or(PeriodKind::Day),
-        characteristic: r.get(2)?,
-        factor: r.get(3)?,
-        level: r.get(4)?,
-        status: FindingStatus::parse(&status).unwrap_or(FindingStatus::Open),
-        times_reopened: r.get(6)?,
-        first_label: r.get(7)?,
-        first_start: instant(r.get(8)?),
-        episode_label: r.get(9)?,
-        episode_start: instant(r.get(10)?),
-        last_label: r.get(11)?,
-        last_start: instant(r.get(12)?),
-        last_end: instant(r.get(13)?),
-        n_flagged: r.get(14)?,
-        n_weak: r.get(15)?,
-        quiet_periods: r.get(16)?,
-        unit: r.get(17)?,
-        effect_now: r.get(18)?,
-        effect_now_sd: r.get(19)?,
-        effect_now_pct: r.get(20)?,
-        within_sd: r.get(21)?,
-        peak_effect: r.get(22)?,
-        peak_pct: r.get(23)?,
-        peak_label: r.get(24)?,
-        onset: opt_instant(r.get(25)?),
-        onset_low: opt_instant(r.get(26)?),
-        onset_high: opt_instant(r.get(27)?),
-        onset_method: r.get(28)?,
-        event_id: r.get(29)?,
-        event_at: opt_instant(r.get(30)?),
-        event_note: r.get(31)?,
-        created: instant(r.get(32)?),
-        updated: instant(r.get(33)?),
+/// The error for a note to finding `id`, which does not exist; `last` is the highest id stored.
+pub(super) fn unknown_finding(id: i64, last: Option<i64>) -> Error {
+    Error::Usage(match last {
+        Some(last) => format!(
+            "there is no finding #{id} (the highest is #{last}; `samewise findings --all` lists them)"
+        ),
+        None => "there are no findings yet".to_string(),
     })
 }
 
@@ -113,51 +72,33 @@ impl Store {
     /// Every test of the latest complete run of every `kind` period, by characteristic, factor
     /// and period start: the flag history findings are built from.
     pub fn flag_history(&self, kind: PeriodKind) -> Result<Vec<FlagHistoryRow>> {
-        let mut stmt = self.conn.prepare(
-            "SELECT r.period_label, r.period_start_ms, r.period_end_ms, r.run_id, t.test_idx,
-                    t.characteristic, t.factor, t.state, t.standout_level, t.standout_diff,
-                    t.standout_sd_units, t.standout_pct_tolerance, t.resid_sd, t.recommend_kruskal
-             FROM run r JOIN run_result t ON t.run_id = r.run_id
-             WHERE r.period_kind = ?1 AND r.status = 'complete'
-               AND r.version = (SELECT MAX(version) FROM run r2 WHERE r2.period_kind = r.period_kind
-                                AND r2.period_label = r.period_label AND r2.status = 'complete')
-             ORDER BY t.characteristic, t.factor, r.period_start_ms",
-        )?;
-        let rows = stmt.query_map([kind.as_str()], |r| {
-            Ok(FlagHistoryRow {
-                label: r.get(0)?,
-                start: instant(r.get(1)?),
-                end: instant(r.get(2)?),
-                run_id: r.get(3)?,
-                test_idx: r.get(4)?,
-                characteristic: r.get(5)?,
-                factor: r.get(6)?,
-                state: super::runs::named(r, 7, "state", crate::results::TestState::parse)?
-                    .unwrap_or_default(),
-                stands_out: crate::results::StandsOut {
-                    level: r.get(8)?,
-                    diff: r.get(9)?,
-                    sd_units: r.get(10)?,
-                    pct_tolerance: r.get(11)?,
-                },
-                resid_sd: r.get(12)?,
-                recommend_kruskal: r.get::<_, Option<bool>>(13)?.unwrap_or(false),
-            })
-        })?;
-        Ok(rows.collect::<rusqlite::Result<_>>()?)
+        sqlite_rows(
+            &self.conn,
+            &format!(
+                "SELECT {FLAG_HISTORY_COLUMNS}
+                 FROM run r JOIN run_result t ON t.run_id = r.run_id
+                 WHERE r.period_kind = ?1 AND r.status = 'complete'
+                   AND r.version = (SELECT MAX(version) FROM run r2
+                                    WHERE r2.period_kind = r.period_kind
+                                      AND r2.period_label = r.period_label
+                                      AND r2.status = 'complete')
+                 ORDER BY t.characteristic, t.factor, r.period_start_ms"
+            ),
+            [kind.as_str()],
+            |r| flag_history_from(r),
+        )
     }
 
     /// The groups of one stored test: (level, n, mean offset), in group order. Means of one run
     /// share their characteristic's origin, so differences between them are exact.
     pub fn group_means(&self, run_id: i64, test_idx: i64) -> Result<Vec<(String, u64, f64)>> {
-        let mut stmt = self.conn.prepare_cached(
+        sqlite_rows(
+            &self.conn,
             "SELECT level, n, mean FROM run_group WHERE run_id = ?1 AND test_idx = ?2 \
              ORDER BY group_idx",
-        )?;
-        let rows = stmt.query_map(params![run_id, test_idx], |r| {
-            Ok((r.get(0)?, r.get::<_, i64>(1)? as u64, r.get(2)?))
-        })?;
-        Ok(rows.collect::<rusqlite::Result<_>>()?)
+            params![run_id, test_idx],
+            |r| Ok((r.text(0)?, r.count(1)?, r.real(2)?)),
+        )
     }
 
     /// The stored findings of `kind` (every kind when `None`), most recently flagged first.
@@ -166,18 +107,15 @@ impl Store {
             "SELECT {FINDING_COLUMNS} FROM finding WHERE ?1 IS NULL OR period_kind = ?1 \
              ORDER BY last_start_ms DESC, finding_id"
         );
-        let mut stmt = self.conn.prepare(&sql)?;
-        let rows = stmt.query_map([kind.map(PeriodKind::as_str)], finding_from_row)?;
-        Ok(rows.collect::<rusqlite::Result<_>>()?)
+        sqlite_rows(&self.conn, &sql, [kind.map(PeriodKind::as_str)], |r| {
+            finding_from(r)
+        })
     }
 
     /// One finding by its number.
     pub fn finding(&self, id: i64) -> Result<Option<Finding>> {
         let sql = format!("SELECT {FINDING_COLUMNS} FROM finding WHERE finding_id = ?1");
-        Ok(self
-            .conn
-            .query_row(&sql, [id], finding_from_row)
-            .optional()?)
+        sqlite_row(&self.conn, &sql, [id], |r| finding_from(r))
     }
 
     /// Writes findings in one transaction: a finding with id 0 is inserted (its id is set),
@@ -187,65 +125,27 @@ impl Store {
         {
             let mut insert = tx.prepare_cached(&format!(
                 "INSERT INTO finding ({}) VALUES ({})",
-                &FINDING_COLUMNS["finding_id, ".len()..],
-                (1..=33)
-                    .map(|i| format!("?{i}"))
-                    .collect::<Vec<_>>()
-                    .join(", ")
+                finding_columns_without_id(),
+                placeholders('?', 1, 33)
             ))?;
             let mut update = tx.prepare_cached(&format!(
                 "UPDATE finding SET ({}) = ({}) WHERE finding_id = ?1",
-                &FINDING_COLUMNS["finding_id, ".len()..],
-                (2..=34)
-                    .map(|i| format!("?{i}"))
-                    .collect::<Vec<_>>()
-                    .join(", ")
+                finding_columns_without_id(),
+                placeholders('?', 2, 33)
             ))?;
             for f in findings.iter_mut() {
-                let ms = |t: DateTime<Utc>| t.timestamp_millis();
-                let values = params![
-                    f.id,
-                    f.period_kind.as_str(),
-                    f.characteristic,
-                    f.factor,
-                    f.level,
-                    f.status.as_str(),
-                    f.times_reopened,
-                    f.first_label,
-                    ms(f.first_start),
-                    f.episode_label,
-                    ms(f.episode_start),
-                    f.last_label,
-                    ms(f.last_start),
-                    ms(f.last_end),
-                    f.n_flagged,
-                    f.n_weak,
-                    f.quiet_periods,
-                    f.unit,
-                    f.effect_now,
-                    f.effect_now_sd,
-                    f.effect_now_pct,
-                    f.within_sd,
-                    f.peak_effect,
-                    f.peak_pct,
-                    f.peak_label,
-                    f.onset.map(ms),
-                    f.onset_low.map(ms),
-                    f.onset_high.map(ms),
-                    f.onset_method,
-                    f.event_id,
-                    f.event_at.map(ms),
-                    f.event_note,
-                    ms(f.created),
-                    ms(f.updated),
-                ];
-                if f.id == 0 {
-                    // Every column but the id, which SQLite assigns.
-                    insert.execute(&values[1..])?;
-                    f.id = tx.last_insert_rowid();
-                } else {
-                    update.execute(values)?;
-                }
+                let id = {
+                    let values = finding_values(f);
+                    if f.id == 0 {
+                        // Every column but the id, which SQLite assigns.
+                        insert.execute(rusqlite::params_from_iter(&values[1..]))?;
+                        tx.last_insert_rowid()
+                    } else {
+                        update.execute(rusqlite::params_from_iter(values))?;
+                        f.id
+                    }
+                };
+                f.id = id;
             }
         }
         tx.commit()?;
@@ -258,12 +158,7 @@ impl Store {
             let last: Option<i64> =
                 self.conn
                     .query_row("SELECT MAX(finding_id) FROM finding", [], |r| r.get(0))?;
-            return Err(Error::Usage(match last {
-                Some(last) => format!(
-                    "there is no finding #{id} (the highest is #{last}; `samewise findings --all` lists them)"
-                ),
-                None => "there are no findings yet".to_string(),
-            }));
+            return Err(unknown_finding(id, last));
         }
         self.conn.execute(
             "INSERT INTO finding_note (finding_id, created_ms, text) VALUES (?1, ?2, ?3)",
@@ -274,50 +169,34 @@ impl Store {
 
     /// The notes of finding `id`, oldest first: (when, text).
     pub fn finding_notes(&self, id: i64) -> Result<Vec<(DateTime<Utc>, String)>> {
-        let mut stmt = self.conn.prepare_cached(
+        sqlite_rows(
+            &self.conn,
             "SELECT created_ms, text FROM finding_note WHERE finding_id = ?1 ORDER BY created_ms, note_id",
-        )?;
-        let rows = stmt.query_map([id], |r| Ok((instant(r.get(0)?), r.get(1)?)))?;
-        Ok(rows.collect::<rusqlite::Result<_>>()?)
+            [id],
+            |r| Ok((r.instant(0)?, r.text(1)?)),
+        )
     }
 
     /// Records one run of the alert command.
     pub fn log_alert(&self, record: &AlertRecord) -> Result<()> {
         self.conn.execute(
-            "INSERT INTO alert_log (started_ms, finished_ms, n_findings, command, exit_code, error) \
-             VALUES (?1, ?2, ?3, ?4, ?5, ?6)",
-            params![
-                record.started.timestamp_millis(),
-                record.finished.timestamp_millis(),
-                record.n_findings,
-                record.command,
-                record.exit_code,
-                record.error
-            ],
+            &format!(
+                "INSERT INTO alert_log ({ALERT_COLUMNS}) VALUES ({})",
+                placeholders('?', 1, 6)
+            ),
+            rusqlite::params_from_iter(alert_values(record)),
         )?;
         Ok(())
     }
 
     /// The latest run of the alert command, if any.
     pub fn last_alert(&self) -> Result<Option<AlertRecord>> {
-        Ok(self
-            .conn
-            .query_row(
-                "SELECT started_ms, finished_ms, n_findings, command, exit_code, error FROM alert_log \
-                 ORDER BY alert_id DESC LIMIT 1",
-                [],
-                |r| {
-                    Ok(AlertRecord {
-                        started: instant(r.get(0)?),
-                        finished: instant(r.get(1)?),
-                        n_findings: r.get(2)?,
-                        command: r.get(3)?,
-                        exit_code: r.get(4)?,
-                        error: r.get(5)?,
-                    })
-                },
-            )
-            .optional()?)
+        sqlite_row(
+            &self.conn,
+            &format!("SELECT {ALERT_COLUMNS} FROM alert_log ORDER BY alert_id DESC LIMIT 1"),
+            [],
+            |r| alert_from(r),
+        )
     }
 }
 

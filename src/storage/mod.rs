@@ -16,13 +16,19 @@
 //!
 //! [`Store`] is the SQLite implementation: all SQL of samewise is in this module, and no SQLite
 //! type appears in a public signature. [`migrate`] holds the numbered files of `migrations/`,
-//! embedded and applied in order.
+//! embedded and applied in order. [`PgStore`] (`postgres`) is the PostgreSQL implementation.
+//! The wide row mappings (a test result, a group, a pair, a run, a finding, an event to their
+//! columns and back) are written once in `columns` and used by both backends; the contract
+//! tests (`contract`) run the same checks of each trait on both.
 //!
 //! Values are stored as `f64` offsets from an exact decimal origin per characteristic (its
 //! target or the middle of its limits when configured, else the median of its first 31 imported
 //! values: no single value, a typo, fixes it), so data such as 1000000000000.4 and
 //! 1000000000000.3 keep every digit; see `migrations/0001_initial.sql`.
 
+mod columns;
+#[cfg(test)]
+mod contract;
 mod events;
 mod findings;
 mod import;

@@ -138,7 +138,15 @@ pub(crate) fn closest<'a>(
 
 /// An "unknown characteristic" error with the closest known names.
 pub(crate) fn unknown_characteristic(name: &str, known: &[StoredCharacteristic]) -> Error {
-    let hint = crate::names::did_you_mean(name, known.iter().map(|c| c.config.name.as_str()));
+    unknown_characteristic_among(name, known.iter().map(|c| c.config.name.as_str()))
+}
+
+/// [`unknown_characteristic`] from the known names alone.
+pub(crate) fn unknown_characteristic_among<'a>(
+    name: &str,
+    known: impl IntoIterator<Item = &'a str>,
+) -> Error {
+    let hint = crate::names::did_you_mean(name, known);
     Error::Usage(format!("unknown characteristic \"{name}\"{hint}"))
 }
 

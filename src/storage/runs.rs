@@ -16,13 +16,14 @@
 //! Functions take a `rusqlite::Connection` so they work on any store connection; `Store` exposes
 //! them through its own methods.
 
-use rusqlite::{params, Connection, OptionalExtension, Row, ToSql, TransactionBehavior};
+use rusqlite::{params, Connection, OptionalExtension, ToSql, TransactionBehavior};
 
-use crate::results::{
-    AnovaResult, ComponentsResult, DesignKind, DesignResult, EffectResult, GroupResult, Interval,
-    KruskalResult, LeadingResult, LeadingTest, OptInterval, PairResult, Sensitivity, SerialResult,
-    ShapiroResult, StandsOut, StatP, TestResult, TestState, WelchResult,
+use super::columns::{
+    attach_groups_and_pairs, group_from, group_values, new_run_values, pair_from, pair_values,
+    placeholders, qualified, run_from, sqlite_row, sqlite_rows, test_from, test_values, ColumnRow,
+    GROUP_COLUMNS, NEW_RUN_COLUMNS, PAIR_COLUMNS, RUN_COLUMNS, TEST_COLUMNS,
 };
+use crate::results::TestResult;
 use crate::Result;
 
 /// The identity and settings of one run, written when it starts.
@@ -71,6 +72,23 @@ pub struct StoredRun {
     pub n_flagged: Option<i64>,
 }
 
+impl StoredRun {
+    /// A run just begun: `running`, with nothing finished or counted yet.
+    pub(crate) fn begun(run_id: i64, version: i64, header: &RunHeader, started_ms: i64) -> Self {
+        StoredRun {
+            run_id,
+            version,
+            header: header.clone(),
+            started_ms,
+            finished_ms: None,
+            status: "running".into(),
+            error: None,
+            n_tests: None,
+            n_flagged: None,
+        }
+    }
+}
+
 pub use crate::results::RunContent;
 
 /// Inserts a `running` row with the next version of its period and commits it; returns the run.
@@ -86,38 +104,16 @@ pub(super) fn begin_run(
         |r| r.get(0),
     )?;
     tx.execute(
-        "INSERT INTO run (period_kind, period_label, period_start_ms, period_end_ms, schedule,
-            version, config_hash, tool_version, fdr_method, fdr_level, started_ms, status,
-            max_import_id)
-         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, 'running',
-            (SELECT COALESCE(MAX(id), 0) FROM imports))",
-        params![
-            header.period_kind,
-            header.period_label,
-            header.period_start_ms,
-            header.period_end_ms,
-            header.schedule,
-            version,
-            header.config_hash,
-            header.tool_version,
-            header.fdr_method,
-            header.fdr_level,
-            started_ms
-        ],
+        &format!(
+            "INSERT INTO run ({NEW_RUN_COLUMNS}, status, max_import_id)
+             VALUES ({}, 'running', (SELECT COALESCE(MAX(id), 0) FROM imports))",
+            placeholders('?', 1, 11)
+        ),
+        rusqlite::params_from_iter(new_run_values(header, version, started_ms)),
     )?;
     let run_id = tx.last_insert_rowid();
     tx.commit()?;
-    Ok(StoredRun {
-        run_id,
-        version,
-        header: header.clone(),
-        started_ms,
-        finished_ms: None,
-        status: "running".into(),
-        error: None,
-        n_tests: None,
-        n_flagged: None,
-    })
+    Ok(StoredRun::begun(run_id, version, header, started_ms))
 }
 
 /// Writes every result row of the run and marks it `complete`, in one transaction.
@@ -132,151 +128,31 @@ pub(super) fn complete_run(
 ) -> Result<()> {
     let tx = conn.transaction_with_behavior(TransactionBehavior::Immediate)?;
     {
-        let mut ins = tx.prepare_cached(
-            "INSERT INTO run_result (run_id, test_idx, characteristic, factor, state, is_new, n_obs,
-                n_groups, n_groups_used, leading_method, leading_reason, recommend_kruskal,
-                leading_statistic, leading_p, q_value, anova_f, anova_df1, anova_df2, anova_p,
-                ss_between, ss_within, ms_within, r_squared, resid_sd, welch_f, welch_df1,
-                welch_df2, welch_p, kruskal_h, kruskal_p, levene_stat, levene_p,
-                brown_forsythe_stat, brown_forsythe_p, bartlett_stat, bartlett_p, shapiro_w,
-                shapiro_p, sd_ratio, n_beyond_3sd, eta_squared, omega_squared, var_between,
-                var_within, share_between, icc, icc_low, icc_high, tolerance, spread_of_means,
-                spread_pct_tolerance, standout_level, standout_diff, standout_sd_units,
-                standout_pct_tolerance, min_detectable_diff, min_detectable_pct_tolerance, notes,
-                design, n_subgroups, var_subgroups, share_subgroups, serial_r1, serial_z, serial_p,
-                var_between_low, var_between_high, var_within_low, var_within_high,
-                var_subgroups_low, var_subgroups_high)
-             VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14, ?15, ?16, ?17,
-                ?18, ?19, ?20, ?21, ?22, ?23, ?24, ?25, ?26, ?27, ?28, ?29, ?30, ?31, ?32, ?33,
-                ?34, ?35, ?36, ?37, ?38, ?39, ?40, ?41, ?42, ?43, ?44, ?45, ?46, ?47, ?48, ?49,
-                ?50, ?51, ?52, ?53, ?54, ?55, ?56, ?57, ?58, ?59, ?60, ?61, ?62, ?63, ?64, ?65,
-                ?66, ?67, ?68, ?69, ?70, ?71)",
-        )?;
+        let mut ins = tx.prepare_cached(&format!(
+            "INSERT INTO run_result (run_id, {TEST_COLUMNS}) VALUES ({})",
+            placeholders('?', 1, 71)
+        ))?;
         for t in &content.tests {
-            let (a, w, k, c, vc, so) = (
-                &t.anova,
-                &t.welch,
-                &t.kruskal_wallis,
-                &t.design,
-                &t.variance_components,
-                &t.stands_out,
-            );
-            ins.execute(rusqlite::params![
-                run_id,
-                t.index,
-                t.characteristic,
-                t.factor,
-                t.state.as_str(),
-                t.is_new,
-                t.n_obs as i64,
-                t.n_groups as i64,
-                t.n_groups_used as i64,
-                t.leading.method.map(LeadingTest::as_str),
-                t.leading.reason,
-                t.leading.recommend_kruskal_wallis,
-                t.leading.statistic,
-                t.leading.p,
-                t.q_value,
-                a.f,
-                a.df_between,
-                a.df_within,
-                a.p,
-                a.ss_between,
-                a.ss_within,
-                a.ms_within,
-                a.r_squared,
-                a.resid_sd,
-                w.f,
-                w.df1,
-                w.df2,
-                w.p,
-                k.h,
-                k.p,
-                t.levene.statistic,
-                t.levene.p,
-                t.brown_forsythe.statistic,
-                t.brown_forsythe.p,
-                t.bartlett.statistic,
-                t.bartlett.p,
-                t.shapiro_wilk.w,
-                t.shapiro_wilk.p,
-                t.sd_ratio,
-                t.n_beyond_3sd.map(|n| n as i64),
-                t.effect.eta_squared,
-                t.effect.omega_squared,
-                vc.between,
-                vc.within,
-                vc.share_between,
-                vc.icc,
-                vc.icc_ci.low,
-                vc.icc_ci.high,
-                t.tolerance,
-                t.spread_of_means,
-                t.spread_pct_tolerance,
-                so.level,
-                so.diff,
-                so.sd_units,
-                so.pct_tolerance,
-                t.sensitivity.min_detectable_diff,
-                t.sensitivity.min_detectable_pct_tolerance,
-                t.notes,
-                c.kind.map(DesignKind::as_str),
-                c.n_subgroups.map(|n| n as i64),
-                c.var_subgroups,
-                c.share_subgroups,
-                t.serial_dependence.r1,
-                t.serial_dependence.z,
-                t.serial_dependence.p,
-                vc.between_ci.low,
-                vc.between_ci.high,
-                vc.within_ci.low,
-                vc.within_ci.high,
-                c.var_subgroups_ci.low,
-                c.var_subgroups_ci.high,
-            ])?;
+            ins.execute(rusqlite::params_from_iter(test_values(run_id, t)))?;
         }
-        let mut ins = tx.prepare_cached(
-            "INSERT INTO run_group (run_id, test_idx, group_idx, level, n, mean, sd, min, max,
-                origin, diff_from_grand) VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11)",
-        )?;
+        let mut ins = tx.prepare_cached(&format!(
+            "INSERT INTO run_group (run_id, test_idx, group_idx, {GROUP_COLUMNS}) VALUES ({})",
+            placeholders('?', 1, 11)
+        ))?;
         for t in &content.tests {
             for (group_idx, g) in t.groups.iter().enumerate() {
-                ins.execute(params![
-                    run_id,
-                    t.index,
-                    group_idx as i64,
-                    g.name,
-                    g.n as i64,
-                    g.mean_offset,
-                    g.sd,
-                    g.min_offset,
-                    g.max_offset,
-                    g.origin,
-                    g.diff_from_grand
-                ])?;
+                ins.execute(rusqlite::params_from_iter(group_values(
+                    run_id, t.index, group_idx, g,
+                )))?;
             }
         }
-        let mut ins = tx.prepare_cached(
-            "INSERT INTO run_pair (run_id, test_idx, level_a, level_b, method, diff, se,
-                statistic, df, p_adj, ci_low, ci_high)
-             VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12)",
-        )?;
+        let mut ins = tx.prepare_cached(&format!(
+            "INSERT INTO run_pair (run_id, test_idx, {PAIR_COLUMNS}) VALUES ({})",
+            placeholders('?', 1, 12)
+        ))?;
         for t in &content.tests {
             for p in &t.pairs {
-                ins.execute(params![
-                    run_id,
-                    t.index,
-                    p.a,
-                    p.b,
-                    p.method,
-                    p.diff,
-                    p.se,
-                    p.statistic,
-                    p.df,
-                    p.p_adj,
-                    p.ci.low,
-                    p.ci.high
-                ])?;
+                ins.execute(rusqlite::params_from_iter(pair_values(run_id, t.index, p)))?;
             }
         }
     }
@@ -288,12 +164,17 @@ pub(super) fn complete_run(
     )?;
     if changed != 1 {
         // Dropping the transaction rolls every insert back.
-        return Err(crate::Error::Database(format!(
-            "run {run_id} is no longer running (it was recovered as abandoned); its results were not written"
-        )));
+        return Err(no_longer_running(run_id));
     }
     tx.commit()?;
     Ok(())
+}
+
+/// The error for results of a run that is no longer `running`.
+pub(super) fn no_longer_running(run_id: i64) -> crate::Error {
+    crate::Error::Database(format!(
+        "run {run_id} is no longer running (it was recovered as abandoned); its results were not written"
+    ))
 }
 
 /// Marks a run `failed` and keeps the error text.
@@ -311,17 +192,20 @@ pub(super) fn fail_run(
     Ok(())
 }
 
+/// The error text of a run recovered as abandoned.
+pub(super) const ABANDONED: &str =
+    "abandoned: the process stopped before the run was written; no results were kept";
+
 /// Marks as failed every `running` run whose lease (schedule, or `''` for a run by hand, and
 /// period) is missing or expired at `now_ms`. Returns how many were recovered.
 pub(super) fn recover_abandoned(conn: &Connection, now_ms: i64) -> Result<usize> {
     let n = conn.execute(
-        "UPDATE run SET status = 'failed', finished_ms = ?1,
-            error = 'abandoned: the process stopped before the run was written; no results were kept'
+        "UPDATE run SET status = 'failed', finished_ms = ?1, error = ?2
          WHERE status = 'running' AND NOT EXISTS (
             SELECT 1 FROM run_lease l
             WHERE l.schedule = COALESCE(run.schedule, '') AND l.period_kind = run.period_kind
               AND l.period_label = run.period_label AND l.expires_ms > ?1)",
-        params![now_ms],
+        params![now_ms, ABANDONED],
     )?;
     Ok(n)
 }
@@ -331,42 +215,13 @@ pub(super) fn recover_abandoned(conn: &Connection, now_ms: i64) -> Result<usize>
 pub(super) fn abandon_running(conn: &Connection, key: &LeaseKey, now_ms: i64) -> Result<usize> {
     let n = execute_for_lease(
         conn,
-        "UPDATE run SET status = 'failed', finished_ms = ?4,
-            error = 'abandoned: the process stopped before the run was written; no results were kept'
+        "UPDATE run SET status = 'failed', finished_ms = ?4, error = ?5
          WHERE status = 'running' AND COALESCE(schedule, '') = ?1 AND period_kind = ?2
            AND period_label = ?3",
         key,
-        params![now_ms],
+        params![now_ms, ABANDONED],
     )?;
     Ok(n)
-}
-
-const RUN_COLUMNS: &str = "run_id, version, period_kind, period_label, period_start_ms, \
-    period_end_ms, schedule, config_hash, tool_version, fdr_method, fdr_level, started_ms, \
-    finished_ms, status, error, n_tests, n_flagged";
-
-fn run_from_row(r: &Row<'_>) -> rusqlite::Result<StoredRun> {
-    Ok(StoredRun {
-        run_id: r.get(0)?,
-        version: r.get(1)?,
-        header: RunHeader {
-            period_kind: r.get(2)?,
-            period_label: r.get(3)?,
-            period_start_ms: r.get(4)?,
-            period_end_ms: r.get(5)?,
-            schedule: r.get(6)?,
-            config_hash: r.get(7)?,
-            tool_version: r.get(8)?,
-            fdr_method: r.get(9)?,
-            fdr_level: r.get(10)?,
-        },
-        started_ms: r.get(11)?,
-        finished_ms: r.get(12)?,
-        status: r.get(13)?,
-        error: r.get(14)?,
-        n_tests: r.get(15)?,
-        n_flagged: r.get(16)?,
-    })
 }
 
 /// How many complete versions a period's run has: more than one means the period was checked
@@ -394,9 +249,9 @@ pub(super) fn latest_complete_run(
         "SELECT {RUN_COLUMNS} FROM run WHERE period_kind = ?1 AND period_label = ?2
          AND status = 'complete' ORDER BY version DESC LIMIT 1"
     );
-    Ok(conn
-        .query_row(&sql, params![period_kind, period_label], run_from_row)
-        .optional()?)
+    sqlite_row(conn, &sql, params![period_kind, period_label], |r| {
+        run_from(r, 0)
+    })
 }
 
 /// Every run of a period (all versions and statuses), oldest first.
@@ -409,17 +264,15 @@ pub(super) fn runs_of_period(
         "SELECT {RUN_COLUMNS} FROM run WHERE period_kind = ?1 AND period_label = ?2
          ORDER BY version"
     );
-    let mut st = conn.prepare(&sql)?;
-    let rows = st.query_map(params![period_kind, period_label], run_from_row)?;
-    Ok(rows.collect::<rusqlite::Result<_>>()?)
+    sqlite_rows(conn, &sql, params![period_kind, period_label], |r| {
+        run_from(r, 0)
+    })
 }
 
 /// Every run, oldest first (for status displays and tests).
 pub(super) fn all_runs(conn: &Connection) -> Result<Vec<StoredRun>> {
     let sql = format!("SELECT {RUN_COLUMNS} FROM run ORDER BY run_id");
-    let mut st = conn.prepare(&sql)?;
-    let rows = st.query_map([], run_from_row)?;
-    Ok(rows.collect::<rusqlite::Result<_>>()?)
+    sqlite_rows(conn, &sql, [], |r| run_from(r, 0))
 }
 
 /// Labels of the periods of `period_kind` (and `schedule`) that are done: checked to the end,
@@ -447,244 +300,33 @@ pub(super) fn completed_labels(
     Ok(rows.collect::<rusqlite::Result<_>>()?)
 }
 
-const TEST_COLUMNS: &str = "test_idx, characteristic, factor, state, is_new, n_obs, n_groups, \
-    n_groups_used, leading_method, leading_reason, recommend_kruskal, leading_statistic, \
-    leading_p, q_value, anova_f, anova_df1, anova_df2, anova_p, ss_between, ss_within, \
-    ms_within, r_squared, resid_sd, welch_f, welch_df1, welch_df2, welch_p, kruskal_h, \
-    kruskal_p, levene_stat, levene_p, brown_forsythe_stat, brown_forsythe_p, bartlett_stat, \
-    bartlett_p, shapiro_w, shapiro_p, sd_ratio, n_beyond_3sd, eta_squared, omega_squared, \
-    var_between, var_within, share_between, icc, icc_low, icc_high, tolerance, \
-    spread_of_means, spread_pct_tolerance, standout_level, standout_diff, standout_sd_units, \
-    standout_pct_tolerance, min_detectable_diff, min_detectable_pct_tolerance, notes, design, \
-    n_subgroups, var_subgroups, share_subgroups, serial_r1, serial_z, serial_p, \
-    var_between_low, var_between_high, var_within_low, var_within_high, var_subgroups_low, \
-    var_subgroups_high";
-
-/// A text column read through `parse` (a stored state, method or design name); an unknown
-/// name is a conversion error naming the column's value.
-pub(super) fn named<T>(
-    r: &Row<'_>,
-    idx: usize,
-    what: &'static str,
-    parse: fn(&str) -> Option<T>,
-) -> rusqlite::Result<Option<T>> {
-    let Some(text) = r.get::<_, Option<String>>(idx)? else {
-        return Ok(None);
-    };
-    parse(&text).map(Some).ok_or_else(|| {
-        rusqlite::Error::FromSqlConversionFailure(
-            idx,
-            rusqlite::types::Type::Text,
-            format!("unknown {what} {text:?} in run_result (a newer samewise wrote it?)").into(),
-        )
-    })
-}
-
-/// A count column as `u64` (they are never negative).
-fn count(r: &Row<'_>, idx: usize) -> rusqlite::Result<u64> {
-    Ok(r.get::<_, i64>(idx)?.max(0) as u64)
-}
-
-fn test_from_row(r: &Row<'_>, o: usize) -> rusqlite::Result<TestResult> {
-    let g = |i: usize| r.get::<_, Option<f64>>(o + i);
-    Ok(TestResult {
-        index: r.get(o)?,
-        characteristic: r.get(o + 1)?,
-        factor: r.get(o + 2)?,
-        state: named(r, o + 3, "state", TestState::parse)?.unwrap_or_default(),
-        is_new: r.get(o + 4)?,
-        n_obs: count(r, o + 5)?,
-        n_groups: count(r, o + 6)?,
-        n_groups_used: count(r, o + 7)?,
-        leading: LeadingResult {
-            method: named(r, o + 8, "leading method", LeadingTest::parse)?,
-            reason: r.get(o + 9)?,
-            recommend_kruskal_wallis: r.get(o + 10)?,
-            statistic: g(11)?,
-            p: g(12)?,
-        },
-        q_value: g(13)?,
-        anova: AnovaResult {
-            f: g(14)?,
-            df_between: g(15)?,
-            df_within: g(16)?,
-            p: g(17)?,
-            ss_between: g(18)?,
-            ss_within: g(19)?,
-            ms_within: g(20)?,
-            r_squared: g(21)?,
-            resid_sd: g(22)?,
-        },
-        welch: WelchResult {
-            f: g(23)?,
-            df1: g(24)?,
-            df2: g(25)?,
-            p: g(26)?,
-        },
-        kruskal_wallis: KruskalResult {
-            h: g(27)?,
-            p: g(28)?,
-        },
-        levene: StatP {
-            statistic: g(29)?,
-            p: g(30)?,
-        },
-        brown_forsythe: StatP {
-            statistic: g(31)?,
-            p: g(32)?,
-        },
-        bartlett: StatP {
-            statistic: g(33)?,
-            p: g(34)?,
-        },
-        shapiro_wilk: ShapiroResult {
-            w: g(35)?,
-            p: g(36)?,
-        },
-        sd_ratio: g(37)?,
-        n_beyond_3sd: r.get::<_, Option<i64>>(o + 38)?.map(|n| n.max(0) as u64),
-        effect: EffectResult {
-            eta_squared: g(39)?,
-            omega_squared: g(40)?,
-        },
-        variance_components: ComponentsResult {
-            between: g(41)?,
-            within: g(42)?,
-            share_between: g(43)?,
-            icc: g(44)?,
-            icc_ci: OptInterval {
-                low: g(45)?,
-                high: g(46)?,
-            },
-            between_ci: OptInterval {
-                low: g(64)?,
-                high: g(65)?,
-            },
-            within_ci: OptInterval {
-                low: g(66)?,
-                high: g(67)?,
-            },
-        },
-        tolerance: g(47)?,
-        spread_of_means: g(48)?,
-        spread_pct_tolerance: g(49)?,
-        stands_out: StandsOut {
-            level: r.get(o + 50)?,
-            diff: g(51)?,
-            sd_units: g(52)?,
-            pct_tolerance: g(53)?,
-        },
-        sensitivity: Sensitivity {
-            min_detectable_diff: g(54)?,
-            min_detectable_pct_tolerance: g(55)?,
-        },
-        notes: r.get(o + 56)?,
-        design: DesignResult {
-            kind: named(r, o + 57, "design", DesignKind::parse)?,
-            n_subgroups: r.get::<_, Option<i64>>(o + 58)?.map(|n| n.max(0) as u64),
-            var_subgroups: g(59)?,
-            share_subgroups: g(60)?,
-            var_subgroups_ci: OptInterval {
-                low: g(68)?,
-                high: g(69)?,
-            },
-        },
-        serial_dependence: SerialResult {
-            r1: g(61)?,
-            z: g(62)?,
-            p: g(63)?,
-        },
-        groups: Vec::new(),
-        pairs: Vec::new(),
-    })
-}
-
-/// The rows `sql` selects with the run id bound to `?1`, each read by `read`.
-fn rows_of_run<T>(
-    conn: &Connection,
-    sql: &str,
-    run_id: i64,
-    read: impl FnMut(&Row<'_>) -> rusqlite::Result<T>,
-) -> Result<Vec<T>> {
-    let mut st = conn.prepare(sql)?;
-    let rows = st
-        .query_map(params![run_id], read)?
-        .collect::<rusqlite::Result<Vec<_>>>()?;
-    Ok(rows)
-}
-
 /// Reads the full content of one run.
 pub(super) fn run_content(conn: &Connection, run_id: i64) -> Result<RunContent> {
-    let sql = format!("SELECT {TEST_COLUMNS} FROM run_result WHERE run_id = ?1 ORDER BY test_idx");
-    let mut tests = rows_of_run(conn, &sql, run_id, |r| test_from_row(r, 0))?;
-    // Tests are numbered 0.. in order; a position lookup tolerates gaps all the same.
-    let position: std::collections::HashMap<u32, usize> = tests
-        .iter()
-        .enumerate()
-        .map(|(i, t)| (t.index, i))
-        .collect();
-    let groups = rows_of_run(
+    let mut tests = sqlite_rows(
         conn,
-        "SELECT test_idx, level, n, mean, sd, min, max, origin, diff_from_grand
-         FROM run_group WHERE run_id = ?1 ORDER BY test_idx, group_idx",
-        run_id,
-        |r| {
-            Ok((
-                r.get::<_, u32>(0)?,
-                GroupResult::from_offsets(
-                    r.get(1)?,
-                    count(r, 2)?,
-                    r.get(7)?,
-                    r.get(3)?,
-                    r.get(4)?,
-                    r.get(5)?,
-                    r.get(6)?,
-                    r.get(8)?,
-                ),
-            ))
-        },
+        &format!("SELECT {TEST_COLUMNS} FROM run_result WHERE run_id = ?1 ORDER BY test_idx"),
+        [run_id],
+        |r| test_from(r, 0),
     )?;
-    for (test_idx, g) in groups {
-        let Some(&i) = position.get(&test_idx) else {
-            return Err(crate::Error::Database(format!(
-                "run {run_id}: a stored group row belongs to test {test_idx}, which the run does not hold; run `samewise db check`"
-            )));
-        };
-        tests[i].groups.push(g);
-    }
-    let pairs = rows_of_run(
+    let groups = sqlite_rows(
         conn,
-        "SELECT test_idx, level_a, level_b, method, diff, se, statistic, df, p_adj, ci_low, ci_high
-         FROM run_pair WHERE run_id = ?1 ORDER BY test_idx, rowid",
-        run_id,
-        |r| {
-            Ok((
-                r.get::<_, u32>(0)?,
-                PairResult {
-                    a: r.get(1)?,
-                    b: r.get(2)?,
-                    method: r.get(3)?,
-                    diff: r.get(4)?,
-                    se: r.get(5)?,
-                    statistic: r.get(6)?,
-                    df: r.get(7)?,
-                    p_adj: r.get(8)?,
-                    ci: Interval {
-                        low: r.get(9)?,
-                        high: r.get(10)?,
-                    },
-                },
-            ))
-        },
+        &format!(
+            "SELECT test_idx, {GROUP_COLUMNS} FROM run_group WHERE run_id = ?1 \
+             ORDER BY test_idx, group_idx"
+        ),
+        [run_id],
+        |r| Ok((r.small(0)?, group_from(r, 1)?)),
     )?;
-    for (test_idx, p) in pairs {
-        let Some(&i) = position.get(&test_idx) else {
-            return Err(crate::Error::Database(format!(
-                "run {run_id}: a stored pair row belongs to test {test_idx}, which the run does not hold; run `samewise db check`"
-            )));
-        };
-        tests[i].pairs.push(p);
-    }
+    let pairs = sqlite_rows(
+        conn,
+        &format!(
+            "SELECT test_idx, {PAIR_COLUMNS} FROM run_pair WHERE run_id = ?1 \
+             ORDER BY test_idx, rowid"
+        ),
+        [run_id],
+        |r| Ok((r.small(0)?, pair_from(r, 1)?)),
+    )?;
+    attach_groups_and_pairs(run_id, &mut tests, groups, pairs)?;
     Ok(RunContent { tests })
 }
 
@@ -697,15 +339,6 @@ pub struct HistoryPoint {
     pub test: TestResult,
     /// Complete versions of the period's run (more than one: the period was checked again).
     pub complete_versions: i64,
-}
-
-/// `columns` (a comma-separated list) with each name prefixed by `alias.`.
-fn qualified(alias: &str, columns: &str) -> String {
-    columns
-        .split(',')
-        .map(|c| format!("{alias}.{}", c.trim()))
-        .collect::<Vec<_>>()
-        .join(", ")
 }
 
 /// The latest complete result of `characteristic` x `factor` for each of the last `last` periods
@@ -727,19 +360,18 @@ pub(super) fn history(
                             AND r2.period_label = r.period_label AND r2.status = 'complete')
          ORDER BY r.period_start_ms DESC LIMIT ?4"
     );
-    let mut st = conn.prepare(&sql)?;
-    let mut points = st
-        .query_map(
-            params![period_kind, characteristic, factor, last as i64],
-            |r| {
-                Ok(HistoryPoint {
-                    run: run_from_row(r)?,
-                    test: test_from_row(r, RUN_COLUMNS.split(',').count())?,
-                    complete_versions: 1,
-                })
-            },
-        )?
-        .collect::<rusqlite::Result<Vec<_>>>()?;
+    let mut points = sqlite_rows(
+        conn,
+        &sql,
+        params![period_kind, characteristic, factor, last as i64],
+        |r| {
+            Ok(HistoryPoint {
+                run: run_from(r, 0)?,
+                test: test_from(r, super::columns::column_count(RUN_COLUMNS))?,
+                complete_versions: 1,
+            })
+        },
+    )?;
     points.reverse();
     for p in &mut points {
         p.complete_versions =
@@ -765,9 +397,9 @@ pub(super) fn latest_complete_runs_between(
                             AND r2.period_label = r.period_label AND r2.status = 'complete')
          ORDER BY r.period_start_ms, r.period_label"
     );
-    let mut st = conn.prepare(&sql)?;
-    let rows = st.query_map(params![period_kind, start_ms, end_ms], run_from_row)?;
-    Ok(rows.collect::<rusqlite::Result<_>>()?)
+    sqlite_rows(conn, &sql, params![period_kind, start_ms, end_ms], |r| {
+        run_from(r, 0)
+    })
 }
 
 /// Flagged (characteristic, factor) pairs of the latest complete run of a period.
@@ -779,12 +411,12 @@ pub(super) fn flagged_tests(
     let Some(run) = latest_complete_run(conn, period_kind, period_label)? else {
         return Ok(None);
     };
-    let rows = rows_of_run(
+    let rows = sqlite_rows(
         conn,
         "SELECT characteristic, factor FROM run_result
-         WHERE run_id = ?1 AND state IN ('differs_material', 'differs')",
-        run.run_id,
-        |r| Ok((r.get(0)?, r.get(1)?)),
+         WHERE run_id = ?1 AND state IN ('differs_material', 'differs') ORDER BY test_idx",
+        [run.run_id],
+        |r| Ok((r.text(0)?, r.text(1)?)),
     )?;
     Ok(Some(rows))
 }
@@ -1090,6 +722,7 @@ impl RunStore for crate::storage::Store {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::results::{AnovaResult, GroupResult, Interval, PairResult, StandsOut, TestState};
 
     /// Every migration in order: the run history reads the import records too (stale
     /// periods, migration 0004).

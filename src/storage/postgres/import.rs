@@ -29,12 +29,18 @@ use crate::storage::maintenance::from_ms;
 use crate::storage::master::{LevelSetStore, StoredCharacteristic, StoredFactor};
 use crate::Result;
 
-/// Takes the site's write lock for the rest of the transaction.
+/// Takes the site's write lock for the rest of the transaction (imports, undos and the
+/// master-data sync of one site go one at a time, as on SQLite; other sites never wait), and
+/// the import fence shared, so a run that begins meanwhile waits for this transaction to end
+/// before it reads the highest import id it has seen (`runs::IMPORT_FENCE`). Waits are bounded
+/// by the busy timeout.
 pub(crate) fn lock_site_writes(tx: &mut Transaction<'_>) -> Result<()> {
-    tx.execute(
-        "SELECT pg_advisory_xact_lock(hashtext('samewise writes ' || current_schema()))",
-        &[],
-    )?;
+    super::runs::bound_lock_waits(tx)?;
+    tx.batch_execute(&format!(
+        "SELECT pg_advisory_xact_lock(hashtextextended('samewise writes ' || current_schema(), 0)); \
+         SELECT pg_advisory_xact_lock_shared({});",
+        super::runs::IMPORT_FENCE
+    ))?;
     Ok(())
 }
 

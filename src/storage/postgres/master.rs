@@ -109,14 +109,12 @@ fn flag(b: bool) -> i64 {
 impl PgStore {
     /// Brings characteristics and factors in step with `config` in one transaction (the plan
     /// of [`plan_sync`]: adds and updates, never deletes, never touches measurements or origins).
-    /// Serialised per site by an advisory lock, so two `init`s at once apply it once.
+    /// Under the site's write lock, so two `init`s (or an `init` and an import) at once apply it
+    /// once.
     pub(crate) fn sync_config_pg(&mut self, config: &Config) -> Result<SyncReport> {
         let mut conn = self.conn();
         let mut tx = conn.transaction()?;
-        tx.execute(
-            "SELECT pg_advisory_xact_lock(hashtext('samewise master ' || current_schema()))",
-            &[],
-        )?;
+        super::import::lock_site_writes(&mut tx)?;
         let plan = plan_sync(
             &load_characteristics(&mut tx)?,
             &load_factor_rows(&mut tx)?,

@@ -12,11 +12,14 @@
 //! where SQLite would take its single write lock (the import's master data, the run versions);
 //! different sites never wait for each other.
 
+mod events;
+mod findings;
 mod import;
 mod maintenance;
 mod master;
 mod migrate;
 mod query;
+mod runs;
 
 use std::cell::{RefCell, RefMut};
 
