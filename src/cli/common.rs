@@ -72,6 +72,8 @@ pub fn database_in_use() -> Option<PathBuf> {
 /// Opens the configuration's existing database (an error suggesting `samewise init` if there is
 /// none yet).
 pub fn open_store(config: &Config) -> Result<Box<dyn PlantStore>> {
-    note_database(&config.plant.database);
+    if config.plant.server.is_none() {
+        note_database(&config.plant.database);
+    }
     crate::storage::open(config)
 }

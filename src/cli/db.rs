@@ -51,7 +51,7 @@ pub fn run(args: &DbArgs) -> Result<ExitCode> {
                 println!(
                     "{}",
                     serde_json::to_string_pretty(&serde_json::json!({
-                        "database": config.plant.database.display().to_string(),
+                        "database": crate::storage::describe(&config),
                         "sound": report.is_ok(),
                         "counts": counts,
                         "integrity": report.integrity,
@@ -82,7 +82,7 @@ pub fn run(args: &DbArgs) -> Result<ExitCode> {
             } else {
                 Err(crate::Error::Database(format!(
                     "{} failed the check (see above)",
-                    config.plant.database.display()
+                    crate::storage::describe(&config)
                 )))
             }
         }
@@ -92,7 +92,7 @@ pub fn run(args: &DbArgs) -> Result<ExitCode> {
             store.backup(path)?;
             println!(
                 "backed up {} to {}",
-                config.plant.database.display(),
+                crate::storage::describe(&config),
                 path.display()
             );
             Ok(ExitCode::from(super::EXIT_OK))

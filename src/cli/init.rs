@@ -18,8 +18,10 @@ pub struct InitArgs {}
 /// Runs `samewise init`.
 pub fn run(_args: &InitArgs) -> Result<ExitCode> {
     let config = load_config(super::common::config_flag())?;
-    let db = &config.plant.database;
-    super::common::note_database(db);
+    let db = crate::storage::describe(&config);
+    if config.plant.server.is_none() {
+        super::common::note_database(&config.plant.database);
+    }
     // A 0-byte or table-less file holds nothing: the database is created in it. Another
     // program's database is refused (by `storage::open_or_create`).
     let existed = storage::exists(&config)?;
@@ -32,11 +34,11 @@ pub fn run(_args: &InitArgs) -> Result<ExitCode> {
     let report = store.sync_config(&config)?;
     let version = store.schema_version()?;
     match before {
-        None => println!("created {} (schema version {version})", db.display()),
+        None => println!("created {db} (schema version {version})"),
         Some(v) if v < migrate::latest_version() => {
-            println!("updated {}: schema version {v} -> {version}", db.display())
+            println!("updated {db}: schema version {v} -> {version}")
         }
-        Some(_) => println!("{} is at schema version {version}", db.display()),
+        Some(_) => println!("{db} is at schema version {version}"),
     }
     let list = |label: &str, names: &[String]| {
         if !names.is_empty() {

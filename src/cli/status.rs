@@ -25,7 +25,7 @@ pub fn run(args: &StatusArgs) -> Result<ExitCode> {
     if args.json {
         return print_json(&*store, &config, &status);
     }
-    println!("database: {}", config.plant.database.display());
+    println!("database: {}", crate::storage::describe(&config));
     println!("schema version: {}", status.schema_version);
     let fmt = |t: Option<chrono::DateTime<chrono::Utc>>| {
         t.map(|t| {
@@ -189,7 +189,7 @@ fn print_json(
         .filter(|f| f.status == crate::model::FindingStatus::Open)
         .count();
     let mut doc = json!({
-        "database": config.plant.database.display().to_string(),
+        "database": crate::storage::describe(&config),
         "schema_version": status.schema_version,
         "time_zone": tz.name(),
         "characteristics": characteristics,

@@ -87,43 +87,42 @@ impl<T> PlantStore for T where
 /// An opened plant database, whatever its backend.
 pub type BoxedStore = Box<dyn PlantStore>;
 
-/// Opens the existing plant database of `config`, applying pending migrations: the backend for
-/// the configuration (today always SQLite at `plant.database`, see [`Store::open`]). A missing
-/// database is an error that suggests `samewise init`.
+/// Opens the existing plant database of `config`, applying pending migrations: the SQLite file
+/// at `plant.database` ([`Store::open`]), or the site's schema on the PostgreSQL server of
+/// `plant.server` ([`PgStore::open_existing`]). A missing database is an error that suggests
+/// `samewise init`.
 pub fn open(config: &Config) -> Result<Box<dyn PlantStore>> {
-    refuse_server(config)?;
-    Ok(Box::new(Store::open(&config.plant.database)?))
-}
-
-/// A configuration that names a PostgreSQL server is refused, whatever the command, until the
-/// PostgreSQL backend ([`PgStore`]) implements every trait: nothing is opened, nothing written.
-fn refuse_server(config: &Config) -> Result<()> {
     match &config.plant.server {
-        None => Ok(()),
-        Some(server) => Err(Error::Usage(format!(
-            "{}: the plant database is a PostgreSQL server ({}, schema {}), which this version \
-             of samewise cannot use yet (its PostgreSQL backend reads measurements and checks \
-             the schema, but cannot import or keep runs); nothing was changed: use an SQLite \
-             file path for `database` in [plant]",
-            config.path.display(),
-            server.display_url(),
-            server.schema
-        ))),
+        Some(server) => Ok(Box::new(PgStore::open_existing(server)?)),
+        None => Ok(Box::new(Store::open(&config.plant.database)?)),
     }
 }
 
-/// Opens the plant database of `config`, creating it if it does not exist, and applies pending
-/// migrations; the master data is not touched (see [`create`]).
+/// Opens the plant database of `config`, creating it if it does not exist (a file, or the
+/// site's schema), and applies pending migrations; the master data is not touched (see
+/// [`create`]).
 pub fn open_or_create(config: &Config) -> Result<Box<dyn PlantStore>> {
-    refuse_server(config)?;
-    Ok(Box::new(Store::open_or_create(&config.plant.database)?))
+    match &config.plant.server {
+        Some(server) => Ok(Box::new(PgStore::open(server)?)),
+        None => Ok(Box::new(Store::open_or_create(&config.plant.database)?)),
+    }
 }
 
 /// Creates the plant database of `config` (or opens it if it exists), applies pending
 /// migrations and brings characteristics and factors in step with the configuration.
 pub fn create(config: &Config) -> Result<Box<dyn PlantStore>> {
-    refuse_server(config)?;
-    Ok(Box::new(Store::create(&config.plant.database, config)?))
+    let mut store = open_or_create(config)?;
+    store.sync_config(config)?;
+    Ok(store)
+}
+
+/// Where the plant database of `config` is, for messages: the file, or the server (password
+/// hidden) and schema.
+pub fn describe(config: &Config) -> String {
+    match &config.plant.server {
+        Some(server) => format!("schema {} on {}", server.schema, server.display_url()),
+        None => config.plant.database.display().to_string(),
+    }
 }
 
 /// A fresh, empty store in memory with every migration applied (for tests and dry runs); it
@@ -135,7 +134,9 @@ pub fn open_in_memory() -> Result<Box<dyn PlantStore>> {
 /// Whether the plant database of `config` exists and holds data (`false` for a missing place or
 /// an empty file, where `samewise init` creates the database).
 pub fn exists(config: &Config) -> Result<bool> {
-    refuse_server(config)?;
+    if let Some(server) = &config.plant.server {
+        return PgStore::exists(server);
+    }
     let db = &config.plant.database;
     Ok(db.exists() && !Store::is_empty_file(db)?)
 }

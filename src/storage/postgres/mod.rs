@@ -76,6 +76,20 @@ impl PgStore {
         })
     }
 
+    /// Opens the site's schema, which `samewise init` must have created: a missing schema is an
+    /// error that says so (nothing is created).
+    pub fn open_existing(target: &ServerDatabase) -> Result<PgStore> {
+        if !PgStore::exists(target)? {
+            return Err(Error::Database(format!(
+                "no samewise data for schema {} in the PostgreSQL database {}: run `samewise \
+                 init` to create it from the plant configuration",
+                target.schema,
+                target.display_url()
+            )));
+        }
+        PgStore::open(target)
+    }
+
     /// Whether the site's schema exists and holds samewise's tables (`samewise init` creates it
     /// otherwise).
     pub fn exists(target: &ServerDatabase) -> Result<bool> {
