@@ -744,7 +744,7 @@ pub struct CheckDocument {
     pub period: CheckedPeriod,
     /// Findings made new, changed or still open by this check (`null` for `--stored` and
     /// ranges; see `findings_reason`).
-    pub findings: Option<serde_json::Value>,
+    pub findings: Option<crate::outputs::CheckFindings>,
     /// The stored run.
     pub run: CheckedRun,
     /// Tests in the run.

@@ -85,3 +85,177 @@ fn check_outputs_validate_against_the_committed_schema() {
     assert!(!validator.is_valid(&wrong), "a string count passed");
     let _ = std::fs::remove_dir_all(&dir);
 }
+
+fn committed(name: &str) -> serde_json::Value {
+    serde_json::from_str(&std::fs::read_to_string(schema_dir().join(name)).unwrap())
+        .unwrap_or_else(|e| panic!("{name}: {e}"))
+}
+
+fn stdout_json(dir: &std::path::Path, args: &[&str]) -> serde_json::Value {
+    let out = samewise(dir, args);
+    serde_json::from_slice(&out.stdout)
+        .unwrap_or_else(|e| panic!("{args:?}: {e}: {}", String::from_utf8_lossy(&out.stderr)))
+}
+
+/// Every other command's JSON on the small invented plant, validated against its committed
+/// schema: before anything is checked (no findings, no alert), after the scheduler made runs
+/// and a finding, with an event logged, an import undone, and both modes of `investigate`.
+#[test]
+fn every_command_output_validates_against_its_schema() {
+    let dir = temp_dir("schema-commands");
+    invented_plant(&dir, 4);
+    let check = |schema: &str, args: &[&str]| {
+        validate(
+            &committed(schema),
+            &stdout_json(&dir, args),
+            &format!("{schema}: {args:?}"),
+        );
+    };
+    check("status.json", &["status", "--json"]);
+    check("findings.json", &["findings", "--all", "--json"]);
+    check(
+        "history.json",
+        &[
+            "history",
+            "--characteristic",
+            "bore",
+            "--by",
+            "machine",
+            "--json",
+        ],
+    );
+    check("event-list.json", &["event", "list", "--json"]);
+    samewise(
+        &dir,
+        &[
+            "event",
+            "add",
+            "--at",
+            "2026-11-30 05:00",
+            "--note",
+            "New boring bar on M2",
+            "--where",
+            "machine=M2",
+        ],
+    );
+    samewise(
+        &dir,
+        &[
+            "event",
+            "add",
+            "--at",
+            "2026-11-29 05:00",
+            "--note",
+            "coolant topped up",
+        ],
+    );
+    samewise(&dir, &["event", "remove", "2", "--reason", "logged twice"]);
+    check("event-list.json", &["event", "list", "--all", "--json"]);
+
+    // The scheduler's JSON lines: every line is a log line or the summary.
+    let out = samewise(
+        &dir,
+        &["schedule", "due", "--now", "2026-12-02T09:00:00Z", "--json"],
+    );
+    let schema = committed("schedule-line.json");
+    let stdout = String::from_utf8_lossy(&out.stdout);
+    assert!(stdout.lines().count() > 3, "{stdout}");
+    for line in stdout.lines() {
+        let v: serde_json::Value =
+            serde_json::from_str(line).unwrap_or_else(|e| panic!("{line}: {e}"));
+        validate(&schema, &v, line);
+    }
+    assert!(
+        stdout.lines().last().unwrap().starts_with("{\"summary\""),
+        "{stdout}"
+    );
+
+    check("status.json", &["status", "--json"]);
+    let findings = stdout_json(&dir, &["findings", "--all", "--json"]);
+    assert_eq!(findings.as_array().unwrap().len(), 1, "{findings}");
+    assert_eq!(findings[0]["nearest_event"]["id"], 1, "{findings}");
+    validate(
+        &committed("findings.json"),
+        &findings,
+        "findings after the scheduler",
+    );
+    check(
+        "history.json",
+        &[
+            "history",
+            "--characteristic",
+            "bore",
+            "--by",
+            "machine",
+            "--json",
+        ],
+    );
+    check(
+        "history.json",
+        &[
+            "history",
+            "--characteristic",
+            "width",
+            "--by",
+            "supplier",
+            "--json",
+        ],
+    );
+    check("db-check.json", &["db", "check", "--json"]);
+    check(
+        "investigate.json",
+        &[
+            "investigate",
+            "--characteristic",
+            "bore",
+            "--by",
+            "machine",
+            "--event",
+            "1",
+            "--json",
+        ],
+    );
+    check(
+        "investigate.json",
+        &[
+            "investigate",
+            "--characteristic",
+            "bore",
+            "--by",
+            "machine",
+            "--to",
+            "2026-12-02 06:00",
+            "--before",
+            "4d",
+            "--json",
+        ],
+    );
+
+    // An import, a re-import refused as a duplicate, and an undo: every row shape.
+    check("import-list.json", &["import", "list", "--json"]);
+    samewise(&dir, &["import", "undo", "1"]);
+    let list = stdout_json(&dir, &["import", "list", "--json"]);
+    assert!(list.as_array().unwrap().len() >= 2, "{list}");
+    validate(
+        &committed("import-list.json"),
+        &list,
+        "import list after an undo",
+    );
+
+    // The schemas refuse a null without its reason and a reason beside a value.
+    let schema = committed("findings.json");
+    let validator = jsonschema::validator_for(&schema).unwrap();
+    let mut bare = findings.clone();
+    bare[0]["effect_now"] = serde_json::Value::Null;
+    assert!(
+        !validator.is_valid(&bare),
+        "a null without its reason passed"
+    );
+    let mut stray = findings.clone();
+    stray[0]["within_sd_reason"] = "why not".into();
+    assert!(
+        !validator.is_valid(&stray),
+        "a reason beside a value passed"
+    );
+    let _ = std::fs::remove_dir_all(&dir);
+}

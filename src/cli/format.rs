@@ -86,6 +86,14 @@ pub fn bound_tiny_p(value: &mut Value) {
     }
 }
 
+/// A document as pretty JSON text: its `Serialize` form with p-values below the floor written
+/// as bounds ([`bound_tiny_p`]).
+pub fn document_json(doc: &impl serde::Serialize) -> String {
+    let mut v = serde_json::to_value(doc).unwrap_or(Value::Null);
+    bound_tiny_p(&mut v);
+    serde_json::to_string_pretty(&v).unwrap_or_default()
+}
+
 /// A finite number as JSON, or null (callers pair a null with a reason).
 pub fn json_number(x: f64) -> Value {
     serde_json::Number::from_f64(x).map_or(Value::Null, Value::Number)
