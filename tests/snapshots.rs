@@ -154,6 +154,81 @@ fn every_command_as_text_and_json() {
             "--json",
         ],
     );
+    run(
+        "schedule-due-json",
+        &["schedule", "due", "--now", "2026-12-02T09:00:00Z", "--json"],
+    );
+    run(
+        "investigate-scan",
+        &[
+            "investigate",
+            "--characteristic",
+            "bore",
+            "--by",
+            "machine",
+            "--to",
+            "2026-12-02 06:00",
+            "--before",
+            "4d",
+        ],
+    );
+    run(
+        "investigate-scan-json",
+        &[
+            "investigate",
+            "--characteristic",
+            "bore",
+            "--by",
+            "machine",
+            "--to",
+            "2026-12-02 06:00",
+            "--before",
+            "4d",
+            "--json",
+        ],
+    );
+    // The CSV files, with what the command printed.
+    let file = |name: &str, args: &[&str], path: &str| {
+        let text = shot(&dir, args)
+            + &format!(
+                "--- {path}\n{}",
+                std::fs::read_to_string(dir.join(path)).unwrap_or_default()
+            );
+        insta::with_settings!({filters => filters.clone(), snapshot_suffix => name, prepend_module_to_snapshot => false, description => args.join(" "), omit_expression => true}, {
+            insta::assert_snapshot!("command", text);
+        });
+    };
+    file(
+        "check-day-csv",
+        &[
+            "check",
+            "--day",
+            "2026-11-30",
+            "--stored",
+            "--csv",
+            "day.csv",
+        ],
+        "day.csv",
+    );
+    file(
+        "history-csv",
+        &[
+            "history",
+            "--characteristic",
+            "bore",
+            "--by",
+            "machine",
+            "--csv",
+            "history.csv",
+        ],
+        "history.csv",
+    );
+    file(
+        "findings-csv",
+        &["findings", "--all", "--csv", "findings.csv"],
+        "findings.csv",
+    );
+    run("import-list", &["import", "list"]);
     run("import-list-json", &["import", "list", "--json"]);
     run("db-check", &["db", "check"]);
     run("db-check-json", &["db", "check", "--json"]);
