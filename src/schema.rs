@@ -30,6 +30,7 @@ pub fn all() -> Vec<(&'static str, Value)> {
         ("findings.json", document::<Vec<o::FindingLine>>()),
         ("alert.json", document::<o::AlertDocument>()),
         ("schedule-line.json", document::<o::ScheduleLine>()),
+        ("compare.json", document::<o::compare::CompareDocument>()),
         (
             "investigate.json",
             document::<o::investigate::InvestigateDocument>(),

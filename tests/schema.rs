@@ -259,3 +259,116 @@ fn every_command_output_validates_against_its_schema() {
     );
     let _ = std::fs::remove_dir_all(&dir);
 }
+
+/// `compare --json` on files of every shape the document has: independent values with limits
+/// and `--detect`, subgroups crossed with the groups (blocked or mixed) and nested in them, a
+/// coarse gauge (every group constant) and a group of one value.
+#[test]
+fn compare_outputs_validate_against_the_committed_schema() {
+    let dir = temp_dir("schema-compare");
+    invented_plant(&dir, 1);
+    let csv = std::fs::read_to_string(dir.join("measurements.csv")).unwrap();
+    let mut crossed = String::from("machine,hour,bore\n");
+    let mut nested = String::from("machine,lot,bore\n");
+    for line in csv.lines().skip(1) {
+        let f: Vec<&str> = line.split(',').collect();
+        if f[1] == "bore" {
+            let hour = &f[0][11..13];
+            crossed.push_str(&format!("{},{hour},{}\n", f[3], f[2]));
+            nested.push_str(&format!("{},{}-{hour},{}\n", f[3], f[3], f[2]));
+        }
+    }
+    std::fs::write(dir.join("crossed.csv"), crossed).unwrap();
+    std::fs::write(dir.join("nested.csv"), nested).unwrap();
+    std::fs::write(
+        dir.join("coarse.csv"),
+        "cavity,gap\nC1,0.2\nC1,0.2\nC1,0.2\nC2,0.3\nC2,0.3\nC2,0.3\n",
+    )
+    .unwrap();
+    std::fs::write(
+        dir.join("single.csv"),
+        "cavity,gap\nC1,0.21\nC2,0.30\nC2,0.32\nC2,0.29\nC3,0.25\nC3,0.24\n",
+    )
+    .unwrap();
+    let schema = committed("compare.json");
+    let mut kinds = Vec::new();
+    for args in [
+        &[
+            "compare",
+            "crossed.csv",
+            "--by",
+            "machine",
+            "--measure",
+            "bore",
+            "--lsl",
+            "9.9",
+            "--usl",
+            "10.1",
+            "--detect",
+            "0.01",
+            "--json",
+        ][..],
+        &[
+            "compare",
+            "crossed.csv",
+            "--by",
+            "machine",
+            "--measure",
+            "bore",
+            "--subgroup",
+            "hour",
+            "--json",
+        ],
+        &[
+            "compare",
+            "nested.csv",
+            "--by",
+            "machine",
+            "--measure",
+            "bore",
+            "--subgroup",
+            "lot",
+            "--json",
+        ],
+        &[
+            "compare",
+            "coarse.csv",
+            "--by",
+            "cavity",
+            "--measure",
+            "gap",
+            "--json",
+        ],
+        &[
+            "compare",
+            "single.csv",
+            "--by",
+            "cavity",
+            "--measure",
+            "gap",
+            "--json",
+        ],
+    ] {
+        let doc = stdout_json(&dir, args);
+        validate(&schema, &doc, &format!("{args:?}"));
+        kinds.push(doc["design"]["kind"].as_str().unwrap().to_string());
+        if args[1] == "coarse.csv" {
+            assert!(doc["constant_groups"].is_object(), "{doc}");
+            assert!(
+                doc["anova"].is_null() && doc["anova_reason"].is_string(),
+                "{doc}"
+            );
+        }
+        if args[1] == "single.csv" {
+            assert!(doc["groups"][0]["sd"].is_null(), "{doc}");
+            assert!(doc["groups"][0]["sd_reason"].is_string(), "{doc}");
+        }
+    }
+    assert_eq!(kinds[0], "independent");
+    assert_ne!(
+        kinds[1], "independent",
+        "the hour is crossed with the machine"
+    );
+    assert_eq!(kinds[2], "nested");
+    let _ = std::fs::remove_dir_all(&dir);
+}

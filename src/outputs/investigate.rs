@@ -6,7 +6,7 @@ use chrono_tz::Tz;
 use schemars::JsonSchema;
 use serde::Serialize;
 
-use super::{plant_time_ms, reason_if_none, split};
+use super::{plant_time_ms, reason_if_none, split, FTest, StatTest};
 use crate::analysis::investigate::{Comparison, GroupChange, GroupScan};
 use crate::results::Interval;
 use crate::stats::twoway::{Table, TermRow, TwoWay};
@@ -186,39 +186,6 @@ pub struct SdRatioOut {
     pub method: String,
 }
 
-/// A test with its statistic, degrees of freedom and p-value.
-#[derive(Debug, Clone, PartialEq, Serialize, JsonSchema)]
-pub struct StatTest {
-    /// The statistic.
-    pub statistic: f64,
-    /// Numerator degrees of freedom.
-    pub df1: Option<f64>,
-    /// Why `df1` is null.
-    #[serde(skip_serializing_if = "Option::is_none")]
-    pub df1_reason: Option<String>,
-    /// Denominator degrees of freedom.
-    pub df2: Option<f64>,
-    /// Why `df2` is null.
-    #[serde(skip_serializing_if = "Option::is_none")]
-    pub df2_reason: Option<String>,
-    /// p-value.
-    pub p: f64,
-}
-
-impl From<&crate::stats::TestResult> for StatTest {
-    fn from(t: &crate::stats::TestResult) -> Self {
-        let none = "the test has no such degrees of freedom";
-        StatTest {
-            statistic: t.statistic,
-            df1: t.df1,
-            df1_reason: reason_if_none(&t.df1, none),
-            df2: t.df2,
-            df2_reason: reason_if_none(&t.df2, none),
-            p: t.p,
-        }
-    }
-}
-
 /// One level (or all levels pooled) before and after the change.
 #[derive(Debug, Clone, PartialEq, Serialize, JsonSchema)]
 pub struct GroupChangeOut {
@@ -382,25 +349,6 @@ impl From<&VarianceComponents> for ShareOut {
     }
 }
 
-/// An F test of a term.
-#[derive(Debug, Clone, PartialEq, Serialize, JsonSchema)]
-pub struct FTest {
-    /// F.
-    pub f: f64,
-    /// p-value.
-    pub p: f64,
-    /// Numerator degrees of freedom.
-    pub df1: Option<f64>,
-    /// Why `df1` is null.
-    #[serde(skip_serializing_if = "Option::is_none")]
-    pub df1_reason: Option<String>,
-    /// Denominator degrees of freedom.
-    pub df2: Option<f64>,
-    /// Why `df2` is null.
-    #[serde(skip_serializing_if = "Option::is_none")]
-    pub df2_reason: Option<String>,
-}
-
 /// One term of a two-way table.
 #[derive(Debug, Clone, PartialEq, Serialize, JsonSchema)]
 pub struct TermOut {
@@ -419,17 +367,7 @@ pub struct TermOut {
 
 impl From<&TermRow> for TermOut {
     fn from(r: &TermRow) -> Self {
-        let (test, test_reason) = split(&r.test, |t| {
-            let s = StatTest::from(t);
-            FTest {
-                f: s.statistic,
-                p: s.p,
-                df1: s.df1,
-                df1_reason: s.df1_reason,
-                df2: s.df2,
-                df2_reason: s.df2_reason,
-            }
-        });
+        let (test, test_reason) = split(&r.test, FTest::from);
         TermOut {
             ss: r.ss,
             df: r.df,

@@ -20,6 +20,7 @@ use serde::Serialize;
 use crate::results::{DesignKind, GroupResult, LeadingTest, TestResult, TestState};
 use crate::stats::Stat;
 
+pub mod compare;
 pub mod investigate;
 
 /// `t` as RFC 3339 with the plant's offset.
@@ -160,6 +161,97 @@ pub fn group_means_cell(groups: &[GroupSummary]) -> String {
         .map(|g| format!("{}={:?}", g.name, g.mean))
         .collect::<Vec<_>>()
         .join(";")
+}
+
+/// A test with its statistic, degrees of freedom and p-value.
+#[derive(Debug, Clone, PartialEq, Serialize, JsonSchema)]
+pub struct StatTest {
+    /// The statistic.
+    pub statistic: f64,
+    /// Numerator degrees of freedom.
+    pub df1: Option<f64>,
+    /// Why `df1` is null.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub df1_reason: Option<String>,
+    /// Denominator degrees of freedom.
+    pub df2: Option<f64>,
+    /// Why `df2` is null.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub df2_reason: Option<String>,
+    /// p-value.
+    pub p: f64,
+}
+
+impl From<&crate::stats::TestResult> for StatTest {
+    fn from(t: &crate::stats::TestResult) -> Self {
+        let none = "the test has no such degrees of freedom";
+        StatTest {
+            statistic: t.statistic,
+            df1: t.df1,
+            df1_reason: reason_if_none(&t.df1, none),
+            df2: t.df2,
+            df2_reason: reason_if_none(&t.df2, none),
+            p: t.p,
+        }
+    }
+}
+
+/// An F test.
+#[derive(Debug, Clone, PartialEq, Serialize, JsonSchema)]
+pub struct FTest {
+    /// F.
+    pub f: f64,
+    /// p-value.
+    pub p: f64,
+    /// Numerator degrees of freedom.
+    pub df1: Option<f64>,
+    /// Why `df1` is null.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub df1_reason: Option<String>,
+    /// Denominator degrees of freedom.
+    pub df2: Option<f64>,
+    /// Why `df2` is null.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub df2_reason: Option<String>,
+}
+
+impl From<&crate::stats::TestResult> for FTest {
+    fn from(t: &crate::stats::TestResult) -> Self {
+        let s = StatTest::from(t);
+        FTest {
+            f: s.statistic,
+            p: s.p,
+            df1: s.df1,
+            df1_reason: s.df1_reason,
+            df2: s.df2,
+            df2_reason: s.df2_reason,
+        }
+    }
+}
+
+/// A test with a chi-square reference distribution: statistic, degrees of freedom, p-value.
+#[derive(Debug, Clone, PartialEq, Serialize, JsonSchema)]
+pub struct ChiSquareTest {
+    /// The statistic.
+    pub statistic: f64,
+    /// Degrees of freedom.
+    pub df: Option<f64>,
+    /// Why `df` is null.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub df_reason: Option<String>,
+    /// p-value.
+    pub p: f64,
+}
+
+impl From<&crate::stats::TestResult> for ChiSquareTest {
+    fn from(t: &crate::stats::TestResult) -> Self {
+        ChiSquareTest {
+            statistic: t.statistic,
+            df: t.df1,
+            df_reason: reason_if_none(&t.df1, "the test has no degrees of freedom"),
+            p: t.p,
+        }
+    }
 }
 
 // ---------------------------------------------------------------------------------------------
