@@ -720,7 +720,7 @@ impl ScanDocument {
 #[serde(untagged)]
 pub enum InvestigateDocument {
     /// Before vs after a change.
-    BeforeAfter(BeforeAfterDocument),
+    BeforeAfter(Box<BeforeAfterDocument>),
     /// The change-point scan.
-    Scan(ScanDocument),
+    Scan(Box<ScanDocument>),
 }
