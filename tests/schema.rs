@@ -86,6 +86,16 @@ fn check_outputs_validate_against_the_committed_schema() {
     let _ = std::fs::remove_dir_all(&dir);
 }
 
+/// `history --json` of bore by machine, asked before and after the scheduler's runs.
+const BORE_HISTORY: [&str; 6] = [
+    "history",
+    "--characteristic",
+    "bore",
+    "--by",
+    "machine",
+    "--json",
+];
+
 fn committed(name: &str) -> serde_json::Value {
     serde_json::from_str(&std::fs::read_to_string(schema_dir().join(name)).unwrap())
         .unwrap_or_else(|e| panic!("{name}: {e}"))
@@ -113,17 +123,7 @@ fn every_command_output_validates_against_its_schema() {
     };
     check("status.json", &["status", "--json"]);
     check("findings.json", &["findings", "--all", "--json"]);
-    check(
-        "history.json",
-        &[
-            "history",
-            "--characteristic",
-            "bore",
-            "--by",
-            "machine",
-            "--json",
-        ],
-    );
+    check("history.json", &BORE_HISTORY);
     check("event-list.json", &["event", "list", "--json"]);
     samewise(
         &dir,
@@ -179,17 +179,7 @@ fn every_command_output_validates_against_its_schema() {
         &findings,
         "findings after the scheduler",
     );
-    check(
-        "history.json",
-        &[
-            "history",
-            "--characteristic",
-            "bore",
-            "--by",
-            "machine",
-            "--json",
-        ],
-    );
+    check("history.json", &BORE_HISTORY);
     check(
         "history.json",
         &[

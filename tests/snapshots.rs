@@ -158,35 +158,20 @@ fn every_command_as_text_and_json() {
         "schedule-due-json",
         &["schedule", "due", "--now", "2026-12-02T09:00:00Z", "--json"],
     );
-    run(
-        "investigate-scan",
-        &[
-            "investigate",
-            "--characteristic",
-            "bore",
-            "--by",
-            "machine",
-            "--to",
-            "2026-12-02 06:00",
-            "--before",
-            "4d",
-        ],
-    );
-    run(
-        "investigate-scan-json",
-        &[
-            "investigate",
-            "--characteristic",
-            "bore",
-            "--by",
-            "machine",
-            "--to",
-            "2026-12-02 06:00",
-            "--before",
-            "4d",
-            "--json",
-        ],
-    );
+    // The change-point scan over the four days, as text and as JSON.
+    let scan = [
+        "investigate",
+        "--characteristic",
+        "bore",
+        "--by",
+        "machine",
+        "--to",
+        "2026-12-02 06:00",
+        "--before",
+        "4d",
+    ];
+    run("investigate-scan", &scan);
+    run("investigate-scan-json", &[&scan[..], &["--json"]].concat());
     // The CSV files, with what the command printed.
     let file = |name: &str, args: &[&str], path: &str| {
         let text = shot(&dir, args)

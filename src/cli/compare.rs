@@ -22,7 +22,7 @@ use crate::outputs::compare::{
     BlockedTestOut, CompareDocument, CompareInput, DesignOut, NestedComponentsOut, NestedTestOut,
     SerialOut,
 };
-use crate::results::{Interval, PairResult};
+use crate::results::PairResult;
 
 use crate::stats::decimal::Decimal;
 use crate::stats::oneway::{analyze, LeadingMethod, OneWay, OneWayOptions, Tolerance};
@@ -639,14 +639,8 @@ fn sampling_structure(args: &CompareArgs, data: &mut GroupedData) -> Structure {
                                 t.df2.unwrap_or(f64::NAN),
                                 pval(t.p)
                             ));
-                            let s = crate::outputs::StatTest::from(t);
                             design.blocked_test = Some(BlockedTestOut {
-                                f: s.statistic,
-                                df1: s.df1,
-                                df1_reason: s.df1_reason,
-                                df2: s.df2,
-                                df2_reason: s.df2_reason,
-                                p: s.p,
+                                test: t.into(),
                                 ss_groups: fit.ss_levels,
                                 ss_subgroups: fit.ss_blocks,
                                 ss_residual: fit.ss_resid,
@@ -661,20 +655,7 @@ fn sampling_structure(args: &CompareArgs, data: &mut GroupedData) -> Structure {
                         .pairs
                         .iter()
                         .flatten()
-                        .map(|p| PairResult {
-                            a: data.names[p.a].clone(),
-                            b: data.names[p.b].clone(),
-                            diff: p.diff,
-                            se: p.se,
-                            statistic: p.statistic,
-                            df: p.df,
-                            p_adj: p.p_adj,
-                            ci: Interval {
-                                low: p.ci_low,
-                                high: p.ci_high,
-                            },
-                            method: "tukey_kramer_adjusted".into(),
-                        })
+                        .map(|p| PairResult::named(&data.names, &p.into()))
                         .collect();
                     // Each group's values adjusted for the subgroups: its least-squares mean
                     // plus the residuals (its raw mean where the design does not link it).

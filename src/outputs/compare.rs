@@ -4,7 +4,7 @@
 use schemars::JsonSchema;
 use serde::Serialize;
 
-use super::{reason_if_none, split, ChiSquareTest, FTest, GroupSummary, StatTest};
+use super::{reason_if_none, split, ChiSquareTest, DfP, FTest, GroupSummary, StatTest};
 use crate::results::{Interval, PairResult};
 use crate::stats::decimal::Decimal;
 use crate::stats::oneway::{LeadingMethod, OneWay, Tolerance};
@@ -89,20 +89,9 @@ pub struct NestedComponentsOut {
 /// The F test of the groups adjusted for the subgroups (blocked design).
 #[derive(Debug, Clone, PartialEq, Serialize, JsonSchema)]
 pub struct BlockedTestOut {
-    /// F.
-    pub f: f64,
-    /// Numerator degrees of freedom.
-    pub df1: Option<f64>,
-    /// Why `df1` is null.
-    #[serde(skip_serializing_if = "Option::is_none")]
-    pub df1_reason: Option<String>,
-    /// Denominator degrees of freedom.
-    pub df2: Option<f64>,
-    /// Why `df2` is null.
-    #[serde(skip_serializing_if = "Option::is_none")]
-    pub df2_reason: Option<String>,
-    /// p-value.
-    pub p: f64,
+    /// F, its degrees of freedom and p-value.
+    #[serde(flatten)]
+    pub test: FTest,
     /// Sum of squares of the groups (adjusted).
     pub ss_groups: f64,
     /// Sum of squares of the subgroups.
@@ -254,13 +243,9 @@ pub struct AnovaOut {
 pub struct KruskalOut {
     /// H.
     pub h: f64,
-    /// Degrees of freedom.
-    pub df: Option<f64>,
-    /// Why `df` is null.
-    #[serde(skip_serializing_if = "Option::is_none")]
-    pub df_reason: Option<String>,
-    /// Chi-square p.
-    pub p: f64,
+    /// Degrees of freedom and chi-square p.
+    #[serde(flatten)]
+    pub rest: DfP,
 }
 
 /// Residuals beyond 3 SD against what normal residuals give.
@@ -674,14 +659,9 @@ impl CompareDocument {
         });
         let (welch, welch_reason) = split(&r.welch, FTest::from);
         let (f_star, f_star_reason) = split(&r.f_star, FTest::from);
-        let (kruskal_wallis, kruskal_wallis_reason) = split(&r.kruskal_wallis, |t| {
-            let c = ChiSquareTest::from(t);
-            KruskalOut {
-                h: c.statistic,
-                df: c.df,
-                df_reason: c.df_reason,
-                p: c.p,
-            }
+        let (kruskal_wallis, kruskal_wallis_reason) = split(&r.kruskal_wallis, |t| KruskalOut {
+            h: t.statistic,
+            rest: DfP::from(t),
         });
         let (levene, levene_reason) = split(&r.levene, StatTest::from);
         let (brown_forsythe, brown_forsythe_reason) = split(&r.brown_forsythe, StatTest::from);
@@ -762,20 +742,7 @@ impl CompareDocument {
             .iter()
             .map(|p| match p {
                 Ok(p) => PairEntry::Pair(ComparePair {
-                    pair: PairResult {
-                        a: names[p.a].clone(),
-                        b: names[p.b].clone(),
-                        diff: p.diff,
-                        se: p.se,
-                        statistic: p.statistic,
-                        df: p.df,
-                        p_adj: p.p_adj,
-                        ci: Interval {
-                            low: p.ci_low,
-                            high: p.ci_high,
-                        },
-                        method: p.method.name().to_string(),
-                    },
+                    pair: PairResult::named(names, p),
                     a_index: p.a,
                     b_index: p.b,
                 }),

@@ -163,11 +163,10 @@ pub fn group_means_cell(groups: &[GroupSummary]) -> String {
         .join(";")
 }
 
-/// A test with its statistic, degrees of freedom and p-value.
+/// The two degrees of freedom of a test (`df1`, `df2`), each `null` with its reason when the
+/// test has no such number.
 #[derive(Debug, Clone, PartialEq, Serialize, JsonSchema)]
-pub struct StatTest {
-    /// The statistic.
-    pub statistic: f64,
+pub struct Dfs {
     /// Numerator degrees of freedom.
     pub df1: Option<f64>,
     /// Why `df1` is null.
@@ -178,19 +177,37 @@ pub struct StatTest {
     /// Why `df2` is null.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub df2_reason: Option<String>,
+}
+
+impl From<&crate::stats::TestResult> for Dfs {
+    fn from(t: &crate::stats::TestResult) -> Self {
+        let none = "the test has no such degrees of freedom";
+        Dfs {
+            df1: t.df1,
+            df1_reason: reason_if_none(&t.df1, none),
+            df2: t.df2,
+            df2_reason: reason_if_none(&t.df2, none),
+        }
+    }
+}
+
+/// A test with its statistic, degrees of freedom and p-value.
+#[derive(Debug, Clone, PartialEq, Serialize, JsonSchema)]
+pub struct StatTest {
+    /// The statistic.
+    pub statistic: f64,
+    /// Its degrees of freedom.
+    #[serde(flatten)]
+    pub dfs: Dfs,
     /// p-value.
     pub p: f64,
 }
 
 impl From<&crate::stats::TestResult> for StatTest {
     fn from(t: &crate::stats::TestResult) -> Self {
-        let none = "the test has no such degrees of freedom";
         StatTest {
             statistic: t.statistic,
-            df1: t.df1,
-            df1_reason: reason_if_none(&t.df1, none),
-            df2: t.df2,
-            df2_reason: reason_if_none(&t.df2, none),
+            dfs: Dfs::from(t),
             p: t.p,
         }
     }
@@ -201,39 +218,26 @@ impl From<&crate::stats::TestResult> for StatTest {
 pub struct FTest {
     /// F.
     pub f: f64,
+    /// Its degrees of freedom.
+    #[serde(flatten)]
+    pub dfs: Dfs,
     /// p-value.
     pub p: f64,
-    /// Numerator degrees of freedom.
-    pub df1: Option<f64>,
-    /// Why `df1` is null.
-    #[serde(skip_serializing_if = "Option::is_none")]
-    pub df1_reason: Option<String>,
-    /// Denominator degrees of freedom.
-    pub df2: Option<f64>,
-    /// Why `df2` is null.
-    #[serde(skip_serializing_if = "Option::is_none")]
-    pub df2_reason: Option<String>,
 }
 
 impl From<&crate::stats::TestResult> for FTest {
     fn from(t: &crate::stats::TestResult) -> Self {
-        let s = StatTest::from(t);
         FTest {
-            f: s.statistic,
-            p: s.p,
-            df1: s.df1,
-            df1_reason: s.df1_reason,
-            df2: s.df2,
-            df2_reason: s.df2_reason,
+            f: t.statistic,
+            dfs: Dfs::from(t),
+            p: t.p,
         }
     }
 }
 
-/// A test with a chi-square reference distribution: statistic, degrees of freedom, p-value.
+/// The degrees of freedom and p-value of a test with a chi-square reference distribution.
 #[derive(Debug, Clone, PartialEq, Serialize, JsonSchema)]
-pub struct ChiSquareTest {
-    /// The statistic.
-    pub statistic: f64,
+pub struct DfP {
     /// Degrees of freedom.
     pub df: Option<f64>,
     /// Why `df` is null.
@@ -243,13 +247,31 @@ pub struct ChiSquareTest {
     pub p: f64,
 }
 
+impl From<&crate::stats::TestResult> for DfP {
+    fn from(t: &crate::stats::TestResult) -> Self {
+        DfP {
+            df: t.df1,
+            df_reason: reason_if_none(&t.df1, "the test has no degrees of freedom"),
+            p: t.p,
+        }
+    }
+}
+
+/// A test with a chi-square reference distribution: statistic, degrees of freedom, p-value.
+#[derive(Debug, Clone, PartialEq, Serialize, JsonSchema)]
+pub struct ChiSquareTest {
+    /// The statistic.
+    pub statistic: f64,
+    /// Degrees of freedom and p-value.
+    #[serde(flatten)]
+    pub rest: DfP,
+}
+
 impl From<&crate::stats::TestResult> for ChiSquareTest {
     fn from(t: &crate::stats::TestResult) -> Self {
         ChiSquareTest {
             statistic: t.statistic,
-            df: t.df1,
-            df_reason: reason_if_none(&t.df1, "the test has no degrees of freedom"),
-            p: t.p,
+            rest: DfP::from(t),
         }
     }
 }
