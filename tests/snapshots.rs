@@ -3,7 +3,7 @@
 //! "bore" from the third day). A change to any output shows up here as a diff to review; accept
 //! an intended one with `INSTA_UPDATE=always cargo test --release --test snapshots` and read the
 //! `.snap` files before committing them. What depends on the run itself (the temporary
-//! directory, the wall-clock time of the import, durations, the host) is replaced by a
+//! directory, the wall-clock time of the import, durations, the host and user) is replaced by a
 //! placeholder first.
 
 mod common;
@@ -52,6 +52,11 @@ fn filters(dir: &Path) -> Vec<(String, String)> {
     if !host.is_empty() {
         f.push((regex_escape(&host), "[HOST]".to_string()));
     }
+    // Who corrected an event: the login name (or "unknown user" without one) at the host.
+    f.push((
+        r"(unknown user|[A-Za-z0-9._-]+)@(\[HOST\]|\S+)".to_string(),
+        "[USER]@[HOST]".to_string(),
+    ));
     f
 }
 
@@ -250,5 +255,73 @@ fn every_command_as_text_and_json() {
             "--json",
         ],
     );
+    // The commands that change or write something, last, so the outputs above stay as they are:
+    // the week as text, a note on the finding, the charts and the report (what they print; the
+    // files are tested in tests/charts.rs and tests/report.rs), a backup, the same file imported
+    // again, an event corrected and removed, and the import undone.
+    run("check-week", &["check", "--week", "2026-W48"]);
+    run(
+        "findings-note",
+        &[
+            "findings",
+            "note",
+            "1",
+            "containment: 100 % check of M2 bores",
+        ],
+    );
+    run("findings-with-note", &["findings"]);
+    run(
+        "chart-trend",
+        &[
+            "chart",
+            "trend",
+            "--characteristic",
+            "bore",
+            "--by",
+            "machine",
+            "--from",
+            "2026-11-28",
+            "--to",
+            "2026-12-01",
+            "--out",
+            "trend.svg",
+        ],
+    );
+    run(
+        "chart-grid",
+        &["chart", "grid", "--month", "2026-11", "--out", "grid.svg"],
+    );
+    run(
+        "report",
+        &["report", "--month", "2026-11", "--out", "review.html"],
+    );
+    run("db-backup", &["db", "backup", "backup.db"]);
+    run("import-again", &["import", "measurements.csv"]);
+    run(
+        "event-edit",
+        &[
+            "event",
+            "edit",
+            "1",
+            "--note",
+            "New boring bar and insert on M2",
+            "--reason",
+            "insert changed too",
+        ],
+    );
+    run(
+        "event-remove",
+        &[
+            "event",
+            "remove",
+            "1",
+            "--reason",
+            "logged on the wrong line",
+        ],
+    );
+    run("event-history", &["event", "history", "1"]);
+    run("event-list-all-json", &["event", "list", "--all", "--json"]);
+    run("import-undo", &["import", "undo", "1"]);
+    run("status-after-undo-json", &["status", "--json"]);
     let _ = std::fs::remove_dir_all(&dir);
 }
