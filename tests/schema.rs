@@ -231,6 +231,7 @@ fn every_command_output_validates_against_its_schema() {
         &list,
         "import list after an undo",
     );
+    check("status.json", &["status", "--json"]);
 
     // The schemas refuse a null without its reason and a reason beside a value.
     let schema = committed("findings.json");
