@@ -154,35 +154,43 @@ fn check_names(config: &Config, stored: &[Finding], args: &FindingsArgs) -> Resu
     Ok(())
 }
 
-/// One finding as printed (`findings --json`, `check --json`, the alert command's input): the
+/// The findings as printed (`findings --json`, `check --json`, the alert command's input): each
 /// stored finding with its notes, its characteristic's limits, and the run of its last flagged
-/// period with that run's groups of the finding's test.
-pub fn finding_line(store: &dyn PlantStore, config: &Config, f: &Finding) -> Result<FindingLine> {
-    let last_run = match store.latest_complete_run(f.period_kind.as_str(), &f.last_label)? {
-        Some(run) => Some((
-            run.run_id,
-            crate::outputs::stored_groups(store, run.run_id, &f.characteristic, &f.factor)?,
-        )),
-        None => None,
-    };
-    Ok(FindingLine::new(
-        f,
-        Limits::of(config, &f.characteristic),
-        store.finding_notes(f.id)?,
-        last_run,
-        config.plant.time_zone,
-    ))
-}
-
-/// The lines of several findings.
+/// period with that run's groups of the finding's test (a run shared by several findings is read
+/// once).
 pub fn finding_lines_of(
     store: &dyn PlantStore,
     config: &Config,
     findings: &[Finding],
 ) -> Result<Vec<FindingLine>> {
+    let mut runs: std::collections::HashMap<i64, crate::results::RunContent> =
+        std::collections::HashMap::new();
     findings
         .iter()
-        .map(|f| finding_line(store, config, f))
+        .map(|f| {
+            let last_run = match store.latest_complete_run(f.period_kind.as_str(), &f.last_label)? {
+                Some(run) => {
+                    let content = match runs.entry(run.run_id) {
+                        std::collections::hash_map::Entry::Occupied(e) => e.into_mut(),
+                        std::collections::hash_map::Entry::Vacant(e) => {
+                            e.insert(store.run_content(run.run_id)?)
+                        }
+                    };
+                    Some((
+                        run.run_id,
+                        crate::outputs::groups_of_test(content, &f.characteristic, &f.factor),
+                    ))
+                }
+                None => None,
+            };
+            Ok(FindingLine::new(
+                f,
+                Limits::of(config, &f.characteristic),
+                store.finding_notes(f.id)?,
+                last_run,
+                config.plant.time_zone,
+            ))
+        })
         .collect()
 }
 

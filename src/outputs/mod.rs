@@ -145,13 +145,26 @@ pub fn stored_groups(
     characteristic: &str,
     factor: &str,
 ) -> crate::Result<Vec<GroupSummary>> {
-    let content = store.run_content(run_id)?;
-    Ok(content
+    Ok(groups_of_test(
+        &store.run_content(run_id)?,
+        characteristic,
+        factor,
+    ))
+}
+
+/// The groups, in units, of the test of `characteristic` x `factor` in a run's content (empty
+/// when the run holds no such test).
+pub fn groups_of_test(
+    content: &crate::results::RunContent,
+    characteristic: &str,
+    factor: &str,
+) -> Vec<GroupSummary> {
+    content
         .tests
         .iter()
         .find(|t| t.characteristic == characteristic && t.factor == factor)
         .map(|t| t.groups.iter().map(GroupSummary::from).collect())
-        .unwrap_or_default())
+        .unwrap_or_default()
 }
 
 /// Group means as one CSV cell: `name=mean;...` in units at full precision.
