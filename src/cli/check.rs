@@ -18,7 +18,7 @@ use crate::analysis::CheckOptions;
 use crate::calendar::PlantCalendar;
 use crate::config::Config;
 use crate::model::Period;
-use crate::output::{refuse_protected, AtomicFile, Protected};
+use crate::output::{refuse_protected, Protected};
 use crate::outputs::CheckFindings;
 use crate::results::TestResult;
 use crate::stats::fdr::FdrMethod;
@@ -428,7 +428,6 @@ fn write_csv(
     run: &StoredRun,
     content: &RunContent,
 ) -> Result<()> {
-    let mut w = csv::Writer::from_writer(AtomicFile::create(path)?);
     let header = [
         "period_kind",
         "period",
@@ -467,24 +466,19 @@ fn write_csv(
         "group_means",
         "notes",
     ];
-    let io = |e: csv::Error| Error::Io {
-        path: path.to_path_buf(),
-        source: std::io::Error::other(e),
-    };
-    w.write_record(header).map_err(io)?;
-    let f = |x: Option<f64>| x.map_or(String::new(), |v| format!("{v:?}"));
+    let f = crate::output::csv_number;
     let start = period
         .start
         .with_timezone(&config.plant.time_zone)
         .to_rfc3339();
-    for t in sorted(content) {
+    let rows = sorted(content).into_iter().map(|t| {
         let c = config.characteristic(&t.characteristic);
         let means: Vec<String> = t
             .groups
             .iter()
             .map(|g| format!("{}={:?}", g.name, g.mean))
             .collect();
-        w.write_record([
+        [
             period.kind.as_str().to_string(),
             period.label.clone(),
             start.clone(),
@@ -523,12 +517,7 @@ fn write_csv(
             f(t.stands_out.pct_tolerance),
             means.join(";"),
             t.notes.clone(),
-        ])
-        .map_err(io)?;
-    }
-    w.flush().map_err(|e| Error::io(path, e))?;
-    let file = w
-        .into_inner()
-        .map_err(|e| Error::io(path, e.into_error()))?;
-    file.commit()
+        ]
+    });
+    crate::output::write_csv(path, &header, rows)
 }

@@ -13,7 +13,7 @@ use clap::{Args, Subcommand};
 use crate::calendar::PlantCalendar;
 use crate::config::Config;
 use crate::model::{Finding, FindingStatus, PeriodKind};
-use crate::output::{refuse_protected, AtomicFile, Protected};
+use crate::output::{refuse_protected, Protected};
 use crate::outputs::{group_means_cell, AlertDocument, FindingLine, Limits};
 use crate::storage::PlantStore;
 use crate::{Error, Result};
@@ -198,12 +198,7 @@ pub fn finding_lines_of(
 /// nearest event flattened, the groups as `level=mean;...` in units); an unavailable value is
 /// an empty cell.
 fn write_csv(path: &std::path::Path, rows: &[FindingLine]) -> Result<()> {
-    let mut w = csv::Writer::from_writer(AtomicFile::create(path)?);
-    let io = |e: csv::Error| Error::Io {
-        path: path.to_path_buf(),
-        source: std::io::Error::other(e),
-    };
-    w.write_record([
+    let header = [
         "id",
         "status",
         "period_kind",
@@ -235,12 +230,11 @@ fn write_csv(path: &std::path::Path, rows: &[FindingLine]) -> Result<()> {
         "nearest_event_at",
         "nearest_event_note",
         "group_means",
-    ])
-    .map_err(io)?;
-    let num = |v: Option<f64>| v.map_or(String::new(), |x| format!("{x:?}"));
-    for r in rows {
+    ];
+    let num = crate::output::csv_number;
+    let records = rows.iter().map(|r| {
         let e = r.nearest_event.as_ref();
-        w.write_record([
+        [
             r.id.to_string(),
             r.status.clone(),
             r.period_kind.clone(),
@@ -272,13 +266,9 @@ fn write_csv(path: &std::path::Path, rows: &[FindingLine]) -> Result<()> {
             e.map_or(String::new(), |e| e.at.clone()),
             e.and_then(|e| e.note.clone()).unwrap_or_default(),
             group_means_cell(&r.groups),
-        ])
-        .map_err(io)?;
-    }
-    w.flush().map_err(|e| Error::io(path, e))?;
-    w.into_inner()
-        .map_err(|e| Error::io(path, e.into_error()))?
-        .commit()
+        ]
+    });
+    crate::output::write_csv(path, &header, records)
 }
 
 fn signed(x: f64) -> String {

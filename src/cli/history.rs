@@ -148,12 +148,7 @@ pub fn run(args: &HistoryArgs) -> Result<ExitCode> {
 /// One row per period: the period and run, the characteristic's unit and limits, the result
 /// and the group means in units (`level=mean;...`); an unavailable value is an empty cell.
 fn write_csv(path: &std::path::Path, doc: &HistoryDocument) -> Result<()> {
-    let mut w = csv::Writer::from_writer(crate::output::AtomicFile::create(path)?);
-    let io = |e: csv::Error| Error::Io {
-        path: path.to_path_buf(),
-        source: std::io::Error::other(e),
-    };
-    w.write_record([
+    let header = [
         "period_kind",
         "period",
         "start",
@@ -184,13 +179,12 @@ fn write_csv(path: &std::path::Path, doc: &HistoryDocument) -> Result<()> {
         "stands_out_pct_tolerance",
         "group_means",
         "notes",
-    ])
-    .map_err(io)?;
-    let f = |x: Option<f64>| x.map_or(String::new(), |v| format!("{v:?}"));
+    ];
+    let f = crate::output::csv_number;
     let l = &doc.limits;
-    for p in &doc.periods {
+    let rows = doc.periods.iter().map(|p| {
         let s = p.stands_out.as_ref();
-        w.write_record([
+        [
             doc.period_kind.clone(),
             p.period.clone(),
             p.start.clone().unwrap_or_default(),
@@ -222,11 +216,7 @@ fn write_csv(path: &std::path::Path, doc: &HistoryDocument) -> Result<()> {
             f(s.and_then(|s| s.pct_tolerance)),
             group_means_cell(&p.groups),
             p.notes.clone(),
-        ])
-        .map_err(io)?;
-    }
-    w.flush().map_err(|e| Error::io(path, e))?;
-    w.into_inner()
-        .map_err(|e| Error::io(path, e.into_error()))?
-        .commit()
+        ]
+    });
+    crate::output::write_csv(path, &header, rows)
 }
