@@ -14,6 +14,7 @@
 //! - [`analysis`]: loads a period, calls `stats`, returns an analysis run.
 //! - [`schedule`]: which periods are due at a given `now`; runs the engine for each.
 //! - [`output`]: output files that never replace an input, written through a temporary name.
+//! - [`outputs`]: the JSON documents of the commands other than `check`, as typed results.
 //! - [`process`]: host name and whether a process still runs (lease and lock holders).
 //! - [`report`]: charts (plotters) and the self-contained HTML review report.
 //! - [`cli`]: clap types and one file per subcommand; the only module that reads the wall clock.
@@ -28,6 +29,7 @@ pub mod ingest;
 pub mod model;
 pub mod names;
 pub mod output;
+pub mod outputs;
 pub mod process;
 pub mod report;
 pub mod results;

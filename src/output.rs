@@ -229,6 +229,33 @@ pub fn write_atomic(path: &Path, bytes: &[u8]) -> Result<()> {
     file.commit()
 }
 
+/// Writes a CSV file through a temporary name (see [`AtomicFile`]): the header, then one record
+/// per row, quoted where a cell needs it.
+pub fn write_csv<R>(path: &Path, header: &[&str], rows: impl IntoIterator<Item = R>) -> Result<()>
+where
+    R: IntoIterator<Item = String>,
+{
+    let mut w = csv::Writer::from_writer(AtomicFile::create(path)?);
+    let io = |e: csv::Error| Error::Io {
+        path: path.to_path_buf(),
+        source: std::io::Error::other(e),
+    };
+    w.write_record(header).map_err(io)?;
+    for row in rows {
+        w.write_record(row).map_err(io)?;
+    }
+    w.flush().map_err(|e| Error::io(path, e))?;
+    w.into_inner()
+        .map_err(|e| Error::io(path, e.into_error()))?
+        .commit()
+}
+
+/// A number as a CSV cell: the shortest text that reads back as the same double; empty when
+/// the value is unavailable.
+pub fn csv_number(x: Option<f64>) -> String {
+    x.map_or(String::new(), |v| format!("{v:?}"))
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

@@ -468,6 +468,26 @@ pub struct PairResult {
     pub method: String,
 }
 
+impl PairResult {
+    /// A pair of the statistics core, its groups named from `names` (indexed as the pair's).
+    pub fn named(names: &[String], p: &crate::stats::posthoc::Pair) -> PairResult {
+        PairResult {
+            a: names[p.a].clone(),
+            b: names[p.b].clone(),
+            diff: p.diff,
+            se: p.se,
+            statistic: p.statistic,
+            df: p.df,
+            p_adj: p.p_adj,
+            ci: Interval {
+                low: p.ci_low,
+                high: p.ci_high,
+            },
+            method: p.method.name().to_string(),
+        }
+    }
+}
+
 /// What one test (one characteristic x one factor in one period) found. `None` = not available;
 /// the reason is in `notes` and, in JSON, beside the `null` ([`TestResult::to_json`]).
 #[derive(Debug, Clone, PartialEq, Default, Serialize, JsonSchema)]
@@ -744,7 +764,7 @@ pub struct CheckDocument {
     pub period: CheckedPeriod,
     /// Findings made new, changed or still open by this check (`null` for `--stored` and
     /// ranges; see `findings_reason`).
-    pub findings: Option<serde_json::Value>,
+    pub findings: Option<crate::outputs::CheckFindings>,
     /// The stored run.
     pub run: CheckedRun,
     /// Tests in the run.

@@ -9,15 +9,33 @@ use serde_json::{Map, Value};
 
 /// The schema of `samewise check --json` ([`crate::results::CheckDocument`]).
 pub fn check_document() -> Value {
-    strict(
-        serde_json::to_value(schemars::schema_for!(crate::results::CheckDocument))
-            .unwrap_or(Value::Null),
-    )
+    document::<crate::results::CheckDocument>()
+}
+
+/// The strict schema of a document type.
+fn document<T: schemars::JsonSchema>() -> Value {
+    strict(serde_json::to_value(schemars::schema_for!(T)).unwrap_or(Value::Null))
 }
 
 /// Every named schema, as `(file name, schema)`, for docs/schema/.
 pub fn all() -> Vec<(&'static str, Value)> {
-    vec![("check.json", check_document())]
+    use crate::outputs as o;
+    vec![
+        ("check.json", check_document()),
+        ("status.json", document::<o::StatusDocument>()),
+        ("db-check.json", document::<o::DbCheckDocument>()),
+        ("event-list.json", document::<o::EventListDocument>()),
+        ("import-list.json", document::<Vec<o::ImportLine>>()),
+        ("history.json", document::<o::HistoryDocument>()),
+        ("findings.json", document::<Vec<o::FindingLine>>()),
+        ("alert.json", document::<o::AlertDocument>()),
+        ("schedule-line.json", document::<o::ScheduleLine>()),
+        ("compare.json", document::<o::compare::CompareDocument>()),
+        (
+            "investigate.json",
+            document::<o::investigate::InvestigateDocument>(),
+        ),
+    ]
 }
 
 /// The schema with the JSON conventions added and unknown properties refused.
@@ -69,15 +87,33 @@ fn is_p_name(name: &str) -> bool {
 fn tighten(schema: &mut Value, defs: &Value) {
     match schema {
         Value::Object(m) => {
+            // `(name, its reason's name)` of every property that can be null.
+            let mut nullable = Vec::new();
             if let Some(Value::Object(props)) = m.get("properties") {
                 let mut extra = Map::new();
                 for (name, sub) in props {
+                    let is_reason = name
+                        .strip_suffix("_reason")
+                        .is_some_and(|base| props.contains_key(base));
+                    if is_reason {
+                        // A declared reason is a string whenever it is written.
+                        let mut reason = sub.clone();
+                        if let Value::Object(r) = &mut reason {
+                            r.insert("type".into(), "string".into());
+                        }
+                        extra.insert(name.clone(), reason);
+                        continue;
+                    }
                     if accepts_null(sub, defs) {
-                        extra.insert(
-                            format!("{name}_reason"),
-                            serde_json::json!({"type": "string",
-                                "description": format!("Why `{name}` is null (present exactly when it is).")}),
-                        );
+                        let reason = format!("{name}_reason");
+                        if !props.contains_key(&reason) {
+                            extra.insert(
+                                reason.clone(),
+                                serde_json::json!({"type": "string",
+                                    "description": format!("Why `{name}` is null (present exactly when it is).")}),
+                            );
+                        }
+                        nullable.push((name.clone(), reason));
                     }
                     if is_p_name(name) {
                         extra.insert(
@@ -89,13 +125,31 @@ fn tighten(schema: &mut Value, defs: &Value) {
                 }
                 if let Some(Value::Object(props)) = m.get_mut("properties") {
                     for (k, v) in extra {
-                        props.entry(k).or_insert(v);
+                        props.insert(k, v);
                     }
                 }
                 m.insert("additionalProperties".into(), Value::Bool(false));
             }
             for (_, child) in m.iter_mut() {
                 tighten(child, defs);
+            }
+            // A reason is there exactly when its value is null (added after the walk: these
+            // conditions are not objects to close).
+            if !nullable.is_empty() {
+                let rules: Vec<Value> = nullable
+                    .iter()
+                    .map(|(name, reason)| {
+                        serde_json::json!({
+                            "if": {"properties": {name: {"type": "null"}}, "required": [name]},
+                            "then": {"required": [reason]},
+                            "else": {"not": {"required": [reason]}}
+                        })
+                    })
+                    .collect();
+                let all_of = m.entry("allOf").or_insert_with(|| Value::Array(Vec::new()));
+                if let Value::Array(items) = all_of {
+                    items.extend(rules);
+                }
             }
         }
         Value::Array(items) => items.iter_mut().for_each(|i| tighten(i, defs)),
@@ -121,5 +175,20 @@ mod tests {
             true
         );
         assert_eq!(s["properties"]["findings_reason"]["type"], "string");
+        // The reason is required with a null and refused beside a value.
+        let rules = s["$defs"]["CheckedTest"]["allOf"].as_array().unwrap();
+        assert!(rules
+            .iter()
+            .any(|r| r["then"]["required"][0] == "q_value_reason"));
+        // A declared reason is a plain string, with no reason of its own.
+        let history = all()
+            .into_iter()
+            .find(|(n, _)| *n == "history.json")
+            .unwrap()
+            .1;
+        let period = &history["$defs"]["HistoryPeriod"]["properties"];
+        assert_eq!(period["p_reason"]["type"], "string");
+        assert!(period.get("p_reason_reason").is_none());
+        assert_eq!(period["p_is_bound"]["const"], true);
     }
 }

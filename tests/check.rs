@@ -944,3 +944,169 @@ fn issue_17_schedule_due_log_as_json_lines() {
     );
     assert_eq!(summary["with_flag"], 1, "{summary}");
 }
+
+/// Reads a CSV file written by samewise back with the `csv` crate: its header and its rows as
+/// maps from column to cell.
+fn read_csv(path: &std::path::Path) -> Vec<std::collections::HashMap<String, String>> {
+    let mut reader = csv::Reader::from_path(path).unwrap();
+    let header: Vec<String> = reader
+        .headers()
+        .unwrap()
+        .iter()
+        .map(str::to_string)
+        .collect();
+    reader
+        .records()
+        .map(|r| {
+            let r = r.unwrap();
+            assert_eq!(r.len(), header.len(), "{path:?}: a ragged row");
+            header
+                .iter()
+                .cloned()
+                .zip(r.iter().map(str::to_string))
+                .collect()
+        })
+        .collect()
+}
+
+/// Issue 17: the CSV of check, history and findings read back: each row carries its period,
+/// run id, unit, limits and group means, and they agree with the JSON of the same command.
+#[test]
+fn issue_17_csv_of_check_history_and_findings_read_back() {
+    let dir = common::temp_dir("issue-17-csv");
+    common::invented_plant(&dir, 4);
+    common::samewise(&dir, &["schedule", "due", "--now", "2026-12-02T09:00:00Z"]);
+    let json = |args: &[&str]| -> serde_json::Value {
+        serde_json::from_str(&common::samewise_ok(&dir, args)).unwrap()
+    };
+    let means_of = |cell: &str| -> Vec<(String, f64)> {
+        cell.split(';')
+            .map(|kv| {
+                let (k, v) = kv.split_once('=').unwrap();
+                (k.to_string(), v.parse::<f64>().unwrap())
+            })
+            .collect()
+    };
+    let limits = |row: &std::collections::HashMap<String, String>| {
+        assert_eq!(row["unit"], "mm");
+        assert_eq!(row["lsl"].parse::<f64>().unwrap(), 9.9);
+        assert_eq!(row["usl"].parse::<f64>().unwrap(), 10.1);
+        assert_eq!(row["target"], "", "no target configured: an empty cell");
+    };
+
+    // check: one row per test of the stored run.
+    // (exit status 3: the day is flagged)
+    let out = common::samewise(
+        &dir,
+        &["check", "--day", "2026-11-30", "--stored", "--json"],
+    );
+    assert_eq!(out.status.code(), Some(3));
+    let stored: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    common::samewise(
+        &dir,
+        &[
+            "check",
+            "--day",
+            "2026-11-30",
+            "--stored",
+            "--csv",
+            "check.csv",
+        ],
+    );
+    let rows = read_csv(&dir.join("check.csv"));
+    assert_eq!(rows.len(), 4);
+    let bore = rows
+        .iter()
+        .find(|r| r["characteristic"] == "bore" && r["factor"] == "machine")
+        .unwrap();
+    assert_eq!(bore["period"], "2026-11-30");
+    assert_eq!(bore["run_id"], stored["run"]["run_id"].to_string());
+    limits(bore);
+    let test = stored["tests"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|t| t["characteristic"] == "bore" && t["factor"] == "machine")
+        .unwrap();
+    let means = means_of(&bore["group_means"]);
+    assert_eq!(means.len(), 3);
+    for (g, (name, mean)) in test["groups"].as_array().unwrap().iter().zip(&means) {
+        assert_eq!(g["name"], name.as_str());
+        assert_eq!(g["mean"].as_f64().unwrap(), *mean, "full precision");
+    }
+
+    // history: one row per period, the same runs and group means as its JSON.
+    let history = json(&[
+        "history",
+        "--characteristic",
+        "bore",
+        "--by",
+        "machine",
+        "--json",
+    ]);
+    common::samewise_ok(
+        &dir,
+        &[
+            "history",
+            "--characteristic",
+            "bore",
+            "--by",
+            "machine",
+            "--csv",
+            "h.csv",
+        ],
+    );
+    let rows = read_csv(&dir.join("h.csv"));
+    let periods = history["periods"].as_array().unwrap();
+    assert_eq!(rows.len(), periods.len());
+    assert_eq!(rows.len(), 4, "four days checked by the scheduler");
+    for (row, p) in rows.iter().zip(periods) {
+        assert_eq!(row["period"], p["period"].as_str().unwrap());
+        assert_eq!(row["run_id"], p["run_id"].to_string());
+        limits(row);
+        let means = means_of(&row["group_means"]);
+        let groups = p["groups"].as_array().unwrap();
+        assert_eq!(means.len(), groups.len());
+        for (g, (name, mean)) in groups.iter().zip(&means) {
+            assert_eq!(g["name"], name.as_str());
+            assert_eq!(g["mean"].as_f64().unwrap(), *mean);
+        }
+    }
+    // M2 runs high from the third day (the invented plant): its mean leads on 2026-11-30.
+    let day3 = means_of(&rows[2]["group_means"]);
+    let m2 = day3.iter().find(|(n, _)| n == "M2").unwrap().1;
+    assert!(day3.iter().all(|(n, m)| n == "M2" || *m < m2), "{day3:?}");
+
+    // findings: the run of the last flagged period and its group means.
+    let findings = json(&["findings", "--all", "--json"]);
+    common::samewise_ok(&dir, &["findings", "--all", "--csv", "f.csv"]);
+    let rows = read_csv(&dir.join("f.csv"));
+    assert_eq!(rows.len(), 1);
+    let (row, f) = (&rows[0], &findings[0]);
+    assert_eq!(row["group"], "M2");
+    assert_eq!(row["last_flagged"], f["last_flagged"].as_str().unwrap());
+    assert_eq!(row["last_run_id"], f["last_run_id"].to_string());
+    limits(row);
+    let last = periods
+        .iter()
+        .find(|p| p["period"] == f["last_flagged"])
+        .unwrap();
+    assert_eq!(row["last_run_id"], last["run_id"].to_string());
+    assert_eq!(
+        means_of(&row["group_means"]),
+        means_of(&rows_of_history_period(
+            &dir.join("h.csv"),
+            f["last_flagged"].as_str().unwrap()
+        ))
+    );
+    let _ = std::fs::remove_dir_all(&dir);
+}
+
+/// The `group_means` cell of one period of a history CSV.
+fn rows_of_history_period(path: &std::path::Path, period: &str) -> String {
+    read_csv(path)
+        .into_iter()
+        .find(|r| r["period"] == period)
+        .map(|r| r["group_means"].clone())
+        .unwrap()
+}

@@ -3,7 +3,7 @@
 //! "bore" from the third day). A change to any output shows up here as a diff to review; accept
 //! an intended one with `INSTA_UPDATE=always cargo test --release --test snapshots` and read the
 //! `.snap` files before committing them. What depends on the run itself (the temporary
-//! directory, the wall-clock time of the import, durations, the host) is replaced by a
+//! directory, the wall-clock time of the import, durations, the host and user) is replaced by a
 //! placeholder first.
 
 mod common;
@@ -52,6 +52,11 @@ fn filters(dir: &Path) -> Vec<(String, String)> {
     if !host.is_empty() {
         f.push((regex_escape(&host), "[HOST]".to_string()));
     }
+    // Who corrected an event: the login name (or "unknown user" without one) at the host.
+    f.push((
+        r"(unknown user|[A-Za-z0-9._-]+)@(\[HOST\]|\S+)".to_string(),
+        "[USER]@[HOST]".to_string(),
+    ));
     f
 }
 
@@ -154,6 +159,66 @@ fn every_command_as_text_and_json() {
             "--json",
         ],
     );
+    run(
+        "schedule-due-json",
+        &["schedule", "due", "--now", "2026-12-02T09:00:00Z", "--json"],
+    );
+    // The change-point scan over the four days, as text and as JSON.
+    let scan = [
+        "investigate",
+        "--characteristic",
+        "bore",
+        "--by",
+        "machine",
+        "--to",
+        "2026-12-02 06:00",
+        "--before",
+        "4d",
+    ];
+    run("investigate-scan", &scan);
+    run("investigate-scan-json", &[&scan[..], &["--json"]].concat());
+    // The CSV files, with what the command printed.
+    let file = |name: &str, args: &[&str], path: &str| {
+        let text = shot(&dir, args)
+            + &format!(
+                "--- {path}\n{}",
+                std::fs::read_to_string(dir.join(path)).unwrap_or_default()
+            );
+        insta::with_settings!({filters => filters.clone(), snapshot_suffix => name, prepend_module_to_snapshot => false, description => args.join(" "), omit_expression => true}, {
+            insta::assert_snapshot!("command", text);
+        });
+    };
+    file(
+        "check-day-csv",
+        &[
+            "check",
+            "--day",
+            "2026-11-30",
+            "--stored",
+            "--csv",
+            "day.csv",
+        ],
+        "day.csv",
+    );
+    file(
+        "history-csv",
+        &[
+            "history",
+            "--characteristic",
+            "bore",
+            "--by",
+            "machine",
+            "--csv",
+            "history.csv",
+        ],
+        "history.csv",
+    );
+    file(
+        "findings-csv",
+        &["findings", "--all", "--csv", "findings.csv"],
+        "findings.csv",
+    );
+    run("import-list", &["import", "list"]);
     run("import-list-json", &["import", "list", "--json"]);
     run("db-check", &["db", "check"]);
     run("db-check-json", &["db", "check", "--json"]);
@@ -190,5 +255,73 @@ fn every_command_as_text_and_json() {
             "--json",
         ],
     );
+    // The commands that change or write something, last, so the outputs above stay as they are:
+    // the week as text, a note on the finding, the charts and the report (what they print; the
+    // files are tested in tests/charts.rs and tests/report.rs), a backup, the same file imported
+    // again, an event corrected and removed, and the import undone.
+    run("check-week", &["check", "--week", "2026-W48"]);
+    run(
+        "findings-note",
+        &[
+            "findings",
+            "note",
+            "1",
+            "containment: 100 % check of M2 bores",
+        ],
+    );
+    run("findings-with-note", &["findings"]);
+    run(
+        "chart-trend",
+        &[
+            "chart",
+            "trend",
+            "--characteristic",
+            "bore",
+            "--by",
+            "machine",
+            "--from",
+            "2026-11-28",
+            "--to",
+            "2026-12-01",
+            "--out",
+            "trend.svg",
+        ],
+    );
+    run(
+        "chart-grid",
+        &["chart", "grid", "--month", "2026-11", "--out", "grid.svg"],
+    );
+    run(
+        "report",
+        &["report", "--month", "2026-11", "--out", "review.html"],
+    );
+    run("db-backup", &["db", "backup", "backup.db"]);
+    run("import-again", &["import", "measurements.csv"]);
+    run(
+        "event-edit",
+        &[
+            "event",
+            "edit",
+            "1",
+            "--note",
+            "New boring bar and insert on M2",
+            "--reason",
+            "insert changed too",
+        ],
+    );
+    run(
+        "event-remove",
+        &[
+            "event",
+            "remove",
+            "1",
+            "--reason",
+            "logged on the wrong line",
+        ],
+    );
+    run("event-history", &["event", "history", "1"]);
+    run("event-list-all-json", &["event", "list", "--all", "--json"]);
+    run("import-undo", &["import", "undo", "1"]);
+    run("status-after-undo-json", &["status", "--json"]);
     let _ = std::fs::remove_dir_all(&dir);
 }

@@ -44,7 +44,7 @@ use std::collections::HashSet;
 use std::sync::atomic::{AtomicUsize, Ordering};
 
 use crate::config::CharacteristicConfig;
-use crate::results::{GroupResult, Interval, LeadingTest, PairResult, TestResult, TestState};
+use crate::results::{GroupResult, LeadingTest, PairResult, TestResult, TestState};
 use crate::stats::decimal::Decimal;
 use crate::stats::describe::Summary;
 use crate::stats::fdr::{self, FdrMethod};
@@ -395,7 +395,7 @@ where
         pairs
             .into_iter()
             .flatten()
-            .map(|pair| pair_result(&partial.levels, &pair))
+            .map(|pair| PairResult::named(&partial.levels, &pair))
             .collect::<Vec<_>>()
     });
     let mut pairs = pairs.into_iter();
@@ -496,23 +496,6 @@ fn materiality(partial: &Partial, options: &CheckOptions) -> Result<(bool, Strin
             100.0 * options.material_share
         ),
     ))
-}
-
-fn pair_result(levels: &[String], pair: &Pair) -> PairResult {
-    PairResult {
-        a: levels[pair.a].clone(),
-        b: levels[pair.b].clone(),
-        method: pair.method.name().to_string(),
-        diff: pair.diff,
-        se: pair.se,
-        statistic: pair.statistic,
-        df: pair.df,
-        p_adj: pair.p_adj,
-        ci: Interval {
-            low: pair.ci_low,
-            high: pair.ci_high,
-        },
-    }
 }
 
 fn push_note(notes: &mut String, note: &str) {
@@ -959,20 +942,7 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
             pairs_ready = Some(
                 fit.pairs
                     .iter()
-                    .map(|p| {
-                        p.clone().map(|p| Pair {
-                            a: p.a,
-                            b: p.b,
-                            diff: p.diff,
-                            se: p.se,
-                            statistic: p.statistic,
-                            df: p.df,
-                            p_adj: p.p_adj,
-                            ci_low: p.ci_low,
-                            ci_high: p.ci_high,
-                            method: posthoc::PairMethod::TukeyKramerAdjusted,
-                        })
-                    })
+                    .map(|p| p.as_ref().map(Pair::from).map_err(Clone::clone))
                     .collect(),
             );
         }

@@ -7,8 +7,8 @@ use std::io::{Read, Write};
 use std::process::{Command, Stdio};
 use std::time::{Duration, Instant};
 
+use crate::outputs::AlertDocument;
 use chrono::{DateTime, Utc};
-use serde_json::Value;
 
 use crate::config::AlertConfig;
 use crate::storage::AlertRecord;
@@ -22,7 +22,7 @@ const STDERR_KEPT: usize = 2000;
 pub fn run_alert(
     store: &dyn PlantStore,
     alert: &AlertConfig,
-    document: &Value,
+    document: &AlertDocument,
     n_findings: u32,
     now: &dyn Fn() -> DateTime<Utc>,
 ) -> String {
@@ -72,7 +72,7 @@ fn tail(stderr: &str) -> String {
 /// exit code (None for a signal) and the start of its stderr.
 fn execute(
     alert: &AlertConfig,
-    document: &Value,
+    document: &AlertDocument,
     timeout: Duration,
 ) -> std::result::Result<(Option<i32>, String), String> {
     let mut child = Command::new(&alert.command[0])

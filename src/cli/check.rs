@@ -18,7 +18,8 @@ use crate::analysis::CheckOptions;
 use crate::calendar::PlantCalendar;
 use crate::config::Config;
 use crate::model::Period;
-use crate::output::{refuse_protected, AtomicFile, Protected};
+use crate::output::{refuse_protected, Protected};
+use crate::outputs::CheckFindings;
 use crate::results::TestResult;
 use crate::stats::fdr::FdrMethod;
 use crate::storage::runs::{RunContent, StoredRun};
@@ -124,9 +125,10 @@ pub fn run(args: &CheckArgs) -> Result<ExitCode> {
         write_csv(path, &config, &period, &run, &content)?;
     }
     // A new check brings the findings of its period kind up to date (ranges have none).
-    let (findings, findings_json) = if args.stored || period.kind == crate::model::PeriodKind::Range
+    let (findings, check_findings) = if args.stored
+        || period.kind == crate::model::PeriodKind::Range
     {
-        (None, serde_json::Value::Null)
+        (None, None)
     } else {
         let update = crate::analysis::findings::update_findings(
             &mut *store,
@@ -134,20 +136,20 @@ pub fn run(args: &CheckArgs) -> Result<ExitCode> {
             period.kind,
             Utc::now(),
         )?;
-        let tz = config.plant.time_zone;
-        let list = |v: &[crate::model::Finding]| -> Result<Vec<serde_json::Value>> {
-            v.iter()
-                .map(|f| super::findings::finding_json(&*store, f, tz))
-                .collect()
+        let lines =
+            |v: &[crate::model::Finding]| super::findings::finding_lines_of(&*store, &config, v);
+        let listed = CheckFindings {
+            new: lines(&update.new)?,
+            changed: lines(&update.changed)?,
+            open: update.open.iter().map(|f| f.id).collect(),
         };
-        let doc = serde_json::json!({
-            "new": list(&update.new)?,
-            "changed": list(&update.changed)?,
-            "open": update.open.iter().map(|f| f.id).collect::<Vec<_>>(),
-        });
         (
-            Some(super::findings::summary_lines(&*store, tz, &update)?),
-            doc,
+            Some(super::findings::summary_lines(
+                &*store,
+                config.plant.time_zone,
+                &update,
+            )?),
+            Some(listed),
         )
     };
     let mut out = std::io::stdout().lock();
@@ -165,7 +167,7 @@ pub fn run(args: &CheckArgs) -> Result<ExitCode> {
         }
     }
     let written = if args.json {
-        print_json(&mut out, &config, &period, &run, &content, findings_json)
+        print_json(&mut out, &config, &period, &run, &content, check_findings)
     } else {
         print_summary(&mut out, &config, &period, &run, &content, None)
     };
@@ -365,7 +367,7 @@ pub fn check_document(
     period: &Period,
     run: &StoredRun,
     content: &RunContent,
-    findings: serde_json::Value,
+    findings: Option<CheckFindings>,
 ) -> serde_json::Value {
     use crate::results::{CheckDocument, CheckedPeriod, CheckedRun};
     let tz = config.plant.time_zone;
@@ -381,7 +383,7 @@ pub fn check_document(
             start: period.start.with_timezone(&tz).to_rfc3339(),
             end: period.end.with_timezone(&tz).to_rfc3339(),
         },
-        findings: Some(findings).filter(|f| !f.is_null()),
+        findings,
         run: CheckedRun {
             run_id: run.run_id,
             version: run.version,
@@ -410,7 +412,7 @@ fn print_json(
     period: &Period,
     run: &StoredRun,
     content: &RunContent,
-    findings: serde_json::Value,
+    findings: Option<CheckFindings>,
 ) -> std::io::Result<()> {
     let doc = check_document(config, period, run, content, findings);
     serde_json::to_writer_pretty(&mut *out, &doc)?;
@@ -426,7 +428,6 @@ fn write_csv(
     run: &StoredRun,
     content: &RunContent,
 ) -> Result<()> {
-    let mut w = csv::Writer::from_writer(AtomicFile::create(path)?);
     let header = [
         "period_kind",
         "period",
@@ -465,24 +466,19 @@ fn write_csv(
         "group_means",
         "notes",
     ];
-    let io = |e: csv::Error| Error::Io {
-        path: path.to_path_buf(),
-        source: std::io::Error::other(e),
-    };
-    w.write_record(header).map_err(io)?;
-    let f = |x: Option<f64>| x.map_or(String::new(), |v| format!("{v:?}"));
+    let f = crate::output::csv_number;
     let start = period
         .start
         .with_timezone(&config.plant.time_zone)
         .to_rfc3339();
-    for t in sorted(content) {
+    let rows = sorted(content).into_iter().map(|t| {
         let c = config.characteristic(&t.characteristic);
         let means: Vec<String> = t
             .groups
             .iter()
             .map(|g| format!("{}={:?}", g.name, g.mean))
             .collect();
-        w.write_record([
+        [
             period.kind.as_str().to_string(),
             period.label.clone(),
             start.clone(),
@@ -521,12 +517,7 @@ fn write_csv(
             f(t.stands_out.pct_tolerance),
             means.join(";"),
             t.notes.clone(),
-        ])
-        .map_err(io)?;
-    }
-    w.flush().map_err(|e| Error::io(path, e))?;
-    let file = w
-        .into_inner()
-        .map_err(|e| Error::io(path, e.into_error()))?;
-    file.commit()
+        ]
+    });
+    crate::output::write_csv(path, &header, rows)
 }

@@ -18,7 +18,11 @@ use std::collections::HashMap;
 use std::io::Write;
 use std::path::{Path, PathBuf};
 
-use serde_json::{json, Map, Value};
+use crate::outputs::compare::{
+    BlockedTestOut, CompareDocument, CompareInput, DesignOut, NestedComponentsOut, NestedTestOut,
+    SerialOut,
+};
+use crate::results::PairResult;
 
 use crate::stats::decimal::Decimal;
 use crate::stats::oneway::{analyze, LeadingMethod, OneWay, OneWayOptions, Tolerance};
@@ -441,14 +445,8 @@ pub fn run(args: &CompareArgs) -> Result<std::process::ExitCode> {
     })?;
     let mut out = std::io::stdout().lock();
     let written = if args.json {
-        let mut value = to_json(args, &data, &result, &options);
-        value["design"] = structure.json;
-        super::format::bound_tiny_p(&mut value);
-        writeln!(
-            out,
-            "{}",
-            serde_json::to_string_pretty(&value).unwrap_or_default()
-        )
+        let doc = to_document(args, &data, &result, &options, structure.design);
+        writeln!(out, "{}", super::format::document_json(&doc))
     } else {
         let text = render_text(args, &data, &result, &options);
         // The sampling structure goes right after the first (heading) line.
@@ -468,7 +466,7 @@ pub fn run(args: &CompareArgs) -> Result<std::process::ExitCode> {
 /// The sampling structure of a comparison: the text paragraph and the JSON `design` object.
 struct Structure {
     text: String,
-    json: Value,
+    design: DesignOut,
 }
 
 /// Decides the design from the subgroup column (see `analysis::design`) and, for a nested or
@@ -499,17 +497,23 @@ fn sampling_structure(args: &CompareArgs, data: &mut GroupedData) -> Structure {
                 );
                 Structure {
                     text,
-                    json: json!({"kind": "independent", "subgroup_column": null,
-                        "subgroup_column_reason": "no --subgroup given",
-                        "serial_dependence": {"r1": json_number(c.r1), "z": json_number(c.z),
-                            "p": json_number(c.p), "fails": alarm}}),
+                    design: DesignOut {
+                        serial_dependence: Some(SerialOut {
+                            r1: c.r1,
+                            z: c.z,
+                            p: c.p,
+                            fails: alarm,
+                        }),
+                        ..DesignOut::new("independent", None)
+                    },
                 }
             }
             Err(e) => Structure {
                 text: format!("Sampling structure: every value a unit (no --subgroup); serial dependence: {}\n", e.reason),
-                json: json!({"kind": "independent", "subgroup_column": null,
-                    "subgroup_column_reason": "no --subgroup given",
-                    "serial_dependence": null, "serial_dependence_reason": e.reason}),
+                design: DesignOut {
+                    serial_dependence_reason: Some(e.reason),
+                    ..DesignOut::new("independent", None)
+                },
             },
         };
     }
@@ -527,11 +531,19 @@ fn sampling_structure(args: &CompareArgs, data: &mut GroupedData) -> Structure {
     let Ok(a) = arrange(&values, &subgroup, |row| Some(group[row])) else {
         return Structure {
             text: "Sampling structure: no subgroups found\n".into(),
-            json: json!({"kind": "independent", "subgroup_column": column}),
+            design: DesignOut {
+                n_subgroups_reason: Some("no subgroups found in the column".into()),
+                serial_dependence_reason: Some(
+                    "not checked: a subgroup column was given (but held no subgroups)".into(),
+                ),
+                ..DesignOut::new("independent", Some(column))
+            },
         };
     };
-    let mut json =
-        json!({"kind": a.kind.as_str(), "subgroup_column": column, "n_subgroups": a.n_subgroups});
+    let mut design = DesignOut {
+        n_subgroups: Some(a.n_subgroups as u64),
+        ..DesignOut::new(a.kind.as_str(), Some(column.clone()))
+    };
     let text = match a.kind {
         DesignKind::Nested | DesignKind::CellMeans | DesignKind::Independent => {
             let mut text = if a.kind == DesignKind::Nested {
@@ -557,8 +569,13 @@ fn sampling_structure(args: &CompareArgs, data: &mut GroupedData) -> Structure {
                                 pval(t.p),
                                 t.method.name()
                             ));
-                            json["nested_test"] = json!({"f": json_number(t.f), "df1": json_number(t.df1),
-                                "df2": json_number(t.df2), "p": json_number(t.p), "method": t.method.name()});
+                            design.nested_test = Some(NestedTestOut {
+                                f: t.f,
+                                df1: t.df1,
+                                df2: t.df2,
+                                p: t.p,
+                                method: t.method.name().to_string(),
+                            });
                         }
                         if let Ok(c) = &n.components {
                             text.push_str(&format!(
@@ -570,14 +587,22 @@ fn sampling_structure(args: &CompareArgs, data: &mut GroupedData) -> Structure {
                                 sig(c.within, 4),
                                 100.0 * c.share_within
                             ));
-                            json["variance_components"] = json!({
-                                "between": json_number(c.levels), "subgroups": json_number(c.subgroups),
-                                "within": json_number(c.within), "share_between": json_number(c.share_levels),
-                                "share_subgroups": json_number(c.share_subgroups),
-                                "share_within": json_number(c.share_within), "method": c.method});
+                            design.variance_components = Some(NestedComponentsOut {
+                                between: c.levels,
+                                subgroups: c.subgroups,
+                                within: c.within,
+                                share_between: c.share_levels,
+                                share_subgroups: c.share_subgroups,
+                                share_within: c.share_within,
+                                method: c.method.to_string(),
+                            });
                         }
                     }
-                    Err(e) => text.push_str(&format!("Nested ANOVA: {}\n", e.reason)),
+                    Err(e) => {
+                        text.push_str(&format!("Nested ANOVA: {}\n", e.reason));
+                        design.nested_test_reason = Some(e.reason.clone());
+                        design.variance_components_reason = Some(e.reason);
+                    }
                 }
             }
             data.values = a.cell_means(k);
@@ -593,10 +618,13 @@ fn sampling_structure(args: &CompareArgs, data: &mut GroupedData) -> Structure {
                 a.n_subgroups,
                 confidence,
             ) {
-                Err(e) => format!(
-                    "Sampling structure: blocked, but {}; the values are tested as independent\n",
-                    e.reason
-                ),
+                Err(e) => {
+                    design.blocked_test_reason = Some(e.reason.clone());
+                    format!(
+                        "Sampling structure: blocked, but {}; the values are tested as independent\n",
+                        e.reason
+                    )
+                }
                 Ok(fit) => {
                     let mut text = format!(
                         "Sampling structure: blocked. \"{}\" varies within the {} subgroups of \"{column}\", so each subgroup's deviation is taken out (additive two-way ANOVA, subgroups as blocks, Type II).\n",
@@ -611,23 +639,24 @@ fn sampling_structure(args: &CompareArgs, data: &mut GroupedData) -> Structure {
                                 t.df2.unwrap_or(f64::NAN),
                                 pval(t.p)
                             ));
-                            json["blocked_test"] = json!({"f": json_number(t.statistic),
-                                "df1": t.df1, "df2": t.df2, "p": json_number(t.p),
-                                "ss_groups": json_number(fit.ss_levels), "ss_subgroups": json_number(fit.ss_blocks),
-                                "ss_residual": json_number(fit.ss_resid)});
+                            design.blocked_test = Some(BlockedTestOut {
+                                test: t.into(),
+                                ss_groups: fit.ss_levels,
+                                ss_subgroups: fit.ss_blocks,
+                                ss_residual: fit.ss_resid,
+                            });
                         }
-                        Err(e) => text.push_str(&format!("Blocked F: {}\n", e.reason)),
+                        Err(e) => {
+                            text.push_str(&format!("Blocked F: {}\n", e.reason));
+                            design.blocked_test_reason = Some(e.reason.clone());
+                        }
                     }
-                    let pairs: Vec<Value> = fit
+                    design.blocked_pairs = fit
                         .pairs
                         .iter()
                         .flatten()
-                        .map(|p| json!({"a": data.names[p.a], "b": data.names[p.b], "diff": json_number(p.diff),
-                            "se": json_number(p.se), "statistic": json_number(p.statistic), "df": json_number(p.df),
-                            "p_adj": json_number(p.p_adj), "ci": {"low": json_number(p.ci_low), "high": json_number(p.ci_high)},
-                            "method": "tukey_kramer_adjusted"}))
+                        .map(|p| PairResult::named(&data.names, &p.into()))
                         .collect();
-                    json["blocked_pairs"] = Value::Array(pairs);
                     // Each group's values adjusted for the subgroups: its least-squares mean
                     // plus the residuals (its raw mean where the design does not link it).
                     let mut adjusted = vec![Vec::new(); k];
@@ -649,265 +678,31 @@ fn sampling_structure(args: &CompareArgs, data: &mut GroupedData) -> Structure {
             }
         }
     };
-    Structure { text, json }
+    Structure { text, design }
 }
 
 // ---------------------------------------------------------------------------------------------
 // JSON
 
-use super::format::{json_number, put};
-
-fn test_json(r: &TestResult, statistic_name: &str) -> Value {
-    let mut m = Map::new();
-    m.insert(statistic_name.to_string(), json_number(r.statistic));
-    if let Some(d) = r.df1 {
-        m.insert(
-            if r.df2.is_some() { "df1" } else { "df" }.to_string(),
-            json_number(d),
-        );
-    }
-    if let Some(d) = r.df2 {
-        m.insert("df2".to_string(), json_number(d));
-    }
-    m.insert("p".to_string(), json_number(r.p));
-    Value::Object(m)
-}
-
-/// The JSON object of `compare --json` (field reference: docs/json.md).
-pub fn to_json(
+/// The document of `compare --json` (field reference: docs/json.md).
+pub fn to_document(
     args: &CompareArgs,
     data: &GroupedData,
     r: &OneWay,
     options: &OneWayOptions,
-) -> Value {
-    let origin = data.origin.to_f64();
-    let abs = |offset: f64| json_number(origin + offset);
-    let groups: Vec<Value> = data
-        .names
-        .iter()
-        .zip(&r.summaries)
-        .map(|(name, s)| {
-            let mut m = Map::new();
-            m.insert("name".into(), Value::String(name.clone()));
-            m.insert("n".into(), json!(s.n));
-            m.insert("mean".into(), abs(s.mean));
-            m.insert("mean_offset".into(), json_number(s.mean));
-            let sd: Stat<f64> = s
-                .sd()
-                .ok_or_else(|| crate::stats::Unavailable::new("a group of one value has no SD"));
-            put(&mut m, "sd", &sd, |v| json_number(*v));
-            m.insert("min".into(), abs(s.min));
-            m.insert("max".into(), abs(s.max));
-            Value::Object(m)
-        })
-        .collect();
-    let mut root = Map::new();
-    root.insert(
-        "file".into(),
-        Value::String(args.file.display().to_string()),
-    );
-    root.insert("by".into(), Value::String(args.by.clone()));
-    root.insert("measure".into(), Value::String(args.measure.clone()));
-    root.insert("origin".into(), Value::String(data.origin.to_string()));
-    root.insert("n_obs".into(), json!(data.n_rows));
-    root.insert("n_groups".into(), json!(data.names.len()));
-    let limits = options.tolerance.unwrap_or_default();
-    let lim = |x: Option<f64>| x.map_or(Value::Null, &abs);
-    root.insert(
-        "limits".into(),
-        json!({"lsl": lim(limits.lsl), "usl": lim(limits.usl), "target": lim(limits.target)}),
-    );
-    root.insert("groups".into(), Value::Array(groups));
-    put(&mut root, "anova", &r.anova, |t| {
-        json!({
-            "ss_between": json_number(t.ss_between), "ss_within": json_number(t.ss_within), "ss_total": json_number(t.ss_total),
-            "df_between": json_number(t.df_between), "df_within": json_number(t.df_within), "df_total": json_number(t.df_total),
-            "ms_between": json_number(t.ms_between), "ms_within": json_number(t.ms_within),
-            "f": json_number(t.f), "p": json_number(t.p), "r_squared": json_number(t.r_squared), "resid_sd": json_number(t.resid_sd),
-            "grand_mean": abs(t.grand_mean),
-        })
-    });
-    put(&mut root, "welch", &r.welch, |t| test_json(t, "f"));
-    put(&mut root, "f_star", &r.f_star, |t| test_json(t, "f"));
-    put(&mut root, "kruskal_wallis", &r.kruskal_wallis, |t| {
-        test_json(t, "h")
-    });
-    put(&mut root, "levene", &r.levene, |t| {
-        test_json(t, "statistic")
-    });
-    put(&mut root, "brown_forsythe", &r.brown_forsythe, |t| {
-        test_json(t, "statistic")
-    });
-    put(&mut root, "bartlett", &r.bartlett, |t| {
-        test_json(t, "statistic")
-    });
-    put(&mut root, "sd_ratio", &r.sd_ratio, |v| json_number(*v));
-    put(&mut root, "n_beyond_3sd", &r.n_beyond_3sd, |v| json!(v));
-    put(
-        &mut root,
-        "outliers",
-        &r.outliers,
-        |c| json!({"n": c.n, "expected": json_number(c.expected), "p": json_number(c.p)}),
-    );
-    put(&mut root, "dagostino_pearson", &r.dagostino_pearson, |d| {
-        json!({"k2": json_number(d.k2), "p": json_number(d.p), "n": d.n,
-               "skewness": json_number(d.skewness), "skewness_se": json_number(d.skewness_se),
-               "excess_kurtosis": json_number(d.excess_kurtosis),
-               "excess_kurtosis_se": json_number(d.excess_kurtosis_se)})
-    });
-    if let Ok(c) = &r.constant_groups {
-        // Every group constant: the ANOVA table's defined parts (F is infinite).
-        root.insert(
-            "constant_groups".into(),
-            json!({"ss_between": json_number(c.ss_between), "ss_within": 0.0,
-                   "df_between": c.df_between, "df_within": c.df_within,
-                   "grand_mean": json_number(data.origin.plus_offset(c.grand_mean)),
-                   "eta_squared": 1.0, "n_distinct": c.n_distinct,
-                   "p_exact": json_number(c.p), "p_is_exact_count": c.is_exact}),
-        );
-    }
-    put(
-        &mut root,
-        "shapiro_wilk",
-        &r.shapiro_wilk,
-        |t| json!({"w": json_number(t.w), "p": json_number(t.p), "n": t.n}),
-    );
-    put(&mut root, "effect", &r.effect, |e| {
-        json!({
-            "eta_squared": json_number(e.eta_squared),
-            "omega_squared": json_number(e.omega_squared),
-            "mean_spread": json_number(e.mean_spread),
-            "mean_spread_pct_tolerance": e.mean_spread_pct_tolerance.map_or(Value::Null, json_number),
-        })
-    });
-    put(
-        &mut root,
-        "variance_components",
-        &r.variance_components,
-        |v| {
-            let interval = |i: &crate::stats::variance_components::Interval| json!({"low": json_number(i.low), "high": json_number(i.high)});
-            let mut m = Map::new();
-            m.insert("between".into(), json_number(v.between));
-            m.insert("between_raw".into(), json_number(v.between_raw));
-            m.insert("is_truncated".into(), json!(v.is_truncated));
-            m.insert("within".into(), json_number(v.within));
-            m.insert("share_between".into(), json_number(v.share_between));
-            m.insert("icc".into(), json_number(v.icc));
-            m.insert("n0".into(), json_number(v.n0));
-            m.insert("is_balanced".into(), json!(v.is_balanced));
-            m.insert("within_ci".into(), interval(&v.within_ci));
-            put(&mut m, "icc_ci", &v.icc_ci, interval);
-            put(&mut m, "between_ci", &v.between_ci, interval);
-            m.insert("confidence".into(), json_number(options.confidence));
-            m.insert("method".into(), Value::String(v.method.to_string()));
-            m.insert("notes".into(), json!(v.notes));
-            Value::Object(m)
-        },
-    );
-    let pairs: Vec<Value> = r
-        .pairs
-        .iter()
-        .map(|p| match p {
-            Ok(p) => {
-                // The shared pair vocabulary (names, `ci {low, high}`), plus the group indices.
-                let mut v = serde_json::to_value(crate::results::PairResult {
-                    a: data.names[p.a].clone(),
-                    b: data.names[p.b].clone(),
-                    diff: p.diff,
-                    se: p.se,
-                    statistic: p.statistic,
-                    df: p.df,
-                    p_adj: p.p_adj,
-                    ci: crate::results::Interval {
-                        low: p.ci_low,
-                        high: p.ci_high,
-                    },
-                    method: p.method.name().to_string(),
-                })
-                .unwrap_or(Value::Null);
-                v["a_index"] = json!(p.a);
-                v["b_index"] = json!(p.b);
-                v
-            }
-            Err(e) => json!({"pair": Value::Null, "pair_reason": e.reason}),
-        })
-        .collect();
-    root.insert("pairs".into(), Value::Array(pairs));
-    let effects: Vec<Value> = r
-        .group_effects
-        .iter()
-        .map(|g| {
-            let mut m = Map::new();
-            m.insert(
-                "name".into(),
-                Value::String(data.names[g.group_idx].clone()),
-            );
-            m.insert("group_idx".into(), json!(g.group_idx));
-            m.insert("diff_from_grand".into(), json_number(g.diff_from_grand));
-            put(&mut m, "diff_sd_units", &g.diff_sd_units, |v| {
-                json_number(*v)
-            });
-            m.insert(
-                "diff_pct_tolerance".into(),
-                g.diff_pct_tolerance.map_or(Value::Null, json_number),
-            );
-            Value::Object(m)
-        })
-        .collect();
-    root.insert("group_effects".into(), Value::Array(effects));
-    put(&mut root, "sensitivity", &r.sensitivity, |s| {
-        let mut m = Map::new();
-        m.insert("alpha".into(), json_number(s.alpha));
-        m.insert("power_target".into(), json_number(s.power_target));
-        put(&mut m, "min_detectable_diff", &s.min_detectable_diff, |v| {
-            json_number(*v)
-        });
-        m.insert(
-            "min_detectable_pct_tolerance".into(),
-            s.min_detectable_pct_tolerance
-                .map_or(Value::Null, json_number),
-        );
-        m.insert("detect".into(), s.detect.map_or(Value::Null, json_number));
-        m.insert(
-            "power_at_detect".into(),
-            s.power_at_detect.map_or(Value::Null, json_number),
-        );
-        match &s.n_needed {
-            None => {
-                m.insert("n_needed".into(), Value::Null);
-            }
-            Some(n) => put(&mut m, "n_needed", n, |v| json!(v)),
-        }
-        Value::Object(m)
-    });
-    let l = &r.leading;
-    root.insert(
-        "leading".into(),
-        json!({
-            "method": l.method.key(),
-            "reason": l.reason,
-            "declined": l.declined.is_some(),
-            "recommend_kruskal_wallis": l.recommend_kruskal_wallis,
-            "statistic": l.statistic.map_or(Value::Null, json_number),
-            "p": l.p.map_or(Value::Null, json_number),
-        }),
-    );
-    if let Some(Value::Object(leading)) = root.get_mut("leading") {
-        let why = l.declined.clone().unwrap_or_else(|| match l.method {
-            LeadingMethod::ExactPermutation => {
-                "the exact permutation test of constant groups has a p-value but no F (F is infinite)"
-                    .to_string()
-            }
-            _ => "the leading test could not be computed (its section gives the reason)".to_string(),
-        });
-        for key in ["statistic", "p"] {
-            if leading.get(key).is_some_and(Value::is_null) {
-                leading.insert(format!("{key}_reason"), Value::String(why.clone()));
-            }
-        }
-    }
-    root.insert("caution".into(), Value::String(crate::CAUTION.to_string()));
-    Value::Object(root)
+    design: DesignOut,
+) -> CompareDocument {
+    let input = CompareInput {
+        file: args.file.display().to_string(),
+        by: args.by.clone(),
+        measure: args.measure.clone(),
+        names: &data.names,
+        origin: &data.origin,
+        n_rows: data.n_rows,
+        tolerance: options.tolerance,
+        confidence: options.confidence,
+    };
+    CompareDocument::new(&input, r, design)
 }
 
 // ---------------------------------------------------------------------------------------------

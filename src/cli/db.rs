@@ -43,23 +43,8 @@ pub fn run(args: &DbArgs) -> Result<ExitCode> {
         DbAction::Check { json } => {
             let report = store.integrity_check()?;
             if *json {
-                let counts: serde_json::Map<String, serde_json::Value> = report
-                    .counts
-                    .iter()
-                    .map(|(t, n)| (t.clone(), serde_json::json!(n)))
-                    .collect();
-                println!(
-                    "{}",
-                    serde_json::to_string_pretty(&serde_json::json!({
-                        "database": crate::storage::describe(&config),
-                        "sound": report.is_ok(),
-                        "counts": counts,
-                        "integrity": report.integrity,
-                        "orphan_rows": report.foreign_keys,
-                        "problems": report.problems,
-                    }))
-                    .unwrap_or_default()
-                );
+                let doc = crate::outputs::DbCheckDocument::new(crate::storage::describe(&config), &report);
+                println!("{}", super::format::document_json(&doc));
                 return if report.is_ok() {
                     Ok(ExitCode::from(super::EXIT_OK))
                 } else {

@@ -177,30 +177,14 @@ pub fn run(args: &EventArgs) -> Result<ExitCode> {
                 store.events(None, None)?
             };
             if *json {
-                let time = |t: &chrono::DateTime<chrono::Utc>| t.with_timezone(&tz).to_rfc3339();
-                let list: Vec<serde_json::Value> = events
-                    .iter()
-                    .map(|e| {
-                        let mut v = serde_json::json!({
-                            "id": e.id,
-                            "at": time(&e.at),
-                            "note": e.note,
-                            "characteristic": e.characteristic,
-                            "scope": e.scope.iter().map(|(f, l)| serde_json::json!({"factor": f, "level": l})).collect::<Vec<_>>(),
-                            "recorded": time(&e.created),
-                            "removed": e.removed.as_ref().map(time),
-                        });
-                        if e.characteristic.is_none() {
-                            v["characteristic_reason"] = "the event concerns every characteristic".into();
-                        }
-                        if e.removed.is_none() {
-                            v["removed_reason"] = "not removed".into();
-                        }
-                        v
-                    })
-                    .collect();
-                let doc = serde_json::json!({"events": list, "include_removed": all});
-                println!("{}", serde_json::to_string_pretty(&doc).unwrap_or_default());
+                let doc = crate::outputs::EventListDocument {
+                    events: events
+                        .iter()
+                        .map(|e| crate::outputs::EventLine::new(e, tz))
+                        .collect(),
+                    include_removed: *all,
+                };
+                println!("{}", super::format::document_json(&doc));
                 return Ok(ExitCode::from(super::EXIT_OK));
             }
             if events.is_empty() {

@@ -3,19 +3,18 @@
 //! `samewise findings note N TEXT`: the flags of the run history joined into findings (see
 //! `analysis::findings`), with an engineer's notes.
 
-use std::io::Write;
 use std::path::PathBuf;
 use std::process::ExitCode;
 
 use chrono::{DateTime, NaiveDate, Utc};
 use chrono_tz::Tz;
 use clap::{Args, Subcommand};
-use serde_json::{json, Map, Value};
 
 use crate::calendar::PlantCalendar;
 use crate::config::Config;
 use crate::model::{Finding, FindingStatus, PeriodKind};
-use crate::output::{refuse_protected, AtomicFile, Protected};
+use crate::output::{refuse_protected, Protected};
+use crate::outputs::{group_means_cell, AlertDocument, FindingLine, Limits};
 use crate::storage::PlantStore;
 use crate::{Error, Result};
 
@@ -104,23 +103,14 @@ pub fn run(args: &FindingsArgs, now: DateTime<Utc>) -> Result<ExitCode> {
         })
         .filter(|f| args.factor.as_ref().is_none_or(|b| *b == f.factor))
         .collect();
-    let tz = config.plant.time_zone;
-    if args.json {
-        let rows = findings
-            .iter()
-            .map(|f| finding_json(&*store, f, tz))
-            .collect::<Result<Vec<_>>>()?;
-        println!(
-            "{}",
-            serde_json::to_string_pretty(&Value::Array(rows)).unwrap_or_default()
-        );
-        return Ok(ExitCode::from(super::EXIT_OK));
-    }
-    if let Some(path) = &args.csv {
-        let mut out = AtomicFile::create(path)?;
-        write_csv(&mut out, &findings, tz).map_err(|e| Error::io(path, e))?;
-        out.commit()?;
-        println!("{} findings written to {}", findings.len(), path.display());
+    if args.json || args.csv.is_some() {
+        let rows = finding_lines_of(&*store, &config, &findings)?;
+        if let Some(path) = &args.csv {
+            write_csv(path, &rows)?;
+            println!("{} findings written to {}", rows.len(), path.display());
+        } else {
+            println!("{}", super::format::document_json(&rows));
+        }
         return Ok(ExitCode::from(super::EXIT_OK));
     }
     print_text(&*store, &config, &findings, args)?;
@@ -164,169 +154,121 @@ fn check_names(config: &Config, stored: &[Finding], args: &FindingsArgs) -> Resu
     Ok(())
 }
 
-fn local(t: DateTime<Utc>, tz: Tz) -> String {
-    t.with_timezone(&tz).to_rfc3339()
+/// The findings as printed (`findings --json`, `check --json`, the alert command's input): each
+/// stored finding with its notes, its characteristic's limits, and the run of its last flagged
+/// period with that run's groups of the finding's test (a run shared by several findings is read
+/// once).
+pub fn finding_lines_of(
+    store: &dyn PlantStore,
+    config: &Config,
+    findings: &[Finding],
+) -> Result<Vec<FindingLine>> {
+    let mut runs: std::collections::HashMap<i64, crate::results::RunContent> =
+        std::collections::HashMap::new();
+    findings
+        .iter()
+        .map(|f| {
+            let last_run = match store.latest_complete_run(f.period_kind.as_str(), &f.last_label)? {
+                Some(run) => {
+                    let content = match runs.entry(run.run_id) {
+                        std::collections::hash_map::Entry::Occupied(e) => e.into_mut(),
+                        std::collections::hash_map::Entry::Vacant(e) => {
+                            e.insert(store.run_content(run.run_id)?)
+                        }
+                    };
+                    Some((
+                        run.run_id,
+                        crate::outputs::groups_of_test(content, &f.characteristic, &f.factor),
+                    ))
+                }
+                None => None,
+            };
+            Ok(FindingLine::new(
+                f,
+                Limits::of(config, &f.characteristic),
+                store.finding_notes(f.id)?,
+                last_run,
+                config.plant.time_zone,
+            ))
+        })
+        .collect()
 }
 
-fn opt_num(map: &mut Map<String, Value>, key: &str, v: Option<f64>, reason: &str) {
-    match v.filter(|x| x.is_finite()) {
-        Some(x) => {
-            map.insert(key.into(), json!(x));
-        }
-        None => {
-            map.insert(key.into(), Value::Null);
-            map.insert(format!("{key}_reason"), reason.into());
-        }
-    }
-}
-
-/// One finding as JSON: every field, times RFC 3339 with the plant's offset, every `null` with a
-/// sibling `<name>_reason`.
-pub fn finding_json(store: &dyn PlantStore, f: &Finding, tz: Tz) -> Result<Value> {
-    let mut m = Map::new();
-    m.insert("id".into(), json!(f.id));
-    m.insert("status".into(), json!(f.status.as_str()));
-    m.insert("period_kind".into(), json!(f.period_kind.as_str()));
-    m.insert("characteristic".into(), json!(f.characteristic));
-    m.insert("factor".into(), json!(f.factor));
-    m.insert("group".into(), json!(f.level));
-    m.insert("unit".into(), json!(f.unit));
-    m.insert("times_reopened".into(), json!(f.times_reopened));
-    m.insert("first_flagged".into(), json!(f.first_label));
-    m.insert(
-        "first_flagged_start".into(),
-        json!(local(f.first_start, tz)),
-    );
-    m.insert("episode_first_flagged".into(), json!(f.episode_label));
-    m.insert("episode_start".into(), json!(local(f.episode_start, tz)));
-    m.insert("last_flagged".into(), json!(f.last_label));
-    m.insert("last_flagged_end".into(), json!(local(f.last_end, tz)));
-    m.insert("periods_flagged".into(), json!(f.n_flagged));
-    m.insert("periods_flagged_on_weak_evidence".into(), json!(f.n_weak));
-    m.insert("quiet_periods_since".into(), json!(f.quiet_periods));
-    let no_effect = "the run stored no standing-out difference for this period";
-    opt_num(&mut m, "effect_now", f.effect_now, no_effect);
-    opt_num(
-        &mut m,
+/// One row per finding, the columns named as the fields of `findings --json` (the onset and the
+/// nearest event flattened, the groups as `level=mean;...` in units); an unavailable value is
+/// an empty cell.
+fn write_csv(path: &std::path::Path, rows: &[FindingLine]) -> Result<()> {
+    let header = [
+        "id",
+        "status",
+        "period_kind",
+        "characteristic",
+        "factor",
+        "group",
+        "unit",
+        "lsl",
+        "usl",
+        "target",
+        "first_flagged",
+        "episode_first_flagged",
+        "last_flagged",
+        "last_run_id",
+        "periods_flagged",
+        "periods_flagged_on_weak_evidence",
+        "quiet_periods_since",
+        "effect_now",
         "effect_now_sd",
-        f.effect_now_sd,
-        "no within-group SD",
-    );
-    opt_num(
-        &mut m,
         "effect_now_pct_tolerance",
-        f.effect_now_pct,
-        "no tolerance (or single limit) configured",
-    );
-    opt_num(&mut m, "within_sd", f.within_sd, "no within-group SD");
-    opt_num(&mut m, "peak_effect", f.peak_effect, no_effect);
-    opt_num(
-        &mut m,
+        "within_sd",
+        "peak_effect",
         "peak_pct_tolerance",
-        f.peak_pct,
-        "no tolerance (or single limit) configured",
-    );
-    m.insert("peak_period".into(), json!(f.peak_label));
-    if f.peak_label.is_none() {
-        m.insert("peak_period_reason".into(), json!(no_effect));
-    }
-    let onset = json!({
-        "at": f.onset.map(|t| local(t, tz)),
-        "low": f.onset_low.map(|t| local(t, tz)),
-        "high": f.onset_high.map(|t| local(t, tz)),
-        "method": f.onset_method,
+        "peak_period",
+        "onset",
+        "onset_low",
+        "onset_high",
+        "nearest_event_id",
+        "nearest_event_at",
+        "nearest_event_note",
+        "group_means",
+    ];
+    let num = crate::output::csv_number;
+    let records = rows.iter().map(|r| {
+        let e = r.nearest_event.as_ref();
+        [
+            r.id.to_string(),
+            r.status.clone(),
+            r.period_kind.clone(),
+            r.characteristic.clone(),
+            r.factor.clone(),
+            r.group.clone(),
+            r.limits.unit.clone(),
+            num(r.limits.lsl),
+            num(r.limits.usl),
+            num(r.limits.target),
+            r.first_flagged.clone(),
+            r.episode_first_flagged.clone(),
+            r.last_flagged.clone(),
+            r.last_run_id.map_or(String::new(), |id| id.to_string()),
+            r.periods_flagged.to_string(),
+            r.periods_flagged_on_weak_evidence.to_string(),
+            r.quiet_periods_since.to_string(),
+            num(r.effect_now),
+            num(r.effect_now_sd),
+            num(r.effect_now_pct_tolerance),
+            num(r.within_sd),
+            num(r.peak_effect),
+            num(r.peak_pct_tolerance),
+            r.peak_period.clone().unwrap_or_default(),
+            r.onset.at.clone().unwrap_or_default(),
+            r.onset.low.clone().unwrap_or_default(),
+            r.onset.high.clone().unwrap_or_default(),
+            e.map_or(String::new(), |e| e.id.to_string()),
+            e.map_or(String::new(), |e| e.at.clone()),
+            e.and_then(|e| e.note.clone()).unwrap_or_default(),
+            group_means_cell(&r.groups),
+        ]
     });
-    m.insert("onset".into(), onset);
-    if f.onset_low.is_none() {
-        if let Some(Value::Object(o)) = m.get_mut("onset") {
-            let why = "no change point was found: the onset is the first flagged period";
-            o.insert("low_reason".into(), json!(why));
-            o.insert("high_reason".into(), json!(why));
-            if f.onset.is_none() {
-                o.insert("at_reason".into(), json!("not computed yet"));
-            }
-        }
-    }
-    match (f.event_id, f.event_at) {
-        (Some(id), Some(at)) => {
-            let gap_hours = f
-                .onset
-                .map(|o| (o - at).num_minutes() as f64 / 60.0)
-                .unwrap_or(f64::NAN);
-            m.insert(
-                "nearest_event".into(),
-                json!({
-                    "id": id,
-                    "at": local(at, tz),
-                    "note": f.event_note,
-                    "hours_before_onset": if gap_hours.is_finite() { json!(gap_hours) } else { Value::Null },
-                }),
-            );
-        }
-        _ => {
-            m.insert("nearest_event".into(), Value::Null);
-            m.insert(
-                "nearest_event_reason".into(),
-                json!("no logged process change in scope (this characteristic or all, this group or none) at or before the onset"),
-            );
-        }
-    }
-    let notes: Vec<Value> = store
-        .finding_notes(f.id)?
-        .into_iter()
-        .map(|(at, text)| json!({"at": local(at, tz), "text": text}))
-        .collect();
-    m.insert("notes".into(), Value::Array(notes));
-    m.insert("updated_at".into(), json!(local(f.updated, tz)));
-    Ok(Value::Object(m))
-}
-
-fn csv_field(text: &str) -> String {
-    if text.contains([',', '"', '\n', '\r']) {
-        format!("\"{}\"", text.replace('"', "\"\""))
-    } else {
-        text.to_string()
-    }
-}
-
-fn write_csv(out: &mut impl Write, findings: &[Finding], tz: Tz) -> std::io::Result<()> {
-    writeln!(
-        out,
-        "id,status,period_kind,characteristic,factor,group,unit,first_flagged,episode_first_flagged,last_flagged,periods_flagged,weak,quiet_periods,effect_now,effect_now_sd,effect_now_pct_tolerance,peak_effect,peak_period,onset,onset_low,onset_high,event_id,event_at,event_note"
-    )?;
-    let num = |v: Option<f64>| v.map_or(String::new(), |x| x.to_string());
-    let time = |t: Option<DateTime<Utc>>| t.map_or(String::new(), |t| local(t, tz));
-    for f in findings {
-        writeln!(
-            out,
-            "{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{}",
-            f.id,
-            f.status.as_str(),
-            f.period_kind.as_str(),
-            csv_field(&f.characteristic),
-            csv_field(&f.factor),
-            csv_field(&f.level),
-            csv_field(&f.unit),
-            f.first_label,
-            f.episode_label,
-            f.last_label,
-            f.n_flagged,
-            f.n_weak,
-            f.quiet_periods,
-            num(f.effect_now),
-            num(f.effect_now_sd),
-            num(f.effect_now_pct),
-            num(f.peak_effect),
-            f.peak_label.as_deref().unwrap_or(""),
-            time(f.onset),
-            time(f.onset_low),
-            time(f.onset_high),
-            f.event_id.map_or(String::new(), |v| v.to_string()),
-            time(f.event_at),
-            csv_field(f.event_note.as_deref().unwrap_or(""))
-        )?;
-    }
-    Ok(())
+    crate::output::write_csv(path, &header, records)
 }
 
 fn signed(x: f64) -> String {
@@ -527,23 +469,19 @@ pub fn summary_lines(
     Ok(lines)
 }
 
-/// The alert command's input: the new and changed findings as one JSON document.
+/// The alert command's input: the new and changed findings as one document.
 pub fn alert_document(
     store: &dyn PlantStore,
     config: &Config,
     update: &crate::analysis::findings::FindingsUpdate,
     now: DateTime<Utc>,
-) -> Result<Value> {
-    let tz = config.plant.time_zone;
-    let list = |v: &[Finding]| -> Result<Vec<Value>> {
-        v.iter().map(|f| finding_json(store, f, tz)).collect()
-    };
-    Ok(json!({
-        "plant": config.plant.name,
-        "generated_at": local(now, tz),
-        "new": list(&update.new)?,
-        "changed": list(&update.changed)?,
-        "open": update.open.len(),
-        "caution": crate::CAUTION,
-    }))
+) -> Result<AlertDocument> {
+    Ok(AlertDocument {
+        plant: config.plant.name.clone(),
+        generated_at: crate::outputs::plant_time(now, config.plant.time_zone),
+        new: finding_lines_of(store, config, &update.new)?,
+        changed: finding_lines_of(store, config, &update.changed)?,
+        open: update.open.len(),
+        caution: crate::CAUTION.to_string(),
+    })
 }

@@ -1,9 +1,7 @@
 //! Number formatting shared by the terminal views of the subcommands, and the JSON numbers of
 //! their `--json` output.
 
-use serde_json::{Map, Value};
-
-use crate::stats::Stat;
+use serde_json::Value;
 
 /// `x` with `digits` significant digits, in plain or exponent notation as fits; `-` when not
 /// finite.
@@ -86,22 +84,17 @@ pub fn bound_tiny_p(value: &mut Value) {
     }
 }
 
-/// A finite number as JSON, or null (callers pair a null with a reason).
-pub fn json_number(x: f64) -> Value {
-    serde_json::Number::from_f64(x).map_or(Value::Null, Value::Number)
+/// A document as pretty JSON text: its `Serialize` form with p-values below the floor written
+/// as bounds ([`bound_tiny_p`]).
+pub fn document_json(doc: &impl serde::Serialize) -> String {
+    let mut v = serde_json::to_value(doc).unwrap_or(Value::Null);
+    bound_tiny_p(&mut v);
+    serde_json::to_string_pretty(&v).unwrap_or_default()
 }
 
-/// Inserts `key: value` or `key: null, key_reason: reason`.
-pub fn put<T>(map: &mut Map<String, Value>, key: &str, stat: &Stat<T>, f: impl Fn(&T) -> Value) {
-    match stat {
-        Ok(v) => {
-            map.insert(key.to_string(), f(v));
-        }
-        Err(e) => {
-            map.insert(key.to_string(), Value::Null);
-            map.insert(format!("{key}_reason"), Value::String(e.reason.clone()));
-        }
-    }
+/// A finite number as JSON, or null (callers pair a null with a reason).
+fn json_number(x: f64) -> Value {
+    serde_json::Number::from_f64(x).map_or(Value::Null, Value::Number)
 }
 
 #[cfg(test)]

@@ -10,8 +10,7 @@ use clap::Args;
 
 use super::check::{cell, leading, share, standout};
 use super::vocab::{self, RunKind};
-use crate::results::TestState;
-use crate::storage::runs;
+use crate::outputs::{group_means_cell, HistoryDocument, HistoryPeriod, Limits};
 use crate::{Error, Result};
 
 /// Flags of `samewise history`.
@@ -57,23 +56,36 @@ pub fn run(args: &HistoryArgs) -> Result<ExitCode> {
     let store = super::common::open_store(&config)?;
     let points = store.history(characteristic, &args.factor, kind, args.last)?;
     if args.json || args.csv.is_some() {
-        let rows: Vec<serde_json::Value> = points.iter().map(|p| point_json(&config, p)).collect();
+        let tz = config.plant.time_zone;
+        let periods = points
+            .iter()
+            .map(|p| {
+                let groups = crate::outputs::stored_groups(
+                    &*store,
+                    p.run.run_id,
+                    characteristic,
+                    &args.factor,
+                )?;
+                Ok(HistoryPeriod::new(p, groups, tz))
+            })
+            .collect::<Result<Vec<_>>>()?;
+        let doc = HistoryDocument {
+            characteristic: characteristic.to_string(),
+            factor: args.factor.clone(),
+            limits: Limits::of(&config, characteristic),
+            period_kind: kind.to_string(),
+            periods,
+            caution: crate::CAUTION.to_string(),
+        };
         if let Some(path) = &args.csv {
-            write_csv(path, &rows)?;
-            println!("{} periods written to {}", rows.len(), path.display());
+            write_csv(path, &doc)?;
+            println!(
+                "{} periods written to {}",
+                doc.periods.len(),
+                path.display()
+            );
         } else {
-            let doc = serde_json::json!({
-                "characteristic": characteristic,
-                "factor": args.factor,
-                "unit": c.unit,
-                "lsl": c.lsl,
-                "usl": c.usl,
-                "target": c.target,
-                "period_kind": kind,
-                "periods": rows,
-                "caution": crate::CAUTION,
-            });
-            println!("{}", serde_json::to_string_pretty(&doc).unwrap_or_default());
+            println!("{}", super::format::document_json(&doc));
         }
         return Ok(ExitCode::from(super::EXIT_OK));
     }
@@ -133,98 +145,23 @@ pub fn run(args: &HistoryArgs) -> Result<ExitCode> {
     Ok(ExitCode::from(super::EXIT_OK))
 }
 
-/// One period of the history as JSON: the period and run, the state and leading test, the
-/// between-group share and the standing-out group; every `null` with a `<name>_reason`.
-fn point_json(config: &crate::config::Config, p: &runs::HistoryPoint) -> serde_json::Value {
-    use serde_json::{json, Map, Value};
-    let tz = config.plant.time_zone;
-    let t = &p.test;
-    let time = |ms: i64| {
-        chrono::DateTime::<chrono::Utc>::from_timestamp_millis(ms)
-            .map_or(Value::Null, |d| json!(d.with_timezone(&tz).to_rfc3339()))
-    };
-    let mut m = Map::new();
-    m.insert("period".into(), json!(p.run.header.period_label));
-    m.insert("start".into(), time(p.run.header.period_start_ms));
-    m.insert("end".into(), time(p.run.header.period_end_ms));
-    m.insert("run_id".into(), json!(p.run.run_id));
-    m.insert("version".into(), json!(p.run.version));
-    m.insert("revised".into(), json!(p.complete_versions > 1));
-    m.insert("state".into(), json!(t.state));
-    m.insert("n_obs".into(), json!(t.n_obs));
-    m.insert("n_groups".into(), json!(t.n_groups_used));
-    let why = if t.state == TestState::TooFewToCompare || t.state == TestState::TooLittleData {
-        format!("{}: no test was run", t.state.label())
-    } else {
-        "not available for this test (see notes)".to_string()
-    };
-    let mut num = |key: &str, v: Option<f64>| {
-        m.insert(
-            key.into(),
-            v.filter(|x| x.is_finite())
-                .map_or(Value::Null, |x| json!(x)),
-        );
-        if v.is_none() {
-            m.insert(format!("{key}_reason"), json!(why));
-        }
-    };
-    num("statistic", t.leading.statistic);
-    num("p", t.leading.p);
-    num("q", t.q_value);
-    num("share_between", t.variance_components.share_between);
-    num("within_sd", t.anova.resid_sd);
-    m.insert(
-        "design".into(),
-        json!(t
-            .design
-            .kind
-            .unwrap_or(crate::results::DesignKind::Independent)),
-    );
-    m.insert("n_subgroups".into(), json!(t.design.n_subgroups));
-    if t.design.n_subgroups.is_none() {
-        m.insert(
-            "n_subgroups_reason".into(),
-            json!("no subgroups: the values were tested as independent"),
-        );
-    }
-    m.insert("leading_method".into(), json!(t.leading.method));
-    if t.leading.method.is_none() {
-        m.insert("leading_method_reason".into(), json!(why));
-    }
-    match &t.stands_out.level {
-        Some(level) => {
-            m.insert(
-                "stands_out".into(),
-                json!({"level": level, "diff": t.stands_out.diff, "sd_units": t.stands_out.sd_units,
-                       "pct_tolerance": t.stands_out.pct_tolerance}),
-            );
-        }
-        None => {
-            m.insert("stands_out".into(), Value::Null);
-            m.insert("stands_out_reason".into(), json!(why));
-        }
-    }
-    m.insert("notes".into(), json!(t.notes));
-    Value::Object(m)
-}
-
-fn write_csv(path: &std::path::Path, rows: &[serde_json::Value]) -> Result<()> {
-    let mut out = crate::output::AtomicFile::create(path)?;
-    let cell = |v: &serde_json::Value| match v {
-        serde_json::Value::Null => String::new(),
-        serde_json::Value::String(s) if s.contains([',', '"', '\n', '\r']) => {
-            format!("\"{}\"", s.replace('"', "\"\""))
-        }
-        serde_json::Value::String(s) => s.clone(),
-        other => other.to_string(),
-    };
-    let columns = [
+/// One row per period: the period and run, the characteristic's unit and limits, the result
+/// and the group means in units (`level=mean;...`); an unavailable value is an empty cell.
+fn write_csv(path: &std::path::Path, doc: &HistoryDocument) -> Result<()> {
+    let header = [
+        "period_kind",
         "period",
         "start",
         "end",
         "run_id",
         "version",
         "revised",
+        "characteristic",
+        "factor",
+        "unit",
+        "lsl",
+        "usl",
+        "target",
         "state",
         "n_obs",
         "n_groups",
@@ -236,20 +173,50 @@ fn write_csv(path: &std::path::Path, rows: &[serde_json::Value]) -> Result<()> {
         "q",
         "share_between",
         "within_sd",
+        "stands_out_level",
+        "stands_out_diff",
+        "stands_out_sd_units",
+        "stands_out_pct_tolerance",
+        "group_means",
+        "notes",
     ];
-    let mut text = format!(
-        "{},stands_out_level,stands_out_diff,stands_out_sd_units,stands_out_pct_tolerance\n",
-        columns.join(",")
-    );
-    for r in rows {
-        let mut line: Vec<String> = columns.iter().map(|c| cell(&r[*c])).collect();
-        for k in ["level", "diff", "sd_units", "pct_tolerance"] {
-            line.push(cell(&r["stands_out"][k]));
-        }
-        text.push_str(&line.join(","));
-        text.push('\n');
-    }
-    out.write_all(text.as_bytes())
-        .map_err(|e| Error::io(path, e))?;
-    out.commit()
+    let f = crate::output::csv_number;
+    let l = &doc.limits;
+    let rows = doc.periods.iter().map(|p| {
+        let s = p.stands_out.as_ref();
+        [
+            doc.period_kind.clone(),
+            p.period.clone(),
+            p.start.clone().unwrap_or_default(),
+            p.end.clone().unwrap_or_default(),
+            p.run_id.to_string(),
+            p.version.to_string(),
+            p.revised.to_string(),
+            doc.characteristic.clone(),
+            doc.factor.clone(),
+            l.unit.clone(),
+            f(l.lsl),
+            f(l.usl),
+            f(l.target),
+            p.state.as_str().to_string(),
+            p.n_obs.to_string(),
+            p.n_groups.to_string(),
+            p.design.as_str().to_string(),
+            p.n_subgroups.map_or(String::new(), |n| n.to_string()),
+            p.leading_method
+                .map_or(String::new(), |m| m.as_str().to_string()),
+            f(p.statistic),
+            f(p.p),
+            f(p.q),
+            f(p.share_between),
+            f(p.within_sd),
+            s.map_or(String::new(), |s| s.level.clone()),
+            f(s.and_then(|s| s.diff)),
+            f(s.and_then(|s| s.sd_units)),
+            f(s.and_then(|s| s.pct_tolerance)),
+            group_means_cell(&p.groups),
+            p.notes.clone(),
+        ]
+    });
+    crate::output::write_csv(path, &header, rows)
 }

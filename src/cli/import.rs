@@ -170,51 +170,11 @@ fn list(config: &crate::config::Config, json: bool) -> Result<ExitCode> {
     let tz = config.plant.time_zone;
     let local = |t: chrono::DateTime<chrono::Utc>| t.with_timezone(&tz);
     if json {
-        let rows: Vec<serde_json::Value> = records
+        let rows: Vec<crate::outputs::ImportLine> = records
             .iter()
-            .map(|r| {
-                let mut v = serde_json::json!({
-                    "id": r.id,
-                    "file_name": r.file_name,
-                    "path": r.path,
-                    "sha256": r.sha256,
-                    "layout": r.layout,
-                    "started_at": local(r.started_at).to_rfc3339(),
-                    "finished_at": local(r.finished_at).to_rfc3339(),
-                    "measurements_read": r.measurements_read,
-                    "stored": r.stored,
-                    "duplicates": r.duplicates,
-                    "rejected": r.rejected,
-                    "rejected_not_kept": r.rejected_not_kept,
-                    "forced": r.forced,
-                    "first_measurement": r.first_measurement.map(|t| local(t).to_rfc3339()),
-                    "last_measurement": r.last_measurement.map(|t| local(t).to_rfc3339()),
-                    "undoes": r.undoes,
-                    "undone_by": r.undone_by,
-                });
-                let map = v.as_object_mut().expect("an object");
-                if r.first_measurement.is_none() {
-                    let reason = if r.undoes.is_some() {
-                        "an undo stores nothing; see the undone import"
-                    } else {
-                        "the import stored no measurement"
-                    };
-                    map.insert("first_measurement_reason".into(), reason.into());
-                    map.insert("last_measurement_reason".into(), reason.into());
-                }
-                if r.undoes.is_none() {
-                    map.insert("undoes_reason".into(), "an import, not an undo".into());
-                }
-                if r.undone_by.is_none() {
-                    map.insert("undone_by_reason".into(), "not undone".into());
-                }
-                v
-            })
+            .map(|r| crate::outputs::ImportLine::new(r, tz))
             .collect();
-        println!(
-            "{}",
-            serde_json::to_string_pretty(&rows).unwrap_or_default()
-        );
+        println!("{}", super::format::document_json(&rows));
         return Ok(ExitCode::from(super::EXIT_OK));
     }
     if records.is_empty() {

@@ -13,22 +13,23 @@ use std::path::PathBuf;
 use std::process::ExitCode;
 
 use chrono::{DateTime, Utc};
-use serde_json::{json, Map, Value};
+use serde_json::Value;
 
 use crate::analysis::investigate::{
     format_ms, investigate, CompareOptions, Comparison, GroupChange, GroupScan, Outcome, Request,
     Target,
 };
 use crate::config::parse_duration;
+use crate::outputs::investigate::{BeforeAfterDocument, InvestigateHead, Near, ScanDocument};
 use crate::stats::changepoint::ScanOptions;
 use crate::{Error, Result};
 
 use super::common::{load_config, open_store};
 use super::vocab;
 use super::when::{self, When};
-use crate::stats::twoway::{Table, TermRow, TwoWay};
+use crate::stats::twoway::TermRow;
 use crate::stats::variance_components::VarianceComponents;
-use crate::stats::{Stat, TestResult};
+use crate::stats::Stat;
 
 /// Flags of `samewise investigate`.
 #[derive(Debug, clap::Args)]
@@ -141,9 +142,7 @@ pub fn run(args: &InvestigateArgs, now: DateTime<Utc>) -> Result<ExitCode> {
     let text = match &found.outcome {
         Outcome::BeforeAfter(c) => {
             if args.json {
-                let mut v = compare_json(&ctx, c);
-                super::format::bound_tiny_p(&mut v);
-                serde_json::to_string_pretty(&v).unwrap_or_default()
+                super::format::document_json(&compare_json(&ctx, c))
             } else {
                 render_compare(&ctx, c)
             }
@@ -166,9 +165,7 @@ pub fn run(args: &InvestigateArgs, now: DateTime<Utc>) -> Result<ExitCode> {
                 })
                 .collect();
             if args.json {
-                let mut v = scan_json(&ctx, scans, &near);
-                super::format::bound_tiny_p(&mut v);
-                serde_json::to_string_pretty(&v).unwrap_or_default()
+                super::format::document_json(&scan_json(&ctx, scans, &near))
             } else {
                 render_scan(&ctx, scans, &near)
             }
@@ -219,12 +216,18 @@ impl Context {
         }
     }
 
-    /// An instant for JSON: RFC 3339 with the plant's offset.
-    pub fn rfc3339(&self, ms: i64) -> String {
-        match chrono::TimeZone::timestamp_millis_opt(&Utc, ms).single() {
-            Some(t) => t.with_timezone(&self.tz).to_rfc3339(),
-            None => format_ms(ms),
-        }
+    /// The part of the JSON document both modes share.
+    pub fn head(&self) -> InvestigateHead {
+        InvestigateHead::new(
+            self.characteristic.clone(),
+            self.unit.clone(),
+            self.factor.clone(),
+            (self.window_start_ms, self.window_end_ms),
+            self.event.clone(),
+            self.units.clone(),
+            self.origin,
+            self.tz,
+        )
     }
 }
 
@@ -242,172 +245,15 @@ pub struct NearEvent {
 // ---------------------------------------------------------------------------------------------
 // Number formatting
 
-use super::format::{json_number, put, pval, sig};
+use super::format::{pval, sig};
 
 // ---------------------------------------------------------------------------------------------
 // Before/after: JSON
 
-fn group_json(g: &GroupChange, origin: f64) -> Value {
-    let mut m = Map::new();
-    m.insert("name".into(), json!(g.group));
-    m.insert("n_before".into(), json!(g.before.n));
-    m.insert("n_after".into(), json!(g.after.n));
-    m.insert("mean_before".into(), json_number(origin + g.before.mean));
-    m.insert("mean_after".into(), json_number(origin + g.after.mean));
-    m.insert(
-        "sd_before".into(),
-        g.before.sd().map_or(Value::Null, json_number),
-    );
-    m.insert(
-        "sd_after".into(),
-        g.after.sd().map_or(Value::Null, json_number),
-    );
-    put(&mut m, "mean_shift", &g.mean_shift, |s| {
-        json!({"shift": json_number(s.shift), "se": json_number(s.se), "df": json_number(s.df), "t": json_number(s.t), "p": json_number(s.p),
-               "ci": {"low": json_number(s.ci_low), "high": json_number(s.ci_high)}, "confidence": json_number(s.confidence),
-               "method": "Welch two-sample t"})
-    });
-    if let Some(Value::Object(shift)) = m.get_mut("mean_shift") {
-        let mut optional = |key: &str, v: Option<f64>, reason: &str| {
-            shift.insert(key.into(), v.map_or(Value::Null, json_number));
-            if v.is_none() {
-                shift.insert(format!("{key}_reason"), json!(reason));
-            }
-        };
-        optional(
-            "p_adjusted",
-            g.p_adjusted,
-            "the pooled line is one question of its own (no adjustment across groups)",
-        );
-        optional(
-            "shift_sd",
-            g.shift_sd,
-            "the group's values do not vary (no within-group SD)",
-        );
-        optional(
-            "shift_pct_tolerance",
-            g.shift_pct_tolerance,
-            "no tolerance: configure both limits, or a target and a single limit",
-        );
-        if g.p_adjusted.is_some() {
-            shift.insert(
-                "p_adjusted_method".into(),
-                json!("Benjamini-Hochberg across the compared groups"),
-            );
-        }
-    }
-    put(&mut m, "sd_ratio", &g.sd_ratio, |r| {
-        json!({"ratio": json_number(r.ratio), "ci": {"low": json_number(r.ci_low), "high": json_number(r.ci_high)}, "f": json_number(r.f),
-               "df1": json_number(r.df1), "df2": json_number(r.df2), "p": json_number(r.p), "confidence": json_number(r.confidence),
-               "method": "F interval for the variance ratio (after / before)"})
-    });
-    put(&mut m, "brown_forsythe", &g.brown_forsythe, |t| {
-        json!({"statistic": json_number(t.statistic), "df1": t.df1.map_or(Value::Null, json_number),
-               "df2": t.df2.map_or(Value::Null, json_number), "p": json_number(t.p)})
-    });
-    Value::Object(m)
-}
-
-fn share_json(v: &VarianceComponents) -> Value {
-    json!({"share_between": json_number(v.share_between), "between": json_number(v.between), "within": json_number(v.within),
-           "is_truncated": v.is_truncated, "icc_ci": v.icc_ci.as_ref().ok().map(|i| json!({"low": json_number(i.low), "high": json_number(i.high)})),
-           "method": v.method})
-}
-
-fn term_json(row: &Stat<TermRow>) -> Value {
-    let mut m = Map::new();
-    match row {
-        Ok(r) => {
-            m.insert("ss".into(), json_number(r.ss));
-            m.insert("df".into(), json!(r.df));
-            m.insert("ms".into(), json_number(r.ms));
-            put(&mut m, "test", &r.test, |t: &TestResult| {
-                json!({"f": json_number(t.statistic), "p": json_number(t.p), "df1": t.df1.map_or(Value::Null, json_number),
-                       "df2": t.df2.map_or(Value::Null, json_number)})
-            });
-        }
-        Err(e) => {
-            m.insert("ss".into(), Value::Null);
-            m.insert("reason".into(), json!(e.reason));
-        }
-    }
-    Value::Object(m)
-}
-
-fn table_json(t: &Table) -> Value {
-    json!({"ss_type": t.ss_type.label(), "group": term_json(&t.a), "before_after": term_json(&t.b),
-           "interaction": term_json(&t.interaction)})
-}
-
-fn two_way_json(t: &TwoWay) -> Value {
-    let mut m = Map::new();
-    m.insert("leading".into(), json!(t.leading.label()));
-    m.insert("leading_reason".into(), json!(t.leading_reason));
-    m.insert("is_balanced".into(), json!(t.is_balanced));
-    m.insert("n_obs".into(), json!(t.n_obs));
-    m.insert("type2".into(), table_json(&t.type2));
-    put(&mut m, "type3", &t.type3, table_json);
-    m.insert(
-        "residual".into(),
-        json!({"ss": json_number(t.residual.ss), "df": t.residual.df, "ms": t.residual.ms.map_or(Value::Null, json_number)}),
-    );
-    m.insert("notes".into(), json!(t.notes));
-    Value::Object(m)
-}
-
-fn context_json(ctx: &Context, root: &mut Map<String, Value>) {
-    root.insert("characteristic".into(), json!(ctx.characteristic));
-    root.insert("unit".into(), json!(ctx.unit));
-    root.insert("factor".into(), json!(ctx.factor));
-    root.insert(
-        "window".into(),
-        json!({"start": ctx.rfc3339(ctx.window_start_ms), "end": ctx.rfc3339(ctx.window_end_ms),
-               "start_ms": ctx.window_start_ms, "end_ms": ctx.window_end_ms}),
-    );
-    root.insert(
-        "event".into(),
-        ctx.event
-            .as_ref()
-            .map_or(Value::Null, |(id, note)| json!({"id": id, "note": note})),
-    );
-    root.insert(
-        "units".into(),
-        json!(ctx
-            .units
-            .as_deref()
-            .unwrap_or("values (no subgroups stored)")),
-    );
-}
-
-/// The JSON object of `investigate --json` with a change time.
+/// The JSON object of `investigate --json` with a change time
+/// ([`crate::outputs::investigate::BeforeAfterDocument`]).
 pub fn compare_json(ctx: &Context, c: &Comparison) -> Value {
-    let mut root = Map::new();
-    root.insert("mode".into(), json!("before_after"));
-    context_json(ctx, &mut root);
-    root.insert(
-        "change".into(),
-        json!({"at": ctx.rfc3339(c.change_ms), "at_ms": c.change_ms}),
-    );
-    root.insert(
-        "groups".into(),
-        Value::Array(c.groups.iter().map(|g| group_json(g, ctx.origin)).collect()),
-    );
-    root.insert("pooled".into(), group_json(&c.pooled, ctx.origin));
-    root.insert(
-        "left_out".into(),
-        Value::Array(
-            c.left_out
-                .iter()
-                .map(|l| json!({"name": l.group, "n_before": l.n_before, "n_after": l.n_after}))
-                .collect(),
-        ),
-    );
-    put(&mut root, "share_before", &c.share_before, share_json);
-    put(&mut root, "share_after", &c.share_after, share_json);
-    put(&mut root, "two_way", &c.two_way, two_way_json);
-    root.insert("notes".into(), json!(c.notes));
-    root.insert("caution".into(), json!(crate::CAUTION));
-    Value::Object(root)
+    serde_json::to_value(BeforeAfterDocument::new(ctx.head(), c)).unwrap_or(Value::Null)
 }
 
 // ---------------------------------------------------------------------------------------------
@@ -598,57 +444,18 @@ pub fn render_compare(ctx: &Context, c: &Comparison) -> String {
 // ---------------------------------------------------------------------------------------------
 // Scan
 
-/// The JSON object of `investigate --json` without a change time (the scan).
+/// The JSON object of `investigate --json` without a change time (the scan,
+/// [`crate::outputs::investigate::ScanDocument`]).
 pub fn scan_json(ctx: &Context, scans: &[GroupScan], nearest: &[Vec<Vec<NearEvent>>]) -> Value {
-    let mut root = Map::new();
-    root.insert("mode".into(), json!("scan"));
-    context_json(ctx, &mut root);
-    root.insert("method".into(), json!(crate::stats::changepoint::METHOD));
-    let groups: Vec<Value> = scans
+    let near: Vec<Vec<Vec<Near>>> = nearest
         .iter()
-        .enumerate()
-        .map(|(gi, g)| {
-            let mut m = Map::new();
-            m.insert("name".into(), json!(g.group));
-            m.insert("n".into(), json!(g.n));
-            put(&mut m, "change_points", &g.scan, |s| {
-                Value::Array(
-                    s.change_points
-                        .iter()
-                        .enumerate()
-                        .map(|(ci, c)| {
-                            let near = nearest
-                                .get(gi)
-                                .and_then(|v| v.get(ci))
-                                .map(|v| {
-                                    v.iter()
-                                        .map(|e| json!({"id": e.id, "at": ctx.rfc3339(e.at_ms), "note": e.note}))
-                                        .collect::<Vec<_>>()
-                                })
-                                .unwrap_or_default();
-                            json!({
-                                "at": ctx.rfc3339(g.change_ms[ci]), "at_ms": g.change_ms[ci],
-                                "at_range": {"low": ctx.rfc3339(g.change_range_ms[ci].0), "high": ctx.rfc3339(g.change_range_ms[ci].1)},
-                                "index": c.index, "shift": json_number(c.shift), "se": json_number(c.se),
-                                "shift_ci": {"low": json_number(c.shift_low), "high": json_number(c.shift_high)},
-                                "mean_before": json_number(ctx.origin + c.before.mean), "mean_after": json_number(ctx.origin + c.after.mean),
-                                "n_before": c.before.n, "n_after": c.after.n,
-                                "p": json_number(c.p), "share_explained": json_number(c.share_explained),
-                                "nearest_events": near,
-                            })
-                        })
-                        .collect(),
-                )
-            });
-            if let Ok(s) = &g.scan {
-                m.insert("notes".into(), json!(s.notes));
-            }
-            Value::Object(m)
+        .map(|g| {
+            g.iter()
+                .map(|cp| cp.iter().map(|e| (e.id, e.at_ms, e.note.clone())).collect())
+                .collect()
         })
         .collect();
-    root.insert("groups".into(), Value::Array(groups));
-    root.insert("caution".into(), json!(crate::CAUTION));
-    Value::Object(root)
+    serde_json::to_value(ScanDocument::new(ctx.head(), scans, &near)).unwrap_or(Value::Null)
 }
 
 /// The terminal view of the change-point scan.

@@ -110,7 +110,11 @@ pub fn run(args: &ScheduleArgs) -> Result<ExitCode> {
             .with_timezone(&tz)
             .to_rfc3339_opts(chrono::SecondsFormat::Secs, false);
         if json {
-            println!("{}", serde_json::json!({"time": time, "message": line}));
+            let line = crate::outputs::ScheduleLine::Log(crate::outputs::LogLine {
+                time,
+                message: line.to_string(),
+            });
+            println!("{}", serde_json::to_string(&line).unwrap_or_default());
         } else {
             eprintln!("{time} {line}")
         }
@@ -190,26 +194,18 @@ pub fn run(args: &ScheduleArgs) -> Result<ExitCode> {
         "{done} period(s) run, {flagged_runs} with a flag, {failed} failed"
     ));
     if args.json {
-        let periods: Vec<serde_json::Value> = entries
-            .iter()
-            .map(|e| {
-                let (outcome, run_id, flagged, error) = match &e.outcome {
-                    PeriodOutcome::Completed(id, n) => ("completed", Some(*id), Some(*n), None),
-                    PeriodOutcome::Failed(id, why) => {
-                        ("failed", Some(*id), None, Some(why.clone()))
-                    }
-                    PeriodOutcome::AlreadyDone => ("already_done", None, None, None),
-                    PeriodOutcome::Leased => ("held_by_another_scheduler", None, None, None),
-                };
-                serde_json::json!({"schedule": e.schedule, "period": e.period, "outcome": outcome,
-                                   "run_id": run_id, "tests_flagged": flagged, "error": error})
-            })
-            .collect();
-        println!(
-            "{}",
-            serde_json::json!({"summary": {"periods_run": done, "with_flag": flagged_runs,
-                                           "failed": failed, "periods": periods}})
-        );
+        let line = crate::outputs::ScheduleLine::Summary(crate::outputs::SummaryLine {
+            summary: crate::outputs::PassSummary {
+                periods_run: done,
+                with_flag: flagged_runs,
+                failed,
+                periods: entries
+                    .iter()
+                    .map(crate::outputs::PassPeriod::new)
+                    .collect(),
+            },
+        });
+        println!("{}", serde_json::to_string(&line).unwrap_or_default());
     }
     // A failure outranks a flag: the timer must hear about the run that did not happen.
     Ok(ExitCode::from(if failed > 0 {

@@ -141,77 +141,18 @@ pub fn stale_summary(stale: &[(String, String, String)]) -> String {
     format!("{} in all: {}", stale.len(), parts.join(", "))
 }
 
-/// `samewise status --json`.
+/// `samewise status --json`: [`crate::outputs::StatusDocument`].
 fn print_json(
     store: &dyn crate::storage::PlantStore,
     config: &crate::config::Config,
     status: &crate::storage::Status,
 ) -> Result<ExitCode> {
-    use serde_json::{json, Value};
-    let tz = config.plant.time_zone;
-    let time = |t: Option<chrono::DateTime<chrono::Utc>>| {
-        t.map_or(Value::Null, |t| json!(t.with_timezone(&tz).to_rfc3339()))
-    };
-    let characteristics: Vec<Value> = status
-        .characteristics
-        .iter()
-        .map(|c| {
-            let mut v = json!({
-                "name": c.name,
-                "measurements": c.n_obs,
-                "first": time(c.first),
-                "last": time(c.last),
-                "configured": c.is_configured,
-                "active": c.is_active,
-            });
-            if c.first.is_none() {
-                v["first_reason"] = json!("no measurement stored");
-                v["last_reason"] = json!("no measurement stored");
-            }
-            v
-        })
-        .collect();
-    let last_import = status.last_import.as_ref().map(|p| {
-        json!({"id": p.id, "file_name": p.file_name, "started_at": p.started_at.with_timezone(&tz).to_rfc3339(), "measurements": p.accepted})
-    });
-    let stale: Vec<Value> = status
-        .stale_periods
-        .iter()
-        .map(|(schedule, kind, label)| json!({"schedule": schedule, "period_kind": kind, "period": label}))
-        .collect();
-    let alert = store.last_alert()?.map(|a| {
-        json!({"started_at": a.started.with_timezone(&tz).to_rfc3339(), "command": a.command, "findings": a.n_findings,
-               "exit_code": a.exit_code, "error": a.error})
-    });
     let open = store
         .findings(None)?
         .into_iter()
         .filter(|f| f.status == crate::model::FindingStatus::Open)
         .count();
-    let mut doc = json!({
-        "database": crate::storage::describe(&config),
-        "schema_version": status.schema_version,
-        "time_zone": tz.name(),
-        "characteristics": characteristics,
-        "measurements": status.characteristics.iter().map(|c| c.n_obs).sum::<u64>(),
-        "imports": status.n_imports,
-        "last_import": last_import,
-        "rejected_rows": status.n_rejected,
-        "events": status.n_events,
-        "open_findings": open,
-        "last_alert": alert,
-        "stale_periods": stale,
-    });
-    if doc["last_import"].is_null() {
-        doc["last_import_reason"] = json!("nothing imported yet");
-    }
-    if doc["last_alert"].is_null() {
-        doc["last_alert_reason"] = json!(if config.alert.is_some() {
-            "the alert command has not run yet"
-        } else {
-            "no [alert] configured"
-        });
-    }
-    println!("{}", serde_json::to_string_pretty(&doc).unwrap_or_default());
+    let doc = crate::outputs::StatusDocument::new(config, status, store.last_alert()?, open);
+    println!("{}", super::format::document_json(&doc));
     Ok(ExitCode::from(super::EXIT_OK))
 }

@@ -85,6 +85,25 @@ pub struct BlockedPair {
     pub ci_high: f64,
 }
 
+impl From<&BlockedPair> for super::posthoc::Pair {
+    /// The pair in the shape of the one-way pairs, its method Tukey-Kramer on the adjusted
+    /// (least-squares) means.
+    fn from(p: &BlockedPair) -> Self {
+        super::posthoc::Pair {
+            a: p.a,
+            b: p.b,
+            diff: p.diff,
+            se: p.se,
+            statistic: p.statistic,
+            df: p.df,
+            p_adj: p.p_adj,
+            ci_low: p.ci_low,
+            ci_high: p.ci_high,
+            method: super::posthoc::PairMethod::TukeyKramerAdjusted,
+        }
+    }
+}
+
 /// Method name for the pairs.
 pub const PAIRS_METHOD: &str = "Tukey-Kramer on least-squares means (intrablock analysis)";
 
