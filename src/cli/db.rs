@@ -43,7 +43,10 @@ pub fn run(args: &DbArgs) -> Result<ExitCode> {
         DbAction::Check { json } => {
             let report = store.integrity_check()?;
             if *json {
-                let doc = crate::outputs::DbCheckDocument::new(crate::storage::describe(&config), &report);
+                let doc = crate::outputs::DbCheckDocument::new(
+                    crate::storage::describe(&config),
+                    &report,
+                );
                 println!("{}", super::format::document_json(&doc));
                 return if report.is_ok() {
                     Ok(ExitCode::from(super::EXIT_OK))

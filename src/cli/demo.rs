@@ -43,6 +43,31 @@ pub struct DemoArgs {
     /// No progress bars (for logs and tests).
     #[arg(long)]
     pub quiet: bool,
+    /// Keep the demo plant on this PostgreSQL server instead of an SQLite file
+    /// (postgresql://user@host:port/dbname): in the schemas `demo` and `demo_no_subgroups`,
+    /// which are made afresh.
+    #[arg(long, value_name = "URL")]
+    pub database: Option<String>,
+}
+
+/// The sample configuration with its database: the SQLite file `file`, or the server `url` in
+/// the schema (site) `site`.
+fn sample_config(url: Option<&str>, file: &str, site: &str, keep_subgroups: bool) -> String {
+    SAMPLE_CONFIG
+        .lines()
+        .filter(|l| keep_subgroups || !l.starts_with("subgroup ="))
+        .map(|l| {
+            if l.starts_with("database =") {
+                match url {
+                    Some(url) => format!("database = \"{url}\"\nsite = \"{site}\""),
+                    None => format!("database = \"{file}\""),
+                }
+            } else {
+                l.to_string()
+            }
+        })
+        .collect::<Vec<_>>()
+        .join("\n")
 }
 
 /// What the import step did, summed over the exports.
@@ -80,19 +105,17 @@ fn bar(len: u64, quiet: bool, what: &str) -> ProgressBar {
 pub fn prepare(
     dir: &Path,
     quiet: bool,
+    server: Option<&str>,
 ) -> Result<(Config, BoxedStore, Vec<PathBuf>, ImportTotals)> {
     fs::create_dir_all(dir).map_err(|e| Error::io(dir, e))?;
     let config_path = dir.join("plant.toml");
-    fs::write(&config_path, SAMPLE_CONFIG).map_err(|e| Error::io(&config_path, e))?;
+    let text = match server {
+        None => SAMPLE_CONFIG.to_string(),
+        Some(url) => sample_config(Some(url), "plant.db", "demo", true),
+    };
+    fs::write(&config_path, text).map_err(|e| Error::io(&config_path, e))?;
     let config = Config::load(&config_path)?;
-    for suffix in ["", "-wal", "-shm"] {
-        let mut name = config.plant.database.clone().into_os_string();
-        name.push(suffix);
-        let path = PathBuf::from(name);
-        if path.exists() {
-            fs::remove_file(&path).map_err(|e| Error::io(&path, e))?;
-        }
-    }
+    crate::storage::discard(&config)?;
     let exports_dir = dir.join("exports");
     let exports = sample::write_exports(&exports_dir).map_err(|e| Error::io(&exports_dir, e))?;
     let mut store = crate::storage::create(&config)?;
@@ -265,7 +288,8 @@ pub fn run(args: &DemoArgs) -> Result<ExitCode> {
          suppliers, 90 days) in {}",
         args.dir.display()
     );
-    let (config, mut store, exports, totals) = prepare(&args.dir, args.quiet)?;
+    let (config, mut store, exports, totals) =
+        prepare(&args.dir, args.quiet, args.database.as_deref())?;
     println!(
         "\n1. Imported {} exports: {} measurements read, {} stored, {} duplicate, {} rejected (stored + duplicate + rejected = read)",
         totals.files, totals.measurements_read, totals.accepted, totals.duplicates, totals.rejected
@@ -275,7 +299,7 @@ pub fn run(args: &DemoArgs) -> Result<ExitCode> {
     }
     println!(
         "   database: {}; exports: {}",
-        config.plant.database.display(),
+        crate::storage::describe(&config),
         exports
             .first()
             .and_then(|p| p.parent())
@@ -434,7 +458,7 @@ pub fn run(args: &DemoArgs) -> Result<ExitCode> {
     for s in &skipped {
         println!("   chart not drawn: {s}");
     }
-    let without = without_subgroups(&args.dir, &exports, &*store)?;
+    let without = without_subgroups(&args.dir, args.database.as_deref(), &exports, &*store)?;
     println!(
         "\n7. The same exports read as if they had no shot columns (plant-no-subgroups.toml, the last {} days): \
          the values look independent to the check, but the dependence check finds neighbouring parts alike in {} of {} tests; \
@@ -480,32 +504,16 @@ struct WithoutSubgroups {
 /// daily runs of the same days.
 fn without_subgroups(
     dir: &Path,
+    server: Option<&str>,
     exports: &[PathBuf],
     store: &dyn PlantStore,
 ) -> Result<WithoutSubgroups> {
-    let text: String = SAMPLE_CONFIG
-        .lines()
-        .filter(|l| !l.starts_with("subgroup ="))
-        .map(|l| {
-            if l.starts_with("database =") {
-                "database = \"plant-no-subgroups.db\"".to_string()
-            } else {
-                l.to_string()
-            }
-        })
-        .collect::<Vec<_>>()
-        .join("\n");
+    let url = server;
+    let text = sample_config(url, "plant-no-subgroups.db", "demo_no_subgroups", false);
     let path = dir.join("plant-no-subgroups.toml");
     fs::write(&path, text).map_err(|e| Error::io(&path, e))?;
     let bare = Config::load(&path)?;
-    for suffix in ["", "-wal", "-shm"] {
-        let mut name = bare.plant.database.clone().into_os_string();
-        name.push(suffix);
-        let p = PathBuf::from(name);
-        if p.exists() {
-            fs::remove_file(&p).map_err(|e| Error::io(&p, e))?;
-        }
-    }
+    crate::storage::discard(&bare)?;
     let mut bare_store = crate::storage::create(&bare)?;
     for export in exports {
         let stream = ingest::read_file(export, &bare, None)?;

@@ -116,6 +116,24 @@ pub fn create(config: &Config) -> Result<Box<dyn PlantStore>> {
     Ok(store)
 }
 
+/// Removes the plant database of `config` so that it can be created afresh (the demo does
+/// this): the SQLite file with its `-wal` and `-shm`, or the site's schema on the server. A
+/// schema that holds tables samewise did not make is refused untouched.
+pub fn discard(config: &Config) -> Result<()> {
+    if let Some(server) = &config.plant.server {
+        return PgStore::drop_site(server);
+    }
+    for suffix in ["", "-wal", "-shm"] {
+        let mut name = config.plant.database.clone().into_os_string();
+        name.push(suffix);
+        let path = PathBuf::from(name);
+        if path.exists() {
+            std::fs::remove_file(&path).map_err(|e| Error::io(&path, e))?;
+        }
+    }
+    Ok(())
+}
+
 /// Where the plant database of `config` is, for messages: the file, or the server (password
 /// hidden) and schema.
 pub fn describe(config: &Config) -> String {

@@ -56,6 +56,50 @@ pub fn schema_version_of(client: &mut Client, schema: &str) -> Result<Option<u32
     Ok(Some(v.unwrap_or(0) as u32))
 }
 
+/// What a schema holds, before anything is written to it.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum SchemaKind {
+    /// No such schema.
+    Missing,
+    /// A schema without tables.
+    Empty,
+    /// samewise's (its version table is there).
+    Samewise,
+    /// Another program's: this many tables, none of them samewise's version table.
+    Foreign(i64),
+}
+
+/// What `schema` holds.
+pub fn schema_kind(tx: &mut impl postgres::GenericClient, schema: &str) -> Result<SchemaKind> {
+    let exists: bool = tx
+        .query_one(
+            "SELECT EXISTS (SELECT 1 FROM information_schema.schemata WHERE schema_name = $1)",
+            &[&schema],
+        )?
+        .get(0);
+    if !exists {
+        return Ok(SchemaKind::Missing);
+    }
+    let tables: i64 = tx
+        .query_one(
+            "SELECT COUNT(*) FROM information_schema.tables WHERE table_schema = $1",
+            &[&schema],
+        )?
+        .get(0);
+    let ours: bool = tx
+        .query_one(
+            "SELECT EXISTS (SELECT 1 FROM information_schema.tables \
+             WHERE table_schema = $1 AND table_name = 'samewise_schema')",
+            &[&schema],
+        )?
+        .get(0);
+    Ok(match (tables, ours) {
+        (_, true) => SchemaKind::Samewise,
+        (0, false) => SchemaKind::Empty,
+        (n, false) => SchemaKind::Foreign(n),
+    })
+}
+
 /// Creates `schema` if needed, sets the session's search path to it and applies the pending
 /// migrations, each in its own transaction with the version recorded in it.
 pub fn migrate(client: &mut Client, schema: &str) -> Result<()> {
@@ -65,34 +109,15 @@ pub fn migrate(client: &mut Client, schema: &str) -> Result<()> {
         "SELECT pg_advisory_xact_lock(hashtext('samewise schema ' || $1))",
         &[&schema],
     )?;
-    let exists: bool = tx
-        .query_one(
-            "SELECT EXISTS (SELECT 1 FROM information_schema.schemata WHERE schema_name = $1)",
-            &[&schema],
-        )?
-        .get(0);
-    if exists {
-        let tables: i64 = tx
-            .query_one(
-                "SELECT COUNT(*) FROM information_schema.tables WHERE table_schema = $1",
-                &[&schema],
-            )?
-            .get(0);
-        let ours: bool = tx
-            .query_one(
-                "SELECT EXISTS (SELECT 1 FROM information_schema.tables \
-                 WHERE table_schema = $1 AND table_name = 'samewise_schema')",
-                &[&schema],
-            )?
-            .get(0);
-        if tables > 0 && !ours {
+    match schema_kind(&mut tx, schema)? {
+        SchemaKind::Samewise | SchemaKind::Empty => {}
+        SchemaKind::Foreign(tables) => {
             return Err(Error::Database(format!(
                 "schema {schema} holds {tables} tables that samewise did not make; nothing was \
                  changed: choose another schema ([database] schema, or [plant] site)"
             )));
         }
-    } else {
-        tx.batch_execute(&format!("CREATE SCHEMA {q}"))?;
+        SchemaKind::Missing => tx.batch_execute(&format!("CREATE SCHEMA {q}"))?,
     }
     tx.batch_execute(&format!(
         "SET LOCAL search_path TO {q}; \

@@ -90,6 +90,31 @@ impl PgStore {
         PgStore::open(target)
     }
 
+    /// Drops the site's schema with everything in it, if it exists and is samewise's (for a
+    /// demo made afresh); a schema with tables samewise did not make is refused untouched.
+    pub fn drop_site(target: &ServerDatabase) -> Result<()> {
+        let mut client = connect(target)?;
+        let mut tx = client.transaction()?;
+        let found = migrate::schema_kind(&mut tx, &target.schema)?;
+        match found {
+            migrate::SchemaKind::Missing => {}
+            migrate::SchemaKind::Samewise | migrate::SchemaKind::Empty => {
+                tx.batch_execute(&format!(
+                    "DROP SCHEMA {} CASCADE",
+                    quote_ident(&target.schema)
+                ))?;
+            }
+            migrate::SchemaKind::Foreign(n) => {
+                return Err(Error::Database(format!(
+                    "schema {} holds {n} tables that samewise did not make; nothing was dropped",
+                    target.schema
+                )))
+            }
+        }
+        tx.commit()?;
+        Ok(())
+    }
+
     /// Whether the site's schema exists and holds samewise's tables (`samewise init` creates it
     /// otherwise).
     pub fn exists(target: &ServerDatabase) -> Result<bool> {
