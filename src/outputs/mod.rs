@@ -363,8 +363,7 @@ pub struct StalePeriod {
 /// The document `samewise status --json` prints.
 #[derive(Debug, Clone, PartialEq, Serialize, JsonSchema)]
 pub struct StatusDocument {
-    /// The database: the file as configured, or the PostgreSQL schema and server (password
-    /// hidden).
+    /// The database: the file as configured, or the PostgreSQL schema and server.
     pub database: String,
     /// The database's schema version.
     pub schema_version: u32,
@@ -482,8 +481,7 @@ impl StatusDocument {
 /// The document `samewise db check --json` prints.
 #[derive(Debug, Clone, PartialEq, Serialize, JsonSchema)]
 pub struct DbCheckDocument {
-    /// The database: the file as configured, or the PostgreSQL schema and server (password
-    /// hidden).
+    /// The database: the file as configured, or the PostgreSQL schema and server.
     pub database: String,
     /// True when nothing is wrong (the exit status is 1 otherwise).
     pub sound: bool,
