@@ -1174,10 +1174,13 @@ mod tests {
         assert_eq!(reason_kind("blank line"), "blank line");
         assert_eq!(
             reason_kind(
-                "local time \"25.10.2026 02:46:49\" occurs twice in Europe/Berlin (clocks go back); \
-                 give the offset, e.g. 2026-10-25T02:46:49+02:00 or 2026-10-25T02:46:49+01:00"
+                "local time \"25.10.2026 02:46:49\" occurs twice in Europe/Berlin (the clocks go \
+                 back); write the time with its offset, e.g. one of its two readings \
+                 2026-10-25T02:46:49+02:00 (CEST, the first) and 2026-10-25T02:46:49+01:00 (CET, \
+                 the second)"
             ),
-            "local time \"…\" occurs twice in Europe/Berlin (clocks go back); give the offset"
+            "local time \"…\" occurs twice in Europe/Berlin (the clocks go back); write the \
+             time with its offset"
         );
     }
 }
