@@ -80,15 +80,73 @@ impl From<Fdr> for FdrMethod {
     }
 }
 
-/// The characteristic of a command that takes it as `--characteristic NAME` and, from earlier
-/// versions, as its first argument: whichever was given (clap refuses both).
-pub fn characteristic_arg<'a>(
-    flag: &'a Option<String>,
-    positional: &'a Option<String>,
-) -> Result<&'a str> {
-    flag.as_deref()
-        .or(positional.as_deref())
-        .ok_or_else(|| Error::Usage("say which characteristic: --characteristic NAME".to_string()))
+/// The characteristic of a command that takes it as `--characteristic NAME` or, as in earlier
+/// versions, as its first argument (flattened into the command's flags). clap requires exactly
+/// one of the two (an argument group), so a command holds the name itself, never an absence.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct CharacteristicArg {
+    /// The characteristic's name, from whichever spelling was used.
+    pub name: String,
+}
+
+/// The id of `--characteristic`.
+const CHARACTERISTIC_FLAG: &str = "characteristic";
+/// The id of the characteristic given first, without the flag.
+const CHARACTERISTIC_FIRST: &str = "characteristic_first";
+
+impl clap::Args for CharacteristicArg {
+    fn augment_args(cmd: clap::Command) -> clap::Command {
+        cmd.arg(
+            clap::Arg::new(CHARACTERISTIC_FLAG)
+                .long("characteristic")
+                .value_name("NAME")
+                .help(
+                    "The characteristic (it may also stand first, without the flag, as in \
+                     earlier versions)",
+                ),
+        )
+        .arg(
+            clap::Arg::new(CHARACTERISTIC_FIRST)
+                .value_name("CHARACTERISTIC")
+                .help("The characteristic given first, without --characteristic")
+                .hide(true),
+        )
+        .group(
+            clap::ArgGroup::new("which_characteristic")
+                .required(true)
+                .args([CHARACTERISTIC_FLAG, CHARACTERISTIC_FIRST]),
+        )
+    }
+
+    fn augment_args_for_update(cmd: clap::Command) -> clap::Command {
+        Self::augment_args(cmd)
+    }
+}
+
+impl clap::FromArgMatches for CharacteristicArg {
+    fn from_arg_matches(matches: &clap::ArgMatches) -> std::result::Result<Self, clap::Error> {
+        Self::from_arg_matches_mut(&mut matches.clone())
+    }
+
+    fn from_arg_matches_mut(
+        matches: &mut clap::ArgMatches,
+    ) -> std::result::Result<Self, clap::Error> {
+        // The group above is required: clap has refused the command line before this point
+        // when neither spelling was given, with its own message naming both.
+        let name = matches
+            .remove_one::<String>(CHARACTERISTIC_FLAG)
+            .or_else(|| matches.remove_one::<String>(CHARACTERISTIC_FIRST))
+            .ok_or_else(|| clap::Error::new(clap::error::ErrorKind::MissingRequiredArgument))?;
+        Ok(CharacteristicArg { name })
+    }
+
+    fn update_from_arg_matches(
+        &mut self,
+        matches: &clap::ArgMatches,
+    ) -> std::result::Result<(), clap::Error> {
+        *self = Self::from_arg_matches(matches)?;
+        Ok(())
+    }
 }
 
 /// An "unknown ..." error: the name, the closest known names, and the known ones (up to 12).
@@ -156,6 +214,44 @@ mod tests {
             unknown_name("level", "X9", many.iter().map(String::as_str), "the store").to_string();
         assert!(e.contains("20 known in the store, among them M1,"), "{e}");
         assert!(!e.contains("M13"), "{e}");
+    }
+
+    #[derive(Debug, clap::Parser)]
+    struct WithCharacteristic {
+        #[command(flatten)]
+        characteristic: CharacteristicArg,
+        #[arg(long)]
+        by: String,
+    }
+
+    fn parse_characteristic(args: &[&str]) -> std::result::Result<String, clap::Error> {
+        use clap::Parser;
+        let argv = std::iter::once("samewise").chain(args.iter().copied());
+        WithCharacteristic::try_parse_from(argv).map(|w| w.characteristic.name)
+    }
+
+    #[test]
+    fn the_characteristic_is_taken_from_either_spelling_and_required_by_clap() {
+        assert_eq!(
+            parse_characteristic(&["--characteristic", "bore", "--by", "machine"]).unwrap(),
+            "bore"
+        );
+        assert_eq!(
+            parse_characteristic(&["bore", "--by", "machine"]).unwrap(),
+            "bore"
+        );
+        // Neither spelling: clap's own message names the flag.
+        let e = parse_characteristic(&["--by", "machine"]).unwrap_err();
+        assert_eq!(
+            e.kind(),
+            clap::error::ErrorKind::MissingRequiredArgument,
+            "{e}"
+        );
+        assert!(e.to_string().contains("--characteristic <NAME>"), "{e}");
+        // Both spellings at once are refused, not silently resolved.
+        let e =
+            parse_characteristic(&["bore", "--characteristic", "width", "--by", "m"]).unwrap_err();
+        assert_eq!(e.kind(), clap::error::ErrorKind::ArgumentConflict, "{e}");
     }
 
     #[test]
