@@ -415,19 +415,104 @@ fn nothing_is_due_before_end_plus_delay() {
 
 mod common;
 
+/// The engine, slowed down once the run row is written: `compute` waits `pause` before it
+/// checks the period, so a run stays `running` (lease held, no results) for that long.
+struct SlowEngine<'a> {
+    engine: samewise::analysis::run::EngineRunner<'a>,
+    pause: std::time::Duration,
+}
+
+impl PeriodRunner for SlowEngine<'_> {
+    fn first_measurement(
+        &mut self,
+        store: &dyn PlantStore,
+    ) -> samewise::Result<Option<DateTime<Utc>>> {
+        self.engine.first_measurement(store)
+    }
+    fn header(&self, schedule: &ScheduleConfig, period: &Period) -> RunHeader {
+        self.engine.header(schedule, period)
+    }
+    fn compute(
+        &mut self,
+        store: &dyn PlantStore,
+        schedule: &ScheduleConfig,
+        period: &Period,
+    ) -> samewise::Result<RunContent> {
+        std::thread::sleep(self.pause);
+        self.engine.compute(store, schedule, period)
+    }
+}
+
+/// Set (to the plant directory) only when `killed_scheduler_...` starts this test binary as the
+/// scheduler process it kills.
+const KILLED_SCHEDULER_PLANT: &str = "SAMEWISE_TEST_KILLED_SCHEDULER_PLANT";
+
+/// One scheduler pass at 2026-11-30T12:00Z through the engine, paused a minute in each run when
+/// started as the process `killed_scheduler_...` kills (it is killed in that pause), and without
+/// a pause on a plant of its own otherwise (`cargo test -- --ignored`), where both due days must
+/// complete with their four tests.
+#[test]
+#[ignore = "the scheduler process of killed_scheduler_leaves_no_partial_run_and_next_start_redoes_it"]
+fn scheduler_process_paused_in_each_run() {
+    let (dir, pause) = match std::env::var_os(KILLED_SCHEDULER_PLANT) {
+        Some(dir) => (
+            std::path::PathBuf::from(dir),
+            std::time::Duration::from_secs(60),
+        ),
+        None => {
+            let dir = common::temp_dir("paused-scheduler");
+            common::invented_plant(&dir, 2);
+            (dir, std::time::Duration::ZERO)
+        }
+    };
+    let config = Config::load(dir.join("plant.toml")).unwrap();
+    let mut store = samewise::storage::open(&config).unwrap();
+    let mut runner = SlowEngine {
+        engine: samewise::analysis::run::EngineRunner::new(&config),
+        pause,
+    };
+    let clock =
+        schedule::SimulatedClock::new(Utc.with_ymd_and_hms(2026, 11, 30, 12, 0, 0).unwrap());
+    let options = SchedulerOptions::new(schedule::holder_name(1));
+    let entries = schedule::run_pass(
+        &mut *store,
+        &config,
+        &clock,
+        &mut runner,
+        &options,
+        &AtomicBool::new(false),
+        &mut |_| {},
+    )
+    .unwrap();
+    let completed: Vec<&str> = entries
+        .iter()
+        .filter(|e| matches!(e.outcome, PeriodOutcome::Completed(..)))
+        .map(|e| e.period.as_str())
+        .collect();
+    assert_eq!(completed, ["2026-11-28", "2026-11-29"], "{entries:?}");
+}
+
 /// A scheduler process killed (SIGKILL) in the middle of a run leaves no result rows, only the
 /// run row in state `running`; the next start marks it abandoned (failed, error kept) and redoes
-/// the period.
+/// the period. The killed process is this test binary running
+/// `scheduler_process_paused_in_each_run` (the engine paused after the run row is written): the
+/// pause is the test's own runner, not a switch of the shipped program.
 #[test]
 fn killed_scheduler_leaves_no_partial_run_and_next_start_redoes_it() {
     let dir = common::temp_dir("killed-scheduler");
     common::invented_plant(&dir, 2);
     let db = dir.join("plant.db");
     // Days 11-28 and 11-29 are due at 2026-11-30T12:00Z (ends 06:00 + 2 h delay).
-    let mut child = std::process::Command::new(env!("CARGO_BIN_EXE_samewise"))
+    let mut child = std::process::Command::new(std::env::current_exe().unwrap())
         .current_dir(&dir)
-        .args(["schedule", "due", "--now", "2026-11-30T12:00:00Z"])
-        .env("SAMEWISE_PAUSE_AFTER_BEGIN_MS", "60000")
+        .args([
+            "--exact",
+            "scheduler_process_paused_in_each_run",
+            "--ignored",
+            "--nocapture",
+        ])
+        .env(KILLED_SCHEDULER_PLANT, &dir)
+        .stdout(std::process::Stdio::null())
         .stderr(std::process::Stdio::null())
         .spawn()
         .unwrap();
