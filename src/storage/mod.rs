@@ -339,6 +339,40 @@ impl Store {
         Ok(identify(&conn, path)? == migrate::FileKind::Empty)
     }
 
+    /// Opens `path` read-only, as the second reader of a database another connection of this
+    /// process has opened (and migrated) already: no migration runs and nothing is written to
+    /// the file, not even a setting. A database at another schema version than this build's is
+    /// refused, since only the first connection may bring it up to date.
+    pub(crate) fn open_reader(path: &Path) -> Result<Store> {
+        let flags = OpenFlags::SQLITE_OPEN_READ_ONLY
+            | OpenFlags::SQLITE_OPEN_URI
+            | OpenFlags::SQLITE_OPEN_NO_MUTEX;
+        let conn = Connection::open_with_flags(path, flags)?;
+        if identify(&conn, path)? != migrate::FileKind::Samewise {
+            return Err(Error::Database(format!(
+                "{} is not a samewise database (opened as a second reader)",
+                path.display()
+            )));
+        }
+        let version = migrate::schema_version(&conn)?;
+        if version != migrate::latest_version() {
+            return Err(Error::Database(format!(
+                "{} has schema version {version}, this samewise reads version {}: a second \
+                 reader does not migrate; open the database once the usual way first",
+                path.display(),
+                migrate::latest_version()
+            )));
+        }
+        // Per-connection settings only (none is stored in the file).
+        conn.pragma_update(None, "cache_size", -CACHE_KIB)?;
+        conn.pragma_update(None, "temp_store", "MEMORY")?;
+        Ok(Store {
+            conn,
+            path: Some(path.to_path_buf()),
+            level_cache: Default::default(),
+        })
+    }
+
     /// A fresh database in memory with every migration applied (for tests and dry runs).
     pub fn open_in_memory() -> Result<Store> {
         Store::from_connection(Connection::open_in_memory()?, None)

@@ -546,8 +546,9 @@ pub trait MeasurementStore {
     /// A way to open a second, independent reader of the same data, to be called on another
     /// thread (the check loads parts of a period on two threads); `None` when the backend
     /// cannot (an in-memory database), and then the caller loads everything itself. The second
-    /// reader may see later commits than this one; a check reads only periods that are
-    /// already imported.
+    /// reader only reads: it runs no migration and writes nothing (not even a setting), and it
+    /// refuses a database whose schema is not the one this build reads. It may see later
+    /// commits than this one; a check reads only periods that are already imported.
     fn reader_opener(&self) -> Option<ReaderOpener>;
 }
 
@@ -585,7 +586,7 @@ impl MeasurementStore for Store {
     fn reader_opener(&self) -> Option<ReaderOpener> {
         let path = self.path()?.to_path_buf();
         Some(Box::new(move || {
-            Store::open(path).map(|s| Box::new(s) as Box<dyn MeasurementStore + Send>)
+            Store::open_reader(&path).map(|s| Box::new(s) as Box<dyn MeasurementStore + Send>)
         }))
     }
 }
@@ -637,6 +638,45 @@ mod tests {
             Some("bore_diameter")
         );
         assert_eq!(closest("zzzzzzzzzz", names.iter().copied()), None);
+    }
+
+    #[test]
+    fn the_second_reader_is_read_only_and_never_migrates() {
+        let dir = std::env::temp_dir().join(format!("samewise-reader-{}", std::process::id()));
+        let _ = std::fs::remove_dir_all(&dir);
+        std::fs::create_dir_all(&dir).unwrap();
+        let db = dir.join("plant.db");
+        let store = Store::open_or_create(&db).unwrap();
+        // At the current schema: a working reader whose connection cannot write.
+        let opener = store
+            .reader_opener()
+            .expect("a file database has a second reader");
+        let reader = opener().unwrap();
+        assert!(reader.characteristics().unwrap().is_empty());
+        let direct = Store::open_reader(&db).unwrap();
+        assert!(direct
+            .conn
+            .is_readonly(rusqlite::DatabaseName::Main)
+            .unwrap());
+        assert!(direct
+            .conn
+            .execute("DELETE FROM characteristics", [])
+            .is_err());
+        drop(direct);
+        // A database behind this build's schema: refused, and left as it was (no migration).
+        let behind = crate::storage::migrate::latest_version() - 1;
+        store
+            .conn
+            .pragma_update(None, "user_version", behind)
+            .unwrap();
+        let err = store.reader_opener().unwrap()().err().unwrap().to_string();
+        assert!(err.contains("does not migrate"), "{err}");
+        assert_eq!(
+            crate::storage::migrate::schema_version(&store.conn).unwrap(),
+            behind
+        );
+        drop(store);
+        std::fs::remove_dir_all(&dir).unwrap();
     }
 
     #[test]
