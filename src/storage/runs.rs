@@ -613,8 +613,31 @@ fn rows_of_run<T>(
     Ok(rows)
 }
 
-/// Reads the full content of one run.
+/// Runs `read` inside one read transaction of `conn`, so that all its statements see the same
+/// committed state (under WAL, the snapshot of its first read): a write committed by another
+/// connection meanwhile is not half seen. Inside a transaction already, `read` runs in that one.
+pub(super) fn in_read_transaction<T>(
+    conn: &Connection,
+    read: impl FnOnce(&Connection) -> Result<T>,
+) -> Result<T> {
+    if !conn.is_autocommit() {
+        return read(conn);
+    }
+    // A deferred transaction: it takes no lock until its first read, and never a write lock.
+    let tx = conn.unchecked_transaction()?;
+    let out = read(&tx)?;
+    tx.commit()?;
+    Ok(out)
+}
+
+/// Reads the full content of one run (its tests, then their groups, then their pairs) in one
+/// read transaction: a run completed meanwhile is read whole or not at all, never as tests
+/// without their groups or groups without their tests.
 pub(super) fn run_content(conn: &Connection, run_id: i64) -> Result<RunContent> {
+    in_read_transaction(conn, |conn| run_content_now(conn, run_id))
+}
+
+fn run_content_now(conn: &Connection, run_id: i64) -> Result<RunContent> {
     let sql = format!("SELECT {TEST_COLUMNS} FROM run_result WHERE run_id = ?1 ORDER BY test_idx");
     let mut tests = rows_of_run(conn, &sql, run_id, |r| test_from_row(r, 0))?;
     // Tests are numbered 0.. in order; a position lookup tolerates gaps all the same.
@@ -717,6 +740,18 @@ pub(super) fn history(
     period_kind: &str,
     last: usize,
 ) -> Result<Vec<HistoryPoint>> {
+    in_read_transaction(conn, |conn| {
+        history_now(conn, characteristic, factor, period_kind, last)
+    })
+}
+
+fn history_now(
+    conn: &Connection,
+    characteristic: &str,
+    factor: &str,
+    period_kind: &str,
+    last: usize,
+) -> Result<Vec<HistoryPoint>> {
     let run_cols = qualified("r", RUN_COLUMNS);
     let test_cols = qualified("t", TEST_COLUMNS);
     let sql = format!(
@@ -776,17 +811,34 @@ pub(super) fn flagged_tests(
     period_kind: &str,
     period_label: &str,
 ) -> Result<Option<Vec<(String, String)>>> {
-    let Some(run) = latest_complete_run(conn, period_kind, period_label)? else {
-        return Ok(None);
-    };
-    let rows = rows_of_run(
-        conn,
-        "SELECT characteristic, factor FROM run_result
-         WHERE run_id = ?1 AND state IN ('differs_material', 'differs')",
-        run.run_id,
-        |r| Ok((r.get(0)?, r.get(1)?)),
-    )?;
-    Ok(Some(rows))
+    in_read_transaction(conn, |conn| {
+        let Some(run) = latest_complete_run(conn, period_kind, period_label)? else {
+            return Ok(None);
+        };
+        let rows = rows_of_run(
+            conn,
+            "SELECT characteristic, factor FROM run_result
+             WHERE run_id = ?1 AND state IN ('differs_material', 'differs')",
+            run.run_id,
+            |r| Ok((r.get(0)?, r.get(1)?)),
+        )?;
+        Ok(Some(rows))
+    })
+}
+
+/// The latest complete run of a period with its content, both read in one read transaction.
+pub(super) fn latest_run(
+    conn: &Connection,
+    period_kind: &str,
+    period_label: &str,
+) -> Result<Option<(StoredRun, RunContent)>> {
+    in_read_transaction(conn, |conn| {
+        let Some(run) = latest_complete_run(conn, period_kind, period_label)? else {
+            return Ok(None);
+        };
+        let content = run_content(conn, run.run_id)?;
+        Ok(Some((run, content)))
+    })
 }
 
 /// The earliest measurement instant in the store (ms since the epoch), `None` when empty.
@@ -1033,6 +1085,13 @@ impl RunStore for crate::storage::Store {
     fn run_content(&self, run_id: i64) -> Result<RunContent> {
         run_content(&self.conn, run_id)
     }
+    fn latest_run(
+        &self,
+        period_kind: &str,
+        period_label: &str,
+    ) -> Result<Option<(StoredRun, RunContent)>> {
+        latest_run(&self.conn, period_kind, period_label)
+    }
     fn history(
         &self,
         characteristic: &str,
@@ -1162,6 +1221,43 @@ mod tests {
                 ..TestResult::default()
             }],
         }
+    }
+
+    #[test]
+    fn a_run_completed_during_a_read_is_not_half_seen() {
+        let dir = std::env::temp_dir().join(format!("samewise-runs-{}", std::process::id()));
+        let _ = std::fs::remove_dir_all(&dir);
+        std::fs::create_dir_all(&dir).unwrap();
+        let path = dir.join("runs.db");
+        let mut writer = Connection::open(&path).unwrap();
+        let mode: String = writer
+            .query_row("PRAGMA journal_mode = WAL", [], |r| r.get(0))
+            .unwrap();
+        assert_eq!(mode, "wal");
+        for m in crate::storage::migrate::MIGRATIONS {
+            writer.execute_batch(m.sql).unwrap();
+        }
+        let reader = Connection::open(&path).unwrap();
+        let run = begin_run(&mut writer, &header("2026-11-30"), 10).unwrap();
+        // The writer completes the run between the reader's first and second look, inside one
+        // read transaction: both looks see the run as it was when the reading began.
+        let (first, second) = in_read_transaction(&reader, |c| {
+            let first = run_content(c, run.run_id)?;
+            complete_run(&mut writer, run.run_id, 20, &content(TestState::Differs))?;
+            let second = run_content(c, run.run_id)?;
+            Ok((first, second))
+        })
+        .unwrap();
+        assert!(first.tests.is_empty());
+        assert_eq!(second, first);
+        assert!(reader.is_autocommit(), "the read transaction is closed");
+        // After it, the run is read whole: its test with its group and pair.
+        let after = run_content(&reader, run.run_id).unwrap();
+        assert_eq!(after, content(TestState::Differs));
+        let (stored, whole) = latest_run(&reader, "day", "2026-11-30").unwrap().unwrap();
+        assert_eq!((stored.run_id, whole), (run.run_id, after));
+        drop((reader, writer));
+        std::fs::remove_dir_all(&dir).unwrap();
     }
 
     #[test]
