@@ -41,8 +41,8 @@ pub struct HistoryArgs {
 pub fn run(args: &HistoryArgs) -> Result<ExitCode> {
     let config = super::common::load_config(super::common::config_flag())?;
     let characteristic = args.characteristic.name.as_str();
-    let c = vocab::characteristic(&config, characteristic)?;
-    vocab::factor(&config, &args.factor)?;
+    let c = config.known_characteristic(characteristic)?;
+    config.known_factor(&args.factor)?;
     let kind = crate::model::PeriodKind::from(args.kind).as_str();
     if let Some(path) = &args.csv {
         let protected = crate::output::Protected::plant(&config.plant.database, &config.path);

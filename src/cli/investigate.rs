@@ -77,7 +77,7 @@ pub fn run(args: &InvestigateArgs, now: DateTime<Utc>) -> Result<ExitCode> {
     let characteristic = args.characteristic.name.as_str();
     // The factor is checked here; the characteristic by the store, which also knows one that
     // has left the configuration (both answer a typo with the closest names).
-    vocab::factor(&config, &args.by)?;
+    config.known_factor(&args.by)?;
     let tz = config.plant.time_zone;
     let store = open_store(&config)?;
     let before = duration_flag("--before", &args.before)?;

@@ -1,15 +1,13 @@
 //! The words every command shares: the period kind (`--kind`), the false-discovery method
-//! (`--fdr`), and the characteristic (`--characteristic NAME`) and factor (`--by FACTOR`) checked
-//! against the plant configuration, an unknown name answered with the closest known ones
-//! ([`crate::names::did_you_mean`]).
+//! (`--fdr`) and the characteristic (`--characteristic NAME`, [`CharacteristicArg`]). A
+//! characteristic or factor is checked against the plant configuration with
+//! `Config::known_characteristic` and `Config::known_factor`, an unknown name answered with the
+//! closest known ones ([`crate::names::unknown_name`]).
 
 use clap::ValueEnum;
 
-use crate::config::{CharacteristicConfig, Config, FactorConfig};
 use crate::model::PeriodKind;
-use crate::names::did_you_mean;
 use crate::stats::fdr::FdrMethod;
-use crate::{Error, Result};
 
 /// The period kind of the regular checks (`--kind` of `chart` and `findings`).
 #[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
@@ -149,72 +147,9 @@ impl clap::FromArgMatches for CharacteristicArg {
     }
 }
 
-/// An "unknown ..." error: the name, the closest known names, and the known ones (up to 12).
-pub fn unknown_name<'a>(
-    what: &str,
-    name: &str,
-    known: impl IntoIterator<Item = &'a str> + Clone,
-    source: &str,
-) -> Error {
-    let hint = did_you_mean(name, known.clone());
-    let all: Vec<&str> = known.into_iter().collect();
-    let listed = match all.len() {
-        0 => format!("none is known in {source}"),
-        n if n <= 12 => format!("known in {source}: {}", all.join(", ")),
-        n => format!(
-            "{n} known in {source}, among them {}, ...",
-            all[..12].join(", ")
-        ),
-    };
-    Error::Usage(format!("unknown {what} \"{name}\"{hint}; {listed}"))
-}
-
-/// The configured characteristic `name`, or an error with the closest configured names.
-pub fn characteristic<'a>(config: &'a Config, name: &str) -> Result<&'a CharacteristicConfig> {
-    config.characteristic(name).ok_or_else(|| {
-        unknown_name(
-            "characteristic",
-            name,
-            config.characteristics.iter().map(|c| c.name.as_str()),
-            &config.path.display().to_string(),
-        )
-    })
-}
-
-/// The configured factor `name`, or an error with the closest configured names.
-pub fn factor<'a>(config: &'a Config, name: &str) -> Result<&'a FactorConfig> {
-    config
-        .factor_index(name)
-        .map(|i| &config.factors[i])
-        .ok_or_else(|| {
-            unknown_name(
-                "factor",
-                name,
-                config.factors.iter().map(|f| f.name.as_str()),
-                &config.path.display().to_string(),
-            )
-        })
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
-
-    #[test]
-    fn unknown_names_list_the_closest_and_the_known() {
-        let known = ["bore_diameter", "width", "flange_flatness"];
-        let e = unknown_name("characteristic", "bore_diamter", known, "plant.toml").to_string();
-        assert_eq!(
-            e,
-            "unknown characteristic \"bore_diamter\" (did you mean \"bore_diameter\"?); \
-             known in plant.toml: bore_diameter, width, flange_flatness"
-        );
-        let many: Vec<String> = (1..=20).map(|i| format!("M{i}")).collect();
-        let e =
-            unknown_name("level", "X9", many.iter().map(String::as_str), "the store").to_string();
-        assert!(e.contains("20 known in the store, among them M1,"), "{e}");
-        assert!(!e.contains("M13"), "{e}");
-    }
 
     #[derive(Debug, clap::Parser)]
     struct WithCharacteristic {

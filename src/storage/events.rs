@@ -10,7 +10,7 @@ use crate::{Error, Result};
 use super::master::{load_characteristics, load_factors};
 use super::query::unknown_characteristic;
 use super::Store;
-use crate::names::did_you_mean;
+use crate::names::{unknown_name, NameKind};
 
 /// An event to record.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -397,12 +397,12 @@ fn resolve_scope(
         conn.prepare_cached("SELECT name FROM levels WHERE factor_id = ?1 ORDER BY name")?;
     for (factor, level) in scope {
         let f = factors.iter().find(|f| &f.name == factor).ok_or_else(|| {
-            let hint = did_you_mean(factor, factors.iter().map(|f| f.name.as_str()));
-            let known: Vec<&str> = factors.iter().map(|f| f.name.as_str()).collect();
-            Error::Usage(format!(
-                "unknown factor \"{factor}\"{hint}; the factors are: {}",
-                known.join(", ")
-            ))
+            unknown_name(
+                NameKind::Factor,
+                factor,
+                factors.iter().map(|f| f.name.as_str()),
+                "the database",
+            )
         })?;
         if scope_ids.iter().any(|(id, _)| *id == f.id) {
             return Err(Error::Usage(format!("factor \"{factor}\" is given twice")));
@@ -411,19 +411,12 @@ fn resolve_scope(
             .query_map([f.id], |r| r.get(0))?
             .collect::<rusqlite::Result<_>>()?;
         if !known.iter().any(|l| l == level) {
-            let hint = did_you_mean(level, known.iter().map(String::as_str));
-            return Err(Error::Usage(if known.is_empty() {
-                format!(
-                    "unknown level \"{level}\" of factor \"{factor}\": no measurement with a \
-                     {factor} level is stored yet (import the data first)"
-                )
-            } else {
-                format!(
-                    "unknown level \"{level}\" of factor \"{factor}\"{hint} ({} levels \
-                     stored; `samewise status` lists the data)",
-                    known.len()
-                )
-            }));
+            return Err(unknown_name(
+                NameKind::Level { factor },
+                level,
+                known.iter().map(String::as_str),
+                "the database",
+            ));
         }
         scope_ids.push((f.id, level.clone()));
     }

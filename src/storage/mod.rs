@@ -42,7 +42,6 @@ pub use import::{
 pub use imports::{ImportRecord, UndoReport};
 pub use maintenance::{CharacteristicStatus, IntegrityReport, MaintenanceStore, Status};
 pub use master::{StoredCharacteristic, StoredFactor, SyncReport};
-pub(crate) use query::closest;
 pub use query::{
     exact_value, CharacteristicFrame, FactorLevels, MeasurementStore, PeriodFrame, ReaderOpener,
     NO_SUBGROUP,

@@ -12,6 +12,7 @@ use crate::ingest::fxhash::FxMap;
 use chrono::{DateTime, Utc};
 
 use crate::config::CharacteristicConfig;
+use crate::names::{unknown_name, NameKind};
 use crate::stats::decimal::Decimal;
 use crate::{Error, Result};
 
@@ -128,18 +129,14 @@ pub(crate) fn natural_cmp(a: &str, b: &str) -> std::cmp::Ordering {
     }
 }
 
-/// The closest name by edit distance, for "did you mean" hints.
-pub(crate) fn closest<'a>(
-    name: &str,
-    candidates: impl Iterator<Item = &'a str>,
-) -> Option<&'a str> {
-    crate::names::closest_names(name, candidates, 1).pop()
-}
-
-/// An "unknown characteristic" error with the closest known names.
+/// The unknown-name error of a characteristic the database does not hold.
 pub(crate) fn unknown_characteristic(name: &str, known: &[StoredCharacteristic]) -> Error {
-    let hint = crate::names::did_you_mean(name, known.iter().map(|c| c.config.name.as_str()));
-    Error::Usage(format!("unknown characteristic \"{name}\"{hint}"))
+    unknown_name(
+        NameKind::Characteristic,
+        name,
+        known.iter().map(|c| c.config.name.as_str()),
+        "the database",
+    )
 }
 
 impl Store {
@@ -628,16 +625,6 @@ mod tests {
         let mut names = vec!["M10", "M2", "M1", "A"];
         names.sort_by(|a, b| natural_cmp(a, b));
         assert_eq!(names, ["A", "M1", "M2", "M10"]);
-    }
-
-    #[test]
-    fn closest_name_is_suggested() {
-        let names = ["bore_diameter", "flatness", "length"];
-        assert_eq!(
-            closest("bore_diamter", names.iter().copied()),
-            Some("bore_diameter")
-        );
-        assert_eq!(closest("zzzzzzzzzz", names.iter().copied()), None);
     }
 
     #[test]
