@@ -17,8 +17,7 @@ use samewise::model::Period;
 use samewise::results::{TestResult, TestState};
 use samewise::schedule::{self, Clock, PeriodOutcome, PeriodRunner, SchedulerOptions};
 use samewise::storage::runs::{RunContent, RunHeader};
-use samewise::storage::RunStore;
-use samewise::storage::{PlantStore, Store};
+use samewise::storage::PlantStore;
 
 const CONFIG: &str = r#"
 [plant]
@@ -68,11 +67,14 @@ fn temp_db(name: &str) -> std::path::PathBuf {
     dir.join("plant.db")
 }
 
-fn open(path: &std::path::Path) -> Store {
-    Store::open_or_create(path).unwrap()
+/// The test configuration's store at `path`, opened (or created) through `storage`.
+fn open(path: &std::path::Path) -> Box<dyn PlantStore> {
+    let mut config = config();
+    config.plant.database = path.to_path_buf();
+    samewise::storage::open_or_create(&config).unwrap()
 }
 
-fn count_leases(store: &Store) -> usize {
+fn count_leases(store: &dyn PlantStore) -> usize {
     // Leases are released after each run; a leftover lease would block the period until expiry.
     store.lease_count().unwrap()
 }
@@ -175,7 +177,7 @@ fn three_weeks_with_outage_every_period_once_in_order_across_dst() {
     // Up to Friday 2026-10-23 12:00 local, then the scheduler is down for 2 days.
     let outage_start = berlin(2026, 10, 23, 12);
     let mut entries = schedule::run_forever(
-        &mut conn,
+        &mut *conn,
         &config,
         &clock,
         &mut runner,
@@ -204,7 +206,7 @@ fn three_weeks_with_outage_every_period_once_in_order_across_dst() {
     let end = berlin(2026, 11, 2, 9);
     entries.extend(
         schedule::run_forever(
-            &mut conn,
+            &mut *conn,
             &config,
             &clock,
             &mut runner,
@@ -278,7 +280,7 @@ fn three_weeks_with_outage_every_period_once_in_order_across_dst() {
         assert_eq!(n, expect, "{s} {p} computed {n} times");
     }
     // No lease is left behind.
-    assert_eq!(count_leases(&conn), 0);
+    assert_eq!(count_leases(&*conn), 0);
 }
 
 #[test]
@@ -302,7 +304,7 @@ fn shift_schedule_across_dst_spring_forward() {
     };
     let stop = AtomicBool::new(false);
     schedule::run_forever(
-        &mut conn,
+        &mut *conn,
         &config,
         &clock,
         &mut runner,
@@ -357,7 +359,7 @@ fn two_schedulers_at_once_run_each_period_once() {
                 };
                 let stop = AtomicBool::new(false);
                 schedule::run_pass(
-                    &mut conn,
+                    &mut *conn,
                     &config,
                     &clock,
                     &mut runner,
@@ -501,7 +503,6 @@ fn scheduler_process_paused_in_each_run() {
 fn killed_scheduler_leaves_no_partial_run_and_next_start_redoes_it() {
     let dir = common::temp_dir("killed-scheduler");
     common::invented_plant(&dir, 2);
-    let db = dir.join("plant.db");
     // Days 11-28 and 11-29 are due at 2026-11-30T12:00Z (ends 06:00 + 2 h delay).
     let mut child = std::process::Command::new(std::env::current_exe().unwrap())
         .current_dir(&dir)
@@ -518,7 +519,7 @@ fn killed_scheduler_leaves_no_partial_run_and_next_start_redoes_it() {
         .unwrap();
     let started = std::time::Instant::now();
     loop {
-        let store = Store::open(&db).unwrap();
+        let store = common::open_store(&dir, "plant.db");
         let all = store.all_runs().unwrap();
         if all.iter().any(|r| r.status == "running") {
             break;
@@ -528,7 +529,7 @@ fn killed_scheduler_leaves_no_partial_run_and_next_start_redoes_it() {
     }
     child.kill().unwrap(); // SIGKILL
     child.wait().unwrap();
-    let store = Store::open(&db).unwrap();
+    let store = common::open_store(&dir, "plant.db");
     let all = store.all_runs().unwrap();
     assert_eq!(all.len(), 1);
     assert_eq!(all[0].status, "running");
@@ -541,7 +542,7 @@ fn killed_scheduler_leaves_no_partial_run_and_next_start_redoes_it() {
         "{}",
         String::from_utf8_lossy(&out.stderr)
     );
-    let store = Store::open(&db).unwrap();
+    let store = common::open_store(&dir, "plant.db");
     let all = store.all_runs().unwrap();
     let killed = &all[0];
     assert_eq!(killed.status, "failed");
@@ -559,6 +560,6 @@ fn killed_scheduler_leaves_no_partial_run_and_next_start_redoes_it() {
     // Nothing due any more: a third start runs nothing.
     let out = common::samewise(&dir, &["schedule", "due", "--now", "2026-11-30T12:00:00Z"]);
     assert_eq!(out.status.code(), Some(0));
-    let store = Store::open(&db).unwrap();
+    let store = common::open_store(&dir, "plant.db");
     assert_eq!(store.all_runs().unwrap().len(), 3);
 }

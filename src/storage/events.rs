@@ -95,232 +95,6 @@ fn from_ms(ms: i64) -> DateTime<Utc> {
     Utc.timestamp_millis_opt(ms).single().unwrap_or_default()
 }
 
-impl Store {
-    /// Records an event; `now` is when it is recorded. The characteristic and factors must exist
-    /// (an unknown name is an error suggesting the closest one).
-    pub fn add_event(&mut self, event: &NewEvent, now: DateTime<Utc>) -> Result<i64> {
-        if event.note.trim().is_empty() {
-            return Err(Error::Usage("the event note is empty".to_string()));
-        }
-        check_note(&event.note)?;
-        // IMMEDIATE: the write lock is taken (waiting with the busy timeout while an import
-        // writes) before anything is read; a deferred transaction could not wait for it.
-        let tx = self
-            .conn
-            .transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)?;
-        let (characteristic_id, scope_ids) =
-            resolve_scope(&tx, event.characteristic.as_deref(), &event.scope)?;
-        tx.execute(
-            "INSERT INTO events (ts_ms, note, characteristic_id, created_ms) VALUES (?1, ?2, ?3, ?4)",
-            params![
-                event.at.timestamp_millis(),
-                event.note,
-                characteristic_id,
-                now.timestamp_millis()
-            ],
-        )?;
-        let id = tx.last_insert_rowid();
-        for (factor_id, level) in scope_ids {
-            tx.execute(
-                "INSERT INTO event_scopes (event_id, factor_id, level) VALUES (?1, ?2, ?3)",
-                params![id, factor_id, level],
-            )?;
-        }
-        tx.commit()?;
-        Ok(id)
-    }
-
-    /// Events not removed with `start <= at < end` (either bound open when `None`), in time order.
-    pub fn events(
-        &self,
-        start: Option<DateTime<Utc>>,
-        end: Option<DateTime<Utc>>,
-    ) -> Result<Vec<Event>> {
-        let mut stmt = self.conn.prepare_cached(&format!(
-            "{EVENT_SELECT} WHERE e.removed_ms IS NULL AND e.ts_ms >= ?1 AND e.ts_ms < ?2 \
-             ORDER BY e.ts_ms, e.id"
-        ))?;
-        let rows = stmt.query_map(
-            params![
-                start.map_or(i64::MIN, |t| t.timestamp_millis()),
-                end.map_or(i64::MAX, |t| t.timestamp_millis())
-            ],
-            event_row,
-        )?;
-        let mut events: Vec<Event> = rows.collect::<rusqlite::Result<_>>()?;
-        fill_scopes(&self.conn, &mut events)?;
-        Ok(events)
-    }
-
-    /// Every event, removed ones included (marked by `removed`), in time order.
-    pub fn events_including_removed(&self) -> Result<Vec<Event>> {
-        let mut stmt = self
-            .conn
-            .prepare_cached(&format!("{EVENT_SELECT} ORDER BY e.ts_ms, e.id"))?;
-        let rows = stmt.query_map([], event_row)?;
-        let mut events: Vec<Event> = rows.collect::<rusqlite::Result<_>>()?;
-        fill_scopes(&self.conn, &mut events)?;
-        Ok(events)
-    }
-
-    /// Event `id`, removed or not.
-    pub fn event(&self, id: i64) -> Result<Event> {
-        event_by_id(&self.conn, id)
-    }
-
-    /// Corrects event `id`: every field `edit` gives is replaced and recorded in the event's
-    /// history (one entry per field whose value changes). A removed event cannot be edited.
-    /// Returns the event as it is now.
-    pub fn edit_event(
-        &mut self,
-        id: i64,
-        edit: &EventEdit,
-        who: &str,
-        reason: Option<&str>,
-        now: DateTime<Utc>,
-    ) -> Result<Event> {
-        if let Some(note) = &edit.note {
-            check_note(note)?;
-        }
-        if edit == &EventEdit::default() {
-            return Err(Error::Usage(
-                "nothing to change: give --at, --note, --characteristic/--any-characteristic or \
-                 --where/--no-where"
-                    .to_string(),
-            ));
-        }
-        if let Some(note) = &edit.note {
-            if note.trim().is_empty() {
-                return Err(Error::Usage("the event note is empty".to_string()));
-            }
-        }
-        let tx = self
-            .conn
-            .transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)?;
-        let old = event_by_id(&tx, id)?;
-        if let Some(removed) = old.removed {
-            return Err(Error::Usage(format!(
-                "event #{id} was removed ({}); record a new event instead",
-                removed.format("%Y-%m-%d %H:%M UTC")
-            )));
-        }
-        let characteristic = match &edit.characteristic {
-            Some(c) => c.clone(),
-            None => old.characteristic.clone(),
-        };
-        let scope = edit.scope.clone().unwrap_or_else(|| old.scope.clone());
-        let (characteristic_id, scope_ids) = resolve_scope(&tx, characteristic.as_deref(), &scope)?;
-        let at = edit.at.unwrap_or(old.at);
-        let note = edit.note.clone().unwrap_or_else(|| old.note.clone());
-        tx.execute(
-            "UPDATE events SET ts_ms = ?2, note = ?3, characteristic_id = ?4 WHERE id = ?1",
-            params![id, at.timestamp_millis(), note, characteristic_id],
-        )?;
-        tx.execute("DELETE FROM event_scopes WHERE event_id = ?1", [id])?;
-        for (factor_id, level) in scope_ids {
-            tx.execute(
-                "INSERT INTO event_scopes (event_id, factor_id, level) VALUES (?1, ?2, ?3)",
-                params![id, factor_id, level],
-            )?;
-        }
-        let new = event_by_id(&tx, id)?;
-        let fields = [
-            ("at", time_text(old.at), time_text(new.at)),
-            ("note", old.note.clone(), new.note.clone()),
-            (
-                "characteristic",
-                old.characteristic.clone().unwrap_or_default(),
-                new.characteristic.clone().unwrap_or_default(),
-            ),
-            ("where", scope_text(&old.scope), scope_text(&new.scope)),
-        ];
-        let mut changed = 0;
-        for (field, before, after) in fields {
-            if before != after {
-                changed += 1;
-                tx.execute(
-                    "INSERT INTO event_history \
-                     (event_id, changed_ms, who, action, field, before, after, reason) \
-                     VALUES (?1, ?2, ?3, 'edit', ?4, ?5, ?6, ?7)",
-                    params![
-                        id,
-                        now.timestamp_millis(),
-                        who,
-                        field,
-                        before,
-                        after,
-                        reason
-                    ],
-                )?;
-            }
-        }
-        if changed == 0 {
-            return Err(Error::Usage(format!(
-                "event #{id} already reads so: nothing changed"
-            )));
-        }
-        tx.commit()?;
-        Ok(new)
-    }
-
-    /// Removes event `id`: it no longer marks charts or anchors investigations, the log keeps it
-    /// marked removed, and the removal (with the whole event as it was) enters its history.
-    pub fn remove_event(
-        &mut self,
-        id: i64,
-        who: &str,
-        reason: Option<&str>,
-        now: DateTime<Utc>,
-    ) -> Result<Event> {
-        let tx = self
-            .conn
-            .transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)?;
-        let old = event_by_id(&tx, id)?;
-        if let Some(removed) = old.removed {
-            return Err(Error::Usage(format!(
-                "event #{id} was already removed ({})",
-                removed.format("%Y-%m-%d %H:%M UTC")
-            )));
-        }
-        tx.execute(
-            "UPDATE events SET removed_ms = ?2 WHERE id = ?1",
-            params![id, now.timestamp_millis()],
-        )?;
-        tx.execute(
-            "INSERT INTO event_history (event_id, changed_ms, who, action, before, reason) \
-             VALUES (?1, ?2, ?3, 'remove', ?4, ?5)",
-            params![id, now.timestamp_millis(), who, describe(&old), reason],
-        )?;
-        let new = event_by_id(&tx, id)?;
-        tx.commit()?;
-        Ok(new)
-    }
-
-    /// The recorded corrections, of event `id` or of every event, oldest first.
-    pub fn event_history(&self, id: Option<i64>) -> Result<Vec<EventChange>> {
-        if let Some(id) = id {
-            event_by_id(&self.conn, id)?;
-        }
-        let mut stmt = self.conn.prepare_cached(
-            "SELECT event_id, changed_ms, who, action, field, before, after, reason \
-             FROM event_history WHERE ?1 IS NULL OR event_id = ?1 ORDER BY id",
-        )?;
-        let rows = stmt.query_map([id], |r| {
-            Ok(EventChange {
-                event_id: r.get(0)?,
-                changed: from_ms(r.get(1)?),
-                who: r.get(2)?,
-                action: r.get(3)?,
-                field: r.get(4)?,
-                before: r.get(5)?,
-                after: r.get(6)?,
-                reason: r.get(7)?,
-            })
-        })?;
-        Ok(rows.collect::<rusqlite::Result<_>>()?)
-    }
-}
-
 const EVENT_SELECT: &str = "SELECT e.id, e.ts_ms, e.note, c.name, e.created_ms, e.removed_ms \
      FROM events e LEFT JOIN characteristics c ON c.id = e.characteristic_id";
 
@@ -476,7 +250,11 @@ pub trait EventStore {
         reason: Option<&str>,
         now: DateTime<Utc>,
     ) -> Result<Event>;
-    /// Marks event `id` removed (kept for the audit trail) with who and why; returns it.
+    /// Marks event `id` removed at `now` and records who removed it and why in its history,
+    /// in one transaction; the event is kept for the audit trail (listed by
+    /// [`EventStore::events_including_removed`], no longer by [`EventStore::events`]). An
+    /// unknown id, or an event removed already, is an error and nothing changes. Returns the
+    /// event as it is now.
     fn remove_event(
         &mut self,
         id: i64,
@@ -490,20 +268,67 @@ pub trait EventStore {
 
 impl EventStore for Store {
     fn add_event(&mut self, event: &NewEvent, now: DateTime<Utc>) -> Result<i64> {
-        Store::add_event(self, event, now)
+        if event.note.trim().is_empty() {
+            return Err(Error::Usage("the event note is empty".to_string()));
+        }
+        check_note(&event.note)?;
+        // IMMEDIATE: the write lock is taken (waiting with the busy timeout while an import
+        // writes) before anything is read; a deferred transaction could not wait for it.
+        let tx = self
+            .conn
+            .transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)?;
+        let (characteristic_id, scope_ids) =
+            resolve_scope(&tx, event.characteristic.as_deref(), &event.scope)?;
+        tx.execute(
+            "INSERT INTO events (ts_ms, note, characteristic_id, created_ms) VALUES (?1, ?2, ?3, ?4)",
+            params![
+                event.at.timestamp_millis(),
+                event.note,
+                characteristic_id,
+                now.timestamp_millis()
+            ],
+        )?;
+        let id = tx.last_insert_rowid();
+        for (factor_id, level) in scope_ids {
+            tx.execute(
+                "INSERT INTO event_scopes (event_id, factor_id, level) VALUES (?1, ?2, ?3)",
+                params![id, factor_id, level],
+            )?;
+        }
+        tx.commit()?;
+        Ok(id)
     }
     fn events(
         &self,
         start: Option<DateTime<Utc>>,
         end: Option<DateTime<Utc>>,
     ) -> Result<Vec<Event>> {
-        Store::events(self, start, end)
+        let mut stmt = self.conn.prepare_cached(&format!(
+            "{EVENT_SELECT} WHERE e.removed_ms IS NULL AND e.ts_ms >= ?1 AND e.ts_ms < ?2 \
+             ORDER BY e.ts_ms, e.id"
+        ))?;
+        let rows = stmt.query_map(
+            params![
+                start.map_or(i64::MIN, |t| t.timestamp_millis()),
+                end.map_or(i64::MAX, |t| t.timestamp_millis())
+            ],
+            event_row,
+        )?;
+        let mut events: Vec<Event> = rows.collect::<rusqlite::Result<_>>()?;
+        fill_scopes(&self.conn, &mut events)?;
+        Ok(events)
     }
     fn events_including_removed(&self) -> Result<Vec<Event>> {
-        Store::events_including_removed(self)
+        let mut stmt = self
+            .conn
+            .prepare_cached(&format!("{EVENT_SELECT} ORDER BY e.ts_ms, e.id"))?;
+        let rows = stmt.query_map([], event_row)?;
+        let mut events: Vec<Event> = rows.collect::<rusqlite::Result<_>>()?;
+        fill_scopes(&self.conn, &mut events)?;
+        Ok(events)
     }
     fn event(&self, id: i64) -> Result<Event> {
-        Store::event(self, id)
+        event_by_id(&self.conn, id)
     }
     fn edit_event(
         &mut self,
@@ -513,7 +338,88 @@ impl EventStore for Store {
         reason: Option<&str>,
         now: DateTime<Utc>,
     ) -> Result<Event> {
-        Store::edit_event(self, id, edit, who, reason, now)
+        if let Some(note) = &edit.note {
+            check_note(note)?;
+        }
+        if edit == &EventEdit::default() {
+            return Err(Error::Usage(
+                "nothing to change: give --at, --note, --characteristic/--any-characteristic or \
+                 --where/--no-where"
+                    .to_string(),
+            ));
+        }
+        if let Some(note) = &edit.note {
+            if note.trim().is_empty() {
+                return Err(Error::Usage("the event note is empty".to_string()));
+            }
+        }
+        let tx = self
+            .conn
+            .transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)?;
+        let old = event_by_id(&tx, id)?;
+        if let Some(removed) = old.removed {
+            return Err(Error::Usage(format!(
+                "event #{id} was removed ({}); record a new event instead",
+                removed.format("%Y-%m-%d %H:%M UTC")
+            )));
+        }
+        let characteristic = match &edit.characteristic {
+            Some(c) => c.clone(),
+            None => old.characteristic.clone(),
+        };
+        let scope = edit.scope.clone().unwrap_or_else(|| old.scope.clone());
+        let (characteristic_id, scope_ids) = resolve_scope(&tx, characteristic.as_deref(), &scope)?;
+        let at = edit.at.unwrap_or(old.at);
+        let note = edit.note.clone().unwrap_or_else(|| old.note.clone());
+        tx.execute(
+            "UPDATE events SET ts_ms = ?2, note = ?3, characteristic_id = ?4 WHERE id = ?1",
+            params![id, at.timestamp_millis(), note, characteristic_id],
+        )?;
+        tx.execute("DELETE FROM event_scopes WHERE event_id = ?1", [id])?;
+        for (factor_id, level) in scope_ids {
+            tx.execute(
+                "INSERT INTO event_scopes (event_id, factor_id, level) VALUES (?1, ?2, ?3)",
+                params![id, factor_id, level],
+            )?;
+        }
+        let new = event_by_id(&tx, id)?;
+        let fields = [
+            ("at", time_text(old.at), time_text(new.at)),
+            ("note", old.note.clone(), new.note.clone()),
+            (
+                "characteristic",
+                old.characteristic.clone().unwrap_or_default(),
+                new.characteristic.clone().unwrap_or_default(),
+            ),
+            ("where", scope_text(&old.scope), scope_text(&new.scope)),
+        ];
+        let mut changed = 0;
+        for (field, before, after) in fields {
+            if before != after {
+                changed += 1;
+                tx.execute(
+                    "INSERT INTO event_history \
+                     (event_id, changed_ms, who, action, field, before, after, reason) \
+                     VALUES (?1, ?2, ?3, 'edit', ?4, ?5, ?6, ?7)",
+                    params![
+                        id,
+                        now.timestamp_millis(),
+                        who,
+                        field,
+                        before,
+                        after,
+                        reason
+                    ],
+                )?;
+            }
+        }
+        if changed == 0 {
+            return Err(Error::Usage(format!(
+                "event #{id} already reads so: nothing changed"
+            )));
+        }
+        tx.commit()?;
+        Ok(new)
     }
     fn remove_event(
         &mut self,
@@ -522,9 +428,49 @@ impl EventStore for Store {
         reason: Option<&str>,
         now: DateTime<Utc>,
     ) -> Result<Event> {
-        Store::remove_event(self, id, who, reason, now)
+        let tx = self
+            .conn
+            .transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)?;
+        let old = event_by_id(&tx, id)?;
+        if let Some(removed) = old.removed {
+            return Err(Error::Usage(format!(
+                "event #{id} was already removed ({})",
+                removed.format("%Y-%m-%d %H:%M UTC")
+            )));
+        }
+        tx.execute(
+            "UPDATE events SET removed_ms = ?2 WHERE id = ?1",
+            params![id, now.timestamp_millis()],
+        )?;
+        tx.execute(
+            "INSERT INTO event_history (event_id, changed_ms, who, action, before, reason) \
+             VALUES (?1, ?2, ?3, 'remove', ?4, ?5)",
+            params![id, now.timestamp_millis(), who, describe(&old), reason],
+        )?;
+        let new = event_by_id(&tx, id)?;
+        tx.commit()?;
+        Ok(new)
     }
     fn event_history(&self, id: Option<i64>) -> Result<Vec<EventChange>> {
-        Store::event_history(self, id)
+        if let Some(id) = id {
+            event_by_id(&self.conn, id)?;
+        }
+        let mut stmt = self.conn.prepare_cached(
+            "SELECT event_id, changed_ms, who, action, field, before, after, reason \
+             FROM event_history WHERE ?1 IS NULL OR event_id = ?1 ORDER BY id",
+        )?;
+        let rows = stmt.query_map([id], |r| {
+            Ok(EventChange {
+                event_id: r.get(0)?,
+                changed: from_ms(r.get(1)?),
+                who: r.get(2)?,
+                action: r.get(3)?,
+                field: r.get(4)?,
+                before: r.get(5)?,
+                after: r.get(6)?,
+                reason: r.get(7)?,
+            })
+        })?;
+        Ok(rows.collect::<rusqlite::Result<_>>()?)
     }
 }

@@ -70,7 +70,7 @@ fn instant(ms: i64) -> DateTime<Utc> {
 
 impl Store {
     /// Every import in id order, undos included.
-    pub fn import_records(&self) -> Result<Vec<ImportRecord>> {
+    pub(super) fn import_records(&self) -> Result<Vec<ImportRecord>> {
         let mut stmt = self.conn.prepare(
             "SELECT i.id, i.file_name, i.path, i.sha256, i.layout, i.started_ms, i.finished_ms, \
                     i.rows_read, i.accepted - i.duplicates, i.duplicates, i.rejected, \
@@ -109,7 +109,7 @@ impl Store {
     ///
     /// Refused, with nothing changed: an unknown id, an undo row, an import undone already, or
     /// a database whose measurements do not match the import's record (`db check` tells more).
-    pub fn undo_import(&mut self, id: i64, now: DateTime<Utc>) -> Result<UndoReport> {
+    pub(super) fn undo_import(&mut self, id: i64, now: DateTime<Utc>) -> Result<UndoReport> {
         let tx = self
             .conn
             .transaction_with_behavior(TransactionBehavior::Immediate)?;

@@ -243,10 +243,10 @@ const CACHE_KIB: i64 = 64 * 1024;
 
 /// The SQLite backend: the plant database in one file (or in memory).
 ///
-/// It implements every trait of [`PlantStore`]; its inherent methods are what those
-/// implementations call (and what the tests of this backend call). Code outside `storage` never
-/// names it: it holds a `dyn PlantStore` from [`open`] and its siblings
-/// (`tests/architecture.rs` checks this).
+/// It implements every trait of [`PlantStore`], and the trait implementations are the one way
+/// to its data (its own methods are the constructors and helpers private to `storage`). Code
+/// outside `storage`, the tests included, never names it: it holds a `dyn PlantStore` from
+/// [`open`] and its siblings (`tests/architecture.rs` checks this for `src/`).
 ///
 /// One `Store` is one SQLite connection. Several processes may use the same database file at the
 /// same time: WAL mode lets readers proceed while an import writes, and a busy timeout makes a
@@ -397,25 +397,6 @@ impl Store {
             path,
             level_cache: Default::default(),
         })
-    }
-
-    /// The database file, or `None` in memory.
-    pub fn path(&self) -> Option<&Path> {
-        self.path.as_deref()
-    }
-
-    /// Writes the writer note of this database (see [`WriterNote`]); held for a long write.
-    pub fn note_writer(
-        &self,
-        what: &str,
-        started: chrono::DateTime<chrono::Utc>,
-    ) -> Option<WriterNote> {
-        WriterNote::write(self.path.as_deref(), what, started)
-    }
-
-    /// The schema version of the database (`PRAGMA user_version`).
-    pub fn schema_version(&self) -> Result<u32> {
-        migrate::schema_version(&self.conn)
     }
 }
 

@@ -139,210 +139,6 @@ pub(crate) fn unknown_characteristic(name: &str, known: &[StoredCharacteristic])
     )
 }
 
-impl Store {
-    /// Measurements stored per characteristic in `[start, end)` (every stored characteristic,
-    /// in id order), counted along the primary key without loading a value.
-    pub fn count_between(
-        &self,
-        start: DateTime<Utc>,
-        end: DateTime<Utc>,
-    ) -> Result<Vec<(String, u64)>> {
-        let stored = load_characteristics(&self.conn)?;
-        let mut stmt = self.conn.prepare_cached(
-            "SELECT COUNT(*) FROM measurements WHERE characteristic_id = ?1 \
-             AND ts_ms >= ?2 AND ts_ms < ?3",
-        )?;
-        stored
-            .iter()
-            .map(|c| {
-                let n: i64 = stmt.query_row(
-                    rusqlite::params![c.id, start.timestamp_millis(), end.timestamp_millis()],
-                    |r| r.get(0),
-                )?;
-                Ok((c.config.name.clone(), n as u64))
-            })
-            .collect()
-    }
-
-    /// Whether any measurement lies in `[start, end)` (one index probe per characteristic).
-    pub fn has_data_between(&self, start: DateTime<Utc>, end: DateTime<Utc>) -> Result<bool> {
-        let stored = load_characteristics(&self.conn)?;
-        let mut stmt = self.conn.prepare_cached(
-            "SELECT EXISTS (SELECT 1 FROM measurements WHERE characteristic_id = ?1 \
-             AND ts_ms >= ?2 AND ts_ms < ?3)",
-        )?;
-        for c in &stored {
-            let found: bool = stmt.query_row(
-                rusqlite::params![c.id, start.timestamp_millis(), end.timestamp_millis()],
-                |r| r.get(0),
-            )?;
-            if found {
-                return Ok(true);
-            }
-        }
-        Ok(false)
-    }
-
-    /// The measurements with `start <= ts < end` of the characteristics named (all when `None`),
-    /// columnar and in time order, read in one pass per characteristic.
-    ///
-    /// An unknown name is an error that suggests the closest known one. A characteristic without
-    /// measurements in the period gives an empty frame.
-    pub fn load_period(
-        &self,
-        start: DateTime<Utc>,
-        end: DateTime<Utc>,
-        characteristics: Option<&[String]>,
-    ) -> Result<PeriodFrame> {
-        let stored = load_characteristics(&self.conn)?;
-        let chosen: Vec<&StoredCharacteristic> = match characteristics {
-            None => stored.iter().collect(),
-            Some(names) => names
-                .iter()
-                .map(|n| {
-                    stored
-                        .iter()
-                        .find(|c| &c.config.name == n)
-                        .ok_or_else(|| unknown_characteristic(n, &stored))
-                })
-                .collect::<Result<_>>()?,
-        };
-        let factors: Vec<_> = load_factors(&self.conn)?
-            .into_iter()
-            .filter(|f| f.is_configured)
-            .collect();
-        let mut cache = self.level_cache.borrow_mut();
-        let factor_ids: Vec<i64> = factors.iter().map(|f| f.id).collect();
-        if cache.factor_ids != factor_ids {
-            cache.clear();
-            cache.factor_ids = factor_ids;
-        }
-        let n_factors = factors.len();
-        let mut frame_levels = FrameLevels {
-            n_factors,
-            level_index: vec![IdIndex::default(); n_factors],
-            level_order: vec![Vec::new(); n_factors],
-            set_slot: IdIndex::default(),
-            set_levels: Vec::new(),
-        };
-
-        let mut rows_stmt = self.conn.prepare_cached(
-            "SELECT ts_ms, value, level_set_id, subgroup FROM measurements \
-             WHERE characteristic_id = ?1 AND ts_ms >= ?2 AND ts_ms < ?3",
-        )?;
-        // Subgroup ids numbered per frame; the previous row's id is checked first (the parts of
-        // one shot are neighbours in time order).
-        let mut subgroup_ids: FxMap<Box<[u8]>, u32> = FxMap::default();
-        let mut frames = Vec::with_capacity(chosen.len());
-        let mut sets: Vec<i64> = Vec::new();
-        let mut missing: Vec<i64> = Vec::new();
-        for c in chosen {
-            let mut ts_ms = Vec::new();
-            let mut values = Vec::new();
-            let mut subgroup_idx: Vec<u32> = Vec::new();
-            let mut any_subgroup = false;
-            let mut last_subgroup: (Vec<u8>, u32) = (Vec::new(), NO_SUBGROUP);
-            subgroup_ids.clear();
-            sets.clear();
-            let mut rows = rows_stmt.query(rusqlite::params![
-                c.id,
-                start.timestamp_millis(),
-                end.timestamp_millis()
-            ])?;
-            while let Some(row) = rows.next()? {
-                ts_ms.push(row.get::<_, i64>(0)?);
-                values.push(row.get::<_, f64>(1)?);
-                sets.push(row.get::<_, i64>(2)?);
-                let id = match row.get_ref(3)? {
-                    rusqlite::types::ValueRef::Text(t) => {
-                        if last_subgroup.1 != NO_SUBGROUP && last_subgroup.0 == t {
-                            last_subgroup.1
-                        } else {
-                            let next = subgroup_ids.len() as u32;
-                            let id = *subgroup_ids.entry(t.into()).or_insert(next);
-                            last_subgroup.0.clear();
-                            last_subgroup.0.extend_from_slice(t);
-                            last_subgroup.1 = id;
-                            id
-                        }
-                    }
-                    _ => NO_SUBGROUP,
-                };
-                if id != NO_SUBGROUP && !any_subgroup {
-                    any_subgroup = true;
-                    subgroup_idx.resize(values.len() - 1, NO_SUBGROUP);
-                }
-                if any_subgroup {
-                    subgroup_idx.push(id);
-                }
-            }
-            drop(rows);
-            // Resolve each level set of the frame once: from the cache, or fetched in bulk.
-            missing.clear();
-            for &set in &sets {
-                if frame_levels.set_slot.get(set).is_none() {
-                    match cache.sets.get(set) {
-                        Some(start) => frame_levels.resolve(set, start, &cache),
-                        None => missing.push(set),
-                    }
-                }
-            }
-            missing.sort_unstable();
-            missing.dedup();
-            fetch_level_sets(&self.conn, &mut cache, &missing)?;
-            for &set in &missing {
-                let start = cache.sets.get(set).expect("fetched above");
-                frame_levels.resolve(set, start, &cache);
-            }
-            let mut level_idx: Vec<Vec<u32>> = vec![Vec::with_capacity(sets.len()); n_factors];
-            for set in &sets {
-                let levels = frame_levels.levels_of(*set);
-                for (column, &level) in level_idx.iter_mut().zip(levels) {
-                    column.push(level);
-                }
-            }
-            frames.push(CharacteristicFrame {
-                characteristic: c.config.clone(),
-                origin: c.origin.unwrap_or(Decimal::ZERO),
-                values,
-                ts_ms,
-                level_idx,
-                subgroup_idx,
-            });
-        }
-        // Sort each factor's levels by name and renumber.
-        let mut factor_levels = Vec::with_capacity(n_factors);
-        for (f, factor) in factors.iter().enumerate() {
-            let names: Vec<String> = frame_levels.level_order[f]
-                .iter()
-                .map(|&id| match cache.levels.get(&id) {
-                    Some((_, name)) if id != 0 => name.clone(),
-                    _ => NO_LEVEL.to_string(),
-                })
-                .collect();
-            let mut order: Vec<usize> = (0..names.len()).collect();
-            order.sort_by(|&a, &b| natural_cmp(&names[a], &names[b]));
-            let mut renumber = vec![0u32; names.len()];
-            for (new, &old) in order.iter().enumerate() {
-                renumber[old] = new as u32;
-            }
-            for frame in &mut frames {
-                for i in frame.level_idx[f].iter_mut() {
-                    *i = renumber[*i as usize];
-                }
-            }
-            factor_levels.push(FactorLevels {
-                name: factor.name.clone(),
-                levels: order.iter().map(|&i| names[i].clone()).collect(),
-            });
-        }
-        Ok(PeriodFrame {
-            factors: factor_levels,
-            characteristics: frames,
-        })
-    }
-}
-
 /// A map from database ids (rowids: allocated from 1 upwards, so dense) to small values: a
 /// vector indexed by the id, with a hash map for ids too large or negative to index by (which
 /// samewise never writes, but a database may hold). Resolving the level sets of a frame is a
@@ -564,10 +360,38 @@ impl MeasurementStore for Store {
         start: DateTime<Utc>,
         end: DateTime<Utc>,
     ) -> Result<Vec<(String, u64)>> {
-        Store::count_between(self, start, end)
+        let stored = load_characteristics(&self.conn)?;
+        let mut stmt = self.conn.prepare_cached(
+            "SELECT COUNT(*) FROM measurements WHERE characteristic_id = ?1 \
+             AND ts_ms >= ?2 AND ts_ms < ?3",
+        )?;
+        stored
+            .iter()
+            .map(|c| {
+                let n: i64 = stmt.query_row(
+                    rusqlite::params![c.id, start.timestamp_millis(), end.timestamp_millis()],
+                    |r| r.get(0),
+                )?;
+                Ok((c.config.name.clone(), n as u64))
+            })
+            .collect()
     }
     fn has_data_between(&self, start: DateTime<Utc>, end: DateTime<Utc>) -> Result<bool> {
-        Store::has_data_between(self, start, end)
+        let stored = load_characteristics(&self.conn)?;
+        let mut stmt = self.conn.prepare_cached(
+            "SELECT EXISTS (SELECT 1 FROM measurements WHERE characteristic_id = ?1 \
+             AND ts_ms >= ?2 AND ts_ms < ?3)",
+        )?;
+        for c in &stored {
+            let found: bool = stmt.query_row(
+                rusqlite::params![c.id, start.timestamp_millis(), end.timestamp_millis()],
+                |r| r.get(0),
+            )?;
+            if found {
+                return Ok(true);
+            }
+        }
+        Ok(false)
     }
     fn load_period(
         &self,
@@ -575,13 +399,158 @@ impl MeasurementStore for Store {
         end: DateTime<Utc>,
         characteristics: Option<&[String]>,
     ) -> Result<PeriodFrame> {
-        Store::load_period(self, start, end, characteristics)
+        let stored = load_characteristics(&self.conn)?;
+        let chosen: Vec<&StoredCharacteristic> = match characteristics {
+            None => stored.iter().collect(),
+            Some(names) => names
+                .iter()
+                .map(|n| {
+                    stored
+                        .iter()
+                        .find(|c| &c.config.name == n)
+                        .ok_or_else(|| unknown_characteristic(n, &stored))
+                })
+                .collect::<Result<_>>()?,
+        };
+        let factors: Vec<_> = load_factors(&self.conn)?
+            .into_iter()
+            .filter(|f| f.is_configured)
+            .collect();
+        let mut cache = self.level_cache.borrow_mut();
+        let factor_ids: Vec<i64> = factors.iter().map(|f| f.id).collect();
+        if cache.factor_ids != factor_ids {
+            cache.clear();
+            cache.factor_ids = factor_ids;
+        }
+        let n_factors = factors.len();
+        let mut frame_levels = FrameLevels {
+            n_factors,
+            level_index: vec![IdIndex::default(); n_factors],
+            level_order: vec![Vec::new(); n_factors],
+            set_slot: IdIndex::default(),
+            set_levels: Vec::new(),
+        };
+
+        let mut rows_stmt = self.conn.prepare_cached(
+            "SELECT ts_ms, value, level_set_id, subgroup FROM measurements \
+             WHERE characteristic_id = ?1 AND ts_ms >= ?2 AND ts_ms < ?3",
+        )?;
+        // Subgroup ids numbered per frame; the previous row's id is checked first (the parts of
+        // one shot are neighbours in time order).
+        let mut subgroup_ids: FxMap<Box<[u8]>, u32> = FxMap::default();
+        let mut frames = Vec::with_capacity(chosen.len());
+        let mut sets: Vec<i64> = Vec::new();
+        let mut missing: Vec<i64> = Vec::new();
+        for c in chosen {
+            let mut ts_ms = Vec::new();
+            let mut values = Vec::new();
+            let mut subgroup_idx: Vec<u32> = Vec::new();
+            let mut any_subgroup = false;
+            let mut last_subgroup: (Vec<u8>, u32) = (Vec::new(), NO_SUBGROUP);
+            subgroup_ids.clear();
+            sets.clear();
+            let mut rows = rows_stmt.query(rusqlite::params![
+                c.id,
+                start.timestamp_millis(),
+                end.timestamp_millis()
+            ])?;
+            while let Some(row) = rows.next()? {
+                ts_ms.push(row.get::<_, i64>(0)?);
+                values.push(row.get::<_, f64>(1)?);
+                sets.push(row.get::<_, i64>(2)?);
+                let id = match row.get_ref(3)? {
+                    rusqlite::types::ValueRef::Text(t) => {
+                        if last_subgroup.1 != NO_SUBGROUP && last_subgroup.0 == t {
+                            last_subgroup.1
+                        } else {
+                            let next = subgroup_ids.len() as u32;
+                            let id = *subgroup_ids.entry(t.into()).or_insert(next);
+                            last_subgroup.0.clear();
+                            last_subgroup.0.extend_from_slice(t);
+                            last_subgroup.1 = id;
+                            id
+                        }
+                    }
+                    _ => NO_SUBGROUP,
+                };
+                if id != NO_SUBGROUP && !any_subgroup {
+                    any_subgroup = true;
+                    subgroup_idx.resize(values.len() - 1, NO_SUBGROUP);
+                }
+                if any_subgroup {
+                    subgroup_idx.push(id);
+                }
+            }
+            drop(rows);
+            // Resolve each level set of the frame once: from the cache, or fetched in bulk.
+            missing.clear();
+            for &set in &sets {
+                if frame_levels.set_slot.get(set).is_none() {
+                    match cache.sets.get(set) {
+                        Some(start) => frame_levels.resolve(set, start, &cache),
+                        None => missing.push(set),
+                    }
+                }
+            }
+            missing.sort_unstable();
+            missing.dedup();
+            fetch_level_sets(&self.conn, &mut cache, &missing)?;
+            for &set in &missing {
+                let start = cache.sets.get(set).expect("fetched above");
+                frame_levels.resolve(set, start, &cache);
+            }
+            let mut level_idx: Vec<Vec<u32>> = vec![Vec::with_capacity(sets.len()); n_factors];
+            for set in &sets {
+                let levels = frame_levels.levels_of(*set);
+                for (column, &level) in level_idx.iter_mut().zip(levels) {
+                    column.push(level);
+                }
+            }
+            frames.push(CharacteristicFrame {
+                characteristic: c.config.clone(),
+                origin: c.origin.unwrap_or(Decimal::ZERO),
+                values,
+                ts_ms,
+                level_idx,
+                subgroup_idx,
+            });
+        }
+        // Sort each factor's levels by name and renumber.
+        let mut factor_levels = Vec::with_capacity(n_factors);
+        for (f, factor) in factors.iter().enumerate() {
+            let names: Vec<String> = frame_levels.level_order[f]
+                .iter()
+                .map(|&id| match cache.levels.get(&id) {
+                    Some((_, name)) if id != 0 => name.clone(),
+                    _ => NO_LEVEL.to_string(),
+                })
+                .collect();
+            let mut order: Vec<usize> = (0..names.len()).collect();
+            order.sort_by(|&a, &b| natural_cmp(&names[a], &names[b]));
+            let mut renumber = vec![0u32; names.len()];
+            for (new, &old) in order.iter().enumerate() {
+                renumber[old] = new as u32;
+            }
+            for frame in &mut frames {
+                for i in frame.level_idx[f].iter_mut() {
+                    *i = renumber[*i as usize];
+                }
+            }
+            factor_levels.push(FactorLevels {
+                name: factor.name.clone(),
+                levels: order.iter().map(|&i| names[i].clone()).collect(),
+            });
+        }
+        Ok(PeriodFrame {
+            factors: factor_levels,
+            characteristics: frames,
+        })
     }
     fn level_case_collisions(&self) -> Result<Vec<(String, Vec<String>)>> {
         Store::level_case_collisions(self)
     }
     fn reader_opener(&self) -> Option<ReaderOpener> {
-        let path = self.path()?.to_path_buf();
+        let path = self.path.clone()?;
         Some(Box::new(move || {
             Store::open_reader(&path).map(|s| Box::new(s) as Box<dyn MeasurementStore + Send>)
         }))

@@ -818,7 +818,8 @@ pub(super) fn flagged_tests(
         let rows = rows_of_run(
             conn,
             "SELECT characteristic, factor FROM run_result
-             WHERE run_id = ?1 AND state IN ('differs_material', 'differs')",
+             WHERE run_id = ?1 AND state IN ('differs_material', 'differs')
+             ORDER BY test_idx",
             run.run_id,
             |r| Ok((r.get(0)?, r.get(1)?)),
         )?;
@@ -961,37 +962,76 @@ pub(super) fn release_lease(conn: &Connection, key: &LeaseKey, holder: &str) -> 
 }
 
 /// The run history and its leases, as the rest of samewise sees them: what a second backend
-/// implements. Times are milliseconds since the Unix epoch, UTC. The lifecycle these serve is in
-/// `schedule::lifecycle` (one for `check` and the scheduler alike).
+/// implements. The lifecycle these serve is in `schedule::lifecycle` (one for `check` and the
+/// scheduler alike); the module documentation above describes a run's states.
+///
+/// Contract common to every method:
+/// - Times are integer milliseconds since the Unix epoch, UTC. A period is named by its kind
+///   (`shift`, `day`, `week`, `month`, `range`) and label; a run by its id, which increases
+///   with every run begun.
+/// - Every write is atomic: it is committed whole or not at all, and a failed call leaves the
+///   store as it was. A method that reads several tables reads them in one consistent
+///   snapshot, so a write committed by another process meanwhile is seen whole or not at all.
+/// - Readers of results only ever see `complete` runs; a `running` or `failed` run has no
+///   results to read.
+/// - Errors: `Error::Storage` for the backend's own failures (a busy database among them), and
+///   `Error::Database` for stored data that breaks these rules; an unknown period or run is
+///   not an error for the readers below (they return `None` or an empty list).
 pub trait RunStore {
-    /// Commits a `running` row with the next version of its period.
+    /// Begins a run of the period in `header`: commits a row with status `running`, the next
+    /// version number of its period (1 for the first run, one more than the highest version of
+    /// any status otherwise), `started_ms`, and the highest import id at this moment (which
+    /// later tells whether the period went stale). Returns the row as stored. Two runs of one
+    /// period begun at once get different versions; callers keep them apart with the period's
+    /// lease.
     fn begin_run(&mut self, header: &RunHeader, started_ms: i64) -> Result<StoredRun>;
-    /// Writes every result of the run and marks it `complete`, all or nothing; fails when the
-    /// run is no longer `running`.
+    /// Writes every result of the run (each test with its groups and pairs, in test order) and
+    /// marks the run `complete` with `finished_ms`, the number of tests and of flagged tests,
+    /// all in one transaction. Fails with `Error::Database`, writing nothing, when the run is
+    /// no longer `running` (a recovery marked it abandoned meanwhile).
     fn complete_run(&mut self, run_id: i64, finished_ms: i64, content: &RunContent) -> Result<()>;
-    /// Marks a running run `failed`, keeping the error text.
+    /// Marks the run `failed` with `finished_ms` and the error text, which is kept for the
+    /// history. Only a `running` run changes; for any other run (or an unknown id) this does
+    /// nothing and is not an error. No result of the run is written.
     fn fail_run(&self, run_id: i64, finished_ms: i64, error: &str) -> Result<()>;
-    /// Marks `failed` every running run whose lease is gone or expired; returns how many.
+    /// Marks `failed` (with an "abandoned: ..." error) every `running` run whose lease (its
+    /// schedule, or none for a run by hand, and its period) is missing or expired at `now_ms`,
+    /// in one statement; returns how many runs changed. A run whose holder still holds a live
+    /// lease is left alone.
     fn recover_abandoned(&self, now_ms: i64) -> Result<usize>;
-    /// Marks `failed` the running runs of the lease's period (the caller holds its lease).
+    /// Marks `failed` ("abandoned: ...") the `running` runs of the schedule and period of
+    /// `key`; returns how many changed. The caller holds that lease, so no other process can
+    /// be running them: they were left by a process that stopped.
     fn abandon_running(&self, key: &LeaseKey, now_ms: i64) -> Result<usize>;
-    /// Complete versions of a period's run.
+    /// How many `complete` versions the period's run has (0 when none): more than one means
+    /// the period was checked again and its results are shown as revised.
     fn complete_versions(&self, period_kind: &str, period_label: &str) -> Result<i64>;
-    /// The highest complete version of a period's run.
+    /// The `complete` run of the period with the highest version, or `None` when the period
+    /// has none (running and failed versions are never returned).
     fn latest_complete_run(
         &self,
         period_kind: &str,
         period_label: &str,
     ) -> Result<Option<StoredRun>>;
-    /// Every run of a period, oldest version first.
+    /// Every run of the period, of any status, in version order (oldest first); empty when the
+    /// period was never run.
     fn runs_of_period(&self, period_kind: &str, period_label: &str) -> Result<Vec<StoredRun>>;
-    /// Every run.
+    /// Every run of every period, of any status, in the order they were begun (run id order).
     fn all_runs(&self) -> Result<Vec<StoredRun>>;
-    /// Labels of the periods of a kind (and schedule) that are done: complete and not stale.
+    /// The labels of the periods of `period_kind` run by `schedule` (`None`: by hand) that are
+    /// done, in label order: a `complete` run exists, and no import that stored measurements
+    /// inside the period, and no undo of one, came after its latest complete run began. A
+    /// period not listed is due (again).
     fn completed_labels(&self, schedule: Option<&str>, period_kind: &str) -> Result<Vec<String>>;
-    /// The full content of a run.
+    /// The full content of a run: its tests in test order, each with its groups (in group
+    /// order) and pairs (in the order written), read in one snapshot. A run without results
+    /// (running, failed, or an unknown id) gives an empty content. A stored group or pair of a
+    /// test the run does not hold is an `Error::Database` naming the run, never dropped.
     fn run_content(&self, run_id: i64) -> Result<RunContent>;
-    /// The latest complete result of a characteristic x factor over the last `last` periods.
+    /// The result of `characteristic` x `factor` in the latest complete run of each of the
+    /// last `last` periods of `period_kind` that hold it, oldest period first (by period
+    /// start), each with its run and the number of complete versions of its period; the
+    /// results come without groups and pairs. Empty when no run holds the test.
     fn history(
         &self,
         characteristic: &str,
@@ -999,20 +1039,26 @@ pub trait RunStore {
         period_kind: &str,
         last: usize,
     ) -> Result<Vec<HistoryPoint>>;
-    /// The latest complete runs of the periods of a kind starting in `[start_ms, end_ms)`.
+    /// The latest complete run of every period of `period_kind` whose start lies in
+    /// `[start_ms, end_ms)`, in time order (ties by label); periods without a complete run are
+    /// left out. The month report and the charts read these.
     fn latest_complete_runs_between(
         &self,
         period_kind: &str,
         start_ms: i64,
         end_ms: i64,
     ) -> Result<Vec<StoredRun>>;
-    /// Flagged (characteristic, factor) pairs of a period's latest complete run.
+    /// The (characteristic, factor) pairs flagged (states `differs_material` and `differs`) in
+    /// the period's latest complete run, in test order; `None` when the period has no complete
+    /// run, an empty list when it has one without flags.
     fn flagged_tests(
         &self,
         period_kind: &str,
         period_label: &str,
     ) -> Result<Option<Vec<(String, String)>>>;
-    /// The latest complete run of a period with its content. Reads only.
+    /// The latest complete run of the period with its content ([`RunStore::run_content`]),
+    /// `None` when the period has no complete run. Reads only. The default reads the two one
+    /// after the other; a backend should read both in one snapshot (the SQLite one does).
     fn latest_run(
         &self,
         period_kind: &str,
@@ -1024,17 +1070,25 @@ pub trait RunStore {
         let content = self.run_content(run.run_id)?;
         Ok(Some((run, content)))
     }
-    /// The earliest measurement instant, `None` when there is none.
+    /// The earliest measurement instant in the store, `None` when it holds no measurement
+    /// (where a schedule's periods start).
     fn first_measurement_ms(&self) -> Result<Option<i64>>;
-    /// Leases taken and not released.
+    /// How many leases exist (taken and not released, expired ones included).
     fn lease_count(&self) -> Result<usize>;
-    /// Takes a free or expired lease; `false` when someone else holds it.
+    /// Takes the lease of `key` for `holder` until `now_ms + ttl_ms`, atomically: succeeds
+    /// when no lease exists, when the existing one expired at or before `now_ms`, or when
+    /// `holder` holds it already (then it is renewed). Returns whether `holder` holds it now;
+    /// `false` when another holder's lease is still live (nothing changes then).
     fn take_lease(&self, key: &LeaseKey, holder: &str, now_ms: i64, ttl_ms: i64) -> Result<bool>;
-    /// Renews a lease this holder still holds; `false` when it lost it.
+    /// Extends the lease of `key` to `now_ms + ttl_ms` if `holder` still holds it; returns
+    /// `false` (changing nothing) when it does not, e.g. after another process took the
+    /// expired lease over.
     fn heartbeat(&self, key: &LeaseKey, holder: &str, now_ms: i64, ttl_ms: i64) -> Result<bool>;
-    /// The holder of a lease, if any.
+    /// The holder of the lease of `key`, expired or not; `None` when there is no lease.
     fn lease_holder(&self, key: &LeaseKey) -> Result<Option<String>>;
-    /// Takes over a lease from `old` (whose process is known to be gone).
+    /// Takes the lease of `key` over from `old` (whose process is known to be gone) for
+    /// `holder` until `now_ms + ttl_ms`, atomically: only while `old` still holds it. Returns
+    /// whether it was taken; `false` when someone else took it first.
     fn take_over_lease(
         &self,
         key: &LeaseKey,
@@ -1043,7 +1097,8 @@ pub trait RunStore {
         now_ms: i64,
         ttl_ms: i64,
     ) -> Result<bool>;
-    /// Releases a lease this holder holds.
+    /// Releases the lease of `key` if `holder` holds it; does nothing (and is not an error)
+    /// when another holder, or nobody, holds it.
     fn release_lease(&self, key: &LeaseKey, holder: &str) -> Result<()>;
 }
 
