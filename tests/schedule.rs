@@ -16,7 +16,8 @@ use samewise::config::{Config, ScheduleConfig};
 use samewise::model::Period;
 use samewise::results::{TestResult, TestState};
 use samewise::schedule::{self, Clock, PeriodOutcome, PeriodRunner, SchedulerOptions};
-use samewise::storage::runs::{RunContent, RunHeader};
+use samewise::stats::fdr::FdrMethod;
+use samewise::storage::runs::{RunContent, RunHeader, RunStatus};
 use samewise::storage::PlantStore;
 
 const CONFIG: &str = r#"
@@ -97,14 +98,14 @@ impl PeriodRunner for Recorder {
     }
     fn header(&self, schedule: &ScheduleConfig, period: &Period) -> RunHeader {
         RunHeader {
-            period_kind: period.kind.as_str().into(),
+            period_kind: period.kind,
             period_label: period.label.clone(),
             period_start_ms: period.start.timestamp_millis(),
             period_end_ms: period.end.timestamp_millis(),
             schedule: Some(schedule.name.clone()),
             config_hash: "test".into(),
             tool_version: env!("CARGO_PKG_VERSION").into(),
-            fdr_method: "bh".into(),
+            fdr_method: FdrMethod::BenjaminiHochberg,
             fdr_level: 0.05,
         }
     }
@@ -196,7 +197,7 @@ fn three_weeks_with_outage_every_period_once_in_order_across_dst() {
     assert_eq!(failed.len(), 1);
     assert_eq!(failed[0].period, "2026-10-20");
     let all = conn.all_runs().unwrap();
-    let f = all.iter().find(|r| r.status == "failed").unwrap();
+    let f = all.iter().find(|r| r.status == RunStatus::Failed).unwrap();
     assert_eq!(f.header.period_label, "2026-10-20");
     assert_eq!(f.error.as_deref(), Some("injected failure for 2026-10-20"));
 
@@ -219,7 +220,10 @@ fn three_weeks_with_outage_every_period_once_in_order_across_dst() {
     );
 
     let all = conn.all_runs().unwrap();
-    let complete: Vec<_> = all.iter().filter(|r| r.status == "complete").collect();
+    let complete: Vec<_> = all
+        .iter()
+        .filter(|r| r.status == RunStatus::Complete)
+        .collect();
     // Daily: production days 2026-10-12 .. 2026-11-01 (day 11-01 ends 11-02 06:00, due 08:00).
     let daily: Vec<String> = complete
         .iter()
@@ -248,7 +252,11 @@ fn three_weeks_with_outage_every_period_once_in_order_across_dst() {
     assert_eq!(weekly, ["2026-W42", "2026-W43"]);
     // Every run started no earlier than its period's end + delay.
     for r in &complete {
-        let delay = if r.header.period_kind == "day" { 2 } else { 6 };
+        let delay = if r.header.period_kind == samewise::model::PeriodKind::Day {
+            2
+        } else {
+            6
+        };
         assert!(r.started_ms >= r.header.period_end_ms + delay * 3_600_000);
     }
     // Catch-up after the outage (Fri 10-23 12:00 to Sun 10-25 12:00 local): days 10-23 and 10-24
@@ -332,7 +340,7 @@ fn shift_schedule_across_dst_spring_forward() {
         night.header.period_end_ms - night.header.period_start_ms,
         7 * 3_600_000
     );
-    assert!(all.iter().all(|r| r.status == "complete"));
+    assert!(all.iter().all(|r| r.status == RunStatus::Complete));
 }
 
 #[test]
@@ -376,7 +384,9 @@ fn two_schedulers_at_once_run_each_period_once() {
     let all = conn.all_runs().unwrap();
     // 14 days (11-02 .. 11-15) and 2 weeks (W45, W46): each run exactly once, by one of the two.
     assert_eq!(all.len(), 16, "{all:#?}");
-    assert!(all.iter().all(|r| r.status == "complete" && r.version == 1));
+    assert!(all
+        .iter()
+        .all(|r| r.status == RunStatus::Complete && r.version == 1));
     let mut labels: Vec<_> = all.iter().map(|r| r.header.period_label.clone()).collect();
     labels.sort();
     labels.dedup();
@@ -521,7 +531,7 @@ fn killed_scheduler_leaves_no_partial_run_and_next_start_redoes_it() {
     loop {
         let store = common::open_store(&dir, "plant.db");
         let all = store.all_runs().unwrap();
-        if all.iter().any(|r| r.status == "running") {
+        if all.iter().any(|r| r.status == RunStatus::Running) {
             break;
         }
         assert!(started.elapsed().as_secs() < 60, "no run started");
@@ -532,7 +542,7 @@ fn killed_scheduler_leaves_no_partial_run_and_next_start_redoes_it() {
     let store = common::open_store(&dir, "plant.db");
     let all = store.all_runs().unwrap();
     assert_eq!(all.len(), 1);
-    assert_eq!(all[0].status, "running");
+    assert_eq!(all[0].status, RunStatus::Running);
     assert!(store.run_content(all[0].run_id).unwrap().tests.is_empty());
     drop(store);
     let out = common::samewise(&dir, &["schedule", "due", "--now", "2026-11-30T12:00:00Z"]);
@@ -545,9 +555,12 @@ fn killed_scheduler_leaves_no_partial_run_and_next_start_redoes_it() {
     let store = common::open_store(&dir, "plant.db");
     let all = store.all_runs().unwrap();
     let killed = &all[0];
-    assert_eq!(killed.status, "failed");
+    assert_eq!(killed.status, RunStatus::Failed);
     assert!(killed.error.as_deref().unwrap().starts_with("abandoned"));
-    let complete: Vec<_> = all.iter().filter(|r| r.status == "complete").collect();
+    let complete: Vec<_> = all
+        .iter()
+        .filter(|r| r.status == RunStatus::Complete)
+        .collect();
     let labels: Vec<_> = complete
         .iter()
         .map(|r| r.header.period_label.as_str())

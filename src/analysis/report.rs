@@ -83,8 +83,9 @@ pub fn load_runs(
         .into_iter()
         .map(|run| {
             let content = store.run_content(run.run_id)?;
-            let revised =
-                store.complete_versions(&run.header.period_kind, &run.header.period_label)? > 1;
+            let revised = store
+                .complete_versions(run.header.period_kind.as_str(), &run.header.period_label)?
+                > 1;
             Ok(LoadedRun {
                 run,
                 content,

@@ -18,18 +18,20 @@
 
 use rusqlite::{params, Connection, OptionalExtension, Row, ToSql, TransactionBehavior};
 
+use crate::model::PeriodKind;
 use crate::results::{
     AnovaResult, ComponentsResult, DesignKind, DesignResult, EffectResult, GroupResult, Interval,
     KruskalResult, LeadingResult, LeadingTest, OptInterval, PairResult, Sensitivity, SerialResult,
     ShapiroResult, StandsOut, StatP, TestResult, TestState, WelchResult,
 };
+use crate::stats::fdr::FdrMethod;
 use crate::Result;
 
 /// The identity and settings of one run, written when it starts.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, serde::Serialize, serde::Deserialize)]
 pub struct RunHeader {
-    /// `shift`, `day`, `week`, `month` or `range`.
-    pub period_kind: String,
+    /// The kind of the period checked.
+    pub period_kind: PeriodKind,
     /// The period's label (`2026-11-30`, `2026-W48`, ...).
     pub period_label: String,
     /// Period start, ms since the epoch (inclusive).
@@ -42,14 +44,51 @@ pub struct RunHeader {
     pub config_hash: String,
     /// samewise version.
     pub tool_version: String,
-    /// `bh` or `by`.
-    pub fdr_method: String,
+    /// The false-discovery procedure of the flags.
+    pub fdr_method: FdrMethod,
     /// The FDR level used for the flags.
     pub fdr_level: f64,
 }
 
+/// Where a run stands; stored as its lowercase name ([`RunStatus::as_str`]).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum RunStatus {
+    /// Begun; no result is written yet (a process that stopped leaves it so until a recovery
+    /// marks it failed).
+    Running,
+    /// Every result written: the only status whose results are read.
+    Complete,
+    /// Ended by an error (kept with the run) or abandoned; no results.
+    Failed,
+}
+
+impl RunStatus {
+    /// The stored name: `running`, `complete` or `failed`.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            RunStatus::Running => "running",
+            RunStatus::Complete => "complete",
+            RunStatus::Failed => "failed",
+        }
+    }
+
+    /// The status of a stored name; `None` for any other text.
+    pub fn parse(text: &str) -> Option<RunStatus> {
+        [RunStatus::Running, RunStatus::Complete, RunStatus::Failed]
+            .into_iter()
+            .find(|s| s.as_str() == text)
+    }
+}
+
+impl std::fmt::Display for RunStatus {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(self.as_str())
+    }
+}
+
 /// A stored run row.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, serde::Serialize, serde::Deserialize)]
 pub struct StoredRun {
     /// Row id.
     pub run_id: i64,
@@ -61,8 +100,8 @@ pub struct StoredRun {
     pub started_ms: i64,
     /// End, ms since the epoch (absent while running).
     pub finished_ms: Option<i64>,
-    /// `running`, `complete` or `failed`.
-    pub status: String,
+    /// Where the run stands.
+    pub status: RunStatus,
     /// Error text of a failed run.
     pub error: Option<String>,
     /// Number of tests (complete runs).
@@ -82,7 +121,7 @@ pub(super) fn begin_run(
     let tx = conn.transaction_with_behavior(TransactionBehavior::Immediate)?;
     let version: i64 = tx.query_row(
         "SELECT COALESCE(MAX(version), 0) + 1 FROM run WHERE period_kind = ?1 AND period_label = ?2",
-        params![header.period_kind, header.period_label],
+        params![header.period_kind.as_str(), header.period_label],
         |r| r.get(0),
     )?;
     tx.execute(
@@ -92,7 +131,7 @@ pub(super) fn begin_run(
          VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, 'running',
             (SELECT COALESCE(MAX(id), 0) FROM imports))",
         params![
-            header.period_kind,
+            header.period_kind.as_str(),
             header.period_label,
             header.period_start_ms,
             header.period_end_ms,
@@ -100,7 +139,7 @@ pub(super) fn begin_run(
             version,
             header.config_hash,
             header.tool_version,
-            header.fdr_method,
+            header.fdr_method.key(),
             header.fdr_level,
             started_ms
         ],
@@ -113,7 +152,7 @@ pub(super) fn begin_run(
         header: header.clone(),
         started_ms,
         finished_ms: None,
-        status: "running".into(),
+        status: RunStatus::Running,
         error: None,
         n_tests: None,
         n_flagged: None,
@@ -350,19 +389,19 @@ fn run_from_row(r: &Row<'_>) -> rusqlite::Result<StoredRun> {
         run_id: r.get(0)?,
         version: r.get(1)?,
         header: RunHeader {
-            period_kind: r.get(2)?,
+            period_kind: stored_name(r, 2, "period kind", PeriodKind::parse)?,
             period_label: r.get(3)?,
             period_start_ms: r.get(4)?,
             period_end_ms: r.get(5)?,
             schedule: r.get(6)?,
             config_hash: r.get(7)?,
             tool_version: r.get(8)?,
-            fdr_method: r.get(9)?,
+            fdr_method: stored_name(r, 9, "false-discovery method", FdrMethod::from_key)?,
             fdr_level: r.get(10)?,
         },
         started_ms: r.get(11)?,
         finished_ms: r.get(12)?,
-        status: r.get(13)?,
+        status: stored_name(r, 13, "run status", RunStatus::parse)?,
         error: r.get(14)?,
         n_tests: r.get(15)?,
         n_flagged: r.get(16)?,
@@ -475,7 +514,24 @@ pub(super) fn named<T>(
         rusqlite::Error::FromSqlConversionFailure(
             idx,
             rusqlite::types::Type::Text,
-            format!("unknown {what} {text:?} in run_result (a newer samewise wrote it?)").into(),
+            format!("unknown {what} {text:?} stored (a newer samewise wrote it?)").into(),
+        )
+    })
+}
+
+/// A text column that must hold one of a fixed set of names, read through `parse`; a null or an
+/// unknown name is a conversion error naming the value.
+fn stored_name<T>(
+    r: &Row<'_>,
+    idx: usize,
+    what: &'static str,
+    parse: fn(&str) -> Option<T>,
+) -> rusqlite::Result<T> {
+    named(r, idx, what, parse)?.ok_or_else(|| {
+        rusqlite::Error::FromSqlConversionFailure(
+            idx,
+            rusqlite::types::Type::Null,
+            format!("no {what} stored").into(),
         )
     })
 }
@@ -777,8 +833,11 @@ fn history_now(
         .collect::<rusqlite::Result<Vec<_>>>()?;
     points.reverse();
     for p in &mut points {
-        p.complete_versions =
-            complete_versions(conn, &p.run.header.period_kind, &p.run.header.period_label)?;
+        p.complete_versions = complete_versions(
+            conn,
+            p.run.header.period_kind.as_str(),
+            &p.run.header.period_label,
+        )?;
     }
     Ok(points)
 }
@@ -1217,14 +1276,14 @@ mod tests {
 
     fn header(label: &str) -> RunHeader {
         RunHeader {
-            period_kind: "day".into(),
+            period_kind: PeriodKind::Day,
             period_label: label.into(),
             period_start_ms: 1000,
             period_end_ms: 2000,
             schedule: Some("daily".into()),
             config_hash: "abc".into(),
             tool_version: "0.1.0".into(),
-            fdr_method: "bh".into(),
+            fdr_method: FdrMethod::BenjaminiHochberg,
             fdr_level: 0.05,
         }
     }
@@ -1316,6 +1375,43 @@ mod tests {
     }
 
     #[test]
+    fn run_fields_travel_as_enums_in_the_stored_vocabulary() {
+        let mut c = conn();
+        let r = begin_run(&mut c, &header("2026-11-30"), 10).unwrap();
+        // Text in the database, in the words of the schema.
+        let stored: (String, String, String) = c
+            .query_row(
+                "SELECT period_kind, fdr_method, status FROM run WHERE run_id = ?1",
+                [r.run_id],
+                |x| Ok((x.get(0)?, x.get(1)?, x.get(2)?)),
+            )
+            .unwrap();
+        assert_eq!(
+            (stored.0.as_str(), stored.1.as_str(), stored.2.as_str()),
+            ("day", "bh", "running")
+        );
+        // The same words when serialized, and back.
+        let read = all_runs(&c).unwrap().remove(0);
+        assert_eq!(read, r);
+        let json = serde_json::to_value(&read).unwrap();
+        assert_eq!(json["status"], "running");
+        assert_eq!(json["header"]["period_kind"], "day");
+        assert_eq!(json["header"]["fdr_method"], "bh");
+        let back: StoredRun = serde_json::from_value(json).unwrap();
+        assert_eq!(back, r);
+        complete_run(&mut c, r.run_id, 20, &content(TestState::Differs)).unwrap();
+        assert_eq!(all_runs(&c).unwrap()[0].status, RunStatus::Complete);
+        // A word this build does not know is an error naming it, never a default.
+        c.execute(
+            "UPDATE run SET period_kind = 'fortnight' WHERE run_id = ?1",
+            [r.run_id],
+        )
+        .unwrap();
+        let err = all_runs(&c).unwrap_err().to_string();
+        assert!(err.contains("unknown period kind \"fortnight\""), "{err}");
+    }
+
+    #[test]
     fn rerun_makes_new_version_and_readers_take_latest_complete() {
         let mut c = conn();
         let r1 = begin_run(&mut c, &header("2026-11-30"), 10).unwrap();
@@ -1350,7 +1446,7 @@ mod tests {
             .unwrap()
             .is_none());
         let all = all_runs(&c).unwrap();
-        assert_eq!(all[0].status, "failed");
+        assert_eq!(all[0].status, RunStatus::Failed);
         assert_eq!(all[0].error.as_deref(), Some("database is locked"));
         // A failed run cannot be completed afterwards, and nothing is written.
         assert!(complete_run(&mut c, r.run_id, 12, &content(TestState::Differs)).is_err());
@@ -1394,7 +1490,7 @@ mod tests {
         // Lease expired: recovered.
         assert_eq!(recover_abandoned(&c, 1200).unwrap(), 1);
         let all = all_runs(&c).unwrap();
-        assert_eq!(all[0].status, "failed");
+        assert_eq!(all[0].status, RunStatus::Failed);
         assert!(all[0].error.as_deref().unwrap().starts_with("abandoned"));
         // The slow original process cannot write afterwards.
         assert!(complete_run(&mut c, r.run_id, 1300, &content(TestState::Differs)).is_err());
