@@ -1,4 +1,4 @@
-//! [`Store::import`]: one file, one transaction, every row stored or rejected.
+//! [`ImportStore::import`]: one file, one transaction, every row stored or rejected.
 //!
 //! The file is read (parsed by `ingest`) in one thread and written in the calling thread, linked
 //! by a small bounded channel of batches, so memory stays constant whatever the file size. The
@@ -6,7 +6,7 @@
 //! sets are written in one IMMEDIATE transaction: a crash, a kill or an error before the commit
 //! leaves the database exactly as it was. The content hash is checked against earlier imports
 //! before the commit; a duplicate is refused (rolled back) unless `force` is set.
-//! [`Store::import_checking_early`] also hashes the file on a third thread while the import runs,
+//! [`ImportStore::import_checking_early`] also hashes the file on a third thread while the import runs,
 //! so a duplicate is refused within the first batches instead of at the end, without hashing
 //! on the writing thread, which bounds the import's speed.
 
@@ -47,10 +47,10 @@ const FIRST_REJECTIONS: usize = 10;
 pub const MAX_KEPT_REJECTIONS: u64 = 10_000;
 
 /// Receives every rejection record of an import as it is written (see
-/// [`Store::import_checking_early`]).
+/// [`ImportStore::import_checking_early`]).
 pub type RejectionSink<'a> = &'a mut dyn FnMut(&Rejection) -> Result<()>;
 
-/// Options of [`Store::import`].
+/// Options of [`ImportStore::import`].
 #[derive(Debug, Clone)]
 pub struct ImportOptions {
     /// Import even when the same content was imported before.

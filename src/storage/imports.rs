@@ -1,4 +1,4 @@
-//! The import log: [`Store::import_records`] lists every import, and [`Store::undo_import`]
+//! The import log: [`ImportStore::import_records`](super::ImportStore::import_records) lists every import, and [`ImportStore::undo_import`](super::ImportStore::undo_import)
 //! removes one import's measurements and rejected rows in one transaction, recording the undo as
 //! an import row of its own (migration 0005), so a checked period it touches becomes stale and
 //! the scheduler checks it again.
@@ -49,7 +49,7 @@ pub struct ImportRecord {
     pub undone_by: Option<i64>,
 }
 
-/// What [`Store::undo_import`] removed.
+/// What [`ImportStore::undo_import`](super::ImportStore::undo_import) removed.
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub struct UndoReport {
     /// The import undone.

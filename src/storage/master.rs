@@ -1,5 +1,5 @@
 //! Master data: characteristics, factors, levels and level sets, and keeping them in step with the
-//! plant configuration ([`Store::sync_config`]).
+//! plant configuration ([`MaintenanceStore::sync_config`](super::MaintenanceStore::sync_config)).
 //!
 //! The configuration is the truth for what a characteristic's limits are and which factors exist;
 //! the database keeps everything it ever stored. So `sync_config` adds and updates, but never
@@ -17,7 +17,7 @@ use crate::{Error, Result};
 
 use super::Store;
 
-/// What [`Store::sync_config`] changed. Every list is sorted as the configuration lists it.
+/// What [`MaintenanceStore::sync_config`](super::MaintenanceStore::sync_config) changed. Every list is sorted as the configuration lists it.
 #[derive(Debug, Clone, Default, PartialEq, Eq)]
 pub struct SyncReport {
     /// Characteristics new in the database.

@@ -306,7 +306,7 @@ impl Store {
     }
 
     /// Opens the database at `path`, creating the file if it does not exist, and applies pending
-    /// migrations. `samewise init` uses this, then [`Store::sync_config`].
+    /// migrations. `samewise init` uses this, then [`MaintenanceStore::sync_config`].
     pub fn open_or_create(path: impl AsRef<Path>) -> Result<Store> {
         let path = path.as_ref();
         if let Some(parent) = path.parent() {

@@ -1,4 +1,4 @@
-//! The analysis read path: [`Store::load_period`] returns a [`PeriodFrame`], the measurements of a
+//! The analysis read path: [`MeasurementStore::load_period`] returns a [`PeriodFrame`], the measurements of a
 //! time window column by column (offsets, instants, and for every factor the level index of each
 //! row), read in one pass over the (characteristic, time) primary key.
 //!

@@ -2,19 +2,23 @@
 //! keep two schedulers from running one period at once. Schema in `migrations/0002_runs.sql`.
 //!
 //! Lifecycle of a run (what a reader can rely on):
-//! 1. [`begin_run`] commits a `run` row with status `running` and the next version number of its
-//!    period. No result rows exist yet.
-//! 2. [`complete_run`] writes every result, group and pair row and flips the status to `complete`,
-//!    all in one transaction. A process killed before that commit leaves only the `running` row.
-//! 3. [`fail_run`] records status `failed` with the error text (kept; the period is retried).
-//! 4. [`recover_abandoned`] marks as `failed` ("abandoned: ...") every `running` row whose lease is
-//!    gone or expired, so a killed run is visible in the history but never read as a result.
+//! 1. [`RunStore::begin_run`] commits a `run` row with status `running` and the next version
+//!    number of its period. No result rows exist yet.
+//! 2. [`RunStore::complete_run`] writes every result, group and pair row and flips the status to
+//!    `complete`, all in one transaction. A process killed before that commit leaves only the
+//!    `running` row.
+//! 3. [`RunStore::fail_run`] records status `failed` with the error text (kept; the period is
+//!    retried).
+//! 4. [`RunStore::recover_abandoned`] marks as `failed` ("abandoned: ...") every `running` row
+//!    whose lease is gone or expired, so a killed run is visible in the history but never read
+//!    as a result.
 //!
-//! Readers ([`latest_complete_run`], [`history`]) only ever see the highest `complete` version.
+//! Readers ([`RunStore::latest_complete_run`], [`RunStore::history`]) only ever see the highest
+//! `complete` version.
 //! Times are integer milliseconds since the Unix epoch, UTC.
 //!
-//! Functions take a `rusqlite::Connection` so they work on any store connection; `Store` exposes
-//! them through its own methods.
+//! The SQLite work is done by functions of this module on a connection (private to `storage`);
+//! the SQLite store's [`RunStore`] implementation calls them, and is the one way in from outside.
 
 use rusqlite::{params, Connection, OptionalExtension, Row, ToSql, TransactionBehavior};
 
