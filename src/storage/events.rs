@@ -10,7 +10,7 @@ use crate::{Error, Result};
 use super::master::{load_characteristics, load_factors};
 use super::query::unknown_characteristic;
 use super::Store;
-use crate::names::did_you_mean;
+use crate::names::{unknown_name, NameKind};
 
 /// An event to record.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -95,10 +95,179 @@ fn from_ms(ms: i64) -> DateTime<Utc> {
     Utc.timestamp_millis_opt(ms).single().unwrap_or_default()
 }
 
-impl Store {
-    /// Records an event; `now` is when it is recorded. The characteristic and factors must exist
-    /// (an unknown name is an error suggesting the closest one).
-    pub fn add_event(&mut self, event: &NewEvent, now: DateTime<Utc>) -> Result<i64> {
+const EVENT_SELECT: &str = "SELECT e.id, e.ts_ms, e.note, c.name, e.created_ms, e.removed_ms \
+     FROM events e LEFT JOIN characteristics c ON c.id = e.characteristic_id";
+
+fn event_row(r: &rusqlite::Row<'_>) -> rusqlite::Result<Event> {
+    Ok(Event {
+        id: r.get(0)?,
+        at: from_ms(r.get(1)?),
+        note: r.get(2)?,
+        characteristic: r.get(3)?,
+        scope: Vec::new(),
+        created: from_ms(r.get(4)?),
+        removed: r.get::<_, Option<i64>>(5)?.map(from_ms),
+    })
+}
+
+fn fill_scopes(conn: &Connection, events: &mut [Event]) -> Result<()> {
+    let mut scope = conn.prepare_cached(
+        "SELECT f.name, s.level FROM event_scopes s JOIN factors f ON f.id = s.factor_id \
+         WHERE s.event_id = ?1 ORDER BY f.position, f.name",
+    )?;
+    for e in events {
+        e.scope = scope
+            .query_map([e.id], |r| Ok((r.get(0)?, r.get(1)?)))?
+            .collect::<rusqlite::Result<_>>()?;
+    }
+    Ok(())
+}
+
+fn event_by_id(conn: &Connection, id: i64) -> Result<Event> {
+    let mut stmt = conn.prepare_cached(&format!("{EVENT_SELECT} WHERE e.id = ?1"))?;
+    let mut events: Vec<Event> = stmt
+        .query_map([id], event_row)?
+        .collect::<rusqlite::Result<_>>()?;
+    if events.is_empty() {
+        let last: Option<i64> = conn.query_row("SELECT max(id) FROM events", [], |r| r.get(0))?;
+        return Err(Error::Usage(match last {
+            Some(last) => format!(
+                "no event #{id} (events are numbered 1 to {last}; see `samewise event list --all`)"
+            ),
+            None => format!("no event #{id}: no event is recorded"),
+        }));
+    }
+    fill_scopes(conn, &mut events)?;
+    Ok(events.remove(0))
+}
+
+/// An event's characteristic id and `(factor id, level)` pairs.
+type ResolvedScope = (Option<i64>, Vec<(i64, String)>);
+
+/// The characteristic id and `(factor id, level)` pairs of an event's scope. An unknown
+/// characteristic, factor or level (one never stored for that factor) is refused with the
+/// closest known names.
+fn resolve_scope(
+    conn: &Connection,
+    characteristic: Option<&str>,
+    scope: &[(String, String)],
+) -> Result<ResolvedScope> {
+    let characteristic_id = match characteristic {
+        None => None,
+        Some(name) => {
+            let known = load_characteristics(conn)?;
+            Some(
+                known
+                    .iter()
+                    .find(|c| c.config.name == name)
+                    .map(|c| c.id)
+                    .ok_or_else(|| unknown_characteristic(name, &known))?,
+            )
+        }
+    };
+    let factors = load_factors(conn)?;
+    let mut scope_ids: Vec<(i64, String)> = Vec::new();
+    let mut levels =
+        conn.prepare_cached("SELECT name FROM levels WHERE factor_id = ?1 ORDER BY name")?;
+    for (factor, level) in scope {
+        let f = factors.iter().find(|f| &f.name == factor).ok_or_else(|| {
+            unknown_name(
+                NameKind::Factor,
+                factor,
+                factors.iter().map(|f| f.name.as_str()),
+                "the database",
+            )
+        })?;
+        if scope_ids.iter().any(|(id, _)| *id == f.id) {
+            return Err(Error::Usage(format!("factor \"{factor}\" is given twice")));
+        }
+        let known: Vec<String> = levels
+            .query_map([f.id], |r| r.get(0))?
+            .collect::<rusqlite::Result<_>>()?;
+        if !known.iter().any(|l| l == level) {
+            return Err(unknown_name(
+                NameKind::Level { factor },
+                level,
+                known.iter().map(String::as_str),
+                "the database",
+            ));
+        }
+        scope_ids.push((f.id, level.clone()));
+    }
+    Ok((characteristic_id, scope_ids))
+}
+
+fn time_text(t: DateTime<Utc>) -> String {
+    t.format("%Y-%m-%dT%H:%M:%S%.3fZ").to_string()
+}
+
+fn scope_text(scope: &[(String, String)]) -> String {
+    scope
+        .iter()
+        .map(|(f, l)| format!("{f}={l}"))
+        .collect::<Vec<_>>()
+        .join(", ")
+}
+
+/// The whole event in one line, as the history keeps a removed one.
+fn describe(e: &Event) -> String {
+    let mut s = format!("at={}; note={}", time_text(e.at), e.note);
+    if let Some(c) = &e.characteristic {
+        s.push_str(&format!("; characteristic={c}"));
+    }
+    if !e.scope.is_empty() {
+        s.push_str(&format!("; where={}", scope_text(&e.scope)));
+    }
+    s
+}
+
+/// Process changes (events) and their audit trail: what a second backend implements. Each
+/// writing method is one transaction: the event and its history entries are written together or
+/// not at all. Removed events are kept (marked removed), never deleted.
+pub trait EventStore {
+    /// Records a new event; returns its id (ids increase). An unknown characteristic, factor or
+    /// level is a usage error naming the closest known one, and nothing is written.
+    fn add_event(&mut self, event: &NewEvent, now: DateTime<Utc>) -> Result<i64>;
+    /// Events not removed with `start <= at < end` (either bound open when `None`), in time
+    /// order then id; empty when there are none.
+    fn events(
+        &self,
+        start: Option<DateTime<Utc>>,
+        end: Option<DateTime<Utc>>,
+    ) -> Result<Vec<Event>>;
+    /// Every event, removed ones included (marked by `removed`), in time order then id.
+    fn events_including_removed(&self) -> Result<Vec<Event>>;
+    /// Event `id`, removed or not; an unknown id is an error naming it.
+    fn event(&self, id: i64) -> Result<Event>;
+    /// Corrects event `id`: every field `edit` gives is replaced and recorded in the event's
+    /// history (one entry per field whose value changes), all in one transaction. A removed
+    /// event cannot be edited. Returns the event as it is now.
+    fn edit_event(
+        &mut self,
+        id: i64,
+        edit: &EventEdit,
+        who: &str,
+        reason: Option<&str>,
+        now: DateTime<Utc>,
+    ) -> Result<Event>;
+    /// Marks event `id` removed at `now` and records who removed it and why in its history,
+    /// in one transaction; the event is kept for the audit trail (listed by
+    /// [`EventStore::events_including_removed`], no longer by [`EventStore::events`]). An
+    /// unknown id, or an event removed already, is an error and nothing changes. Returns the
+    /// event as it is now.
+    fn remove_event(
+        &mut self,
+        id: i64,
+        who: &str,
+        reason: Option<&str>,
+        now: DateTime<Utc>,
+    ) -> Result<Event>;
+    /// The recorded changes of event `id` (of every event when `None`), oldest first.
+    fn event_history(&self, id: Option<i64>) -> Result<Vec<EventChange>>;
+}
+
+impl EventStore for Store {
+    fn add_event(&mut self, event: &NewEvent, now: DateTime<Utc>) -> Result<i64> {
         if event.note.trim().is_empty() {
             return Err(Error::Usage("the event note is empty".to_string()));
         }
@@ -129,9 +298,7 @@ impl Store {
         tx.commit()?;
         Ok(id)
     }
-
-    /// Events not removed with `start <= at < end` (either bound open when `None`), in time order.
-    pub fn events(
+    fn events(
         &self,
         start: Option<DateTime<Utc>>,
         end: Option<DateTime<Utc>>,
@@ -151,9 +318,7 @@ impl Store {
         fill_scopes(&self.conn, &mut events)?;
         Ok(events)
     }
-
-    /// Every event, removed ones included (marked by `removed`), in time order.
-    pub fn events_including_removed(&self) -> Result<Vec<Event>> {
+    fn events_including_removed(&self) -> Result<Vec<Event>> {
         let mut stmt = self
             .conn
             .prepare_cached(&format!("{EVENT_SELECT} ORDER BY e.ts_ms, e.id"))?;
@@ -162,16 +327,10 @@ impl Store {
         fill_scopes(&self.conn, &mut events)?;
         Ok(events)
     }
-
-    /// Event `id`, removed or not.
-    pub fn event(&self, id: i64) -> Result<Event> {
+    fn event(&self, id: i64) -> Result<Event> {
         event_by_id(&self.conn, id)
     }
-
-    /// Corrects event `id`: every field `edit` gives is replaced and recorded in the event's
-    /// history (one entry per field whose value changes). A removed event cannot be edited.
-    /// Returns the event as it is now.
-    pub fn edit_event(
+    fn edit_event(
         &mut self,
         id: i64,
         edit: &EventEdit,
@@ -262,10 +421,7 @@ impl Store {
         tx.commit()?;
         Ok(new)
     }
-
-    /// Removes event `id`: it no longer marks charts or anchors investigations, the log keeps it
-    /// marked removed, and the removal (with the whole event as it was) enters its history.
-    pub fn remove_event(
+    fn remove_event(
         &mut self,
         id: i64,
         who: &str,
@@ -295,9 +451,7 @@ impl Store {
         tx.commit()?;
         Ok(new)
     }
-
-    /// The recorded corrections, of event `id` or of every event, oldest first.
-    pub fn event_history(&self, id: Option<i64>) -> Result<Vec<EventChange>> {
+    fn event_history(&self, id: Option<i64>) -> Result<Vec<EventChange>> {
         if let Some(id) = id {
             event_by_id(&self.conn, id)?;
         }
@@ -318,220 +472,5 @@ impl Store {
             })
         })?;
         Ok(rows.collect::<rusqlite::Result<_>>()?)
-    }
-}
-
-const EVENT_SELECT: &str = "SELECT e.id, e.ts_ms, e.note, c.name, e.created_ms, e.removed_ms \
-     FROM events e LEFT JOIN characteristics c ON c.id = e.characteristic_id";
-
-fn event_row(r: &rusqlite::Row<'_>) -> rusqlite::Result<Event> {
-    Ok(Event {
-        id: r.get(0)?,
-        at: from_ms(r.get(1)?),
-        note: r.get(2)?,
-        characteristic: r.get(3)?,
-        scope: Vec::new(),
-        created: from_ms(r.get(4)?),
-        removed: r.get::<_, Option<i64>>(5)?.map(from_ms),
-    })
-}
-
-fn fill_scopes(conn: &Connection, events: &mut [Event]) -> Result<()> {
-    let mut scope = conn.prepare_cached(
-        "SELECT f.name, s.level FROM event_scopes s JOIN factors f ON f.id = s.factor_id \
-         WHERE s.event_id = ?1 ORDER BY f.position, f.name",
-    )?;
-    for e in events {
-        e.scope = scope
-            .query_map([e.id], |r| Ok((r.get(0)?, r.get(1)?)))?
-            .collect::<rusqlite::Result<_>>()?;
-    }
-    Ok(())
-}
-
-fn event_by_id(conn: &Connection, id: i64) -> Result<Event> {
-    let mut stmt = conn.prepare_cached(&format!("{EVENT_SELECT} WHERE e.id = ?1"))?;
-    let mut events: Vec<Event> = stmt
-        .query_map([id], event_row)?
-        .collect::<rusqlite::Result<_>>()?;
-    if events.is_empty() {
-        let last: Option<i64> = conn.query_row("SELECT max(id) FROM events", [], |r| r.get(0))?;
-        return Err(Error::Usage(match last {
-            Some(last) => format!(
-                "no event #{id} (events are numbered 1 to {last}; see `samewise event list --all`)"
-            ),
-            None => format!("no event #{id}: no event is recorded"),
-        }));
-    }
-    fill_scopes(conn, &mut events)?;
-    Ok(events.remove(0))
-}
-
-/// An event's characteristic id and `(factor id, level)` pairs.
-type ResolvedScope = (Option<i64>, Vec<(i64, String)>);
-
-/// The characteristic id and `(factor id, level)` pairs of an event's scope. An unknown
-/// characteristic, factor or level (one never stored for that factor) is refused with the
-/// closest known names.
-fn resolve_scope(
-    conn: &Connection,
-    characteristic: Option<&str>,
-    scope: &[(String, String)],
-) -> Result<ResolvedScope> {
-    let characteristic_id = match characteristic {
-        None => None,
-        Some(name) => {
-            let known = load_characteristics(conn)?;
-            Some(
-                known
-                    .iter()
-                    .find(|c| c.config.name == name)
-                    .map(|c| c.id)
-                    .ok_or_else(|| unknown_characteristic(name, &known))?,
-            )
-        }
-    };
-    let factors = load_factors(conn)?;
-    let mut scope_ids: Vec<(i64, String)> = Vec::new();
-    let mut levels =
-        conn.prepare_cached("SELECT name FROM levels WHERE factor_id = ?1 ORDER BY name")?;
-    for (factor, level) in scope {
-        let f = factors.iter().find(|f| &f.name == factor).ok_or_else(|| {
-            let hint = did_you_mean(factor, factors.iter().map(|f| f.name.as_str()));
-            let known: Vec<&str> = factors.iter().map(|f| f.name.as_str()).collect();
-            Error::Usage(format!(
-                "unknown factor \"{factor}\"{hint}; the factors are: {}",
-                known.join(", ")
-            ))
-        })?;
-        if scope_ids.iter().any(|(id, _)| *id == f.id) {
-            return Err(Error::Usage(format!("factor \"{factor}\" is given twice")));
-        }
-        let known: Vec<String> = levels
-            .query_map([f.id], |r| r.get(0))?
-            .collect::<rusqlite::Result<_>>()?;
-        if !known.iter().any(|l| l == level) {
-            let hint = did_you_mean(level, known.iter().map(String::as_str));
-            return Err(Error::Usage(if known.is_empty() {
-                format!(
-                    "unknown level \"{level}\" of factor \"{factor}\": no measurement with a \
-                     {factor} level is stored yet (import the data first)"
-                )
-            } else {
-                format!(
-                    "unknown level \"{level}\" of factor \"{factor}\"{hint} ({} levels \
-                     stored; `samewise status` lists the data)",
-                    known.len()
-                )
-            }));
-        }
-        scope_ids.push((f.id, level.clone()));
-    }
-    Ok((characteristic_id, scope_ids))
-}
-
-fn time_text(t: DateTime<Utc>) -> String {
-    t.format("%Y-%m-%dT%H:%M:%S%.3fZ").to_string()
-}
-
-fn scope_text(scope: &[(String, String)]) -> String {
-    scope
-        .iter()
-        .map(|(f, l)| format!("{f}={l}"))
-        .collect::<Vec<_>>()
-        .join(", ")
-}
-
-/// The whole event in one line, as the history keeps a removed one.
-fn describe(e: &Event) -> String {
-    let mut s = format!("at={}; note={}", time_text(e.at), e.note);
-    if let Some(c) = &e.characteristic {
-        s.push_str(&format!("; characteristic={c}"));
-    }
-    if !e.scope.is_empty() {
-        s.push_str(&format!("; where={}", scope_text(&e.scope)));
-    }
-    s
-}
-
-/// Process changes (events) and their audit trail: what a second backend implements. Each
-/// writing method is one transaction: the event and its history entries are written together or
-/// not at all. Removed events are kept (marked removed), never deleted.
-pub trait EventStore {
-    /// Records a new event; returns its id (ids increase). An unknown characteristic, factor or
-    /// level is a usage error naming the closest known one, and nothing is written.
-    fn add_event(&mut self, event: &NewEvent, now: DateTime<Utc>) -> Result<i64>;
-    /// Events not removed with `start <= at < end` (either bound open when `None`), in time
-    /// order then id; empty when there are none.
-    fn events(
-        &self,
-        start: Option<DateTime<Utc>>,
-        end: Option<DateTime<Utc>>,
-    ) -> Result<Vec<Event>>;
-    /// Every event, removed ones included (marked by `removed`), in time order then id.
-    fn events_including_removed(&self) -> Result<Vec<Event>>;
-    /// Event `id`, removed or not; an unknown id is an error naming it.
-    fn event(&self, id: i64) -> Result<Event>;
-    /// Corrects event `id`: every field `edit` gives is replaced and recorded in the event's
-    /// history (one entry per field whose value changes), all in one transaction. A removed
-    /// event cannot be edited. Returns the event as it is now.
-    fn edit_event(
-        &mut self,
-        id: i64,
-        edit: &EventEdit,
-        who: &str,
-        reason: Option<&str>,
-        now: DateTime<Utc>,
-    ) -> Result<Event>;
-    /// Marks event `id` removed (kept for the audit trail) with who and why; returns it.
-    fn remove_event(
-        &mut self,
-        id: i64,
-        who: &str,
-        reason: Option<&str>,
-        now: DateTime<Utc>,
-    ) -> Result<Event>;
-    /// The recorded changes of event `id` (of every event when `None`), oldest first.
-    fn event_history(&self, id: Option<i64>) -> Result<Vec<EventChange>>;
-}
-
-impl EventStore for Store {
-    fn add_event(&mut self, event: &NewEvent, now: DateTime<Utc>) -> Result<i64> {
-        Store::add_event(self, event, now)
-    }
-    fn events(
-        &self,
-        start: Option<DateTime<Utc>>,
-        end: Option<DateTime<Utc>>,
-    ) -> Result<Vec<Event>> {
-        Store::events(self, start, end)
-    }
-    fn events_including_removed(&self) -> Result<Vec<Event>> {
-        Store::events_including_removed(self)
-    }
-    fn event(&self, id: i64) -> Result<Event> {
-        Store::event(self, id)
-    }
-    fn edit_event(
-        &mut self,
-        id: i64,
-        edit: &EventEdit,
-        who: &str,
-        reason: Option<&str>,
-        now: DateTime<Utc>,
-    ) -> Result<Event> {
-        Store::edit_event(self, id, edit, who, reason, now)
-    }
-    fn remove_event(
-        &mut self,
-        id: i64,
-        who: &str,
-        reason: Option<&str>,
-        now: DateTime<Utc>,
-    ) -> Result<Event> {
-        Store::remove_event(self, id, who, reason, now)
-    }
-    fn event_history(&self, id: Option<i64>) -> Result<Vec<EventChange>> {
-        Store::event_history(self, id)
     }
 }

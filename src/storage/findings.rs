@@ -109,10 +109,37 @@ fn finding_from_row(r: &Row<'_>) -> rusqlite::Result<Finding> {
     })
 }
 
-impl Store {
-    /// Every test of the latest complete run of every `kind` period, by characteristic, factor
-    /// and period start: the flag history findings are built from.
-    pub fn flag_history(&self, kind: PeriodKind) -> Result<Vec<FlagHistoryRow>> {
+/// Findings (flags that persist over periods), their notes, the flag history they are built
+/// from and the alert log: what a second backend implements. Writing methods are atomic.
+pub trait FindingStore {
+    /// Every test of the latest complete version of every `kind` period, ordered by
+    /// characteristic, factor and period start; empty when no period of that kind is complete.
+    fn flag_history(&self, kind: PeriodKind) -> Result<Vec<FlagHistoryRow>>;
+    /// The groups of one stored test: (level, n, mean offset from the characteristic's origin),
+    /// in group order; empty for an unknown run or test.
+    fn group_means(&self, run_id: i64, test_idx: i64) -> Result<Vec<(String, u64, f64)>>;
+    /// The stored findings of `kind` (every kind when `None`), most recently flagged first, then
+    /// by id.
+    fn findings(&self, kind: Option<PeriodKind>) -> Result<Vec<Finding>>;
+    /// One finding by its number; `None` when there is no such finding.
+    fn finding(&self, id: i64) -> Result<Option<Finding>>;
+    /// Writes findings in one transaction (all or none): a finding with id 0 is inserted and its
+    /// id set, others are updated in place.
+    fn save_findings(&mut self, findings: &mut [Finding]) -> Result<()>;
+    /// Adds a dated note to finding `id`; an unknown id is an error and nothing is written.
+    fn add_finding_note(&mut self, id: i64, text: &str, now: DateTime<Utc>) -> Result<()>;
+    /// The notes of finding `id`, oldest first; empty when it has none.
+    fn finding_notes(&self, id: i64) -> Result<Vec<(DateTime<Utc>, String)>>;
+    /// Records one run of the alert command (its start and end, how many findings it was given,
+    /// the command, its exit code or error), committed at once; every record is kept, and
+    /// [`FindingStore::last_alert`] returns the one recorded last.
+    fn log_alert(&self, record: &AlertRecord) -> Result<()>;
+    /// The latest recorded run of the alert command; `None` before the first.
+    fn last_alert(&self) -> Result<Option<AlertRecord>>;
+}
+
+impl FindingStore for Store {
+    fn flag_history(&self, kind: PeriodKind) -> Result<Vec<FlagHistoryRow>> {
         let mut stmt = self.conn.prepare(
             "SELECT r.period_label, r.period_start_ms, r.period_end_ms, r.run_id, t.test_idx,
                     t.characteristic, t.factor, t.state, t.standout_level, t.standout_diff,
@@ -146,10 +173,7 @@ impl Store {
         })?;
         Ok(rows.collect::<rusqlite::Result<_>>()?)
     }
-
-    /// The groups of one stored test: (level, n, mean offset), in group order. Means of one run
-    /// share their characteristic's origin, so differences between them are exact.
-    pub fn group_means(&self, run_id: i64, test_idx: i64) -> Result<Vec<(String, u64, f64)>> {
+    fn group_means(&self, run_id: i64, test_idx: i64) -> Result<Vec<(String, u64, f64)>> {
         let mut stmt = self.conn.prepare_cached(
             "SELECT level, n, mean FROM run_group WHERE run_id = ?1 AND test_idx = ?2 \
              ORDER BY group_idx",
@@ -159,9 +183,7 @@ impl Store {
         })?;
         Ok(rows.collect::<rusqlite::Result<_>>()?)
     }
-
-    /// The stored findings of `kind` (every kind when `None`), most recently flagged first.
-    pub fn findings(&self, kind: Option<PeriodKind>) -> Result<Vec<Finding>> {
+    fn findings(&self, kind: Option<PeriodKind>) -> Result<Vec<Finding>> {
         let sql = format!(
             "SELECT {FINDING_COLUMNS} FROM finding WHERE ?1 IS NULL OR period_kind = ?1 \
              ORDER BY last_start_ms DESC, finding_id"
@@ -170,19 +192,14 @@ impl Store {
         let rows = stmt.query_map([kind.map(PeriodKind::as_str)], finding_from_row)?;
         Ok(rows.collect::<rusqlite::Result<_>>()?)
     }
-
-    /// One finding by its number.
-    pub fn finding(&self, id: i64) -> Result<Option<Finding>> {
+    fn finding(&self, id: i64) -> Result<Option<Finding>> {
         let sql = format!("SELECT {FINDING_COLUMNS} FROM finding WHERE finding_id = ?1");
         Ok(self
             .conn
             .query_row(&sql, [id], finding_from_row)
             .optional()?)
     }
-
-    /// Writes findings in one transaction: a finding with id 0 is inserted (its id is set),
-    /// others are updated in place.
-    pub fn save_findings(&mut self, findings: &mut [Finding]) -> Result<()> {
+    fn save_findings(&mut self, findings: &mut [Finding]) -> Result<()> {
         let tx = self.conn.transaction()?;
         {
             let mut insert = tx.prepare_cached(&format!(
@@ -251,9 +268,7 @@ impl Store {
         tx.commit()?;
         Ok(())
     }
-
-    /// Adds an engineer's note to finding `id`; `now` is when.
-    pub fn add_finding_note(&mut self, id: i64, text: &str, now: DateTime<Utc>) -> Result<()> {
+    fn add_finding_note(&mut self, id: i64, text: &str, now: DateTime<Utc>) -> Result<()> {
         if self.finding(id)?.is_none() {
             let last: Option<i64> =
                 self.conn
@@ -271,18 +286,14 @@ impl Store {
         )?;
         Ok(())
     }
-
-    /// The notes of finding `id`, oldest first: (when, text).
-    pub fn finding_notes(&self, id: i64) -> Result<Vec<(DateTime<Utc>, String)>> {
+    fn finding_notes(&self, id: i64) -> Result<Vec<(DateTime<Utc>, String)>> {
         let mut stmt = self.conn.prepare_cached(
             "SELECT created_ms, text FROM finding_note WHERE finding_id = ?1 ORDER BY created_ms, note_id",
         )?;
         let rows = stmt.query_map([id], |r| Ok((instant(r.get(0)?), r.get(1)?)))?;
         Ok(rows.collect::<rusqlite::Result<_>>()?)
     }
-
-    /// Records one run of the alert command.
-    pub fn log_alert(&self, record: &AlertRecord) -> Result<()> {
+    fn log_alert(&self, record: &AlertRecord) -> Result<()> {
         self.conn.execute(
             "INSERT INTO alert_log (started_ms, finished_ms, n_findings, command, exit_code, error) \
              VALUES (?1, ?2, ?3, ?4, ?5, ?6)",
@@ -297,9 +308,7 @@ impl Store {
         )?;
         Ok(())
     }
-
-    /// The latest run of the alert command, if any.
-    pub fn last_alert(&self) -> Result<Option<AlertRecord>> {
+    fn last_alert(&self) -> Result<Option<AlertRecord>> {
         Ok(self
             .conn
             .query_row(
@@ -318,62 +327,5 @@ impl Store {
                 },
             )
             .optional()?)
-    }
-}
-
-/// Findings (flags that persist over periods), their notes, the flag history they are built
-/// from and the alert log: what a second backend implements. Writing methods are atomic.
-pub trait FindingStore {
-    /// Every test of the latest complete version of every `kind` period, ordered by
-    /// characteristic, factor and period start; empty when no period of that kind is complete.
-    fn flag_history(&self, kind: PeriodKind) -> Result<Vec<FlagHistoryRow>>;
-    /// The groups of one stored test: (level, n, mean offset from the characteristic's origin),
-    /// in group order; empty for an unknown run or test.
-    fn group_means(&self, run_id: i64, test_idx: i64) -> Result<Vec<(String, u64, f64)>>;
-    /// The stored findings of `kind` (every kind when `None`), most recently flagged first, then
-    /// by id.
-    fn findings(&self, kind: Option<PeriodKind>) -> Result<Vec<Finding>>;
-    /// One finding by its number; `None` when there is no such finding.
-    fn finding(&self, id: i64) -> Result<Option<Finding>>;
-    /// Writes findings in one transaction (all or none): a finding with id 0 is inserted and its
-    /// id set, others are updated in place.
-    fn save_findings(&mut self, findings: &mut [Finding]) -> Result<()>;
-    /// Adds a dated note to finding `id`; an unknown id is an error and nothing is written.
-    fn add_finding_note(&mut self, id: i64, text: &str, now: DateTime<Utc>) -> Result<()>;
-    /// The notes of finding `id`, oldest first; empty when it has none.
-    fn finding_notes(&self, id: i64) -> Result<Vec<(DateTime<Utc>, String)>>;
-    /// Records one run of the alert command.
-    fn log_alert(&self, record: &AlertRecord) -> Result<()>;
-    /// The latest recorded run of the alert command; `None` before the first.
-    fn last_alert(&self) -> Result<Option<AlertRecord>>;
-}
-
-impl FindingStore for Store {
-    fn flag_history(&self, kind: PeriodKind) -> Result<Vec<FlagHistoryRow>> {
-        Store::flag_history(self, kind)
-    }
-    fn group_means(&self, run_id: i64, test_idx: i64) -> Result<Vec<(String, u64, f64)>> {
-        Store::group_means(self, run_id, test_idx)
-    }
-    fn findings(&self, kind: Option<PeriodKind>) -> Result<Vec<Finding>> {
-        Store::findings(self, kind)
-    }
-    fn finding(&self, id: i64) -> Result<Option<Finding>> {
-        Store::finding(self, id)
-    }
-    fn save_findings(&mut self, findings: &mut [Finding]) -> Result<()> {
-        Store::save_findings(self, findings)
-    }
-    fn add_finding_note(&mut self, id: i64, text: &str, now: DateTime<Utc>) -> Result<()> {
-        Store::add_finding_note(self, id, text, now)
-    }
-    fn finding_notes(&self, id: i64) -> Result<Vec<(DateTime<Utc>, String)>> {
-        Store::finding_notes(self, id)
-    }
-    fn log_alert(&self, record: &AlertRecord) -> Result<()> {
-        Store::log_alert(self, record)
-    }
-    fn last_alert(&self) -> Result<Option<AlertRecord>> {
-        Store::last_alert(self)
     }
 }

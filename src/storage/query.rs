@@ -1,4 +1,4 @@
-//! The analysis read path: [`Store::load_period`] returns a [`PeriodFrame`], the measurements of a
+//! The analysis read path: [`MeasurementStore::load_period`] returns a [`PeriodFrame`], the measurements of a
 //! time window column by column (offsets, instants, and for every factor the level index of each
 //! row), read in one pass over the (characteristic, time) primary key.
 //!
@@ -12,6 +12,7 @@ use crate::ingest::fxhash::FxMap;
 use chrono::{DateTime, Utc};
 
 use crate::config::CharacteristicConfig;
+use crate::names::{unknown_name, NameKind};
 use crate::stats::decimal::Decimal;
 use crate::{Error, Result};
 
@@ -128,222 +129,14 @@ pub(crate) fn natural_cmp(a: &str, b: &str) -> std::cmp::Ordering {
     }
 }
 
-/// The closest name by edit distance, for "did you mean" hints.
-pub(crate) fn closest<'a>(
-    name: &str,
-    candidates: impl Iterator<Item = &'a str>,
-) -> Option<&'a str> {
-    crate::names::closest_names(name, candidates, 1).pop()
-}
-
-/// An "unknown characteristic" error with the closest known names.
+/// The unknown-name error of a characteristic the database does not hold.
 pub(crate) fn unknown_characteristic(name: &str, known: &[StoredCharacteristic]) -> Error {
-    let hint = crate::names::did_you_mean(name, known.iter().map(|c| c.config.name.as_str()));
-    Error::Usage(format!("unknown characteristic \"{name}\"{hint}"))
-}
-
-impl Store {
-    /// Measurements stored per characteristic in `[start, end)` (every stored characteristic,
-    /// in id order), counted along the primary key without loading a value.
-    pub fn count_between(
-        &self,
-        start: DateTime<Utc>,
-        end: DateTime<Utc>,
-    ) -> Result<Vec<(String, u64)>> {
-        let stored = load_characteristics(&self.conn)?;
-        let mut stmt = self.conn.prepare_cached(
-            "SELECT COUNT(*) FROM measurements WHERE characteristic_id = ?1 \
-             AND ts_ms >= ?2 AND ts_ms < ?3",
-        )?;
-        stored
-            .iter()
-            .map(|c| {
-                let n: i64 = stmt.query_row(
-                    rusqlite::params![c.id, start.timestamp_millis(), end.timestamp_millis()],
-                    |r| r.get(0),
-                )?;
-                Ok((c.config.name.clone(), n as u64))
-            })
-            .collect()
-    }
-
-    /// Whether any measurement lies in `[start, end)` (one index probe per characteristic).
-    pub fn has_data_between(&self, start: DateTime<Utc>, end: DateTime<Utc>) -> Result<bool> {
-        let stored = load_characteristics(&self.conn)?;
-        let mut stmt = self.conn.prepare_cached(
-            "SELECT EXISTS (SELECT 1 FROM measurements WHERE characteristic_id = ?1 \
-             AND ts_ms >= ?2 AND ts_ms < ?3)",
-        )?;
-        for c in &stored {
-            let found: bool = stmt.query_row(
-                rusqlite::params![c.id, start.timestamp_millis(), end.timestamp_millis()],
-                |r| r.get(0),
-            )?;
-            if found {
-                return Ok(true);
-            }
-        }
-        Ok(false)
-    }
-
-    /// The measurements with `start <= ts < end` of the characteristics named (all when `None`),
-    /// columnar and in time order, read in one pass per characteristic.
-    ///
-    /// An unknown name is an error that suggests the closest known one. A characteristic without
-    /// measurements in the period gives an empty frame.
-    pub fn load_period(
-        &self,
-        start: DateTime<Utc>,
-        end: DateTime<Utc>,
-        characteristics: Option<&[String]>,
-    ) -> Result<PeriodFrame> {
-        let stored = load_characteristics(&self.conn)?;
-        let chosen: Vec<&StoredCharacteristic> = match characteristics {
-            None => stored.iter().collect(),
-            Some(names) => names
-                .iter()
-                .map(|n| {
-                    stored
-                        .iter()
-                        .find(|c| &c.config.name == n)
-                        .ok_or_else(|| unknown_characteristic(n, &stored))
-                })
-                .collect::<Result<_>>()?,
-        };
-        let factors: Vec<_> = load_factors(&self.conn)?
-            .into_iter()
-            .filter(|f| f.is_configured)
-            .collect();
-        let mut cache = self.level_cache.borrow_mut();
-        let factor_ids: Vec<i64> = factors.iter().map(|f| f.id).collect();
-        if cache.factor_ids != factor_ids {
-            cache.clear();
-            cache.factor_ids = factor_ids;
-        }
-        let n_factors = factors.len();
-        let mut frame_levels = FrameLevels {
-            n_factors,
-            level_index: vec![IdIndex::default(); n_factors],
-            level_order: vec![Vec::new(); n_factors],
-            set_slot: IdIndex::default(),
-            set_levels: Vec::new(),
-        };
-
-        let mut rows_stmt = self.conn.prepare_cached(
-            "SELECT ts_ms, value, level_set_id, subgroup FROM measurements \
-             WHERE characteristic_id = ?1 AND ts_ms >= ?2 AND ts_ms < ?3",
-        )?;
-        // Subgroup ids numbered per frame; the previous row's id is checked first (the parts of
-        // one shot are neighbours in time order).
-        let mut subgroup_ids: FxMap<Box<[u8]>, u32> = FxMap::default();
-        let mut frames = Vec::with_capacity(chosen.len());
-        let mut sets: Vec<i64> = Vec::new();
-        let mut missing: Vec<i64> = Vec::new();
-        for c in chosen {
-            let mut ts_ms = Vec::new();
-            let mut values = Vec::new();
-            let mut subgroup_idx: Vec<u32> = Vec::new();
-            let mut any_subgroup = false;
-            let mut last_subgroup: (Vec<u8>, u32) = (Vec::new(), NO_SUBGROUP);
-            subgroup_ids.clear();
-            sets.clear();
-            let mut rows = rows_stmt.query(rusqlite::params![
-                c.id,
-                start.timestamp_millis(),
-                end.timestamp_millis()
-            ])?;
-            while let Some(row) = rows.next()? {
-                ts_ms.push(row.get::<_, i64>(0)?);
-                values.push(row.get::<_, f64>(1)?);
-                sets.push(row.get::<_, i64>(2)?);
-                let id = match row.get_ref(3)? {
-                    rusqlite::types::ValueRef::Text(t) => {
-                        if last_subgroup.1 != NO_SUBGROUP && last_subgroup.0 == t {
-                            last_subgroup.1
-                        } else {
-                            let next = subgroup_ids.len() as u32;
-                            let id = *subgroup_ids.entry(t.into()).or_insert(next);
-                            last_subgroup.0.clear();
-                            last_subgroup.0.extend_from_slice(t);
-                            last_subgroup.1 = id;
-                            id
-                        }
-                    }
-                    _ => NO_SUBGROUP,
-                };
-                if id != NO_SUBGROUP && !any_subgroup {
-                    any_subgroup = true;
-                    subgroup_idx.resize(values.len() - 1, NO_SUBGROUP);
-                }
-                if any_subgroup {
-                    subgroup_idx.push(id);
-                }
-            }
-            drop(rows);
-            // Resolve each level set of the frame once: from the cache, or fetched in bulk.
-            missing.clear();
-            for &set in &sets {
-                if frame_levels.set_slot.get(set).is_none() {
-                    match cache.sets.get(set) {
-                        Some(start) => frame_levels.resolve(set, start, &cache),
-                        None => missing.push(set),
-                    }
-                }
-            }
-            missing.sort_unstable();
-            missing.dedup();
-            fetch_level_sets(&self.conn, &mut cache, &missing)?;
-            for &set in &missing {
-                let start = cache.sets.get(set).expect("fetched above");
-                frame_levels.resolve(set, start, &cache);
-            }
-            let mut level_idx: Vec<Vec<u32>> = vec![Vec::with_capacity(sets.len()); n_factors];
-            for set in &sets {
-                let levels = frame_levels.levels_of(*set);
-                for (column, &level) in level_idx.iter_mut().zip(levels) {
-                    column.push(level);
-                }
-            }
-            frames.push(CharacteristicFrame {
-                characteristic: c.config.clone(),
-                origin: c.origin.unwrap_or(Decimal::ZERO),
-                values,
-                ts_ms,
-                level_idx,
-                subgroup_idx,
-            });
-        }
-        // Sort each factor's levels by name and renumber.
-        let mut factor_levels = Vec::with_capacity(n_factors);
-        for (f, factor) in factors.iter().enumerate() {
-            let names: Vec<String> = frame_levels.level_order[f]
-                .iter()
-                .map(|&id| match cache.levels.get(&id) {
-                    Some((_, name)) if id != 0 => name.clone(),
-                    _ => NO_LEVEL.to_string(),
-                })
-                .collect();
-            let mut order: Vec<usize> = (0..names.len()).collect();
-            order.sort_by(|&a, &b| natural_cmp(&names[a], &names[b]));
-            let mut renumber = vec![0u32; names.len()];
-            for (new, &old) in order.iter().enumerate() {
-                renumber[old] = new as u32;
-            }
-            for frame in &mut frames {
-                for i in frame.level_idx[f].iter_mut() {
-                    *i = renumber[*i as usize];
-                }
-            }
-            factor_levels.push(FactorLevels {
-                name: factor.name.clone(),
-                levels: order.iter().map(|&i| names[i].clone()).collect(),
-            });
-        }
-        Ok(PeriodFrame {
-            factors: factor_levels,
-            characteristics: frames,
-        })
-    }
+    unknown_name(
+        NameKind::Characteristic,
+        name,
+        known.iter().map(|c| c.config.name.as_str()),
+        "the database",
+    )
 }
 
 /// A map from database ids (rowids: allocated from 1 upwards, so dense) to small values: a
@@ -546,8 +339,9 @@ pub trait MeasurementStore {
     /// A way to open a second, independent reader of the same data, to be called on another
     /// thread (the check loads parts of a period on two threads); `None` when the backend
     /// cannot (an in-memory database), and then the caller loads everything itself. The second
-    /// reader may see later commits than this one; a check reads only periods that are
-    /// already imported.
+    /// reader only reads: it runs no migration and writes nothing (not even a setting), and it
+    /// refuses a database whose schema is not the one this build reads. It may see later
+    /// commits than this one; a check reads only periods that are already imported.
     fn reader_opener(&self) -> Option<ReaderOpener>;
 }
 
@@ -566,10 +360,38 @@ impl MeasurementStore for Store {
         start: DateTime<Utc>,
         end: DateTime<Utc>,
     ) -> Result<Vec<(String, u64)>> {
-        Store::count_between(self, start, end)
+        let stored = load_characteristics(&self.conn)?;
+        let mut stmt = self.conn.prepare_cached(
+            "SELECT COUNT(*) FROM measurements WHERE characteristic_id = ?1 \
+             AND ts_ms >= ?2 AND ts_ms < ?3",
+        )?;
+        stored
+            .iter()
+            .map(|c| {
+                let n: i64 = stmt.query_row(
+                    rusqlite::params![c.id, start.timestamp_millis(), end.timestamp_millis()],
+                    |r| r.get(0),
+                )?;
+                Ok((c.config.name.clone(), n as u64))
+            })
+            .collect()
     }
     fn has_data_between(&self, start: DateTime<Utc>, end: DateTime<Utc>) -> Result<bool> {
-        Store::has_data_between(self, start, end)
+        let stored = load_characteristics(&self.conn)?;
+        let mut stmt = self.conn.prepare_cached(
+            "SELECT EXISTS (SELECT 1 FROM measurements WHERE characteristic_id = ?1 \
+             AND ts_ms >= ?2 AND ts_ms < ?3)",
+        )?;
+        for c in &stored {
+            let found: bool = stmt.query_row(
+                rusqlite::params![c.id, start.timestamp_millis(), end.timestamp_millis()],
+                |r| r.get(0),
+            )?;
+            if found {
+                return Ok(true);
+            }
+        }
+        Ok(false)
     }
     fn load_period(
         &self,
@@ -577,15 +399,160 @@ impl MeasurementStore for Store {
         end: DateTime<Utc>,
         characteristics: Option<&[String]>,
     ) -> Result<PeriodFrame> {
-        Store::load_period(self, start, end, characteristics)
+        let stored = load_characteristics(&self.conn)?;
+        let chosen: Vec<&StoredCharacteristic> = match characteristics {
+            None => stored.iter().collect(),
+            Some(names) => names
+                .iter()
+                .map(|n| {
+                    stored
+                        .iter()
+                        .find(|c| &c.config.name == n)
+                        .ok_or_else(|| unknown_characteristic(n, &stored))
+                })
+                .collect::<Result<_>>()?,
+        };
+        let factors: Vec<_> = load_factors(&self.conn)?
+            .into_iter()
+            .filter(|f| f.is_configured)
+            .collect();
+        let mut cache = self.level_cache.borrow_mut();
+        let factor_ids: Vec<i64> = factors.iter().map(|f| f.id).collect();
+        if cache.factor_ids != factor_ids {
+            cache.clear();
+            cache.factor_ids = factor_ids;
+        }
+        let n_factors = factors.len();
+        let mut frame_levels = FrameLevels {
+            n_factors,
+            level_index: vec![IdIndex::default(); n_factors],
+            level_order: vec![Vec::new(); n_factors],
+            set_slot: IdIndex::default(),
+            set_levels: Vec::new(),
+        };
+
+        let mut rows_stmt = self.conn.prepare_cached(
+            "SELECT ts_ms, value, level_set_id, subgroup FROM measurements \
+             WHERE characteristic_id = ?1 AND ts_ms >= ?2 AND ts_ms < ?3",
+        )?;
+        // Subgroup ids numbered per frame; the previous row's id is checked first (the parts of
+        // one shot are neighbours in time order).
+        let mut subgroup_ids: FxMap<Box<[u8]>, u32> = FxMap::default();
+        let mut frames = Vec::with_capacity(chosen.len());
+        let mut sets: Vec<i64> = Vec::new();
+        let mut missing: Vec<i64> = Vec::new();
+        for c in chosen {
+            let mut ts_ms = Vec::new();
+            let mut values = Vec::new();
+            let mut subgroup_idx: Vec<u32> = Vec::new();
+            let mut any_subgroup = false;
+            let mut last_subgroup: (Vec<u8>, u32) = (Vec::new(), NO_SUBGROUP);
+            subgroup_ids.clear();
+            sets.clear();
+            let mut rows = rows_stmt.query(rusqlite::params![
+                c.id,
+                start.timestamp_millis(),
+                end.timestamp_millis()
+            ])?;
+            while let Some(row) = rows.next()? {
+                ts_ms.push(row.get::<_, i64>(0)?);
+                values.push(row.get::<_, f64>(1)?);
+                sets.push(row.get::<_, i64>(2)?);
+                let id = match row.get_ref(3)? {
+                    rusqlite::types::ValueRef::Text(t) => {
+                        if last_subgroup.1 != NO_SUBGROUP && last_subgroup.0 == t {
+                            last_subgroup.1
+                        } else {
+                            let next = subgroup_ids.len() as u32;
+                            let id = *subgroup_ids.entry(t.into()).or_insert(next);
+                            last_subgroup.0.clear();
+                            last_subgroup.0.extend_from_slice(t);
+                            last_subgroup.1 = id;
+                            id
+                        }
+                    }
+                    _ => NO_SUBGROUP,
+                };
+                if id != NO_SUBGROUP && !any_subgroup {
+                    any_subgroup = true;
+                    subgroup_idx.resize(values.len() - 1, NO_SUBGROUP);
+                }
+                if any_subgroup {
+                    subgroup_idx.push(id);
+                }
+            }
+            drop(rows);
+            // Resolve each level set of the frame once: from the cache, or fetched in bulk.
+            missing.clear();
+            for &set in &sets {
+                if frame_levels.set_slot.get(set).is_none() {
+                    match cache.sets.get(set) {
+                        Some(start) => frame_levels.resolve(set, start, &cache),
+                        None => missing.push(set),
+                    }
+                }
+            }
+            missing.sort_unstable();
+            missing.dedup();
+            fetch_level_sets(&self.conn, &mut cache, &missing)?;
+            for &set in &missing {
+                let start = cache.sets.get(set).expect("fetched above");
+                frame_levels.resolve(set, start, &cache);
+            }
+            let mut level_idx: Vec<Vec<u32>> = vec![Vec::with_capacity(sets.len()); n_factors];
+            for set in &sets {
+                let levels = frame_levels.levels_of(*set);
+                for (column, &level) in level_idx.iter_mut().zip(levels) {
+                    column.push(level);
+                }
+            }
+            frames.push(CharacteristicFrame {
+                characteristic: c.config.clone(),
+                origin: c.origin.unwrap_or(Decimal::ZERO),
+                values,
+                ts_ms,
+                level_idx,
+                subgroup_idx,
+            });
+        }
+        // Sort each factor's levels by name and renumber.
+        let mut factor_levels = Vec::with_capacity(n_factors);
+        for (f, factor) in factors.iter().enumerate() {
+            let names: Vec<String> = frame_levels.level_order[f]
+                .iter()
+                .map(|&id| match cache.levels.get(&id) {
+                    Some((_, name)) if id != 0 => name.clone(),
+                    _ => NO_LEVEL.to_string(),
+                })
+                .collect();
+            let mut order: Vec<usize> = (0..names.len()).collect();
+            order.sort_by(|&a, &b| natural_cmp(&names[a], &names[b]));
+            let mut renumber = vec![0u32; names.len()];
+            for (new, &old) in order.iter().enumerate() {
+                renumber[old] = new as u32;
+            }
+            for frame in &mut frames {
+                for i in frame.level_idx[f].iter_mut() {
+                    *i = renumber[*i as usize];
+                }
+            }
+            factor_levels.push(FactorLevels {
+                name: factor.name.clone(),
+                levels: order.iter().map(|&i| names[i].clone()).collect(),
+            });
+        }
+        Ok(PeriodFrame {
+            factors: factor_levels,
+            characteristics: frames,
+        })
     }
     fn level_case_collisions(&self) -> Result<Vec<(String, Vec<String>)>> {
         Store::level_case_collisions(self)
     }
     fn reader_opener(&self) -> Option<ReaderOpener> {
-        let path = self.path()?.to_path_buf();
+        let path = self.path.clone()?;
         Some(Box::new(move || {
-            Store::open(path).map(|s| Box::new(s) as Box<dyn MeasurementStore + Send>)
+            Store::open_reader(&path).map(|s| Box::new(s) as Box<dyn MeasurementStore + Send>)
         }))
     }
 }
@@ -630,13 +597,42 @@ mod tests {
     }
 
     #[test]
-    fn closest_name_is_suggested() {
-        let names = ["bore_diameter", "flatness", "length"];
+    fn the_second_reader_is_read_only_and_never_migrates() {
+        let dir = std::env::temp_dir().join(format!("samewise-reader-{}", std::process::id()));
+        let _ = std::fs::remove_dir_all(&dir);
+        std::fs::create_dir_all(&dir).unwrap();
+        let db = dir.join("plant.db");
+        let store = Store::open_or_create(&db).unwrap();
+        // At the current schema: a working reader whose connection cannot write.
+        let opener = store
+            .reader_opener()
+            .expect("a file database has a second reader");
+        let reader = opener().unwrap();
+        assert!(reader.characteristics().unwrap().is_empty());
+        let direct = Store::open_reader(&db).unwrap();
+        assert!(direct
+            .conn
+            .is_readonly(rusqlite::DatabaseName::Main)
+            .unwrap());
+        assert!(direct
+            .conn
+            .execute("DELETE FROM characteristics", [])
+            .is_err());
+        drop(direct);
+        // A database behind this build's schema: refused, and left as it was (no migration).
+        let behind = crate::storage::migrate::latest_version() - 1;
+        store
+            .conn
+            .pragma_update(None, "user_version", behind)
+            .unwrap();
+        let err = store.reader_opener().unwrap()().err().unwrap().to_string();
+        assert!(err.contains("does not migrate"), "{err}");
         assert_eq!(
-            closest("bore_diamter", names.iter().copied()),
-            Some("bore_diameter")
+            crate::storage::migrate::schema_version(&store.conn).unwrap(),
+            behind
         );
-        assert_eq!(closest("zzzzzzzzzz", names.iter().copied()), None);
+        drop(store);
+        std::fs::remove_dir_all(&dir).unwrap();
     }
 
     #[test]

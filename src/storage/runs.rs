@@ -2,34 +2,40 @@
 //! keep two schedulers from running one period at once. Schema in `migrations/0002_runs.sql`.
 //!
 //! Lifecycle of a run (what a reader can rely on):
-//! 1. [`begin_run`] commits a `run` row with status `running` and the next version number of its
-//!    period. No result rows exist yet.
-//! 2. [`complete_run`] writes every result, group and pair row and flips the status to `complete`,
-//!    all in one transaction. A process killed before that commit leaves only the `running` row.
-//! 3. [`fail_run`] records status `failed` with the error text (kept; the period is retried).
-//! 4. [`recover_abandoned`] marks as `failed` ("abandoned: ...") every `running` row whose lease is
-//!    gone or expired, so a killed run is visible in the history but never read as a result.
+//! 1. [`RunStore::begin_run`] commits a `run` row with status `running` and the next version
+//!    number of its period. No result rows exist yet.
+//! 2. [`RunStore::complete_run`] writes every result, group and pair row and flips the status to
+//!    `complete`, all in one transaction. A process killed before that commit leaves only the
+//!    `running` row.
+//! 3. [`RunStore::fail_run`] records status `failed` with the error text (kept; the period is
+//!    retried).
+//! 4. [`RunStore::recover_abandoned`] marks as `failed` ("abandoned: ...") every `running` row
+//!    whose lease is gone or expired, so a killed run is visible in the history but never read
+//!    as a result.
 //!
-//! Readers ([`latest_complete_run`], [`history`]) only ever see the highest `complete` version.
+//! Readers ([`RunStore::latest_complete_run`], [`RunStore::history`]) only ever see the highest
+//! `complete` version.
 //! Times are integer milliseconds since the Unix epoch, UTC.
 //!
-//! Functions take a `rusqlite::Connection` so they work on any store connection; `Store` exposes
-//! them through its own methods.
+//! The SQLite work is done by functions of this module on a connection (private to `storage`);
+//! the SQLite store's [`RunStore`] implementation calls them, and is the one way in from outside.
 
 use rusqlite::{params, Connection, OptionalExtension, Row, ToSql, TransactionBehavior};
 
+use crate::model::PeriodKind;
 use crate::results::{
     AnovaResult, ComponentsResult, DesignKind, DesignResult, EffectResult, GroupResult, Interval,
     KruskalResult, LeadingResult, LeadingTest, OptInterval, PairResult, Sensitivity, SerialResult,
     ShapiroResult, StandsOut, StatP, TestResult, TestState, WelchResult,
 };
+use crate::stats::fdr::FdrMethod;
 use crate::Result;
 
 /// The identity and settings of one run, written when it starts.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, serde::Serialize, serde::Deserialize)]
 pub struct RunHeader {
-    /// `shift`, `day`, `week`, `month` or `range`.
-    pub period_kind: String,
+    /// The kind of the period checked.
+    pub period_kind: PeriodKind,
     /// The period's label (`2026-11-30`, `2026-W48`, ...).
     pub period_label: String,
     /// Period start, ms since the epoch (inclusive).
@@ -42,14 +48,51 @@ pub struct RunHeader {
     pub config_hash: String,
     /// samewise version.
     pub tool_version: String,
-    /// `bh` or `by`.
-    pub fdr_method: String,
+    /// The false-discovery procedure of the flags.
+    pub fdr_method: FdrMethod,
     /// The FDR level used for the flags.
     pub fdr_level: f64,
 }
 
+/// Where a run stands; stored as its lowercase name ([`RunStatus::as_str`]).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum RunStatus {
+    /// Begun; no result is written yet (a process that stopped leaves it so until a recovery
+    /// marks it failed).
+    Running,
+    /// Every result written: the only status whose results are read.
+    Complete,
+    /// Ended by an error (kept with the run) or abandoned; no results.
+    Failed,
+}
+
+impl RunStatus {
+    /// The stored name: `running`, `complete` or `failed`.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            RunStatus::Running => "running",
+            RunStatus::Complete => "complete",
+            RunStatus::Failed => "failed",
+        }
+    }
+
+    /// The status of a stored name; `None` for any other text.
+    pub fn parse(text: &str) -> Option<RunStatus> {
+        [RunStatus::Running, RunStatus::Complete, RunStatus::Failed]
+            .into_iter()
+            .find(|s| s.as_str() == text)
+    }
+}
+
+impl std::fmt::Display for RunStatus {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(self.as_str())
+    }
+}
+
 /// A stored run row.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, serde::Serialize, serde::Deserialize)]
 pub struct StoredRun {
     /// Row id.
     pub run_id: i64,
@@ -61,8 +104,8 @@ pub struct StoredRun {
     pub started_ms: i64,
     /// End, ms since the epoch (absent while running).
     pub finished_ms: Option<i64>,
-    /// `running`, `complete` or `failed`.
-    pub status: String,
+    /// Where the run stands.
+    pub status: RunStatus,
     /// Error text of a failed run.
     pub error: Option<String>,
     /// Number of tests (complete runs).
@@ -82,7 +125,7 @@ pub(super) fn begin_run(
     let tx = conn.transaction_with_behavior(TransactionBehavior::Immediate)?;
     let version: i64 = tx.query_row(
         "SELECT COALESCE(MAX(version), 0) + 1 FROM run WHERE period_kind = ?1 AND period_label = ?2",
-        params![header.period_kind, header.period_label],
+        params![header.period_kind.as_str(), header.period_label],
         |r| r.get(0),
     )?;
     tx.execute(
@@ -92,7 +135,7 @@ pub(super) fn begin_run(
          VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, 'running',
             (SELECT COALESCE(MAX(id), 0) FROM imports))",
         params![
-            header.period_kind,
+            header.period_kind.as_str(),
             header.period_label,
             header.period_start_ms,
             header.period_end_ms,
@@ -100,7 +143,7 @@ pub(super) fn begin_run(
             version,
             header.config_hash,
             header.tool_version,
-            header.fdr_method,
+            header.fdr_method.key(),
             header.fdr_level,
             started_ms
         ],
@@ -113,7 +156,7 @@ pub(super) fn begin_run(
         header: header.clone(),
         started_ms,
         finished_ms: None,
-        status: "running".into(),
+        status: RunStatus::Running,
         error: None,
         n_tests: None,
         n_flagged: None,
@@ -350,19 +393,19 @@ fn run_from_row(r: &Row<'_>) -> rusqlite::Result<StoredRun> {
         run_id: r.get(0)?,
         version: r.get(1)?,
         header: RunHeader {
-            period_kind: r.get(2)?,
+            period_kind: stored_name(r, 2, "period kind", PeriodKind::parse)?,
             period_label: r.get(3)?,
             period_start_ms: r.get(4)?,
             period_end_ms: r.get(5)?,
             schedule: r.get(6)?,
             config_hash: r.get(7)?,
             tool_version: r.get(8)?,
-            fdr_method: r.get(9)?,
+            fdr_method: stored_name(r, 9, "false-discovery method", FdrMethod::from_key)?,
             fdr_level: r.get(10)?,
         },
         started_ms: r.get(11)?,
         finished_ms: r.get(12)?,
-        status: r.get(13)?,
+        status: stored_name(r, 13, "run status", RunStatus::parse)?,
         error: r.get(14)?,
         n_tests: r.get(15)?,
         n_flagged: r.get(16)?,
@@ -475,7 +518,24 @@ pub(super) fn named<T>(
         rusqlite::Error::FromSqlConversionFailure(
             idx,
             rusqlite::types::Type::Text,
-            format!("unknown {what} {text:?} in run_result (a newer samewise wrote it?)").into(),
+            format!("unknown {what} {text:?} stored (a newer samewise wrote it?)").into(),
+        )
+    })
+}
+
+/// A text column that must hold one of a fixed set of names, read through `parse`; a null or an
+/// unknown name is a conversion error naming the value.
+fn stored_name<T>(
+    r: &Row<'_>,
+    idx: usize,
+    what: &'static str,
+    parse: fn(&str) -> Option<T>,
+) -> rusqlite::Result<T> {
+    named(r, idx, what, parse)?.ok_or_else(|| {
+        rusqlite::Error::FromSqlConversionFailure(
+            idx,
+            rusqlite::types::Type::Null,
+            format!("no {what} stored").into(),
         )
     })
 }
@@ -613,8 +673,31 @@ fn rows_of_run<T>(
     Ok(rows)
 }
 
-/// Reads the full content of one run.
+/// Runs `read` inside one read transaction of `conn`, so that all its statements see the same
+/// committed state (under WAL, the snapshot of its first read): a write committed by another
+/// connection meanwhile is not half seen. Inside a transaction already, `read` runs in that one.
+pub(super) fn in_read_transaction<T>(
+    conn: &Connection,
+    read: impl FnOnce(&Connection) -> Result<T>,
+) -> Result<T> {
+    if !conn.is_autocommit() {
+        return read(conn);
+    }
+    // A deferred transaction: it takes no lock until its first read, and never a write lock.
+    let tx = conn.unchecked_transaction()?;
+    let out = read(&tx)?;
+    tx.commit()?;
+    Ok(out)
+}
+
+/// Reads the full content of one run (its tests, then their groups, then their pairs) in one
+/// read transaction: a run completed meanwhile is read whole or not at all, never as tests
+/// without their groups or groups without their tests.
 pub(super) fn run_content(conn: &Connection, run_id: i64) -> Result<RunContent> {
+    in_read_transaction(conn, |conn| run_content_now(conn, run_id))
+}
+
+fn run_content_now(conn: &Connection, run_id: i64) -> Result<RunContent> {
     let sql = format!("SELECT {TEST_COLUMNS} FROM run_result WHERE run_id = ?1 ORDER BY test_idx");
     let mut tests = rows_of_run(conn, &sql, run_id, |r| test_from_row(r, 0))?;
     // Tests are numbered 0.. in order; a position lookup tolerates gaps all the same.
@@ -717,6 +800,18 @@ pub(super) fn history(
     period_kind: &str,
     last: usize,
 ) -> Result<Vec<HistoryPoint>> {
+    in_read_transaction(conn, |conn| {
+        history_now(conn, characteristic, factor, period_kind, last)
+    })
+}
+
+fn history_now(
+    conn: &Connection,
+    characteristic: &str,
+    factor: &str,
+    period_kind: &str,
+    last: usize,
+) -> Result<Vec<HistoryPoint>> {
     let run_cols = qualified("r", RUN_COLUMNS);
     let test_cols = qualified("t", TEST_COLUMNS);
     let sql = format!(
@@ -742,8 +837,11 @@ pub(super) fn history(
         .collect::<rusqlite::Result<Vec<_>>>()?;
     points.reverse();
     for p in &mut points {
-        p.complete_versions =
-            complete_versions(conn, &p.run.header.period_kind, &p.run.header.period_label)?;
+        p.complete_versions = complete_versions(
+            conn,
+            p.run.header.period_kind.as_str(),
+            &p.run.header.period_label,
+        )?;
     }
     Ok(points)
 }
@@ -776,17 +874,35 @@ pub(super) fn flagged_tests(
     period_kind: &str,
     period_label: &str,
 ) -> Result<Option<Vec<(String, String)>>> {
-    let Some(run) = latest_complete_run(conn, period_kind, period_label)? else {
-        return Ok(None);
-    };
-    let rows = rows_of_run(
-        conn,
-        "SELECT characteristic, factor FROM run_result
-         WHERE run_id = ?1 AND state IN ('differs_material', 'differs')",
-        run.run_id,
-        |r| Ok((r.get(0)?, r.get(1)?)),
-    )?;
-    Ok(Some(rows))
+    in_read_transaction(conn, |conn| {
+        let Some(run) = latest_complete_run(conn, period_kind, period_label)? else {
+            return Ok(None);
+        };
+        let rows = rows_of_run(
+            conn,
+            "SELECT characteristic, factor FROM run_result
+             WHERE run_id = ?1 AND state IN ('differs_material', 'differs')
+             ORDER BY test_idx",
+            run.run_id,
+            |r| Ok((r.get(0)?, r.get(1)?)),
+        )?;
+        Ok(Some(rows))
+    })
+}
+
+/// The latest complete run of a period with its content, both read in one read transaction.
+pub(super) fn latest_run(
+    conn: &Connection,
+    period_kind: &str,
+    period_label: &str,
+) -> Result<Option<(StoredRun, RunContent)>> {
+    in_read_transaction(conn, |conn| {
+        let Some(run) = latest_complete_run(conn, period_kind, period_label)? else {
+            return Ok(None);
+        };
+        let content = run_content(conn, run.run_id)?;
+        Ok(Some((run, content)))
+    })
 }
 
 /// The earliest measurement instant in the store (ms since the epoch), `None` when empty.
@@ -909,37 +1025,76 @@ pub(super) fn release_lease(conn: &Connection, key: &LeaseKey, holder: &str) -> 
 }
 
 /// The run history and its leases, as the rest of samewise sees them: what a second backend
-/// implements. Times are milliseconds since the Unix epoch, UTC. The lifecycle these serve is in
-/// `schedule::lifecycle` (one for `check` and the scheduler alike).
+/// implements. The lifecycle these serve is in `schedule::lifecycle` (one for `check` and the
+/// scheduler alike); the module documentation above describes a run's states.
+///
+/// Contract common to every method:
+/// - Times are integer milliseconds since the Unix epoch, UTC. A period is named by its kind
+///   (`shift`, `day`, `week`, `month`, `range`) and label; a run by its id, which increases
+///   with every run begun.
+/// - Every write is atomic: it is committed whole or not at all, and a failed call leaves the
+///   store as it was. A method that reads several tables reads them in one consistent
+///   snapshot, so a write committed by another process meanwhile is seen whole or not at all.
+/// - Readers of results only ever see `complete` runs; a `running` or `failed` run has no
+///   results to read.
+/// - Errors: `Error::Storage` for the backend's own failures (a busy database among them), and
+///   `Error::Database` for stored data that breaks these rules; an unknown period or run is
+///   not an error for the readers below (they return `None` or an empty list).
 pub trait RunStore {
-    /// Commits a `running` row with the next version of its period.
+    /// Begins a run of the period in `header`: commits a row with status `running`, the next
+    /// version number of its period (1 for the first run, one more than the highest version of
+    /// any status otherwise), `started_ms`, and the highest import id at this moment (which
+    /// later tells whether the period went stale). Returns the row as stored. Two runs of one
+    /// period begun at once get different versions; callers keep them apart with the period's
+    /// lease.
     fn begin_run(&mut self, header: &RunHeader, started_ms: i64) -> Result<StoredRun>;
-    /// Writes every result of the run and marks it `complete`, all or nothing; fails when the
-    /// run is no longer `running`.
+    /// Writes every result of the run (each test with its groups and pairs, in test order) and
+    /// marks the run `complete` with `finished_ms`, the number of tests and of flagged tests,
+    /// all in one transaction. Fails with `Error::Database`, writing nothing, when the run is
+    /// no longer `running` (a recovery marked it abandoned meanwhile).
     fn complete_run(&mut self, run_id: i64, finished_ms: i64, content: &RunContent) -> Result<()>;
-    /// Marks a running run `failed`, keeping the error text.
+    /// Marks the run `failed` with `finished_ms` and the error text, which is kept for the
+    /// history. Only a `running` run changes; for any other run (or an unknown id) this does
+    /// nothing and is not an error. No result of the run is written.
     fn fail_run(&self, run_id: i64, finished_ms: i64, error: &str) -> Result<()>;
-    /// Marks `failed` every running run whose lease is gone or expired; returns how many.
+    /// Marks `failed` (with an "abandoned: ..." error) every `running` run whose lease (its
+    /// schedule, or none for a run by hand, and its period) is missing or expired at `now_ms`,
+    /// in one statement; returns how many runs changed. A run whose holder still holds a live
+    /// lease is left alone.
     fn recover_abandoned(&self, now_ms: i64) -> Result<usize>;
-    /// Marks `failed` the running runs of the lease's period (the caller holds its lease).
+    /// Marks `failed` ("abandoned: ...") the `running` runs of the schedule and period of
+    /// `key`; returns how many changed. The caller holds that lease, so no other process can
+    /// be running them: they were left by a process that stopped.
     fn abandon_running(&self, key: &LeaseKey, now_ms: i64) -> Result<usize>;
-    /// Complete versions of a period's run.
+    /// How many `complete` versions the period's run has (0 when none): more than one means
+    /// the period was checked again and its results are shown as revised.
     fn complete_versions(&self, period_kind: &str, period_label: &str) -> Result<i64>;
-    /// The highest complete version of a period's run.
+    /// The `complete` run of the period with the highest version, or `None` when the period
+    /// has none (running and failed versions are never returned).
     fn latest_complete_run(
         &self,
         period_kind: &str,
         period_label: &str,
     ) -> Result<Option<StoredRun>>;
-    /// Every run of a period, oldest version first.
+    /// Every run of the period, of any status, in version order (oldest first); empty when the
+    /// period was never run.
     fn runs_of_period(&self, period_kind: &str, period_label: &str) -> Result<Vec<StoredRun>>;
-    /// Every run.
+    /// Every run of every period, of any status, in the order they were begun (run id order).
     fn all_runs(&self) -> Result<Vec<StoredRun>>;
-    /// Labels of the periods of a kind (and schedule) that are done: complete and not stale.
+    /// The labels of the periods of `period_kind` run by `schedule` (`None`: by hand) that are
+    /// done, in label order: a `complete` run exists, and no import that stored measurements
+    /// inside the period, and no undo of one, came after its latest complete run began. A
+    /// period not listed is due (again).
     fn completed_labels(&self, schedule: Option<&str>, period_kind: &str) -> Result<Vec<String>>;
-    /// The full content of a run.
+    /// The full content of a run: its tests in test order, each with its groups (in group
+    /// order) and pairs (in the order written), read in one snapshot. A run without results
+    /// (running, failed, or an unknown id) gives an empty content. A stored group or pair of a
+    /// test the run does not hold is an `Error::Database` naming the run, never dropped.
     fn run_content(&self, run_id: i64) -> Result<RunContent>;
-    /// The latest complete result of a characteristic x factor over the last `last` periods.
+    /// The result of `characteristic` x `factor` in the latest complete run of each of the
+    /// last `last` periods of `period_kind` that hold it, oldest period first (by period
+    /// start), each with its run and the number of complete versions of its period; the
+    /// results come without groups and pairs. Empty when no run holds the test.
     fn history(
         &self,
         characteristic: &str,
@@ -947,20 +1102,26 @@ pub trait RunStore {
         period_kind: &str,
         last: usize,
     ) -> Result<Vec<HistoryPoint>>;
-    /// The latest complete runs of the periods of a kind starting in `[start_ms, end_ms)`.
+    /// The latest complete run of every period of `period_kind` whose start lies in
+    /// `[start_ms, end_ms)`, in time order (ties by label); periods without a complete run are
+    /// left out. The month report and the charts read these.
     fn latest_complete_runs_between(
         &self,
         period_kind: &str,
         start_ms: i64,
         end_ms: i64,
     ) -> Result<Vec<StoredRun>>;
-    /// Flagged (characteristic, factor) pairs of a period's latest complete run.
+    /// The (characteristic, factor) pairs flagged (states `differs_material` and `differs`) in
+    /// the period's latest complete run, in test order; `None` when the period has no complete
+    /// run, an empty list when it has one without flags.
     fn flagged_tests(
         &self,
         period_kind: &str,
         period_label: &str,
     ) -> Result<Option<Vec<(String, String)>>>;
-    /// The latest complete run of a period with its content. Reads only.
+    /// The latest complete run of the period with its content ([`RunStore::run_content`]),
+    /// `None` when the period has no complete run. Reads only. The default reads the two one
+    /// after the other; a backend should read both in one snapshot (the SQLite one does).
     fn latest_run(
         &self,
         period_kind: &str,
@@ -972,17 +1133,25 @@ pub trait RunStore {
         let content = self.run_content(run.run_id)?;
         Ok(Some((run, content)))
     }
-    /// The earliest measurement instant, `None` when there is none.
+    /// The earliest measurement instant in the store, `None` when it holds no measurement
+    /// (where a schedule's periods start).
     fn first_measurement_ms(&self) -> Result<Option<i64>>;
-    /// Leases taken and not released.
+    /// How many leases exist (taken and not released, expired ones included).
     fn lease_count(&self) -> Result<usize>;
-    /// Takes a free or expired lease; `false` when someone else holds it.
+    /// Takes the lease of `key` for `holder` until `now_ms + ttl_ms`, atomically: succeeds
+    /// when no lease exists, when the existing one expired at or before `now_ms`, or when
+    /// `holder` holds it already (then it is renewed). Returns whether `holder` holds it now;
+    /// `false` when another holder's lease is still live (nothing changes then).
     fn take_lease(&self, key: &LeaseKey, holder: &str, now_ms: i64, ttl_ms: i64) -> Result<bool>;
-    /// Renews a lease this holder still holds; `false` when it lost it.
+    /// Extends the lease of `key` to `now_ms + ttl_ms` if `holder` still holds it; returns
+    /// `false` (changing nothing) when it does not, e.g. after another process took the
+    /// expired lease over.
     fn heartbeat(&self, key: &LeaseKey, holder: &str, now_ms: i64, ttl_ms: i64) -> Result<bool>;
-    /// The holder of a lease, if any.
+    /// The holder of the lease of `key`, expired or not; `None` when there is no lease.
     fn lease_holder(&self, key: &LeaseKey) -> Result<Option<String>>;
-    /// Takes over a lease from `old` (whose process is known to be gone).
+    /// Takes the lease of `key` over from `old` (whose process is known to be gone) for
+    /// `holder` until `now_ms + ttl_ms`, atomically: only while `old` still holds it. Returns
+    /// whether it was taken; `false` when someone else took it first.
     fn take_over_lease(
         &self,
         key: &LeaseKey,
@@ -991,7 +1160,8 @@ pub trait RunStore {
         now_ms: i64,
         ttl_ms: i64,
     ) -> Result<bool>;
-    /// Releases a lease this holder holds.
+    /// Releases the lease of `key` if `holder` holds it; does nothing (and is not an error)
+    /// when another holder, or nobody, holds it.
     fn release_lease(&self, key: &LeaseKey, holder: &str) -> Result<()>;
 }
 
@@ -1032,6 +1202,13 @@ impl RunStore for crate::storage::Store {
     }
     fn run_content(&self, run_id: i64) -> Result<RunContent> {
         run_content(&self.conn, run_id)
+    }
+    fn latest_run(
+        &self,
+        period_kind: &str,
+        period_label: &str,
+    ) -> Result<Option<(StoredRun, RunContent)>> {
+        latest_run(&self.conn, period_kind, period_label)
     }
     fn history(
         &self,
@@ -1103,14 +1280,14 @@ mod tests {
 
     fn header(label: &str) -> RunHeader {
         RunHeader {
-            period_kind: "day".into(),
+            period_kind: PeriodKind::Day,
             period_label: label.into(),
             period_start_ms: 1000,
             period_end_ms: 2000,
             schedule: Some("daily".into()),
             config_hash: "abc".into(),
             tool_version: "0.1.0".into(),
-            fdr_method: "bh".into(),
+            fdr_method: FdrMethod::BenjaminiHochberg,
             fdr_level: 0.05,
         }
     }
@@ -1165,6 +1342,80 @@ mod tests {
     }
 
     #[test]
+    fn a_run_completed_during_a_read_is_not_half_seen() {
+        let dir = std::env::temp_dir().join(format!("samewise-runs-{}", std::process::id()));
+        let _ = std::fs::remove_dir_all(&dir);
+        std::fs::create_dir_all(&dir).unwrap();
+        let path = dir.join("runs.db");
+        let mut writer = Connection::open(&path).unwrap();
+        let mode: String = writer
+            .query_row("PRAGMA journal_mode = WAL", [], |r| r.get(0))
+            .unwrap();
+        assert_eq!(mode, "wal");
+        for m in crate::storage::migrate::MIGRATIONS {
+            writer.execute_batch(m.sql).unwrap();
+        }
+        let reader = Connection::open(&path).unwrap();
+        let run = begin_run(&mut writer, &header("2026-11-30"), 10).unwrap();
+        // The writer completes the run between the reader's first and second look, inside one
+        // read transaction: both looks see the run as it was when the reading began.
+        let (first, second) = in_read_transaction(&reader, |c| {
+            let first = run_content(c, run.run_id)?;
+            complete_run(&mut writer, run.run_id, 20, &content(TestState::Differs))?;
+            let second = run_content(c, run.run_id)?;
+            Ok((first, second))
+        })
+        .unwrap();
+        assert!(first.tests.is_empty());
+        assert_eq!(second, first);
+        assert!(reader.is_autocommit(), "the read transaction is closed");
+        // After it, the run is read whole: its test with its group and pair.
+        let after = run_content(&reader, run.run_id).unwrap();
+        assert_eq!(after, content(TestState::Differs));
+        let (stored, whole) = latest_run(&reader, "day", "2026-11-30").unwrap().unwrap();
+        assert_eq!((stored.run_id, whole), (run.run_id, after));
+        drop((reader, writer));
+        std::fs::remove_dir_all(&dir).unwrap();
+    }
+
+    #[test]
+    fn run_fields_travel_as_enums_in_the_stored_vocabulary() {
+        let mut c = conn();
+        let r = begin_run(&mut c, &header("2026-11-30"), 10).unwrap();
+        // Text in the database, in the words of the schema.
+        let stored: (String, String, String) = c
+            .query_row(
+                "SELECT period_kind, fdr_method, status FROM run WHERE run_id = ?1",
+                [r.run_id],
+                |x| Ok((x.get(0)?, x.get(1)?, x.get(2)?)),
+            )
+            .unwrap();
+        assert_eq!(
+            (stored.0.as_str(), stored.1.as_str(), stored.2.as_str()),
+            ("day", "bh", "running")
+        );
+        // The same words when serialized, and back.
+        let read = all_runs(&c).unwrap().remove(0);
+        assert_eq!(read, r);
+        let json = serde_json::to_value(&read).unwrap();
+        assert_eq!(json["status"], "running");
+        assert_eq!(json["header"]["period_kind"], "day");
+        assert_eq!(json["header"]["fdr_method"], "bh");
+        let back: StoredRun = serde_json::from_value(json).unwrap();
+        assert_eq!(back, r);
+        complete_run(&mut c, r.run_id, 20, &content(TestState::Differs)).unwrap();
+        assert_eq!(all_runs(&c).unwrap()[0].status, RunStatus::Complete);
+        // A word this build does not know is an error naming it, never a default.
+        c.execute(
+            "UPDATE run SET period_kind = 'fortnight' WHERE run_id = ?1",
+            [r.run_id],
+        )
+        .unwrap();
+        let err = all_runs(&c).unwrap_err().to_string();
+        assert!(err.contains("unknown period kind \"fortnight\""), "{err}");
+    }
+
+    #[test]
     fn rerun_makes_new_version_and_readers_take_latest_complete() {
         let mut c = conn();
         let r1 = begin_run(&mut c, &header("2026-11-30"), 10).unwrap();
@@ -1199,7 +1450,7 @@ mod tests {
             .unwrap()
             .is_none());
         let all = all_runs(&c).unwrap();
-        assert_eq!(all[0].status, "failed");
+        assert_eq!(all[0].status, RunStatus::Failed);
         assert_eq!(all[0].error.as_deref(), Some("database is locked"));
         // A failed run cannot be completed afterwards, and nothing is written.
         assert!(complete_run(&mut c, r.run_id, 12, &content(TestState::Differs)).is_err());
@@ -1243,7 +1494,7 @@ mod tests {
         // Lease expired: recovered.
         assert_eq!(recover_abandoned(&c, 1200).unwrap(), 1);
         let all = all_runs(&c).unwrap();
-        assert_eq!(all[0].status, "failed");
+        assert_eq!(all[0].status, RunStatus::Failed);
         assert!(all[0].error.as_deref().unwrap().starts_with("abandoned"));
         // The slow original process cannot write afterwards.
         assert!(complete_run(&mut c, r.run_id, 1300, &content(TestState::Differs)).is_err());
