@@ -27,8 +27,6 @@ use samewise::analysis::run::{check_and_record, frame_from, header, previous_fla
 use samewise::analysis::{check_frame, check_frames, CheckOptions};
 use samewise::calendar::PlantCalendar;
 use samewise::config::Config;
-use samewise::storage::RunStore;
-use samewise::storage::Store;
 
 /// A production day inside the data (2026-11-02 06:00 UTC .. 2026-12-02 06:00 UTC).
 const DAY: &str = "2026-11-10";
@@ -107,7 +105,7 @@ fn timed<T>(what: &str, f: impl FnOnce() -> T) -> T {
 fn stages(config: &Config, label: &str, with_pairs: bool) {
     let calendar = PlantCalendar::new(config);
     let period = calendar.parse_period(label).unwrap();
-    let mut store = Store::open(&config.plant.database).unwrap();
+    let mut store = samewise::storage::open(config).unwrap();
     let options = CheckOptions::from_config(config);
     eprintln!("stages of the check of {label}:");
     let frame = timed("load_period, all characteristics at once", || {
@@ -128,7 +126,7 @@ fn stages(config: &Config, label: &str, with_pairs: bool) {
         }
     });
     let prev = timed("previous period's flags", || {
-        previous_flags(&store, &calendar, &period).unwrap()
+        previous_flags(&*store, &calendar, &period).unwrap()
     });
     let mut content = None;
     for threads in [1, 2] {
@@ -144,7 +142,7 @@ fn stages(config: &Config, label: &str, with_pairs: bool) {
     let content = content.unwrap();
     let streamed = timed(
         "run_check: parts of 5 characteristics, overlapped with analysis",
-        || run_check(&store, config, &period, &options).unwrap(),
+        || run_check(&*store, config, &period, &options).unwrap(),
     );
     assert_eq!(
         streamed, content,
@@ -258,7 +256,7 @@ fn checks(c: &mut Criterion) {
     }
     let calendar = PlantCalendar::new(&config);
     let options = CheckOptions::from_config(&config);
-    let mut store = Store::open(&config.plant.database).unwrap();
+    let mut store = samewise::storage::open(&config).unwrap();
     let mut group = c.benchmark_group("check");
     group.sample_size(10);
     for (name, label, seconds) in [("day", DAY, 10), ("month", MONTH, 60)] {
@@ -266,7 +264,8 @@ fn checks(c: &mut Criterion) {
         group.measurement_time(Duration::from_secs(seconds));
         group.bench_function(format!("{name} {label} (check_and_record)"), |b| {
             b.iter(|| {
-                check_and_record(&mut store, &config, &period, &options, &chrono::Utc::now).unwrap()
+                check_and_record(&mut *store, &config, &period, &options, &chrono::Utc::now)
+                    .unwrap()
             })
         });
     }

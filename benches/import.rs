@@ -2,7 +2,7 @@
 //!
 //! Setup writes the deterministic benchmark plant with `samewise generate-bench-data`
 //! (1,000,000 rows, 50 characteristics, 5 factors, 3 days: about 6,700 rows per
-//! characteristic-day) and imports it once; the benchmark then times `Store::load_period` of one
+//! characteristic-day) and imports it once; the benchmark then times `MeasurementStore::load_period` of one
 //! characteristic over one production day, on an open store (its level cache warm) and on a
 //! freshly opened one (open, migration check, and the level sets fetched in bulk).
 //!
@@ -16,7 +16,6 @@ use std::process::Command;
 
 use criterion::{criterion_group, criterion_main, Criterion};
 use samewise::config::Config;
-use samewise::storage::Store;
 
 fn setup() -> Config {
     // One directory per page size, so a database written with another page size is not reused.
@@ -57,7 +56,7 @@ fn setup() -> Config {
 
 fn characteristic_day(c: &mut Criterion) {
     let config = setup();
-    let store = Store::open(&config.plant.database).unwrap();
+    let store = samewise::storage::open(&config).unwrap();
     // 2026-11-03 06:00 UTC .. 2026-11-04 06:00 UTC: the second day of the data.
     let start = chrono::DateTime::from_timestamp(1_793_685_600, 0).unwrap();
     let end = chrono::DateTime::from_timestamp(1_793_772_000, 0).unwrap();
@@ -82,7 +81,7 @@ fn characteristic_day_fresh_store(c: &mut Criterion) {
     let names = ["char07".to_string()];
     c.bench_function("open + load_period one characteristic-day", |b| {
         b.iter(|| {
-            let store = Store::open(&config.plant.database).unwrap();
+            let store = samewise::storage::open(&config).unwrap();
             store.load_period(start, end, Some(&names)).unwrap()
         })
     });

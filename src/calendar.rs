@@ -25,7 +25,9 @@
 //! Start reading at [`PlantCalendar::period_bounds`].
 
 use chrono::offset::LocalResult;
-use chrono::{DateTime, Datelike, Duration, NaiveDate, NaiveDateTime, NaiveTime, TimeZone, Utc};
+use chrono::{
+    DateTime, Datelike, Duration, FixedOffset, NaiveDate, NaiveDateTime, NaiveTime, TimeZone, Utc,
+};
 use chrono_tz::Tz;
 
 use crate::config::{offset_in_day, Config, Shift};
@@ -345,12 +347,12 @@ impl PlantCalendar {
             ))
         };
         if let Some((from, to)) = text.split_once("..") {
-            let from = parse_date(from).ok_or_else(|| bad("the first day is not a date"))?;
-            let to = parse_date(to).ok_or_else(|| bad("the last day is not a date"))?;
+            let from = parse_date(from.trim()).map_err(|_| bad("the first day is not a date"))?;
+            let to = parse_date(to.trim()).map_err(|_| bad("the last day is not a date"))?;
             return self.range(from, to);
         }
         if let Some((day, shift)) = text.split_once('/') {
-            let day = parse_date(day).ok_or_else(|| bad("the day is not a date"))?;
+            let day = parse_date(day.trim()).map_err(|_| bad("the day is not a date"))?;
             return self.shift(day, shift.trim());
         }
         if let Some((year, week)) = text.split_once("-W").or_else(|| text.split_once("-w")) {
@@ -358,7 +360,7 @@ impl PlantCalendar {
             let week: u32 = parse_digits(week, 2).ok_or_else(|| bad("the week is not a number"))?;
             return self.week(year, week);
         }
-        if let Some(day) = parse_date(text) {
+        if let Ok(day) = parse_date(text) {
             return Ok(self.day(day));
         }
         if let Some((year, month)) = text.split_once('-') {
@@ -407,12 +409,178 @@ impl PlantCalendar {
     }
 }
 
-fn parse_date(text: &str) -> Option<NaiveDate> {
-    let text = text.trim();
-    if text.len() != 10 {
-        return None;
+/// Why a text is not a date ([`parse_date`]).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum DateError {
+    /// Not shaped `YYYY-MM-DD` (four digits, two, two, joined by `-`).
+    Shape,
+    /// Shaped like one, but not a day of the calendar (`2026-02-30`).
+    NoSuchDate,
+}
+
+/// A date written `YYYY-MM-DD`, exactly (no spaces, no sign, two-digit month and day): the one
+/// date reader of the command line's day flags, the period labels and the import's ISO
+/// timestamps.
+pub fn parse_date(text: &str) -> std::result::Result<NaiveDate, DateError> {
+    let b = text.as_bytes();
+    let shaped = b.len() == 10
+        && b.iter().enumerate().all(|(i, c)| match i {
+            4 | 7 => *c == b'-',
+            _ => c.is_ascii_digit(),
+        });
+    if !shaped {
+        return Err(DateError::Shape);
     }
-    NaiveDate::parse_from_str(text, "%Y-%m-%d").ok()
+    let number = |from: usize, to: usize| {
+        b[from..to]
+            .iter()
+            .fold(0u32, |n, c| n * 10 + u32::from(c - b'0'))
+    };
+    NaiveDate::from_ymd_opt(number(0, 4) as i32, number(5, 7), number(8, 10))
+        .ok_or(DateError::NoSuchDate)
+}
+
+/// The years a wall-clock time may have to be placed ([`local_to_utc`]): far from the ends of
+/// chrono's range, where zone arithmetic could overflow, and wide of any plant's data.
+pub const PLACEABLE_YEARS: std::ops::RangeInclusive<i32> = 1800..=2400;
+
+/// Why a wall-clock time has no one instant ([`local_to_utc`]).
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum LocalTimeError {
+    /// Its year lies outside [`PLACEABLE_YEARS`].
+    Year(i32),
+    /// The offset written with it (seconds east of UTC) is not a UTC offset.
+    Offset(i32),
+    /// It occurs twice in the zone (the clocks go back): its two readings, earlier first.
+    Repeated {
+        /// The plant zone.
+        zone: Tz,
+        /// The reading before the change (the earlier instant).
+        first: DateTime<FixedOffset>,
+        /// The reading after the change.
+        second: DateTime<FixedOffset>,
+    },
+    /// It does not exist in the zone (the clocks go forward): read with the offset in force
+    /// before the change and with the one after it (`None` where those offsets cannot be found).
+    Skipped {
+        /// The plant zone.
+        zone: Tz,
+        /// The instants of the two readings: (offset before, offset after).
+        readings: Option<(DateTime<FixedOffset>, DateTime<FixedOffset>)>,
+    },
+}
+
+impl LocalTimeError {
+    /// What is wrong, without the time itself: "occurs twice in Europe/Berlin (the clocks go
+    /// back)", "does not exist in ...", "has the year 3000, outside 1800 to 2400".
+    pub fn what(&self) -> String {
+        match self {
+            LocalTimeError::Year(y) => format!(
+                "has the year {y}, outside {} to {}",
+                PLACEABLE_YEARS.start(),
+                PLACEABLE_YEARS.end()
+            ),
+            LocalTimeError::Offset(s) => format!("has the offset {s} s, not a UTC offset"),
+            LocalTimeError::Repeated { zone, .. } => {
+                format!("occurs twice in {} (the clocks go back)", zone.name())
+            }
+            LocalTimeError::Skipped { zone, .. } => {
+                format!("does not exist in {} (the clocks go forward)", zone.name())
+            }
+        }
+    }
+
+    /// The two readings of a time at a daylight-saving change, in words, each as RFC 3339 with
+    /// its offset: "2026-10-25T02:30:00+02:00 (CEST, the first) and 2026-10-25T02:30:00+01:00
+    /// (CET, the second)", or for a skipped time "2026-03-29T02:30:00+01:00 (that is 03:30
+    /// CEST) with the offset before the change and 2026-03-29T02:30:00+02:00 (that is 01:30 CET)
+    /// with the offset after it". `None` for the other errors.
+    pub fn readings(&self) -> Option<String> {
+        let rfc = |t: &DateTime<FixedOffset>| t.format("%Y-%m-%dT%H:%M:%S%:z").to_string();
+        match self {
+            LocalTimeError::Repeated {
+                zone,
+                first,
+                second,
+            } => Some(format!(
+                "{} ({}, the first) and {} ({}, the second)",
+                rfc(first),
+                first.with_timezone(zone).format("%Z"),
+                rfc(second),
+                second.with_timezone(zone).format("%Z"),
+            )),
+            LocalTimeError::Skipped {
+                zone,
+                readings: Some((before, after)),
+            } => {
+                let read = |t: &DateTime<FixedOffset>| {
+                    let there = t.with_timezone(zone);
+                    format!(
+                        "{} (that is {} {})",
+                        rfc(t),
+                        there.format("%H:%M"),
+                        there.format("%Z")
+                    )
+                };
+                Some(format!(
+                    "{} with the offset before the change and {} with the offset after it",
+                    read(before),
+                    read(after)
+                ))
+            }
+            _ => None,
+        }
+    }
+}
+
+/// The instant of the wall-clock time `local`: with `offset_s` (seconds east of UTC) as
+/// written, without one in the plant zone `zone`. A plant-local time that does not exist (the
+/// clocks go forward) or occurs twice (they go back) is an error with both its readings, never
+/// guessed: an hour booked on the wrong side of a change would bias exactly the shift
+/// comparisons this tool makes. The one conversion of the command line's instants and the
+/// import's timestamps.
+pub fn local_to_utc(
+    local: NaiveDateTime,
+    offset_s: Option<i32>,
+    zone: Tz,
+) -> std::result::Result<DateTime<Utc>, LocalTimeError> {
+    use chrono::Offset;
+    if !PLACEABLE_YEARS.contains(&local.year()) {
+        return Err(LocalTimeError::Year(local.year()));
+    }
+    if let Some(offset_s) = offset_s {
+        return chrono::FixedOffset::east_opt(offset_s)
+            .and_then(|o| o.from_local_datetime(&local).single())
+            .map(|t| t.with_timezone(&Utc))
+            .ok_or(LocalTimeError::Offset(offset_s));
+    }
+    match zone.from_local_datetime(&local) {
+        LocalResult::Single(t) => Ok(t.with_timezone(&Utc)),
+        LocalResult::Ambiguous(a, b) => {
+            let (a, b) = (a.fixed_offset(), b.fixed_offset());
+            let (first, second) = if a <= b { (a, b) } else { (b, a) };
+            Err(LocalTimeError::Repeated {
+                zone,
+                first,
+                second,
+            })
+        }
+        LocalResult::None => {
+            // The offsets in force a day before and a day after: the two readings of a
+            // wall-clock time the change skipped.
+            let at = |d: Duration| {
+                local
+                    .checked_add_signed(d)
+                    .map(|n| zone.offset_from_utc_datetime(&n).fix())
+            };
+            let read = |o: FixedOffset| o.from_local_datetime(&local).single();
+            let readings = match (at(Duration::days(-1)), at(Duration::days(1))) {
+                (Some(before), Some(after)) if before != after => read(before).zip(read(after)),
+                _ => None,
+            };
+            Err(LocalTimeError::Skipped { zone, readings })
+        }
+    }
 }
 
 fn parse_digits<T: std::str::FromStr>(text: &str, len: usize) -> Option<T> {
@@ -427,6 +595,92 @@ fn parse_digits<T: std::str::FromStr>(text: &str, len: usize) -> Option<T> {
 mod tests {
     use super::*;
     use chrono_tz::{America, Europe};
+
+    #[test]
+    fn dates_are_read_in_one_shape() {
+        assert_eq!(
+            parse_date("2026-11-30"),
+            Ok(NaiveDate::from_ymd_opt(2026, 11, 30).unwrap())
+        );
+        assert_eq!(
+            parse_date("2024-02-29"),
+            Ok(NaiveDate::from_ymd_opt(2024, 2, 29).unwrap())
+        );
+        // 2026 is not a leap year (Gregorian rule).
+        assert_eq!(parse_date("2026-02-29"), Err(DateError::NoSuchDate));
+        assert_eq!(parse_date("2026-13-01"), Err(DateError::NoSuchDate));
+        for bad in [
+            "2026-1-05",
+            "2026-11-5",
+            " 2026-11-30",
+            "2026/11/30",
+            "+026-11-30",
+            "2026-11-30T06",
+            "2026-11",
+            "",
+        ] {
+            assert_eq!(parse_date(bad), Err(DateError::Shape), "{bad:?}");
+        }
+    }
+
+    #[test]
+    fn local_times_at_a_change_are_refused_with_both_readings() {
+        // IANA tz database, Europe/Berlin 2026: 02:00 -> 03:00 on 03-29, 03:00 -> 02:00 on 10-25.
+        let local = |text: &str| NaiveDateTime::parse_from_str(text, "%Y-%m-%d %H:%M").unwrap();
+        let utc = |text: &str| {
+            DateTime::parse_from_rfc3339(text)
+                .unwrap()
+                .with_timezone(&Utc)
+        };
+        assert_eq!(
+            local_to_utc(local("2026-11-30 14:05"), None, Europe::Berlin),
+            Ok(utc("2026-11-30T13:05:00Z"))
+        );
+        assert_eq!(
+            local_to_utc(local("2026-11-30 14:05"), Some(-6 * 3600), Europe::Berlin),
+            Ok(utc("2026-11-30T20:05:00Z"))
+        );
+        let twice = local_to_utc(local("2026-10-25 02:30"), None, Europe::Berlin).unwrap_err();
+        assert_eq!(
+            twice.what(),
+            "occurs twice in Europe/Berlin (the clocks go back)"
+        );
+        assert_eq!(
+            twice.readings().unwrap(),
+            "2026-10-25T02:30:00+02:00 (CEST, the first) and 2026-10-25T02:30:00+01:00 (CET, \
+             the second)"
+        );
+        let gap = local_to_utc(local("2026-03-29 02:30"), None, Europe::Berlin).unwrap_err();
+        assert_eq!(
+            gap.what(),
+            "does not exist in Europe/Berlin (the clocks go forward)"
+        );
+        assert_eq!(
+            gap.readings().unwrap(),
+            "2026-03-29T02:30:00+01:00 (that is 03:30 CEST) with the offset before the change \
+             and 2026-03-29T02:30:00+02:00 (that is 01:30 CET) with the offset after it"
+        );
+        // America/Chicago, 2026-03-08 02:00 CST -> 03:00 CDT (US rule: second Sunday of March).
+        let gap = local_to_utc(local("2026-03-08 02:15"), None, America::Chicago).unwrap_err();
+        assert!(gap
+            .readings()
+            .unwrap()
+            .starts_with("2026-03-08T02:15:00-06:00 (that is 03:15 CDT)"));
+        // The years a time may have, with or without an offset.
+        assert_eq!(
+            local_to_utc(local("2401-01-01 00:00"), None, Europe::Berlin),
+            Err(LocalTimeError::Year(2401))
+        );
+        assert_eq!(
+            local_to_utc(local("1799-12-31 23:59"), Some(0), Europe::Berlin),
+            Err(LocalTimeError::Year(1799))
+        );
+        assert!(local_to_utc(local("2400-12-31 23:59"), Some(0), Europe::Berlin).is_ok());
+        assert_eq!(
+            LocalTimeError::Year(2401).what(),
+            "has the year 2401, outside 1800 to 2400"
+        );
+    }
 
     fn shifts() -> Vec<Shift> {
         [("early", 6), ("late", 14), ("night", 22)]

@@ -115,6 +115,7 @@ pub use crate::stats::fdr::FdrMethod;
 use serde::Deserialize;
 
 use crate::model::PeriodKind;
+use crate::names::{unknown_name, NameKind};
 use crate::{Error, Result};
 
 /// The validated plant configuration.
@@ -539,6 +540,32 @@ impl Config {
     /// The index of factor `name` in `factors` (and in `Measurement::levels`).
     pub fn factor_index(&self, name: &str) -> Option<usize> {
         self.factors.iter().position(|f| f.name == name)
+    }
+
+    /// The configured characteristic `name`, or the unknown-name error
+    /// ([`crate::names::unknown_name`]) with the closest configured names.
+    pub fn known_characteristic(&self, name: &str) -> Result<&CharacteristicConfig> {
+        self.characteristic(name).ok_or_else(|| {
+            unknown_name(
+                NameKind::Characteristic,
+                name,
+                self.characteristics.iter().map(|c| c.name.as_str()),
+                &self.path.display().to_string(),
+            )
+        })
+    }
+
+    /// The configured factor `name`, or the unknown-name error ([`crate::names::unknown_name`])
+    /// with the closest configured names.
+    pub fn known_factor(&self, name: &str) -> Result<&FactorConfig> {
+        self.factors.iter().find(|f| f.name == name).ok_or_else(|| {
+            unknown_name(
+                NameKind::Factor,
+                name,
+                self.factors.iter().map(|f| f.name.as_str()),
+                &self.path.display().to_string(),
+            )
+        })
     }
 
     /// The layout called `name`.

@@ -10,8 +10,11 @@
 
 use chrono::{DateTime, Utc};
 
-/// The kind of a [`Period`].
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord)]
+/// The kind of a [`Period`]; serialized as its lowercase name ([`PeriodKind::as_str`]).
+#[derive(
+    Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord, serde::Serialize, serde::Deserialize,
+)]
+#[serde(rename_all = "lowercase")]
 pub enum PeriodKind {
     /// One shift of one production day.
     Shift,

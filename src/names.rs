@@ -1,10 +1,14 @@
-//! Suggesting the closest known names for a mistyped one ("did you mean ...?"), for every command
-//! that refuses an unknown characteristic, factor or level.
+//! Suggesting the closest known names for a mistyped one ("did you mean ...?"), and the one
+//! "unknown name" error ([`unknown_name`]) of every command and module that refuses an unknown
+//! characteristic, factor or level: the command line against the configuration, the store
+//! against the database, the report and the before/after study against what they load.
 //!
 //! Distance: Levenshtein edit distance (insertions, deletions, substitutions), ASCII letters
 //! compared without case, so `imm1` is one step from nothing and zero from `IMM1`. A candidate is
 //! suggested when its distance is at most half its length (at least 2): common practice for
 //! "did you mean" hints, which keeps unrelated names out.
+
+use crate::Error;
 
 /// Edit distance between `a` and `b` (ASCII case ignored).
 pub fn edit_distance(a: &str, b: &str) -> usize {
@@ -53,6 +57,48 @@ pub fn did_you_mean<'a>(name: &str, candidates: impl IntoIterator<Item = &'a str
     }
 }
 
+/// The kind of a name looked up ([`unknown_name`]).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum NameKind<'a> {
+    /// A characteristic.
+    Characteristic,
+    /// A grouping factor.
+    Factor,
+    /// A level (group) of the factor named.
+    Level {
+        /// The factor the level was looked for in.
+        factor: &'a str,
+    },
+}
+
+/// The error for a name that is not among the `known` ones of `source` (a configuration file,
+/// "the database", ...), in one wording everywhere: the name, the closest known names, and the
+/// known ones (up to 12), e.g. `unknown characteristic "bor" (did you mean "bore"?); known in
+/// plant.toml: bore, width`.
+pub fn unknown_name<'a>(
+    kind: NameKind<'_>,
+    given: &str,
+    known: impl IntoIterator<Item = &'a str> + Clone,
+    source: &str,
+) -> Error {
+    let hint = did_you_mean(given, known.clone());
+    let all: Vec<&str> = known.into_iter().collect();
+    let listed = match all.len() {
+        0 => format!("none is known in {source}"),
+        n if n <= 12 => format!("known in {source}: {}", all.join(", ")),
+        n => format!(
+            "{n} known in {source}, among them {}, ...",
+            all[..12].join(", ")
+        ),
+    };
+    let what = match kind {
+        NameKind::Characteristic => format!("characteristic \"{given}\""),
+        NameKind::Factor => format!("factor \"{given}\""),
+        NameKind::Level { factor } => format!("level \"{given}\" of factor \"{factor}\""),
+    };
+    Error::Usage(format!("unknown {what}{hint}; {listed}"))
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -74,6 +120,40 @@ mod tests {
         assert_eq!(closest_names("spindel", known, 3), vec!["spindle"]);
         assert!(closest_names("zzzzzzzz", known, 3).is_empty());
         assert_eq!(closest_names("M10", known, 1), vec!["M10"]);
+    }
+
+    #[test]
+    fn unknown_names_list_the_closest_and_the_known() {
+        let known = ["bore_diameter", "width", "flange_flatness"];
+        let e = unknown_name(
+            NameKind::Characteristic,
+            "bore_diamter",
+            known,
+            "plant.toml",
+        );
+        assert_eq!(
+            e.to_string(),
+            "unknown characteristic \"bore_diamter\" (did you mean \"bore_diameter\"?); \
+             known in plant.toml: bore_diameter, width, flange_flatness"
+        );
+        let many: Vec<String> = (1..=20).map(|i| format!("M{i}")).collect();
+        let e = unknown_name(
+            NameKind::Level { factor: "machine" },
+            "X9",
+            many.iter().map(String::as_str),
+            "the database",
+        )
+        .to_string();
+        assert!(
+            e.starts_with(
+                "unknown level \"X9\" of factor \"machine\" (did you mean \"M9\", \"M1\" or \
+                 \"M2\"?); 20 known in the database, among them M1, M2,"
+            ),
+            "{e}"
+        );
+        assert!(!e.contains("M13"), "{e}");
+        let e = unknown_name(NameKind::Factor, "shift", [], "the database").to_string();
+        assert_eq!(e, "unknown factor \"shift\"; none is known in the database");
     }
 
     #[test]

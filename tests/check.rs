@@ -147,7 +147,7 @@ fn run_level_q_values_equal_statsmodels() {
 }
 
 /// One characteristic of `frame` as its own frame, with each factor's levels cut down to those
-/// that occur in its values (what `Store::load_period` of one characteristic returns).
+/// that occur in its values (what `MeasurementStore::load_period` of one characteristic returns).
 fn part_of(frame: &Frame, c: usize) -> Frame {
     let mut ch = frame.characteristics[c].clone();
     let factors = frame

@@ -17,7 +17,7 @@ use proptest::test_runner::{Config as RunnerConfig, FileFailurePersistence};
 use samewise::config::Config;
 use samewise::ingest::timestamp::TimestampParser;
 use samewise::ingest::{parse_value, read_from, ReadOptions, RowOutcome};
-use samewise::storage::{ImportOptions, Store};
+use samewise::storage::ImportOptions;
 
 const CONFIG: &str = r#"
 [plant]
@@ -200,10 +200,10 @@ fn read_all(bytes: &[u8], config: &Config, layout: Option<&str>) {
 
 /// Imports `bytes` into a fresh in-memory store; the report's counts must add up.
 fn import_all(bytes: &[u8], config: &Config) {
-    let mut store = Store::open_in_memory().unwrap();
+    let mut store = samewise::storage::open_in_memory().unwrap();
     store.sync_config(config).unwrap();
     let Ok(stream) = read_from(
-        Cursor::new(bytes),
+        Box::new(Cursor::new(bytes)) as Box<dyn std::io::Read + Send>,
         "fuzz.csv",
         config,
         &ReadOptions::default(),
@@ -222,7 +222,7 @@ fn import_all(bytes: &[u8], config: &Config) {
         );
         // Importing the same bytes again stores nothing new, whatever they hold.
         let again = read_from(
-            Cursor::new(bytes),
+            Box::new(Cursor::new(bytes)) as Box<dyn std::io::Read + Send>,
             "fuzz.csv",
             config,
             &ReadOptions::default(),

@@ -6,7 +6,7 @@ use std::path::{Path, PathBuf};
 use std::process::Command;
 
 use samewise::config::Config;
-use samewise::storage::Store;
+use samewise::storage::PlantStore;
 
 mod common;
 use common::{output_text as text, samewise as run, temp_dir};
@@ -44,18 +44,18 @@ fn setup(name: &str) -> PathBuf {
     dir
 }
 
-fn store(dir: &Path) -> Store {
-    Store::open(dir.join("plant.db")).unwrap()
+fn store(dir: &Path) -> Box<dyn PlantStore> {
+    common::open_store(dir, "plant.db")
 }
 
 /// Measurements stored, over every characteristic.
-fn total_obs(s: &Store) -> u64 {
+fn total_obs(s: &dyn PlantStore) -> u64 {
     let status = s.status().unwrap();
     status.characteristics.iter().map(|c| c.n_obs).sum()
 }
 
 fn n_measurements(dir: &Path) -> u64 {
-    total_obs(&store(dir))
+    total_obs(&*store(dir))
 }
 
 const MIXED: &str = "timestamp,characteristic,value,machine
@@ -191,7 +191,7 @@ fn status_event_check_and_backup() {
     assert!(text(&o).contains("database is sound"));
     let o = run(&dir, &["db", "backup", "copy.db"]);
     assert!(o.status.success(), "{}", text(&o));
-    let copy = Store::open(dir.join("copy.db")).unwrap();
+    let copy = common::open_store(&dir, "copy.db");
     assert_eq!(
         copy.status().unwrap().characteristics,
         store(&dir).status().unwrap().characteristics
@@ -302,16 +302,16 @@ fn killed_import_leaves_nothing_and_the_file_imports_again() {
     child.kill().unwrap(); // SIGKILL on Unix
     let status = child.wait().unwrap();
     assert!(!status.success());
-    let s = Store::open(&db).unwrap();
+    let s = samewise::storage::open(&cfg).unwrap();
     assert_eq!(s.status().unwrap().n_imports, 0);
-    let total = total_obs(&s);
+    let total = total_obs(&*s);
     assert_eq!(total, 0);
     assert!(s.integrity_check().unwrap().is_ok());
     drop(s);
     let o = run(&dir, &["import", "--config", &config, "big.csv"]);
     assert!(o.status.success(), "{}", text(&o));
-    let s = Store::open(&db).unwrap();
-    let total = total_obs(&s);
+    let s = samewise::storage::open(&cfg).unwrap();
+    let total = total_obs(&*s);
     assert_eq!(total, rows);
     assert!(s.integrity_check().unwrap().is_ok());
 }
@@ -331,7 +331,7 @@ fn import_and_reader_run_together() {
         .stderr(std::process::Stdio::piped())
         .spawn()
         .unwrap();
-    let reader = Store::open(&cfg.plant.database).unwrap();
+    let reader = samewise::storage::open(&cfg).unwrap();
     let mut reads = 0;
     while child.try_wait().unwrap().is_none() {
         let frame = reader

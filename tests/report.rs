@@ -60,10 +60,10 @@ fn month_report_has_every_section_and_the_flagged_machine() {
     assert!(html.contains(samewise::CAUTION) || html.contains("decision support"));
     // The flagged item: bore by machine on 2026-11-30, M2 standing out.
     let config = samewise::config::Config::load(dir.join("plant.toml")).unwrap();
-    let store = samewise::storage::Store::open(&config.plant.database).unwrap();
+    let store = samewise::storage::open(&config).unwrap();
     let calendar = samewise::calendar::PlantCalendar::new(&config);
     let month = calendar.parse_period("2026-11").unwrap();
-    let r = report::month_report(&store, &config, &month, "test").unwrap();
+    let r = report::month_report(&*store, &config, &month, "test").unwrap();
     let item = r
         .flagged
         .iter()
@@ -116,11 +116,11 @@ fn trend_svg_has_one_point_per_group_per_checked_day() {
     let svg = parse_svg(&bytes);
     // The same input through the library gives the layout (and the same bytes).
     let config = samewise::config::Config::load(dir.join("plant.toml")).unwrap();
-    let store = samewise::storage::Store::open(&config.plant.database).unwrap();
+    let store = samewise::storage::open(&config).unwrap();
     let calendar = samewise::calendar::PlantCalendar::new(&config);
     let month = calendar.parse_period("2026-11").unwrap();
     let input = report::trend_input(
-        &store,
+        &*store,
         &config,
         "bore",
         "machine",
@@ -153,10 +153,10 @@ fn grid_svg_has_a_cell_per_row_and_day_and_png_is_written() {
     let svg = parse_svg(&std::fs::read(dir.join("grid.svg")).unwrap());
     // Row labels: 2 characteristics x 2 factors; 30 day columns.
     let config = samewise::config::Config::load(dir.join("plant.toml")).unwrap();
-    let store = samewise::storage::Store::open(&config.plant.database).unwrap();
+    let store = samewise::storage::open(&config).unwrap();
     let calendar = samewise::calendar::PlantCalendar::new(&config);
     let month = calendar.parse_period("2026-11").unwrap();
-    let grid = report::grid_input(&store, &config, &month).unwrap();
+    let grid = report::grid_input(&*store, &config, &month).unwrap();
     assert_eq!(grid.rows.len(), 4);
     assert_eq!(grid.days.len(), 30);
     assert!(grid.rows.iter().all(|r| r.cells.len() == 30));

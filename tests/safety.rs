@@ -9,8 +9,6 @@ use std::path::{Path, PathBuf};
 use std::process::{Command, Output, Stdio};
 
 use chrono::{Duration, TimeZone, Utc};
-use samewise::storage::RunStore;
-use samewise::storage::Store;
 
 mod common;
 use common::{output_text as text, samewise as run, temp_dir, Rng, CONFIG};
@@ -59,7 +57,7 @@ fn plant(name: &str, days: i64) -> PathBuf {
 
 /// Every stored measurement, in one frame (2026-11-01 .. 2027-01-01).
 fn frame(dir: &Path) -> samewise::storage::PeriodFrame {
-    let store = Store::open(dir.join("plant.db")).unwrap();
+    let store = common::open_store(dir, "plant.db");
     let start = Utc.with_ymd_and_hms(2026, 11, 1, 0, 0, 0).unwrap();
     let end = Utc.with_ymd_and_hms(2027, 1, 1, 0, 0, 0).unwrap();
     store.load_period(start, end, None).unwrap()
@@ -115,7 +113,7 @@ fn issue_15_fifo_pipe_and_stdin_imports_match_a_file_import_row_by_row() {
     assert!(o.status.success(), "{}", text(&o));
     assert!(text(&o).contains("<stdin>: import #1"), "{}", text(&o));
     assert_eq!(frame(&by_dash), expected);
-    let store = Store::open(by_dash.join("plant.db")).unwrap();
+    let store = common::open_store(&by_dash, "plant.db");
     let record = store
         .find_import_by_sha256(&sha256(&by_dash.join("export.csv")))
         .unwrap()
@@ -279,7 +277,7 @@ fn issue_15_outputs_onto_the_database_configuration_or_an_input_are_refused() {
     assert!(std::fs::read_to_string(dir.join("tests.csv"))
         .unwrap()
         .starts_with("period_kind,period,period_start,run_id,version,characteristic,factor"));
-    let copy = Store::open(dir.join("copy.db")).unwrap();
+    let copy = common::open_store(&dir, "copy.db");
     assert_eq!(copy.status().unwrap().characteristics.len(), 2);
 }
 
@@ -593,7 +591,7 @@ fn issue_15_the_lease_of_a_check_whose_process_is_gone_is_taken_over() {
     };
     let now_ms = Utc::now().timestamp_millis();
     {
-        let store = Store::open(dir.join("plant.db")).unwrap();
+        let store = common::open_store(&dir, "plant.db");
         let taken = store
             .take_lease(&key, &format!("{host}:{dead_pid}:1"), now_ms, 600_000)
             .unwrap();
@@ -604,7 +602,7 @@ fn issue_15_the_lease_of_a_check_whose_process_is_gone_is_taken_over() {
     // A live holder (this test process) is respected, and named.
     let me = format!("{host}:{}:2", std::process::id());
     {
-        let store = Store::open(dir.join("plant.db")).unwrap();
+        let store = common::open_store(&dir, "plant.db");
         assert!(store
             .take_lease(&key, &me, Utc::now().timestamp_millis(), 600_000)
             .unwrap());
@@ -614,7 +612,7 @@ fn issue_15_the_lease_of_a_check_whose_process_is_gone_is_taken_over() {
     assert!(text(&o).contains(&me), "{}", text(&o));
     // The scheduler takes a dead holder's lease over as well.
     {
-        let store = Store::open(dir.join("plant.db")).unwrap();
+        let store = common::open_store(&dir, "plant.db");
         let key = samewise::storage::runs::LeaseKey {
             schedule: "daily".into(),
             period_kind: "day".into(),

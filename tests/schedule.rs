@@ -16,9 +16,9 @@ use samewise::config::{Config, ScheduleConfig};
 use samewise::model::Period;
 use samewise::results::{TestResult, TestState};
 use samewise::schedule::{self, Clock, PeriodOutcome, PeriodRunner, SchedulerOptions};
-use samewise::storage::runs::{RunContent, RunHeader};
-use samewise::storage::RunStore;
-use samewise::storage::{PlantStore, Store};
+use samewise::stats::fdr::FdrMethod;
+use samewise::storage::runs::{RunContent, RunHeader, RunStatus};
+use samewise::storage::PlantStore;
 
 const CONFIG: &str = r#"
 [plant]
@@ -68,11 +68,14 @@ fn temp_db(name: &str) -> std::path::PathBuf {
     dir.join("plant.db")
 }
 
-fn open(path: &std::path::Path) -> Store {
-    Store::open_or_create(path).unwrap()
+/// The test configuration's store at `path`, opened (or created) through `storage`.
+fn open(path: &std::path::Path) -> Box<dyn PlantStore> {
+    let mut config = config();
+    config.plant.database = path.to_path_buf();
+    samewise::storage::open_or_create(&config).unwrap()
 }
 
-fn count_leases(store: &Store) -> usize {
+fn count_leases(store: &dyn PlantStore) -> usize {
     // Leases are released after each run; a leftover lease would block the period until expiry.
     store.lease_count().unwrap()
 }
@@ -95,14 +98,14 @@ impl PeriodRunner for Recorder {
     }
     fn header(&self, schedule: &ScheduleConfig, period: &Period) -> RunHeader {
         RunHeader {
-            period_kind: period.kind.as_str().into(),
+            period_kind: period.kind,
             period_label: period.label.clone(),
             period_start_ms: period.start.timestamp_millis(),
             period_end_ms: period.end.timestamp_millis(),
             schedule: Some(schedule.name.clone()),
             config_hash: "test".into(),
             tool_version: env!("CARGO_PKG_VERSION").into(),
-            fdr_method: "bh".into(),
+            fdr_method: FdrMethod::BenjaminiHochberg,
             fdr_level: 0.05,
         }
     }
@@ -175,7 +178,7 @@ fn three_weeks_with_outage_every_period_once_in_order_across_dst() {
     // Up to Friday 2026-10-23 12:00 local, then the scheduler is down for 2 days.
     let outage_start = berlin(2026, 10, 23, 12);
     let mut entries = schedule::run_forever(
-        &mut conn,
+        &mut *conn,
         &config,
         &clock,
         &mut runner,
@@ -194,7 +197,7 @@ fn three_weeks_with_outage_every_period_once_in_order_across_dst() {
     assert_eq!(failed.len(), 1);
     assert_eq!(failed[0].period, "2026-10-20");
     let all = conn.all_runs().unwrap();
-    let f = all.iter().find(|r| r.status == "failed").unwrap();
+    let f = all.iter().find(|r| r.status == RunStatus::Failed).unwrap();
     assert_eq!(f.header.period_label, "2026-10-20");
     assert_eq!(f.error.as_deref(), Some("injected failure for 2026-10-20"));
 
@@ -204,7 +207,7 @@ fn three_weeks_with_outage_every_period_once_in_order_across_dst() {
     let end = berlin(2026, 11, 2, 9);
     entries.extend(
         schedule::run_forever(
-            &mut conn,
+            &mut *conn,
             &config,
             &clock,
             &mut runner,
@@ -217,7 +220,10 @@ fn three_weeks_with_outage_every_period_once_in_order_across_dst() {
     );
 
     let all = conn.all_runs().unwrap();
-    let complete: Vec<_> = all.iter().filter(|r| r.status == "complete").collect();
+    let complete: Vec<_> = all
+        .iter()
+        .filter(|r| r.status == RunStatus::Complete)
+        .collect();
     // Daily: production days 2026-10-12 .. 2026-11-01 (day 11-01 ends 11-02 06:00, due 08:00).
     let daily: Vec<String> = complete
         .iter()
@@ -246,7 +252,11 @@ fn three_weeks_with_outage_every_period_once_in_order_across_dst() {
     assert_eq!(weekly, ["2026-W42", "2026-W43"]);
     // Every run started no earlier than its period's end + delay.
     for r in &complete {
-        let delay = if r.header.period_kind == "day" { 2 } else { 6 };
+        let delay = if r.header.period_kind == samewise::model::PeriodKind::Day {
+            2
+        } else {
+            6
+        };
         assert!(r.started_ms >= r.header.period_end_ms + delay * 3_600_000);
     }
     // Catch-up after the outage (Fri 10-23 12:00 to Sun 10-25 12:00 local): days 10-23 and 10-24
@@ -278,7 +288,7 @@ fn three_weeks_with_outage_every_period_once_in_order_across_dst() {
         assert_eq!(n, expect, "{s} {p} computed {n} times");
     }
     // No lease is left behind.
-    assert_eq!(count_leases(&conn), 0);
+    assert_eq!(count_leases(&*conn), 0);
 }
 
 #[test]
@@ -302,7 +312,7 @@ fn shift_schedule_across_dst_spring_forward() {
     };
     let stop = AtomicBool::new(false);
     schedule::run_forever(
-        &mut conn,
+        &mut *conn,
         &config,
         &clock,
         &mut runner,
@@ -330,7 +340,7 @@ fn shift_schedule_across_dst_spring_forward() {
         night.header.period_end_ms - night.header.period_start_ms,
         7 * 3_600_000
     );
-    assert!(all.iter().all(|r| r.status == "complete"));
+    assert!(all.iter().all(|r| r.status == RunStatus::Complete));
 }
 
 #[test]
@@ -357,7 +367,7 @@ fn two_schedulers_at_once_run_each_period_once() {
                 };
                 let stop = AtomicBool::new(false);
                 schedule::run_pass(
-                    &mut conn,
+                    &mut *conn,
                     &config,
                     &clock,
                     &mut runner,
@@ -374,7 +384,9 @@ fn two_schedulers_at_once_run_each_period_once() {
     let all = conn.all_runs().unwrap();
     // 14 days (11-02 .. 11-15) and 2 weeks (W45, W46): each run exactly once, by one of the two.
     assert_eq!(all.len(), 16, "{all:#?}");
-    assert!(all.iter().all(|r| r.status == "complete" && r.version == 1));
+    assert!(all
+        .iter()
+        .all(|r| r.status == RunStatus::Complete && r.version == 1));
     let mut labels: Vec<_> = all.iter().map(|r| r.header.period_label.clone()).collect();
     labels.sort();
     labels.dedup();
@@ -415,27 +427,111 @@ fn nothing_is_due_before_end_plus_delay() {
 
 mod common;
 
+/// The engine, slowed down once the run row is written: `compute` waits `pause` before it
+/// checks the period, so a run stays `running` (lease held, no results) for that long.
+struct SlowEngine<'a> {
+    engine: samewise::analysis::run::EngineRunner<'a>,
+    pause: std::time::Duration,
+}
+
+impl PeriodRunner for SlowEngine<'_> {
+    fn first_measurement(
+        &mut self,
+        store: &dyn PlantStore,
+    ) -> samewise::Result<Option<DateTime<Utc>>> {
+        self.engine.first_measurement(store)
+    }
+    fn header(&self, schedule: &ScheduleConfig, period: &Period) -> RunHeader {
+        self.engine.header(schedule, period)
+    }
+    fn compute(
+        &mut self,
+        store: &dyn PlantStore,
+        schedule: &ScheduleConfig,
+        period: &Period,
+    ) -> samewise::Result<RunContent> {
+        std::thread::sleep(self.pause);
+        self.engine.compute(store, schedule, period)
+    }
+}
+
+/// Set (to the plant directory) only when `killed_scheduler_...` starts this test binary as the
+/// scheduler process it kills.
+const KILLED_SCHEDULER_PLANT: &str = "SAMEWISE_TEST_KILLED_SCHEDULER_PLANT";
+
+/// One scheduler pass at 2026-11-30T12:00Z through the engine, paused a minute in each run when
+/// started as the process `killed_scheduler_...` kills (it is killed in that pause), and without
+/// a pause on a plant of its own otherwise (`cargo test -- --ignored`), where both due days must
+/// complete with their four tests.
+#[test]
+#[ignore = "the scheduler process of killed_scheduler_leaves_no_partial_run_and_next_start_redoes_it"]
+fn scheduler_process_paused_in_each_run() {
+    let (dir, pause) = match std::env::var_os(KILLED_SCHEDULER_PLANT) {
+        Some(dir) => (
+            std::path::PathBuf::from(dir),
+            std::time::Duration::from_secs(60),
+        ),
+        None => {
+            let dir = common::temp_dir("paused-scheduler");
+            common::invented_plant(&dir, 2);
+            (dir, std::time::Duration::ZERO)
+        }
+    };
+    let config = Config::load(dir.join("plant.toml")).unwrap();
+    let mut store = samewise::storage::open(&config).unwrap();
+    let mut runner = SlowEngine {
+        engine: samewise::analysis::run::EngineRunner::new(&config),
+        pause,
+    };
+    let clock =
+        schedule::SimulatedClock::new(Utc.with_ymd_and_hms(2026, 11, 30, 12, 0, 0).unwrap());
+    let options = SchedulerOptions::new(schedule::holder_name(1));
+    let entries = schedule::run_pass(
+        &mut *store,
+        &config,
+        &clock,
+        &mut runner,
+        &options,
+        &AtomicBool::new(false),
+        &mut |_| {},
+    )
+    .unwrap();
+    let completed: Vec<&str> = entries
+        .iter()
+        .filter(|e| matches!(e.outcome, PeriodOutcome::Completed(..)))
+        .map(|e| e.period.as_str())
+        .collect();
+    assert_eq!(completed, ["2026-11-28", "2026-11-29"], "{entries:?}");
+}
+
 /// A scheduler process killed (SIGKILL) in the middle of a run leaves no result rows, only the
 /// run row in state `running`; the next start marks it abandoned (failed, error kept) and redoes
-/// the period.
+/// the period. The killed process is this test binary running
+/// `scheduler_process_paused_in_each_run` (the engine paused after the run row is written): the
+/// pause is the test's own runner, not a switch of the shipped program.
 #[test]
 fn killed_scheduler_leaves_no_partial_run_and_next_start_redoes_it() {
     let dir = common::temp_dir("killed-scheduler");
     common::invented_plant(&dir, 2);
-    let db = dir.join("plant.db");
     // Days 11-28 and 11-29 are due at 2026-11-30T12:00Z (ends 06:00 + 2 h delay).
-    let mut child = std::process::Command::new(env!("CARGO_BIN_EXE_samewise"))
+    let mut child = std::process::Command::new(std::env::current_exe().unwrap())
         .current_dir(&dir)
-        .args(["schedule", "due", "--now", "2026-11-30T12:00:00Z"])
-        .env("SAMEWISE_PAUSE_AFTER_BEGIN_MS", "60000")
+        .args([
+            "--exact",
+            "scheduler_process_paused_in_each_run",
+            "--ignored",
+            "--nocapture",
+        ])
+        .env(KILLED_SCHEDULER_PLANT, &dir)
+        .stdout(std::process::Stdio::null())
         .stderr(std::process::Stdio::null())
         .spawn()
         .unwrap();
     let started = std::time::Instant::now();
     loop {
-        let store = Store::open(&db).unwrap();
+        let store = common::open_store(&dir, "plant.db");
         let all = store.all_runs().unwrap();
-        if all.iter().any(|r| r.status == "running") {
+        if all.iter().any(|r| r.status == RunStatus::Running) {
             break;
         }
         assert!(started.elapsed().as_secs() < 60, "no run started");
@@ -443,10 +539,10 @@ fn killed_scheduler_leaves_no_partial_run_and_next_start_redoes_it() {
     }
     child.kill().unwrap(); // SIGKILL
     child.wait().unwrap();
-    let store = Store::open(&db).unwrap();
+    let store = common::open_store(&dir, "plant.db");
     let all = store.all_runs().unwrap();
     assert_eq!(all.len(), 1);
-    assert_eq!(all[0].status, "running");
+    assert_eq!(all[0].status, RunStatus::Running);
     assert!(store.run_content(all[0].run_id).unwrap().tests.is_empty());
     drop(store);
     let out = common::samewise(&dir, &["schedule", "due", "--now", "2026-11-30T12:00:00Z"]);
@@ -456,12 +552,15 @@ fn killed_scheduler_leaves_no_partial_run_and_next_start_redoes_it() {
         "{}",
         String::from_utf8_lossy(&out.stderr)
     );
-    let store = Store::open(&db).unwrap();
+    let store = common::open_store(&dir, "plant.db");
     let all = store.all_runs().unwrap();
     let killed = &all[0];
-    assert_eq!(killed.status, "failed");
+    assert_eq!(killed.status, RunStatus::Failed);
     assert!(killed.error.as_deref().unwrap().starts_with("abandoned"));
-    let complete: Vec<_> = all.iter().filter(|r| r.status == "complete").collect();
+    let complete: Vec<_> = all
+        .iter()
+        .filter(|r| r.status == RunStatus::Complete)
+        .collect();
     let labels: Vec<_> = complete
         .iter()
         .map(|r| r.header.period_label.as_str())
@@ -474,6 +573,6 @@ fn killed_scheduler_leaves_no_partial_run_and_next_start_redoes_it() {
     // Nothing due any more: a third start runs nothing.
     let out = common::samewise(&dir, &["schedule", "due", "--now", "2026-11-30T12:00:00Z"]);
     assert_eq!(out.status.code(), Some(0));
-    let store = Store::open(&db).unwrap();
+    let store = common::open_store(&dir, "plant.db");
     assert_eq!(store.all_runs().unwrap().len(), 3);
 }

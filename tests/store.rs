@@ -5,7 +5,7 @@
 use samewise::config::Config;
 use samewise::ingest;
 use samewise::stats::decimal::Decimal;
-use samewise::storage::{exact_value, migrate, ImportOptions, Store};
+use samewise::storage::{exact_value, migrate, ImportOptions, PlantStore};
 
 mod common;
 use common::temp_dir;
@@ -42,7 +42,7 @@ fn started() -> chrono::DateTime<chrono::Utc> {
 }
 
 /// Imports the file at `path` into `store`, not forced, started at [`started`].
-fn import_file(store: &mut Store, path: &std::path::Path, cfg: &Config) {
+fn import_file(store: &mut dyn PlantStore, path: &std::path::Path, cfg: &Config) {
     let stream = ingest::read_file(path, cfg, None).unwrap();
     store
         .import(
@@ -57,7 +57,7 @@ fn import_file(store: &mut Store, path: &std::path::Path, cfg: &Config) {
 
 #[test]
 fn migrations_apply_from_empty_and_version_counts_the_files() {
-    let store = Store::open_in_memory().unwrap();
+    let store = samewise::storage::open_in_memory().unwrap();
     let files = std::fs::read_dir(concat!(env!("CARGO_MANIFEST_DIR"), "/migrations"))
         .unwrap()
         .filter(|e| {
@@ -77,22 +77,23 @@ fn migrations_apply_from_empty_and_version_counts_the_files() {
 fn reopening_applies_nothing_twice() {
     let dir = temp_dir("reopen");
     let cfg = config(&dir, CONFIG);
-    drop(Store::create(&cfg.plant.database, &cfg).unwrap());
-    let store = Store::open(&cfg.plant.database).unwrap();
+    drop(samewise::storage::create(&cfg).unwrap());
+    let store = samewise::storage::open(&cfg).unwrap();
     assert_eq!(store.schema_version().unwrap(), migrate::latest_version());
 }
 
 #[test]
 fn a_newer_database_is_refused_untouched() {
     let dir = temp_dir("newer");
-    let db = dir.join("plant.db");
-    drop(Store::open_or_create(&db).unwrap());
+    let cfg = config(&dir, CONFIG);
+    let db = cfg.plant.database.clone();
+    drop(samewise::storage::open_or_create(&cfg).unwrap());
     let newer = migrate::latest_version() + 1;
     {
         let conn = rusqlite::Connection::open(&db).unwrap();
         conn.pragma_update(None, "user_version", newer).unwrap();
     }
-    let err = Store::open(&db).unwrap_err().to_string();
+    let err = samewise::storage::open(&cfg).err().unwrap().to_string();
     assert!(err.contains("newer samewise"), "{err}");
     let conn = rusqlite::Connection::open(&db).unwrap();
     let v: u32 = conn
@@ -104,7 +105,8 @@ fn a_newer_database_is_refused_untouched() {
 #[test]
 fn a_missing_database_suggests_init() {
     let dir = temp_dir("missing");
-    let err = Store::open(dir.join("nothing.db")).unwrap_err().to_string();
+    let cfg = config(&dir, CONFIG);
+    let err = samewise::storage::open(&cfg).err().unwrap().to_string();
     assert!(err.contains("samewise init"), "{err}");
 }
 
@@ -112,7 +114,7 @@ fn a_missing_database_suggests_init() {
 fn sync_config_is_idempotent_and_keeps_measurements() {
     let dir = temp_dir("sync");
     let cfg = config(&dir, CONFIG);
-    let mut store = Store::create(&cfg.plant.database, &cfg).unwrap();
+    let mut store = samewise::storage::create(&cfg).unwrap();
     let second = store.sync_config(&cfg).unwrap();
     assert!(second.is_unchanged(), "{second:?}");
     let csv = dir.join("a.csv");
@@ -121,7 +123,7 @@ fn sync_config_is_idempotent_and_keeps_measurements() {
         "timestamp,characteristic,value,machine\n2026-11-30T07:00:00Z,bore,42.001,M1\n",
     )
     .unwrap();
-    import_file(&mut store, &csv, &cfg);
+    import_file(&mut *store, &csv, &cfg);
     // A changed limit updates the characteristic; the measurement stays.
     let changed = config(
         &dir,
@@ -150,7 +152,7 @@ fn sync_config_is_idempotent_and_keeps_measurements() {
 fn large_offset_values_round_trip_exactly() {
     let dir = temp_dir("offset");
     let cfg = config(&dir, CONFIG);
-    let mut store = Store::create(&cfg.plant.database, &cfg).unwrap();
+    let mut store = samewise::storage::create(&cfg).unwrap();
     let texts = ["1000000000000.4", "1000000000000.3", "1000000000000.5"];
     let mut csv = String::from("timestamp,characteristic,value,machine\n");
     for (i, t) in texts.iter().enumerate() {
@@ -158,7 +160,7 @@ fn large_offset_values_round_trip_exactly() {
     }
     let path = dir.join("big.csv");
     std::fs::write(&path, csv).unwrap();
-    import_file(&mut store, &path, &cfg);
+    import_file(&mut *store, &path, &cfg);
     let frame = store
         .load_period(
             chrono::DateTime::from_timestamp(0, 0).unwrap(),
@@ -216,7 +218,7 @@ fn load_period_resolves_many_level_combinations_across_imports() {
     let dir = temp_dir("combinations");
     let text = format!("{CONFIG}\n[[factor]]\nname = \"supplier\"\n\n[[factor]]\nname = \"lot\"\n");
     let cfg = config(&dir, &text);
-    let mut store = Store::create(&cfg.plant.database, &cfg).unwrap();
+    let mut store = samewise::storage::create(&cfg).unwrap();
     let mut expected: Vec<Vec<String>> = Vec::new();
     let window = (
         chrono::DateTime::from_timestamp(0, 0).unwrap(),
@@ -252,7 +254,7 @@ fn load_period_resolves_many_level_combinations_across_imports() {
         let frame = store.load_period(window.0, window.1, Some(&names)).unwrap();
         assert_eq!(frame_levels(&frame, 0), expected);
         // A fresh connection (empty cache) gives the same frame.
-        let fresh = Store::open(&cfg.plant.database).unwrap();
+        let fresh = samewise::storage::open(&cfg).unwrap();
         assert_eq!(
             fresh.load_period(window.0, window.1, Some(&names)).unwrap(),
             frame
@@ -266,7 +268,7 @@ fn a_factor_added_later_reads_as_no_level_and_db_check_verifies_level_set_keys()
     // connection that has read nothing yet as well.
     let dir = temp_dir("added-factor");
     let cfg = config(&dir, CONFIG);
-    let mut store = Store::create(&cfg.plant.database, &cfg).unwrap();
+    let mut store = samewise::storage::create(&cfg).unwrap();
     let options = ImportOptions {
         force: false,
         started_at: started(),
@@ -284,7 +286,7 @@ fn a_factor_added_later_reads_as_no_level_and_db_check_verifies_level_set_keys()
 
     let text = format!("{CONFIG}\n[[factor]]\nname = \"supplier\"\n");
     let cfg = config(&dir, &text);
-    let mut store = Store::open(&cfg.plant.database).unwrap();
+    let mut store = samewise::storage::open(&cfg).unwrap();
     store.sync_config(&cfg).unwrap();
     let second = dir.join("second.csv");
     std::fs::write(
@@ -302,7 +304,7 @@ fn a_factor_added_later_reads_as_no_level_and_db_check_verifies_level_set_keys()
         chrono::DateTime::from_timestamp(4_000_000_000, 0).unwrap(),
     );
     let names = ["bore".to_string()];
-    let fresh = Store::open(&cfg.plant.database).unwrap();
+    let fresh = samewise::storage::open(&cfg).unwrap();
     let frame = fresh.load_period(window.0, window.1, Some(&names)).unwrap();
     assert_eq!(
         frame_levels(&frame, 0),
@@ -321,7 +323,7 @@ fn a_factor_added_later_reads_as_no_level_and_db_check_verifies_level_set_keys()
         .unwrap();
     assert_eq!(changed, 1);
     drop(conn);
-    let store = Store::open(&cfg.plant.database).unwrap();
+    let store = samewise::storage::open(&cfg).unwrap();
     let report = store.integrity_check().unwrap();
     assert!(!report.is_ok());
     assert_eq!(

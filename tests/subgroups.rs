@@ -322,12 +322,12 @@ fn the_detail_chart_interval_of_a_nested_group_rests_on_its_subgroup_means() {
     samewise_ok(&dir, &["init"]);
     samewise_ok(&dir, &["import", "press.csv"]);
     let config = samewise::config::Config::load(dir.join("plant.toml")).unwrap();
-    let store = samewise::storage::Store::open(dir.join("plant.db")).unwrap();
+    let store = common::open_store(&dir, "plant.db");
     let period = samewise::calendar::PlantCalendar::new(&config)
         .parse_period("2026-11-30")
         .unwrap();
     let detail =
-        samewise::analysis::report::detail_input(&store, &config, "weight", "machine", &period)
+        samewise::analysis::report::detail_input(&*store, &config, "weight", "machine", &period)
             .unwrap();
     // The shot means of M1 straight from the file.
     let csv = std::fs::read_to_string(dir.join("press.csv")).unwrap();
@@ -377,7 +377,7 @@ fn the_detail_chart_interval_of_a_nested_group_rests_on_its_subgroup_means() {
         / pm.sqrt();
     assert!(got > naive, "{got} <= {naive}");
     let cavity =
-        samewise::analysis::report::detail_input(&store, &config, "weight", "cavity", &period)
+        samewise::analysis::report::detail_input(&*store, &config, "weight", "cavity", &period)
             .unwrap();
     let c3 = cavity.groups.iter().find(|g| g.level == "C3").unwrap();
     assert_eq!(c3.values.len(), 30);

@@ -15,6 +15,7 @@
 
 use chrono::{DateTime, TimeZone, Utc};
 
+use crate::names::{unknown_name, NameKind};
 use crate::stats::changepoint::{self, Scan, ScanOptions};
 use crate::stats::describe::Summary;
 use crate::stats::shift::{sd_ratio, welch_shift, MeanShift, SdRatio};
@@ -545,16 +546,17 @@ pub fn investigate(store: &dyn PlantStore, request: &Request) -> Result<Investig
         .iter()
         .position(|f| f.name == request.factor)
         .ok_or_else(|| {
-            let known: Vec<&str> = frame.factors.iter().map(|f| f.name.as_str()).collect();
-            Error::Usage(format!(
-                "unknown factor \"{}\" (configured: {})",
-                request.factor,
-                known.join(", ")
-            ))
+            unknown_name(
+                NameKind::Factor,
+                &request.factor,
+                frame.factors.iter().map(|f| f.name.as_str()),
+                "the database",
+            )
         })?;
+    // The store refused an unknown characteristic already; a frame holds the one asked for.
     let cf = frame.characteristics.into_iter().next().ok_or_else(|| {
-        Error::Usage(format!(
-            "unknown characteristic \"{}\"",
+        Error::Database(format!(
+            "the store returned no data frame for the characteristic \"{}\"",
             request.characteristic
         ))
     })?;

@@ -83,8 +83,9 @@ pub fn load_runs(
         .into_iter()
         .map(|run| {
             let content = store.run_content(run.run_id)?;
-            let revised =
-                store.complete_versions(&run.header.period_kind, &run.header.period_label)? > 1;
+            let revised = store
+                .complete_versions(run.header.period_kind.as_str(), &run.header.period_label)?
+                > 1;
             Ok(LoadedRun {
                 run,
                 content,
@@ -103,31 +104,6 @@ pub fn flag_state(state: TestState) -> FlagState {
         TestState::DiffersDependent => FlagState::NotIndependent,
         _ => FlagState::TooLittleData,
     }
-}
-
-/// The configured characteristic, or a usage error that suggests the closest configured name.
-pub fn find_characteristic<'a>(config: &'a Config, name: &str) -> Result<&'a CharacteristicConfig> {
-    config.characteristic(name).ok_or_else(|| {
-        let hint =
-            crate::storage::closest(name, config.characteristics.iter().map(|c| c.name.as_str()))
-                .map_or(String::new(), |c| format!(" (did you mean \"{c}\"?)"));
-        Error::Usage(format!(
-            "unknown characteristic \"{name}\" in {}{hint}",
-            config.path.display()
-        ))
-    })
-}
-
-/// The configured factor's index, or a usage error that suggests the closest configured name.
-pub fn find_factor(config: &Config, name: &str) -> Result<usize> {
-    config.factor_index(name).ok_or_else(|| {
-        let hint = crate::storage::closest(name, config.factors.iter().map(|f| f.name.as_str()))
-            .map_or(String::new(), |c| format!(" (did you mean \"{c}\"?)"));
-        Error::Usage(format!(
-            "unknown factor \"{name}\" in {}{hint}",
-            config.path.display()
-        ))
-    })
 }
 
 fn limits(c: &CharacteristicConfig) -> Limits {
@@ -427,8 +403,8 @@ fn chart_names<'c>(
     characteristic: &str,
     factor: &str,
 ) -> Result<&'c CharacteristicConfig> {
-    let c = find_characteristic(config, characteristic)?;
-    find_factor(config, factor)?;
+    let c = config.known_characteristic(characteristic)?;
+    config.known_factor(factor)?;
     Ok(c)
 }
 
@@ -612,8 +588,8 @@ pub fn detail_input(
     factor: &str,
     period: &Period,
 ) -> Result<DetailInput> {
-    let c = find_characteristic(config, characteristic)?;
-    find_factor(config, factor)?;
+    let c = config.known_characteristic(characteristic)?;
+    config.known_factor(factor)?;
     let (frame, f_idx) = load_one(store, characteristic, factor, period.start, period.end)?;
     let by_level = values_by_level(&frame, f_idx);
     if by_level.is_empty() {
@@ -681,8 +657,8 @@ pub fn before_after_input(
     event_id: i64,
     window: Duration,
 ) -> Result<BeforeAfterInput> {
-    let c = find_characteristic(config, characteristic)?;
-    find_factor(config, factor)?;
+    let c = config.known_characteristic(characteristic)?;
+    config.known_factor(factor)?;
     let events = store.events(None, None)?;
     let Some(event) = events.iter().find(|e| e.id == event_id) else {
         let known: Vec<String> = events.iter().map(|e| e.id.to_string()).collect();

@@ -162,14 +162,14 @@ pub fn header(
     options: &CheckOptions,
 ) -> RunHeader {
     RunHeader {
-        period_kind: period.kind.as_str().to_string(),
+        period_kind: period.kind,
         period_label: period.label.clone(),
         period_start_ms: period.start.timestamp_millis(),
         period_end_ms: period.end.timestamp_millis(),
         schedule: schedule.map(str::to_string),
         config_hash: config.source_hash.clone(),
         tool_version: env!("CARGO_PKG_VERSION").to_string(),
-        fdr_method: options.fdr_method.key().to_string(),
+        fdr_method: options.fdr_method,
         fdr_level: options.fdr_level,
     }
 }
@@ -189,7 +189,7 @@ pub fn check_and_record(
     // never mistakes it for an abandoned run, and two checks of one period never overlap.
     let key = runs::LeaseKey {
         schedule: String::new(),
-        period_kind: head.period_kind.clone(),
+        period_kind: head.period_kind.as_str().to_string(),
         period_label: head.period_label.clone(),
     };
     let holder = crate::schedule::holder_name(now().timestamp_millis());

@@ -9,7 +9,7 @@ use std::process::ExitCode;
 use chrono::{Duration, NaiveDate};
 use clap::{Args, ValueEnum};
 
-use super::vocab::{self, Kind};
+use super::vocab::Kind;
 use super::when;
 use crate::analysis::report;
 use crate::calendar::PlantCalendar;
@@ -96,8 +96,8 @@ fn need<'a>(value: &'a Option<String>, flag: &str, kind: ChartKind) -> Result<&'
 fn subject<'a>(args: &'a ChartArgs, config: &Config) -> Result<(&'a str, &'a str)> {
     let c = need(&args.characteristic, "--characteristic", args.chart)?;
     let f = need(&args.factor, "--by", args.chart)?;
-    vocab::characteristic(config, c)?;
-    vocab::factor(config, f)?;
+    config.known_characteristic(c)?;
+    config.known_factor(f)?;
     Ok((c, f))
 }
 

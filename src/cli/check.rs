@@ -296,7 +296,7 @@ pub fn print_summary(
         run.version,
         content.tests.len(),
         n_flag,
-        run.header.fdr_method.to_uppercase(),
+        run.header.fdr_method.key().to_uppercase(),
         run.header.fdr_level
     )?;
     writeln!(
@@ -389,7 +389,7 @@ pub fn check_document(
             version: run.version,
             config_hash: run.header.config_hash.clone(),
             tool_version: run.header.tool_version.clone(),
-            fdr_method: run.header.fdr_method.clone(),
+            fdr_method: run.header.fdr_method.key().to_string(),
             fdr_level: run.header.fdr_level,
         },
         n_tests: content.tests.len(),

@@ -13,13 +13,14 @@ use clap::{Args, Subcommand};
 use crate::calendar::PlantCalendar;
 use crate::config::Config;
 use crate::model::{Finding, FindingStatus, PeriodKind};
+use crate::names::{unknown_name, NameKind};
 use crate::output::{refuse_protected, Protected};
 use crate::outputs::{group_means_cell, AlertDocument, FindingLine, Limits};
 use crate::storage::PlantStore;
 use crate::{Error, Result};
 
 use super::common::{load_config, open_store};
-use super::vocab::{self, Kind};
+use super::vocab::Kind;
 use super::when;
 
 /// Arguments of `samewise findings`.
@@ -122,7 +123,7 @@ pub fn run(args: &FindingsArgs, now: DateTime<Utc>) -> Result<ExitCode> {
 /// closest names.
 fn check_names(config: &Config, stored: &[Finding], args: &FindingsArgs) -> Result<()> {
     let source = config.path.display().to_string();
-    let check = |what: &str, name: &str, configured: Vec<&str>, of: fn(&Finding) -> &str| {
+    let check = |kind: NameKind, name: &str, configured: Vec<&str>, of: fn(&Finding) -> &str| {
         if configured.contains(&name) || stored.iter().any(|f| of(f) == name) {
             return Ok(());
         }
@@ -132,12 +133,7 @@ fn check_names(config: &Config, stored: &[Finding], args: &FindingsArgs) -> Resu
                 known.push(of(f));
             }
         }
-        Err(vocab::unknown_name(
-            what,
-            name,
-            known.iter().copied(),
-            &source,
-        ))
+        Err(unknown_name(kind, name, known.iter().copied(), &source))
     };
     if let Some(name) = &args.characteristic {
         let configured = config
@@ -145,11 +141,13 @@ fn check_names(config: &Config, stored: &[Finding], args: &FindingsArgs) -> Resu
             .iter()
             .map(|c| c.name.as_str())
             .collect();
-        check("characteristic", name, configured, |f| &f.characteristic)?;
+        check(NameKind::Characteristic, name, configured, |f| {
+            &f.characteristic
+        })?;
     }
     if let Some(name) = &args.factor {
         let configured = config.factors.iter().map(|f| f.name.as_str()).collect();
-        check("factor", name, configured, |f| &f.factor)?;
+        check(NameKind::Factor, name, configured, |f| &f.factor)?;
     }
     Ok(())
 }

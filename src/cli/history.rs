@@ -15,14 +15,10 @@ use crate::{Error, Result};
 
 /// Flags of `samewise history`.
 #[derive(Debug, Args)]
-#[command(group(clap::ArgGroup::new("which").required(true).args(["characteristic", "characteristic_first"])))]
 pub struct HistoryArgs {
-    /// The characteristic (it may also stand first, without the flag, as in earlier versions).
-    #[arg(long, value_name = "NAME")]
-    pub characteristic: Option<String>,
-    /// The characteristic given first, without `--characteristic` (kept for existing scripts).
-    #[arg(value_name = "CHARACTERISTIC", hide = true)]
-    pub characteristic_first: Option<String>,
+    /// The characteristic: `--characteristic NAME`, or first without the flag.
+    #[command(flatten)]
+    pub characteristic: vocab::CharacteristicArg,
     /// The factor whose groups are compared.
     #[arg(long = "by", value_name = "FACTOR")]
     pub factor: String,
@@ -43,10 +39,9 @@ pub struct HistoryArgs {
 /// Runs `samewise history`.
 pub fn run(args: &HistoryArgs) -> Result<ExitCode> {
     let config = super::common::load_config(super::common::config_flag())?;
-    let characteristic =
-        vocab::characteristic_arg(&args.characteristic, &args.characteristic_first)?;
-    let c = vocab::characteristic(&config, characteristic)?;
-    vocab::factor(&config, &args.factor)?;
+    let characteristic = args.characteristic.name.as_str();
+    let c = config.known_characteristic(characteristic)?;
+    config.known_factor(&args.factor)?;
     let kind = crate::model::PeriodKind::from(args.kind).as_str();
     if let Some(path) = &args.csv {
         let protected = crate::output::Protected::plant(&config.plant.database, &config.path);

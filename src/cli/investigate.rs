@@ -33,15 +33,10 @@ use crate::stats::Stat;
 
 /// Flags of `samewise investigate`.
 #[derive(Debug, clap::Args)]
-#[command(group(clap::ArgGroup::new("which").required(true).args(["characteristic", "characteristic_first"])))]
 pub struct InvestigateArgs {
-    /// The characteristic to investigate (it may also stand first, without the flag, as in
-    /// earlier versions).
-    #[arg(long, value_name = "NAME")]
-    pub characteristic: Option<String>,
-    /// The characteristic given first, without `--characteristic` (kept for existing scripts).
-    #[arg(value_name = "CHARACTERISTIC", hide = true)]
-    pub characteristic_first: Option<String>,
+    /// The characteristic: `--characteristic NAME`, or first without the flag.
+    #[command(flatten)]
+    pub characteristic: vocab::CharacteristicArg,
     /// The grouping factor (machine, line, supplier, ...).
     #[arg(long, value_name = "FACTOR")]
     pub by: String,
@@ -80,11 +75,10 @@ fn duration_flag(flag: &str, text: &str) -> Result<chrono::Duration> {
 /// Runs `samewise investigate`; `now` is the wall clock (scan window end by default).
 pub fn run(args: &InvestigateArgs, now: DateTime<Utc>) -> Result<ExitCode> {
     let config = load_config(super::common::config_flag())?;
-    let characteristic =
-        vocab::characteristic_arg(&args.characteristic, &args.characteristic_first)?;
+    let characteristic = args.characteristic.name.as_str();
     // The factor is checked here; the characteristic by the store, which also knows one that
     // has left the configuration (both answer a typo with the closest names).
-    vocab::factor(&config, &args.by)?;
+    config.known_factor(&args.by)?;
     let tz = config.plant.time_zone;
     let store = open_store(&config)?;
     let before = duration_flag("--before", &args.before)?;

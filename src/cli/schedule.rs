@@ -91,13 +91,6 @@ pub fn run(args: &ScheduleArgs) -> Result<ExitCode> {
             .map_err(|e| Error::io("<signal handler>", e))?;
     }
     let mut options = SchedulerOptions::new(holder_name());
-    // Test hook (documented in tests/schedule_process.rs): pause after the run row is written.
-    if let Some(ms) = std::env::var("SAMEWISE_PAUSE_AFTER_BEGIN_MS")
-        .ok()
-        .and_then(|v| v.parse::<u64>().ok())
-    {
-        options.pause_after_begin = Some(std::time::Duration::from_millis(ms));
-    }
     let mut runner = EngineRunner::new(&config);
     // Log lines carry the plant's local time with its offset, like every time samewise prints;
     // a catch-up on a terminal shows a progress line below them (cleared before each).

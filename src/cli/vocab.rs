@@ -1,15 +1,13 @@
 //! The words every command shares: the period kind (`--kind`), the false-discovery method
-//! (`--fdr`), and the characteristic (`--characteristic NAME`) and factor (`--by FACTOR`) checked
-//! against the plant configuration, an unknown name answered with the closest known ones
-//! ([`crate::names::did_you_mean`]).
+//! (`--fdr`) and the characteristic (`--characteristic NAME`, [`CharacteristicArg`]). A
+//! characteristic or factor is checked against the plant configuration with
+//! `Config::known_characteristic` and `Config::known_factor`, an unknown name answered with the
+//! closest known ones ([`crate::names::unknown_name`]).
 
 use clap::ValueEnum;
 
-use crate::config::{CharacteristicConfig, Config, FactorConfig};
 use crate::model::PeriodKind;
-use crate::names::did_you_mean;
 use crate::stats::fdr::FdrMethod;
-use crate::{Error, Result};
 
 /// The period kind of the regular checks (`--kind` of `chart` and `findings`).
 #[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
@@ -80,82 +78,115 @@ impl From<Fdr> for FdrMethod {
     }
 }
 
-/// The characteristic of a command that takes it as `--characteristic NAME` and, from earlier
-/// versions, as its first argument: whichever was given (clap refuses both).
-pub fn characteristic_arg<'a>(
-    flag: &'a Option<String>,
-    positional: &'a Option<String>,
-) -> Result<&'a str> {
-    flag.as_deref()
-        .or(positional.as_deref())
-        .ok_or_else(|| Error::Usage("say which characteristic: --characteristic NAME".to_string()))
+/// The characteristic of a command that takes it as `--characteristic NAME` or, as in earlier
+/// versions, as its first argument (flattened into the command's flags). clap requires exactly
+/// one of the two (an argument group), so a command holds the name itself, never an absence.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct CharacteristicArg {
+    /// The characteristic's name, from whichever spelling was used.
+    pub name: String,
 }
 
-/// An "unknown ..." error: the name, the closest known names, and the known ones (up to 12).
-pub fn unknown_name<'a>(
-    what: &str,
-    name: &str,
-    known: impl IntoIterator<Item = &'a str> + Clone,
-    source: &str,
-) -> Error {
-    let hint = did_you_mean(name, known.clone());
-    let all: Vec<&str> = known.into_iter().collect();
-    let listed = match all.len() {
-        0 => format!("none is known in {source}"),
-        n if n <= 12 => format!("known in {source}: {}", all.join(", ")),
-        n => format!(
-            "{n} known in {source}, among them {}, ...",
-            all[..12].join(", ")
-        ),
-    };
-    Error::Usage(format!("unknown {what} \"{name}\"{hint}; {listed}"))
-}
+/// The id of `--characteristic`.
+const CHARACTERISTIC_FLAG: &str = "characteristic";
+/// The id of the characteristic given first, without the flag.
+const CHARACTERISTIC_FIRST: &str = "characteristic_first";
 
-/// The configured characteristic `name`, or an error with the closest configured names.
-pub fn characteristic<'a>(config: &'a Config, name: &str) -> Result<&'a CharacteristicConfig> {
-    config.characteristic(name).ok_or_else(|| {
-        unknown_name(
-            "characteristic",
-            name,
-            config.characteristics.iter().map(|c| c.name.as_str()),
-            &config.path.display().to_string(),
+impl clap::Args for CharacteristicArg {
+    fn augment_args(cmd: clap::Command) -> clap::Command {
+        cmd.arg(
+            clap::Arg::new(CHARACTERISTIC_FLAG)
+                .long("characteristic")
+                .value_name("NAME")
+                .help(
+                    "The characteristic (it may also stand first, without the flag, as in \
+                     earlier versions)",
+                ),
         )
-    })
+        .arg(
+            clap::Arg::new(CHARACTERISTIC_FIRST)
+                .value_name("CHARACTERISTIC")
+                .help("The characteristic given first, without --characteristic")
+                .hide(true),
+        )
+        .group(
+            clap::ArgGroup::new("which_characteristic")
+                .required(true)
+                .args([CHARACTERISTIC_FLAG, CHARACTERISTIC_FIRST]),
+        )
+    }
+
+    fn augment_args_for_update(cmd: clap::Command) -> clap::Command {
+        Self::augment_args(cmd)
+    }
 }
 
-/// The configured factor `name`, or an error with the closest configured names.
-pub fn factor<'a>(config: &'a Config, name: &str) -> Result<&'a FactorConfig> {
-    config
-        .factor_index(name)
-        .map(|i| &config.factors[i])
-        .ok_or_else(|| {
-            unknown_name(
-                "factor",
-                name,
-                config.factors.iter().map(|f| f.name.as_str()),
-                &config.path.display().to_string(),
-            )
-        })
+impl clap::FromArgMatches for CharacteristicArg {
+    fn from_arg_matches(matches: &clap::ArgMatches) -> std::result::Result<Self, clap::Error> {
+        Self::from_arg_matches_mut(&mut matches.clone())
+    }
+
+    fn from_arg_matches_mut(
+        matches: &mut clap::ArgMatches,
+    ) -> std::result::Result<Self, clap::Error> {
+        // The group above is required: clap has refused the command line before this point
+        // when neither spelling was given, with its own message naming both.
+        let name = matches
+            .remove_one::<String>(CHARACTERISTIC_FLAG)
+            .or_else(|| matches.remove_one::<String>(CHARACTERISTIC_FIRST))
+            .ok_or_else(|| clap::Error::new(clap::error::ErrorKind::MissingRequiredArgument))?;
+        Ok(CharacteristicArg { name })
+    }
+
+    fn update_from_arg_matches(
+        &mut self,
+        matches: &clap::ArgMatches,
+    ) -> std::result::Result<(), clap::Error> {
+        *self = Self::from_arg_matches(matches)?;
+        Ok(())
+    }
 }
 
 #[cfg(test)]
 mod tests {
     use super::*;
 
+    #[derive(Debug, clap::Parser)]
+    struct WithCharacteristic {
+        #[command(flatten)]
+        characteristic: CharacteristicArg,
+        #[arg(long)]
+        by: String,
+    }
+
+    fn parse_characteristic(args: &[&str]) -> std::result::Result<String, clap::Error> {
+        use clap::Parser;
+        let argv = std::iter::once("samewise").chain(args.iter().copied());
+        WithCharacteristic::try_parse_from(argv).map(|w| w.characteristic.name)
+    }
+
     #[test]
-    fn unknown_names_list_the_closest_and_the_known() {
-        let known = ["bore_diameter", "width", "flange_flatness"];
-        let e = unknown_name("characteristic", "bore_diamter", known, "plant.toml").to_string();
+    fn the_characteristic_is_taken_from_either_spelling_and_required_by_clap() {
         assert_eq!(
-            e,
-            "unknown characteristic \"bore_diamter\" (did you mean \"bore_diameter\"?); \
-             known in plant.toml: bore_diameter, width, flange_flatness"
+            parse_characteristic(&["--characteristic", "bore", "--by", "machine"]).unwrap(),
+            "bore"
         );
-        let many: Vec<String> = (1..=20).map(|i| format!("M{i}")).collect();
+        assert_eq!(
+            parse_characteristic(&["bore", "--by", "machine"]).unwrap(),
+            "bore"
+        );
+        // Neither spelling: clap's own message names the flag.
+        let e = parse_characteristic(&["--by", "machine"]).unwrap_err();
+        assert_eq!(
+            e.kind(),
+            clap::error::ErrorKind::MissingRequiredArgument,
+            "{e}"
+        );
+        assert!(e.to_string().contains("--characteristic <NAME>"), "{e}");
+        // Both spellings at once are refused, not silently resolved.
         let e =
-            unknown_name("level", "X9", many.iter().map(String::as_str), "the store").to_string();
-        assert!(e.contains("20 known in the store, among them M1,"), "{e}");
-        assert!(!e.contains("M13"), "{e}");
+            parse_characteristic(&["bore", "--characteristic", "width", "--by", "m"]).unwrap_err();
+        assert_eq!(e.kind(), clap::error::ErrorKind::ArgumentConflict, "{e}");
     }
 
     #[test]

@@ -4,7 +4,8 @@
 //!   in the plant's local time as `2026-11-30 14:05` or `2026-11-30T14:05`, optionally with
 //!   seconds (`:SS`, and a fraction), or as RFC 3339 with an offset or `Z`
 //!   (`2026-11-30T14:05:00+01:00`, `2026-11-30T13:05:00Z`). These are the shapes of the import's
-//!   ISO timestamps ([`crate::ingest::timestamp`]), read by the same code. clap checks the shape
+//!   ISO timestamps ([`crate::ingest::timestamp`]), read by the same code and placed by the
+//!   same conversion ([`crate::calendar::local_to_utc`], years 1800 to 2400). clap checks the shape
 //!   ([`instant`]); the plant's zone, known once the configuration is read, turns it into an
 //!   instant ([`When::resolve`]). A plant-local time that does not exist (the clocks go forward)
 //!   or occurs twice (they go back) is refused with both readings, never guessed.
@@ -14,10 +15,10 @@
 //! Every error names the flag and the value (clap's `invalid value '...' for '--at <TIME>'`, or
 //! the flag and value at the head of the message) and shows the accepted forms.
 
-use chrono::offset::LocalResult;
-use chrono::{DateTime, Duration, FixedOffset, NaiveDate, NaiveDateTime, Offset, TimeZone, Utc};
+use chrono::{DateTime, NaiveDate, NaiveDateTime, Utc};
 use chrono_tz::Tz;
 
+use crate::calendar::{local_to_utc, parse_date, DateError};
 use crate::ingest::timestamp::parse_iso;
 use crate::{Error, Result};
 
@@ -58,93 +59,42 @@ impl When {
         &self.text
     }
 
-    /// The UTC instant: with an offset as written, without one in the plant zone `tz`. A local
-    /// time in a daylight-saving gap or overlap is an error naming `flag`, the value and the two
-    /// readings.
+    /// The UTC instant: with an offset as written, without one in the plant zone `tz`
+    /// ([`crate::calendar::local_to_utc`]). A local time in a daylight-saving gap or overlap is
+    /// an error naming `flag`, the value and the two readings.
     pub fn resolve(&self, flag: &str, tz: Tz) -> Result<DateTime<Utc>> {
-        let usage = |why: String| Error::Usage(format!("{flag} {}: {why}", self.text));
-        if let Some(offset_s) = self.offset_s {
-            return FixedOffset::east_opt(offset_s)
-                .and_then(|o| o.from_local_datetime(&self.local).single())
-                .map(|t| t.with_timezone(&Utc))
-                .ok_or_else(|| usage(format!("out of range; write {INSTANT_FORMS}")));
-        }
-        let local = self.local.format("%Y-%m-%d %H:%M:%S");
-        let rfc = |t: DateTime<FixedOffset>| t.format("%Y-%m-%dT%H:%M:%S%:z").to_string();
-        match tz.from_local_datetime(&self.local) {
-            LocalResult::Single(t) => Ok(t.with_timezone(&Utc)),
-            LocalResult::Ambiguous(a, b) => Err(usage(format!(
-                "the plant-local time {local} occurs twice in {} (the clocks go back); its two \
-                 readings are {} ({}, the first) and {} ({}, the second): give the one meant \
-                 with its offset",
-                tz.name(),
-                rfc(a.fixed_offset()),
-                a.format("%Z"),
-                rfc(b.fixed_offset()),
-                b.format("%Z"),
-            ))),
-            LocalResult::None => {
-                // The offsets in force a day before and a day after: the two readings of a
-                // wall-clock time the change skipped.
-                let at = |d: Duration| {
-                    self.local
-                        .checked_add_signed(d)
-                        .map(|n| tz.offset_from_utc_datetime(&n).fix())
-                };
-                let readings = match (at(Duration::days(-1)), at(Duration::days(1))) {
-                    (Some(before), Some(after)) if before != after => {
-                        let read = |o: FixedOffset| {
-                            o.from_local_datetime(&self.local).single().map(|t| {
-                                format!(
-                                    "{} (that is {} {})",
-                                    rfc(t),
-                                    t.with_timezone(&tz).format("%H:%M"),
-                                    t.with_timezone(&tz).format("%Z")
-                                )
-                            })
-                        };
-                        match (read(before), read(after)) {
-                            (Some(a), Some(b)) => format!(
-                                "; its two readings are {a} with the offset before the change and \
-                                 {b} with the offset after it: give the one meant with its offset"
-                            ),
-                            _ => String::new(),
-                        }
-                    }
-                    _ => String::new(),
-                };
-                Err(usage(format!(
-                    "the plant-local time {local} does not exist in {} (the clocks go \
-                     forward){readings}",
-                    tz.name()
-                )))
-            }
-        }
+        local_to_utc(self.local, self.offset_s, tz).map_err(|e| {
+            let why = match e.readings() {
+                Some(readings) => format!(
+                    "the plant-local time {} {}; its two readings are {readings}: give the one \
+                     meant with its offset",
+                    self.local.format("%Y-%m-%d %H:%M:%S"),
+                    e.what()
+                ),
+                None => format!("the time {}; write {INSTANT_FORMS}", e.what()),
+            };
+            Error::Usage(format!("{flag} {}: {why}", self.text))
+        })
     }
 }
 
-/// clap value parser of a day flag: `YYYY-MM-DD`, a date of the calendar.
+/// clap value parser of a day flag: `YYYY-MM-DD`, a date of the calendar
+/// ([`crate::calendar::parse_date`]).
 pub fn day(text: &str) -> std::result::Result<NaiveDate, String> {
     let t = text.trim();
-    let shaped = t.len() == 10
-        && t.bytes().enumerate().all(|(i, c)| match i {
-            4 | 7 => c == b'-',
-            _ => c.is_ascii_digit(),
-        });
-    if !shaped {
-        return Err(if parse_iso(t).is_some() {
+    parse_date(t).map_err(|e| match e {
+        DateError::NoSuchDate => format!("no such date in the calendar; write {DAY_FORM}"),
+        DateError::Shape if parse_iso(t).is_some() => {
             format!("a day flag takes the day alone, without a time; write {DAY_FORM}")
-        } else {
-            format!("not a day; write {DAY_FORM}")
-        });
-    }
-    NaiveDate::parse_from_str(t, "%Y-%m-%d")
-        .map_err(|_| format!("no such date in the calendar; write {DAY_FORM}"))
+        }
+        DateError::Shape => format!("not a day; write {DAY_FORM}"),
+    })
 }
 
 #[cfg(test)]
 mod tests {
     use super::*;
+    use chrono::TimeZone;
     use chrono_tz::Europe;
 
     fn at(text: &str, tz: Tz) -> Result<DateTime<Utc>> {
@@ -217,6 +167,18 @@ mod tests {
             at("2026-10-25T02:30:00+01:00", Europe::Berlin).unwrap(),
             Utc.with_ymd_and_hms(2026, 10, 25, 1, 30, 0).unwrap()
         );
+    }
+
+    #[test]
+    fn years_outside_the_placeable_range_are_refused() {
+        // The import's range (calendar::PLACEABLE_YEARS) holds for the flags too.
+        for text in ["3000-01-01 00:00", "1700-06-01T12:00:00Z"] {
+            let err = at(text, Europe::Berlin).unwrap_err().to_string();
+            assert!(err.contains("outside 1800 to 2400"), "{err}");
+            assert!(err.contains("RFC 3339 with an offset or Z"), "{err}");
+        }
+        assert!(at("2400-12-31 23:00", Europe::Berlin).is_ok());
+        assert!(at("1800-01-01T00:00:00Z", Europe::Berlin).is_ok());
     }
 
     #[test]

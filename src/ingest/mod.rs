@@ -1224,11 +1224,15 @@ fn check_year(ts: DateTime<Utc>) -> std::result::Result<DateTime<Utc>, String> {
     if (1900..=2200).contains(&ts.year()) {
         Ok(ts)
     } else {
-        Err(format!(
-            "timestamp year {} is outside 1900 to 2200 (check the gauge clock or the timestamp_format)",
-            ts.year()
-        ))
+        Err(year_refused(ts.year()))
     }
+}
+
+/// The reason a timestamp of the year `year` is refused (outside 1900 to 2200).
+pub(crate) fn year_refused(year: i32) -> String {
+    format!(
+        "timestamp year {year} is outside 1900 to 2200 (check the gauge clock or the timestamp_format)"
+    )
 }
 
 /// A cell's text to an exact decimal, or the reason it is not a value.

@@ -8,14 +8,15 @@
 //!
 //! A timestamp with an explicit offset or `Z` is taken as given. A timestamp without one is read
 //! as local time in the plant zone; when that local time does not exist (clocks go forward) or
-//! occurs twice (clocks go back) the cell is rejected with a reason that says so. It is never
-//! guessed: one hour of data booked on the wrong side of a shift change would bias exactly the
-//! shift comparisons this tool exists for.
+//! occurs twice (clocks go back) the cell is rejected with a reason that says so and names both
+//! readings. It is never guessed: one hour of data booked on the wrong side of a shift change
+//! would bias exactly the shift comparisons this tool exists for. The conversion is
+//! [`crate::calendar::local_to_utc`], the one the command line's time flags use too.
 
-use chrono::offset::LocalResult;
-use chrono::{DateTime, Datelike, FixedOffset, NaiveDate, NaiveDateTime, NaiveTime, TimeZone, Utc};
+use chrono::{DateTime, NaiveDateTime, NaiveTime, Utc};
 use chrono_tz::Tz;
 
+use crate::calendar::{local_to_utc, parse_date, LocalTimeError};
 use crate::config::check_timestamp_format;
 
 /// Parses timestamp cells for one layout in one plant zone.
@@ -72,46 +73,39 @@ impl TimestampParser {
     }
 
     fn local_to_utc(&self, naive: NaiveDateTime, text: &str) -> Result<DateTime<Utc>, String> {
-        // Far from the ends of chrono's range, where zone arithmetic could overflow.
-        if !(1800..=2400).contains(&naive.year()) {
-            return Err(format!(
-                "timestamp \"{}\": year {} is outside 1900 to 2200",
-                shorten(text),
-                naive.year()
-            ));
-        }
-        match self.time_zone.from_local_datetime(&naive) {
-            LocalResult::Single(t) => Ok(t.with_timezone(&Utc)),
-            LocalResult::Ambiguous(a, b) => Err(format!(
-                "local time \"{}\" occurs twice in {} (clocks go back); give the offset, e.g. {} or {}",
-                shorten(text),
-                self.time_zone.name(),
-                a.format("%Y-%m-%dT%H:%M:%S%:z"),
-                b.format("%Y-%m-%dT%H:%M:%S%:z")
-            )),
-            LocalResult::None => Err(format!(
-                "local time \"{}\" does not exist in {} (clocks go forward); check the gauge clock or give the offset",
-                shorten(text),
-                self.time_zone.name()
-            )),
-        }
+        to_utc(naive, None, self.time_zone, text)
     }
 }
 
 fn offset_to_utc(naive: NaiveDateTime, offset_s: i32, text: &str) -> Result<DateTime<Utc>, String> {
-    if !(1800..=2400).contains(&naive.year()) {
-        return Err(format!(
-            "timestamp \"{}\": year {} is outside 1900 to 2200",
+    // The zone is not used with an offset.
+    to_utc(naive, Some(offset_s), Tz::UTC, text)
+}
+
+/// [`local_to_utc`] with the reasons of a rejected cell: the cell quoted first, the readings
+/// after ", e.g." (so that a report groups the rows of one kind of problem together).
+fn to_utc(
+    naive: NaiveDateTime,
+    offset_s: Option<i32>,
+    zone: Tz,
+    text: &str,
+) -> Result<DateTime<Utc>, String> {
+    local_to_utc(naive, offset_s, zone).map_err(|e| match (&e, e.readings()) {
+        (LocalTimeError::Year(year), _) => super::year_refused(*year),
+        (LocalTimeError::Skipped { .. }, Some(readings)) => format!(
+            "local time \"{}\" {}; check the gauge clock or write the time with its offset, \
+             e.g. one of its two readings {readings}",
             shorten(text),
-            naive.year()
-        ));
-    }
-    let offset = FixedOffset::east_opt(offset_s)
-        .ok_or_else(|| format!("timestamp \"{}\": UTC offset out of range", shorten(text)))?;
-    match offset.from_local_datetime(&naive) {
-        LocalResult::Single(t) => Ok(t.with_timezone(&Utc)),
-        _ => Err(format!("timestamp \"{}\" is out of range", shorten(text))),
-    }
+            e.what()
+        ),
+        (_, Some(readings)) => format!(
+            "local time \"{}\" {}; write the time with its offset, e.g. one of its two readings \
+             {readings}",
+            shorten(text),
+            e.what()
+        ),
+        (_, None) => format!("timestamp \"{}\" {}", shorten(text), e.what()),
+    })
 }
 
 /// At most 60 characters of a cell, for messages.
@@ -139,12 +133,7 @@ pub(crate) fn parse_iso(text: &str) -> Option<(NaiveDateTime, Option<i32>)> {
         }
         Some(n)
     };
-    let year = digits(0, 4)? as i32;
-    if b.get(4) != Some(&b'-') || b.get(7) != Some(&b'-') {
-        return None;
-    }
-    let month = digits(5, 2)?;
-    let day = digits(8, 2)?;
+    let date = parse_date(text.get(..10)?).ok()?;
     if !matches!(b.get(10), Some(b'T' | b't' | b' ')) {
         return None;
     }
@@ -172,7 +161,6 @@ pub(crate) fn parse_iso(text: &str) -> Option<(NaiveDateTime, Option<i32>)> {
             nanos = digits(start, n)? * 10u32.pow(9 - n as u32);
         }
     }
-    let date = NaiveDate::from_ymd_opt(year, month, day)?;
     let time = NaiveTime::from_hms_nano_opt(hour, minute, second, nanos)?;
     let naive = date.and_time(time);
     let mut rest = &b[i..];
@@ -267,9 +255,25 @@ mod tests {
         let p = TimestampParser::new(None, Europe::Berlin).unwrap();
         let gap = p.parse("2026-03-29 02:30:00").unwrap_err();
         assert!(gap.contains("does not exist in Europe/Berlin"), "{gap}");
+        assert!(
+            gap.contains("2026-03-29T02:30:00+01:00 (that is 03:30 CEST)"),
+            "{gap}"
+        );
+        assert!(
+            gap.contains("2026-03-29T02:30:00+02:00 (that is 01:30 CET)"),
+            "{gap}"
+        );
         let twice = p.parse("2026-10-25 02:30:00").unwrap_err();
         assert!(twice.contains("occurs twice in Europe/Berlin"), "{twice}");
-        assert!(twice.contains("2026-10-25T02:30:00+02:00"), "{twice}");
+        assert!(
+            twice.contains("2026-10-25T02:30:00+02:00 (CEST, the first)"),
+            "{twice}"
+        );
+        assert!(
+            twice.contains("2026-10-25T02:30:00+01:00 (CET, the second)"),
+            "{twice}"
+        );
+
         // With an explicit offset both passes are fine and an hour apart.
         let first = p.parse("2026-10-25T02:30:00+02:00").unwrap();
         let second = p.parse("2026-10-25T02:30:00+01:00").unwrap();

@@ -6,7 +6,7 @@
 //! clock (milliseconds since the epoch, UTC), so nothing here reads the wall clock.
 
 use crate::results::RunContent;
-use crate::storage::runs::{LeaseKey, RunHeader, StoredRun};
+use crate::storage::runs::{LeaseKey, RunHeader, RunStatus, StoredRun};
 use crate::storage::RunStore;
 use crate::Result;
 
@@ -117,7 +117,7 @@ pub fn run_period<S: RunStore + ?Sized>(
                 Ok(()) => {
                     // The run as it now stands in the store, without reading it back.
                     let stored = StoredRun {
-                        status: "complete".to_string(),
+                        status: RunStatus::Complete,
                         finished_ms: Some(finished_ms),
                         n_tests: Some(content.tests.len() as i64),
                         n_flagged: Some(content.n_flagged() as i64),
@@ -133,7 +133,7 @@ pub fn run_period<S: RunStore + ?Sized>(
     let finished_ms = now();
     store.fail_run(run.run_id, finished_ms, &error.to_string())?;
     let failed = StoredRun {
-        status: "failed".to_string(),
+        status: RunStatus::Failed,
         finished_ms: Some(finished_ms),
         error: Some(error.to_string()),
         ..run
@@ -144,18 +144,20 @@ pub fn run_period<S: RunStore + ?Sized>(
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::model::PeriodKind;
     use crate::results::{TestResult, TestState};
+    use crate::stats::fdr::FdrMethod;
 
     fn header() -> RunHeader {
         RunHeader {
-            period_kind: "day".into(),
+            period_kind: PeriodKind::Day,
             period_label: "2026-11-30".into(),
             period_start_ms: 0,
             period_end_ms: 1,
             schedule: None,
             config_hash: "h".into(),
             tool_version: "t".into(),
-            fdr_method: "bh".into(),
+            fdr_method: FdrMethod::BenjaminiHochberg,
             fdr_level: 0.05,
         }
     }
@@ -235,7 +237,7 @@ mod tests {
         let Finished::Completed(run, content) = done else {
             panic!("{done:?}")
         };
-        assert_eq!((run.status.as_str(), run.n_flagged), ("complete", Some(1)));
+        assert_eq!((run.status, run.n_flagged), (RunStatus::Complete, Some(1)));
         assert_eq!(
             Some(&run),
             store.runs_of_period("day", "2026-11-30").unwrap().first(),
@@ -254,7 +256,7 @@ mod tests {
         assert!(e.to_string().contains("no values"));
         let stored = store.runs_of_period("day", "2026-11-30").unwrap();
         assert_eq!(stored[1], run, "the returned run is the stored one");
-        assert_eq!(stored[1].status, "failed");
+        assert_eq!(stored[1].status, RunStatus::Failed);
         assert!(store.run_content(run.run_id).unwrap().tests.is_empty());
         // The lease lost during the run (expired and taken by another holder): not completed.
         let other = lease("b:2:y");

@@ -66,9 +66,6 @@ pub struct SchedulerOptions {
     pub lease_ttl: Duration,
     /// Count periods from here instead of from the first measurement.
     pub start: Option<DateTime<Utc>>,
-    /// Test hook: wait this long after a run row is written and before computing (used to kill
-    /// a scheduler mid-run in tests).
-    pub pause_after_begin: Option<std::time::Duration>,
 }
 
 impl SchedulerOptions {
@@ -78,7 +75,6 @@ impl SchedulerOptions {
             holder: holder.into(),
             lease_ttl: DEFAULT_LEASE_TTL,
             start: None,
-            pause_after_begin: None,
         }
     }
 }
@@ -291,17 +287,15 @@ fn run_one(
         }
     }
     lifecycle::holding(store, &lease, |store| {
-        run_held(store, clock, runner, options, schedule, period, &lease, log)
+        run_held(store, clock, runner, schedule, period, &lease, log)
     })
 }
 
 /// [`run_one`] once the lease is held: recovery, the due check, the run.
-#[allow(clippy::too_many_arguments)]
 fn run_held(
     store: &mut dyn PlantStore,
     clock: &dyn Clock,
     runner: &mut dyn PeriodRunner,
-    options: &SchedulerOptions,
     schedule: &ScheduleConfig,
     period: &Period,
     lease: &lifecycle::Lease<'_>,
@@ -330,9 +324,6 @@ fn run_held(
                 "{} {}: run {} (version {}) started",
                 schedule.name, period.label, run.run_id, run.version
             ));
-            if let Some(pause) = options.pause_after_begin {
-                std::thread::sleep(pause);
-            }
         },
         |store| runner.compute(store, schedule, period),
     )?;

@@ -13,12 +13,14 @@
 
 use std::fmt;
 
-/// The adjustment.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+/// The adjustment; serialized as its short name ([`FdrMethod::key`]).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
 pub enum FdrMethod {
     /// Benjamini-Hochberg (1995).
+    #[serde(rename = "bh")]
     BenjaminiHochberg,
     /// Benjamini-Yekutieli (2001).
+    #[serde(rename = "by")]
     BenjaminiYekutieli,
 }
 

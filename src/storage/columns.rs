@@ -24,7 +24,8 @@ use crate::{Error, Result};
 
 use super::events::{Event, EventChange};
 use super::findings::{AlertRecord, FlagHistoryRow};
-use super::runs::{RunHeader, StoredRun};
+use super::runs::{RunHeader, RunStatus, StoredRun};
+use crate::stats::fdr::FdrMethod;
 
 /// One column value to write, typed so that a NULL binds to a column of any backend.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -279,9 +280,23 @@ pub(crate) trait ColumnRow {
         };
         parse(&text).map(Some).ok_or_else(|| {
             Error::Database(format!(
-                "unknown {what} {text:?} in run_result (a newer samewise wrote it?)"
+                "unknown {what} {text:?} stored (a newer samewise wrote it?)"
             ))
         })
+    }
+
+    /// A stored name that must be there and known (`what` names it in the error).
+    fn stored_name<T>(
+        &self,
+        i: usize,
+        what: &'static str,
+        parse: fn(&str) -> Option<T>,
+    ) -> Result<T>
+    where
+        Self: Sized,
+    {
+        self.named(i, what, parse)?
+            .ok_or_else(|| Error::Database(format!("no {what} stored")))
     }
 
     /// The error for an unexpected NULL in column `i`.
@@ -384,19 +399,19 @@ pub(crate) fn run_from<R: ColumnRow>(r: &R, o: usize) -> Result<StoredRun> {
         run_id: r.int(o)?,
         version: r.int(o + 1)?,
         header: RunHeader {
-            period_kind: r.text(o + 2)?,
+            period_kind: r.stored_name(o + 2, "period kind", PeriodKind::parse)?,
             period_label: r.text(o + 3)?,
             period_start_ms: r.int(o + 4)?,
             period_end_ms: r.int(o + 5)?,
             schedule: r.opt_text(o + 6)?,
             config_hash: r.text(o + 7)?,
             tool_version: r.text(o + 8)?,
-            fdr_method: r.text(o + 9)?,
+            fdr_method: r.stored_name(o + 9, "false-discovery method", FdrMethod::from_key)?,
             fdr_level: r.real(o + 10)?,
         },
         started_ms: r.int(o + 11)?,
         finished_ms: r.opt_int(o + 12)?,
-        status: r.text(o + 13)?,
+        status: r.stored_name(o + 13, "run status", RunStatus::parse)?,
         error: r.opt_text(o + 14)?,
         n_tests: r.opt_int(o + 15)?,
         n_flagged: r.opt_int(o + 16)?,
@@ -412,7 +427,7 @@ pub(crate) const NEW_RUN_COLUMNS: &str = "period_kind, period_label, period_star
 /// The values of a new run row, in the order of [`NEW_RUN_COLUMNS`].
 pub(crate) fn new_run_values(h: &RunHeader, version: i64, started_ms: i64) -> Vec<Value<'_>> {
     vec![
-        (&h.period_kind).into(),
+        h.period_kind.as_str().into(),
         (&h.period_label).into(),
         h.period_start_ms.into(),
         h.period_end_ms.into(),
@@ -420,7 +435,7 @@ pub(crate) fn new_run_values(h: &RunHeader, version: i64, started_ms: i64) -> Ve
         version.into(),
         (&h.config_hash).into(),
         (&h.tool_version).into(),
-        (&h.fdr_method).into(),
+        h.fdr_method.key().into(),
         h.fdr_level.into(),
         started_ms.into(),
     ]
@@ -983,14 +998,14 @@ mod tests {
         };
         assert_eq!(pair_values(1, 0, &p).len(), 2 + column_count(PAIR_COLUMNS));
         let h = RunHeader {
-            period_kind: "day".into(),
+            period_kind: PeriodKind::Day,
             period_label: "2026-11-30".into(),
             period_start_ms: 0,
             period_end_ms: 1,
             schedule: None,
             config_hash: "h".into(),
             tool_version: "t".into(),
-            fdr_method: "bh".into(),
+            fdr_method: FdrMethod::BenjaminiHochberg,
             fdr_level: 0.05,
         };
         assert_eq!(

@@ -14,7 +14,7 @@ use chrono::{DateTime, Utc};
 
 use super::columns::from_ms;
 use super::postgres::testing;
-use super::runs::{LeaseKey, RunHeader};
+use super::runs::{LeaseKey, RunHeader, RunStatus};
 use super::{AlertRecord, EventEdit, EventStore, FindingStore, NewEvent, PgStore, RunStore, Store};
 use crate::model::{Finding, FindingStatus, PeriodKind};
 use crate::results::{
@@ -23,6 +23,7 @@ use crate::results::{
     SerialResult, ShapiroResult, StandsOut, StatP, TestResult, TestState, WelchResult,
 };
 use crate::schedule::lifecycle;
+use crate::stats::fdr::FdrMethod;
 
 /// Plain SQL both backends run as it is: what the contracts need besides their own trait
 /// (master data for event scopes). Invented names.
@@ -135,14 +136,14 @@ fn day_start(d: i64) -> i64 {
 
 fn header(kind: &str, label: &str, start_ms: i64, schedule: Option<&str>) -> RunHeader {
     RunHeader {
-        period_kind: kind.into(),
+        period_kind: PeriodKind::parse(kind).expect("a period kind"),
         period_label: label.into(),
         period_start_ms: start_ms,
         period_end_ms: start_ms + DAY,
         schedule: schedule.map(str::to_string),
         config_hash: "c0ffee".into(),
         tool_version: "0.1.0".into(),
-        fdr_method: "bh".into(),
+        fdr_method: FdrMethod::BenjaminiHochberg,
         fdr_level: 0.05,
     }
 }
@@ -499,7 +500,7 @@ fn runs_contract(store: &mut dyn Runs) {
         .unwrap()
         .unwrap();
     assert_eq!(done1.run_id, v1.run_id);
-    assert_eq!(done1.status, "complete");
+    assert_eq!(done1.status, RunStatus::Complete);
     assert_eq!(done1.finished_ms, Some(20));
     assert_eq!((done1.n_tests, done1.n_flagged), (Some(2), Some(1)));
     assert_eq!(done1.header, v1.header);
@@ -700,7 +701,7 @@ fn runs_contract(store: &mut dyn Runs) {
     assert_eq!(store.recover_abandoned(1_200).unwrap(), 1);
     let stuck = &store.runs_of_period("day", "2026-12-02").unwrap()[0];
     assert_eq!(stuck.run_id, begun.run_id);
-    assert_eq!(stuck.status, "failed");
+    assert_eq!(stuck.status, RunStatus::Failed);
     assert_eq!(stuck.finished_ms, Some(1_200));
     assert_eq!(
         stuck.error.as_deref(),
@@ -730,8 +731,8 @@ fn runs_contract(store: &mut dyn Runs) {
             .unwrap()
             .status
     };
-    assert_eq!(status(hand.run_id, &*store), "failed");
-    assert_eq!(status(other.run_id, &*store), "running");
+    assert_eq!(status(hand.run_id, &*store), RunStatus::Failed);
+    assert_eq!(status(other.run_id, &*store), RunStatus::Running);
 }
 
 fn leases_contract(store: &mut dyn Runs) {
@@ -938,7 +939,7 @@ fn scheduler_race_contract(mut pair: Pair) {
     });
     let runs = pair.0.all_runs().unwrap();
     assert_eq!(runs.len(), PERIODS, "each period run once: {runs:#?}");
-    assert!(runs.iter().all(|r| r.status == "complete"));
+    assert!(runs.iter().all(|r| r.status == RunStatus::Complete));
     let mut labels: Vec<&str> = runs
         .iter()
         .map(|r| r.header.period_label.as_str())

@@ -14,7 +14,7 @@ use super::columns::{
 use super::master::{load_characteristics, load_factors};
 use super::query::unknown_characteristic_among;
 use super::Store;
-use crate::names::did_you_mean;
+use crate::names::{unknown_name, NameKind};
 
 /// An event to record.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -381,31 +381,24 @@ pub(super) fn resolve_scope(
     let mut scope_ids: Vec<(i64, String)> = Vec::new();
     for (factor, level) in scope {
         let (factor_id, _) = factors.iter().find(|(_, n)| n == factor).ok_or_else(|| {
-            let hint = did_you_mean(factor, factors.iter().map(|(_, n)| n.as_str()));
-            let known: Vec<&str> = factors.iter().map(|(_, n)| n.as_str()).collect();
-            Error::Usage(format!(
-                "unknown factor \"{factor}\"{hint}; the factors are: {}",
-                known.join(", ")
-            ))
+            unknown_name(
+                NameKind::Factor,
+                factor,
+                factors.iter().map(|(_, n)| n.as_str()),
+                "the database",
+            )
         })?;
         if scope_ids.iter().any(|(id, _)| id == factor_id) {
             return Err(Error::Usage(format!("factor \"{factor}\" is given twice")));
         }
         let known = names.levels(*factor_id)?;
         if !known.iter().any(|l| l == level) {
-            let hint = did_you_mean(level, known.iter().map(String::as_str));
-            return Err(Error::Usage(if known.is_empty() {
-                format!(
-                    "unknown level \"{level}\" of factor \"{factor}\": no measurement with a \
-                     {factor} level is stored yet (import the data first)"
-                )
-            } else {
-                format!(
-                    "unknown level \"{level}\" of factor \"{factor}\"{hint} ({} levels \
-                     stored; `samewise status` lists the data)",
-                    known.len()
-                )
-            }));
+            return Err(unknown_name(
+                NameKind::Level { factor },
+                level,
+                known.iter().map(String::as_str),
+                "the database",
+            ));
         }
         scope_ids.push((*factor_id, level.clone()));
     }
@@ -555,7 +548,11 @@ pub trait EventStore {
         reason: Option<&str>,
         now: DateTime<Utc>,
     ) -> Result<Event>;
-    /// Marks event `id` removed (kept for the audit trail) with who and why; returns it.
+    /// Marks event `id` removed at `now` and records who removed it and why in its history,
+    /// in one transaction; the event is kept for the audit trail (listed by
+    /// [`EventStore::events_including_removed`], no longer by [`EventStore::events`]). An
+    /// unknown id, or an event removed already, is an error and nothing changes. Returns the
+    /// event as it is now.
     fn remove_event(
         &mut self,
         id: i64,

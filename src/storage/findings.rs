@@ -221,7 +221,9 @@ pub trait FindingStore {
     fn add_finding_note(&mut self, id: i64, text: &str, now: DateTime<Utc>) -> Result<()>;
     /// The notes of finding `id`, oldest first; empty when it has none.
     fn finding_notes(&self, id: i64) -> Result<Vec<(DateTime<Utc>, String)>>;
-    /// Records one run of the alert command.
+    /// Records one run of the alert command (its start and end, how many findings it was given,
+    /// the command, its exit code or error), committed at once; every record is kept, and
+    /// [`FindingStore::last_alert`] returns the one recorded last.
     fn log_alert(&self, record: &AlertRecord) -> Result<()>;
     /// The latest recorded run of the alert command; `None` before the first.
     fn last_alert(&self) -> Result<Option<AlertRecord>>;

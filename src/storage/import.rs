@@ -1,4 +1,4 @@
-//! [`Store::import`]: one file, one transaction, every row stored or rejected.
+//! [`ImportStore::import`]: one file, one transaction, every row stored or rejected.
 //!
 //! The file is read (parsed by `ingest`) in one thread and written in the calling thread, linked
 //! by a small bounded channel of batches, so memory stays constant whatever the file size. The
@@ -6,7 +6,7 @@
 //! sets are written in one IMMEDIATE transaction: a crash, a kill or an error before the commit
 //! leaves the database exactly as it was. The content hash is checked against earlier imports
 //! before the commit; a duplicate is refused (rolled back) unless `force` is set.
-//! [`Store::import_checking_early`] also hashes the file on a third thread while the import runs,
+//! [`ImportStore::import_checking_early`] also hashes the file on a third thread while the import runs,
 //! so a duplicate is refused within the first batches instead of at the end, without hashing
 //! on the writing thread, which bounds the import's speed.
 
@@ -50,10 +50,10 @@ const FIRST_REJECTIONS: usize = 10;
 pub const MAX_KEPT_REJECTIONS: u64 = 10_000;
 
 /// Receives every rejection record of an import as it is written (see
-/// [`Store::import_checking_early`]).
+/// [`ImportStore::import_checking_early`]).
 pub type RejectionSink<'a> = &'a mut dyn FnMut(&Rejection) -> Result<()>;
 
-/// Options of [`Store::import`].
+/// Options of [`ImportStore::import`].
 #[derive(Debug, Clone)]
 pub struct ImportOptions {
     /// Import even when the same content was imported before.
@@ -616,76 +616,6 @@ pub(crate) fn imports_with_sha256(conn: &Connection, sha256: &str) -> Result<Opt
 }
 
 impl Store {
-    /// The earliest import of content with this SHA-256, if any (to refuse a duplicate before
-    /// reading the file).
-    pub fn find_import_by_sha256(&self, sha256: &str) -> Result<Option<PriorImport>> {
-        imports_with_sha256(&self.conn, sha256)
-    }
-
-    /// The rejected rows stored for one import, in file order.
-    pub fn rejected_rows(&self, import_id: i64) -> Result<Vec<Rejection>> {
-        let mut stmt = self.conn.prepare_cached(
-            "SELECT line, column_name, reason, raw, measurements FROM rejected_rows WHERE import_id = ?1 ORDER BY line, id",
-        )?;
-        let rows = stmt.query_map([import_id], |r| {
-            Ok(Rejection {
-                line: r.get::<_, i64>(0)? as u64,
-                column: r.get(1)?,
-                reason: r.get(2)?,
-                raw: r.get(3)?,
-                measurements: r.get::<_, i64>(4)? as u64,
-            })
-        })?;
-        Ok(rows.collect::<rusqlite::Result<_>>()?)
-    }
-
-    /// Imports one file in one transaction: every measurement of the stream is stored or its
-    /// rejection recorded (file line, column, reason, raw text). On any error, or a duplicate
-    /// without `force`, nothing is written.
-    ///
-    /// Foreign-key enforcement is switched off for the import's transaction (and back on after
-    /// it, whatever the outcome): every id the import writes is one it has just read or created
-    /// in the same transaction, and the three parent look-ups per measurement (characteristic,
-    /// import, level set) nearly double the cost of a measurement insert (measured in isolation,
-    /// 3,000,000 rows: 9.3 s of CPU with them, 5.0 s without; docs/performance.md, "Import speed").
-    /// `samewise db check` still verifies them (`PRAGMA foreign_key_check`).
-    pub fn import<R: Read + Send>(
-        &mut self,
-        stream: ImportStream<R>,
-        options: &ImportOptions,
-    ) -> Result<ImportReport> {
-        self.import_checking_early(stream, options, None, None)
-    }
-
-    /// [`Store::import`], and unless `options.force` is set, `file` (the file the stream reads)
-    /// is hashed on a thread of its own while the import runs: as soon as its SHA-256 is known
-    /// (long before the end of a large file) and matches an earlier import, the import stops
-    /// and is rolled back, as a duplicate found at the end would be. The stream's own hash,
-    /// of the bytes it actually read, is still the one checked before the commit and recorded.
-    ///
-    /// This replaces hashing the file before the import on the writing thread, which bounds the
-    /// import's speed (docs/performance.md, "Import speed").
-    ///
-    /// `on_rejection` receives every rejection record in file order as it is written (the
-    /// database keeps the first [`MAX_KEPT_REJECTIONS`]); an error from it ends the import with
-    /// nothing written.
-    pub fn import_checking_early<R: Read + Send>(
-        &mut self,
-        stream: ImportStream<R>,
-        options: &ImportOptions,
-        file: Option<&Path>,
-        on_rejection: Option<RejectionSink<'_>>,
-    ) -> Result<ImportReport> {
-        self.conn.pragma_update(None, "foreign_keys", "OFF")?;
-        let early_file = if options.force { None } else { file };
-        let result = self.import_in_transaction(stream, options, early_file, on_rejection);
-        // Outside any transaction again (committed or rolled back), so the pragma takes effect.
-        let restored = self.conn.pragma_update(None, "foreign_keys", "ON");
-        let report = result?;
-        restored?;
-        Ok(report)
-    }
-
     fn import_in_transaction<R: Read + Send>(
         &mut self,
         stream: ImportStream<R>,
@@ -1390,7 +1320,7 @@ pub trait ImportStore {
 
 impl ImportStore for Store {
     fn import(&mut self, stream: BoxedStream<'_>, options: &ImportOptions) -> Result<ImportReport> {
-        Store::import(self, stream, options)
+        self.import_checking_early(stream, options, None, None)
     }
     fn import_checking_early(
         &mut self,
@@ -1399,13 +1329,32 @@ impl ImportStore for Store {
         file: Option<&Path>,
         on_rejection: Option<RejectionSink<'_>>,
     ) -> Result<ImportReport> {
-        Store::import_checking_early(self, stream, options, file, on_rejection)
+        self.conn.pragma_update(None, "foreign_keys", "OFF")?;
+        let early_file = if options.force { None } else { file };
+        let result = self.import_in_transaction(stream, options, early_file, on_rejection);
+        // Outside any transaction again (committed or rolled back), so the pragma takes effect.
+        let restored = self.conn.pragma_update(None, "foreign_keys", "ON");
+        let report = result?;
+        restored?;
+        Ok(report)
     }
     fn find_import_by_sha256(&self, sha256: &str) -> Result<Option<PriorImport>> {
-        Store::find_import_by_sha256(self, sha256)
+        imports_with_sha256(&self.conn, sha256)
     }
     fn rejected_rows(&self, import_id: i64) -> Result<Vec<Rejection>> {
-        Store::rejected_rows(self, import_id)
+        let mut stmt = self.conn.prepare_cached(
+            "SELECT line, column_name, reason, raw, measurements FROM rejected_rows WHERE import_id = ?1 ORDER BY line, id",
+        )?;
+        let rows = stmt.query_map([import_id], |r| {
+            Ok(Rejection {
+                line: r.get::<_, i64>(0)? as u64,
+                column: r.get(1)?,
+                reason: r.get(2)?,
+                raw: r.get(3)?,
+                measurements: r.get::<_, i64>(4)? as u64,
+            })
+        })?;
+        Ok(rows.collect::<rusqlite::Result<_>>()?)
     }
     fn import_records(&self) -> Result<Vec<ImportRecord>> {
         Store::import_records(self)
@@ -1466,10 +1415,13 @@ mod tests {
         assert_eq!(reason_kind("blank line"), "blank line");
         assert_eq!(
             reason_kind(
-                "local time \"25.10.2026 02:46:49\" occurs twice in Europe/Berlin (clocks go back); \
-                 give the offset, e.g. 2026-10-25T02:46:49+02:00 or 2026-10-25T02:46:49+01:00"
+                "local time \"25.10.2026 02:46:49\" occurs twice in Europe/Berlin (the clocks go \
+                 back); write the time with its offset, e.g. one of its two readings \
+                 2026-10-25T02:46:49+02:00 (CEST, the first) and 2026-10-25T02:46:49+01:00 (CET, \
+                 the second)"
             ),
-            "local time \"…\" occurs twice in Europe/Berlin (clocks go back); give the offset"
+            "local time \"…\" occurs twice in Europe/Berlin (the clocks go back); write the \
+             time with its offset"
         );
     }
 }

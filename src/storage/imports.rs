@@ -1,4 +1,4 @@
-//! The import log: [`Store::import_records`] lists every import, and [`Store::undo_import`]
+//! The import log: [`ImportStore::import_records`](super::ImportStore::import_records) lists every import, and [`ImportStore::undo_import`](super::ImportStore::undo_import)
 //! removes one import's measurements and rejected rows in one transaction, recording the undo as
 //! an import row of its own (migration 0005), so a checked period it touches becomes stale and
 //! the scheduler checks it again.
@@ -49,7 +49,7 @@ pub struct ImportRecord {
     pub undone_by: Option<i64>,
 }
 
-/// What [`Store::undo_import`] removed.
+/// What [`ImportStore::undo_import`](super::ImportStore::undo_import) removed.
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub struct UndoReport {
     /// The import undone.
@@ -119,7 +119,7 @@ fn instant(ms: i64) -> DateTime<Utc> {
 
 impl Store {
     /// Every import in id order, undos included.
-    pub fn import_records(&self) -> Result<Vec<ImportRecord>> {
+    pub(super) fn import_records(&self) -> Result<Vec<ImportRecord>> {
         let mut stmt = self.conn.prepare(IMPORT_RECORDS_SQL)?;
         let rows = stmt.query_map([], |r| {
             Ok(ImportRecord {
@@ -152,7 +152,7 @@ impl Store {
     ///
     /// Refused, with nothing changed: an unknown id, an undo row, an import undone already, or
     /// a database whose measurements do not match the import's record (`db check` tells more).
-    pub fn undo_import(&mut self, id: i64, now: DateTime<Utc>) -> Result<UndoReport> {
+    pub(super) fn undo_import(&mut self, id: i64, now: DateTime<Utc>) -> Result<UndoReport> {
         let tx = self
             .conn
             .transaction_with_behavior(TransactionBehavior::Immediate)?;

@@ -135,9 +135,38 @@ fn count(conn: &Connection, sql: &str) -> Result<u64> {
     Ok(conn.query_row(sql, [], |r| r.get::<_, i64>(0))? as u64)
 }
 
-impl Store {
-    /// Row counts per characteristic, date range, last import, rejected rows, schema version.
-    pub fn status(&self) -> Result<Status> {
+/// Status, staleness, integrity, backup, schema and the plant configuration's master data:
+/// what a second backend implements.
+pub trait MaintenanceStore {
+    /// Row counts and time range per characteristic, last import, rejected rows, schema
+    /// version; zeros and empty ranges for a new database.
+    fn status(&self) -> Result<Status>;
+    /// Periods whose latest complete run began before an import that stored measurements inside
+    /// them or an undo that removed some: (schedule or "by hand", period kind, label), oldest
+    /// period first; empty when none is stale.
+    fn stale_periods(&self) -> Result<Vec<(String, String, String)>>;
+    /// A full consistency check (storage structure, references, counts against the import
+    /// records); reads only.
+    fn integrity_check(&self) -> Result<IntegrityReport>;
+    /// A consistent copy (one snapshot) of the whole database at `dest`, safe while others read
+    /// and write; `dest` must not exist.
+    fn backup(&self, dest: &Path) -> Result<()>;
+    /// The schema version of the database: how many of samewise's numbered migrations it has
+    /// (a database at a later version than this build knows is refused when it is opened).
+    fn schema_version(&self) -> Result<u32>;
+    /// Brings characteristics, factors and levels in step with `config` in one transaction
+    /// (adds, updates, deactivates; never deletes stored data); reports what changed.
+    fn sync_config(&mut self, config: &Config) -> Result<SyncReport>;
+    /// The database file, when the backend is a local file (`None` in memory or on a server):
+    /// shown to the user and used for the writer note.
+    fn path(&self) -> Option<&Path>;
+    /// Marks a long write (an import) so that a writer that gives up waiting can name it; the
+    /// mark lasts until the returned note is dropped. `None` when the backend needs none.
+    fn note_writer(&self, what: &str, started: DateTime<Utc>) -> Option<WriterNote>;
+}
+
+impl MaintenanceStore for Store {
+    fn status(&self) -> Result<Status> {
         let mut stmt = self.conn.prepare(
             "SELECT c.name, c.is_configured, c.is_active, \
                (SELECT count(*) FROM measurements m WHERE m.characteristic_id = c.id), \
@@ -182,18 +211,12 @@ impl Store {
             stale_periods: self.stale_periods()?,
         })
     }
-
-    /// Periods whose latest complete run began before an import that stored measurements inside
-    /// them or an undo that removed some (the rule of `runs::completed_labels`, from the other
-    /// side).
-    pub fn stale_periods(&self) -> Result<Vec<(String, String, String)>> {
+    fn stale_periods(&self) -> Result<Vec<(String, String, String)>> {
         let mut stmt = self.conn.prepare(STALE_PERIODS_SQL)?;
         let rows = stmt.query_map([], |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?)))?;
         Ok(rows.collect::<rusqlite::Result<_>>()?)
     }
-
-    /// SQLite's integrity check, the foreign-key check, and samewise's own consistency checks.
-    pub fn integrity_check(&self) -> Result<IntegrityReport> {
+    fn integrity_check(&self) -> Result<IntegrityReport> {
         let integrity: Vec<String> = self
             .conn
             .prepare("PRAGMA integrity_check")?
@@ -258,11 +281,7 @@ impl Store {
             counts,
         })
     }
-
-    /// Copies the database to `dest` with SQLite's online backup API: safe while other
-    /// processes read and write; the copy is one consistent snapshot. `dest` must not exist.
-    pub fn backup(&self, dest: impl AsRef<Path>) -> Result<()> {
-        let dest = dest.as_ref();
+    fn backup(&self, dest: &Path) -> Result<()> {
         if dest.exists() {
             return Err(Error::Usage(format!(
                 "{} already exists; choose a new file for the backup",
@@ -304,60 +323,16 @@ impl Store {
         }
         result
     }
-}
-
-/// Status, staleness, integrity, backup, schema and the plant configuration's master data:
-/// what a second backend implements.
-pub trait MaintenanceStore {
-    /// Row counts and time range per characteristic, last import, rejected rows, schema
-    /// version; zeros and empty ranges for a new database.
-    fn status(&self) -> Result<Status>;
-    /// Periods whose latest complete run began before an import that stored measurements inside
-    /// them or an undo that removed some: (schedule or "by hand", period kind, label), oldest
-    /// period first; empty when none is stale.
-    fn stale_periods(&self) -> Result<Vec<(String, String, String)>>;
-    /// A full consistency check (storage structure, references, counts against the import
-    /// records); reads only.
-    fn integrity_check(&self) -> Result<IntegrityReport>;
-    /// A consistent copy (one snapshot) of the whole database at `dest`, safe while others read
-    /// and write; `dest` must not exist.
-    fn backup(&self, dest: &Path) -> Result<()>;
-    /// The schema version of the database.
-    fn schema_version(&self) -> Result<u32>;
-    /// Brings characteristics, factors and levels in step with `config` in one transaction
-    /// (adds, updates, deactivates; never deletes stored data); reports what changed.
-    fn sync_config(&mut self, config: &Config) -> Result<SyncReport>;
-    /// The database file, when the backend is a local file (`None` in memory or on a server):
-    /// shown to the user and used for the writer note.
-    fn path(&self) -> Option<&Path>;
-    /// Marks a long write (an import) so that a writer that gives up waiting can name it; the
-    /// mark lasts until the returned note is dropped. `None` when the backend needs none.
-    fn note_writer(&self, what: &str, started: DateTime<Utc>) -> Option<WriterNote>;
-}
-
-impl MaintenanceStore for Store {
-    fn status(&self) -> Result<Status> {
-        Store::status(self)
-    }
-    fn stale_periods(&self) -> Result<Vec<(String, String, String)>> {
-        Store::stale_periods(self)
-    }
-    fn integrity_check(&self) -> Result<IntegrityReport> {
-        Store::integrity_check(self)
-    }
-    fn backup(&self, dest: &Path) -> Result<()> {
-        Store::backup(self, dest)
-    }
     fn schema_version(&self) -> Result<u32> {
-        Store::schema_version(self)
+        super::migrate::schema_version(&self.conn)
     }
     fn sync_config(&mut self, config: &Config) -> Result<SyncReport> {
         Store::sync_config(self, config)
     }
     fn path(&self) -> Option<&Path> {
-        Store::path(self)
+        self.path.as_deref()
     }
     fn note_writer(&self, what: &str, started: DateTime<Utc>) -> Option<WriterNote> {
-        Store::note_writer(self, what, started)
+        WriterNote::write(self.path.as_deref(), what, started)
     }
 }

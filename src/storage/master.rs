@@ -1,5 +1,5 @@
 //! Master data: characteristics, factors, levels and level sets, and keeping them in step with the
-//! plant configuration ([`Store::sync_config`]).
+//! plant configuration ([`MaintenanceStore::sync_config`](super::MaintenanceStore::sync_config)).
 //!
 //! The configuration is the truth for what a characteristic's limits are and which factors exist;
 //! the database keeps everything it ever stored. So `sync_config` adds and updates, but never
@@ -17,7 +17,7 @@ use crate::{Error, Result};
 
 use super::Store;
 
-/// What [`Store::sync_config`] changed. Every list is sorted as the configuration lists it.
+/// What [`MaintenanceStore::sync_config`](super::MaintenanceStore::sync_config) changed. Every list is sorted as the configuration lists it.
 #[derive(Debug, Clone, Default, PartialEq, Eq)]
 pub struct SyncReport {
     /// Characteristics new in the database.
@@ -160,7 +160,7 @@ impl Store {
     ///
     /// Never deletes and never touches measurements or origins; running it twice with the same
     /// configuration changes nothing the second time.
-    pub fn sync_config(&mut self, config: &Config) -> Result<SyncReport> {
+    pub(super) fn sync_config(&mut self, config: &Config) -> Result<SyncReport> {
         let tx = self
             .conn
             .transaction_with_behavior(TransactionBehavior::Immediate)?;
@@ -238,12 +238,12 @@ impl Store {
     }
 
     /// Every stored characteristic (configured or not), in the order they were added.
-    pub fn characteristics(&self) -> Result<Vec<StoredCharacteristic>> {
+    pub(super) fn characteristics(&self) -> Result<Vec<StoredCharacteristic>> {
         load_characteristics(&self.conn)
     }
 
     /// Every stored factor: the configured ones in configuration order, then the others.
-    pub fn factors(&self) -> Result<Vec<StoredFactor>> {
+    pub(super) fn factors(&self) -> Result<Vec<StoredFactor>> {
         load_factors(&self.conn)
     }
 }
@@ -590,7 +590,7 @@ pub(crate) fn level_set_key_ids(key: &str) -> impl Iterator<Item = Option<i64>> 
 impl Store {
     /// Levels of one factor that differ only in case or surrounding blanks (`imm1`, `IMM1`):
     /// (factor, the levels), for a warning that they are counted as different groups.
-    pub fn level_case_collisions(&self) -> Result<Vec<(String, Vec<String>)>> {
+    pub(super) fn level_case_collisions(&self) -> Result<Vec<(String, Vec<String>)>> {
         let mut stmt = self.conn.prepare(
             "SELECT f.name, l.name FROM levels l JOIN factors f ON f.id = l.factor_id \
              ORDER BY f.position, l.name",

@@ -50,7 +50,6 @@ pub use imports::{ImportRecord, UndoReport};
 pub use maintenance::{CharacteristicStatus, IntegrityReport, MaintenanceStore, Status};
 pub use master::{StoredCharacteristic, StoredFactor, SyncReport};
 pub use postgres::PgStore;
-pub(crate) use query::closest;
 pub use query::{
     exact_value, CharacteristicFrame, FactorLevels, MeasurementStore, PeriodFrame, ReaderOpener,
     NO_SUBGROUP,
@@ -292,10 +291,10 @@ const CACHE_KIB: i64 = 64 * 1024;
 
 /// The SQLite backend: the plant database in one file (or in memory).
 ///
-/// It implements every trait of [`PlantStore`]; its inherent methods are what those
-/// implementations call (and what the tests of this backend call). Code outside `storage` never
-/// names it: it holds a `dyn PlantStore` from [`open`] and its siblings
-/// (`tests/architecture.rs` checks this).
+/// It implements every trait of [`PlantStore`], and the trait implementations are the one way
+/// to its data (its own methods are the constructors and helpers private to `storage`). Code
+/// outside `storage`, the tests included, never names it: it holds a `dyn PlantStore` from
+/// [`open`] and its siblings (`tests/architecture.rs` checks this for `src/`).
 ///
 /// One `Store` is one SQLite connection. Several processes may use the same database file at the
 /// same time: WAL mode lets readers proceed while an import writes, and a busy timeout makes a
@@ -355,7 +354,7 @@ impl Store {
     }
 
     /// Opens the database at `path`, creating the file if it does not exist, and applies pending
-    /// migrations. `samewise init` uses this, then [`Store::sync_config`].
+    /// migrations. `samewise init` uses this, then [`MaintenanceStore::sync_config`].
     pub fn open_or_create(path: impl AsRef<Path>) -> Result<Store> {
         let path = path.as_ref();
         if let Some(parent) = path.parent() {
@@ -387,6 +386,40 @@ impl Store {
         Ok(identify(&conn, path)? == migrate::FileKind::Empty)
     }
 
+    /// Opens `path` read-only, as the second reader of a database another connection of this
+    /// process has opened (and migrated) already: no migration runs and nothing is written to
+    /// the file, not even a setting. A database at another schema version than this build's is
+    /// refused, since only the first connection may bring it up to date.
+    pub(crate) fn open_reader(path: &Path) -> Result<Store> {
+        let flags = OpenFlags::SQLITE_OPEN_READ_ONLY
+            | OpenFlags::SQLITE_OPEN_URI
+            | OpenFlags::SQLITE_OPEN_NO_MUTEX;
+        let conn = Connection::open_with_flags(path, flags)?;
+        if identify(&conn, path)? != migrate::FileKind::Samewise {
+            return Err(Error::Database(format!(
+                "{} is not a samewise database (opened as a second reader)",
+                path.display()
+            )));
+        }
+        let version = migrate::schema_version(&conn)?;
+        if version != migrate::latest_version() {
+            return Err(Error::Database(format!(
+                "{} has schema version {version}, this samewise reads version {}: a second \
+                 reader does not migrate; open the database once the usual way first",
+                path.display(),
+                migrate::latest_version()
+            )));
+        }
+        // Per-connection settings only (none is stored in the file).
+        conn.pragma_update(None, "cache_size", -CACHE_KIB)?;
+        conn.pragma_update(None, "temp_store", "MEMORY")?;
+        Ok(Store {
+            conn,
+            path: Some(path.to_path_buf()),
+            level_cache: Default::default(),
+        })
+    }
+
     /// A fresh database in memory with every migration applied (for tests and dry runs).
     pub fn open_in_memory() -> Result<Store> {
         Store::from_connection(Connection::open_in_memory()?, None)
@@ -412,25 +445,6 @@ impl Store {
             path,
             level_cache: Default::default(),
         })
-    }
-
-    /// The database file, or `None` in memory.
-    pub fn path(&self) -> Option<&Path> {
-        self.path.as_deref()
-    }
-
-    /// Writes the writer note of this database (see [`WriterNote`]); held for a long write.
-    pub fn note_writer(
-        &self,
-        what: &str,
-        started: chrono::DateTime<chrono::Utc>,
-    ) -> Option<WriterNote> {
-        WriterNote::write(self.path.as_deref(), what, started)
-    }
-
-    /// The schema version of the database (`PRAGMA user_version`).
-    pub fn schema_version(&self) -> Result<u32> {
-        migrate::schema_version(&self.conn)
     }
 
     /// The names of the tables (views aside), sorted: the schema compared across backends.

@@ -1,4 +1,4 @@
-//! The analysis read path: [`Store::load_period`] returns a [`PeriodFrame`], the measurements of a
+//! The analysis read path: [`MeasurementStore::load_period`] returns a [`PeriodFrame`], the measurements of a
 //! time window column by column (offsets, instants, and for every factor the level index of each
 //! row), read in one pass over the (characteristic, time) primary key.
 //!
@@ -12,6 +12,7 @@ use crate::ingest::fxhash::FxMap;
 use chrono::{DateTime, Utc};
 
 use crate::config::CharacteristicConfig;
+use crate::names::{unknown_name, NameKind};
 use crate::stats::decimal::Decimal;
 use crate::{Error, Result};
 
@@ -128,15 +129,7 @@ pub(crate) fn natural_cmp(a: &str, b: &str) -> std::cmp::Ordering {
     }
 }
 
-/// The closest name by edit distance, for "did you mean" hints.
-pub(crate) fn closest<'a>(
-    name: &str,
-    candidates: impl Iterator<Item = &'a str>,
-) -> Option<&'a str> {
-    crate::names::closest_names(name, candidates, 1).pop()
-}
-
-/// An "unknown characteristic" error with the closest known names.
+/// The unknown-name error of a characteristic the database does not hold.
 pub(crate) fn unknown_characteristic(name: &str, known: &[StoredCharacteristic]) -> Error {
     unknown_characteristic_among(name, known.iter().map(|c| c.config.name.as_str()))
 }
@@ -144,130 +137,9 @@ pub(crate) fn unknown_characteristic(name: &str, known: &[StoredCharacteristic])
 /// [`unknown_characteristic`] from the known names alone.
 pub(crate) fn unknown_characteristic_among<'a>(
     name: &str,
-    known: impl IntoIterator<Item = &'a str>,
+    known: impl IntoIterator<Item = &'a str> + Clone,
 ) -> Error {
-    let hint = crate::names::did_you_mean(name, known);
-    Error::Usage(format!("unknown characteristic \"{name}\"{hint}"))
-}
-
-impl Store {
-    /// Measurements stored per characteristic in `[start, end)` (every stored characteristic,
-    /// in id order), counted along the primary key without loading a value.
-    pub fn count_between(
-        &self,
-        start: DateTime<Utc>,
-        end: DateTime<Utc>,
-    ) -> Result<Vec<(String, u64)>> {
-        let stored = load_characteristics(&self.conn)?;
-        let mut stmt = self.conn.prepare_cached(
-            "SELECT COUNT(*) FROM measurements WHERE characteristic_id = ?1 \
-             AND ts_ms >= ?2 AND ts_ms < ?3",
-        )?;
-        stored
-            .iter()
-            .map(|c| {
-                let n: i64 = stmt.query_row(
-                    rusqlite::params![c.id, start.timestamp_millis(), end.timestamp_millis()],
-                    |r| r.get(0),
-                )?;
-                Ok((c.config.name.clone(), n as u64))
-            })
-            .collect()
-    }
-
-    /// Whether any measurement lies in `[start, end)` (one index probe per characteristic).
-    pub fn has_data_between(&self, start: DateTime<Utc>, end: DateTime<Utc>) -> Result<bool> {
-        let stored = load_characteristics(&self.conn)?;
-        let mut stmt = self.conn.prepare_cached(
-            "SELECT EXISTS (SELECT 1 FROM measurements WHERE characteristic_id = ?1 \
-             AND ts_ms >= ?2 AND ts_ms < ?3)",
-        )?;
-        for c in &stored {
-            let found: bool = stmt.query_row(
-                rusqlite::params![c.id, start.timestamp_millis(), end.timestamp_millis()],
-                |r| r.get(0),
-            )?;
-            if found {
-                return Ok(true);
-            }
-        }
-        Ok(false)
-    }
-
-    /// The measurements with `start <= ts < end` of the characteristics named (all when `None`),
-    /// columnar and in time order, read in one pass per characteristic.
-    ///
-    /// An unknown name is an error that suggests the closest known one. A characteristic without
-    /// measurements in the period gives an empty frame.
-    pub fn load_period(
-        &self,
-        start: DateTime<Utc>,
-        end: DateTime<Utc>,
-        characteristics: Option<&[String]>,
-    ) -> Result<PeriodFrame> {
-        let stored = load_characteristics(&self.conn)?;
-        let chosen: Vec<&StoredCharacteristic> = match characteristics {
-            None => stored.iter().collect(),
-            Some(names) => names
-                .iter()
-                .map(|n| {
-                    stored
-                        .iter()
-                        .find(|c| &c.config.name == n)
-                        .ok_or_else(|| unknown_characteristic(n, &stored))
-                })
-                .collect::<Result<_>>()?,
-        };
-        let factors: Vec<_> = load_factors(&self.conn)?
-            .into_iter()
-            .filter(|f| f.is_configured)
-            .collect();
-        let mut cache = self.level_cache.borrow_mut();
-        let mut builder = FrameBuilder::new(&factors, &mut cache);
-        let mut rows_stmt = self.conn.prepare_cached(
-            "SELECT ts_ms, value, level_set_id, subgroup FROM measurements \
-             WHERE characteristic_id = ?1 AND ts_ms >= ?2 AND ts_ms < ?3",
-        )?;
-        let mut set_stmt = self.conn.prepare_cached(&format!(
-            "SELECT id, key FROM level_sets WHERE id IN ({})",
-            vec!["?"; SET_CHUNK].join(", ")
-        ))?;
-        for c in chosen {
-            builder.begin_characteristic();
-            let mut rows = rows_stmt.query(rusqlite::params![
-                c.id,
-                start.timestamp_millis(),
-                end.timestamp_millis()
-            ])?;
-            while let Some(row) = rows.next()? {
-                let subgroup = match row.get_ref(3)? {
-                    rusqlite::types::ValueRef::Text(t) => Some(t),
-                    _ => None,
-                };
-                builder.push(row.get(0)?, row.get(1)?, row.get(2)?, subgroup);
-            }
-            drop(rows);
-            builder.finish_characteristic(
-                c,
-                |chunk, out| {
-                    // A short last chunk repeats its last id (IN ignores repeats).
-                    let ids = (0..SET_CHUNK).map(|i| chunk[i.min(chunk.len() - 1)]);
-                    let mut rows = set_stmt.query(rusqlite::params_from_iter(ids))?;
-                    while let Some(row) = rows.next()? {
-                        let set: i64 = row.get(0)?;
-                        let key = row
-                            .get_ref(1)?
-                            .as_str()
-                            .map_err(|_| bad_key(set, "(not text)"))?;
-                        out.push((set, key.to_string()));
-                    }
-                    Ok(())
-                },
-                |levels| read_levels(&self.conn, levels),
-            )?;
-        }
-        Ok(builder.finish())
-    }
+    unknown_name(NameKind::Characteristic, name, known, "the database")
 }
 
 /// Builds a [`PeriodFrame`] from the rows of each characteristic, whatever the backend: the
@@ -640,8 +512,9 @@ pub trait MeasurementStore {
     /// A way to open a second, independent reader of the same data, to be called on another
     /// thread (the check loads parts of a period on two threads); `None` when the backend
     /// cannot (an in-memory database), and then the caller loads everything itself. The second
-    /// reader may see later commits than this one; a check reads only periods that are
-    /// already imported.
+    /// reader only reads: it runs no migration and writes nothing (not even a setting), and it
+    /// refuses a database whose schema is not the one this build reads. It may see later
+    /// commits than this one; a check reads only periods that are already imported.
     fn reader_opener(&self) -> Option<ReaderOpener>;
 }
 
@@ -660,10 +533,38 @@ impl MeasurementStore for Store {
         start: DateTime<Utc>,
         end: DateTime<Utc>,
     ) -> Result<Vec<(String, u64)>> {
-        Store::count_between(self, start, end)
+        let stored = load_characteristics(&self.conn)?;
+        let mut stmt = self.conn.prepare_cached(
+            "SELECT COUNT(*) FROM measurements WHERE characteristic_id = ?1 \
+             AND ts_ms >= ?2 AND ts_ms < ?3",
+        )?;
+        stored
+            .iter()
+            .map(|c| {
+                let n: i64 = stmt.query_row(
+                    rusqlite::params![c.id, start.timestamp_millis(), end.timestamp_millis()],
+                    |r| r.get(0),
+                )?;
+                Ok((c.config.name.clone(), n as u64))
+            })
+            .collect()
     }
     fn has_data_between(&self, start: DateTime<Utc>, end: DateTime<Utc>) -> Result<bool> {
-        Store::has_data_between(self, start, end)
+        let stored = load_characteristics(&self.conn)?;
+        let mut stmt = self.conn.prepare_cached(
+            "SELECT EXISTS (SELECT 1 FROM measurements WHERE characteristic_id = ?1 \
+             AND ts_ms >= ?2 AND ts_ms < ?3)",
+        )?;
+        for c in &stored {
+            let found: bool = stmt.query_row(
+                rusqlite::params![c.id, start.timestamp_millis(), end.timestamp_millis()],
+                |r| r.get(0),
+            )?;
+            if found {
+                return Ok(true);
+            }
+        }
+        Ok(false)
     }
     fn load_period(
         &self,
@@ -671,15 +572,76 @@ impl MeasurementStore for Store {
         end: DateTime<Utc>,
         characteristics: Option<&[String]>,
     ) -> Result<PeriodFrame> {
-        Store::load_period(self, start, end, characteristics)
+        let stored = load_characteristics(&self.conn)?;
+        let chosen: Vec<&StoredCharacteristic> = match characteristics {
+            None => stored.iter().collect(),
+            Some(names) => names
+                .iter()
+                .map(|n| {
+                    stored
+                        .iter()
+                        .find(|c| &c.config.name == n)
+                        .ok_or_else(|| unknown_characteristic(n, &stored))
+                })
+                .collect::<Result<_>>()?,
+        };
+        let factors: Vec<_> = load_factors(&self.conn)?
+            .into_iter()
+            .filter(|f| f.is_configured)
+            .collect();
+        let mut cache = self.level_cache.borrow_mut();
+        let mut builder = FrameBuilder::new(&factors, &mut cache);
+        let mut rows_stmt = self.conn.prepare_cached(
+            "SELECT ts_ms, value, level_set_id, subgroup FROM measurements \
+             WHERE characteristic_id = ?1 AND ts_ms >= ?2 AND ts_ms < ?3",
+        )?;
+        let mut set_stmt = self.conn.prepare_cached(&format!(
+            "SELECT id, key FROM level_sets WHERE id IN ({})",
+            vec!["?"; SET_CHUNK].join(", ")
+        ))?;
+        for c in chosen {
+            builder.begin_characteristic();
+            let mut rows = rows_stmt.query(rusqlite::params![
+                c.id,
+                start.timestamp_millis(),
+                end.timestamp_millis()
+            ])?;
+            while let Some(row) = rows.next()? {
+                let subgroup = match row.get_ref(3)? {
+                    rusqlite::types::ValueRef::Text(t) => Some(t),
+                    _ => None,
+                };
+                builder.push(row.get(0)?, row.get(1)?, row.get(2)?, subgroup);
+            }
+            drop(rows);
+            builder.finish_characteristic(
+                c,
+                |chunk, out| {
+                    // A short last chunk repeats its last id (IN ignores repeats).
+                    let ids = (0..SET_CHUNK).map(|i| chunk[i.min(chunk.len() - 1)]);
+                    let mut rows = set_stmt.query(rusqlite::params_from_iter(ids))?;
+                    while let Some(row) = rows.next()? {
+                        let set: i64 = row.get(0)?;
+                        let key = row
+                            .get_ref(1)?
+                            .as_str()
+                            .map_err(|_| bad_key(set, "(not text)"))?;
+                        out.push((set, key.to_string()));
+                    }
+                    Ok(())
+                },
+                |levels| read_levels(&self.conn, levels),
+            )?;
+        }
+        Ok(builder.finish())
     }
     fn level_case_collisions(&self) -> Result<Vec<(String, Vec<String>)>> {
         Store::level_case_collisions(self)
     }
     fn reader_opener(&self) -> Option<ReaderOpener> {
-        let path = self.path()?.to_path_buf();
+        let path = self.path.clone()?;
         Some(Box::new(move || {
-            Store::open(path).map(|s| Box::new(s) as Box<dyn MeasurementStore + Send>)
+            Store::open_reader(&path).map(|s| Box::new(s) as Box<dyn MeasurementStore + Send>)
         }))
     }
 }
@@ -724,13 +686,42 @@ mod tests {
     }
 
     #[test]
-    fn closest_name_is_suggested() {
-        let names = ["bore_diameter", "flatness", "length"];
+    fn the_second_reader_is_read_only_and_never_migrates() {
+        let dir = std::env::temp_dir().join(format!("samewise-reader-{}", std::process::id()));
+        let _ = std::fs::remove_dir_all(&dir);
+        std::fs::create_dir_all(&dir).unwrap();
+        let db = dir.join("plant.db");
+        let store = Store::open_or_create(&db).unwrap();
+        // At the current schema: a working reader whose connection cannot write.
+        let opener = store
+            .reader_opener()
+            .expect("a file database has a second reader");
+        let reader = opener().unwrap();
+        assert!(reader.characteristics().unwrap().is_empty());
+        let direct = Store::open_reader(&db).unwrap();
+        assert!(direct
+            .conn
+            .is_readonly(rusqlite::DatabaseName::Main)
+            .unwrap());
+        assert!(direct
+            .conn
+            .execute("DELETE FROM characteristics", [])
+            .is_err());
+        drop(direct);
+        // A database behind this build's schema: refused, and left as it was (no migration).
+        let behind = crate::storage::migrate::latest_version() - 1;
+        store
+            .conn
+            .pragma_update(None, "user_version", behind)
+            .unwrap();
+        let err = store.reader_opener().unwrap()().err().unwrap().to_string();
+        assert!(err.contains("does not migrate"), "{err}");
         assert_eq!(
-            closest("bore_diamter", names.iter().copied()),
-            Some("bore_diameter")
+            crate::storage::migrate::schema_version(&store.conn).unwrap(),
+            behind
         );
-        assert_eq!(closest("zzzzzzzzzz", names.iter().copied()), None);
+        drop(store);
+        std::fs::remove_dir_all(&dir).unwrap();
     }
 
     #[test]

@@ -23,14 +23,16 @@ use super::columns::{
     placeholders, qualified, run_from, sqlite_row, sqlite_rows, test_from, test_values, ColumnRow,
     GROUP_COLUMNS, NEW_RUN_COLUMNS, PAIR_COLUMNS, RUN_COLUMNS, TEST_COLUMNS,
 };
+use crate::model::PeriodKind;
 use crate::results::TestResult;
+use crate::stats::fdr::FdrMethod;
 use crate::Result;
 
 /// The identity and settings of one run, written when it starts.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, serde::Serialize, serde::Deserialize)]
 pub struct RunHeader {
-    /// `shift`, `day`, `week`, `month` or `range`.
-    pub period_kind: String,
+    /// The kind of the period checked.
+    pub period_kind: PeriodKind,
     /// The period's label (`2026-11-30`, `2026-W48`, ...).
     pub period_label: String,
     /// Period start, ms since the epoch (inclusive).
@@ -43,14 +45,51 @@ pub struct RunHeader {
     pub config_hash: String,
     /// samewise version.
     pub tool_version: String,
-    /// `bh` or `by`.
-    pub fdr_method: String,
+    /// The false-discovery procedure of the flags.
+    pub fdr_method: FdrMethod,
     /// The FDR level used for the flags.
     pub fdr_level: f64,
 }
 
+/// Where a run stands; stored as its lowercase name ([`RunStatus::as_str`]).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum RunStatus {
+    /// Begun; no result is written yet (a process that stopped leaves it so until a recovery
+    /// marks it failed).
+    Running,
+    /// Every result written: the only status whose results are read.
+    Complete,
+    /// Ended by an error (kept with the run) or abandoned; no results.
+    Failed,
+}
+
+impl RunStatus {
+    /// The stored name: `running`, `complete` or `failed`.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            RunStatus::Running => "running",
+            RunStatus::Complete => "complete",
+            RunStatus::Failed => "failed",
+        }
+    }
+
+    /// The status of a stored name; `None` for any other text.
+    pub fn parse(text: &str) -> Option<RunStatus> {
+        [RunStatus::Running, RunStatus::Complete, RunStatus::Failed]
+            .into_iter()
+            .find(|s| s.as_str() == text)
+    }
+}
+
+impl std::fmt::Display for RunStatus {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(self.as_str())
+    }
+}
+
 /// A stored run row.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, serde::Serialize, serde::Deserialize)]
 pub struct StoredRun {
     /// Row id.
     pub run_id: i64,
@@ -62,8 +101,8 @@ pub struct StoredRun {
     pub started_ms: i64,
     /// End, ms since the epoch (absent while running).
     pub finished_ms: Option<i64>,
-    /// `running`, `complete` or `failed`.
-    pub status: String,
+    /// Where the run stands.
+    pub status: RunStatus,
     /// Error text of a failed run.
     pub error: Option<String>,
     /// Number of tests (complete runs).
@@ -81,7 +120,7 @@ impl StoredRun {
             header: header.clone(),
             started_ms,
             finished_ms: None,
-            status: "running".into(),
+            status: RunStatus::Running,
             error: None,
             n_tests: None,
             n_flagged: None,
@@ -100,7 +139,7 @@ pub(super) fn begin_run(
     let tx = conn.transaction_with_behavior(TransactionBehavior::Immediate)?;
     let version: i64 = tx.query_row(
         "SELECT COALESCE(MAX(version), 0) + 1 FROM run WHERE period_kind = ?1 AND period_label = ?2",
-        params![header.period_kind, header.period_label],
+        params![header.period_kind.as_str(), header.period_label],
         |r| r.get(0),
     )?;
     tx.execute(
@@ -301,7 +340,46 @@ pub(super) fn completed_labels(
 }
 
 /// Reads the full content of one run.
+/// Runs `read` inside one read transaction of `conn`, so that all its statements see the same
+/// committed state (under WAL, the snapshot of its first read): a write committed by another
+/// connection meanwhile is not half seen. Inside a transaction already, `read` runs in that one.
+pub(super) fn in_read_transaction<T>(
+    conn: &Connection,
+    read: impl FnOnce(&Connection) -> Result<T>,
+) -> Result<T> {
+    if !conn.is_autocommit() {
+        return read(conn);
+    }
+    // A deferred transaction: it takes no lock until its first read, and never a write lock.
+    let tx = conn.unchecked_transaction()?;
+    let out = read(&tx)?;
+    tx.commit()?;
+    Ok(out)
+}
+
+/// Reads the full content of one run (its tests, then their groups, then their pairs) in one
+/// read transaction: a run completed meanwhile is read whole or not at all, never as tests
+/// without their groups or groups without their tests.
 pub(super) fn run_content(conn: &Connection, run_id: i64) -> Result<RunContent> {
+    in_read_transaction(conn, |conn| run_content_now(conn, run_id))
+}
+
+/// The latest complete run of a period with its content, both read in one read transaction.
+pub(super) fn latest_run(
+    conn: &Connection,
+    period_kind: &str,
+    period_label: &str,
+) -> Result<Option<(StoredRun, RunContent)>> {
+    in_read_transaction(conn, |conn| {
+        let Some(run) = latest_complete_run(conn, period_kind, period_label)? else {
+            return Ok(None);
+        };
+        let content = run_content(conn, run.run_id)?;
+        Ok(Some((run, content)))
+    })
+}
+
+fn run_content_now(conn: &Connection, run_id: i64) -> Result<RunContent> {
     let mut tests = sqlite_rows(
         conn,
         &format!("SELECT {TEST_COLUMNS} FROM run_result WHERE run_id = ?1 ORDER BY test_idx"),
@@ -350,6 +428,18 @@ pub(super) fn history(
     period_kind: &str,
     last: usize,
 ) -> Result<Vec<HistoryPoint>> {
+    in_read_transaction(conn, |conn| {
+        history_now(conn, characteristic, factor, period_kind, last)
+    })
+}
+
+fn history_now(
+    conn: &Connection,
+    characteristic: &str,
+    factor: &str,
+    period_kind: &str,
+    last: usize,
+) -> Result<Vec<HistoryPoint>> {
     let run_cols = qualified("r", RUN_COLUMNS);
     let test_cols = qualified("t", TEST_COLUMNS);
     let sql = format!(
@@ -374,8 +464,11 @@ pub(super) fn history(
     )?;
     points.reverse();
     for p in &mut points {
-        p.complete_versions =
-            complete_versions(conn, &p.run.header.period_kind, &p.run.header.period_label)?;
+        p.complete_versions = complete_versions(
+            conn,
+            p.run.header.period_kind.as_str(),
+            &p.run.header.period_label,
+        )?;
     }
     Ok(points)
 }
@@ -408,17 +501,19 @@ pub(super) fn flagged_tests(
     period_kind: &str,
     period_label: &str,
 ) -> Result<Option<Vec<(String, String)>>> {
-    let Some(run) = latest_complete_run(conn, period_kind, period_label)? else {
-        return Ok(None);
-    };
-    let rows = sqlite_rows(
-        conn,
-        "SELECT characteristic, factor FROM run_result
-         WHERE run_id = ?1 AND state IN ('differs_material', 'differs') ORDER BY test_idx",
-        [run.run_id],
-        |r| Ok((r.text(0)?, r.text(1)?)),
-    )?;
-    Ok(Some(rows))
+    in_read_transaction(conn, |conn| {
+        let Some(run) = latest_complete_run(conn, period_kind, period_label)? else {
+            return Ok(None);
+        };
+        let rows = sqlite_rows(
+            conn,
+            "SELECT characteristic, factor FROM run_result
+             WHERE run_id = ?1 AND state IN ('differs_material', 'differs') ORDER BY test_idx",
+            [run.run_id],
+            |r| Ok((r.text(0)?, r.text(1)?)),
+        )?;
+        Ok(Some(rows))
+    })
 }
 
 /// The earliest measurement instant in the store (ms since the epoch), `None` when empty.
@@ -541,37 +636,76 @@ pub(super) fn release_lease(conn: &Connection, key: &LeaseKey, holder: &str) -> 
 }
 
 /// The run history and its leases, as the rest of samewise sees them: what a second backend
-/// implements. Times are milliseconds since the Unix epoch, UTC. The lifecycle these serve is in
-/// `schedule::lifecycle` (one for `check` and the scheduler alike).
+/// implements. The lifecycle these serve is in `schedule::lifecycle` (one for `check` and the
+/// scheduler alike); the module documentation above describes a run's states.
+///
+/// Contract common to every method:
+/// - Times are integer milliseconds since the Unix epoch, UTC. A period is named by its kind
+///   (`shift`, `day`, `week`, `month`, `range`) and label; a run by its id, which increases
+///   with every run begun.
+/// - Every write is atomic: it is committed whole or not at all, and a failed call leaves the
+///   store as it was. A method that reads several tables reads them in one consistent
+///   snapshot, so a write committed by another process meanwhile is seen whole or not at all.
+/// - Readers of results only ever see `complete` runs; a `running` or `failed` run has no
+///   results to read.
+/// - Errors: `Error::Storage` for the backend's own failures (a busy database among them), and
+///   `Error::Database` for stored data that breaks these rules; an unknown period or run is
+///   not an error for the readers below (they return `None` or an empty list).
 pub trait RunStore {
-    /// Commits a `running` row with the next version of its period.
+    /// Begins a run of the period in `header`: commits a row with status `running`, the next
+    /// version number of its period (1 for the first run, one more than the highest version of
+    /// any status otherwise), `started_ms`, and the highest import id at this moment (which
+    /// later tells whether the period went stale). Returns the row as stored. Two runs of one
+    /// period begun at once get different versions; callers keep them apart with the period's
+    /// lease.
     fn begin_run(&mut self, header: &RunHeader, started_ms: i64) -> Result<StoredRun>;
-    /// Writes every result of the run and marks it `complete`, all or nothing; fails when the
-    /// run is no longer `running`.
+    /// Writes every result of the run (each test with its groups and pairs, in test order) and
+    /// marks the run `complete` with `finished_ms`, the number of tests and of flagged tests,
+    /// all in one transaction. Fails with `Error::Database`, writing nothing, when the run is
+    /// no longer `running` (a recovery marked it abandoned meanwhile).
     fn complete_run(&mut self, run_id: i64, finished_ms: i64, content: &RunContent) -> Result<()>;
-    /// Marks a running run `failed`, keeping the error text.
+    /// Marks the run `failed` with `finished_ms` and the error text, which is kept for the
+    /// history. Only a `running` run changes; for any other run (or an unknown id) this does
+    /// nothing and is not an error. No result of the run is written.
     fn fail_run(&self, run_id: i64, finished_ms: i64, error: &str) -> Result<()>;
-    /// Marks `failed` every running run whose lease is gone or expired; returns how many.
+    /// Marks `failed` (with an "abandoned: ..." error) every `running` run whose lease (its
+    /// schedule, or none for a run by hand, and its period) is missing or expired at `now_ms`,
+    /// in one statement; returns how many runs changed. A run whose holder still holds a live
+    /// lease is left alone.
     fn recover_abandoned(&self, now_ms: i64) -> Result<usize>;
-    /// Marks `failed` the running runs of the lease's period (the caller holds its lease).
+    /// Marks `failed` ("abandoned: ...") the `running` runs of the schedule and period of
+    /// `key`; returns how many changed. The caller holds that lease, so no other process can
+    /// be running them: they were left by a process that stopped.
     fn abandon_running(&self, key: &LeaseKey, now_ms: i64) -> Result<usize>;
-    /// Complete versions of a period's run.
+    /// How many `complete` versions the period's run has (0 when none): more than one means
+    /// the period was checked again and its results are shown as revised.
     fn complete_versions(&self, period_kind: &str, period_label: &str) -> Result<i64>;
-    /// The highest complete version of a period's run.
+    /// The `complete` run of the period with the highest version, or `None` when the period
+    /// has none (running and failed versions are never returned).
     fn latest_complete_run(
         &self,
         period_kind: &str,
         period_label: &str,
     ) -> Result<Option<StoredRun>>;
-    /// Every run of a period, oldest version first.
+    /// Every run of the period, of any status, in version order (oldest first); empty when the
+    /// period was never run.
     fn runs_of_period(&self, period_kind: &str, period_label: &str) -> Result<Vec<StoredRun>>;
-    /// Every run.
+    /// Every run of every period, of any status, in the order they were begun (run id order).
     fn all_runs(&self) -> Result<Vec<StoredRun>>;
-    /// Labels of the periods of a kind (and schedule) that are done: complete and not stale.
+    /// The labels of the periods of `period_kind` run by `schedule` (`None`: by hand) that are
+    /// done, in label order: a `complete` run exists, and no import that stored measurements
+    /// inside the period, and no undo of one, came after its latest complete run began. A
+    /// period not listed is due (again).
     fn completed_labels(&self, schedule: Option<&str>, period_kind: &str) -> Result<Vec<String>>;
-    /// The full content of a run.
+    /// The full content of a run: its tests in test order, each with its groups (in group
+    /// order) and pairs (in the order written), read in one snapshot. A run without results
+    /// (running, failed, or an unknown id) gives an empty content. A stored group or pair of a
+    /// test the run does not hold is an `Error::Database` naming the run, never dropped.
     fn run_content(&self, run_id: i64) -> Result<RunContent>;
-    /// The latest complete result of a characteristic x factor over the last `last` periods.
+    /// The result of `characteristic` x `factor` in the latest complete run of each of the
+    /// last `last` periods of `period_kind` that hold it, oldest period first (by period
+    /// start), each with its run and the number of complete versions of its period; the
+    /// results come without groups and pairs. Empty when no run holds the test.
     fn history(
         &self,
         characteristic: &str,
@@ -579,20 +713,26 @@ pub trait RunStore {
         period_kind: &str,
         last: usize,
     ) -> Result<Vec<HistoryPoint>>;
-    /// The latest complete runs of the periods of a kind starting in `[start_ms, end_ms)`.
+    /// The latest complete run of every period of `period_kind` whose start lies in
+    /// `[start_ms, end_ms)`, in time order (ties by label); periods without a complete run are
+    /// left out. The month report and the charts read these.
     fn latest_complete_runs_between(
         &self,
         period_kind: &str,
         start_ms: i64,
         end_ms: i64,
     ) -> Result<Vec<StoredRun>>;
-    /// Flagged (characteristic, factor) pairs of a period's latest complete run.
+    /// The (characteristic, factor) pairs flagged (states `differs_material` and `differs`) in
+    /// the period's latest complete run, in test order; `None` when the period has no complete
+    /// run, an empty list when it has one without flags.
     fn flagged_tests(
         &self,
         period_kind: &str,
         period_label: &str,
     ) -> Result<Option<Vec<(String, String)>>>;
-    /// The latest complete run of a period with its content. Reads only.
+    /// The latest complete run of the period with its content ([`RunStore::run_content`]),
+    /// `None` when the period has no complete run. Reads only. The default reads the two one
+    /// after the other; a backend should read both in one snapshot (the SQLite one does).
     fn latest_run(
         &self,
         period_kind: &str,
@@ -604,17 +744,25 @@ pub trait RunStore {
         let content = self.run_content(run.run_id)?;
         Ok(Some((run, content)))
     }
-    /// The earliest measurement instant, `None` when there is none.
+    /// The earliest measurement instant in the store, `None` when it holds no measurement
+    /// (where a schedule's periods start).
     fn first_measurement_ms(&self) -> Result<Option<i64>>;
-    /// Leases taken and not released.
+    /// How many leases exist (taken and not released, expired ones included).
     fn lease_count(&self) -> Result<usize>;
-    /// Takes a free or expired lease; `false` when someone else holds it.
+    /// Takes the lease of `key` for `holder` until `now_ms + ttl_ms`, atomically: succeeds
+    /// when no lease exists, when the existing one expired at or before `now_ms`, or when
+    /// `holder` holds it already (then it is renewed). Returns whether `holder` holds it now;
+    /// `false` when another holder's lease is still live (nothing changes then).
     fn take_lease(&self, key: &LeaseKey, holder: &str, now_ms: i64, ttl_ms: i64) -> Result<bool>;
-    /// Renews a lease this holder still holds; `false` when it lost it.
+    /// Extends the lease of `key` to `now_ms + ttl_ms` if `holder` still holds it; returns
+    /// `false` (changing nothing) when it does not, e.g. after another process took the
+    /// expired lease over.
     fn heartbeat(&self, key: &LeaseKey, holder: &str, now_ms: i64, ttl_ms: i64) -> Result<bool>;
-    /// The holder of a lease, if any.
+    /// The holder of the lease of `key`, expired or not; `None` when there is no lease.
     fn lease_holder(&self, key: &LeaseKey) -> Result<Option<String>>;
-    /// Takes over a lease from `old` (whose process is known to be gone).
+    /// Takes the lease of `key` over from `old` (whose process is known to be gone) for
+    /// `holder` until `now_ms + ttl_ms`, atomically: only while `old` still holds it. Returns
+    /// whether it was taken; `false` when someone else took it first.
     fn take_over_lease(
         &self,
         key: &LeaseKey,
@@ -623,7 +771,8 @@ pub trait RunStore {
         now_ms: i64,
         ttl_ms: i64,
     ) -> Result<bool>;
-    /// Releases a lease this holder holds.
+    /// Releases the lease of `key` if `holder` holds it; does nothing (and is not an error)
+    /// when another holder, or nobody, holds it.
     fn release_lease(&self, key: &LeaseKey, holder: &str) -> Result<()>;
 }
 
@@ -664,6 +813,13 @@ impl RunStore for crate::storage::Store {
     }
     fn run_content(&self, run_id: i64) -> Result<RunContent> {
         run_content(&self.conn, run_id)
+    }
+    fn latest_run(
+        &self,
+        period_kind: &str,
+        period_label: &str,
+    ) -> Result<Option<(StoredRun, RunContent)>> {
+        latest_run(&self.conn, period_kind, period_label)
     }
     fn history(
         &self,
@@ -736,14 +892,14 @@ mod tests {
 
     fn header(label: &str) -> RunHeader {
         RunHeader {
-            period_kind: "day".into(),
+            period_kind: PeriodKind::Day,
             period_label: label.into(),
             period_start_ms: 1000,
             period_end_ms: 2000,
             schedule: Some("daily".into()),
             config_hash: "abc".into(),
             tool_version: "0.1.0".into(),
-            fdr_method: "bh".into(),
+            fdr_method: FdrMethod::BenjaminiHochberg,
             fdr_level: 0.05,
         }
     }
@@ -832,7 +988,7 @@ mod tests {
             .unwrap()
             .is_none());
         let all = all_runs(&c).unwrap();
-        assert_eq!(all[0].status, "failed");
+        assert_eq!(all[0].status, RunStatus::Failed);
         assert_eq!(all[0].error.as_deref(), Some("database is locked"));
         // A failed run cannot be completed afterwards, and nothing is written.
         assert!(complete_run(&mut c, r.run_id, 12, &content(TestState::Differs)).is_err());
@@ -876,7 +1032,7 @@ mod tests {
         // Lease expired: recovered.
         assert_eq!(recover_abandoned(&c, 1200).unwrap(), 1);
         let all = all_runs(&c).unwrap();
-        assert_eq!(all[0].status, "failed");
+        assert_eq!(all[0].status, RunStatus::Failed);
         assert!(all[0].error.as_deref().unwrap().starts_with("abandoned"));
         // The slow original process cannot write afterwards.
         assert!(complete_run(&mut c, r.run_id, 1300, &content(TestState::Differs)).is_err());

@@ -111,7 +111,7 @@ pub fn invented_plant(dir: &Path, days: i64) -> PathBuf {
     let csv_path = dir.join("measurements.csv");
     std::fs::write(&csv_path, csv).unwrap();
     let config = samewise::config::Config::load(&config_path).unwrap();
-    let mut store = samewise::storage::Store::create(&config.plant.database, &config).unwrap();
+    let mut store = samewise::storage::create(&config).unwrap();
     let stream = samewise::ingest::read_file(&csv_path, &config, None).unwrap();
     store
         .import(
@@ -123,6 +123,15 @@ pub fn invented_plant(dir: &Path, days: i64) -> PathBuf {
         )
         .unwrap();
     config_path
+}
+
+/// Opens the database `file` of the plant in `dir` (configured by `dir/plant.toml`) through
+/// `storage::open`, as every command opens it; `file` may be another database than the
+/// configured one (a backup copy).
+pub fn open_store(dir: &Path, file: &str) -> Box<dyn samewise::storage::PlantStore> {
+    let mut config = samewise::config::Config::load(dir.join("plant.toml")).unwrap();
+    config.plant.database = dir.join(file);
+    samewise::storage::open(&config).unwrap()
 }
 
 /// Runs the binary in `dir` with `args` (the caller's `SAMEWISE_CONFIG` removed, so only the

@@ -150,7 +150,7 @@ impl RunStore for PgStore {
         let mut client = self.conn();
         let mut tx = client.transaction()?;
         bound_lock_waits(&mut tx)?;
-        let (kind, label) = (&header.period_kind, &header.period_label);
+        let (kind, label) = (header.period_kind.as_str(), &header.period_label);
         tx.execute(
             &format!("SELECT pg_advisory_xact_lock({IMPORT_FENCE})"),
             &[],
@@ -161,7 +161,7 @@ impl RunStore for PgStore {
             .query_one(
                 "SELECT COALESCE(MAX(version), 0) + 1 FROM run \
                  WHERE period_kind = $1 AND period_label = $2",
-                &[kind, label],
+                &[&kind, label],
             )?
             .get(0);
         let values = new_run_values(header, version, started_ms);
@@ -316,7 +316,13 @@ impl RunStore for PgStore {
     }
 
     fn run_content(&self, run_id: i64) -> Result<RunContent> {
-        let mut client = self.conn();
+        let mut conn = self.conn();
+        // One snapshot: a run completed meanwhile is read whole or not at all.
+        let mut client = conn
+            .build_transaction()
+            .isolation_level(postgres::IsolationLevel::RepeatableRead)
+            .read_only(true)
+            .start()?;
         let mut tests = client
             .query(
                 &format!(
@@ -350,6 +356,7 @@ impl RunStore for PgStore {
             .map(|r| Ok((r.small(0)?, pair_from(r, 1)?)))
             .collect::<Result<Vec<_>>>()?;
         attach_groups_and_pairs(run_id, &mut tests, groups, pairs)?;
+        client.commit()?;
         Ok(RunContent { tests })
     }
 
@@ -389,7 +396,7 @@ impl RunStore for PgStore {
         for p in &mut points {
             p.complete_versions = complete_versions(
                 &mut *client,
-                &p.run.header.period_kind,
+                p.run.header.period_kind.as_str(),
                 &p.run.header.period_label,
             )?;
         }
