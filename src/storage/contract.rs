@@ -1225,22 +1225,22 @@ fn events_contract(store: &mut dyn Events) {
     );
     assert_eq!(
         err(store.add_event(&new_event(1, "x", Some("bor"), &[]), at(0))),
-        "unknown characteristic \"bor\" (did you mean \"bore\"?)"
+        "unknown characteristic \"bor\" (did you mean \"bore\"?); known in the database: bore, \
+         flatness"
     );
     assert_eq!(
         err(store.add_event(&new_event(1, "x", None, &[("machin", "M1")]), at(0))),
-        "unknown factor \"machin\" (did you mean \"machine\"?); the factors are: machine, \
+        "unknown factor \"machin\" (did you mean \"machine\"?); known in the database: machine, \
          shift, cavity"
     );
     assert_eq!(
         err(store.add_event(&new_event(1, "x", None, &[("machine", "M3")]), at(0))),
-        "unknown level \"M3\" of factor \"machine\" (did you mean \"M1\", \"M2\" or \"M4\"?) \
-         (3 levels stored; `samewise status` lists the data)"
+        "unknown level \"M3\" of factor \"machine\" (did you mean \"M1\", \"M2\" or \"M4\"?); \
+         known in the database: M1, M2, M4"
     );
     assert_eq!(
         err(store.add_event(&new_event(1, "x", None, &[("cavity", "7")]), at(0))),
-        "unknown level \"7\" of factor \"cavity\": no measurement with a cavity level is \
-         stored yet (import the data first)"
+        "unknown level \"7\" of factor \"cavity\"; none is known in the database"
     );
     assert_eq!(
         err(store.add_event(

@@ -175,7 +175,7 @@ const ORIGIN_SAMPLE: usize = 31;
 /// One accepted measurement on its way to the writer. `characteristic` and `level_set` are the
 /// reading thread's indices until the writer replaces them with database ids.
 #[derive(Debug, Clone, Copy)]
-pub(crate) struct Row {
+pub(crate) struct ImportRow {
     pub(crate) characteristic: i64,
     pub(crate) ts_ms: i64,
     pub(crate) line: i64,
@@ -187,7 +187,7 @@ pub(crate) struct Row {
     subgroup: u32,
 }
 
-/// `Row::part` of a measurement without a part id.
+/// `ImportRow::part` of a measurement without a part id.
 const NO_PART: u32 = u32::MAX;
 
 /// What the reading thread hands to the writer: rows and rejections in file order, plus the
@@ -197,7 +197,7 @@ const NO_PART: u32 = u32::MAX;
 struct Batch {
     new_characteristics: Vec<String>,
     new_level_sets: Vec<Vec<String>>,
-    rows: Vec<Row>,
+    rows: Vec<ImportRow>,
     rejections: Vec<Rejection>,
     /// Part ids of the batch's rows (layouts with a part column).
     parts: Vec<String>,
@@ -216,7 +216,7 @@ impl Batch {
     }
 }
 
-/// The reading thread's side of an import: turns each outcome into a compact [`Row`] (names
+/// The reading thread's side of an import: turns each outcome into a compact [`ImportRow`] (names
 /// interned to indices, value to its offset from the characteristic's origin) so the writer does
 /// nothing per row but bind and step. It reads the names borrowed from the line
 /// ([`MeasurementRef`]): a string is copied only the first time it is seen.
@@ -367,7 +367,7 @@ impl Interner {
             }
             None => NO_PART,
         };
-        batch.rows.push(Row {
+        batch.rows.push(ImportRow {
             characteristic: idx as i64,
             ts_ms: ms(m.ts),
             line: m.line as i64,
@@ -413,7 +413,7 @@ impl Interner {
 ///
 /// A counting sort by characteristic, then a sort of each characteristic's run only where the
 /// file was not in time order already.
-fn sort_rows(rows: &mut Vec<Row>) {
+fn sort_rows(rows: &mut Vec<ImportRow>) {
     let n_characteristics = rows
         .iter()
         .map(|r| r.characteristic)
@@ -428,7 +428,7 @@ fn sort_rows(rows: &mut Vec<Row>) {
     }
     let mut next = starts.clone();
     let mut sorted = vec![
-        Row {
+        ImportRow {
             characteristic: 0,
             ts_ms: 0,
             line: 0,
@@ -550,7 +550,7 @@ impl IdentityLookup {
     fn stored_value(
         &mut self,
         w: &mut impl ImportWriter,
-        row: &Row,
+        row: &ImportRow,
         part: Option<&str>,
     ) -> Result<Option<f64>> {
         if self.part && part.is_none() {
@@ -738,7 +738,7 @@ pub(crate) trait ImportWriter: LevelSetStore {
     fn write_measurement(
         &mut self,
         import_id: i64,
-        row: &Row,
+        row: &ImportRow,
         part: Option<&str>,
         subgroup: Option<&str>,
         visible: bool,
@@ -1213,7 +1213,7 @@ impl ImportWriter for SqliteImport<'_> {
     fn write_measurement(
         &mut self,
         import_id: i64,
-        row: &Row,
+        row: &ImportRow,
         part: Option<&str>,
         subgroup: Option<&str>,
         _visible: bool,
@@ -1366,13 +1366,13 @@ impl ImportStore for Store {
 
 #[cfg(test)]
 mod tests {
-    use super::{reason_kind, sort_rows, Row};
+    use super::{reason_kind, sort_rows, ImportRow};
 
     #[test]
     fn batches_go_in_key_order_and_keep_every_row() {
         // Interleaved characteristics, one of them out of time order (a later line with an
         // earlier instant).
-        let row = |characteristic, ts_ms, line| Row {
+        let row = |characteristic, ts_ms, line| ImportRow {
             characteristic,
             ts_ms,
             line,

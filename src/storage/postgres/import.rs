@@ -21,8 +21,8 @@ use super::master::{load_characteristics, load_factors};
 use super::PgStore;
 use crate::ingest::{ImportStream, Rejection};
 use crate::storage::import::{
-    drive_import, BoxedStream, Candidates, FinishedImport, ImportOptions, ImportReport,
-    ImportStore, ImportWriter, PriorImport, RejectionSink, Row,
+    drive_import, BoxedStream, Candidates, FinishedImport, ImportOptions, ImportReport, ImportRow,
+    ImportStore, ImportWriter, PriorImport, RejectionSink,
 };
 use crate::storage::imports::{undo_refusal, ImportRecord, UndoRefusal, UndoReport};
 use crate::storage::maintenance::from_ms;
@@ -213,7 +213,7 @@ impl ImportWriter for PgImport<'_, '_> {
     fn write_measurement(
         &mut self,
         import_id: i64,
-        row: &Row,
+        row: &ImportRow,
         part: Option<&str>,
         subgroup: Option<&str>,
         visible: bool,
@@ -795,6 +795,86 @@ identity = ["characteristic", "part"]
             pg.load_period(t0, t1, None).unwrap()
         );
         assert!(pg.integrity_check().unwrap().is_ok());
+        std::fs::remove_dir_all(&dir).ok();
+    }
+
+    /// Two sites import at once, each into its own schema, without waiting for each other;
+    /// two imports into one site go one after the other, and both land whole.
+    #[test]
+    fn sites_import_side_by_side_and_one_site_one_at_a_time() {
+        let (Some(mut north), Some(mut south)) = (testing::store(), testing::store()) else {
+            return;
+        };
+        let dir = std::env::temp_dir().join(format!("samewise-pg-sites-{}", std::process::id()));
+        std::fs::create_dir_all(&dir).unwrap();
+        let config = Config::from_toml_str(CONFIG, dir.join("plant.toml")).unwrap();
+        MaintenanceStore::sync_config(&mut *north, &config).unwrap();
+        MaintenanceStore::sync_config(&mut *south, &config).unwrap();
+        // 5,000 measurements a second apart from `hour` on.
+        let file = |name: &str, hour: u32| {
+            let mut text = String::from("timestamp,characteristic,value,machine\n");
+            for i in 0..5000u32 {
+                text.push_str(&format!(
+                    "2026-11-30T{:02}:{:02}:{:02}Z,bore_diameter,42.00{},M{}\n",
+                    hour + i / 3600,
+                    i / 60 % 60,
+                    i % 60,
+                    i % 10,
+                    1 + i % 3
+                ));
+            }
+            write(&dir, name, &text)
+        };
+        let (a, b, c) = (file("a.csv", 4), file("b.csv", 10), file("c.csv", 16));
+        // A third connection to the north site, for its second import.
+        let mut north2 = PgStore::open(north.target()).unwrap();
+        // While north's first import holds its site's write lock (its transaction is open),
+        // south imports: it must not wait for north.
+        let barrier = std::sync::Barrier::new(2);
+        let done = std::sync::atomic::AtomicBool::new(false);
+        let north_holder = PgStore::open(north.target()).unwrap();
+        let (barrier, done) = (&barrier, &done);
+        let south_waited = std::thread::scope(|scope| {
+            let holder = scope.spawn(move || {
+                let mut conn = north_holder.conn();
+                let mut tx = conn.transaction().unwrap();
+                lock_site_writes(&mut tx).unwrap();
+                barrier.wait();
+                // Hold the lock until south has finished; had south waited for it, this gives
+                // up after 20 s and says so.
+                let mut finished_meanwhile = false;
+                for _ in 0..200 {
+                    if done.load(std::sync::atomic::Ordering::SeqCst) {
+                        finished_meanwhile = true;
+                        break;
+                    }
+                    std::thread::sleep(std::time::Duration::from_millis(100));
+                }
+                tx.commit().unwrap();
+                !finished_meanwhile
+            });
+            barrier.wait();
+            let report = import(&mut *south, &config, &b, "plain").unwrap();
+            done.store(true, std::sync::atomic::Ordering::SeqCst);
+            assert_eq!(report.accepted, 5000);
+            holder.join().unwrap()
+        });
+        assert!(
+            !south_waited,
+            "the south site's import waited for the north site's lock"
+        );
+        // One site: two imports at once from two connections, each whole, one after the other.
+        std::thread::scope(|scope| {
+            let t = scope.spawn(|| import(&mut north2, &config, &c, "plain").unwrap());
+            let first = import(&mut *north, &config, &a, "plain").unwrap();
+            let second = t.join().unwrap();
+            assert_eq!((first.accepted, second.accepted), (5000, 5000));
+        });
+        let records = north.import_records().unwrap();
+        assert_eq!(records.len(), 2);
+        assert!(records.iter().all(|r| r.stored == 5000));
+        assert!(north.integrity_check().unwrap().is_ok());
+        assert_eq!(south.import_records().unwrap().len(), 1);
         std::fs::remove_dir_all(&dir).ok();
     }
 }
