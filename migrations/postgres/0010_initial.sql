@@ -89,13 +89,18 @@ CREATE INDEX rejected_rows_import ON rejected_rows (import_id, line);
 
 -- Clustered by PostgreSQL's heap order only loosely; the primary key index is the analysis
 -- query's access path (a characteristic's period is one index range).
+-- Its three references (characteristic, import, level set) are not declared as foreign keys,
+-- as SQLite's import does not enforce them either: every id an import writes is one it has just
+-- read or created in the same transaction, and the three checks per row would cost most of an
+-- import's time (measured: 2,000,000 rows in 33 s with them, 9 s without; docs/performance.md).
+-- `samewise db check` verifies them.
 CREATE TABLE measurements (
-    characteristic_id BIGINT NOT NULL REFERENCES characteristics (id),
+    characteristic_id BIGINT NOT NULL,
     ts_ms             BIGINT NOT NULL,
-    import_id         BIGINT NOT NULL REFERENCES imports (id),
+    import_id         BIGINT NOT NULL,
     line              BIGINT NOT NULL,
     value             DOUBLE PRECISION NOT NULL,
-    level_set_id      BIGINT NOT NULL REFERENCES level_sets (id),
+    level_set_id      BIGINT NOT NULL,
     part              TEXT,
     subgroup          TEXT,
     PRIMARY KEY (characteristic_id, ts_ms, import_id, line)

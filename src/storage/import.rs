@@ -884,9 +884,7 @@ pub(crate) fn drive_import<R: Read + Send, W: ImportWriter>(
                     characteristic_ids.push(w.insert_characteristic(&name)?);
                     new_characteristics.push(name);
                 }
-                for names in &batch.new_level_sets {
-                    level_set_ids.push(level_sets.id_for(w, names)?);
-                }
+                level_set_ids.extend(level_sets.ids_for(w, &batch.new_level_sets)?);
                 for row in &mut batch.rows {
                     row.characteristic = characteristic_ids[row.characteristic as usize];
                     row.level_set = level_set_ids[row.level_set as usize];

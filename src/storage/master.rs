@@ -512,48 +512,76 @@ impl LevelSetWriter {
         &self.factor_ids
     }
 
-    /// The level set id of a combination of levels (in configuration order), creating it if new.
-    /// The caller asks once per distinct combination (the import interns them), so nothing is
-    /// cached here: a second call with the same names in one import could create it twice.
-    pub(crate) fn id_for(&mut self, w: &mut impl LevelSetStore, names: &[String]) -> Result<i64> {
-        if names.len() != self.factor_ids.len() {
-            return Err(Error::Database(format!(
-                "a measurement has {} factor levels but the database has {} configured factors; \
-                 run `samewise init` to bring the database in step with the configuration",
-                names.len(),
-                self.factor_ids.len()
-            )));
-        }
-        let mut members: Vec<(i64, i64)> = Vec::with_capacity(names.len());
-        for (f, name) in names.iter().enumerate() {
-            let level_id = match self.levels[f].get(name) {
-                Some(&id) => id,
-                None => {
-                    let id = w.insert_level(self.factor_ids[f], name)?;
-                    self.levels[f].insert(name.clone(), id);
-                    self.new_levels.insert(id);
-                    id
-                }
-            };
-            members.push((self.factor_ids[f], level_id));
-        }
-        members.sort_unstable();
-        let key = level_set_key(&members);
-        let may_exist = self.had_sets && !members.iter().any(|(_, l)| self.new_levels.contains(l));
-        let existing = if may_exist {
-            w.find_level_set(&key)?
-        } else {
-            None
-        };
-        match existing {
-            Some(id) => Ok(id),
-            None => {
-                self.created += 1;
-                w.insert_level_set(&key, &members)
+    /// The level set ids of combinations of levels (each in configuration order), creating the
+    /// new ones: their levels first, then one look-up of the keys that may exist and one insert
+    /// of the rest (a backend may do each as one statement). The caller asks once per distinct
+    /// combination (the import interns them), so nothing is cached here.
+    pub(crate) fn ids_for(
+        &mut self,
+        w: &mut impl LevelSetStore,
+        combinations: &[Vec<String>],
+    ) -> Result<Vec<i64>> {
+        let mut keyed: Vec<KeyedSet> = Vec::with_capacity(combinations.len());
+        for names in combinations {
+            if names.len() != self.factor_ids.len() {
+                return Err(Error::Database(format!(
+                    "a measurement has {} factor levels but the database has {} configured \
+                     factors; run `samewise init` to bring the database in step with the \
+                     configuration",
+                    names.len(),
+                    self.factor_ids.len()
+                )));
             }
+            let mut members: Vec<(i64, i64)> = Vec::with_capacity(names.len());
+            for (f, name) in names.iter().enumerate() {
+                let level_id = match self.levels[f].get(name) {
+                    Some(&id) => id,
+                    None => {
+                        let id = w.insert_level(self.factor_ids[f], name)?;
+                        self.levels[f].insert(name.clone(), id);
+                        self.new_levels.insert(id);
+                        id
+                    }
+                };
+                members.push((self.factor_ids[f], level_id));
+            }
+            members.sort_unstable();
+            let may_exist =
+                self.had_sets && !members.iter().any(|(_, l)| self.new_levels.contains(l));
+            keyed.push((level_set_key(&members), members, may_exist));
         }
+        let to_find: Vec<&str> = keyed
+            .iter()
+            .filter(|(_, _, may)| *may)
+            .map(|(k, _, _)| k.as_str())
+            .collect();
+        let found = if to_find.is_empty() {
+            HashMap::new()
+        } else {
+            w.find_level_sets(&to_find)?
+        };
+        let to_insert: Vec<(&str, &[(i64, i64)])> = keyed
+            .iter()
+            .filter(|(k, _, _)| !found.contains_key(k))
+            .map(|(k, m, _)| (k.as_str(), m.as_slice()))
+            .collect();
+        self.created += to_insert.len() as u64;
+        let inserted = w.insert_level_sets(&to_insert)?;
+        let mut inserted = inserted.into_iter();
+        keyed
+            .iter()
+            .map(|(k, _, _)| match found.get(k) {
+                Some(&id) => Ok(id),
+                None => inserted
+                    .next()
+                    .ok_or_else(|| Error::Database("a new level set was not stored".to_string())),
+            })
+            .collect()
     }
 }
+
+/// A combination's key, its (factor id, level id) members, and whether it may be stored already.
+type KeyedSet = (String, Vec<(i64, i64)>, bool);
 
 /// What [`LevelSetWriter`] reads and writes, inside an import's transaction (each backend's
 /// import writer implements it).
@@ -570,6 +598,24 @@ pub(crate) trait LevelSetStore {
     fn find_level_set(&mut self, key: &str) -> Result<Option<i64>>;
     /// Stores a new level set with its (factor id, level id) members; its id.
     fn insert_level_set(&mut self, key: &str, members: &[(i64, i64)]) -> Result<i64>;
+    /// The stored level sets among these keys: key -> id (one look-up per key unless a backend
+    /// does them at once).
+    fn find_level_sets(&mut self, keys: &[&str]) -> Result<HashMap<String, i64>> {
+        let mut out = HashMap::new();
+        for key in keys {
+            if let Some(id) = self.find_level_set(key)? {
+                out.insert(key.to_string(), id);
+            }
+        }
+        Ok(out)
+    }
+    /// Stores new level sets (key and members each); their ids, in order (one insert per set
+    /// unless a backend does them at once).
+    fn insert_level_sets(&mut self, sets: &[(&str, &[(i64, i64)])]) -> Result<Vec<i64>> {
+        sets.iter()
+            .map(|(key, members)| self.insert_level_set(key, members))
+            .collect()
+    }
 }
 
 /// The `level_sets.key` of a combination: member level ids in factor-id order, comma-separated.

@@ -8,6 +8,7 @@
 //! export, or rows identified by their part id) are inserted at once instead, so the look-up
 //! sees them. Readers see the import whole or not at all (MVCC).
 
+use std::collections::HashMap;
 use std::io::Read;
 use std::path::Path;
 use std::time::Instant;
@@ -134,6 +135,54 @@ impl LevelSetStore for PgImport<'_, '_> {
             &[&id, &factors, &levels],
         )?;
         Ok(id)
+    }
+    fn find_level_sets(&mut self, keys: &[&str]) -> Result<HashMap<String, i64>> {
+        Ok(self
+            .tx
+            .query(
+                "SELECT key, id FROM level_sets WHERE key = ANY($1)",
+                &[&keys],
+            )?
+            .iter()
+            .map(|r| (r.get(0), r.get(1)))
+            .collect())
+    }
+    /// All the sets in two statements: the keys (ids returned by key), then every member.
+    fn insert_level_sets(&mut self, sets: &[(&str, &[(i64, i64)])]) -> Result<Vec<i64>> {
+        if sets.is_empty() {
+            return Ok(Vec::new());
+        }
+        let keys: Vec<&str> = sets.iter().map(|(k, _)| *k).collect();
+        let ids: HashMap<String, i64> = self
+            .tx
+            .query(
+                "INSERT INTO level_sets (key) SELECT unnest($1::text[]) RETURNING key, id",
+                &[&keys],
+            )?
+            .iter()
+            .map(|r| (r.get(0), r.get(1)))
+            .collect();
+        let mut set_ids = Vec::new();
+        let mut factors = Vec::new();
+        let mut levels = Vec::new();
+        let mut out = Vec::with_capacity(sets.len());
+        for (key, members) in sets {
+            let id = *ids
+                .get(*key)
+                .ok_or_else(|| crate::Error::Database(format!("level set {key} was not stored")))?;
+            out.push(id);
+            for (f, l) in members.iter() {
+                set_ids.push(id);
+                factors.push(*f);
+                levels.push(*l);
+            }
+        }
+        self.tx.execute(
+            "INSERT INTO level_set_members (level_set_id, factor_id, level_id) \
+             SELECT * FROM unnest($1::bigint[], $2::bigint[], $3::bigint[])",
+            &[&set_ids, &factors, &levels],
+        )?;
+        Ok(out)
     }
 }
 

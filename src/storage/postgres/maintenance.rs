@@ -20,8 +20,10 @@ fn count(c: &mut impl GenericClient, sql: &str) -> Result<u64> {
     Ok(c.query_one(sql, &[])?.get::<_, i64>(0) as u64)
 }
 
-/// References that PostgreSQL enforces as foreign keys, checked again (a constraint dropped or
-/// disabled by hand would let them break): (child table, column, parent table, parent column).
+/// The references between the tables, checked one by one: those of `measurements`, which the
+/// schema does not declare (the import writes only ids it has just read or created), and the
+/// foreign keys PostgreSQL enforces, checked again (a constraint dropped or disabled by hand
+/// would let them break): (child table, column, parent table, parent column).
 const REFERENCES: [(&str, &str, &str, &str); 9] = [
     ("levels", "factor_id", "factors", "id"),
     ("level_set_members", "level_set_id", "level_sets", "id"),
