@@ -1101,28 +1101,40 @@ impl LevelSetStore for SqliteImport<'_> {
             .execute(params![factor_id, name])?;
         Ok(self.conn.last_insert_rowid())
     }
-    fn find_level_set(&mut self, key: &str) -> Result<Option<i64>> {
-        Ok(self
+    /// One look-up per key: SQLite answers it in-process.
+    fn find_level_sets(&mut self, keys: &[&str]) -> Result<HashMap<String, i64>> {
+        let mut find = self
             .conn
-            .prepare_cached("SELECT id FROM level_sets WHERE key = ?1")?
-            .query_row([key], |r| r.get(0))
-            .optional()?)
+            .prepare_cached("SELECT id FROM level_sets WHERE key = ?1")?;
+        let mut out = HashMap::new();
+        for key in keys {
+            if let Some(id) = find.query_row([key], |r| r.get(0)).optional()? {
+                out.insert(key.to_string(), id);
+            }
+        }
+        Ok(out)
     }
-    fn insert_level_set(&mut self, key: &str, members: &[(i64, i64)]) -> Result<i64> {
-        self.conn
-            .prepare_cached("INSERT INTO level_sets (key) VALUES (?1)")?
-            .execute([key])?;
-        let id = self.conn.last_insert_rowid();
-        let mut insert = self.conn.prepare_cached(
+    /// One insert per set and per member, on statements prepared once.
+    fn insert_level_sets(&mut self, sets: &[(&str, &[(i64, i64)])]) -> Result<Vec<i64>> {
+        let mut insert_set = self
+            .conn
+            .prepare_cached("INSERT INTO level_sets (key) VALUES (?1)")?;
+        let mut insert_member = self.conn.prepare_cached(
             "INSERT INTO level_set_members (level_set_id, factor_id, level_id) VALUES (?1, ?2, ?3)",
         )?;
-        insert.raw_bind_parameter(1, id)?;
-        for (factor_id, level_id) in members {
-            insert.raw_bind_parameter(2, factor_id)?;
-            insert.raw_bind_parameter(3, level_id)?;
-            insert.raw_execute()?;
+        let mut ids = Vec::with_capacity(sets.len());
+        for (key, members) in sets {
+            insert_set.execute([key])?;
+            let id = self.conn.last_insert_rowid();
+            insert_member.raw_bind_parameter(1, id)?;
+            for (factor_id, level_id) in members.iter() {
+                insert_member.raw_bind_parameter(2, factor_id)?;
+                insert_member.raw_bind_parameter(3, level_id)?;
+                insert_member.raw_execute()?;
+            }
+            ids.push(id);
         }
-        Ok(id)
+        Ok(ids)
     }
 }
 
@@ -1288,7 +1300,9 @@ pub type BoxedStream<'r> = ImportStream<Box<dyn Read + Send + 'r>>;
 /// - readers never see half an import.
 pub trait ImportStore {
     /// Imports one file (see the contract above).
-    fn import(&mut self, stream: BoxedStream<'_>, options: &ImportOptions) -> Result<ImportReport>;
+    fn import(&mut self, stream: BoxedStream<'_>, options: &ImportOptions) -> Result<ImportReport> {
+        self.import_checking_early(stream, options, None, None)
+    }
     /// [`ImportStore::import`], and unless `options.force` is set, `file` (the file the stream
     /// reads) may be hashed on the side so that a duplicate is refused long before the end of
     /// a large file (rolled back as one found at the end would be). `on_rejection` receives
@@ -1317,9 +1331,6 @@ pub trait ImportStore {
 }
 
 impl ImportStore for Store {
-    fn import(&mut self, stream: BoxedStream<'_>, options: &ImportOptions) -> Result<ImportReport> {
-        self.import_checking_early(stream, options, None, None)
-    }
     fn import_checking_early(
         &mut self,
         stream: BoxedStream<'_>,

@@ -594,28 +594,10 @@ pub(crate) trait LevelSetStore {
     fn has_level_sets(&mut self) -> Result<bool>;
     /// Stores a new level of a factor; its id.
     fn insert_level(&mut self, factor_id: i64, name: &str) -> Result<i64>;
-    /// The level set with this key, if stored.
-    fn find_level_set(&mut self, key: &str) -> Result<Option<i64>>;
-    /// Stores a new level set with its (factor id, level id) members; its id.
-    fn insert_level_set(&mut self, key: &str, members: &[(i64, i64)]) -> Result<i64>;
-    /// The stored level sets among these keys: key -> id (one look-up per key unless a backend
-    /// does them at once).
-    fn find_level_sets(&mut self, keys: &[&str]) -> Result<HashMap<String, i64>> {
-        let mut out = HashMap::new();
-        for key in keys {
-            if let Some(id) = self.find_level_set(key)? {
-                out.insert(key.to_string(), id);
-            }
-        }
-        Ok(out)
-    }
-    /// Stores new level sets (key and members each); their ids, in order (one insert per set
-    /// unless a backend does them at once).
-    fn insert_level_sets(&mut self, sets: &[(&str, &[(i64, i64)])]) -> Result<Vec<i64>> {
-        sets.iter()
-            .map(|(key, members)| self.insert_level_set(key, members))
-            .collect()
-    }
+    /// The stored level sets among these keys: key -> id.
+    fn find_level_sets(&mut self, keys: &[&str]) -> Result<HashMap<String, i64>>;
+    /// Stores new level sets (key and (factor id, level id) members each); their ids, in order.
+    fn insert_level_sets(&mut self, sets: &[(&str, &[(i64, i64)])]) -> Result<Vec<i64>>;
 }
 
 /// The `level_sets.key` of a combination: member level ids in factor-id order, comma-separated.

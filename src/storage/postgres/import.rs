@@ -113,29 +113,6 @@ impl LevelSetStore for PgImport<'_, '_> {
             )?
             .get(0))
     }
-    fn find_level_set(&mut self, key: &str) -> Result<Option<i64>> {
-        Ok(self
-            .tx
-            .query_opt("SELECT id FROM level_sets WHERE key = $1", &[&key])?
-            .map(|r| r.get(0)))
-    }
-    fn insert_level_set(&mut self, key: &str, members: &[(i64, i64)]) -> Result<i64> {
-        let id: i64 = self
-            .tx
-            .query_one(
-                "INSERT INTO level_sets (key) VALUES ($1) RETURNING id",
-                &[&key],
-            )?
-            .get(0);
-        let factors: Vec<i64> = members.iter().map(|m| m.0).collect();
-        let levels: Vec<i64> = members.iter().map(|m| m.1).collect();
-        self.tx.execute(
-            "INSERT INTO level_set_members (level_set_id, factor_id, level_id) \
-             SELECT $1, f, l FROM unnest($2::bigint[], $3::bigint[]) AS m(f, l)",
-            &[&id, &factors, &levels],
-        )?;
-        Ok(id)
-    }
     fn find_level_sets(&mut self, keys: &[&str]) -> Result<HashMap<String, i64>> {
         Ok(self
             .tx
@@ -434,10 +411,6 @@ impl PgStore {
 }
 
 impl ImportStore for PgStore {
-    fn import(&mut self, stream: BoxedStream<'_>, options: &ImportOptions) -> Result<ImportReport> {
-        self.import_pg(stream, options, None, None)
-    }
-
     fn import_checking_early(
         &mut self,
         stream: BoxedStream<'_>,
