@@ -121,6 +121,9 @@ impl Store {
     /// Writes findings in one transaction: a finding with id 0 is inserted (its id is set),
     /// others are updated in place.
     pub fn save_findings(&mut self, findings: &mut [Finding]) -> Result<()> {
+        // The ids of new findings are handed out only once the transaction commits: after a
+        // failure the caller's findings are as they were (a retry inserts them again).
+        let mut ids = Vec::with_capacity(findings.len());
         let tx = self.conn.transaction()?;
         {
             let mut insert = tx.prepare_cached(&format!(
@@ -133,7 +136,7 @@ impl Store {
                 finding_columns_without_id(),
                 placeholders('?', 2, 33)
             ))?;
-            for f in findings.iter_mut() {
+            for f in findings.iter() {
                 let id = {
                     let values = finding_values(f);
                     if f.id == 0 {
@@ -145,10 +148,13 @@ impl Store {
                         f.id
                     }
                 };
-                f.id = id;
+                ids.push(id);
             }
         }
         tx.commit()?;
+        for (f, id) in findings.iter_mut().zip(ids) {
+            f.id = id;
+        }
         Ok(())
     }
 

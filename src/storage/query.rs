@@ -254,7 +254,12 @@ impl<'c> FrameBuilder<'c> {
         }
         self.missing.sort_unstable();
         self.missing.dedup();
-        fetch_level_sets(cache, &self.missing, &mut fetch_sets, &mut read_levels)?;
+        if let Err(e) = fetch_level_sets(cache, &self.missing, &mut fetch_sets, &mut read_levels) {
+            // The sets of the failed chunk were entered before their rows were read: drop the
+            // cache rather than keep entries without members.
+            cache.clear();
+            return Err(e);
+        }
         for &set in &self.missing {
             let start = cache.sets.get(set).expect("fetched above");
             self.frame_levels.resolve(set, start, cache);

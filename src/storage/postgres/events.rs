@@ -32,12 +32,10 @@ impl<C: GenericClient> ScopeNames for PgNames<'_, C> {
         rows.iter().map(|r| Ok((r.int(0)?, r.text(1)?))).collect()
     }
     fn factors(&mut self) -> Result<Vec<(i64, String)>> {
-        let rows = self.0.query(
-            "SELECT id, name FROM factors \
-             ORDER BY is_configured DESC, position, name COLLATE \"C\"",
-            &[],
-        )?;
-        rows.iter().map(|r| Ok((r.int(0)?, r.text(1)?))).collect()
+        Ok(super::master::load_factors(self.0)?
+            .into_iter()
+            .map(|f| (f.id, f.name))
+            .collect())
     }
     fn levels(&mut self, factor_id: i64) -> Result<Vec<String>> {
         let rows = self.0.query(

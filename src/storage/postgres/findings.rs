@@ -78,7 +78,10 @@ impl FindingStore for PgStore {
             finding_columns_without_id(),
             placeholders('$', 2, 33)
         ))?;
-        for f in findings.iter_mut() {
+        // The ids of new findings are handed out only once the transaction commits: after a
+        // failure the caller's findings are as they were (a retry inserts them again).
+        let mut ids = Vec::with_capacity(findings.len());
+        for f in findings.iter() {
             let id = {
                 let values = finding_values(f);
                 if f.id == 0 {
@@ -89,9 +92,12 @@ impl FindingStore for PgStore {
                     f.id
                 }
             };
-            f.id = id;
+            ids.push(id);
         }
         tx.commit()?;
+        for (f, id) in findings.iter_mut().zip(ids) {
+            f.id = id;
+        }
         Ok(())
     }
 

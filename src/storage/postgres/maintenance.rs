@@ -120,9 +120,11 @@ impl MaintenanceStore for PgStore {
             .iter()
             .map(|r| r.get(0))
             .collect();
+        let mut missing: Vec<&str> = Vec::new();
         for (child, _, parent, _) in REFERENCES {
             for t in [child, parent] {
-                if !tables.iter().any(|x| x == t) && !integrity.iter().any(|m| m.contains(t)) {
+                if !tables.iter().any(|x| x == t) && !missing.contains(&t) {
+                    missing.push(t);
                     integrity.push(format!("table {t} is missing"));
                 }
             }

@@ -48,7 +48,7 @@ pub(crate) fn load_characteristics(
 pub(crate) fn load_factors(c: &mut impl GenericClient) -> Result<Vec<StoredFactor>> {
     let rows = c.query(
         "SELECT id, name, is_configured FROM factors \
-         ORDER BY is_configured DESC, position, name",
+         ORDER BY is_configured DESC, position, name COLLATE \"C\"",
         &[],
     )?;
     Ok(rows
