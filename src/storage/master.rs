@@ -477,8 +477,6 @@ pub(crate) struct LevelSetWriter {
     factor_ids: Vec<i64>,
     /// Per configured factor: level name -> level id.
     levels: Vec<HashMap<String, i64>>,
-    /// Level sets created by this import.
-    pub(crate) created: u64,
     /// Whether `level_sets` held any row when loaded: when it did not, every combination not in
     /// `by_names` is new, and the look-up by key can be skipped.
     had_sets: bool,
@@ -501,7 +499,6 @@ impl LevelSetWriter {
         Ok(LevelSetWriter {
             factor_ids: factors.iter().map(|f| f.id).collect(),
             levels,
-            created: 0,
             had_sets: w.has_level_sets()?,
             new_levels: Default::default(),
         })
@@ -565,7 +562,6 @@ impl LevelSetWriter {
             .filter(|(k, _, _)| !found.contains_key(k))
             .map(|(k, m, _)| (k.as_str(), m.as_slice()))
             .collect();
-        self.created += to_insert.len() as u64;
         let inserted = w.insert_level_sets(&to_insert)?;
         let mut inserted = inserted.into_iter();
         keyed

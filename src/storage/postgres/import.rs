@@ -217,11 +217,7 @@ impl ImportWriter for PgImport<'_, '_> {
             Candidates::Part {
                 characteristic,
                 part,
-            } => {
-                // Rows of this batch that wait for the COPY may carry the same part.
-                self.flush()?;
-                self.tx.query(&self.by_part, &[&characteristic, &part])?
-            }
+            } => self.tx.query(&self.by_part, &[&characteristic, &part])?,
         };
         Ok(rows
             .iter()
@@ -402,7 +398,6 @@ impl PgStore {
         };
         let (mut report, early_hash) =
             drive_import(&mut w, stream, options, early_file, on_rejection, |_, _| {})?;
-        w.flush()?;
         tx.commit()?;
         report.elapsed = clock.elapsed();
         report.cpu.early_hash = early_hash;
@@ -885,13 +880,29 @@ identity = ["characteristic", "part"]
             !south_waited,
             "the south site's import waited for the north site's lock"
         );
-        // One site: two imports at once from two connections, each whole, one after the other.
+        // One site: while another connection holds the north site's write lock, an import into
+        // it waits; it goes on, whole, once the lock is released. Then a second import, whole.
+        let holder = PgStore::open(north.target()).unwrap();
+        let mut conn = holder.conn();
+        let mut tx = conn.transaction().unwrap();
+        lock_site_writes(&mut tx).unwrap();
+        let finished = std::sync::atomic::AtomicBool::new(false);
         std::thread::scope(|scope| {
-            let t = scope.spawn(|| import(&mut north2, &config, &c, "plain").unwrap());
-            let first = import(&mut *north, &config, &a, "plain").unwrap();
-            let second = t.join().unwrap();
-            assert_eq!((first.accepted, second.accepted), (5000, 5000));
+            let t = scope.spawn(|| {
+                let report = import(&mut north2, &config, &c, "plain").unwrap();
+                finished.store(true, std::sync::atomic::Ordering::SeqCst);
+                report
+            });
+            std::thread::sleep(std::time::Duration::from_millis(1500));
+            let waited = !finished.load(std::sync::atomic::Ordering::SeqCst);
+            tx.commit().unwrap();
+            let report = t.join().unwrap();
+            assert!(waited, "the import did not wait for the site's write lock");
+            assert_eq!(report.accepted, 5000);
         });
+        drop(conn);
+        let first = import(&mut *north, &config, &a, "plain").unwrap();
+        assert_eq!(first.accepted, 5000);
         let records = north.import_records().unwrap();
         assert_eq!(records.len(), 2);
         assert!(records.iter().all(|r| r.stored == 5000));
