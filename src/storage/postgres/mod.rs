@@ -312,6 +312,10 @@ pub(crate) mod testing {
     /// variable is unset (the test then returns early, saying so on stderr).
     pub(crate) fn store() -> Option<TestStore> {
         let Ok(url) = std::env::var(TEST_SERVER_ENV) else {
+            assert!(
+                std::env::var_os("CI").is_none(),
+                "{TEST_SERVER_ENV} is not set in CI (.ci/run starts a server and sets it)"
+            );
             eprintln!("{TEST_SERVER_ENV} is not set: PostgreSQL test skipped");
             return None;
         };
