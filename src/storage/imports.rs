@@ -3,7 +3,7 @@
 //! an import row of its own (migration 0005), so a checked period it touches becomes stale and
 //! the scheduler checks it again.
 
-use chrono::{DateTime, TimeZone, Utc};
+use chrono::{DateTime, Utc};
 use rusqlite::{params, OptionalExtension, TransactionBehavior};
 
 use crate::{Error, Result};
@@ -113,9 +113,7 @@ pub(crate) fn undo_refusal(id: i64, why: UndoRefusal) -> Error {
     }
 }
 
-fn instant(ms: i64) -> DateTime<Utc> {
-    Utc.timestamp_millis_opt(ms).single().unwrap_or_default()
-}
+use super::columns::from_ms as instant;
 
 impl Store {
     /// Every import in id order, undos included.

@@ -3,7 +3,7 @@
 use std::path::Path;
 use std::time::Duration;
 
-use chrono::{DateTime, TimeZone, Utc};
+use chrono::{DateTime, Utc};
 use rusqlite::backup::Backup;
 use rusqlite::Connection;
 
@@ -127,9 +127,7 @@ pub(crate) const EMPTY_SETS_SQL: &str =
     "SELECT count(*) FROM level_sets s WHERE (SELECT count(*) FROM factors) > 0 \
      AND NOT EXISTS (SELECT 1 FROM level_set_members m WHERE m.level_set_id = s.id)";
 
-pub(crate) fn from_ms(ms: i64) -> DateTime<Utc> {
-    Utc.timestamp_millis_opt(ms).single().unwrap_or_default()
-}
+pub(crate) use super::columns::from_ms;
 
 fn count(conn: &Connection, sql: &str) -> Result<u64> {
     Ok(conn.query_row(sql, [], |r| r.get::<_, i64>(0))? as u64)
