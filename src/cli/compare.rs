@@ -1047,7 +1047,9 @@ fn render_pairs(o: &mut String, data: &GroupedData, r: &OneWay, options: &OneWay
         }
     };
     o.push_str(&format!(
-        "Pairs ({method}, 95% simultaneous intervals; * = interval excludes zero), largest difference first\n"
+        "Pairs ({method}, {}% simultaneous intervals; * = interval excludes zero), largest difference first\n",
+        // The intervals' own confidence (95 % unless set), to two decimals of a percent.
+        (options.confidence * 10_000.0).round() / 100.0
     ));
     let mut ok: Vec<&crate::stats::posthoc::Pair> =
         r.pairs.iter().filter_map(|p| p.as_ref().ok()).collect();
