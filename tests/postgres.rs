@@ -18,6 +18,8 @@ fn ignored(key: &str) -> bool {
     key == "database"
         || key == "config_hash"
         || key == "recorded"
+        // the scheduler's log lines: when each line was written
+        || key == "time"
         || key == "path"
         || key.ends_with("_at")
         || key.ends_with("_utc")
