@@ -22,6 +22,7 @@ pub fn all() -> Vec<(&'static str, Value)> {
     use crate::outputs as o;
     vec![
         ("check.json", check_document()),
+        ("check-sites.json", document::<o::sites::SitesDocument>()),
         ("status.json", document::<o::StatusDocument>()),
         ("db-check.json", document::<o::DbCheckDocument>()),
         ("event-list.json", document::<o::EventListDocument>()),

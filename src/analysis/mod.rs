@@ -39,6 +39,7 @@ pub mod design;
 pub mod findings;
 pub mod report;
 pub mod run;
+pub mod sites;
 
 use std::collections::HashSet;
 use std::sync::atomic::{AtomicUsize, Ordering};

@@ -63,6 +63,18 @@ pub struct CheckArgs {
     /// new run version is made).
     #[arg(long, conflicts_with = "fdr")]
     pub stored: bool,
+    /// Compare sites instead of checking this plant: every characteristic the named sites share
+    /// (same name, unit, limits and target) with the site as the factor, e.g.
+    /// `--sites north,south,east` (`all`: every site in the database). The sites' data must
+    /// share this plant's PostgreSQL database; a site is its schema there. The period follows
+    /// this plant's calendar; nothing is stored.
+    #[arg(
+        long,
+        value_delimiter = ',',
+        value_name = "SITE,SITE",
+        conflicts_with_all = ["stored", "csv", "shift"]
+    )]
+    pub sites: Option<Vec<String>>,
 }
 
 /// The period named by the flags (days are dates already; only the shift, week and month
@@ -107,6 +119,9 @@ pub fn run(args: &CheckArgs) -> Result<ExitCode> {
             )));
         }
         options.fdr_level = level;
+    }
+    if let Some(sites) = &args.sites {
+        return run_sites(args, &config, &period, &options, sites);
     }
     let mut store = super::common::open_store(&config)?;
     let (run, content) = if args.stored {
@@ -182,6 +197,170 @@ pub fn run(args: &CheckArgs) -> Result<ExitCode> {
     if no_data {
         eprintln!(
             "note: {} holds no measurement of the checked characteristics (exit status {}): is an export missing?",
+            period.label,
+            super::EXIT_NO_DATA
+        );
+    }
+    Ok(ExitCode::from(if flagged {
+        super::EXIT_FLAGGED
+    } else if no_data {
+        super::EXIT_NO_DATA
+    } else {
+        super::EXIT_OK
+    }))
+}
+
+/// `samewise check --sites`: the period compared across sites (`analysis::sites`), printed as
+/// the check's table or as a [`crate::outputs::sites::SitesDocument`]; exit status as a check's.
+fn run_sites(
+    args: &CheckArgs,
+    config: &Config,
+    period: &Period,
+    options: &CheckOptions,
+    named: &[String],
+) -> Result<ExitCode> {
+    use crate::analysis::sites::{check_sites, Site};
+    let mut names: Vec<String> = named.iter().map(|n| n.trim().to_string()).collect();
+    if names.iter().any(String::is_empty) {
+        return Err(Error::Usage(
+            "--sites: a site name is empty; list the sites separated by commas, e.g. \
+             --sites north,south"
+                .into(),
+        ));
+    }
+    if names == ["all"] {
+        names = crate::storage::sites(config)?;
+    }
+    let stores = names
+        .iter()
+        .map(|n| crate::storage::open_site(config, n))
+        .collect::<Result<Vec<_>>>()?;
+    let sites: Vec<Site<'_>> = names
+        .iter()
+        .zip(&stores)
+        .map(|(name, store)| Site {
+            name: name.clone(),
+            store: &**store,
+        })
+        .collect();
+    let checked = check_sites(&sites, period.start, period.end, options)?;
+    let tz = config.plant.time_zone;
+    let calendar = format!(
+        "{tz}, production days from {} (the calendar of {}, for every site)",
+        config.plant.day_start.format("%H:%M"),
+        config.plant.name
+    );
+    let spec = |name: &str| checked.compared.iter().find(|c| c.config.name == name);
+    let mut out = std::io::stdout().lock();
+    let written = if args.json {
+        let tests: Vec<serde_json::Value> = sorted(&checked.content)
+            .into_iter()
+            .map(|t| {
+                let c = spec(&t.characteristic).map(|c| &c.config);
+                crate::results::CheckedTest {
+                    result: t.clone(),
+                    unit: c.map(|c| c.unit.clone()).unwrap_or_default(),
+                    lsl: c.and_then(|c| c.lsl),
+                    usl: c.and_then(|c| c.usl),
+                    target: c.and_then(|c| c.target),
+                }
+                .to_json()
+            })
+            .collect();
+        let document = crate::outputs::sites::SitesDocument {
+            plant: config.plant.name.clone(),
+            period: crate::results::CheckedPeriod {
+                kind: period.kind.as_str().to_string(),
+                label: period.label.clone(),
+                start: period.start.with_timezone(&tz).to_rfc3339(),
+                end: period.end.with_timezone(&tz).to_rfc3339(),
+            },
+            calendar,
+            sites: checked
+                .sites
+                .iter()
+                .map(|s| crate::outputs::sites::SiteLine {
+                    site: s.site.clone(),
+                    active_characteristics: s.active_characteristics,
+                    values: s.values,
+                })
+                .collect(),
+            fdr_method: options.fdr_method.key().to_string(),
+            fdr_level: options.fdr_level,
+            stored: false,
+            n_tests: checked.content.tests.len(),
+            n_flagged: checked.content.n_flagged(),
+            tests: Vec::new(),
+            not_compared: checked
+                .not_compared
+                .iter()
+                .map(|n| crate::outputs::sites::NotComparedLine {
+                    characteristic: n.characteristic.clone(),
+                    sites: n.sites.clone(),
+                    reason: n.reason.clone(),
+                })
+                .collect(),
+            caution: crate::CAUTION.to_string(),
+        };
+        let mut doc = serde_json::to_value(&document).unwrap_or(serde_json::Value::Null);
+        doc["tests"] = tests.into();
+        super::format::bound_tiny_p(&mut doc);
+        serde_json::to_writer_pretty(&mut out, &doc)
+            .map_err(std::io::Error::from)
+            .and_then(|()| writeln!(out))
+    } else {
+        let unit = |name: &str| {
+            spec(name)
+                .map(|c| c.config.unit.clone())
+                .unwrap_or_default()
+        };
+        let mut text = || -> std::io::Result<()> {
+            writeln!(
+                out,
+                "compare sites {}: {} ({}), {calendar}; not stored",
+                names.join(", "),
+                period.label,
+                period.kind,
+            )?;
+            for s in &checked.sites {
+                writeln!(
+                    out,
+                    "  {:<16} {} active characteristics, {} values in the period",
+                    s.site, s.active_characteristics, s.values
+                )?;
+            }
+            writeln!(
+                out,
+                "{} tests, {} flagged at {} q <= {}",
+                checked.content.tests.len(),
+                checked.content.n_flagged(),
+                options.fdr_method.key().to_uppercase(),
+                options.fdr_level
+            )?;
+            print_table(&mut out, &checked.content, &unit, None)?;
+            if !checked.not_compared.is_empty() {
+                writeln!(out)?;
+                writeln!(out, "not compared:")?;
+                for n in &checked.not_compared {
+                    writeln!(out, "  {:<20} {}", n.characteristic, n.reason)?;
+                }
+            }
+            writeln!(out)?;
+            writeln!(out, "{}", crate::CAUTION)
+        };
+        text()
+    };
+    if let Err(e) = written {
+        if e.kind() != std::io::ErrorKind::BrokenPipe {
+            return Err(Error::io("<stdout>", e));
+        }
+    }
+    let tests = &checked.content.tests;
+    let flagged = tests.iter().any(|t| t.is_flag());
+    let no_data = tests.iter().all(|t| t.n_obs == 0);
+    if no_data {
+        eprintln!(
+            "note: the sites hold no measurement of a shared characteristic in {} (exit status {})",
             period.label,
             super::EXIT_NO_DATA
         );
@@ -299,6 +478,20 @@ pub fn print_summary(
         run.header.fdr_method.key().to_uppercase(),
         run.header.fdr_level
     )?;
+    print_table(out, content, &unit, max_unflagged)?;
+    writeln!(out)?;
+    writeln!(out, "{}", crate::CAUTION)
+}
+
+/// The table of tests, flagged first: state, characteristic, factor, design, leading test,
+/// statistic, p, q, between-group share, the standing-out group and the "new" mark.
+/// `max_unflagged` limits the lines of tests without a flag.
+fn print_table(
+    out: &mut impl Write,
+    content: &RunContent,
+    unit: &dyn Fn(&str) -> String,
+    max_unflagged: Option<usize>,
+) -> std::io::Result<()> {
     writeln!(
         out,
         "{:<24} {:<20} {:<14} {:<8} {:<10} {:<9} {:>9} {:>9} {:>7}  {:<34} new",
@@ -344,8 +537,7 @@ pub fn print_summary(
             unflagged - m
         )?;
     }
-    writeln!(out)?;
-    writeln!(out, "{}", crate::CAUTION)
+    Ok(())
 }
 
 /// One test with its characteristic's unit and limits from the configuration.

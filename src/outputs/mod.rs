@@ -22,6 +22,7 @@ use crate::stats::Stat;
 
 pub mod compare;
 pub mod investigate;
+pub mod sites;
 
 /// `t` as RFC 3339 with the plant's offset.
 pub fn plant_time(t: DateTime<Utc>, tz: Tz) -> String {

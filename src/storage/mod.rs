@@ -133,6 +133,34 @@ pub fn discard(config: &Config) -> Result<()> {
     Ok(())
 }
 
+/// Another site of the same server database, opened for reading only, for a check that
+/// compares sites: `site` names its schema on the server of `config` (its `site` name unless
+/// its configuration names another schema). Sites share a database only on PostgreSQL, so an
+/// SQLite plant gets an error that says so.
+pub fn open_site(config: &Config, site: &str) -> Result<Box<dyn MeasurementStore + Send>> {
+    let server = shared_server(config)?;
+    let target = crate::config::ServerDatabase {
+        schema: site.to_string(),
+        ..server.clone()
+    };
+    Ok(Box::new(PgStore::open_site_reader(&target)?))
+}
+
+/// The sites (schemas holding samewise's data) of the server database of `config`, in name
+/// order; an error for an SQLite plant, as [`open_site`].
+pub fn sites(config: &Config) -> Result<Vec<String>> {
+    PgStore::sites(shared_server(config)?)
+}
+
+fn shared_server(config: &Config) -> Result<&crate::config::ServerDatabase> {
+    config.plant.server.as_ref().ok_or_else(|| {
+        Error::Usage(format!(
+            "comparing sites needs their data in one PostgreSQL database: this plant's data is              the SQLite file {} (set `database = \"postgresql://...\"` and `site` in [plant] for              every site; docs/database.md)",
+            config.plant.database.display()
+        ))
+    })
+}
+
 /// Where the plant database of `config` is, for messages: the file, or the server (password
 /// hidden) and schema.
 pub fn describe(config: &Config) -> String {

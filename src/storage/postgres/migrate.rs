@@ -56,6 +56,20 @@ pub fn schema_version_of(client: &mut Client, schema: &str) -> Result<Option<u32
     Ok(Some(v.unwrap_or(0) as u32))
 }
 
+/// Every schema of the database that holds samewise's version table (one per site), in name
+/// order.
+pub fn samewise_schemas(client: &mut Client) -> Result<Vec<String>> {
+    Ok(client
+        .query(
+            "SELECT table_schema::text FROM information_schema.tables \
+             WHERE table_name = 'samewise_schema' ORDER BY table_schema COLLATE \"C\"",
+            &[],
+        )?
+        .iter()
+        .map(|r| r.get(0))
+        .collect())
+}
+
 /// What a schema holds, before anything is written to it.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum SchemaKind {

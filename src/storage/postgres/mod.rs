@@ -90,6 +90,46 @@ impl PgStore {
         PgStore::open(target)
     }
 
+    /// Another site's schema on the same server, for reading only (a check that compares
+    /// sites): the schema must exist, hold samewise's tables and be at the schema version this
+    /// build reads, since nothing is migrated or written. Errors name the site and list the
+    /// sites the database holds.
+    pub fn open_site_reader(target: &ServerDatabase) -> Result<PgStore> {
+        let mut client = connect(target)?;
+        let version = migrate::schema_version_of(&mut client, &target.schema)?;
+        let latest = migrate::latest_version();
+        match version {
+            None => {
+                let sites = migrate::samewise_schemas(&mut client)?;
+                return Err(Error::Usage(format!(
+                    "site {}: no samewise data in that schema of the PostgreSQL database {}                      (the sites there: {}); a site's schema is its `site` name unless its                      configuration names another `schema`",
+                    target.schema,
+                    target.display_url(),
+                    if sites.is_empty() {
+                        "none".to_string()
+                    } else {
+                        sites.join(", ")
+                    }
+                )));
+            }
+            Some(v) if v != latest => {
+                return Err(Error::Database(format!(
+                    "site {}: its schema is at version {v}, this build reads version {latest};                      run any samewise command of that site with this build first (it migrates                      its own schema), since a comparison of sites writes nothing",
+                    target.schema
+                )));
+            }
+            Some(_) => {}
+        }
+        drop(client);
+        PgStore::open_reader(target)
+    }
+
+    /// The sites (schemas holding samewise's tables) of the server database of `target`, in
+    /// name order.
+    pub fn sites(target: &ServerDatabase) -> Result<Vec<String>> {
+        migrate::samewise_schemas(&mut connect(target)?)
+    }
+
     /// Drops the site's schema with everything in it, if it exists and is samewise's (for a
     /// demo made afresh); a schema with tables samewise did not make is refused untouched.
     pub fn drop_site(target: &ServerDatabase) -> Result<()> {
