@@ -797,60 +797,48 @@ fn issue_17_sql_views_give_values_in_units_and_latest_results() {
     // Checked twice: the views show version 2 only.
     common::samewise(&dir, &["check", "--day", "2026-11-30"]);
     common::samewise(&dir, &["check", "--day", "2026-11-30"]);
-    let conn = rusqlite::Connection::open(dir.join("plant.db")).unwrap();
+    // Read with the backend's own client (rusqlite, or psql on PostgreSQL).
+    let sql = |q: &str| common::sql_rows(&dir, q);
     // The first stored measurement against the first CSV row, in units.
     let csv = std::fs::read_to_string(dir.join("measurements.csv")).unwrap();
     let first: Vec<&str> = csv.lines().nth(1).unwrap().split(',').collect();
-    let (ts, value, machine, supplier): (String, f64, String, String) = conn
-        .query_row(
-            "SELECT ts_utc, value, machine, supplier FROM measurement_values \
-             WHERE characteristic = ?1 ORDER BY ts_ms LIMIT 1",
-            [first[1]],
-            |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?, r.get(3)?)),
-        )
-        .unwrap();
-    assert_eq!(&ts[..19], &first[0][..19]);
+    let row = &sql(&format!(
+        "SELECT ts_utc, value, machine, supplier FROM measurement_values \
+         WHERE characteristic = '{}' ORDER BY ts_ms LIMIT 1",
+        first[1]
+    ))[0];
+    let value: f64 = row[1].parse().unwrap();
+    assert_eq!(&row[0][..19], &first[0][..19]);
     assert!(
         (value - first[2].parse::<f64>().unwrap()).abs() < 1e-9,
         "{value}"
     );
-    assert_eq!((machine.as_str(), supplier.as_str()), (first[3], first[4]));
-    let n: i64 = conn
-        .query_row("SELECT COUNT(*) FROM measurement_values", [], |r| r.get(0))
-        .unwrap();
-    assert_eq!(n, 3 * 240 * 2);
+    assert_eq!((row[2].as_str(), row[3].as_str()), (first[3], first[4]));
+    let n = &sql("SELECT COUNT(*) FROM measurement_values")[0][0];
+    assert_eq!(n, &(3 * 240 * 2).to_string());
     // The latest results: one row per test of the day, from version 2.
-    let rows: Vec<(String, String, i64, String, i64)> = conn
-        .prepare(
-            "SELECT characteristic, factor, version, state, is_flagged FROM latest_results \
-             WHERE period_kind = 'day' AND period_label = '2026-11-30' ORDER BY characteristic, factor",
-        )
-        .unwrap()
-        .query_map([], |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?, r.get(3)?, r.get(4)?)))
-        .unwrap()
-        .collect::<Result<_, _>>()
-        .unwrap();
+    let rows = sql(
+        "SELECT characteristic, factor, version, state, is_flagged FROM latest_results \
+         WHERE period_kind = 'day' AND period_label = '2026-11-30' ORDER BY characteristic, factor",
+    );
     assert_eq!(rows.len(), 4, "{rows:?}");
-    assert!(rows.iter().all(|r| r.2 == 2), "{rows:?}");
+    assert!(rows.iter().all(|r| r[2] == "2"), "{rows:?}");
     let bore_machine = rows
         .iter()
-        .find(|r| r.0 == "bore" && r.1 == "machine")
+        .find(|r| r[0] == "bore" && r[1] == "machine")
         .unwrap();
     assert_eq!(
-        (bore_machine.3.as_str(), bore_machine.4),
-        ("differs_material", 1)
+        (bore_machine[3].as_str(), bore_machine[4].as_str()),
+        ("differs_material", "1")
     );
     // Group means in units: M2 about 0.03 mm above the others on that day.
-    let means: Vec<(String, f64)> = conn
-        .prepare(
-            "SELECT level, mean FROM latest_groups WHERE period_label = '2026-11-30' \
-             AND characteristic = 'bore' AND factor = 'machine' ORDER BY level",
-        )
-        .unwrap()
-        .query_map([], |r| Ok((r.get(0)?, r.get(1)?)))
-        .unwrap()
-        .collect::<Result<_, _>>()
-        .unwrap();
+    let means: Vec<(String, f64)> = sql(
+        "SELECT level, mean FROM latest_groups WHERE period_label = '2026-11-30' \
+         AND characteristic = 'bore' AND factor = 'machine' ORDER BY level",
+    )
+    .into_iter()
+    .map(|r| (r[0].clone(), r[1].parse().unwrap()))
+    .collect();
     assert_eq!(means.len(), 3);
     assert!((means[1].1 - means[0].1 - 0.03).abs() < 0.005, "{means:?}");
     assert!((means[0].1 - 10.0).abs() < 0.005, "{means:?}");

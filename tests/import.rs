@@ -38,7 +38,7 @@ name = "machine"
 
 fn setup(name: &str) -> PathBuf {
     let dir = temp_dir(name);
-    std::fs::write(dir.join("plant.toml"), CONFIG).unwrap();
+    std::fs::write(dir.join("plant.toml"), common::plant_config(&dir, CONFIG)).unwrap();
     let o = run(&dir, &["init"]);
     assert!(o.status.success(), "{}", text(&o));
     dir
@@ -190,6 +190,12 @@ fn status_event_check_and_backup() {
     assert!(o.status.success(), "{}", text(&o));
     assert!(text(&o).contains("database is sound"));
     let o = run(&dir, &["db", "backup", "copy.db"]);
+    if common::postgres_backend().is_some() {
+        // A server database is backed up with the server's own tool: the command says how.
+        assert!(!o.status.success(), "{}", text(&o));
+        assert!(text(&o).contains("pg_dump --schema="), "{}", text(&o));
+        return;
+    }
     assert!(o.status.success(), "{}", text(&o));
     let copy = common::open_store(&dir, "copy.db");
     assert_eq!(
@@ -203,7 +209,7 @@ fn no_database_and_no_config_are_explained() {
     let dir = temp_dir("nodb");
     let o = run(&dir, &["status"]);
     assert!(text(&o).contains("no plant configuration"), "{}", text(&o));
-    std::fs::write(dir.join("plant.toml"), CONFIG).unwrap();
+    std::fs::write(dir.join("plant.toml"), common::plant_config(&dir, CONFIG)).unwrap();
     let o = run(&dir, &["status"]);
     assert!(!o.status.success());
     assert!(text(&o).contains("samewise init"), "{}", text(&o));
@@ -577,7 +583,7 @@ fn issue_15_wide_bad_rows_are_one_record_each() {
     for n in &names {
         config.push_str(&format!("\n[[characteristic]]\nname = \"{n}\"\n"));
     }
-    std::fs::write(dir.join("plant.toml"), &config).unwrap();
+    std::fs::write(dir.join("plant.toml"), common::plant_config(&dir, &config)).unwrap();
     assert!(run(&dir, &["init"]).status.success());
     let mut csv = format!("timestamp,machine,{}\n", names.join(","));
     let cells = vec!["1.25"; 300].join(",");
@@ -604,8 +610,14 @@ fn issue_15_wide_bad_rows_are_one_record_each() {
     assert!(s.integrity_check().unwrap().is_ok());
     drop(s);
     // 3,000 records of at most 1,000 characters each: a few MB, not a gigabyte.
-    let size = std::fs::metadata(dir.join("plant.db")).unwrap().len()
-        + std::fs::metadata(dir.join("plant.db-wal")).map_or(0, |m| m.len());
+    let size: u64 = if common::postgres_backend().is_some() {
+        common::sql_rows(&dir, "SELECT pg_total_relation_size('rejected_rows')")[0][0]
+            .parse()
+            .unwrap()
+    } else {
+        std::fs::metadata(dir.join("plant.db")).unwrap().len()
+            + std::fs::metadata(dir.join("plant.db-wal")).map_or(0, |m| m.len())
+    };
     assert!(size < 16 << 20, "database of {size} bytes");
 }
 
@@ -709,7 +721,7 @@ fn issue_15_identity_by_part_id() {
     let config = format!(
         "{CONFIG}\n[[layout]]\nname = \"cmm\"\nkind = \"long\"\ntimestamp = \"measured\"\npart = \"serial\"\nidentity = [\"characteristic\", \"part\"]\n"
     );
-    std::fs::write(dir.join("plant.toml"), config).unwrap();
+    std::fs::write(dir.join("plant.toml"), common::plant_config(&dir, &config)).unwrap();
     assert!(run(&dir, &["init"]).status.success());
     let header = "measured,serial,characteristic,value,machine\n";
     let mut first = String::from(header);
@@ -771,7 +783,7 @@ fn issue_15_default_identity_includes_the_part() {
     let dir = temp_dir("issue-15-identity-default");
     let config =
         format!("{CONFIG}\n[[layout]]\nname = \"cmm\"\nkind = \"long\"\npart = \"serial\"\n");
-    std::fs::write(dir.join("plant.toml"), config).unwrap();
+    std::fs::write(dir.join("plant.toml"), common::plant_config(&dir, &config)).unwrap();
     assert!(run(&dir, &["init"]).status.success());
     let csv = "timestamp,serial,characteristic,value,machine\n\
                2026-11-30T07:00:00Z,A1,bore_diameter,42.001,M1\n\
@@ -805,7 +817,7 @@ fn issue_15_identity_configuration_errors() {
         let config = format!(
             "{CONFIG}\n[[layout]]\nname = \"x\"\nkind = \"long\"\n{part}identity = {identity}\n"
         );
-        std::fs::write(dir.join("plant.toml"), config).unwrap();
+        std::fs::write(dir.join("plant.toml"), common::plant_config(&dir, &config)).unwrap();
         let o = run(&dir, &["init"]);
         assert!(!o.status.success());
         assert!(text(&o).contains(expected), "{identity}: {}", text(&o));
@@ -821,7 +833,7 @@ fn issue_15_identity_without_levels() {
     let config = format!(
         "{CONFIG}\n[[layout]]\nname = \"x\"\nkind = \"long\"\nidentity = [\"characteristic\", \"time\"]\n"
     );
-    std::fs::write(dir.join("plant.toml"), config).unwrap();
+    std::fs::write(dir.join("plant.toml"), common::plant_config(&dir, &config)).unwrap();
     assert!(run(&dir, &["init"]).status.success());
     let header = "timestamp,characteristic,value,machine\n";
     std::fs::write(
@@ -873,7 +885,11 @@ value = "measured"
 [layout.factors]
 machine = "mach"
 "#;
-    std::fs::write(dir.join("plant.toml"), format!("{CONFIG}{layouts}")).unwrap();
+    std::fs::write(
+        dir.join("plant.toml"),
+        common::plant_config(&dir, &format!("{CONFIG}{layouts}")),
+    )
+    .unwrap();
     assert!(run(&dir, &["init"]).status.success());
     let mut de = String::from("Zeit;Merkmal;Messwert;Maschine\r\n");
     let mut points = String::from("time,feature,measured,mach\n");
@@ -903,20 +919,20 @@ machine = "mach"
     assert!(t.contains("thousands separators are not accepted"), "{t}");
     // The same values written with points, in another database: the exact same offsets.
     let dir2 = temp_dir("issue-15-decimal-points");
-    std::fs::write(dir2.join("plant.toml"), format!("{CONFIG}{layouts}")).unwrap();
+    std::fs::write(
+        dir2.join("plant.toml"),
+        common::plant_config(&dir2, &format!("{CONFIG}{layouts}")),
+    )
+    .unwrap();
     assert!(run(&dir2, &["init"]).status.success());
     std::fs::write(dir2.join("p.csv"), &points).unwrap();
     let o = run(&dir2, &["import", "p.csv"]);
     assert!(o.status.success(), "{}", text(&o));
     let values = |d: &Path| -> Vec<f64> {
-        let conn = rusqlite::Connection::open(d.join("plant.db")).unwrap();
-        let mut st = conn
-            .prepare("SELECT value FROM measurement_values ORDER BY ts_ms")
-            .unwrap();
-        st.query_map([], |r| r.get(0))
-            .unwrap()
-            .collect::<Result<_, _>>()
-            .unwrap()
+        common::sql_rows(d, "SELECT value FROM measurement_values ORDER BY ts_ms")
+            .iter()
+            .map(|r| r[0].parse().unwrap())
+            .collect()
     };
     // Local (Europe/Berlin, CET) 07:00 is 06:00 UTC: compare the values in time order.
     let (a, b) = (values(&dir), values(&dir2));
@@ -1008,15 +1024,8 @@ fn issue_15_level_hygiene() {
     let t = text(&o);
     assert!(t.contains("2 stored"), "{t}");
     assert!(!t.contains("differ only in case"), "{t}");
-    let conn = rusqlite::Connection::open(dir.join("plant.db")).unwrap();
-    let machines: Vec<String> = conn
-        .prepare("SELECT DISTINCT machine FROM measurement_values")
-        .unwrap()
-        .query_map([], |r| r.get(0))
-        .unwrap()
-        .collect::<Result<_, _>>()
-        .unwrap();
-    assert_eq!(machines, ["IMM1"]);
+    let machines = common::sql_rows(&dir, "SELECT DISTINCT machine FROM measurement_values");
+    assert_eq!(machines, [["IMM1"]]);
 }
 
 /// Long layouts map a station's channel codes to characteristic names (issue 15): CH07 is
@@ -1025,7 +1034,11 @@ fn issue_15_level_hygiene() {
 fn issue_15_long_layout_maps_channel_codes() {
     let dir = temp_dir("issue-15-codes");
     let layout = "\n[[layout]]\nname = \"station\"\nkind = \"long\"\ncharacteristic = \"channel\"\n[layout.characteristics]\nbore_diameter = \"CH07\"\nflatness = \"CH12\"\n";
-    std::fs::write(dir.join("plant.toml"), format!("{CONFIG}{layout}")).unwrap();
+    std::fs::write(
+        dir.join("plant.toml"),
+        common::plant_config(&dir, &format!("{CONFIG}{layout}")),
+    )
+    .unwrap();
     assert!(run(&dir, &["init"]).status.success());
     std::fs::write(
         dir.join("s.csv"),
@@ -1043,13 +1056,9 @@ fn issue_15_long_layout_maps_channel_codes() {
         "{t}"
     );
     assert!(t.contains("unknown characteristic \"CH99\""), "{t}");
-    let conn = rusqlite::Connection::open(dir.join("plant.db")).unwrap();
-    let n: i64 = conn
-        .query_row(
-            "SELECT COUNT(*) FROM measurement_values WHERE characteristic = 'bore_diameter'",
-            [],
-            |r| r.get(0),
-        )
-        .unwrap();
-    assert_eq!(n, 2);
+    let n = common::sql_rows(
+        &dir,
+        "SELECT COUNT(*) FROM measurement_values WHERE characteristic = 'bore_diameter'",
+    );
+    assert_eq!(n, [["2"]]);
 }

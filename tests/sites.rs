@@ -5,7 +5,8 @@
 //!   each group stored as a site of its own: every site picks its own exact decimal origin from
 //!   its own first value, the comparison moves them onto one, and the certified values must hold
 //!   as they do for `samewise compare` of the same file (tests/compare.rs), LRE >= 9.
-//! - Three invented sites in schemas of the PostgreSQL server named by `SAMEWISE_TEST_POSTGRES`
+//! - Three invented sites in schemas of a database of their own on the PostgreSQL server named
+//!   by `SAMEWISE_TEST_POSTGRES`
 //!   (`.ci/run` starts one and sets it; the test fails in CI without it): the site that is off
 //!   is flagged and named, a characteristic made to other limits and one that only one site has
 //!   are left out with their reasons, the JSON validates against docs/schema/check-sites.json,
@@ -157,19 +158,48 @@ fn nist_strd_groups_stored_as_sites_keep_the_certified_values() {
     }
 }
 
-/// A schema name of this run, dropped at the end.
-struct Schema {
-    url: String,
+/// A database of this run on the test server, dropped at the end.
+struct Database {
+    server: String,
     name: String,
+    url: String,
 }
 
-impl Drop for Schema {
+impl Database {
+    fn create(server: &str, name: &str) -> Database {
+        let (base, query) = server.split_once('?').unwrap_or((server, ""));
+        let root = &base[..base.rfind('/').expect("a database URL ends in /dbname")];
+        let url = if query.is_empty() {
+            format!("{root}/{name}")
+        } else {
+            format!("{root}/{name}?{query}")
+        };
+        let psql = |sql: &str| {
+            std::process::Command::new("psql")
+                .args([server, "-X", "-q", "-c", sql])
+                .output()
+                .unwrap()
+        };
+        psql(&format!("DROP DATABASE IF EXISTS {name}"));
+        let out = psql(&format!("CREATE DATABASE {name}"));
+        assert!(out.status.success(), "{}", output_text(&out));
+        Database {
+            server: server.to_string(),
+            name: name.to_string(),
+            url,
+        }
+    }
+}
+
+impl Drop for Database {
     fn drop(&mut self) {
         let _ = std::process::Command::new("psql")
             .args([
-                self.url.as_str(),
-                "-qc",
-                &format!("DROP SCHEMA IF EXISTS {} CASCADE", self.name),
+                self.server.as_str(),
+                "-X",
+                "-q",
+                "-c",
+                &format!("DROP DATABASE IF EXISTS {} WITH (FORCE)", self.name),
             ])
             .output();
     }
@@ -260,20 +290,16 @@ name = "machine"
 
 #[test]
 fn sites_in_one_database_are_compared_with_the_site_as_the_factor() {
-    let Some(url) = server() else { return };
+    let Some(server_url) = server() else { return };
     let pid = std::process::id();
+    // A database of its own, so that `--sites all` sees exactly the sites made here.
+    let database = Database::create(&server_url, &format!("samewise_sites_{pid}"));
+    let url = database.url.clone();
     let names = [
         format!("north_{pid}"),
         format!("south_{pid}"),
         format!("east_{pid}"),
     ];
-    let _guards: Vec<Schema> = names
-        .iter()
-        .map(|n| Schema {
-            url: url.clone(),
-            name: n.clone(),
-        })
-        .collect();
     let dirs: Vec<_> = names
         .iter()
         .map(|n| temp_dir(&format!("sites-{n}")))
@@ -409,7 +435,9 @@ fn sites_in_one_database_are_compared_with_the_site_as_the_factor() {
         .iter()
         .map(|s| s["site"].as_str().unwrap())
         .collect();
-    assert!(names.iter().all(|n| all.contains(&n.as_str())), "{all:?}");
+    let mut expected: Vec<&str> = names.iter().map(String::as_str).collect();
+    expected.sort();
+    assert_eq!(all, expected, "every site of the database, in name order");
 
     // An unknown site is named, with the sites there are.
     let out = samewise(
@@ -439,7 +467,8 @@ fn sites_in_one_database_are_compared_with_the_site_as_the_factor() {
 #[test]
 fn an_sqlite_plant_is_told_that_sites_share_a_postgresql_database() {
     let dir = temp_dir("sites-sqlite");
-    common::invented_plant(&dir, 1);
+    std::fs::write(dir.join("plant.toml"), common::CONFIG).unwrap();
+    samewise_ok(&dir, &["init"]);
     let out = samewise(&dir, &["check", "--day", "2026-11-28", "--sites", "a,b"]);
     assert_eq!(out.status.code(), Some(1), "{}", output_text(&out));
     let err = String::from_utf8_lossy(&out.stderr);

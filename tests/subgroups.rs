@@ -142,7 +142,7 @@ fn write_day(dir: &std::path::Path) {
         }
     }
     std::fs::write(dir.join("press.csv"), csv).unwrap();
-    std::fs::write(dir.join("plant.toml"), CONFIG).unwrap();
+    std::fs::write(dir.join("plant.toml"), common::plant_config(&dir, CONFIG)).unwrap();
 }
 
 #[test]
@@ -273,7 +273,7 @@ fn a_subgroup_window_derives_subgroups_and_bad_settings_are_named() {
         "subgroup = [\"Machine\", \"Shot\"]",
         "subgroup_window = \"10m\"\nsubgroup_by = [\"machine\"]",
     );
-    std::fs::write(dir.join("plant.toml"), &config).unwrap();
+    std::fs::write(dir.join("plant.toml"), common::plant_config(&dir, &config)).unwrap();
     samewise_ok(&dir, &["init"]);
     samewise_ok(&dir, &["import", "press.csv"]);
     let out = common::samewise(&dir, &["check", "--day", "2026-11-30", "--json"]);
@@ -297,7 +297,7 @@ fn a_subgroup_window_derives_subgroups_and_bad_settings_are_named() {
         ("subgroup = []", "an empty list"),
     ] {
         let text = CONFIG.replace("subgroup = [\"Machine\", \"Shot\"]", bad);
-        std::fs::write(dir.join("plant.toml"), &text).unwrap();
+        std::fs::write(dir.join("plant.toml"), common::plant_config(&dir, &text)).unwrap();
         let out = common::samewise(&dir, &["status"]);
         assert!(!out.status.success());
         let err = common::output_text(&out);
@@ -307,7 +307,7 @@ fn a_subgroup_window_derives_subgroups_and_bad_settings_are_named() {
         "subgroup = [\"Machine\", \"Shot\"]",
         "subgroup = \"Shot\"\nsubgroup_window = \"10m\"",
     );
-    std::fs::write(dir.join("plant.toml"), &both).unwrap();
+    std::fs::write(dir.join("plant.toml"), common::plant_config(&dir, &both)).unwrap();
     let err = common::output_text(&common::samewise(&dir, &["status"]));
     assert!(err.contains("give one"), "{err}");
 }

@@ -63,6 +63,10 @@ pub const MIGRATIONS: &[Migration] = &[
         name: "0010_component_intervals.sql",
         sql: include_str!("../../migrations/0010_component_intervals.sql"),
     },
+    Migration {
+        name: "0011_flag_as_integer.sql",
+        sql: include_str!("../../migrations/0011_flag_as_integer.sql"),
+    },
 ];
 
 /// SQLite's `PRAGMA application_id` of a samewise database: "SMWS" in ASCII. Set when a database

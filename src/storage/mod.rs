@@ -155,7 +155,9 @@ pub fn sites(config: &Config) -> Result<Vec<String>> {
 fn shared_server(config: &Config) -> Result<&crate::config::ServerDatabase> {
     config.plant.server.as_ref().ok_or_else(|| {
         Error::Usage(format!(
-            "comparing sites needs their data in one PostgreSQL database: this plant's data is              the SQLite file {} (set `database = \"postgresql://...\"` and `site` in [plant] for              every site; docs/database.md)",
+            "comparing sites needs their data in one PostgreSQL database: this plant's data is \
+             the SQLite file {} (set `database = \"postgresql://...\"` and `site` in [plant] for \
+             every site; docs/database.md)",
             config.plant.database.display()
         ))
     })

@@ -82,12 +82,141 @@ pub fn temp_dir(name: &str) -> PathBuf {
     dir
 }
 
+/// The PostgreSQL server the plant tests run against instead of an SQLite file, when
+/// `SAMEWISE_TEST_BACKEND=postgres` (`.ci/run` runs the plant suites a second time so); the
+/// server is the one `SAMEWISE_TEST_POSTGRES` names.
+pub fn postgres_backend() -> Option<String> {
+    match std::env::var("SAMEWISE_TEST_BACKEND").as_deref() {
+        Ok("postgres") => Some(std::env::var("SAMEWISE_TEST_POSTGRES").expect(
+            "SAMEWISE_TEST_BACKEND=postgres needs SAMEWISE_TEST_POSTGRES to name the server",
+        )),
+        Ok("sqlite") | Err(_) => None,
+        Ok(other) => panic!("SAMEWISE_TEST_BACKEND={other}: expected postgres or sqlite"),
+    }
+}
+
+/// `config` (which names `database = "plant.db"`) for the backend under test: unchanged for
+/// SQLite; on PostgreSQL ([`postgres_backend`]) the plant's data go to a schema of the test
+/// server named after the test's directory (`t_<name>_<process id>`, unique per test and run).
+pub fn plant_config(dir: &Path, config: &str) -> String {
+    let Some(url) = postgres_backend() else {
+        return config.to_string();
+    };
+    let name: String = dir
+        .file_name()
+        .unwrap()
+        .to_string_lossy()
+        .trim_start_matches("samewise-test-")
+        .chars()
+        .map(|c| {
+            if c.is_ascii_alphanumeric() {
+                c.to_ascii_lowercase()
+            } else {
+                '_'
+            }
+        })
+        .collect();
+    // PostgreSQL names hold 63 bytes; the process id at the end keeps runs apart.
+    let schema = format!("t_{}", &name[name.len().saturating_sub(60)..]);
+    let config = config.replace("database = \"plant.db\"\n", "");
+    assert!(
+        !config.contains("database ="),
+        "plant_config: the configuration must name database = \"plant.db\" on a line of its own"
+    );
+    SCHEMAS.with(|s| {
+        s.borrow_mut().push(DropSchema {
+            url: url.clone(),
+            name: schema.clone(),
+        })
+    });
+    format!("{config}\n[database]\nurl = \"{url}\"\nschema = \"{schema}\"\n")
+}
+
+/// A test's PostgreSQL schema, dropped when the test's thread ends (passed or failed).
+pub struct DropSchema {
+    pub url: String,
+    pub name: String,
+}
+
+impl Drop for DropSchema {
+    fn drop(&mut self) {
+        let _ = std::process::Command::new("psql")
+            .args([
+                self.url.as_str(),
+                "-X",
+                "-q",
+                "-c",
+                &format!("DROP SCHEMA IF EXISTS \"{}\" CASCADE", self.name),
+            ])
+            .env("PGOPTIONS", "-c client_min_messages=warning")
+            .output();
+    }
+}
+
+thread_local! {
+    /// The schemas the current test made (each test runs on a thread of its own).
+    static SCHEMAS: std::cell::RefCell<Vec<DropSchema>> = const { std::cell::RefCell::new(Vec::new()) };
+}
+
+/// The rows of `sql` on the plant database of `dir/plant.toml`, every value as text (`NULL` as
+/// an empty string), by the backend's own client: rusqlite for the SQLite file, `psql` with the
+/// site's schema on the search path for PostgreSQL. For SQL both dialects accept.
+pub fn sql_rows(dir: &Path, sql: &str) -> Vec<Vec<String>> {
+    let config = samewise::config::Config::load(dir.join("plant.toml")).unwrap();
+    if let Some(server) = &config.plant.server {
+        let out = std::process::Command::new("psql")
+            .args([
+                server.url.as_str(),
+                "-X",
+                "-q",
+                "-A",
+                "-t",
+                "-F",
+                "\u{1f}",
+                "-c",
+                sql,
+            ])
+            .env("PGOPTIONS", format!("-c search_path={}", server.schema))
+            .output()
+            .expect("psql runs");
+        assert!(
+            out.status.success(),
+            "{sql}: {}",
+            String::from_utf8_lossy(&out.stderr)
+        );
+        return String::from_utf8(out.stdout)
+            .unwrap()
+            .lines()
+            .map(|l| l.split('\u{1f}').map(str::to_string).collect())
+            .collect();
+    }
+    let conn = rusqlite::Connection::open(&config.plant.database).unwrap();
+    let mut stmt = conn.prepare(sql).unwrap();
+    let n = stmt.column_count();
+    stmt.query_map([], |r| {
+        (0..n)
+            .map(|i| {
+                Ok(match r.get::<_, rusqlite::types::Value>(i)? {
+                    rusqlite::types::Value::Null => String::new(),
+                    rusqlite::types::Value::Integer(v) => v.to_string(),
+                    rusqlite::types::Value::Real(v) => v.to_string(),
+                    rusqlite::types::Value::Text(v) => v,
+                    rusqlite::types::Value::Blob(v) => format!("{v:?}"),
+                })
+            })
+            .collect::<rusqlite::Result<Vec<String>>>()
+    })
+    .unwrap()
+    .collect::<rusqlite::Result<_>>()
+    .unwrap()
+}
+
 /// Writes plant.toml and an invented CSV of `days` production days from 2026-11-28 (06:00 UTC),
 /// 240 rows per characteristic per day; on machine M2 "bore" is 0.03 mm high (15% of the
 /// tolerance) from 2026-11-30 on. Imports it; returns the configuration path.
 pub fn invented_plant(dir: &Path, days: i64) -> PathBuf {
     let config_path = dir.join("plant.toml");
-    std::fs::write(&config_path, CONFIG).unwrap();
+    std::fs::write(&config_path, plant_config(dir, CONFIG)).unwrap();
     let mut csv = String::from("timestamp,characteristic,value,machine,supplier\n");
     let mut rng = Rng(20261130);
     let t0 = Utc.with_ymd_and_hms(2026, 11, 28, 6, 0, 0).unwrap();
@@ -111,6 +240,10 @@ pub fn invented_plant(dir: &Path, days: i64) -> PathBuf {
     let csv_path = dir.join("measurements.csv");
     std::fs::write(&csv_path, csv).unwrap();
     let config = samewise::config::Config::load(&config_path).unwrap();
+    if config.plant.server.is_some() {
+        // A schema left by an earlier run of the same test and process id starts afresh.
+        samewise::storage::discard(&config).unwrap();
+    }
     let mut store = samewise::storage::create(&config).unwrap();
     let stream = samewise::ingest::read_file(&csv_path, &config, None).unwrap();
     store

@@ -309,9 +309,9 @@ impl ImportWriter for PgImport<'_, '_> {
             &[
                 &import_id,
                 &(r.line as i64),
-                &r.column,
-                &r.reason,
-                &r.raw,
+                &r.column.as_deref().map(super::text_without_nul),
+                &super::text_without_nul(&r.reason),
+                &super::text_without_nul(&r.raw),
                 &(r.measurements as i64),
             ],
         )?;

@@ -24,11 +24,18 @@ pub struct PgMigration {
 }
 
 /// Every PostgreSQL migration, in order.
-pub const MIGRATIONS: &[PgMigration] = &[PgMigration {
-    version: 10,
-    name: "0010_initial.sql",
-    sql: include_str!("../../../migrations/postgres/0010_initial.sql"),
-}];
+pub const MIGRATIONS: &[PgMigration] = &[
+    PgMigration {
+        version: 10,
+        name: "0010_initial.sql",
+        sql: include_str!("../../../migrations/postgres/0010_initial.sql"),
+    },
+    PgMigration {
+        version: 11,
+        name: "0011_flag_as_integer.sql",
+        sql: include_str!("../../../migrations/postgres/0011_flag_as_integer.sql"),
+    },
+];
 
 /// The schema version the newest migration brings a schema to.
 pub fn latest_version() -> u32 {
@@ -152,8 +159,10 @@ pub fn migrate(client: &mut Client, schema: &str) -> Result<()> {
         )));
     }
     for m in MIGRATIONS.iter().filter(|m| m.version > current) {
-        tx.batch_execute(m.sql)
-            .map_err(|e| Error::Database(format!("migration {} failed: {e}", m.name)))?;
+        tx.batch_execute(m.sql).map_err(|e| {
+            // The server's own message (the driver's `Display` says only "db error").
+            Error::Database(format!("migration {} failed: {}", m.name, Error::from(e)))
+        })?;
         tx.execute(
             "INSERT INTO samewise_schema (version, name) VALUES ($1, $2)",
             &[&i64::from(m.version), &m.name],

@@ -102,7 +102,9 @@ impl PgStore {
             None => {
                 let sites = migrate::samewise_schemas(&mut client)?;
                 return Err(Error::Usage(format!(
-                    "site {}: no samewise data in that schema of the PostgreSQL database {}                      (the sites there: {}); a site's schema is its `site` name unless its                      configuration names another `schema`",
+                    "site {}: no samewise data in that schema of the PostgreSQL database {} \
+                     (the sites there: {}); a site's schema is its `site` name unless its \
+                     configuration names another `schema`",
                     target.schema,
                     target.display_url(),
                     if sites.is_empty() {
@@ -112,9 +114,18 @@ impl PgStore {
                     }
                 )));
             }
-            Some(v) if v != latest => {
+            Some(v) if v < latest => {
                 return Err(Error::Database(format!(
-                    "site {}: its schema is at version {v}, this build reads version {latest};                      run any samewise command of that site with this build first (it migrates                      its own schema), since a comparison of sites writes nothing",
+                    "site {}: its schema is at version {v}, this build reads version {latest}; \
+                     run any samewise command of that site with this build first (it migrates \
+                     its own schema), since a comparison of sites writes nothing",
+                    target.schema
+                )));
+            }
+            Some(v) if v > latest => {
+                return Err(Error::Database(format!(
+                    "site {}: its schema is at version {v}, written by a newer samewise (this \
+                     build reads version {latest}): compare the sites with that newer samewise",
                     target.schema
                 )));
             }
@@ -293,6 +304,17 @@ impl From<postgres::Error> for Error {
             None => e.to_string(),
         };
         Error::Storage(StorageError { message, kind })
+    }
+}
+
+/// `text` as PostgreSQL can store it: its `text` type cannot hold the NUL character, which a
+/// rejected line of a damaged export may contain (SQLite keeps it), so each NUL is written as
+/// the six characters `\u{0}`, as the import's messages show control characters.
+pub(crate) fn text_without_nul(text: &str) -> std::borrow::Cow<'_, str> {
+    if text.contains('\0') {
+        std::borrow::Cow::Owned(text.replace('\0', "\\u{0}"))
+    } else {
+        std::borrow::Cow::Borrowed(text)
     }
 }
 
