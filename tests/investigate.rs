@@ -42,7 +42,7 @@ column = "machine"
 /// Invented values: 42.000 + machine offset + a deterministic wobble of +-0.0015 mm, and +0.004
 /// for M3 from 2026-11-10 12:00 on. `with_m4_after` adds a machine M4 that only starts after it.
 fn write_plant(dir: &Path, with_m4_after: bool) {
-    std::fs::write(dir.join("plant.toml"), common::plant_config(&dir, CONFIG)).unwrap();
+    std::fs::write(dir.join("plant.toml"), common::plant_config(dir, CONFIG)).unwrap();
     let mut csv = String::from("timestamp,characteristic,value,machine\n");
     let wobble = [
         0.0, 0.0012, -0.0008, 0.0015, -0.0013, 0.0004, -0.0002, 0.0009, -0.0015,

@@ -142,7 +142,7 @@ fn write_day(dir: &std::path::Path) {
         }
     }
     std::fs::write(dir.join("press.csv"), csv).unwrap();
-    std::fs::write(dir.join("plant.toml"), common::plant_config(&dir, CONFIG)).unwrap();
+    std::fs::write(dir.join("plant.toml"), common::plant_config(dir, CONFIG)).unwrap();
 }
 
 #[test]
