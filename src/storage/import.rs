@@ -753,11 +753,17 @@ pub(crate) trait ImportWriter: LevelSetStore {
     fn finish_import(&mut self, import_id: i64, f: &FinishedImport<'_>) -> Result<()>;
 }
 
-/// The file name of an import's path (its display form when it has none, e.g. `-`).
+/// The file name of an import's path (its display form when it has none, e.g. `-`). A file
+/// descriptor of a pipe handed over by the shell (`<(...)`: `/dev/fd/63`, `/proc/self/fd/63`)
+/// keeps its whole path: its last part alone, a bare number, would name nothing.
 fn file_name_of(path: &Path) -> String {
-    path.file_name()
-        .map(|n| n.to_string_lossy().into_owned())
-        .unwrap_or_else(|| path.display().to_string())
+    let descriptor = path
+        .parent()
+        .is_some_and(|p| p == Path::new("/dev/fd") || p.ends_with("fd") && p.starts_with("/proc"));
+    match path.file_name() {
+        Some(n) if !descriptor => n.to_string_lossy().into_owned(),
+        _ => path.display().to_string(),
+    }
 }
 
 /// One import through `w`, inside the backend's transaction: every measurement of the stream is
@@ -1375,7 +1381,23 @@ impl ImportStore for Store {
 
 #[cfg(test)]
 mod tests {
-    use super::{reason_kind, sort_rows, ImportRow};
+    use super::{file_name_of, reason_kind, sort_rows, ImportRow};
+    use std::path::Path;
+
+    #[test]
+    fn a_shell_pipe_keeps_its_whole_path_as_its_name() {
+        assert_eq!(
+            file_name_of(Path::new("/data/exports/cmm-11.csv")),
+            "cmm-11.csv"
+        );
+        assert_eq!(file_name_of(Path::new("-")), "-");
+        assert_eq!(file_name_of(Path::new("/dev/fd/63")), "/dev/fd/63");
+        assert_eq!(
+            file_name_of(Path::new("/proc/self/fd/12")),
+            "/proc/self/fd/12"
+        );
+        assert_eq!(file_name_of(Path::new("/srv/fd/x.csv")), "x.csv");
+    }
 
     #[test]
     fn batches_go_in_key_order_and_keep_every_row() {
