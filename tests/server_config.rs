@@ -119,12 +119,16 @@ fn a_missing_or_non_pem_ca_file_is_named_before_any_connection() {
             ),
         )
         .unwrap();
-        let out = samewise(&dir, &["status"]);
+        // Run from the folder above, naming the configuration by its path: the CA file is
+        // found relative to the configuration file and named with the key that gave it.
+        let parent = dir.parent().unwrap();
+        let name = dir.file_name().unwrap().to_str().unwrap();
+        let config = format!("{name}/plant.toml");
+        let out = samewise(parent, &["status", "--config", &config]);
         let text = output_text(&out);
         assert!(!out.status.success(), "{text}");
-        // Relative to the configuration file, named with the key that gave it.
         assert!(
-            text.contains(&format!("{} ([database] tls_ca)", dir.join(file).display())),
+            text.contains(&format!("{name}/{file} ([database] tls_ca)")),
             "{text}"
         );
         assert!(text.contains(says), "{text}");
