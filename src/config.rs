@@ -208,6 +208,14 @@ pub struct ServerDatabase {
     pub schema: String,
     /// The environment variable the password is read from, if any.
     pub password_env: Option<String>,
+    /// `[database] tls_ca`: the PEM file of the CA that signed the server's certificate,
+    /// resolved relative to the configuration file's directory (the URL's `sslrootcert` is the
+    /// same setting, taken as written).
+    pub tls_ca: Option<PathBuf>,
+    /// `[database] tls_cert`: a client certificate chain (PEM) for servers that ask for one.
+    pub tls_cert: Option<PathBuf>,
+    /// `[database] tls_key`: the client certificate's private key (PEM).
+    pub tls_key: Option<PathBuf>,
 }
 
 impl ServerDatabase {
@@ -728,6 +736,9 @@ struct RawDatabase {
     url: String,
     schema: Option<String>,
     password_env: Option<String>,
+    tls_ca: Option<PathBuf>,
+    tls_cert: Option<PathBuf>,
+    tls_key: Option<PathBuf>,
 }
 
 #[derive(Deserialize)]
@@ -905,10 +916,20 @@ fn validate(raw: RawConfig, path: &Path) -> Result<Config> {
                 None => site.clone().unwrap_or_else(|| "samewise".to_string()),
             };
             check_schema_name(&schema).map_err(|r| fail(format!("database.schema: {r}")))?;
+            // Certificate files: relative to the configuration file, like the SQLite file.
+            let beside_config = |p: &Option<PathBuf>| {
+                p.as_ref().map(|p| match path.parent() {
+                    Some(dir) if p.is_relative() => dir.join(p),
+                    _ => p.clone(),
+                })
+            };
             Some(ServerDatabase {
                 url: table.url.trim().to_string(),
                 schema,
                 password_env: table.password_env.clone(),
+                tls_ca: beside_config(&table.tls_ca),
+                tls_cert: beside_config(&table.tls_cert),
+                tls_key: beside_config(&table.tls_key),
             })
         }
         (None, Some(text)) if is_server_url(text) => {
@@ -917,6 +938,9 @@ fn validate(raw: RawConfig, path: &Path) -> Result<Config> {
                 url: text.trim().to_string(),
                 schema,
                 password_env: None,
+                tls_ca: None,
+                tls_cert: None,
+                tls_key: None,
             })
         }
         (None, _) => None,

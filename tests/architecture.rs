@@ -93,6 +93,27 @@ fn sqlite_only_in_storage() {
     );
 }
 
+/// The PostgreSQL driver and the TLS library are named only inside `storage` (ARCHITECTURE.md:
+/// the configuration holds the URL and certificate paths, the backend makes the connection).
+#[test]
+fn postgres_and_tls_types_only_in_storage() {
+    let needles = ["postgres::", "tokio_postgres", "rustls"];
+    let found = offenders(&needles, &["src/storage/"]);
+    assert!(
+        found.is_empty(),
+        "the PostgreSQL driver or rustls named outside src/storage:\n{}",
+        found.join("\n")
+    );
+    // Not vacuous: the backend does name them.
+    let inside = offenders(&needles, &[]);
+    for file in ["src/storage/postgres/mod.rs", "src/storage/postgres/tls.rs"] {
+        assert!(
+            inside.iter().any(|u| u.starts_with(file)),
+            "no use of the driver or rustls found in {file}: is the scan reading the sources?"
+        );
+    }
+}
+
 /// The SQLite implementation (`storage::Store`) is named only inside `storage`: cli, analysis,
 /// schedule, report and every other module reach the database through the store's traits
 /// (`storage::PlantStore` and its parts) and open it with `storage::open` and its siblings, so a

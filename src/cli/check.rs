@@ -322,10 +322,11 @@ fn run_sites(
                 period.label,
                 period.kind,
             )?;
+            let width = checked.sites.iter().map(|s| s.site.len()).max().unwrap_or(0);
             for s in &checked.sites {
                 writeln!(
                     out,
-                    "  {:<16} {} active characteristics, {} values in the period",
+                    "  {:<width$}  {} active characteristics, {} values in the period",
                     s.site, s.active_characteristics, s.values
                 )?;
             }

@@ -20,6 +20,7 @@ mod master;
 mod migrate;
 mod query;
 mod runs;
+mod tls;
 
 use std::cell::{RefCell, RefMut};
 
@@ -197,13 +198,17 @@ impl PgStore {
 
 /// Connects to the server and sets the session up: the site's schema first on the search path,
 /// UTC as the session time zone (times are stored as milliseconds; this only affects views).
+/// TLS as the URL's `sslmode` and the `[database]` certificate keys say (see `tls.rs`).
 fn connect(target: &ServerDatabase) -> Result<Client> {
-    let mut config: postgres::Config = target.url.parse().map_err(|e| {
+    let (driver_url, tls) = tls::split_url(target)
+        .map_err(|e| Error::Database(format!("database URL {}: {e}", target.display_url())))?;
+    let mut config: postgres::Config = driver_url.parse().map_err(|e| {
         Error::Database(format!(
             "database URL {}: {e}; expected postgresql://user@host:port/dbname",
             target.display_url()
         ))
     })?;
+    config.ssl_mode(tls.mode.driver_mode());
     if let Some(var) = &target.password_env {
         match std::env::var(var) {
             Ok(password) => {
@@ -220,9 +225,18 @@ fn connect(target: &ServerDatabase) -> Result<Client> {
     if config.get_application_name().is_none() {
         config.application_name("samewise");
     }
-    let mut client = config
-        .connect(NoTls)
-        .map_err(|e| Error::Database(connect_message(target, &config, &e)))?;
+    let connector = tls.connector().map_err(|e| {
+        Error::Database(format!(
+            "TLS for the PostgreSQL database {}: {e}",
+            target.display_url()
+        ))
+    })?;
+    let connected = match connector {
+        Some(rustls) => config.connect(rustls),
+        None => config.connect(NoTls),
+    };
+    let mut client =
+        connected.map_err(|e| Error::Database(connect_message(target, &config, &tls, &e)))?;
     client
         .batch_execute("SET TIME ZONE 'UTC'")
         .map_err(|e| context(e.into(), "setting up the session"))?;
@@ -234,6 +248,7 @@ fn connect(target: &ServerDatabase) -> Result<Client> {
 fn connect_message(
     target: &ServerDatabase,
     config: &postgres::Config,
+    tls: &tls::TlsSettings,
     e: &postgres::Error,
 ) -> String {
     let hosts: Vec<String> = config
@@ -252,25 +267,35 @@ fn connect_message(
     };
     let dbname = config.get_dbname().unwrap_or("(the user's name)");
     let user = config.get_user().unwrap_or("(not given)");
-    let cause = std::error::Error::source(e)
-        .map(|s| s.to_string())
-        .unwrap_or_else(|| e.to_string());
-    let hint = if cause.contains("password") {
-        "check the user's password (give it in the environment variable named by \
-         [database] password_env)"
-    } else if cause.contains("does not exist") {
-        "create the database (createdb) or fix the name in the URL"
-    } else if cause.contains("TLS") || cause.contains("SSL") || cause.contains("ssl") {
-        "this build connects without TLS: use sslmode=disable or prefer on a trusted network, \
-         or reach the server through a TLS tunnel"
-    } else {
-        "check that the server runs, listens on that host and port, and admits this user \
-         from this host (pg_hba.conf)"
+    let (cause, hint) = match tls::explain(e, tls, &host) {
+        Some(explained) => explained,
+        None => {
+            let cause = std::error::Error::source(e)
+                .map(|s| s.to_string())
+                .unwrap_or_else(|| e.to_string());
+            let hint = if cause.contains("password") {
+                "check the user's password (give it in the environment variable named by \
+                 [database] password_env)"
+            } else if cause.contains("does not exist") {
+                "create the database (createdb) or fix the name in the URL"
+            } else if cause.contains("certificate") {
+                "give the client certificate the server asks for as [database] tls_cert and \
+                 tls_key (or sslcert and sslkey in the URL), with sslmode=require or stricter"
+            } else if cause.contains("SSL off") || cause.contains("no encryption") {
+                "the server admits this user over TLS only (hostssl in pg_hba.conf): use \
+                 sslmode=require, verify-ca or verify-full"
+            } else {
+                "check that the server runs, listens on that host and port, and admits this user \
+                 from this host (pg_hba.conf)"
+            };
+            (cause, hint.to_string())
+        }
     };
     format!(
         "could not connect to PostgreSQL at {host}, database {dbname}, user {user} \
-         ({}): {cause}; {hint}",
-        target.display_url()
+         ({}, sslmode={}): {cause}; {hint}",
+        target.display_url(),
+        tls.mode.name()
     )
 }
 
@@ -357,11 +382,15 @@ pub(crate) mod testing {
     impl Drop for TestStore {
         fn drop(&mut self) {
             drop(self.store.take());
-            if let Ok(mut c) = self
-                .url
-                .parse::<postgres::Config>()
-                .and_then(|c| c.connect(NoTls))
-            {
+            let target = ServerDatabase {
+                url: self.url.clone(),
+                schema: self.schema.clone(),
+                password_env: None,
+                tls_ca: None,
+                tls_cert: None,
+                tls_key: None,
+            };
+            if let Ok(mut c) = connect(&target) {
                 let _ = c.batch_execute(&format!(
                     "DROP SCHEMA IF EXISTS {} CASCADE",
                     quote_ident(&self.schema)
@@ -393,6 +422,9 @@ pub(crate) mod testing {
             url: url.clone(),
             schema: schema.clone(),
             password_env: None,
+            tls_ca: None,
+            tls_cert: None,
+            tls_key: None,
         };
         let store = PgStore::open(&target).expect("test server reachable");
         Some(TestStore {
@@ -464,6 +496,9 @@ mod tests {
             url: "postgresql://quality@127.0.0.1:1/plants?connect_timeout=2".to_string(),
             schema: "north".to_string(),
             password_env: None,
+            tls_ca: None,
+            tls_cert: None,
+            tls_key: None,
         };
         let err = PgStore::open(&target).unwrap_err().to_string();
         assert!(err.contains("127.0.0.1:1"), "{err}");
