@@ -87,7 +87,8 @@ impl MeasurementStore for PgStore {
             .filter(|f| f.is_configured)
             .collect();
         let mut cache = self.level_cache.borrow_mut();
-        let mut builder = FrameBuilder::new(&factors, &mut cache);
+        // All of a characteristic's uncached level sets are asked for in one query.
+        let mut builder = FrameBuilder::new(&factors, &mut cache).with_set_chunk(usize::MAX);
         let rows_stmt = tx.prepare(
             "SELECT ts_ms, value, level_set_id, subgroup FROM measurements \
              WHERE characteristic_id = $1 AND ts_ms >= $2 AND ts_ms < $3 \
@@ -115,9 +116,14 @@ impl MeasurementStore for PgStore {
             let tx = std::cell::RefCell::new(tx);
             builder.finish_characteristic(
                 c,
-                |chunk, out| {
-                    let ids: Vec<i64> = chunk.to_vec();
-                    for r in tx.borrow_mut().query(sets_stmt, &[&ids])? {
+                |ids, out| {
+                    let mut tx = tx.borrow_mut();
+                    let rows = if read_every_set(&mut tx, ids.len())? {
+                        tx.query("SELECT id, key FROM level_sets", &[])?
+                    } else {
+                        tx.query(sets_stmt, &[&ids])?
+                    };
+                    for r in rows {
                         out.push((r.get(0), r.get(1)));
                     }
                     Ok(())
@@ -149,6 +155,24 @@ impl MeasurementStore for PgStore {
             Ok(Box::new(reader) as Box<dyn MeasurementStore + Send>)
         }))
     }
+}
+
+/// Uncached level sets asked for at once from which reading every level set (one sequential
+/// scan) may be cheaper than looking each up by id.
+const SETS_WORTH_A_WHOLE_READ: usize = 1024;
+
+/// Whether to read every level set instead of the `asked` ones by id: when they are at least a
+/// sixteenth of all (ids are numbered from 1, so the highest id bounds their number). Measured
+/// on the benchmark plant (docs/performance.md, "PostgreSQL daily check"): a look-up by id costs
+/// the server about 2.4 microseconds a set, reading every set about 0.2 a set, so at a sixteenth
+/// the whole read costs about what the look-ups would, and a day touches most of a plant's
+/// level sets: the whole read fills the connection's cache for the characteristics after it.
+fn read_every_set(tx: &mut postgres::Transaction<'_>, asked: usize) -> Result<bool> {
+    if asked < SETS_WORTH_A_WHOLE_READ {
+        return Ok(false);
+    }
+    let highest: Option<i64> = tx.query_one("SELECT MAX(id) FROM level_sets", &[])?.get(0);
+    Ok(highest.is_some_and(|h| (asked as i64).saturating_mul(16) >= h))
 }
 
 #[cfg(test)]
