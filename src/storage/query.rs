@@ -86,6 +86,12 @@ impl LevelCache {
     pub(crate) fn clear(&mut self) {
         *self = LevelCache::default();
     }
+
+    /// How many level sets are cached.
+    #[cfg(test)]
+    pub(crate) fn cached_sets(&self) -> usize {
+        self.members.len() / self.factor_ids.len().max(1)
+    }
 }
 
 /// The exact value `origin + offset` for a characteristic whose values have at most `decimals`

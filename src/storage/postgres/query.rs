@@ -308,6 +308,107 @@ name = "cavity"
         assert_eq!(v, 10.1 + 0.0125);
     }
 
+    /// 1,600 level sets (40 machines x 40 cavities), 1,100 of them used by `bore` on the first
+    /// day and 10 by `pitch`: reading `pitch` asks for its sets by id; reading `bore` asks for
+    /// 1,100 sets at once, enough to read all 1,600 in one pass. Both read the same as on
+    /// SQLite, which asks by id in chunks (the reference here).
+    #[test]
+    fn many_level_sets_are_read_whole_and_give_the_same_frames() {
+        let Some(mut pg) = testing::store() else {
+            return;
+        };
+        let config = crate::config::Config::from_toml_str(CONFIG, "plant.toml").unwrap();
+        let mut sqlite = Store::open_in_memory().unwrap();
+        MaintenanceStore::sync_config(&mut sqlite, &config).unwrap();
+        MaintenanceStore::sync_config(&mut *pg, &config).unwrap();
+        let mut sql = String::from(
+            "INSERT INTO imports (id, file_name, path, sha256, layout, started_ms, finished_ms, \
+             rows_read, accepted, rejected) VALUES (1, 'a.csv', 'a.csv', 'x', 'long', 0, 0, \
+             1110, 1110, 0);\n",
+        );
+        let levels: Vec<String> = (1..=80)
+            .map(|id| {
+                let (factor, name) = if id <= 40 {
+                    (1, format!("M{id}"))
+                } else {
+                    (2, format!("c{}", id - 40))
+                };
+                format!("({id}, {factor}, '{name}')")
+            })
+            .collect();
+        sql += &format!(
+            "INSERT INTO levels (id, factor_id, name) VALUES {};\n",
+            levels.join(", ")
+        );
+        let (mut sets, mut members) = (Vec::new(), Vec::new());
+        for m in 1..=40 {
+            for c in 41..=80 {
+                let id = (m - 1) * 40 + (c - 40);
+                sets.push(format!("({id}, '{m},{c}')"));
+                members.push(format!("({id}, 1, {m}), ({id}, 2, {c})"));
+            }
+        }
+        sql += &format!(
+            "INSERT INTO level_sets (id, key) VALUES {};\n",
+            sets.join(", ")
+        );
+        sql += &format!(
+            "INSERT INTO level_set_members (level_set_id, factor_id, level_id) VALUES {};\n",
+            members.join(", ")
+        );
+        // bore: 1,100 distinct sets (37 i mod 1600, plus 1), every 7th value negative; pitch:
+        // every 100th set.
+        let mut rows: Vec<String> = (1..=1100)
+            .map(|i| {
+                let set = (i * 37) % 1600 + 1;
+                let value = if i % 7 == 0 {
+                    -(i as f64) / 8.0
+                } else {
+                    i as f64 / 1000.0
+                };
+                format!(
+                    "(1, {}, 1, {i}, {value:e}, {set}, NULL, 's{}')",
+                    i * 60_000,
+                    i / 3
+                )
+            })
+            .collect();
+        rows.extend((1..=10).map(|i| {
+            format!(
+                "(2, {}, 1, {}, {}.5, {}, NULL, NULL)",
+                i * 1000,
+                2000 + i,
+                i,
+                i * 100
+            )
+        }));
+        sql += &format!(
+            "INSERT INTO measurements (characteristic_id, ts_ms, import_id, line, value, \
+             level_set_id, part, subgroup) VALUES {};",
+            rows.join(", ")
+        );
+        sqlite.conn.execute_batch(&sql).unwrap();
+        pg.conn().batch_execute(&sql).unwrap();
+        let t0 = DateTime::from_timestamp_millis(0).unwrap();
+        let t1 = DateTime::from_timestamp_millis(86_400_000).unwrap();
+        let pitch = Some(vec!["pitch".to_string()]);
+        let a = MeasurementStore::load_period(&sqlite, t0, t1, pitch.as_deref()).unwrap();
+        assert_eq!(pg.load_period(t0, t1, pitch.as_deref()).unwrap(), a);
+        assert_eq!(pg.level_cache.borrow().cached_sets(), 10, "pitch by id");
+        let a = MeasurementStore::load_period(&sqlite, t0, t1, None).unwrap();
+        assert_eq!(a.characteristics[0].values.len(), 1100);
+        assert_eq!(pg.load_period(t0, t1, None).unwrap(), a);
+        assert_eq!(
+            pg.level_cache.borrow().cached_sets(),
+            1600,
+            "every set read"
+        );
+        // From the cache alone, and on a fresh reader (whole read first), the same.
+        assert_eq!(pg.load_period(t0, t1, None).unwrap(), a);
+        let reader = (pg.reader_opener().unwrap())().unwrap();
+        assert_eq!(reader.load_period(t0, t1, None).unwrap(), a);
+    }
+
     #[test]
     fn db_check_finds_an_import_whose_counts_disagree() {
         let Some(mut pg) = testing::store() else {
