@@ -69,6 +69,15 @@ impl MeasurementStore for PgStore {
             .isolation_level(IsolationLevel::RepeatableRead)
             .read_only(true)
             .start()?;
+        // The rows are wanted in primary-key order, which a scan of that index yields as it
+        // reads. The planner prices the heap visits of that scan by the whole table's
+        // correlation of characteristic_id, low because imports write in time order, and picks
+        // a bitmap heap scan and a sort instead (a month's sort spills to disk): three times
+        // slower on the benchmark plant (docs/performance.md, "PostgreSQL daily check"). Plans
+        // that need a sort are priced out for this transaction only. That pricing (and a
+        // month's rows) would put the plans above the JIT compiler's threshold, which costs
+        // 5 to 100 ms a query and gains nothing on a scan with no expressions: off as well.
+        tx.batch_execute("SET LOCAL enable_sort = off; SET LOCAL jit = off")?;
         let stored = load_characteristics(&mut tx)?;
         let chosen: Vec<&StoredCharacteristic> = match characteristics {
             None => stored.iter().collect(),
