@@ -86,12 +86,6 @@ impl LevelCache {
     pub(crate) fn clear(&mut self) {
         *self = LevelCache::default();
     }
-
-    /// How many level sets are cached.
-    #[cfg(test)]
-    pub(crate) fn cached_sets(&self) -> usize {
-        self.members.len() / self.factor_ids.len().max(1)
-    }
 }
 
 /// The exact value `origin + offset` for a characteristic whose values have at most `decimals`
@@ -695,6 +689,16 @@ impl MeasurementStore for Store {
         Some(Box::new(move || {
             Store::open_reader(&path).map(|s| Box::new(s) as Box<dyn MeasurementStore + Send>)
         }))
+    }
+}
+
+#[cfg(test)]
+pub(crate) mod testing {
+    use super::LevelCache;
+
+    /// How many level sets `cache` holds.
+    pub(crate) fn cached_sets(cache: &LevelCache) -> usize {
+        cache.members.len() / cache.factor_ids.len().max(1)
     }
 }
 

@@ -189,6 +189,7 @@ mod tests {
     use super::*;
     use crate::storage::maintenance::MaintenanceStore;
     use crate::storage::postgres::testing;
+    use crate::storage::query::testing::cached_sets;
     use crate::storage::Store;
 
     const CONFIG: &str = r#"
@@ -403,12 +404,12 @@ name = "cavity"
         let pitch = Some(vec!["pitch".to_string()]);
         let a = MeasurementStore::load_period(&sqlite, t0, t1, pitch.as_deref()).unwrap();
         assert_eq!(pg.load_period(t0, t1, pitch.as_deref()).unwrap(), a);
-        assert_eq!(pg.level_cache.borrow().cached_sets(), 10, "pitch by id");
+        assert_eq!(cached_sets(&pg.level_cache.borrow()), 10, "pitch by id");
         let a = MeasurementStore::load_period(&sqlite, t0, t1, None).unwrap();
         assert_eq!(a.characteristics[0].values.len(), 1100);
         assert_eq!(pg.load_period(t0, t1, None).unwrap(), a);
         assert_eq!(
-            pg.level_cache.borrow().cached_sets(),
+            cached_sets(&pg.level_cache.borrow()),
             1600,
             "every set read"
         );
