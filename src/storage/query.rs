@@ -78,7 +78,8 @@ pub(crate) struct LevelCache {
     levels: FxMap<i64, (i64, String)>,
 }
 
-/// Level sets fetched per query when filling the cache.
+/// Level sets fetched per query when filling the cache (SQLite's fixed-size `IN` list; a
+/// backend may ask for another size with [`FrameBuilder::with_set_chunk`]).
 const SET_CHUNK: usize = 256;
 
 impl LevelCache {
@@ -161,6 +162,7 @@ pub(crate) struct FrameBuilder<'c> {
     subgroup_idx: Vec<u32>,
     sets: Vec<i64>,
     missing: Vec<i64>,
+    set_chunk: usize,
 }
 
 impl<'c> FrameBuilder<'c> {
@@ -192,7 +194,15 @@ impl<'c> FrameBuilder<'c> {
             subgroup_idx: Vec::new(),
             sets: Vec::new(),
             missing: Vec::new(),
+            set_chunk: SET_CHUNK,
         }
+    }
+
+    /// Asks `fetch_sets` for at most `n` level set ids at a time instead of [`SET_CHUNK`]
+    /// (`usize::MAX`: all of a characteristic's uncached sets in one call).
+    pub(crate) fn with_set_chunk(mut self, n: usize) -> FrameBuilder<'c> {
+        self.set_chunk = n.max(1);
+        self
     }
 
     /// Starts the next characteristic's frame.
@@ -234,8 +244,10 @@ impl<'c> FrameBuilder<'c> {
     }
 
     /// Ends the frame of `c`: resolves its level sets (from the cache, or fetched: `fetch_sets`
-    /// appends the (id, key) rows of a chunk of at most [`SET_CHUNK`] level set ids;
-    /// `read_levels` fills in every level with its factor and name).
+    /// appends the (id, key) rows of a chunk of at most [`SET_CHUNK`] level set ids, or of the
+    /// size set by [`FrameBuilder::with_set_chunk`]; it may append rows of other level sets as
+    /// well, which are cached too; `read_levels` fills in every level with its factor and
+    /// name).
     pub(crate) fn finish_characteristic(
         &mut self,
         c: &StoredCharacteristic,
@@ -254,7 +266,13 @@ impl<'c> FrameBuilder<'c> {
         }
         self.missing.sort_unstable();
         self.missing.dedup();
-        if let Err(e) = fetch_level_sets(cache, &self.missing, &mut fetch_sets, &mut read_levels) {
+        if let Err(e) = fetch_level_sets(
+            cache,
+            &self.missing,
+            self.set_chunk,
+            &mut fetch_sets,
+            &mut read_levels,
+        ) {
             // The sets of the failed chunk were entered before their rows were read: drop the
             // cache rather than keep entries without members.
             cache.clear();
@@ -414,7 +432,9 @@ impl FrameLevels {
     }
 }
 
-/// Puts the levels of each level set in `missing` (sorted, none cached yet) into the cache.
+/// Puts the levels of each level set in `missing` (sorted, none cached yet) into the cache,
+/// asking `fetch_sets` for `chunk` ids at a time. Rows of sets not asked for (a backend that
+/// read every level set at once) are cached as well.
 ///
 /// Each set is read as one `level_sets` row: its `key` lists the member level ids, the same ones
 /// as its `level_set_members` rows (both are written together by the import, and `samewise db
@@ -423,6 +443,7 @@ impl FrameLevels {
 pub(crate) fn fetch_level_sets(
     cache: &mut LevelCache,
     missing: &[i64],
+    chunk: usize,
     fetch_sets: &mut impl FnMut(&[i64], &mut Vec<(i64, String)>) -> Result<()>,
     read_levels: &mut impl FnMut(&mut FxMap<i64, (i64, String)>) -> Result<()>,
 ) -> Result<()> {
@@ -431,18 +452,38 @@ pub(crate) fn fetch_level_sets(
     }
     let n_factors = cache.factor_ids.len();
     let mut levels_read = false;
-    let mut rows: Vec<(i64, String)> = Vec::with_capacity(SET_CHUNK);
-    for chunk in missing.chunks(SET_CHUNK) {
-        // Every set of the chunk gets an entry, even one without members of configured factors.
-        for &set in chunk {
-            cache.sets.insert(set, cache.members.len());
-            cache.members.resize(cache.members.len() + n_factors, 0);
+    let mut rows: Vec<(i64, String)> = Vec::with_capacity(chunk.min(missing.len()));
+    let mut at = 0;
+    while at < missing.len() {
+        // Every set of the chunk gets an entry, even one without members of configured factors;
+        // sets that an earlier chunk's extra rows cached already are not asked for again.
+        let mut asked = Vec::with_capacity(chunk.min(missing.len() - at));
+        while at < missing.len() && asked.len() < chunk {
+            let set = missing[at];
+            at += 1;
+            if cache.sets.get(set).is_none() {
+                cache.sets.insert(set, cache.members.len());
+                cache.members.resize(cache.members.len() + n_factors, 0);
+                asked.push(set);
+            }
+        }
+        if asked.is_empty() {
+            break;
         }
         rows.clear();
-        fetch_sets(chunk, &mut rows)?;
+        fetch_sets(&asked, &mut rows)?;
         for (set, key) in &rows {
             let (set, key) = (*set, key.as_str());
-            let start = cache.sets.get(set).ok_or_else(|| bad_key(set, key))?;
+            let start = match cache.sets.get(set) {
+                Some(start) => start,
+                None => {
+                    // A set not asked for: cached as well.
+                    let start = cache.members.len();
+                    cache.sets.insert(set, start);
+                    cache.members.resize(start + n_factors, 0);
+                    start
+                }
+            };
             for level_id in level_set_key_ids(key) {
                 let level_id = level_id.ok_or_else(|| bad_key(set, key))?;
                 if !cache.levels.contains_key(&level_id) && !levels_read {
@@ -648,6 +689,16 @@ impl MeasurementStore for Store {
         Some(Box::new(move || {
             Store::open_reader(&path).map(|s| Box::new(s) as Box<dyn MeasurementStore + Send>)
         }))
+    }
+}
+
+#[cfg(test)]
+pub(crate) mod testing {
+    use super::LevelCache;
+
+    /// How many level sets `cache` holds.
+    pub(crate) fn cached_sets(cache: &LevelCache) -> usize {
+        cache.members.len() / cache.factor_ids.len().max(1)
     }
 }
 

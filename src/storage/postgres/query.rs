@@ -69,6 +69,15 @@ impl MeasurementStore for PgStore {
             .isolation_level(IsolationLevel::RepeatableRead)
             .read_only(true)
             .start()?;
+        // The rows are wanted in primary-key order, which a scan of that index yields as it
+        // reads. The planner prices the heap visits of that scan by the whole table's
+        // correlation of characteristic_id, low because imports write in time order, and picks
+        // a bitmap heap scan and a sort instead (a month's sort spills to disk): three times
+        // slower on the benchmark plant (docs/performance.md, "PostgreSQL daily check"). Plans
+        // that need a sort are priced out for this transaction only. That pricing (and a
+        // month's rows) would put the plans above the JIT compiler's threshold, which costs
+        // 5 to 100 ms a query and gains nothing on a scan with no expressions: off as well.
+        tx.batch_execute("SET LOCAL enable_sort = off; SET LOCAL jit = off")?;
         let stored = load_characteristics(&mut tx)?;
         let chosen: Vec<&StoredCharacteristic> = match characteristics {
             None => stored.iter().collect(),
@@ -87,7 +96,8 @@ impl MeasurementStore for PgStore {
             .filter(|f| f.is_configured)
             .collect();
         let mut cache = self.level_cache.borrow_mut();
-        let mut builder = FrameBuilder::new(&factors, &mut cache);
+        // All of a characteristic's uncached level sets are asked for in one query.
+        let mut builder = FrameBuilder::new(&factors, &mut cache).with_set_chunk(usize::MAX);
         let rows_stmt = tx.prepare(
             "SELECT ts_ms, value, level_set_id, subgroup FROM measurements \
              WHERE characteristic_id = $1 AND ts_ms >= $2 AND ts_ms < $3 \
@@ -115,9 +125,14 @@ impl MeasurementStore for PgStore {
             let tx = std::cell::RefCell::new(tx);
             builder.finish_characteristic(
                 c,
-                |chunk, out| {
-                    let ids: Vec<i64> = chunk.to_vec();
-                    for r in tx.borrow_mut().query(sets_stmt, &[&ids])? {
+                |ids, out| {
+                    let mut tx = tx.borrow_mut();
+                    let rows = if read_every_set(&mut tx, ids.len())? {
+                        tx.query("SELECT id, key FROM level_sets", &[])?
+                    } else {
+                        tx.query(sets_stmt, &[&ids])?
+                    };
+                    for r in rows {
                         out.push((r.get(0), r.get(1)));
                     }
                     Ok(())
@@ -151,11 +166,30 @@ impl MeasurementStore for PgStore {
     }
 }
 
+/// Uncached level sets asked for at once from which reading every level set (one sequential
+/// scan) may be cheaper than looking each up by id.
+const SETS_WORTH_A_WHOLE_READ: usize = 1024;
+
+/// Whether to read every level set instead of the `asked` ones by id: when they are at least a
+/// sixteenth of all (ids are numbered from 1, so the highest id bounds their number). Measured
+/// on the benchmark plant (docs/performance.md, "PostgreSQL daily check"): a look-up by id costs
+/// the server about 2.4 microseconds a set, reading every set about 0.2 a set, so at a sixteenth
+/// the whole read costs about what the look-ups would, and a day touches most of a plant's
+/// level sets: the whole read fills the connection's cache for the characteristics after it.
+fn read_every_set(tx: &mut postgres::Transaction<'_>, asked: usize) -> Result<bool> {
+    if asked < SETS_WORTH_A_WHOLE_READ {
+        return Ok(false);
+    }
+    let highest: Option<i64> = tx.query_one("SELECT MAX(id) FROM level_sets", &[])?.get(0);
+    Ok(highest.is_some_and(|h| (asked as i64).saturating_mul(16) >= h))
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
     use crate::storage::maintenance::MaintenanceStore;
     use crate::storage::postgres::testing;
+    use crate::storage::query::testing::cached_sets;
     use crate::storage::Store;
 
     const CONFIG: &str = r#"
@@ -282,6 +316,107 @@ name = "cavity"
             .unwrap()
             .get(0);
         assert_eq!(v, 10.1 + 0.0125);
+    }
+
+    /// 1,600 level sets (40 machines x 40 cavities), 1,100 of them used by `bore` on the first
+    /// day and 10 by `pitch`: reading `pitch` asks for its sets by id; reading `bore` asks for
+    /// 1,100 sets at once, enough to read all 1,600 in one pass. Both read the same as on
+    /// SQLite, which asks by id in chunks (the reference here).
+    #[test]
+    fn many_level_sets_are_read_whole_and_give_the_same_frames() {
+        let Some(mut pg) = testing::store() else {
+            return;
+        };
+        let config = crate::config::Config::from_toml_str(CONFIG, "plant.toml").unwrap();
+        let mut sqlite = Store::open_in_memory().unwrap();
+        MaintenanceStore::sync_config(&mut sqlite, &config).unwrap();
+        MaintenanceStore::sync_config(&mut *pg, &config).unwrap();
+        let mut sql = String::from(
+            "INSERT INTO imports (id, file_name, path, sha256, layout, started_ms, finished_ms, \
+             rows_read, accepted, rejected) VALUES (1, 'a.csv', 'a.csv', 'x', 'long', 0, 0, \
+             1110, 1110, 0);\n",
+        );
+        let levels: Vec<String> = (1..=80)
+            .map(|id| {
+                let (factor, name) = if id <= 40 {
+                    (1, format!("M{id}"))
+                } else {
+                    (2, format!("c{}", id - 40))
+                };
+                format!("({id}, {factor}, '{name}')")
+            })
+            .collect();
+        sql += &format!(
+            "INSERT INTO levels (id, factor_id, name) VALUES {};\n",
+            levels.join(", ")
+        );
+        let (mut sets, mut members) = (Vec::new(), Vec::new());
+        for m in 1..=40 {
+            for c in 41..=80 {
+                let id = (m - 1) * 40 + (c - 40);
+                sets.push(format!("({id}, '{m},{c}')"));
+                members.push(format!("({id}, 1, {m}), ({id}, 2, {c})"));
+            }
+        }
+        sql += &format!(
+            "INSERT INTO level_sets (id, key) VALUES {};\n",
+            sets.join(", ")
+        );
+        sql += &format!(
+            "INSERT INTO level_set_members (level_set_id, factor_id, level_id) VALUES {};\n",
+            members.join(", ")
+        );
+        // bore: 1,100 distinct sets (37 i mod 1600, plus 1), every 7th value negative; pitch:
+        // every 100th set.
+        let mut rows: Vec<String> = (1..=1100)
+            .map(|i| {
+                let set = (i * 37) % 1600 + 1;
+                let value = if i % 7 == 0 {
+                    -(i as f64) / 8.0
+                } else {
+                    i as f64 / 1000.0
+                };
+                format!(
+                    "(1, {}, 1, {i}, {value:e}, {set}, NULL, 's{}')",
+                    i * 60_000,
+                    i / 3
+                )
+            })
+            .collect();
+        rows.extend((1..=10).map(|i| {
+            format!(
+                "(2, {}, 1, {}, {}.5, {}, NULL, NULL)",
+                i * 1000,
+                2000 + i,
+                i,
+                i * 100
+            )
+        }));
+        sql += &format!(
+            "INSERT INTO measurements (characteristic_id, ts_ms, import_id, line, value, \
+             level_set_id, part, subgroup) VALUES {};",
+            rows.join(", ")
+        );
+        sqlite.conn.execute_batch(&sql).unwrap();
+        pg.conn().batch_execute(&sql).unwrap();
+        let t0 = DateTime::from_timestamp_millis(0).unwrap();
+        let t1 = DateTime::from_timestamp_millis(86_400_000).unwrap();
+        let pitch = Some(vec!["pitch".to_string()]);
+        let a = MeasurementStore::load_period(&sqlite, t0, t1, pitch.as_deref()).unwrap();
+        assert_eq!(pg.load_period(t0, t1, pitch.as_deref()).unwrap(), a);
+        assert_eq!(cached_sets(&pg.level_cache.borrow()), 10, "pitch by id");
+        let a = MeasurementStore::load_period(&sqlite, t0, t1, None).unwrap();
+        assert_eq!(a.characteristics[0].values.len(), 1100);
+        assert_eq!(pg.load_period(t0, t1, None).unwrap(), a);
+        assert_eq!(
+            cached_sets(&pg.level_cache.borrow()),
+            1600,
+            "every set read"
+        );
+        // From the cache alone, and on a fresh reader (whole read first), the same.
+        assert_eq!(pg.load_period(t0, t1, None).unwrap(), a);
+        let reader = (pg.reader_opener().unwrap())().unwrap();
+        assert_eq!(reader.load_period(t0, t1, None).unwrap(), a);
     }
 
     #[test]

@@ -16,8 +16,9 @@
 //!
 //! Waiting for a lock is bounded by the busy timeout (`SAMEWISE_BUSY_TIMEOUT`), as on SQLite.
 
-use postgres::types::ToSql;
-use postgres::{GenericClient, Statement, Transaction};
+use postgres::binary_copy::BinaryCopyInWriter;
+use postgres::types::{ToSql, Type};
+use postgres::{GenericClient, Transaction};
 
 use super::PgStore;
 use crate::storage::columns::{
@@ -49,46 +50,47 @@ pub(super) fn bound_lock_waits(tx: &mut Transaction<'_>) -> Result<()> {
     Ok(())
 }
 
-/// PostgreSQL binds at most this many parameters in one statement.
-const MAX_PARAMETERS: usize = 65_535;
-
-/// Rows per multi-row `INSERT` (fewer when the rows are wide).
-const ROWS_PER_INSERT: usize = 500;
-
-/// Inserts `rows` (each `width` values, in the order of `columns`) into `table` with multi-row
-/// `INSERT`s, in order: one round trip per few hundred rows instead of one per row. Identity
-/// columns are assigned in the order of the rows.
+/// Writes `rows` (each the values of `columns`, in order) into `table` with one binary COPY:
+/// a round trip or two whatever the number of rows, where multi-row `INSERT`s of a few hundred
+/// rows cost the server several milliseconds each to bind (docs/performance.md, "PostgreSQL
+/// daily check"). Identity columns are assigned in the order of the rows; the values keep
+/// their bits (binary format).
 pub(super) fn insert_rows(
     tx: &mut Transaction<'_>,
     table: &str,
     columns: &str,
     rows: &[Vec<Value<'_>>],
 ) -> Result<()> {
-    let width = column_count(columns);
-    let per = (MAX_PARAMETERS / width).clamp(1, ROWS_PER_INSERT);
-    let sql = |n: usize| {
-        let tuples: Vec<String> = (0..n)
-            .map(|r| format!("({})", placeholders('$', r * width + 1, width)))
-            .collect();
-        format!(
-            "INSERT INTO {table} ({columns}) VALUES {}",
-            tuples.join(", ")
-        )
-    };
-    let mut full: Option<Statement> = None;
-    for chunk in rows.chunks(per) {
-        debug_assert!(chunk.iter().all(|r| r.len() == width));
-        let params: Vec<&(dyn ToSql + Sync)> = chunk.iter().flatten().map(Value::pg).collect();
-        if chunk.len() == per {
-            let statement = match &full {
-                Some(s) => s.clone(),
-                None => full.insert(tx.prepare(&sql(per))?).clone(),
-            };
-            tx.execute(&statement, &params)?;
-        } else {
-            tx.execute(sql(chunk.len()).as_str(), &params)?;
-        }
+    if rows.is_empty() {
+        return Ok(());
     }
+    // The columns' types as the server has them: binary COPY does not convert, so each value is
+    // checked against its column's type as it is written (a mismatch is an error).
+    let types: Vec<Type> = tx
+        .prepare(&format!("SELECT {columns} FROM {table}"))?
+        .columns()
+        .iter()
+        .map(|c| c.type_().clone())
+        .collect();
+    debug_assert_eq!(types.len(), column_count(columns));
+    let sink = tx.copy_in(&format!(
+        "COPY {table} ({columns}) FROM STDIN (FORMAT binary)"
+    ))?;
+    let mut writer = BinaryCopyInWriter::new(sink, &types);
+    let mut params: Vec<&(dyn ToSql + Sync)> = Vec::with_capacity(types.len());
+    for row in rows {
+        if row.len() != types.len() {
+            return Err(crate::Error::Database(format!(
+                "{table}: a row of {} values for the {} columns {columns}",
+                row.len(),
+                types.len()
+            )));
+        }
+        params.clear();
+        params.extend(row.iter().map(Value::pg));
+        writer.write(&params)?;
+    }
+    writer.finish()?;
     Ok(())
 }
 
