@@ -322,7 +322,12 @@ fn run_sites(
                 period.label,
                 period.kind,
             )?;
-            let width = checked.sites.iter().map(|s| s.site.len()).max().unwrap_or(0);
+            let width = checked
+                .sites
+                .iter()
+                .map(|s| s.site.len())
+                .max()
+                .unwrap_or(0);
             for s in &checked.sites {
                 writeln!(
                     out,
