@@ -64,8 +64,8 @@ pub const MIGRATIONS: &[Migration] = &[
         sql: include_str!("../../migrations/0010_component_intervals.sql"),
     },
     Migration {
-        name: "0011_flag_as_integer.sql",
-        sql: include_str!("../../migrations/0011_flag_as_integer.sql"),
+        name: "0011_server_results.sql",
+        sql: include_str!("../../migrations/0011_server_results.sql"),
     },
 ];
 

@@ -20,11 +20,12 @@ fn count(c: &mut impl GenericClient, sql: &str) -> Result<u64> {
     Ok(c.query_one(sql, &[])?.get::<_, i64>(0) as u64)
 }
 
-/// The references between the tables, checked one by one: those of `measurements`, which the
-/// schema does not declare (the import writes only ids it has just read or created), and the
+/// The references between the tables, checked one by one: those of `measurements` and of the run
+/// tables to `run`, which the schema does not declare (the import writes only ids it has just
+/// read or created, a run only its own id), and the
 /// foreign keys PostgreSQL enforces, checked again (a constraint dropped or disabled by hand
 /// would let them break): (child table, column, parent table, parent column).
-const REFERENCES: [(&str, &str, &str, &str); 9] = [
+const REFERENCES: [(&str, &str, &str, &str); 12] = [
     ("levels", "factor_id", "factors", "id"),
     ("level_set_members", "level_set_id", "level_sets", "id"),
     ("level_set_members", "level_id", "levels", "id"),
@@ -34,6 +35,9 @@ const REFERENCES: [(&str, &str, &str, &str); 9] = [
     ("measurements", "level_set_id", "level_sets", "id"),
     ("event_scopes", "event_id", "events", "id"),
     ("finding_note", "finding_id", "finding", "finding_id"),
+    ("run_result", "run_id", "run", "run_id"),
+    ("run_group", "run_id", "run", "run_id"),
+    ("run_pair", "run_id", "run", "run_id"),
 ];
 
 impl MaintenanceStore for PgStore {

@@ -32,8 +32,8 @@ pub const MIGRATIONS: &[PgMigration] = &[
     },
     PgMigration {
         version: 11,
-        name: "0011_flag_as_integer.sql",
-        sql: include_str!("../../../migrations/postgres/0011_flag_as_integer.sql"),
+        name: "0011_server_results.sql",
+        sql: include_str!("../../../migrations/postgres/0011_server_results.sql"),
     },
 ];
 

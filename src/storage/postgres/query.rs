@@ -554,6 +554,31 @@ name = "cavity"
         assert!(err.contains("pg_dump --schema="), "{err}");
     }
 
+    /// The run tables' references to `run` are not enforced by the schema (migration 0011):
+    /// `db check` finds a result row whose run does not exist.
+    #[test]
+    fn db_check_finds_run_rows_without_their_run() {
+        let Some(mut pg) = testing::store() else {
+            return;
+        };
+        let config = crate::config::Config::from_toml_str(CONFIG, "plant.toml").unwrap();
+        MaintenanceStore::sync_config(&mut *pg, &config).unwrap();
+        assert!(pg.integrity_check().unwrap().is_ok());
+        pg.conn()
+            .batch_execute(
+                "INSERT INTO run_group (run_id, test_idx, group_idx, level, n, mean, min, max, \
+                 origin) VALUES (424242, 0, 0, 'M1', 2, 0.5, 0.0, 1.0, '10')",
+            )
+            .unwrap();
+        let report = pg.integrity_check().unwrap();
+        assert!(!report.is_ok());
+        assert_eq!(
+            report.foreign_keys,
+            ["run_group.run_id: 1 rows -> run"],
+            "{report:?}"
+        );
+    }
+
     #[test]
     fn an_empty_site_reads_empty_and_names_an_unknown_characteristic() {
         let Some(store) = testing::store() else {
