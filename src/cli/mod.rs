@@ -180,7 +180,8 @@ Which test leads (chosen from the null-rate study in docs/null-rates.md, `cargo 
 - groups about equally sized (largest at most 1.5 x smallest) but smaller than Welch's test needs (5 values per group up to 5 groups, 10 up to 10, 15 up to 20, 30 up to 40), without a check of the spreads: from 5 values per group Brown and Forsythe's F* (its df follow the group variances), with 2-4 the classic F;
 - very unequal sizes and a group below Welch's size: no test; the state is \"too few values to compare\";
 - very unequal sizes and every group at Welch's size: Welch's test, without a check of the spreads;
-- about equal sizes at Welch's size: Brown-Forsythe (p < 0.05) and, with at most 5 groups, the SD ratio (> 2) judge the spreads: alike, the classic F leads; different, Welch's test.
+- about equal sizes at Welch's size: Brown-Forsythe (p < 0.05) and, with at most 5 groups, the SD ratio (> 2) judge the spreads: alike, the classic F leads; different, Welch's test;
+- where Welch's test leads with at most 5 groups and 20-49 values in the smallest: its p-value from the bootstrap-t (599 resamples of each group's values around its own mean, seeded from the data, so the same data give the same verdict), which holds its level on skewed values where Welch's F distribution does not.
 
 Sampling structure (a layout's subgroup = \"Shot\" column, or subgroup_window): parts of one subgroup share its deviation. A factor constant within every subgroup (machine, lot, shift) is tested on the subgroup means (nested); a factor that varies within the subgroups (cavity, spindle) is tested with the subgroups as blocks (additive two-way ANOVA, Type II); anything else on the mean of each level within each subgroup. Without subgroups the values are checked for serial dependence in time order; a flag that does not hold once the design effect of that dependence is allowed for becomes \"differs? not independent\" (not a flag: name the subgroup column).
 
