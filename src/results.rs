@@ -102,6 +102,7 @@ pub enum LeadingTest {
     /// Brown and Forsythe's F* test of means.
     FStar,
     /// Welch's statistic with its p-value from the bootstrap-t.
+    #[serde(rename = "welch_bootstrap_t")]
     WelchBootstrap,
     /// The F test of the factor with the subgroups as blocks (additive two-way model).
     BlockedF,
