@@ -140,15 +140,23 @@ pub fn welch_bootstrap_t(groups: &[&[f64]], resamples: usize, state: u64) -> Sta
 
 /// Krishnamoorthy, Lu and Mathew's statistic `Σ n_i x̄_i² / s_i² - (Σ n_i x̄_i / s_i²)² / Σ n_i /
 /// s_i²` (their eq. 2.4; `(k - 1)` times the numerator of Welch's F).
+/// Computed as `Σ w_i (x̄_i - m)²` with `w_i = n_i / s_i²` and the weighted mean `m`, the same
+/// quantity without the cancellation of the two sums when the means are large against their
+/// differences.
 fn klm_statistic(n: &[f64], mean: &[f64], var: &[f64]) -> f64 {
-    let (mut a, mut b, mut c) = (0.0, 0.0, 0.0);
+    let (mut wm, mut w_sum) = (0.0, 0.0);
     for i in 0..n.len() {
         let w = n[i] / var[i];
-        a += w * mean[i] * mean[i];
-        b += w * mean[i];
-        c += w;
+        wm += w * mean[i];
+        w_sum += w;
     }
-    a - b * b / c
+    let m = wm / w_sum;
+    (0..n.len())
+        .map(|i| {
+            let d = mean[i] - m;
+            n[i] / var[i] * d * d
+        })
+        .sum()
 }
 
 /// A standard normal deviate (Marsaglia's polar method).
