@@ -349,7 +349,7 @@ pub fn calibrate_welch(
                 Leading {
                     method: LeadingMethod::WelchBootstrap,
                     reason: format!(
-                        "{}; with {k} groups and {n_min} values in the smallest, the p-value comes from the bootstrap-t ({BOOTSTRAP_RESAMPLES} resamples of each group's values around its own mean) rather than Welch's F distribution, which skewed values put off its level there",
+                        "{}; with {k} groups and {n_min} values in the smallest, the p-value comes from the bootstrap-t ({BOOTSTRAP_RESAMPLES} resamples of each group's values around its own mean) rather than Welch's F distribution, whose level skewed values can upset with groups this small",
                         leading.reason
                     ),
                     p: Some(t.p),
