@@ -11,17 +11,21 @@
 use std::sync::atomic::{AtomicUsize, Ordering};
 use std::sync::Mutex;
 
-use samewise::scenario::{bradley_liberal, cell_state, grid, rate, study_options, CellRate};
+use samewise::scenario::{bradley_liberal, cell_state, grid, rate, study_options, Cell, CellRate};
 
 fn main() {
     let args: Vec<String> = std::env::args().skip(1).collect();
     let reps: usize = args.iter().find_map(|a| a.parse().ok()).unwrap_or(2000);
     let power = args.iter().any(|a| a == "--power");
+    let only = only(&args);
     if args.iter().any(|a| a == "--methods") {
-        return methods(reps, if power { 1.0 } else { 0.0 });
+        return methods(reps, if power { 1.0 } else { 0.0 }, &only);
     }
     let shift = if power { 1.0 } else { 0.0 };
     let cells = grid(shift);
+    let chosen: Vec<usize> = (0..cells.len())
+        .filter(|&i| selected(&cells[i], &only))
+        .collect();
     let options = study_options();
     let (low, high) = bradley_liberal(options.fdr_level);
     let next = AtomicUsize::new(0);
@@ -31,10 +35,10 @@ fn main() {
     std::thread::scope(|scope| {
         for _ in 0..threads {
             scope.spawn(|| loop {
-                let i = next.fetch_add(1, Ordering::Relaxed);
-                if i >= cells.len() {
+                let j = next.fetch_add(1, Ordering::Relaxed);
+                let Some(&i) = chosen.get(j) else {
                     break;
-                }
+                };
                 let r = rate(&cells[i], reps, cell_state(i, shift), &options)
                     .expect("a simulated check runs");
                 results.lock().expect("no panic")[i] = Some(r);
@@ -49,7 +53,9 @@ fn main() {
     println!("|---|---|---|---|---|---|---|---|---|---|");
     let (mut outside, mut judged, mut declined_cells) = (0, 0, 0);
     for (cell, r) in cells.iter().zip(&results) {
-        let r = r.as_ref().expect("every cell ran");
+        let Some(r) = r.as_ref() else {
+            continue;
+        };
         let rate = r.flag_rate();
         let band = match rate {
             None => "-",
@@ -93,34 +99,69 @@ fn main() {
     }
     eprintln!(
         "{} cells x {reps} replicates in {:.0} s; {judged} cells with verdicts, {outside} above Bradley's liberal bound {high}; {declined_cells} cells mostly declined",
-        cells.len(),
+        chosen.len(),
         started.elapsed().as_secs_f64()
     );
+}
+
+/// `--only PATTERN[;PATTERN...]`: run only the cells whose row label `|k|n|variance ratio|values|`
+/// (as in the tables, e.g. `|5|5/50|16 on small|skewed|`) contains one of the patterns, e.g.
+/// `--only '|40|3|;skewed'`. The cells keep their random states, so their rates are those of the
+/// full run.
+fn only(args: &[String]) -> Vec<String> {
+    args.iter()
+        .position(|a| a == "--only")
+        .and_then(|i| args.get(i + 1))
+        .map(|p| p.split(';').map(str::to_string).collect())
+        .unwrap_or_default()
+}
+
+fn label(cell: &Cell) -> String {
+    format!(
+        "|{}|{}|{}|{}|",
+        cell.k,
+        cell.sizes.label(),
+        cell.spread.label(),
+        cell.shape.label()
+    )
+}
+
+fn selected(cell: &Cell, only: &[String]) -> bool {
+    only.is_empty() || only.iter().any(|p| label(cell).contains(p.as_str()))
 }
 
 /// `--methods`: the raw rejection rate at 0.05 of each candidate test on its own, per cell,
 /// outside the decision path: what the leading-method rule is chosen from. Classic F, Welch,
 /// Kruskal-Wallis; Brown and Forsythe's (1974) F* (the classic F's statistic for equal sizes with
 /// Satterthwaite's denominator df from the group variances); Mehrotra's (1997) F* (the same
-/// statistic with his modified numerator df); and "F and KW" (a flag only when the classic F and
-/// Kruskal-Wallis both reject: the concordance rule).
-fn methods(reps: usize, shift: f64) {
+/// statistic with his modified numerator df); "F and KW" (a flag only when the classic F and
+/// Kruskal-Wallis both reject: the concordance rule); Welch's F calibrated by the bootstrap-t
+/// (`stats::bootstrap::welch_bootstrap_t`, 599 resamples) and Krishnamoorthy, Lu and Mathew's
+/// parametric bootstrap (`stats::bootstrap::parametric_bootstrap`, 599 resamples).
+fn methods(reps: usize, shift: f64, only: &[String]) {
     use samewise::sample::Rng;
+    use samewise::stats::bootstrap::{
+        data_state, parametric_bootstrap, welch_bootstrap_t, BOOTSTRAP_RESAMPLES,
+    };
     use samewise::stats::describe::Summary;
     use samewise::stats::{anova::one_way, kruskal::kruskal_wallis, welch::welch};
     const ALPHA: f64 = 0.05;
-    const METHODS: usize = 6;
+    const METHODS: usize = 8;
     let cells = grid(shift);
+    let chosen: Vec<usize> = (0..cells.len())
+        .filter(|&i| selected(&cells[i], only))
+        .collect();
     let next = AtomicUsize::new(0);
-    let results: Mutex<Vec<[usize; METHODS]>> = Mutex::new(vec![[0; METHODS]; cells.len()]);
+    let results: Mutex<Vec<Option<[usize; METHODS]>>> = Mutex::new(vec![None; cells.len()]);
     let threads = std::thread::available_parallelism().map_or(1, |n| n.get());
+    let started = std::time::Instant::now();
     std::thread::scope(|scope| {
         for _ in 0..threads {
             scope.spawn(|| loop {
-                let i = next.fetch_add(1, Ordering::Relaxed);
-                if i >= cells.len() {
+                let j = next.fetch_add(1, Ordering::Relaxed);
+                let Some(&i) = chosen.get(j) else {
                     break;
-                }
+                };
                 let mut rng = Rng::new(cell_state(i, shift));
                 let mut count = [0usize; METHODS];
                 for _ in 0..reps {
@@ -131,37 +172,55 @@ fn methods(reps: usize, shift: f64) {
                     let p_welch = welch(&s).map_or(1.0, |t| t.p);
                     let p_kw = kruskal_wallis(&refs).map_or(1.0, |t| t.p);
                     let (p_bf, p_mehrotra) = brown_forsythe_means(&s);
-                    let ps = [p_f, p_welch, p_kw, p_bf, p_mehrotra, p_f.max(p_kw)];
+                    let state = data_state(&refs);
+                    let p_boot =
+                        welch_bootstrap_t(&refs, BOOTSTRAP_RESAMPLES, state).map_or(1.0, |t| t.p);
+                    let p_pb =
+                        parametric_bootstrap(&s, BOOTSTRAP_RESAMPLES, state).map_or(1.0, |t| t.p);
+                    let ps = [
+                        p_f,
+                        p_welch,
+                        p_kw,
+                        p_bf,
+                        p_mehrotra,
+                        p_f.max(p_kw),
+                        p_boot,
+                        p_pb,
+                    ];
                     for (c, p) in count.iter_mut().zip(ps) {
                         if p <= ALPHA {
                             *c += 1;
                         }
                     }
                 }
-                results.lock().expect("no panic")[i] = count;
+                results.lock().expect("no panic")[i] = Some(count);
             });
         }
     });
     println!(
-        "| k | n | variance ratio | values | F | Welch | Kruskal-Wallis | Brown-Forsythe F* | Mehrotra F* | F and KW |"
+        "| k | n | variance ratio | values | F | Welch | Kruskal-Wallis | Brown-Forsythe F* | Mehrotra F* | F and KW | Welch bootstrap-t | parametric bootstrap |"
     );
-    println!("|---|---|---|---|---|---|---|---|---|---|");
+    println!("|---|---|---|---|---|---|---|---|---|---|---|---|");
     for (cell, c) in cells.iter().zip(results.into_inner().expect("no panic")) {
+        let Some(c) = c else {
+            continue;
+        };
         let r = |x: usize| x as f64 / reps as f64;
+        let cols: Vec<String> = c.iter().map(|&x| format!("{:.3}", r(x))).collect();
         println!(
-            "| {} | {} | {} | {} | {:.3} | {:.3} | {:.3} | {:.3} | {:.3} | {:.3} |",
+            "| {} | {} | {} | {} | {} |",
             cell.k,
             cell.sizes.label(),
             cell.spread.label(),
             cell.shape.label(),
-            r(c[0]),
-            r(c[1]),
-            r(c[2]),
-            r(c[3]),
-            r(c[4]),
-            r(c[5])
+            cols.join(" | ")
         );
     }
+    eprintln!(
+        "{} cells x {reps} replicates in {:.0} s",
+        chosen.len(),
+        started.elapsed().as_secs_f64()
+    );
 }
 
 /// The p-values of Brown and Forsythe's (1974) F* for means and of Mehrotra's (1997) version

@@ -101,17 +101,21 @@ pub enum LeadingTest {
     ExactPermutation,
     /// Brown and Forsythe's F* test of means.
     FStar,
+    /// Welch's statistic with its p-value from the bootstrap-t.
+    #[serde(rename = "welch_bootstrap_t")]
+    WelchBootstrap,
     /// The F test of the factor with the subgroups as blocks (additive two-way model).
     BlockedF,
 }
 
 impl LeadingTest {
     /// Every leading test.
-    pub const ALL: [LeadingTest; 5] = [
+    pub const ALL: [LeadingTest; 6] = [
         LeadingTest::ClassicF,
         LeadingTest::Welch,
         LeadingTest::ExactPermutation,
         LeadingTest::FStar,
+        LeadingTest::WelchBootstrap,
         LeadingTest::BlockedF,
     ];
 
@@ -122,6 +126,7 @@ impl LeadingTest {
             LeadingTest::Welch => "welch",
             LeadingTest::ExactPermutation => "exact_permutation",
             LeadingTest::FStar => "f_star",
+            LeadingTest::WelchBootstrap => "welch_bootstrap_t",
             LeadingTest::BlockedF => "blocked_f",
         }
     }
@@ -138,6 +143,7 @@ impl LeadingTest {
             LeadingTest::Welch => "Welch F",
             LeadingTest::ExactPermutation => "exact",
             LeadingTest::FStar => "F*",
+            LeadingTest::WelchBootstrap => "Welch boot",
             LeadingTest::BlockedF => "F blocked",
         }
     }
@@ -149,6 +155,7 @@ impl LeadingTest {
             LeadingTest::Welch => "Welch",
             LeadingTest::ExactPermutation => "exact permutation",
             LeadingTest::FStar => "Brown-Forsythe F*",
+            LeadingTest::WelchBootstrap => "Welch, bootstrap-t p",
             LeadingTest::BlockedF => "F with subgroups as blocks",
         }
     }
@@ -162,6 +169,7 @@ impl From<crate::stats::oneway::LeadingMethod> for LeadingTest {
             M::Welch => LeadingTest::Welch,
             M::ExactPermutation => LeadingTest::ExactPermutation,
             M::FStar => LeadingTest::FStar,
+            M::WelchBootstrap => LeadingTest::WelchBootstrap,
         }
     }
 }

@@ -98,11 +98,13 @@ fn coarse_gauge_holds_the_level() {
     assert_in_band(&cell, 2, 600);
 }
 
-// Five groups of 30 whose variances differ sixteen-fold: Welch's test leads and holds the level.
+// Ten groups of 30 whose variances differ sixteen-fold: Welch's test leads with its F
+// distribution (more than 5 groups, so no bootstrap-t) and holds the level. With 5 groups of 30
+// the bootstrap-t gives the p-value (see the skewed 20/200 test below).
 #[test]
 fn unequal_spreads_with_enough_values_hold_the_level() {
     let cell = null_cell(
-        5,
+        10,
         Sizes::Balanced(30),
         Spread::Unequal {
             variance_ratio: 16.0,
@@ -131,6 +133,31 @@ fn small_equal_groups_with_unequal_spreads_hold_the_level_with_f_star() {
     let r = assert_in_band(&cell, 5, 2000);
     assert!(
         r.leading.get("f_star").copied().unwrap_or(0) > 1900,
+        "{r:?}"
+    );
+}
+
+// Three groups of 20, 200 and 20 skewed values (standardized lognormal), the small groups with
+// sixteen times the variance: Welch's test leads (unequal sizes at its size) and its F
+// distribution flagged 0.094 of these in the study; with at most 5 groups and 20-49 values in the
+// smallest, its p-value comes from the bootstrap-t, which holds the band (0.065 in the study).
+#[test]
+fn skewed_values_in_a_few_unequal_groups_hold_the_level_with_the_bootstrap_t() {
+    let cell = null_cell(
+        3,
+        Sizes::Alternating {
+            small: 20,
+            large: 200,
+        },
+        Spread::Unequal {
+            variance_ratio: 16.0,
+            on_small: true,
+        },
+        Shape::Skewed,
+    );
+    let r = assert_in_band(&cell, 6, 1000);
+    assert!(
+        r.leading.get("welch_bootstrap_t").copied().unwrap_or(0) > 950,
         "{r:?}"
     );
 }

@@ -868,7 +868,9 @@ fn one_test(frame: &Frame, task: &Task<'_>, options: &CheckOptions) -> Partial {
                             LeadingMethod::ClassicF => {
                                 ow.anova.as_ref().ok().map(|t| (t.df_between, t.df_within))
                             }
-                            LeadingMethod::Welch => {
+                            // The bootstrap's statistic is Welch's F: its df serve the
+                            // dependence allowance as for Welch's test.
+                            LeadingMethod::Welch | LeadingMethod::WelchBootstrap => {
                                 ow.welch.as_ref().ok().and_then(|t| t.df1.zip(t.df2))
                             }
                             LeadingMethod::FStar => {

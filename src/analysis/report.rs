@@ -992,6 +992,9 @@ fn requirement_texts(t: &TestResult) -> Vec<String> {
     if let Some(reason) = &t.leading.reason {
         match t.leading.method {
             Some(LeadingTest::Welch) => out.push(format!("Welch used: {reason}")),
+            Some(LeadingTest::WelchBootstrap) => {
+                out.push(format!("Welch with a bootstrap-t p used: {reason}"))
+            }
             Some(LeadingTest::FStar) => out.push(format!("Brown-Forsythe F* used: {reason}")),
             _ => {}
         }

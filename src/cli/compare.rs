@@ -1041,7 +1041,7 @@ fn render_pairs(o: &mut String, data: &GroupedData, r: &OneWay, options: &OneWay
         return;
     }
     let method = match r.leading.method {
-        LeadingMethod::Welch => "Games-Howell",
+        LeadingMethod::Welch | LeadingMethod::WelchBootstrap => "Games-Howell",
         LeadingMethod::ClassicF | LeadingMethod::ExactPermutation | LeadingMethod::FStar => {
             "Tukey-Kramer"
         }

@@ -456,7 +456,7 @@ pub struct SensitivityOut {
 /// The result the report leads with.
 #[derive(Debug, Clone, PartialEq, Serialize, JsonSchema)]
 pub struct LeadingOut {
-    /// `classic_f`, `welch`, `exact_permutation` or `f_star`.
+    /// `classic_f`, `welch`, `welch_bootstrap_t`, `exact_permutation` or `f_star`.
     pub method: String,
     /// Why it leads (or why no test could judge).
     pub reason: String,

@@ -10,6 +10,7 @@
 
 pub mod anova;
 pub mod blocked;
+pub mod bootstrap;
 pub mod changepoint;
 pub mod constant_groups;
 pub mod decimal;
