@@ -75,22 +75,23 @@ fn site_with(
     }
     let csv_path = dir.join(format!("{tag}.csv"));
     std::fs::write(&csv_path, csv).unwrap();
-    let stream = samewise::ingest::read_file(&csv_path, &config, None).unwrap();
-    let report = store
-        .import(
-            stream,
-            &samewise::storage::ImportOptions {
-                force: false,
-                started_at: Utc::now(),
-            },
-        )
-        .unwrap();
-    assert_eq!(
-        report.accepted as usize,
-        values.len(),
-        "{tag}: every value stored"
-    );
+    let accepted = import_into(&mut *store, &config, &csv_path);
+    assert_eq!(accepted as usize, values.len(), "{tag}: every value stored");
     (config, store)
+}
+
+/// Imports the CSV at `path` into `store` by the plant's layout; the values stored.
+fn import_into(
+    store: &mut dyn samewise::storage::PlantStore,
+    config: &samewise::config::Config,
+    path: &Path,
+) -> u64 {
+    let stream = samewise::ingest::read_file(path, config, None).unwrap();
+    let options = samewise::storage::ImportOptions {
+        force: false,
+        started_at: Utc::now(),
+    };
+    store.import(stream, &options).unwrap().accepted
 }
 
 #[test]
@@ -532,16 +533,7 @@ fn each_sites_shots_stay_its_own_subgroups() {
         }
         let csv_path = dir.join(format!("{tag}.csv"));
         std::fs::write(&csv_path, csv).unwrap();
-        let stream = samewise::ingest::read_file(&csv_path, &config, None).unwrap();
-        store
-            .import(
-                stream,
-                &samewise::storage::ImportOptions {
-                    force: false,
-                    started_at: Utc::now(),
-                },
-            )
-            .unwrap();
+        import_into(&mut *store, &config, &csv_path);
         stores.push((config, store));
     }
     let sites: Vec<Site<'_>> = ["a", "b"]

@@ -186,28 +186,36 @@ pub fn run(args: &CheckArgs) -> Result<ExitCode> {
     } else {
         print_summary(&mut out, &config, &period, &run, &content, None)
     };
-    // A closed stdout pipe counts as success.
+    finish(
+        written,
+        &content.tests,
+        &format!(
+            "{} holds no measurement of the checked characteristics",
+            period.label
+        ),
+    )
+}
+
+/// The end of a check: a closed stdout pipe counts as success, any other write error is the
+/// error; then the exit status: flagged, else no data (with a note naming what is missing,
+/// `no_data` in words), else ok.
+fn finish(written: std::io::Result<()>, tests: &[TestResult], no_data: &str) -> Result<ExitCode> {
     if let Err(e) = written {
         if e.kind() != std::io::ErrorKind::BrokenPipe {
             return Err(Error::io("<stdout>", e));
         }
     }
-    let flagged = content.tests.iter().any(|t| t.is_flag());
-    let no_data = content.tests.iter().all(|t| t.n_obs == 0);
-    if no_data {
+    if tests.iter().any(|t| t.is_flag()) {
+        return Ok(ExitCode::from(super::EXIT_FLAGGED));
+    }
+    if tests.iter().all(|t| t.n_obs == 0) {
         eprintln!(
-            "note: {} holds no measurement of the checked characteristics (exit status {}): is an export missing?",
-            period.label,
+            "note: {no_data} (exit status {}): is an export missing?",
             super::EXIT_NO_DATA
         );
+        return Ok(ExitCode::from(super::EXIT_NO_DATA));
     }
-    Ok(ExitCode::from(if flagged {
-        super::EXIT_FLAGGED
-    } else if no_data {
-        super::EXIT_NO_DATA
-    } else {
-        super::EXIT_OK
-    }))
+    Ok(ExitCode::from(super::EXIT_OK))
 }
 
 /// `samewise check --sites`: the period compared across sites (`analysis::sites`), printed as
@@ -255,26 +263,11 @@ fn run_sites(
     let written = if args.json {
         let tests: Vec<serde_json::Value> = sorted(&checked.content)
             .into_iter()
-            .map(|t| {
-                let c = spec(&t.characteristic).map(|c| &c.config);
-                crate::results::CheckedTest {
-                    result: t.clone(),
-                    unit: c.map(|c| c.unit.clone()).unwrap_or_default(),
-                    lsl: c.and_then(|c| c.lsl),
-                    usl: c.and_then(|c| c.usl),
-                    target: c.and_then(|c| c.target),
-                }
-                .to_json()
-            })
+            .map(|t| with_spec(t, spec(&t.characteristic).map(|c| &c.config)).to_json())
             .collect();
         let document = crate::outputs::sites::SitesDocument {
             plant: config.plant.name.clone(),
-            period: crate::results::CheckedPeriod {
-                kind: period.kind.as_str().to_string(),
-                label: period.label.clone(),
-                start: period.start.with_timezone(&tz).to_rfc3339(),
-                end: period.end.with_timezone(&tz).to_rfc3339(),
-            },
+            period: checked_period(period, tz),
             calendar,
             sites: checked
                 .sites
@@ -356,28 +349,14 @@ fn run_sites(
         };
         text()
     };
-    if let Err(e) = written {
-        if e.kind() != std::io::ErrorKind::BrokenPipe {
-            return Err(Error::io("<stdout>", e));
-        }
-    }
-    let tests = &checked.content.tests;
-    let flagged = tests.iter().any(|t| t.is_flag());
-    let no_data = tests.iter().all(|t| t.n_obs == 0);
-    if no_data {
-        eprintln!(
-            "note: the sites hold no measurement of a shared characteristic in {} (exit status {})",
-            period.label,
-            super::EXIT_NO_DATA
-        );
-    }
-    Ok(ExitCode::from(if flagged {
-        super::EXIT_FLAGGED
-    } else if no_data {
-        super::EXIT_NO_DATA
-    } else {
-        super::EXIT_OK
-    }))
+    finish(
+        written,
+        &checked.content.tests,
+        &format!(
+            "the sites hold no measurement of a shared characteristic in {}",
+            period.label
+        ),
+    )
 }
 
 /// A table cell: the number to 4 significant digits, or "-" when absent.
@@ -548,13 +527,30 @@ fn print_table(
 
 /// One test with its characteristic's unit and limits from the configuration.
 pub fn checked_test(config: &Config, t: &TestResult) -> crate::results::CheckedTest {
-    let c = config.characteristic(&t.characteristic);
+    with_spec(t, config.characteristic(&t.characteristic))
+}
+
+/// One test with the unit and limits of `c` (none when `c` is `None`).
+fn with_spec(
+    t: &TestResult,
+    c: Option<&crate::config::CharacteristicConfig>,
+) -> crate::results::CheckedTest {
     crate::results::CheckedTest {
         result: t.clone(),
         unit: c.map(|c| c.unit.clone()).unwrap_or_default(),
         lsl: c.and_then(|c| c.lsl),
         usl: c.and_then(|c| c.usl),
         target: c.and_then(|c| c.target),
+    }
+}
+
+/// The period of a check document, its instants in the plant's zone.
+fn checked_period(period: &Period, tz: chrono_tz::Tz) -> crate::results::CheckedPeriod {
+    crate::results::CheckedPeriod {
+        kind: period.kind.as_str().to_string(),
+        label: period.label.clone(),
+        start: crate::outputs::plant_time(period.start, tz),
+        end: crate::outputs::plant_time(period.end, tz),
     }
 }
 
@@ -567,7 +563,7 @@ pub fn check_document(
     content: &RunContent,
     findings: Option<CheckFindings>,
 ) -> serde_json::Value {
-    use crate::results::{CheckDocument, CheckedPeriod, CheckedRun};
+    use crate::results::{CheckDocument, CheckedRun};
     let tz = config.plant.time_zone;
     let tests: Vec<_> = sorted(content)
         .into_iter()
@@ -575,12 +571,7 @@ pub fn check_document(
         .collect();
     let document = CheckDocument {
         plant: config.plant.name.clone(),
-        period: CheckedPeriod {
-            kind: period.kind.as_str().to_string(),
-            label: period.label.clone(),
-            start: period.start.with_timezone(&tz).to_rfc3339(),
-            end: period.end.with_timezone(&tz).to_rfc3339(),
-        },
+        period: checked_period(period, tz),
         findings,
         run: CheckedRun {
             run_id: run.run_id,

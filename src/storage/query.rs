@@ -131,6 +131,26 @@ pub(crate) fn natural_cmp(a: &str, b: &str) -> std::cmp::Ordering {
 }
 
 /// The unknown-name error of a characteristic the database does not hold.
+/// The stored characteristics a period read asks for, in the order asked (`None`: all, in
+/// stored order); an unknown name is an error that lists the known ones. Both backends' reads.
+pub(crate) fn choose_characteristics<'a>(
+    stored: &'a [StoredCharacteristic],
+    names: Option<&[String]>,
+) -> Result<Vec<&'a StoredCharacteristic>> {
+    match names {
+        None => Ok(stored.iter().collect()),
+        Some(names) => names
+            .iter()
+            .map(|n| {
+                stored
+                    .iter()
+                    .find(|c| &c.config.name == n)
+                    .ok_or_else(|| unknown_characteristic(n, stored))
+            })
+            .collect(),
+    }
+}
+
 pub(crate) fn unknown_characteristic(name: &str, known: &[StoredCharacteristic]) -> Error {
     unknown_characteristic_among(name, known.iter().map(|c| c.config.name.as_str()))
 }
@@ -619,18 +639,7 @@ impl MeasurementStore for Store {
         characteristics: Option<&[String]>,
     ) -> Result<PeriodFrame> {
         let stored = load_characteristics(&self.conn)?;
-        let chosen: Vec<&StoredCharacteristic> = match characteristics {
-            None => stored.iter().collect(),
-            Some(names) => names
-                .iter()
-                .map(|n| {
-                    stored
-                        .iter()
-                        .find(|c| &c.config.name == n)
-                        .ok_or_else(|| unknown_characteristic(n, &stored))
-                })
-                .collect::<Result<_>>()?,
-        };
+        let chosen = choose_characteristics(&stored, characteristics)?;
         let factors: Vec<_> = load_factors(&self.conn)?
             .into_iter()
             .filter(|f| f.is_configured)

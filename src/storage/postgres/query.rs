@@ -14,7 +14,7 @@ use super::master::{load_characteristics, load_factors};
 use super::PgStore;
 use crate::storage::master::{StoredCharacteristic, StoredFactor};
 use crate::storage::query::{
-    unknown_characteristic, FrameBuilder, MeasurementStore, PeriodFrame, ReaderOpener,
+    choose_characteristics, FrameBuilder, MeasurementStore, PeriodFrame, ReaderOpener,
 };
 use crate::{Error, Result};
 
@@ -77,18 +77,7 @@ impl MeasurementStore for PgStore {
         // 5 to 100 ms a query and gains nothing on a scan with no expressions: off as well.
         tx.batch_execute("SET LOCAL enable_sort = off; SET LOCAL jit = off")?;
         let stored = load_characteristics(&mut tx)?;
-        let chosen: Vec<&StoredCharacteristic> = match characteristics {
-            None => stored.iter().collect(),
-            Some(names) => names
-                .iter()
-                .map(|n| {
-                    stored
-                        .iter()
-                        .find(|c| &c.config.name == n)
-                        .ok_or_else(|| unknown_characteristic(n, &stored))
-                })
-                .collect::<Result<_>>()?,
-        };
+        let chosen = choose_characteristics(&stored, characteristics)?;
         let factors: Vec<StoredFactor> = load_factors(&mut tx)?
             .into_iter()
             .filter(|f| f.is_configured)
