@@ -457,12 +457,18 @@ fn sites_in_one_database_are_compared_with_the_site_as_the_factor() {
         err.contains(&format!("site nowhere_{pid}")) && err.contains(names[1].as_str()),
         "{err}"
     );
-    // Shifts are each site's own.
+    // Shifts are each site's own: the two flags are refused together (by the command line,
+    // before any shift name is looked at).
     let out = samewise(
         &dirs[0],
         &["check", "--shift", "2026-11-10/early", "--sites", &list],
     );
-    assert!(!out.status.success());
+    assert_eq!(out.status.code(), Some(2), "{}", output_text(&out));
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(
+        err.contains("--shift") && err.contains("cannot be used with") && err.contains("--sites"),
+        "{err}"
+    );
 }
 
 #[test]
